@@ -1,0 +1,1 @@
+"""Computation and file I/O for bandwatch: no user interface imports here."""

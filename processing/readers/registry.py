@@ -1,0 +1,94 @@
+"""Choose a reader by a file's content (then its extension) and read it, read-only.
+
+Each reader module offers:
+    FORMAT_NAME: str
+    EXTENSIONS: tuple[str, ...]           lower-case, with the dot
+    identify(head: bytes) -> bool         True when the first bytes look like this format
+    parse(data: bytes, source: str) -> Spectrum | LineList
+                                          raises SpectrumFileError naming `source`
+Adding a format = one module with those four names, listed in `READERS` below.
+"""
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import replace
+from pathlib import Path
+from types import ModuleType
+
+from processing.errors import SpectrumFileError
+from processing.spectrum import LineList, Spectrum
+
+DEFAULT_MAX_BYTES = 256 * 1024 * 1024
+HEAD_BYTES = 4096
+
+
+def _readers() -> tuple[ModuleType, ...]:
+    from processing.readers import delimited, jcamp
+
+    # Order matters: the most specific identifier first; delimited text is the catch-all.
+    return (jcamp, delimited)
+
+
+def load_bytes(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES) -> bytes:
+    """The file's bytes, opened read-only; refuses empty and over-size files."""
+    source = str(path)
+    try:
+        size = os.stat(source).st_size
+        if size > max_bytes:
+            raise SpectrumFileError(
+                source, f"file is {size / 1e6:.1f} MB, over the {max_bytes / 1e6:.0f} MB limit"
+            )
+        with open(source, "rb") as handle:
+            data = handle.read(max_bytes + 1)
+    except FileNotFoundError:
+        raise SpectrumFileError(source, "no such file") from None
+    except IsADirectoryError:
+        raise SpectrumFileError(source, "is a directory, not a file") from None
+    except PermissionError:
+        raise SpectrumFileError(source, "permission denied") from None
+    except OSError as error:
+        raise SpectrumFileError(source, f"cannot be read ({error.strerror or error})") from None
+    if len(data) > max_bytes:
+        raise SpectrumFileError(source, f"file grew past the {max_bytes / 1e6:.0f} MB limit")
+    if not data.strip():
+        raise SpectrumFileError(source, "file is empty")
+    return data
+
+
+def looks_binary(head: bytes) -> bool:
+    """True for data that is not text: NUL bytes or many control characters."""
+    if b"\x00" in head:
+        return True
+    sample = head[:HEAD_BYTES]
+    control = sum(1 for byte in sample if byte < 9 or 13 < byte < 32)
+    return control > max(2, len(sample) // 100)
+
+
+def choose_reader(data: bytes, source: str) -> ModuleType:
+    """The reader for these bytes: by content first, then by the file's extension."""
+    head = data[:HEAD_BYTES]
+    if looks_binary(head):
+        raise SpectrumFileError(source, "binary data, not a text spectrum format bandwatch reads")
+    readers = _readers()
+    for reader in readers:
+        if reader.identify(head):
+            return reader
+    suffix = Path(source).suffix.lower()
+    for reader in readers:
+        if suffix in reader.EXTENSIONS:
+            return reader
+    raise SpectrumFileError(source, "not a recognised spectrum format (JCAMP-DX or delimited text)")
+
+
+def parse_bytes(data: bytes, source: str = "<data>") -> Spectrum | LineList:
+    """Parse bytes already in memory; stamps the sha256 and source path into the metadata."""
+    reader = choose_reader(data, source)
+    result = reader.parse(data, source)
+    meta = replace(result.meta, source_path=source, sha256=hashlib.sha256(data).hexdigest())
+    return replace(result, meta=meta)
+
+
+def read_any(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES) -> Spectrum | LineList:
+    """Read a spectrum or line-list file of any supported format (read-only)."""
+    return parse_bytes(load_bytes(path, max_bytes), str(path))

@@ -1,0 +1,1 @@
+"""Placeholder: the isotopologue library (filled by the physics work)."""

@@ -1,0 +1,42 @@
+"""The core/UI wall: no module under processing/ may pull in textual, rich or tui."""
+from __future__ import annotations
+
+import pkgutil
+import subprocess
+import sys
+
+import processing
+
+PROCESSING_MODULES = sorted(
+    module.name for module in pkgutil.walk_packages(processing.__path__, prefix="processing.")
+)
+
+
+def test_there_are_processing_modules_to_check() -> None:
+    assert "processing.spectrum" in PROCESSING_MODULES
+    assert "processing.readers.registry" in PROCESSING_MODULES
+
+
+def test_processing_modules_import_no_interface_code() -> None:
+    # One fresh interpreter imports every module, then reports what got loaded.
+    code = (
+        "import importlib, sys\n"
+        f"for name in {PROCESSING_MODULES!r}:\n"
+        "    importlib.import_module(name)\n"
+        "bad = sorted(m for m in sys.modules if m.split('.')[0] in ('textual', 'rich', 'tui'))\n"
+        "print(','.join(bad))\n"
+    )
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert result.stdout.strip() == ""
+
+
+def test_process_command_path_does_not_import_textual() -> None:
+    code = (
+        "import sys\n"
+        "from tui.cli import build_parser\n"
+        "build_parser()\n"
+        "import tui.commands.process\n"
+        "print('textual' in sys.modules)\n"
+    )
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert result.stdout.strip() == "False"

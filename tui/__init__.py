@@ -1,0 +1,1 @@
+"""bandwatch's terminal interface and command line (renders results, sends commands)."""

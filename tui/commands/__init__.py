@@ -1,0 +1,1 @@
+"""One module per `bandwatch` subcommand (see `tui/cli.py`)."""
