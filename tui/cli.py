@@ -13,6 +13,7 @@ import sys
 COMMANDS: dict[str, str] = {
     "process": "process",
     "simulate": "simulate",
+    "demo": "demo",
 }
 
 
