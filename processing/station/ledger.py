@@ -1,0 +1,547 @@
+"""The ledger: a small SQLite store of runs (one row per file version) and operator decisions.
+
+Plain functions over a connection, returning frozen dataclasses. Each thread or process opens
+its own connection with `open_ledger`; WAL mode lets readers (`bandwatch ledger list`, the app)
+read while the station writes. The schema version lives in `PRAGMA user_version`; `MIGRATIONS`
+takes any older ledger forward. Decisions are an append-only audit trail: a change of mind is a
+new event and "undo" is a new event that reverts to the state before the latest decision.
+
+Runs in progress are not rows in `runs`: the station first writes a claim (`claim_file`), and
+`record_run(..., claim_id=...)` writes the run and drops the claim in one transaction, so a
+station killed mid-file leaves only a claim, which the next start redoes.
+"""
+from __future__ import annotations
+
+import json
+import sqlite3
+from collections.abc import Iterable
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+LEDGER_FILE = "ledger.sqlite3"
+RUN_STATUSES = ("processed", "unreadable", "failed")
+DECISION_ACTIONS = ("accept", "flag")
+UNDO = "undo"
+BUSY_TIMEOUT_MS = 10_000
+
+
+class LedgerError(Exception):
+    """A ledger that cannot be used as it stands (e.g. written by a newer bandwatch)."""
+
+
+# Each entry takes the schema from user_version == index to index + 1. Never edit an entry
+# that has shipped; add a new one.
+MIGRATIONS: tuple[str, ...] = (
+    # 0 -> 1: runs and decisions
+    """
+    CREATE TABLE runs (
+        run_id       INTEGER PRIMARY KEY AUTOINCREMENT,
+        path         TEXT NOT NULL,
+        sha256       TEXT,
+        version      INTEGER NOT NULL,
+        status       TEXT NOT NULL,
+        verdict      TEXT,
+        species      TEXT NOT NULL DEFAULT '',
+        result_json  TEXT,
+        error        TEXT,
+        received_at  TEXT NOT NULL,
+        processed_at TEXT,
+        UNIQUE (path, version)
+    );
+    CREATE INDEX runs_by_path ON runs (path, version);
+    CREATE TABLE decisions (
+        event_id  INTEGER PRIMARY KEY AUTOINCREMENT,
+        run_id    INTEGER NOT NULL REFERENCES runs (run_id),
+        action    TEXT NOT NULL CHECK (action IN ('accept', 'flag', 'undo')),
+        reason    TEXT NOT NULL DEFAULT '',
+        operator  TEXT NOT NULL DEFAULT '',
+        at        TEXT NOT NULL
+    );
+    CREATE INDEX decisions_by_run ON decisions (run_id, event_id);
+    CREATE TRIGGER decisions_append_only_update BEFORE UPDATE ON decisions
+    BEGIN SELECT RAISE(ABORT, 'decisions are append-only'); END;
+    CREATE TRIGGER decisions_append_only_delete BEFORE DELETE ON decisions
+    BEGIN SELECT RAISE(ABORT, 'decisions are append-only'); END;
+    """,
+    # 1 -> 2: claims (runs in progress), settings of reprocessed runs
+    """
+    ALTER TABLE runs ADD COLUMN settings_json TEXT;
+    ALTER TABLE runs ADD COLUMN reprocessed_from INTEGER REFERENCES runs (run_id);
+    CREATE TABLE claims (
+        claim_id    INTEGER PRIMARY KEY AUTOINCREMENT,
+        path        TEXT NOT NULL,
+        sha256      TEXT,
+        received_at TEXT NOT NULL,
+        owner_pid   INTEGER
+    );
+    CREATE INDEX claims_by_path ON claims (path);
+    """,
+)
+SCHEMA_VERSION = len(MIGRATIONS)
+
+
+@dataclass(frozen=True)
+class RunRecord:
+    """One version of one file, as the ledger holds it, with its current decision."""
+
+    run_id: int
+    path: str
+    sha256: str | None
+    version: int
+    status: str  # "processed" | "unreadable" | "failed"
+    verdict: str | None
+    decision: str | None  # "accept" | "flag" | None (no decision, or all undone)
+    decision_reason: str | None
+    operator: str | None  # who made the current decision
+    received_at: str
+    processed_at: str | None
+    species: tuple[str, ...]
+    error: str | None
+    result: dict[str, Any] | None
+    settings: dict[str, Any] | None = None  # only for runs reprocessed with changed settings
+    reprocessed_from: int | None = None
+    decided_at: str | None = None
+
+    @property
+    def name(self) -> str:
+        """The file name without its folder, for tables and event lines."""
+        return Path(self.path).name
+
+
+@dataclass(frozen=True)
+class DecisionEvent:
+    """One entry of the append-only decision trail ("accept", "flag" or "undo")."""
+
+    event_id: int
+    run_id: int
+    action: str
+    reason: str
+    operator: str
+    at: str
+
+
+@dataclass(frozen=True)
+class Claim:
+    """A file the station has taken on but not yet recorded (a run in progress)."""
+
+    claim_id: int
+    path: str
+    sha256: str | None
+    received_at: str
+    owner_pid: int | None
+
+
+def now_iso() -> str:
+    """The current UTC time as ISO 8601 with milliseconds (sorts as text)."""
+    return datetime.now(timezone.utc).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+def ledger_path(data_dir: str | Path) -> Path:
+    return Path(data_dir) / LEDGER_FILE
+
+
+def open_ledger(data_dir: str | Path) -> sqlite3.Connection:
+    """Open (creating and migrating as needed) the ledger in `data_dir`; one per thread."""
+    folder = Path(data_dir)
+    folder.mkdir(parents=True, exist_ok=True)
+    conn = sqlite3.connect(ledger_path(folder), timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None)
+    conn.row_factory = sqlite3.Row
+    conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+    mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+    if str(mode).lower() != "wal":
+        raise LedgerError(f"{ledger_path(folder)}: cannot switch to WAL journal mode (got {mode})")
+    conn.execute("PRAGMA synchronous = NORMAL")
+    conn.execute("PRAGMA foreign_keys = ON")
+    migrate(conn)
+    return conn
+
+
+def schema_version(conn: sqlite3.Connection) -> int:
+    return int(conn.execute("PRAGMA user_version").fetchone()[0])
+
+
+def migrate(conn: sqlite3.Connection) -> int:
+    """Bring the schema to SCHEMA_VERSION; returns the version found before migrating."""
+    found = schema_version(conn)
+    if found == SCHEMA_VERSION:
+        return found
+    if found > SCHEMA_VERSION:
+        raise LedgerError(
+            f"ledger schema version {found} is newer than this bandwatch understands "
+            f"({SCHEMA_VERSION}); upgrade bandwatch"
+        )
+    conn.execute("BEGIN IMMEDIATE")
+    try:
+        current = schema_version(conn)  # another process may have migrated meanwhile
+        for version in range(current, SCHEMA_VERSION):
+            for statement in _statements(MIGRATIONS[version]):
+                conn.execute(statement)
+            conn.execute(f"PRAGMA user_version = {version + 1}")
+        conn.execute("COMMIT")
+    except BaseException:
+        conn.execute("ROLLBACK")
+        raise
+    return found
+
+
+def _statements(script: str) -> Iterable[str]:
+    """Split a migration script into statements (trigger bodies kept whole)."""
+    buffer = ""
+    for piece in script.split(";"):
+        buffer += piece + ";"
+        if sqlite3.complete_statement(buffer):
+            if buffer.strip(" \n;"):
+                yield buffer.strip()
+            buffer = ""
+
+
+class _Transaction:
+    """`with _Transaction(conn):` = BEGIN IMMEDIATE ... COMMIT (ROLLBACK on error)."""
+
+    def __init__(self, conn: sqlite3.Connection) -> None:
+        self.conn = conn
+
+    def __enter__(self) -> sqlite3.Connection:
+        self.conn.execute("BEGIN IMMEDIATE")
+        return self.conn
+
+    def __exit__(self, exc_type: object, exc: object, tb: object) -> None:
+        self.conn.execute("COMMIT" if exc_type is None else "ROLLBACK")
+
+
+# ---------------------------------------------------------------- runs
+
+
+def species_in_result(result: dict[str, Any] | None) -> tuple[str, ...]:
+    """Isotopologues the analysis found: labels in bands, constants, then assigned lines."""
+    if not result:
+        return ()
+    found: list[str] = []
+    for key in ("bands", "constants", "lines"):
+        for item in result.get(key) or ():
+            if isinstance(item, dict):
+                label = item.get("isotopologue") or item.get("species")
+                if isinstance(label, str) and label and label not in found:
+                    found.append(label)
+    return tuple(found)
+
+
+def next_version(conn: sqlite3.Connection, path: str) -> int:
+    row = conn.execute("SELECT MAX(version) FROM runs WHERE path = ?", (path,)).fetchone()
+    return int(row[0] or 0) + 1
+
+
+def record_run(
+    conn: sqlite3.Connection,
+    path: str,
+    sha256: str | None,
+    status: str,
+    *,
+    result: dict[str, Any] | None = None,
+    error: str | None = None,
+    verdict: str | None = None,
+    species: tuple[str, ...] | None = None,
+    received_at: str | None = None,
+    processed_at: str | None = None,
+    claim_id: int | None = None,
+    settings: dict[str, Any] | None = None,
+    reprocessed_from: int | None = None,
+) -> RunRecord:
+    """Record a finished run as the next version of `path`; drops `claim_id` atomically.
+
+    `verdict` and `species` default to what `result` says.
+    """
+    if status not in RUN_STATUSES:
+        raise ValueError(f"run status must be one of {RUN_STATUSES}, not {status!r}")
+    if verdict is None and result is not None:
+        verdict = result.get("verdict")
+    if species is None:
+        species = species_in_result(result)
+    stamp = now_iso()
+    with _Transaction(conn):
+        version = next_version(conn, path)
+        cursor = conn.execute(
+            "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error,"
+            " received_at, processed_at, settings_json, reprocessed_from)"
+            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (
+                path,
+                sha256,
+                version,
+                status,
+                verdict,
+                ",".join(species),
+                json.dumps(result) if result is not None else None,
+                error,
+                received_at or stamp,
+                processed_at or stamp,
+                json.dumps(settings) if settings is not None else None,
+                reprocessed_from,
+            ),
+        )
+        if claim_id is not None:
+            conn.execute("DELETE FROM claims WHERE claim_id = ?", (claim_id,))
+        run_id = int(cursor.lastrowid or 0)
+    record = get_run(conn, run_id)
+    assert record is not None
+    return record
+
+
+def record_reprocessed(
+    conn: sqlite3.Connection,
+    run_id: int,
+    result: dict[str, Any] | None,
+    settings: dict[str, Any],
+    *,
+    status: str | None = None,
+    error: str | None = None,
+) -> RunRecord:
+    """Record a run reprocessed with changed settings: a new version of the same file."""
+    original = get_run(conn, run_id)
+    if original is None:
+        raise LedgerError(f"no run {run_id} in the ledger")
+    if status is None:
+        status = (result or {}).get("status") or "failed"
+    if status not in RUN_STATUSES:
+        status = "failed"
+    return record_run(
+        conn,
+        original.path,
+        (result or {}).get("sha256") or original.sha256,
+        status,
+        result=result,
+        error=error if error is not None else (result or {}).get("error"),
+        settings=settings,
+        reprocessed_from=run_id,
+    )
+
+
+_RUN_COLUMNS = (
+    "run_id, path, sha256, version, status, verdict, species, result_json, error, received_at,"
+    " processed_at, settings_json, reprocessed_from"
+)
+
+
+def _current_decisions(conn: sqlite3.Connection, run_ids: list[int] | None) -> dict[int, DecisionEvent]:
+    """run_id -> the decision event currently in effect (runs with none are absent)."""
+    if run_ids is None:
+        rows = conn.execute("SELECT * FROM decisions ORDER BY event_id").fetchall()
+    elif not run_ids:
+        return {}
+    else:
+        marks = ",".join("?" * len(run_ids))
+        rows = conn.execute(
+            f"SELECT * FROM decisions WHERE run_id IN ({marks}) ORDER BY event_id", run_ids
+        ).fetchall()
+    stacks: dict[int, list[DecisionEvent]] = {}
+    for row in rows:
+        _apply(stacks.setdefault(row["run_id"], []), _event(row))
+    return {run_id: stack[-1] for run_id, stack in stacks.items() if stack}
+
+
+def _apply(stack: list[DecisionEvent], event: DecisionEvent) -> None:
+    """Replay one event: a decision pushes, an undo reverts to the state before the last one."""
+    if event.action == UNDO:
+        if stack:
+            stack.pop()
+    else:
+        stack.append(event)
+
+
+def _event(row: sqlite3.Row) -> DecisionEvent:
+    return DecisionEvent(
+        event_id=row["event_id"],
+        run_id=row["run_id"],
+        action=row["action"],
+        reason=row["reason"],
+        operator=row["operator"],
+        at=row["at"],
+    )
+
+
+def _record(row: sqlite3.Row, decision: DecisionEvent | None, with_result: bool = True) -> RunRecord:
+    return RunRecord(
+        run_id=row["run_id"],
+        path=row["path"],
+        sha256=row["sha256"],
+        version=row["version"],
+        status=row["status"],
+        verdict=row["verdict"],
+        decision=decision.action if decision else None,
+        decision_reason=decision.reason if decision else None,
+        operator=decision.operator if decision else None,
+        received_at=row["received_at"],
+        processed_at=row["processed_at"],
+        species=tuple(s for s in (row["species"] or "").split(",") if s),
+        error=row["error"],
+        result=json.loads(row["result_json"]) if with_result and row["result_json"] else None,
+        settings=json.loads(row["settings_json"]) if row["settings_json"] else None,
+        reprocessed_from=row["reprocessed_from"],
+        decided_at=decision.at if decision else None,
+    )
+
+
+def list_runs(
+    conn: sqlite3.Connection,
+    limit: int | None = None,
+    *,
+    latest_only: bool = False,
+    with_result: bool = True,
+) -> list[RunRecord]:
+    """Runs newest first; `latest_only` keeps only the newest version of each file."""
+    where = (
+        " WHERE version = (SELECT MAX(version) FROM runs AS later WHERE later.path = runs.path)"
+        if latest_only
+        else ""
+    )
+    sql = f"SELECT {_RUN_COLUMNS} FROM runs{where} ORDER BY run_id DESC"
+    params: tuple[int, ...] = ()
+    if limit is not None:
+        sql += " LIMIT ?"
+        params = (int(limit),)
+    rows = conn.execute(sql, params).fetchall()
+    decisions = _current_decisions(conn, [row["run_id"] for row in rows] if limit else None)
+    return [_record(row, decisions.get(row["run_id"]), with_result) for row in rows]
+
+
+def get_run(conn: sqlite3.Connection, run_id: int) -> RunRecord | None:
+    row = conn.execute(f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = ?", (int(run_id),)).fetchone()
+    if row is None:
+        return None
+    return _record(row, _current_decisions(conn, [int(run_id)]).get(int(run_id)))
+
+
+def latest_run_for_path(conn: sqlite3.Connection, path: str) -> RunRecord | None:
+    row = conn.execute(
+        f"SELECT {_RUN_COLUMNS} FROM runs WHERE path = ? ORDER BY version DESC LIMIT 1", (path,)
+    ).fetchone()
+    if row is None:
+        return None
+    return _record(row, _current_decisions(conn, [row["run_id"]]).get(row["run_id"]), with_result=False)
+
+
+def latest_sha_by_path(conn: sqlite3.Connection) -> dict[str, str | None]:
+    """path -> sha256 of its newest version: what the station already has."""
+    rows = conn.execute(
+        "SELECT path, sha256 FROM runs AS r WHERE version ="
+        " (SELECT MAX(version) FROM runs WHERE path = r.path)"
+    ).fetchall()
+    return {row["path"]: row["sha256"] for row in rows}
+
+
+# ---------------------------------------------------------------- claims
+
+
+def claim_file(conn: sqlite3.Connection, path: str, sha256: str | None, owner_pid: int | None = None) -> Claim:
+    """Mark a file as taken on (a run in progress)."""
+    stamp = now_iso()
+    with _Transaction(conn):
+        cursor = conn.execute(
+            "INSERT INTO claims (path, sha256, received_at, owner_pid) VALUES (?, ?, ?, ?)",
+            (path, sha256, stamp, owner_pid),
+        )
+    return Claim(int(cursor.lastrowid or 0), path, sha256, stamp, owner_pid)
+
+
+def list_claims(conn: sqlite3.Connection) -> list[Claim]:
+    rows = conn.execute("SELECT * FROM claims ORDER BY claim_id").fetchall()
+    return [Claim(r["claim_id"], r["path"], r["sha256"], r["received_at"], r["owner_pid"]) for r in rows]
+
+
+def drop_claim(conn: sqlite3.Connection, claim_id: int) -> None:
+    with _Transaction(conn):
+        conn.execute("DELETE FROM claims WHERE claim_id = ?", (claim_id,))
+
+
+# ---------------------------------------------------------------- decisions
+
+
+def record_decision(
+    conn: sqlite3.Connection, run_id: int, action: str, reason: str, operator: str
+) -> DecisionEvent:
+    """Append an accept or flag decision for a run."""
+    if action not in DECISION_ACTIONS:
+        raise ValueError(f"decision must be one of {DECISION_ACTIONS}, not {action!r}")
+    return _append_event(conn, run_id, action, reason, operator)
+
+
+def undo_last_decision(conn: sqlite3.Connection, run_id: int, operator: str) -> DecisionEvent | None:
+    """Append an undo that reverts the decision in effect; None when there is none to undo."""
+    with _Transaction(conn):
+        current = _current_decisions(conn, [int(run_id)]).get(int(run_id))
+        if current is None:
+            return None
+        reason = f"undo of {current.action} (event {current.event_id})"
+        return _insert_event(conn, run_id, UNDO, reason, operator)
+
+
+def _append_event(conn: sqlite3.Connection, run_id: int, action: str, reason: str, operator: str) -> DecisionEvent:
+    with _Transaction(conn):
+        return _insert_event(conn, run_id, action, reason, operator)
+
+
+def _insert_event(conn: sqlite3.Connection, run_id: int, action: str, reason: str, operator: str) -> DecisionEvent:
+    if conn.execute("SELECT 1 FROM runs WHERE run_id = ?", (int(run_id),)).fetchone() is None:
+        raise LedgerError(f"no run {run_id} in the ledger")
+    stamp = now_iso()
+    cursor = conn.execute(
+        "INSERT INTO decisions (run_id, action, reason, operator, at) VALUES (?, ?, ?, ?, ?)",
+        (int(run_id), action, reason or "", operator or "", stamp),
+    )
+    return DecisionEvent(int(cursor.lastrowid or 0), int(run_id), action, reason or "", operator or "", stamp)
+
+
+def decision_history(conn: sqlite3.Connection, run_id: int) -> list[DecisionEvent]:
+    """Every decision event of a run, oldest first."""
+    rows = conn.execute(
+        "SELECT * FROM decisions WHERE run_id = ? ORDER BY event_id", (int(run_id),)
+    ).fetchall()
+    return [_event(row) for row in rows]
+
+
+def all_decisions(conn: sqlite3.Connection) -> list[DecisionEvent]:
+    return [_event(row) for row in conn.execute("SELECT * FROM decisions ORDER BY event_id")]
+
+
+# ---------------------------------------------------------------- trends
+
+
+BAND_QUANTITIES = ("origin", "B_upper", "B_lower")
+
+
+def constant_history(
+    conn: sqlite3.Connection, isotopologue: str, quantity: str
+) -> list[tuple[str, int, float, float | None]]:
+    """(processed time, run_id, value, sigma) of one fitted quantity over processed runs.
+
+    Reads the newest version of each file only (a reprocessed file is one measurement).
+    `quantity` is a band key ("origin", "B_upper", "B_lower") or a constants key ("B_e", ...);
+    each is a {"value", "sigma"} object in the result JSON. Oldest first.
+    """
+    rows = conn.execute(
+        "SELECT run_id, processed_at, result_json FROM runs AS r WHERE status = 'processed'"
+        " AND result_json IS NOT NULL"
+        " AND version = (SELECT MAX(version) FROM runs WHERE path = r.path)"
+        " ORDER BY processed_at, run_id"
+    ).fetchall()
+    history: list[tuple[str, int, float, float | None]] = []
+    for row in rows:
+        result = json.loads(row["result_json"])
+        for section in ("bands", "constants"):
+            for item in result.get(section) or ():
+                if not isinstance(item, dict) or item.get("isotopologue") != isotopologue:
+                    continue
+                estimate = item.get(quantity)
+                if isinstance(estimate, dict) and isinstance(estimate.get("value"), (int, float)):
+                    sigma = estimate.get("sigma")
+                    history.append(
+                        (
+                            row["processed_at"],
+                            int(row["run_id"]),
+                            float(estimate["value"]),
+                            float(sigma) if isinstance(sigma, (int, float)) else None,
+                        )
+                    )
+    return history
