@@ -44,3 +44,7 @@ class ConfigError(BandwatchError):
 
 class AnalysisError(BandwatchError):
     """The analysis cannot proceed on a readable spectrum (e.g. no usable points)."""
+
+
+class UnknownSpeciesError(BandwatchError):
+    """A molecule or isotopologue name the library does not know (one-line message)."""
