@@ -1,0 +1,607 @@
+"""Delimited text spectra (CSV, TSV, semicolon, whitespace columns): reader and CSV writer.
+
+The reader is the registry's catch-all. It finds where the numbers start (after a byte-order
+mark, free text and a column header), detects the separator and decimal mark from the first
+rows, then parses the numeric body in one vectorised pass: separators become spaces with
+`bytes.translate` and `numpy.fromstring` converts every value at C speed. Only when that fast
+pass disagrees with the expected shape does a slow line-by-line pass run, to name the first
+offending line. Trailing text after the data is dropped with a note; text followed by more
+data is an error.
+
+Inside bandwatch x is wavenumber in cm-1; micrometre and nanometre columns are converted here
+(cm-1 = 1e4 / um = 1e7 / nm) and y becomes decadic absorbance via `Spectrum`'s conversion.
+"""
+from __future__ import annotations
+
+import io
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import BinaryIO, TextIO
+
+import numpy as np
+
+from processing.errors import SpectrumFileError
+from processing.spectrum import FileMetadata, Spectrum, to_absorbance
+
+FORMAT_NAME = "delimited text"
+EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".dat", ".prn", ".asc")
+
+UTF8_BOM = b"\xef\xbb\xbf"
+# Lines of free text (titles, export banners) allowed before the first data row.
+MAX_LEADING_TEXT_LINES = 60
+# Lines of trailing text (footers) allowed after the last data row.
+MAX_TRAILING_TEXT_LINES = 60
+# Rows sampled at the top of the data to settle separator and decimal mark.
+PROBE_ROWS = 50
+# x steps varying by more than this fraction of the median step get a note (values rounded
+# off their grid, e.g. 2 decimals on a 0.125 cm-1 grid: +-0.005 is 4 %).
+ROUNDING_NOTE_FRACTION = 1e-3
+
+SEPARATOR_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", " ": "whitespace"}
+
+_NUMBER = re.compile(
+    r"[+-]?(?:(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?|nan|inf|infinity)\Z", re.IGNORECASE
+)
+# A header token keeps a parenthesised unit with its name: "Wavenumber (cm-1)".
+_HEADER_TOKEN = re.compile(r"[^\s(\[]+(?:\s*[(\[][^)\]]*[)\]])?|[(\[][^)\]]*[)\]]")
+
+
+def _word(pattern: str) -> re.Pattern[str]:
+    """A case-insensitive pattern that must not touch other letters on either side."""
+    return re.compile(rf"(?<![a-zµμ])(?:{pattern})(?![a-z])", re.IGNORECASE)
+
+
+_X_CM1 = re.compile(
+    r"cm\s*(?:-|−|\^\s*-|⁻)\s*(?:1|¹)|1\s*/\s*cm|wave\s*numbers?|wavenumbers?", re.IGNORECASE
+)
+_X_UM = _word(r"µm|μm|um|microns?|micrometres?|micrometers?")
+_X_NM = _word(r"nm|nanometres?|nanometers?")
+_X_WAVELENGTH = _word(r"wavelength|lambda|λ")
+_Y_PERCENT = re.compile(r"%|percent", re.IGNORECASE)
+_Y_ABSORBANCE = _word(r"a|abs|absorbance|absorption|au|a\.u\.")
+_Y_TRANSMITTANCE = _word(r"t|trans|transmittance|transmission|transmissivity")
+
+
+@dataclass(frozen=True)
+class _RowFormat:
+    """How one data row is laid out."""
+
+    separator: str  # ",", ";", "\t" or " " (any run of whitespace)
+    decimal_comma: bool
+    columns: int
+    trailing_separator: bool
+
+
+@dataclass(frozen=True)
+class _Table:
+    """The numeric body as a (rows, columns) array and the file line of each row."""
+
+    values: np.ndarray
+    first_line: int  # line of row 0 when rows are contiguous
+    row_lines: np.ndarray | None  # per-row line numbers when rows are not contiguous
+
+    def line_of(self, row: int) -> int:
+        if self.row_lines is not None:
+            return int(self.row_lines[row])
+        return self.first_line + row
+
+
+# ----------------------------------------------------------------------------- helpers
+
+
+def _decode_line(raw: bytes) -> str:
+    """Text of one header or probe line; tolerant of Latin-1 exports (µ as 0xB5)."""
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError:
+        return raw.decode("cp1252", errors="replace")
+
+
+def _split_fields(text: str, separator: str) -> list[str]:
+    if separator == " ":
+        return text.split()
+    return text.split(separator)
+
+
+def _number(field: str, decimal_comma: bool) -> float | None:
+    """The float in one field, or None when the field is not a plain number."""
+    token = field.strip().strip('"')
+    if decimal_comma:
+        token = token.replace(",", ".")
+    if not _NUMBER.match(token):
+        return None
+    return float(token)
+
+
+def _row_format(text: str) -> _RowFormat | None:
+    """The layout of a row of 2+ numbers, or None when the line is not such a row."""
+    stripped = text.strip()
+    if not stripped:
+        return None
+    candidates = [sep for sep in ("\t", ";", ",") if sep in stripped] + [" "]
+    for separator in candidates:
+        fields = _split_fields(stripped, separator)
+        trailing = False
+        if separator != " " and len(fields) > 1 and not fields[-1].strip():
+            fields = fields[:-1]
+            trailing = True
+        if len(fields) < 2:
+            continue
+        decimal_comma = separator != "," and any("," in field for field in fields)
+        if decimal_comma and any("." in field for field in fields):
+            continue
+        if all(_number(field, decimal_comma) is not None for field in fields):
+            return _RowFormat(separator, decimal_comma, len(fields), trailing)
+    return None
+
+
+def _row_values(text: str, layout: _RowFormat) -> list[float] | str:
+    """The numbers of one row in `layout`, or a sentence saying what is wrong with it."""
+    fields = _split_fields(text.strip(), layout.separator)
+    if layout.separator != " " and len(fields) > 1 and not fields[-1].strip():
+        fields = fields[:-1]
+    values: list[float] = []
+    for position, field in enumerate(fields, start=1):
+        value = _number(field, layout.decimal_comma)
+        if value is None:
+            shown = field.strip()[:40] or "(empty)"
+            return f"field {position} {shown!r} is not a number"
+        values.append(value)
+    if len(values) != layout.columns:
+        return f"row has {len(values)} values, expected {layout.columns} like the rows above"
+    return values
+
+
+def _lines_with_offsets(data: bytes, start: int, limit: int) -> list[tuple[int, int, bytes]]:
+    """Up to `limit` lines from `start` as (1-based line number offset, byte offset, raw)."""
+    lines: list[tuple[int, int, bytes]] = []
+    position = start
+    index = 0
+    while position < len(data) and index < limit:
+        end = data.find(b"\n", position)
+        if end < 0:
+            end = len(data)
+        lines.append((index, position, data[position:end]))
+        position = end + 1
+        index += 1
+    return lines
+
+
+# ----------------------------------------------------------------------------- identify
+
+
+def identify(head: bytes) -> bool:
+    """True when, after a BOM and any free text, the first lines are rows of 2+ numbers."""
+    if head.startswith(UTF8_BOM):
+        head = head[len(UTF8_BOM) :]
+    if head.lstrip().startswith(b"##") or b"\x00" in head:
+        return False
+    if b"\n" not in head and b"\r" in head:
+        head = head.replace(b"\r", b"\n")
+    lines = head.split(b"\n")
+    if len(lines) > 1 and len(head) >= 4096:
+        lines = lines[:-1]  # the last line may be cut off by the head limit
+    rows = 0
+    layout: _RowFormat | None = None
+    for raw in lines[: MAX_LEADING_TEXT_LINES + 3]:
+        text = _decode_line(raw)
+        if not text.strip():
+            continue
+        found = _row_format(text)
+        if found is None:
+            if rows:
+                break
+            continue
+        if layout is None:
+            layout = found
+        elif (found.separator, found.columns) != (layout.separator, layout.columns):
+            break
+        rows += 1
+        if rows >= 3:
+            break
+    return rows >= 2 or (rows == 1 and len(lines) <= MAX_LEADING_TEXT_LINES)
+
+
+# ----------------------------------------------------------------------------- parse
+
+
+def parse(data: bytes, source: str) -> Spectrum:
+    """Read delimited text into a `Spectrum`; any problem is a `SpectrumFileError`."""
+    try:
+        return _parse(data, source)
+    except SpectrumFileError:
+        raise
+    except (ValueError, TypeError, IndexError, OverflowError, UnicodeError) as error:
+        raise SpectrumFileError(source, f"cannot be read as delimited text ({error})") from None
+
+
+def _normalise_bytes(data: bytes, source: str, notes: list[str]) -> bytes:
+    """Strip a byte-order mark, turn UTF-16 into UTF-8 and lone CR endings into LF."""
+    if data.startswith(UTF8_BOM):
+        data = data[len(UTF8_BOM) :]
+        notes.append("UTF-8 byte-order mark skipped")
+    elif data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            data = data.decode("utf-16").encode("utf-8")
+        except UnicodeDecodeError:
+            raise SpectrumFileError(source, "starts like UTF-16 text but does not decode") from None
+        notes.append("UTF-16 text decoded")
+    if not data.strip():
+        raise SpectrumFileError(source, "file is empty")
+    if b"\x00" in data:
+        line = data.count(b"\n", 0, data.index(b"\x00")) + 1
+        raise SpectrumFileError(source, "binary data (NUL bytes), not delimited text", line)
+    if b"\n" not in data and b"\r" in data:
+        data = data.replace(b"\r", b"\n")
+    return data
+
+
+def _find_data_start(
+    data: bytes, source: str
+) -> tuple[int, int, _RowFormat, list[tuple[int, str]]]:
+    """(byte offset, 1-based line, layout, [(line, text) of non-blank lines before data])."""
+    before: list[tuple[int, str]] = []
+    for index, offset, raw in _lines_with_offsets(data, 0, 10 * MAX_LEADING_TEXT_LINES):
+        text = _decode_line(raw)
+        if not text.strip():
+            continue
+        layout = _row_format(text)
+        if layout is not None:
+            return offset, index + 1, layout, before
+        before.append((index + 1, text.strip()))
+        if len(before) > MAX_LEADING_TEXT_LINES:
+            raise SpectrumFileError(
+                source, f"no rows of numbers (x and y columns) in the first {len(before)} lines of text"
+            )
+    if len(before) == 1:
+        raise SpectrumFileError(source, "no rows of numbers (x and y columns): one line of text", before[0][0])
+    raise SpectrumFileError(source, "no rows of numbers (x and y columns); the file holds only text")
+
+
+def _settle_decimal_mark(data: bytes, offset: int, layout: _RowFormat) -> _RowFormat:
+    """Decide the decimal mark from the first rows, not just the first (it may be integers)."""
+    if layout.separator == "," or layout.decimal_comma:
+        return layout
+    for _, _, raw in _lines_with_offsets(data, offset, PROBE_ROWS):
+        row = _row_format(_decode_line(raw))
+        if row is not None and row.separator == layout.separator and row.decimal_comma:
+            return _RowFormat(layout.separator, True, layout.columns, layout.trailing_separator)
+    return layout
+
+
+def _split_trailing_text(data: bytes, offset: int, layout: _RowFormat) -> tuple[int, list[str]]:
+    """End of the numeric body and the text lines after it (a footer), read from the end."""
+    end = len(data)
+    footer: list[str] = []
+    while True:
+        while end > offset and data[end - 1] in b" \t\r\n":
+            end -= 1
+        if end <= offset:
+            return end, footer[::-1]
+        start = max(data.rfind(b"\n", offset, end) + 1, offset)
+        text = _decode_line(data[start:end]).strip()
+        if isinstance(_row_values(text, layout), list):
+            return end, footer[::-1]
+        footer.append(text)
+        if len(footer) > MAX_TRAILING_TEXT_LINES:
+            # Too much text to be a footer: leave it in the body, where it is reported.
+            end = len(data)
+            while end > offset and data[end - 1] in b" \t\r\n":
+                end -= 1
+            return end, []
+        end = start
+
+
+def _fast_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
+    """The whole body parsed at C speed, or None when its shape is not the clean one."""
+    source_map = {layout.separator: " "} if layout.separator != " " else {}
+    if layout.decimal_comma:
+        source_map[","] = "."
+    if source_map:
+        table = bytes.maketrans(
+            "".join(source_map).encode(), "".join(source_map.values()).encode()
+        )
+        translated = body.translate(table)
+    else:
+        translated = body
+    rows = body.count(b"\n") + 1
+    if layout.separator != " ":
+        per_row = layout.columns if layout.trailing_separator else layout.columns - 1
+        if body.count(layout.separator.encode()) != rows * per_row:
+            return None
+    try:
+        values = np.fromstring(translated, dtype=np.float64, sep=" ")
+    except ValueError:
+        return None
+    if values.size != rows * layout.columns:
+        return None
+    return _Table(values.reshape(rows, layout.columns), first_line, None)
+
+
+def _slow_table(body: bytes, layout: _RowFormat, first_line: int, source: str) -> _Table:
+    """Line by line: names the first bad row; tolerates blank lines inside the data."""
+    rows: list[list[float]] = []
+    lines: list[int] = []
+    for index, raw in enumerate(body.split(b"\n")):
+        line = first_line + index
+        text = _decode_line(raw).strip()
+        if not text:
+            continue
+        parsed = _row_values(text, layout)
+        if isinstance(parsed, str):
+            raise SpectrumFileError(source, f"{parsed} (inside the data: rows of numbers follow)", line)
+        rows.append(parsed)
+        lines.append(line)
+    values = np.array(rows, dtype=np.float64).reshape(len(rows), layout.columns)
+    return _Table(values, first_line, np.array(lines, dtype=np.int64))
+
+
+def _header_fields(text: str, layout: _RowFormat) -> tuple[str, ...] | None:
+    """The column names in a header line, or None when it does not split into the columns."""
+    attempts: list[list[str]] = []
+    if layout.separator == " ":
+        attempts.append(re.split(r"\t|\s{2,}", text.strip()))
+        attempts.append(_HEADER_TOKEN.findall(text))
+        attempts.append(text.split())
+    else:
+        attempts.append(text.strip().split(layout.separator))
+        if layout.separator == "," and ";" in text:
+            attempts.append(text.strip().split(";"))
+    for fields in attempts:
+        if len(fields) > 1 and not fields[-1].strip():
+            fields = fields[:-1]
+        if len(fields) == layout.columns:
+            return tuple(field.strip().strip('"').strip("'").strip() for field in fields)
+    return None
+
+
+def _x_unit(name: str) -> str | None:
+    """'cm-1', 'micrometre', 'nanometre', 'wavelength' (no unit) or None (not stated)."""
+    if _X_CM1.search(name):
+        return "cm-1"
+    if _X_UM.search(name):
+        return "micrometre"
+    if _X_NM.search(name):
+        return "nanometre"
+    if _X_WAVELENGTH.search(name):
+        return "wavelength"
+    return None
+
+
+def _y_kind(name: str) -> str | None:
+    if _Y_PERCENT.search(name):
+        return "percent_transmittance"
+    if _Y_ABSORBANCE.search(name):
+        return "absorbance"
+    if _Y_TRANSMITTANCE.search(name):
+        return "transmittance"
+    return None
+
+
+def _infer_y_kind(y: np.ndarray) -> tuple[str, str]:
+    """Guess the y kind from values: (kind, reason). Gas spectra are mostly baseline, so the
+    median sits at the baseline: near the top for transmittance, near the bottom for absorbance."""
+    low, high = float(np.min(y)), float(np.max(y))
+    median = float(np.median(y))
+    baseline_on_top = (high - median) < (median - low)
+    summary = f"values {low:.4g}..{high:.4g}, median {median:.4g}"
+    if low >= -0.05 and high <= 1.05 and high >= 0.8 and baseline_on_top:
+        return "transmittance", f"{summary}: within 0..1.05, max near 1, baseline at the top"
+    if low >= -5.0 and high <= 105.0 and median > 10.0 and baseline_on_top:
+        return "percent_transmittance", f"{summary}: within 0..105, median > 10, baseline at the top"
+    return "absorbance", f"{summary}: not a transmittance pattern (baseline at the bottom or out of 0..1 / 0..100)"
+
+
+def _check_axis(x: np.ndarray, table: _Table, source: str) -> np.ndarray:
+    """Finite, strictly monotonic x; returns the steps. Names the offending line."""
+    steps = np.diff(x)
+    if steps.size and not (np.all(steps > 0) or np.all(steps < 0)):
+        zero = np.flatnonzero(steps == 0)
+        direction = np.sign(steps[0])
+        turn = np.flatnonzero(np.sign(steps) != direction)
+        first_turn = int(turn[0]) if turn.size else steps.size
+        if zero.size and int(zero[0]) <= first_turn:
+            row = int(zero[0]) + 1
+            raise SpectrumFileError(
+                source,
+                f"x value {x[row]!r} repeats the previous row's (line {table.line_of(row - 1)}): "
+                "duplicated x",
+                table.line_of(row),
+            )
+        row = first_turn + 1
+        way = "ascending" if direction > 0 else "descending"
+        raise SpectrumFileError(
+            source,
+            f"x is not monotonic: {x[row]!r} breaks the {way} order of the rows above "
+            f"(previous x {x[row - 1]!r})",
+            table.line_of(row),
+        )
+    return steps
+
+
+def _check_finite(values: np.ndarray, columns: tuple[int, int], table: _Table, source: str) -> None:
+    used = values[:, list(columns)]
+    finite = np.isfinite(used)
+    if not finite.all():
+        row, column = (int(i) for i in np.argwhere(~finite)[0])
+        raise SpectrumFileError(
+            source,
+            f"value {used[row, column]!r} in column {columns[column] + 1} is not a finite number",
+            table.line_of(row),
+        )
+
+
+def _choose_y_column(header: tuple[str, ...] | None, columns: int) -> tuple[int, str | None]:
+    """(column index, y kind from the header or None)."""
+    if header is None:
+        return 1, None
+    for index in range(1, columns):
+        kind = _y_kind(header[index])
+        if kind is not None:
+            return index, kind
+    return 1, None
+
+
+def _parse(data: bytes, source: str) -> Spectrum:
+    notes: list[str] = []
+    data = _normalise_bytes(data, source, notes)
+    offset, first_line, layout, before = _find_data_start(data, source)
+    layout = _settle_decimal_mark(data, offset, layout)
+
+    header: tuple[str, ...] | None = None
+    header_text = ""
+    free_text = [text for _, text in before]
+    if before:
+        header = _header_fields(before[-1][1], layout)
+        if header is not None:
+            header_text = free_text.pop()
+    if free_text:
+        notes.append(f"{len(free_text)} line(s) of free text before the data kept as title/header")
+
+    end, footer = _split_trailing_text(data, offset, layout)
+    if footer:
+        notes.append(
+            f"{len(footer)} line(s) of text after the data ignored (first: {footer[0][:60]!r})"
+        )
+    body = data[offset:end]  # CR of CRLF endings is whitespace to the parsers: left in place
+    table = _fast_table(body, layout, first_line)
+    if table is None:
+        table = _slow_table(body, layout, first_line, source)
+        if table.row_lines is not None and table.values.shape[0] < body.count(b"\n") + 1:
+            notes.append("blank lines inside the data skipped")
+
+    values = table.values
+    if values.shape[0] < 2:
+        raise SpectrumFileError(
+            source, "only one data row: a spectrum needs at least 2 points", table.line_of(0)
+        )
+    y_column, header_kind = _choose_y_column(header, layout.columns)
+    if layout.columns > 2:
+        names = f" ({header[0]!r}, {header[y_column]!r})" if header else ""
+        notes.append(
+            f"{layout.columns} columns: x from column 1, y from column {y_column + 1}{names}"
+        )
+    _check_finite(values, (0, y_column), table, source)
+    x_file = values[:, 0]
+    y = values[:, y_column]
+    steps = _check_axis(x_file, table, source)
+
+    x_unit = _x_unit(header[0]) if header else None
+    x_cm1 = _to_wavenumber(x_file, x_unit, table, source, notes)
+    if header_kind is None:
+        kind, reason = _infer_y_kind(y)
+        notes.append(f"y kind inferred as {kind} because {reason}")
+    else:
+        kind = header_kind
+        if kind == "transmittance" and 1.5 < float(np.max(y)) <= 105.0:
+            kind = "percent_transmittance"
+            notes.append(
+                f"header says transmittance ({header[y_column]!r}) but values reach "
+                f"{float(np.max(y)):.4g}: read as percent transmittance"
+            )
+        else:
+            notes.append(f"y kind {kind} from the column header {header[y_column]!r}")
+
+    _note_rounding(steps, notes)
+
+    if x_cm1[-1] < x_cm1[0]:
+        x_cm1 = x_cm1[::-1]
+        y = y[::-1]
+        notes.append("x axis was descending; reversed to ascending")
+    absorbance, saturated, conversion = to_absorbance(y, kind)
+    separator_name = SEPARATOR_NAMES[layout.separator]
+    file_format = f"delimited text ({separator_name}" + (
+        ", decimal comma)" if layout.decimal_comma else ")"
+    )
+    header_pairs = tuple(("text", text) for text in free_text)
+    if header_text:
+        header_pairs += (("columns", header_text),)
+    meta = FileMetadata(
+        title=free_text[0] if free_text else "",
+        format=file_format,
+        header=header_pairs,
+        notes=tuple(notes),
+    )
+    try:
+        return Spectrum(x_cm1, absorbance, saturated, kind, conversion, meta)
+    except ValueError as error:  # e.g. two x values equal after unit conversion
+        raise SpectrumFileError(source, str(error)) from None
+
+
+def _to_wavenumber(
+    x: np.ndarray, unit: str | None, table: _Table, source: str, notes: list[str]
+) -> np.ndarray:
+    """x in cm-1; converts wavelength columns and notes what was assumed."""
+    if unit == "cm-1":
+        return x
+    if unit is None:
+        notes.append("x units not stated in a column header: assumed cm-1")
+        return x
+    if unit == "wavelength":
+        unit = "micrometre" if float(np.max(np.abs(x))) < 100.0 else "nanometre"
+        notes.append(f"x header says wavelength without a unit: values suggest {unit}")
+    nonpositive = np.flatnonzero(x <= 0)
+    if nonpositive.size:
+        row = int(nonpositive[0])
+        raise SpectrumFileError(
+            source, f"wavelength {x[row]!r} is not positive: cannot convert to cm-1", table.line_of(row)
+        )
+    factor = 1e4 if unit == "micrometre" else 1e7
+    notes.append(f"x converted from {unit}: cm-1 = {factor:g} / x")
+    return factor / x
+
+
+def _note_rounding(steps: np.ndarray, notes: list[str]) -> None:
+    """Note x steps that wobble around a regular grid (values rounded off the grid)."""
+    if steps.size < 2:
+        return
+    size = np.abs(steps)
+    typical = float(np.median(size))
+    low, high = float(size.min()), float(size.max())
+    wobble = max(typical - low, high - typical)
+    if wobble > ROUNDING_NOTE_FRACTION * typical:
+        if wobble < 0.5 * typical:
+            notes.append(
+                f"x steps range {low:.6g}..{high:.6g} around {typical:.6g}: values look "
+                "rounded off a regular grid; x kept as given"
+            )
+        else:
+            notes.append(f"x spacing is irregular ({low:.6g}..{high:.6g}); x kept as given")
+
+
+# ----------------------------------------------------------------------------- write
+
+Y_HEADER = {
+    "absorbance": "absorbance",
+    "transmittance": "transmittance",
+    "percent_transmittance": "percent_transmittance",
+}
+
+
+def write_csv(
+    target: str | Path | BinaryIO | TextIO, spectrum: Spectrum, y_kind: str = "absorbance"
+) -> None:
+    """Write `wavenumber_cm-1,<y kind>` then one `x,y` row per point, floats as repr.
+
+    repr gives the shortest text that reads back to the identical float, so parse(write(s))
+    returns the same x and absorbance bit for bit (transmittance output goes through
+    10**-A and back, good to rounding).
+    """
+    if y_kind not in Y_HEADER:
+        raise ValueError(f"unknown y kind {y_kind!r}; choose from {', '.join(Y_HEADER)}")
+    if y_kind == "absorbance":
+        y = spectrum.absorbance
+    elif y_kind == "transmittance":
+        y = spectrum.transmittance()
+    else:
+        y = spectrum.transmittance() * 100.0
+    rows = map("{!r},{!r}".format, spectrum.wavenumber_cm1.tolist(), y.tolist())
+    text = f"wavenumber_cm-1,{Y_HEADER[y_kind]}\n" + "\n".join(rows) + "\n"
+    if isinstance(target, (str, Path)):
+        with open(target, "w", encoding="utf-8", newline="\n") as handle:
+            handle.write(text)
+    elif isinstance(target, io.TextIOBase):
+        target.write(text)
+    else:
+        target.write(text.encode("utf-8"))  # type: ignore[arg-type]
