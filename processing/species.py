@@ -342,7 +342,9 @@ def _parse_nuclide(path: Path, name: str, entry: Mapping[str, Any]) -> Nuclide:
     mass = _number(path, f"{where}.mass_u", _require(path, where, entry, "mass_u"))
     if mass <= 0:
         raise LibraryFileError(path, f"{where}.mass_u: must be positive, got {mass!r}")
-    if abs(mass - mass_number) > 0.5:
+    # |mass excess| < 0.1 u for every nuclide (AME2020); a standard atomic weight such as
+    # 35.453 for Cl is farther from any mass number and is rejected here.
+    if abs(mass - mass_number) > 0.15:
         raise LibraryFileError(
             path, f"{where}.mass_u: {mass!r} u is not an isotopic mass for A = {mass_number}"
         )
