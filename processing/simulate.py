@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -454,3 +454,41 @@ def simulate(settings: SimulationSettings, library: Any = None, workers: int | N
     )
     spectrum = Spectrum.from_y(wavenumber, transmittance, "transmittance", meta)
     return SimulationResult(spectrum=spectrum, transmittance=transmittance, truth=truth)
+
+
+def auto_range(settings: SimulationSettings, pad_cm1: float = 30.0) -> tuple[float, float]:
+    """A range covering the sample's lines that carry >= 1e-3 of the strongest line's
+    integrated optical depth, +- `pad_cm1`, rounded out to 10 cm-1."""
+    lines, _bands = build_line_table(replace(settings, interferents=()))
+    if lines.count == 0:
+        raise ValueError("no sample lines to choose a range from; give the range explicitly")
+    depth = lines.integrated_optical_depth_cm1()
+    strong = lines.position_cm1[depth >= 1e-3 * depth.max()]
+    first = math.floor((strong.min() - pad_cm1) / 10.0) * 10.0
+    last = math.ceil((strong.max() + pad_cm1) / 10.0) * 10.0
+    return max(first, 10.0), last
+
+
+OUTPUT_FORMATS: tuple[str, ...] = ("jcamp-dif", "jcamp-affn", "csv")
+_Y_KIND_BY_NAME = {"transmittance": "transmittance", "absorbance": "absorbance",
+                   "percent": "percent_transmittance", "percent_transmittance": "percent_transmittance"}
+
+
+def write_spectrum(path: str, result: SimulationResult, file_format: str, y: str = "absorbance") -> None:
+    """Write the simulated spectrum with the project's writers (JCAMP-DX or CSV)."""
+    if file_format not in OUTPUT_FORMATS:
+        raise ValueError(f"unknown format {file_format!r}; choose from {', '.join(OUTPUT_FORMATS)}")
+    if y not in _Y_KIND_BY_NAME:
+        raise ValueError(f"unknown y kind {y!r}; choose transmittance, absorbance or percent")
+    y_kind = _Y_KIND_BY_NAME[y]
+    spectrum = replace(result.spectrum, original_y_kind=y_kind)
+    if file_format == "csv":
+        from processing.readers.delimited import write_csv
+
+        write_csv(path, spectrum, y_kind=y_kind)
+        return
+    try:
+        from processing.readers.jcamp import write_jcamp
+    except ImportError:
+        raise ValueError("the JCAMP-DX writer is not available in this build") from None
+    write_jcamp(path, spectrum, form="dif" if file_format == "jcamp-dif" else "affn")
