@@ -1,0 +1,78 @@
+"""Messages the app's workers and the station post to the screens (small dataclasses only).
+
+Workers never touch widgets: they read files or the ledger in a thread and post one of these;
+handlers on the screens own all UI state.
+"""
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from textual.message import Message
+
+
+class StationEventReceived(Message):
+    """Something happened in the station (file seen, settled, run processed or failed, ...)."""
+
+    def __init__(self, event: Any) -> None:
+        super().__init__()
+        self.event = event
+
+
+class RunsLoaded(Message):
+    """A fresh read of the ledger's run list (newest first)."""
+
+    def __init__(self, runs: list[Any]) -> None:
+        super().__init__()
+        self.runs = runs
+
+
+class SpectrumLoaded(Message):
+    """The arrays of one run's file, re-read read-only for the plot."""
+
+    def __init__(self, run_id: int, x: np.ndarray | None, y: np.ndarray | None, problem: str | None) -> None:
+        super().__init__()
+        self.run_id = run_id
+        self.x = x
+        self.y = y
+        self.problem = problem
+
+
+class DecisionRecorded(Message):
+    """An accept, flag or undo was appended to the ledger (or refused, with the reason)."""
+
+    def __init__(self, run_id: int, action: str, problem: str | None = None) -> None:
+        super().__init__()
+        self.run_id = run_id
+        self.action = action
+        self.problem = problem
+
+
+class ReprocessFinished(Message):
+    """A run was reprocessed with changed settings; `new_run_id` is the new version."""
+
+    def __init__(self, run_id: int, new_run_id: int | None, problem: str | None = None) -> None:
+        super().__init__()
+        self.run_id = run_id
+        self.new_run_id = new_run_id
+        self.problem = problem
+
+
+class ReportExported(Message):
+    """A run's report was written to `path` (or could not be, with the reason)."""
+
+    def __init__(self, run_id: int, path: str | None, problem: str | None = None) -> None:
+        super().__init__()
+        self.run_id = run_id
+        self.path = path
+        self.problem = problem
+
+
+class HistoryLoaded(Message):
+    """One fitted quantity over the ledger's runs: (time, run_id, value, sigma) oldest first."""
+
+    def __init__(self, isotopologue: str, quantity: str, points: list[tuple[str, int, float, float | None]]) -> None:
+        super().__init__()
+        self.isotopologue = isotopologue
+        self.quantity = quantity
+        self.points = points

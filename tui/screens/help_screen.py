@@ -1,0 +1,83 @@
+"""The help screen: every key of the app, from the live bindings (so remapped keys show)."""
+from __future__ import annotations
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Static
+
+PANES_TEXT = """\
+Panes (top to bottom)
+  run list      newest first: time (UTC), file, version, species found, verdict, decision
+  summary       the highlighted run: verdict, decision, who decided and why
+  1 Plot        the spectrum; markers above it: P R = first isotopologue's P and R lines,
+                p r = second, < > = third, ? = unassigned, x = marked for exclusion
+  2 Lines       observed position, assignment, calculated position, obs-calc; x marks a line
+                to leave out of the next redo
+  3 Constants   band and molecular constants with uncertainties beside reference values
+  4 Checks      each check as PASS / WARN / FAIL with its reason
+"""
+
+SECTIONS: tuple[tuple[str, tuple[str, ...]], ...] = (
+    ("Anywhere", ("app.help", "app.quit")),
+    (
+        "Runs and panes",
+        ("table.down", "table.up", "table.top", "table.bottom", "run.next", "run.previous",
+         "pane.runs", "pane.plot", "pane.lines", "pane.constants", "pane.checks"),
+    ),
+    ("Decisions and work", ("run.accept", "run.flag", "run.undo", "run.reprocess", "run.export", "run.history")),
+    ("Plot (when focused)", ("plot.zoom_in", "plot.zoom_out", "plot.pan_left", "plot.pan_right", "plot.reset", "plot.flip")),
+    ("Lines (when focused)", ("lines.exclude",)),
+)
+
+EXTRA_KEYS = (("tab / shift+tab", "move between panes"),)
+
+
+def _all_bindings() -> dict[str, Binding]:
+    from tui.app import BandwatchApp
+    from tui.screens.main_screen import MainScreen
+    from tui.widgets.run_tables import LinesTable, VERTICAL_KEYS
+    from tui.widgets.spectrum_plot import SpectrumPlot
+
+    found: dict[str, Binding] = {}
+    for group in (BandwatchApp.BINDINGS, MainScreen.BINDINGS, VERTICAL_KEYS, SpectrumPlot.BINDINGS, LinesTable.BINDINGS):
+        for binding in group:
+            if isinstance(binding, Binding) and binding.id:
+                found[binding.id] = binding
+    return found
+
+
+def help_text(keymap: dict[str, str] | None = None) -> Text:
+    """The help page; `keymap` (binding id -> keys) overrides the default keys shown."""
+    bindings = _all_bindings()
+    keymap = keymap or {}
+    text = Text()
+    for title, ids in SECTIONS:
+        text.append(f"{title}\n", style="bold")
+        for binding_id in ids:
+            binding = bindings.get(binding_id)
+            if binding is None:
+                continue
+            keys = keymap.get(binding_id, binding.key).replace(",", " / ")
+            text.append(f"  {keys:<20} {binding.description}\n")
+        if title == "Runs and panes":
+            for keys, what in EXTRA_KEYS:
+                text.append(f"  {keys:<20} {what}\n")
+    text.append("\n")
+    text.append(PANES_TEXT)
+    return text
+
+
+class HelpScreen(ModalScreen[None]):
+    """Keys and panes; any of Escape, q or ? closes it."""
+
+    BINDINGS = [Binding("escape,q,question_mark", "close", "Close", id="help.close")]
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(classes="dialog help"):
+            yield Static(help_text(getattr(self.app, "_keymap", None) or {}))
+
+    def action_close(self) -> None:
+        self.dismiss(None)

@@ -1,0 +1,374 @@
+"""The main screen: the live run list on top, the selected run's spectrum, lines, constants and checks below.
+
+Ledger reads and writes, file reads and reprocessing run in thread workers that post messages
+(tui/messages.py); the handlers here are the only code that changes widgets.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from rich.text import Text
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.screen import Screen
+from textual.worker import Worker, WorkerState
+from textual.widgets import DataTable, Footer, Static, TabbedContent, TabPane
+
+from tui.messages import (
+    DecisionRecorded,
+    ReportExported,
+    ReprocessFinished,
+    RunsLoaded,
+    SpectrumLoaded,
+    StationEventReceived,
+)
+from tui.widgets.cells import decision_text, verdict_text
+from tui.widgets.run_tables import ChecksTable, ConstantsTable, LinesTable, RunList, line_key
+from tui.widgets.spectrum_plot import PlotLine, SpectrumPlot
+
+if TYPE_CHECKING:
+    from tui.app import BandwatchApp
+
+TABS = ("tab-plot", "tab-lines", "tab-constants", "tab-checks")
+
+
+class MainScreen(Screen[None]):
+    """Runs newest first; the details of the highlighted one."""
+
+    BINDINGS = [
+        Binding("a", "accept", "Accept", id="run.accept"),
+        Binding("f", "flag", "Flag", id="run.flag"),
+        Binding("u", "undo", "Undo", id="run.undo"),
+        Binding("r", "reprocess", "Redo…", id="run.reprocess"),
+        Binding("e", "export", "Export", id="run.export"),
+        Binding("t", "history", "Trend", id="run.history"),
+        Binding("n,ctrl+n", "next_run", "Next run", show=False, id="run.next"),
+        Binding("p,ctrl+p", "previous_run", "Previous run", show=False, id="run.previous"),
+        Binding("1", "show_tab('tab-plot')", "Plot", show=False, id="pane.plot"),
+        Binding("2", "show_tab('tab-lines')", "Lines", show=False, id="pane.lines"),
+        Binding("3", "show_tab('tab-constants')", "Constants", show=False, id="pane.constants"),
+        Binding("4", "show_tab('tab-checks')", "Checks", show=False, id="pane.checks"),
+        Binding("w", "focus_runs", "Runs", show=False, id="pane.runs"),
+    ]
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.runs: dict[int, Any] = {}
+        self.busy_paths: list[str] = []
+        self.selected_run_id: int | None = None
+        self.excluded: dict[int, set[float]] = {}
+        self.station_state = "no station"
+        self.last_event = ""
+
+    @property
+    def bw(self) -> BandwatchApp:
+        return self.app  # type: ignore[return-value]
+
+    def compose(self) -> ComposeResult:
+        yield Static(id="title-bar")
+        yield RunList(id="runs")
+        yield Static(id="run-summary")
+        with TabbedContent(id="details"):
+            with TabPane("1 Plot", id="tab-plot"):
+                yield SpectrumPlot(id="plot")
+            with TabPane("2 Lines", id="tab-lines"):
+                yield LinesTable(id="lines")
+            with TabPane("3 Constants", id="tab-constants"):
+                yield ConstantsTable(id="constants")
+            with TabPane("4 Checks", id="tab-checks"):
+                yield ChecksTable(id="checks")
+        yield Footer(compact=True)
+
+    def on_mount(self) -> None:
+        self.update_title()
+        self.query_one(RunList).focus()
+        self.load_runs()
+
+    def on_resize(self) -> None:
+        self.set_class(self.size.height >= 36, "tall")
+
+    # ------------------------------------------------------------ title and summary
+
+    def update_title(self) -> None:
+        folder = self.bw.export_dir or "(no folder watched)"
+        parts = [f"bandwatch  {folder}", self.station_state]
+        if self.busy_paths:
+            parts.append(f"working on {len(self.busy_paths)}")
+        if self.last_event:
+            parts.append(self.last_event)
+        self.query_one("#title-bar", Static).update(Text("  ·  ".join(parts), no_wrap=True, overflow="ellipsis"))
+
+    def update_summary(self) -> None:
+        summary = self.query_one("#run-summary", Static)
+        run = self.runs.get(self.selected_run_id) if self.selected_run_id is not None else None
+        if run is None:
+            summary.update(Text("no run selected", style="dim"))
+            return
+        text = Text(no_wrap=True, overflow="ellipsis")
+        text.append(f"run {run.run_id} ", style="bold")
+        text.append(f"{run.name} v{run.version}  ")
+        text.append_text(verdict_text(run.status, run.verdict))
+        text.append("  ")
+        text.append_text(decision_text(run.decision))
+        if run.decision:
+            who = f" by {run.operator}" if run.operator else ""
+            reason = f": {run.decision_reason}" if run.decision_reason else ""
+            text.append(f"{who}{reason}")
+        if run.settings:
+            text.append("  (redone with changed settings)", style="italic")
+        summary.update(text)
+
+    # ------------------------------------------------------------ workers (no widgets touched)
+
+    @work(thread=True, exclusive=True, group="runs", exit_on_error=False)
+    def load_runs(self) -> None:
+        from processing.station.ledger import list_runs, open_ledger
+
+        conn = open_ledger(self.bw.data_dir)
+        try:
+            runs = list_runs(conn, limit=self.bw.run_limit)
+        finally:
+            conn.close()
+        self.post_message(RunsLoaded(runs))
+
+    @work(thread=True, exclusive=True, group="spectrum", exit_on_error=False)
+    def load_spectrum(self, run_id: int, path: str) -> None:
+        from processing.errors import SpectrumFileError
+        from processing.readers import read_any
+        from processing.spectrum import Spectrum
+
+        try:
+            data = read_any(path)
+        except SpectrumFileError as error:
+            self.post_message(SpectrumLoaded(run_id, None, None, str(error)))
+            return
+        if not isinstance(data, Spectrum):
+            self.post_message(SpectrumLoaded(run_id, None, None, f"{Path(path).name} is a line list: no spectrum to draw"))
+            return
+        self.post_message(SpectrumLoaded(run_id, data.wavenumber_cm1, data.absorbance, None))
+
+    @work(thread=True, group="ledger-write", exit_on_error=False)
+    def write_decision(self, run_id: int, action: str, reason: str) -> None:
+        from processing.station.ledger import open_ledger, record_decision, undo_last_decision
+
+        conn = open_ledger(self.bw.data_dir)
+        try:
+            if action == "undo":
+                event = undo_last_decision(conn, run_id, self.bw.operator)
+                problem = None if event is not None else "nothing to undo for this run"
+            else:
+                record_decision(conn, run_id, action, reason, self.bw.operator)
+                problem = None
+        finally:
+            conn.close()
+        self.post_message(DecisionRecorded(run_id, action, problem))
+
+    @work(thread=True, group="reprocess", exit_on_error=False)
+    def reprocess_run(self, run_id: int, requested: dict[str, Any]) -> None:
+        new_run_id, problem = self.bw.reprocess(run_id, requested)
+        self.post_message(ReprocessFinished(run_id, new_run_id, problem))
+
+    @work(thread=True, group="export", exit_on_error=False)
+    def export_report(self, run_id: int) -> None:
+        path, problem = self.bw.export_report(run_id)
+        self.post_message(ReportExported(run_id, path, problem))
+
+    # ------------------------------------------------------------ message handlers
+
+    @on(Worker.StateChanged)
+    def worker_failed(self, message: Worker.StateChanged) -> None:
+        """A worker that raised becomes a notification (and a message on the plot), never a crash."""
+        if message.state != WorkerState.ERROR:
+            return
+        error = message.worker.error
+        problem = f"{type(error).__name__}: {error}"
+        if message.worker.group == "spectrum":
+            self.query_one(SpectrumPlot).show_message(f"cannot draw this run: {problem}")
+        else:
+            self.notify(problem, title=f"{message.worker.group} failed", severity="error")
+
+    @on(RunsLoaded)
+    def show_runs(self, message: RunsLoaded) -> None:
+        self.runs = {run.run_id: run for run in message.runs}
+        table = self.query_one(RunList)
+        keep = self.selected_run_id
+        table.fill(message.runs, self.busy_paths, keep_run_id=keep)
+        if keep is None or keep not in self.runs:
+            self.select_run(table.selected_run_id())
+        else:
+            self.update_summary()
+        self.update_title()
+
+    @on(DataTable.RowHighlighted, "#runs")
+    def run_highlighted(self, message: DataTable.RowHighlighted) -> None:
+        run_id = self.query_one(RunList).selected_run_id()
+        if run_id != self.selected_run_id:
+            self.select_run(run_id)
+
+    def select_run(self, run_id: int | None) -> None:
+        """Fill the detail panes from the run's stored result; re-read its file for the plot."""
+        self.selected_run_id = run_id
+        run = self.runs.get(run_id) if run_id is not None else None
+        self.update_summary()
+        plot = self.query_one(SpectrumPlot)
+        result = (run.result if run else None) or {}
+        excluded = self.excluded.get(run_id, set()) if run_id is not None else set()
+        self.query_one(LinesTable).fill(list(result.get("lines") or []), excluded)
+        self.query_one(ConstantsTable).fill(list(result.get("bands") or []), list(result.get("constants") or []))
+        self.query_one(ChecksTable).fill(list(result.get("checks") or []), run.error if run else None)
+        if run is None:
+            plot.show_message("no run selected")
+            return
+        plot.show_message(f"reading {run.name} …")
+        self.load_spectrum(run.run_id, run.path)
+
+    def plot_lines(self, run_id: int) -> list[PlotLine]:
+        run = self.runs.get(run_id)
+        lines = ((run.result or {}).get("lines") or []) if run else []
+        excluded = self.excluded.get(run_id, set())
+        return [PlotLine.from_result_line(line, line_key(line) in excluded) for line in lines]
+
+    @on(SpectrumLoaded)
+    def show_spectrum(self, message: SpectrumLoaded) -> None:
+        if message.run_id != self.selected_run_id:
+            return
+        plot = self.query_one(SpectrumPlot)
+        if message.x is None or message.y is None:
+            plot.show_message(message.problem or "no spectrum")
+            return
+        previous = plot.window
+        full = (float(message.x[0]), float(message.x[-1]))
+        keep = previous if previous and full[0] <= previous[0] < previous[1] <= full[1] else None
+        plot.show(message.x, message.y, self.plot_lines(message.run_id), keep)
+
+    @on(LinesTable.ExclusionsChanged)
+    def exclusions_changed(self, message: LinesTable.ExclusionsChanged) -> None:
+        if self.selected_run_id is None:
+            return
+        self.excluded[self.selected_run_id] = set(message.table.excluded)
+        self.query_one(SpectrumPlot).set_lines(self.plot_lines(self.selected_run_id))
+
+    @on(StationEventReceived)
+    def station_event(self, message: StationEventReceived) -> None:
+        event = message.event
+        kind = type(event).__name__
+        path = getattr(event, "path", None)
+        describe = getattr(event, "plain", None)
+        self.last_event = describe() if callable(describe) else kind
+        if kind == "StationStarted":
+            self.station_state = "station running"
+        elif kind == "StationStopped":
+            self.station_state = "station stopped"
+        if kind in ("FileSeen", "FileSettled", "ClaimResumed") and path and path not in self.busy_paths:
+            self.busy_paths.append(path)
+        if kind in ("RunProcessed", "RunFailed", "FileVanished", "FileUnchanged") and path in self.busy_paths:
+            self.busy_paths.remove(path)
+        if kind == "RunFailed":
+            self.notify(self.last_event, title="run failed", severity="error")
+        elif kind == "StationProblem":
+            self.notify(self.last_event, title="station", severity="warning")
+        if kind in ("RunProcessed", "RunFailed", "FileSeen", "FileSettled", "FileVanished", "ClaimResumed"):
+            self.load_runs()
+        else:
+            self.update_title()
+
+    @on(DecisionRecorded)
+    def decision_recorded(self, message: DecisionRecorded) -> None:
+        if message.problem:
+            self.notify(message.problem, severity="warning")
+        else:
+            self.notify(f"run {message.run_id}: {message.action} recorded", timeout=2)
+        self.load_runs()
+
+    @on(ReprocessFinished)
+    def reprocess_finished(self, message: ReprocessFinished) -> None:
+        if message.problem:
+            self.notify(message.problem, title=f"redo of run {message.run_id}", severity="error")
+            return
+        self.notify(f"run {message.run_id} redone as run {message.new_run_id}", timeout=3)
+        self.selected_run_id = message.new_run_id
+        self.load_runs()
+
+    @on(ReportExported)
+    def report_exported(self, message: ReportExported) -> None:
+        if message.problem:
+            self.notify(message.problem, title="export", severity="error")
+        else:
+            self.notify(f"report written: {message.path}", title="export", timeout=4)
+
+    # ------------------------------------------------------------ actions
+
+    def _current_run(self) -> Any | None:
+        if self.selected_run_id is None:
+            self.notify("no run selected", severity="warning", timeout=2)
+            return None
+        return self.runs.get(self.selected_run_id)
+
+    def action_accept(self) -> None:
+        run = self._current_run()
+        if run is not None:
+            self.write_decision(run.run_id, "accept", "")
+
+    def action_flag(self) -> None:
+        from tui.screens.modals import FlagReasonScreen
+
+        run = self._current_run()
+        if run is None:
+            return
+
+        def flagged(reason: str | None) -> None:
+            if reason:
+                self.write_decision(run.run_id, "flag", reason)
+
+        self.app.push_screen(FlagReasonScreen(run.name), flagged)
+
+    def action_undo(self) -> None:
+        run = self._current_run()
+        if run is not None:
+            self.write_decision(run.run_id, "undo", "")
+
+    def action_reprocess(self) -> None:
+        from tui.screens.modals import ReprocessScreen
+
+        run = self._current_run()
+        if run is None:
+            return
+        excluded = sorted(self.excluded.get(run.run_id, set()), reverse=True)
+
+        def chosen(requested: dict[str, Any] | None) -> None:
+            if requested is not None:
+                self.notify(f"redoing {run.name} …", timeout=2)
+                self.reprocess_run(run.run_id, requested)
+
+        self.app.push_screen(ReprocessScreen(run, excluded), chosen)
+
+    def action_export(self) -> None:
+        run = self._current_run()
+        if run is not None:
+            self.export_report(run.run_id)
+
+    def action_history(self) -> None:
+        from tui.screens.history_screen import HistoryScreen
+
+        run = self.runs.get(self.selected_run_id) if self.selected_run_id is not None else None
+        preferred = None
+        if self.query_one(TabbedContent).active == "tab-constants":
+            preferred = self.query_one(ConstantsTable).selected_quantity()
+        self.app.push_screen(HistoryScreen((run.result if run else None) or {}, preferred))
+
+    def action_next_run(self) -> None:
+        self.query_one(RunList).action_cursor_down()
+
+    def action_previous_run(self) -> None:
+        self.query_one(RunList).action_cursor_up()
+
+    def action_show_tab(self, tab: str) -> None:
+        self.query_one(TabbedContent).active = tab
+        pane = self.query_one(f"#{tab}", TabPane)
+        target = pane.query("SpectrumPlot, DataTable").first()
+        target.focus()
+
+    def action_focus_runs(self) -> None:
+        self.query_one(RunList).focus()

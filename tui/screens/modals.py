@@ -1,0 +1,119 @@
+"""Small dialogs: the reason for a flag, and the changed settings for a redo."""
+from __future__ import annotations
+
+from typing import Any
+
+from textual import on
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical
+from textual.screen import ModalScreen
+from textual.widgets import Input, Label, Select, Static
+
+NO_SHIFT = "none"
+
+
+class FlagReasonScreen(ModalScreen[str | None]):
+    """Ask why a run is flagged; Enter records, Escape cancels. An empty reason is refused."""
+
+    BINDINGS = [Binding("escape", "cancel", "Cancel", id="modal.cancel")]
+
+    def __init__(self, run_name: str) -> None:
+        super().__init__()
+        self.run_name = run_name
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Label(f"Flag {self.run_name}: why?", markup=False)
+            yield Input(placeholder="reason (e.g. cell leak, baseline drift)", id="reason")
+            yield Static("Enter records the flag · Esc cancels", classes="hint")
+
+    def on_mount(self) -> None:
+        self.query_one(Input).focus()
+
+    @on(Input.Submitted, "#reason")
+    def submit(self, message: Input.Submitted) -> None:
+        reason = message.value.strip()
+        if not reason:
+            self.notify("a flag needs a reason", severity="warning", timeout=2)
+            return
+        self.dismiss(reason)
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+def shift_options(species: tuple[str, ...] | list[str]) -> list[tuple[str, str]]:
+    """Select options "H35Cl P +1" etc.: renumber one branch of one isotopologue by one J."""
+    options = [("no J renumbering", NO_SHIFT)]
+    for iso in species:
+        for branch in ("P", "R"):
+            for shift in (+1, -1):
+                options.append((f"{iso} {branch} branch J{shift:+d}", f"{iso}|{branch}|{shift}"))
+    return options
+
+
+def parse_positions(text: str) -> list[float]:
+    """Comma or space separated wavenumbers in cm-1; raises ValueError naming a bad entry."""
+    values: list[float] = []
+    for part in text.replace(",", " ").split():
+        try:
+            values.append(float(part))
+        except ValueError:
+            raise ValueError(f"{part!r} is not a wavenumber") from None
+    return values
+
+
+class ReprocessScreen(ModalScreen[dict[str, Any] | None]):
+    """Changed settings for a redo of one run: species, one branch renumbered, lines excluded.
+
+    Tab moves between fields, Enter in a text field (or ctrl+s) sends, Escape cancels. The result
+    is the requested change as plain data; the app turns it into pipeline settings.
+    """
+
+    BINDINGS = [
+        Binding("escape", "cancel", "Cancel", id="modal.cancel"),
+        Binding("ctrl+s", "send", "Redo", id="modal.send"),
+    ]
+
+    def __init__(self, run: Any, excluded: list[float]) -> None:
+        super().__init__()
+        self.run = run
+        self.excluded = excluded
+        previous = run.settings or {}
+        self.species_text = ", ".join(previous.get("species") or run.species)
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Label(f"Redo {self.run.name} with changed settings", markup=False)
+            yield Label("species (comma separated; empty = detect)", classes="field-label")
+            yield Input(value=self.species_text, id="species")
+            yield Label("renumber a branch", classes="field-label")
+            yield Select(shift_options(self.run.species), value=NO_SHIFT, allow_blank=False, id="shift")
+            yield Label("exclude lines at cm-1 (marked with x in Lines)", classes="field-label")
+            yield Input(value=", ".join(f"{p:.4f}" for p in self.excluded), id="exclude")
+            yield Static("Enter or ctrl+s redoes · Tab next field · Esc cancels", classes="hint")
+
+    def on_mount(self) -> None:
+        self.query_one("#species", Input).focus()
+
+    @on(Input.Submitted)
+    def submitted(self) -> None:
+        self.action_send()
+
+    def action_send(self) -> None:
+        species = [s.strip() for s in self.query_one("#species", Input).value.split(",") if s.strip()]
+        try:
+            exclude = parse_positions(self.query_one("#exclude", Input).value)
+        except ValueError as error:
+            self.notify(str(error), severity="error", timeout=3)
+            return
+        shift_value = self.query_one("#shift", Select).value
+        shifts: list[dict[str, Any]] = []
+        if isinstance(shift_value, str) and shift_value != NO_SHIFT:
+            iso, branch, amount = shift_value.split("|")
+            shifts.append({"isotopologue": iso, "branch": branch, "shift": int(amount)})
+        self.dismiss({"species": species, "j_shifts": shifts, "exclude_cm1": exclude})
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)

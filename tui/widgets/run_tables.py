@@ -1,0 +1,282 @@
+"""The tables of the main screen: the run list and, for the selected run, lines, constants, checks.
+
+Each table fills itself from ledger records or the result JSON (plain dicts) and only formats:
+no physics is computed here.
+"""
+from __future__ import annotations
+
+from typing import Any, Iterable
+
+from rich.text import Text
+from textual.binding import Binding
+from textual.message import Message
+from textual.widgets import DataTable
+
+from tui.widgets.cells import (
+    check_text,
+    decision_text,
+    number,
+    plain,
+    quantity_cells,
+    verdict_text,
+)
+
+VERTICAL_KEYS = [
+    Binding("down,j", "cursor_down", "Down", show=False, id="table.down"),
+    Binding("up,k", "cursor_up", "Up", show=False, id="table.up"),
+    Binding("home,g", "scroll_top", "Top", show=False, id="table.top"),
+    Binding("end,G", "scroll_bottom", "Bottom", show=False, id="table.bottom"),
+]
+
+
+def clock_time(stamp: str | None) -> str:
+    """HH:MM:SS from an ISO 8601 stamp as stored (UTC in the ledger)."""
+    if not stamp:
+        return "--:--:--"
+    time_part = stamp.split("T", 1)[-1]
+    return time_part[:8]
+
+
+class RunList(DataTable):
+    """Runs newest first: time, file, species found, verdict, decision."""
+
+    BINDINGS = VERTICAL_KEYS
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(cursor_type="row", zebra_stripes=False, **kwargs)
+        self.run_ids: list[int] = []
+
+    def on_mount(self) -> None:
+        self.add_column("time UTC", key="time", width=8)
+        self.add_column("file", key="file", width=24)
+        self.add_column("v", key="version", width=2)
+        self.add_column("species", key="species", width=14)
+        self.add_column("verdict", key="verdict", width=8)
+        self.add_column("decision", key="decision", width=8)
+
+    def fill(self, runs: Iterable[Any], busy: Iterable[str] = (), keep_run_id: int | None = None) -> None:
+        """Replace the rows: files in progress (`busy` paths) first, then ledger runs."""
+        self.clear()
+        self.run_ids = []
+        for path in busy:
+            name = path.rsplit("/", 1)[-1]
+            self.add_row(
+                Text("now", style="dim"), plain(name), Text(""), Text(""),
+                verdict_text("busy", None), Text(""), key=f"busy:{path}",
+            )
+        for run in runs:
+            self.run_ids.append(run.run_id)
+            self.add_row(
+                plain(clock_time(run.received_at)),
+                plain(run.name),
+                Text(str(run.version), justify="right"),
+                plain(",".join(run.species) or "—"),
+                verdict_text(run.status, run.verdict),
+                decision_text(run.decision),
+                key=str(run.run_id),
+            )
+        if keep_run_id is not None and str(keep_run_id) in self.rows:
+            self.move_cursor(row=self.get_row_index(str(keep_run_id)), animate=False)
+
+    def selected_run_id(self) -> int | None:
+        if self.row_count == 0:
+            return None
+        key = self.coordinate_to_cell_key((self.cursor_row, 0)).row_key.value
+        if key is None or key.startswith("busy:"):
+            return None
+        return int(key)
+
+
+def line_label(assigned: dict[str, Any] | None) -> str:
+    """e.g. "H35Cl 1-0 R(3)" (J of the lower level in brackets, trade convention)."""
+    if not assigned:
+        return "unassigned"
+    return (
+        f"{assigned.get('isotopologue', '?')} {assigned.get('v_upper', '?')}-{assigned.get('v_lower', '?')}"
+        f" {assigned.get('branch', '?')}({assigned.get('J_lower', '?')})"
+    )
+
+
+def line_key(line: dict[str, Any]) -> float:
+    """A line's identity for exclusion requests: its observed position in cm-1."""
+    return round(float((line.get("position") or {}).get("value", float("nan"))), 4)
+
+
+class LinesTable(DataTable):
+    """Observed lines: position, assignment, calculated position, obs-calc; `x` marks exclusion."""
+
+    BINDINGS = [
+        *VERTICAL_KEYS,
+        Binding("x", "toggle_exclude", "Exclude line", id="lines.exclude"),
+    ]
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(cursor_type="row", **kwargs)
+        self.lines: list[dict[str, Any]] = []
+        self.excluded: set[float] = set()
+
+    def on_mount(self) -> None:
+        self.add_column("obs cm-1", key="obs", width=10)
+        self.add_column("±", key="sigma", width=6)
+        self.add_column("assignment", key="assignment", width=15)
+        self.add_column("calc cm-1", key="calc", width=10)
+        self.add_column("obs-calc", key="residual", width=8)
+        self.add_column("note", key="note", width=22)
+
+    def fill(self, lines: list[dict[str, Any]], excluded: set[float] | None = None) -> None:
+        self.clear()
+        self.lines = sorted(lines, key=line_key, reverse=True)
+        self.excluded = set(excluded or ())
+        for index, line in enumerate(self.lines):
+            position = line.get("position") or {}
+            assigned = line.get("assigned") or None
+            sigma = position.get("sigma")
+            self.add_row(
+                number(position.get("value"), 4),
+                number(sigma, 4) if sigma is not None else Text("", justify="right"),
+                plain(line_label(assigned)) if assigned else Text("? unassigned", style="bold"),
+                number(assigned.get("calc"), 4) if assigned else Text("—", justify="right", style="dim"),
+                number(assigned.get("residual"), 4) if assigned else Text("—", justify="right", style="dim"),
+                self._note(line),
+                key=str(index),
+            )
+
+    def _note(self, line: dict[str, Any]) -> Text:
+        if line_key(line) in self.excluded:
+            return Text("x EXCLUDE on redo", style="bold")
+        cause = line.get("likely_cause")
+        return plain(cause or "")
+
+    def action_toggle_exclude(self) -> None:
+        if not self.lines:
+            return
+        line = self.lines[self.cursor_row]
+        key = line_key(line)
+        self.excluded ^= {key}
+        self.update_cell(str(self.cursor_row), "note", self._note(line))
+        self.post_message(self.ExclusionsChanged(self))
+
+    class ExclusionsChanged(Message):
+        """The set of lines marked for exclusion changed."""
+
+        def __init__(self, table: LinesTable) -> None:
+            super().__init__()
+            self.table = table
+
+
+CONSTANT_ROWS: tuple[tuple[str, str], ...] = (
+    ("B_e", "B_e cm-1"),
+    ("alpha_e", "alpha_e cm-1"),
+    ("D_e", "D_e cm-1"),
+    ("r_e", "r_e Å"),
+    ("omega_e", "omega_e cm-1"),
+    ("omega_e_x_e", "omega_e x_e cm-1"),
+)
+BAND_ROWS: tuple[tuple[str, str], ...] = (
+    ("origin", "origin cm-1"),
+    ("B_upper", "B' cm-1"),
+    ("B_lower", "B'' cm-1"),
+    ("D_upper", "D' cm-1"),
+    ("D_lower", "D'' cm-1"),
+)
+
+
+def reference_value(reference: Any, key: str) -> float | None:
+    """A reference value from the constants' `reference` object: a number or {"value": ...}."""
+    if not isinstance(reference, dict):
+        return None
+    item = reference.get(key)
+    if isinstance(item, dict):
+        item = item.get("value")
+    return float(item) if isinstance(item, (int, float)) else None
+
+
+def reference_cell(reference: float | None, estimate: Any) -> Text:
+    """The reference value at the fitted value's precision (so the two line up)."""
+    if reference is None:
+        return Text("—", justify="right", style="dim")
+    sigma = estimate.get("sigma") if isinstance(estimate, dict) else None
+    return quantity_cells({"value": reference, "sigma": sigma})[0]
+
+
+class ConstantsTable(DataTable):
+    """Band constants per band and molecular constants per isotopologue, beside reference values."""
+
+    BINDINGS = VERTICAL_KEYS
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(cursor_type="row", **kwargs)
+        self.quantities: list[tuple[str, str]] = []  # (isotopologue, quantity) per row
+
+    def on_mount(self) -> None:
+        self.add_column("isotopologue", key="iso", width=12)
+        self.add_column("quantity", key="quantity", width=16)
+        self.add_column("fitted", key="value", width=12)
+        self.add_column("±", key="sigma", width=9)
+        self.add_column("reference", key="reference", width=11)
+
+    def fill(self, bands: list[dict[str, Any]], constants: list[dict[str, Any]]) -> None:
+        self.clear()
+        self.quantities = []
+        for band in bands:
+            iso = str(band.get("isotopologue", "?"))
+            tag = f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}"
+            for key, label in BAND_ROWS:
+                if band.get(key) is None:
+                    continue
+                value, sigma = quantity_cells(band.get(key))
+                self._add(iso, key, f"{label} {tag}", value, sigma, Text(""))
+            rms = band.get("rms")
+            self._add(
+                iso, "", f"rms cm-1 {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text("")
+            )
+        for constant in constants:
+            iso = str(constant.get("isotopologue", "?"))
+            reference = constant.get("reference")
+            for key, label in CONSTANT_ROWS:
+                if constant.get(key) is None:
+                    continue
+                estimate = constant.get(key)
+                value, sigma = quantity_cells(estimate)
+                ref = reference_value(reference, key)
+                ref_cell = reference_cell(ref, estimate)
+                self._add(iso, key, label, value, sigma, ref_cell)
+        if self.row_count == 0:
+            self.add_row(Text("no fitted constants for this run", style="dim"), "", "", "", "")
+
+    def _add(self, iso: str, key: str, label: str, value: Text, sigma: Text, reference: Text) -> None:
+        self.quantities.append((iso, key))
+        self.add_row(plain(iso), plain(label), value, sigma, reference)
+
+    def selected_quantity(self) -> tuple[str, str] | None:
+        if not self.quantities or self.cursor_row >= len(self.quantities):
+            return None
+        iso, key = self.quantities[self.cursor_row]
+        return (iso, key) if key else None
+
+
+class ChecksTable(DataTable):
+    """Each check with its status as a word and the reason."""
+
+    BINDINGS = VERTICAL_KEYS
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(cursor_type="row", **kwargs)
+
+    def on_mount(self) -> None:
+        self.add_column("status", key="status", width=7)
+        self.add_column("check", key="name", width=18)
+        self.add_column("reason", key="detail")
+
+    def fill(self, checks: list[dict[str, Any]], error: str | None = None) -> None:
+        self.clear()
+        if error:
+            self.add_row(check_text("fail"), plain("file"), plain(error))
+        for check in checks:
+            self.add_row(
+                check_text(str(check.get("status", "?"))),
+                plain(check.get("name", "")),
+                plain(check.get("detail", "")),
+            )
+        if self.row_count == 0:
+            self.add_row(Text("", style="dim"), Text("no checks ran", style="dim"), Text(""))
