@@ -22,6 +22,13 @@ class ProcessSettings:
 
     species: tuple[str, ...] = ()  # molecule or isotopologue labels expected; () = detect
     max_bytes: int = DEFAULT_MAX_BYTES
+    threshold_sigma: float = 5.0  # line detection threshold in noise sigma
+    max_shift_cm1: float = 5.0  # largest calibration offset the assignment searches
+    temperature_K: float = 296.0  # for predicted intensities
+    # operator corrections: (isotopologue, v_upper, v_lower, branch "P"/"R", offset added to J'')
+    j_offsets: tuple[tuple[str, int, int, str, int], ...] = ()
+    excluded_positions_cm1: tuple[float, ...] = ()  # lines to leave out of assignment and fits
+    library_file: str | None = None  # a user library file that adds or overrides species
 
 
 @dataclass(frozen=True)
@@ -116,6 +123,107 @@ class RunResult:
         }
 
 
+@dataclass(frozen=True)
+class Analysis:
+    """The in-memory products of one analysis (arrays kept; `RunResult` holds the JSON view)."""
+
+    data: Spectrum | LineList
+    baseline: Any  # BaselineResult | None (None for a line list)
+    lines: Any  # LineTable
+    assignment: Any  # AssignmentResult
+    timing_ms: dict[str, float]
+
+
+def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) -> Analysis:
+    """Baseline, lines, assignment and band fits of a spectrum or line list already read."""
+    import time
+
+    from processing.assign import AssignSettings, assign_lines
+    from processing.baseline import estimate_baseline
+    from processing.lines import LineTable, measure_lines
+    from processing.species import load_library
+
+    settings = settings or ProcessSettings()
+    timing: dict[str, float] = {}
+    clock = time.perf_counter()
+
+    def lap(stage: str) -> None:
+        nonlocal clock
+        now = time.perf_counter()
+        timing[stage] = (now - clock) * 1e3
+        clock = now
+
+    library = load_library(settings.library_file)
+    if isinstance(data, Spectrum):
+        baseline = estimate_baseline(data)
+        lap("baseline")
+        lines = measure_lines(data, baseline, threshold_sigma=settings.threshold_sigma)
+        lap("lines")
+        first, last = data.first_cm1, data.last_cm1
+    else:
+        baseline = None
+        lines = LineTable.from_positions(data.position_cm1, data.intensity)
+        first, last = float(data.position_cm1[0]), float(data.position_cm1[-1])
+        lap("lines")
+    assign_settings = AssignSettings(
+        species=settings.species,
+        max_shift_cm1=settings.max_shift_cm1,
+        temperature_K=settings.temperature_K,
+        j_offsets=settings.j_offsets,
+        excluded_positions_cm1=settings.excluded_positions_cm1,
+    )
+    assignment = assign_lines(lines, first, last, assign_settings, library)
+    lap("assignment and fits")
+    return Analysis(data, baseline, lines, assignment, timing)
+
+
+def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
+    lines = analysis.lines
+    assignment = analysis.assignment
+    records = []
+    for i in range(lines.count):
+        assigned = assignment.per_line[i]
+        width = float(lines.width_cm1[i])
+        area = float(lines.area_cm1[i])
+        snr = float(lines.snr[i])
+        records.append(
+            {
+                "position": {"value": float(lines.position_cm1[i]), "sigma": float(lines.position_sigma_cm1[i])},
+                "height": float(lines.height[i]),
+                "width": width if width == width else None,
+                "area": area if area == area else None,
+                "snr": snr if snr != float("inf") else None,
+                "saturated": bool(lines.saturated[i]),
+                "blended": bool(lines.blended[i]),
+                "assigned": assigned.to_dict() if assigned else None,
+                "likely_cause": assignment.likely_cause[i],
+            }
+        )
+    return tuple(records)
+
+
+def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
+    """The JSON-ready RunResult of an analysis."""
+    data = analysis.data
+    extra: dict[str, Any] = {
+        "species_found": list(analysis.assignment.species_found),
+        "notes": list(analysis.assignment.notes),
+        "band_shifts_cm1": analysis.assignment.band_shifts_cm1,
+        "timing_ms": {k: round(v, 3) for k, v in analysis.timing_ms.items()},
+    }
+    if analysis.baseline is not None:
+        extra["baseline"] = analysis.baseline.to_dict()
+    return RunResult(
+        file=source,
+        status="processed",
+        sha256=data.meta.sha256,
+        spectrum=SpectrumSummary.of(data),
+        lines=_line_records(analysis),
+        bands=tuple(fit.to_dict() for fit in analysis.assignment.bands),
+        extra=extra,
+    )
+
+
 def process_file(path: str | Path, settings: ProcessSettings | None = None) -> RunResult:
     """Read and analyse one file; a file problem becomes an "unreadable" result, not an error."""
     settings = settings or ProcessSettings()
@@ -124,9 +232,4 @@ def process_file(path: str | Path, settings: ProcessSettings | None = None) -> R
         data = read_any(source, settings.max_bytes)
     except SpectrumFileError as error:
         return RunResult(file=source, status="unreadable", error=str(error))
-    return RunResult(
-        file=source,
-        status="processed",
-        sha256=data.meta.sha256,
-        spectrum=SpectrumSummary.of(data),
-    )
+    return result_from_analysis(source, analyse(data, settings))

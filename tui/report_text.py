@@ -1,10 +1,14 @@
 """Plain-text rendering of a RunResult for `bandwatch process` (aligned tables, no colour)."""
 from __future__ import annotations
 
+from typing import Any
+
+from processing.estimate import format_value_sigma
 from processing.pipeline import RunResult
 
 
-def _table(headers: list[str], rows: list[list[str]], right: set[int] | None = None) -> str:
+def table(headers: list[str], rows: list[list[str]], right: set[int] | None = None) -> str:
+    """Columns padded to their widest cell; indices in `right` right-justified."""
     right = right or set()
     widths = [len(h) for h in headers]
     for row in rows:
@@ -20,21 +24,106 @@ def _table(headers: list[str], rows: list[list[str]], right: set[int] | None = N
     return "\n".join(lines)
 
 
+def _q(q: dict[str, Any] | None) -> str:
+    if not q:
+        return "-"
+    return format_value_sigma(q["value"], q.get("sigma"))
+
+
+def assignment_label(assigned: dict[str, Any] | None) -> str:
+    """e.g. "H35Cl 1-0 R(3)"; "-" when unassigned."""
+    if not assigned:
+        return "-"
+    return f"{assigned['isotopologue']} {assigned['v_upper']}-{assigned['v_lower']} {assigned['branch']}({assigned['J_lower']})"
+
+
+def render_spectrum_summary(result: RunResult) -> list[str]:
+    s = result.spectrum
+    assert s is not None
+    spacing = f"{s.spacing_cm1:.4f}" if s.spacing_cm1 is not None else "-"
+    resolution = f"{s.resolution_cm1:g}" if s.resolution_cm1 is not None else "not stated"
+    out = [
+        table(
+            ["kind", "points", "first cm-1", "last cm-1", "spacing cm-1", "y read as", "resolution cm-1", "format"],
+            [[s.kind, str(s.points), f"{s.first_cm1:.4f}", f"{s.last_cm1:.4f}", spacing, s.y_units, resolution, s.format]],
+            right={1, 2, 3, 4},
+        )
+    ]
+    out += [f"   note: {note}" for note in s.notes]
+    return out
+
+
+def render_lines(result: RunResult) -> list[str]:
+    rows = []
+    for line in result.lines:
+        assigned = line.get("assigned")
+        flags = "".join(
+            flag for flag, on in (("s", line.get("saturated")), ("b", line.get("blended"))) if on
+        )
+        rows.append(
+            [
+                f"{line['position']['value']:.4f}",
+                f"{line['position']['sigma']:.4f}",
+                f"{line['height']:.4f}",
+                assignment_label(assigned),
+                f"{assigned['calc']:.4f}" if assigned else "",
+                f"{assigned['residual']:+.4f}" if assigned else "",
+                f"{assigned['confidence']:.2f}" if assigned else "",
+                flags,
+                "" if assigned else (line.get("likely_cause") or ""),
+            ]
+        )
+    if not rows:
+        return ["   no lines found above the detection threshold"]
+    return [
+        table(
+            ["obs cm-1", "sigma", "height", "assignment", "calc cm-1", "obs-calc", "conf", "flags", "likely cause"],
+            rows,
+            right={0, 1, 2, 4, 5, 6},
+        ),
+        "   flags: s = saturated, b = blended",
+    ]
+
+
+def render_bands(result: RunResult) -> list[str]:
+    if not result.bands:
+        return ["   no band could be assigned"]
+    rows = [
+        [
+            f"{b['isotopologue']} {b['v_upper']}-{b['v_lower']}",
+            str(b["n_lines"]),
+            f"{b['rms']:.4f}",
+            _q(b["origin"]),
+            _q(b["B_upper"]),
+            _q(b["B_lower"]),
+            _q(b.get("D_upper")),
+            _q(b.get("D_lower")),
+        ]
+        for b in result.bands
+    ]
+    out = [table(["band", "lines", "rms", "nu0 cm-1", "B' cm-1", "B'' cm-1", "D' cm-1", "D'' cm-1"], rows, right={1, 2, 3, 4, 5, 6, 7})]
+    cd_rows = []
+    for b in result.bands:
+        for cd in b.get("combination_differences", []):
+            label = "B''" if cd["state"] == "lower" else "B'"
+            cd_rows.append([f"{b['isotopologue']} {b['v_upper']}-{b['v_lower']}", f"{label} (v={cd['v']})", str(cd["n_pairs"]), _q(cd["B"]), _q(cd.get("D"))])
+    if cd_rows:
+        out.append("   cross-check from combination differences (one state each):")
+        out.append(table(["band", "constant", "pairs", "B cm-1", "D cm-1"], cd_rows, right={2, 3, 4}))
+    return out
+
+
 def render_result(result: RunResult) -> str:
     out = [f"== {result.file}"]
     if result.status != "processed" or result.spectrum is None:
         out.append(f"   {result.status}: {result.error}")
         return "\n".join(out)
-    s = result.spectrum
-    spacing = f"{s.spacing_cm1:.4f}" if s.spacing_cm1 is not None else "-"
-    resolution = f"{s.resolution_cm1:g}" if s.resolution_cm1 is not None else "not stated"
-    out.append(
-        _table(
-            ["kind", "points", "first cm-1", "last cm-1", "spacing cm-1", "y read as", "resolution cm-1", "format"],
-            [[s.kind, str(s.points), f"{s.first_cm1:.4f}", f"{s.last_cm1:.4f}", spacing, s.y_units, resolution, s.format]],
-            right={1, 2, 3, 4},
-        )
-    )
-    for note in s.notes:
+    out += render_spectrum_summary(result)
+    if result.spectrum.kind == "spectrum" or result.lines:
+        out.append("")
+        out += render_lines(result)
+        out.append("")
+        out += render_bands(result)
+    for note in result.extra.get("notes", []):
         out.append(f"   note: {note}")
     return "\n".join(out)

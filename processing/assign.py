@@ -1,0 +1,614 @@
+"""Automatic assignment of measured lines to isotopologue, band, branch and J.
+
+Two routes, both without operator input:
+
+1. **Library route.** For each molecule (all library molecules, or the expected ones and
+   their H/D partners) and each band (1-0, 2-0, 3-0, 2-1) the library predicts P and R lines
+   with relative intensities. One common wavenumber shift (a calibration offset, within
+   +-`max_shift_cm1`) is searched for all isotopologues of the molecule together, so that a
+   37Cl line cannot pose as a shifted 35Cl line. A band counts as present when enough of its
+   strong lines match, well beyond chance. Then, per band: fit, predict every line from the
+   fitted constants with its propagated uncertainty, match again, extend to high J, and
+   repeat until the assignment no longer changes. One measured line goes to one prediction:
+   the closest in units of its tolerance; two predictions inside one line make a blend.
+
+2. **Pattern route** (no prior constants). Strong lines left over are searched for chains of
+   near-evenly spaced lines; a P/R band is recognised by the gap of about twice the spacing
+   at its centre, where the numbering starts (m = -1 below the gap, m = +1 above). Every
+   candidate centre is tried and the numbering whose smooth polynomial nu(m) fits best wins.
+   The band is then named after the library isotopologue whose constants it matches, or left
+   "unidentified".
+
+Each assignment carries a confidence in [0, 1]; lines left over get a likely cause.
+"""
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from processing.fit import BandFit, fit_band
+from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, m_from_branch
+from processing.lines import LineTable
+
+CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
+H_D_PARTNERS = {"HF": "DF", "DF": "HF", "HCl": "DCl", "DCl": "HCl", "HBr": "DBr", "DBr": "HBr", "HI": "DI", "DI": "HI"}
+# Regions where lines are most likely from atmospheric interferents (common practice).
+INTERFERENT_REGIONS: tuple[tuple[float, float, str], ...] = (
+    (2280.0, 2390.0, "interferent (CO2-like band region)"),
+    (640.0, 700.0, "interferent (CO2-like bend region)"),
+    (1300.0, 2000.0, "interferent (water-vapour region)"),
+    (3450.0, 4000.0, "interferent (water-vapour region)"),
+)
+MIN_BAND_LINES = 5
+
+
+@dataclass(frozen=True)
+class AssignSettings:
+    """What the assignment may assume; every field has a working default."""
+
+    species: tuple[str, ...] = ()  # molecules/isotopologues expected; () = try the whole library
+    max_shift_cm1: float = 5.0  # largest calibration offset searched
+    temperature_K: float = 296.0  # for predicted relative intensities
+    bands: tuple[tuple[int, int], ...] = CANDIDATE_BANDS
+    # operator corrections: (isotopologue, v_upper, v_lower, branch, offset added to J'')
+    j_offsets: tuple[tuple[str, int, int, str, int], ...] = ()
+    excluded_positions_cm1: tuple[float, ...] = ()  # lines to leave out (nearest line each)
+    pattern_route: bool = True
+
+
+@dataclass(frozen=True)
+class LineAssignment:
+    isotopologue: str
+    v_upper: int
+    v_lower: int
+    branch: str
+    J_lower: int
+    calc: float
+    residual: float
+    confidence: float
+    method: str  # "library" or "pattern"
+    blended: bool
+    used_in_fit: bool
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "isotopologue": self.isotopologue,
+            "v_upper": self.v_upper,
+            "v_lower": self.v_lower,
+            "branch": self.branch,
+            "J_lower": self.J_lower,
+            "m": int(m_from_branch(self.branch, self.J_lower)),
+            "calc": self.calc,
+            "residual": self.residual,
+            "confidence": self.confidence,
+            "method": self.method,
+            "blended": self.blended,
+            "used_in_fit": self.used_in_fit,
+        }
+
+
+@dataclass(frozen=True)
+class AssignmentResult:
+    per_line: tuple[LineAssignment | None, ...]  # aligned with the LineTable
+    likely_cause: tuple[str | None, ...]  # for unassigned lines
+    bands: tuple[BandFit, ...]
+    species_found: tuple[str, ...]
+    band_shifts_cm1: dict[str, float] = field(default_factory=dict)  # library route offsets
+    notes: tuple[str, ...] = ()
+
+    @property
+    def assigned_count(self) -> int:
+        return sum(a is not None for a in self.per_line)
+
+
+# ----------------------------------------------------------------------------- predictions
+@dataclass
+class _Band:
+    """A band being assigned: its predictions, then its fit."""
+
+    isotopologue: str
+    v_upper: int
+    v_lower: int
+    method: str
+    m: np.ndarray  # candidate lines (running index)
+    position: np.ndarray  # current predictions
+    sigma: np.ndarray  # prediction uncertainty
+    weight: np.ndarray  # predicted relative intensity (molecule-band scale, 1 = strongest)
+    fit: BandFit | None = None
+
+    @property
+    def key(self) -> tuple[str, int, int]:
+        return (self.isotopologue, self.v_upper, self.v_lower)
+
+    @property
+    def label(self) -> str:
+        return f"{self.isotopologue} {self.v_upper}-{self.v_lower}"
+
+
+@functools.lru_cache(maxsize=256)
+def _predicted_band(library: Any, label: str, v_upper: int, v_lower: int, temperature_K: float) -> Any:
+    """Library lines with relative intensities (cached: they do not depend on the spectrum)."""
+    from processing.intensities import lines_for
+
+    try:
+        return lines_for(library.isotopologue(label), v_upper, v_lower, temperature_K, 1e-3)
+    except ValueError:
+        return None
+
+
+def _band_may_overlap(iso: Any, v_upper: int, v_lower: int, first: float, last: float) -> bool:
+    """Cheap test before predicting intensities: the band's lines up to J'' = 40 reach the range."""
+    lines = band_lines(iso.dunham, v_upper, v_lower, 40)
+    position = lines.wavenumber_cm1[np.isfinite(lines.wavenumber_cm1)]
+    return bool(position.size) and float(position.max()) > first - 10.0 and float(position.min()) < last + 10.0
+
+
+def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> list[_Band]:
+    bands: list[_Band] = []
+    for iso in library.molecule(molecule):
+        if not _band_may_overlap(iso, v_upper, v_lower, first, last):
+            continue
+        predicted = _predicted_band(library, iso.label, v_upper, v_lower, temperature_K)
+        if predicted is None:
+            continue
+        lines = predicted.lines
+        inside = (lines.wavenumber_cm1 > first - 10.0) & (lines.wavenumber_cm1 < last + 10.0)
+        if not inside.any():
+            continue
+        bands.append(
+            _Band(
+                isotopologue=iso.label,
+                v_upper=v_upper,
+                v_lower=v_lower,
+                method="library",
+                m=lines.m[inside],
+                position=lines.wavenumber_cm1[inside],
+                sigma=np.zeros(int(inside.sum())),
+                weight=predicted.strength_cm_per_molecule[inside],
+            )
+        )
+    if not bands:
+        return bands
+    strongest = max(float(b.weight.max()) for b in bands)
+    for b in bands:
+        b.weight = b.weight / strongest
+    return bands
+
+
+def _match_count(peaks: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarray:
+    """Bool per target: a peak lies within tol of it."""
+    if peaks.size == 0:
+        return np.zeros(targets.shape, dtype=bool)
+    idx = np.clip(np.searchsorted(peaks, targets), 1, peaks.size - 1)
+    nearest = np.minimum(np.abs(peaks[idx] - targets), np.abs(peaks[idx - 1] - targets))
+    if peaks.size == 1:
+        nearest = np.abs(peaks[0] - targets)
+    return nearest <= tol
+
+
+def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: float) -> tuple[float, float]:
+    """Common shift maximising the matched predicted intensity; returns (shift, score)."""
+    positions = np.concatenate([b.position for b in bands])
+    weights = np.concatenate([b.weight for b in bands])
+    keep = weights >= 0.02
+    positions, weights = positions[keep], weights[keep]
+    if positions.size == 0:
+        return 0.0, 0.0
+    step = tol / 2.0
+    shifts = np.arange(-max_shift, max_shift + step / 2, step)
+    targets = positions[None, :] + shifts[:, None]
+    matched = _match_count(peaks, targets.ravel(), tol).reshape(targets.shape)
+    scores = matched @ weights
+    # prefer the smallest shift among equal scores
+    best = int(np.lexsort((np.abs(shifts), -scores))[0])
+    return float(shifts[best]), float(scores[best] / weights.sum())
+
+
+def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, density: float) -> bool:
+    """Enough strong predicted lines matched, well beyond what chance gives."""
+    strong = band.weight >= 0.05
+    n_expected = int(strong.sum())
+    if n_expected < MIN_BAND_LINES:
+        return False
+    matched = _match_count(peaks, band.position[strong] + shift, tol)
+    n_matched = int(matched.sum())
+    chance = n_expected * min(1.0, 2.0 * tol * density)
+    return n_matched >= MIN_BAND_LINES and n_matched >= 0.5 * n_expected and n_matched >= 3.0 * chance + 3
+
+
+# ------------------------------------------------------------------------------- matching
+@dataclass(frozen=True)
+class _Claim:
+    band: int
+    line: int
+    m: int
+    distance: float  # |obs - pred| / tol
+
+
+def _claims(peaks: np.ndarray, usable: np.ndarray, bands: list[_Band], tolerances: list[np.ndarray]) -> list[_Claim]:
+    claims: list[_Claim] = []
+    for bi, (band, tol) in enumerate(zip(bands, tolerances)):
+        if peaks.size == 0:
+            break
+        idx = np.clip(np.searchsorted(peaks, band.position), 1, max(peaks.size - 1, 1))
+        for k, (target, t) in enumerate(zip(band.position, tol)):
+            for j in (idx[k] - 1, idx[k]):
+                if 0 <= j < peaks.size and usable[j]:
+                    d = abs(peaks[j] - target) / t
+                    if d <= 1.0:
+                        claims.append(_Claim(bi, int(j), int(band.m[k]), d))
+    return claims
+
+
+def _resolve(claims: list[_Claim], bands: list[_Band]) -> tuple[dict[int, _Claim], set[int]]:
+    """One line -> one claim (closest in tolerance units, then strongest); one band line ->
+    one measured line. Returns winners by line and the set of blended lines."""
+    by_line: dict[int, list[_Claim]] = {}
+    for claim in claims:
+        by_line.setdefault(claim.line, []).append(claim)
+    weight_of = {}
+    for bi, band in enumerate(bands):
+        for m, w in zip(band.m, band.weight):
+            weight_of[(bi, int(m))] = float(w)
+    winners: dict[int, _Claim] = {}
+    blended: set[int] = set()
+    for line, options in by_line.items():
+        options.sort(key=lambda c: (c.distance, -weight_of.get((c.band, c.m), 0.0)))
+        winners[line] = options[0]
+        others = [c for c in options[1:] if bands[c.band].isotopologue != bands[options[0].band].isotopologue]
+        if any(weight_of.get((c.band, c.m), 0.0) > 0.05 * weight_of.get((options[0].band, options[0].m), 1.0) for c in others):
+            blended.add(line)
+    # a band line claimed by two measured lines keeps the closer one
+    by_band_line: dict[tuple[int, int], _Claim] = {}
+    for claim in winners.values():
+        key = (claim.band, claim.m)
+        if key not in by_band_line or claim.distance < by_band_line[key].distance:
+            by_band_line[key] = claim
+    kept = {c.line: c for c in by_band_line.values()}
+    return kept, blended & set(kept)
+
+
+def _fit_band_lines(
+    band: _Band, claims: list[_Claim], lines: LineTable, blended: set[int]
+) -> BandFit | None:
+    if len(claims) < 4:
+        return None
+    m = np.array([c.m for c in claims])
+    branch, J_lower = branch_from_m(m)
+    idx = np.array([c.line for c in claims])
+    sigma = lines.position_sigma_cm1[idx].copy()
+    inflate = np.where(lines.saturated[idx], 3.0, 1.0) * np.where(np.isin(idx, list(blended)), 5.0, 1.0)
+    # blended lines carry little weight when enough clean lines exist
+    sigma = sigma * inflate
+    try:
+        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx], sigma)
+    except (ValueError, np.linalg.LinAlgError):
+        return None
+
+
+def _tolerances(bands: list[_Band], lines: LineTable, tol0: float) -> list[np.ndarray]:
+    line_sigma = float(np.median(lines.position_sigma_cm1)) if lines.count else 0.0
+    out = []
+    for band in bands:
+        if band.fit is None:
+            out.append(np.full(band.position.size, tol0))
+        else:
+            spread = np.sqrt(band.sigma**2 + line_sigma**2 + band.fit.rms**2)
+            out.append(np.clip(5.0 * spread, 0.2 * tol0, tol0))
+    return out
+
+
+def _extend_predictions(band: _Band, J_cap: int) -> None:
+    """After a fit, predict every line up to J'' = J_cap from the fitted constants."""
+    assert band.fit is not None
+    m = np.concatenate([np.arange(-J_cap, 0), np.arange(1, J_cap + 2)])
+    branch, J_lower = branch_from_m(m)
+    position, sigma = band.fit.predict(branch, J_lower)
+    old_weight = dict(zip(band.m.tolist(), band.weight.tolist()))
+    band.m = m
+    band.position = position
+    band.sigma = sigma
+    band.weight = np.array([old_weight.get(int(k), 1e-3) for k in m])
+
+
+def _refine(bands: list[_Band], lines: LineTable, usable: np.ndarray, tol0: float, J_caps: dict[tuple[str, int, int], int]) -> tuple[dict[int, _Claim], set[int]]:
+    peaks = lines.position_cm1
+    previous: dict[int, tuple[int, int]] | None = None
+    winners: dict[int, _Claim] = {}
+    blended: set[int] = set()
+    for _ in range(8):
+        claims = _claims(peaks, usable, bands, _tolerances(bands, lines, tol0))
+        winners, blended = _resolve(claims, bands)
+        state = {line: (c.band, c.m) for line, c in winners.items()}
+        if state == previous:
+            break
+        previous = state
+        for bi, band in enumerate(bands):
+            mine = [c for c in winners.values() if c.band == bi]
+            fit = _fit_band_lines(band, mine, lines, blended)
+            if fit is not None and fit.n_lines >= 4:
+                band.fit = fit
+                _extend_predictions(band, J_caps.get(band.key, 40))
+    return winners, blended
+
+
+# ------------------------------------------------------------------------------ pattern route
+def _find_chain(positions: np.ndarray, order_by_height: np.ndarray) -> list[int] | None:
+    """The longest chain of near-evenly spaced lines (one step may be skipped), as indices."""
+    best: list[int] = []
+    seeds = order_by_height[: min(40, order_by_height.size)]
+    for i in seeds:
+        for j in range(positions.size):
+            d = positions[j] - positions[i]
+            if not (0.4 < d < 50.0):
+                continue
+            chain = [int(i), int(j)]
+            # walk up then down
+            for direction in (+1, -1):
+                last, spacing, misses = (chain[-1], d, 0) if direction > 0 else (chain[0], d, 0)
+                while misses < 2:
+                    target = positions[last] + direction * spacing * (misses + 1)
+                    k = int(np.argmin(np.abs(positions - target)))
+                    if abs(positions[k] - target) < 0.08 * spacing and k not in chain:
+                        new_spacing = abs(positions[k] - positions[last]) / (misses + 1)
+                        if abs(new_spacing - spacing) > 0.1 * spacing:
+                            break
+                        spacing = new_spacing
+                        last = k
+                        misses = 0
+                        if direction > 0:
+                            chain.append(k)
+                        else:
+                            chain.insert(0, k)
+                    else:
+                        misses += 1
+            if len(chain) > len(best):
+                best = chain
+    return best if len(best) >= 8 else None
+
+
+def _number_chain(positions: np.ndarray) -> tuple[np.ndarray, float] | None:
+    """m for each chained line, choosing the band centre that gives the smoothest nu(m)."""
+    steps = np.diff(positions)
+    local = np.convolve(steps, np.ones(3) / 3.0, mode="same")
+    units = np.maximum(1, np.round(steps / np.minimum(local, np.median(steps))).astype(int))
+    n = np.concatenate([[0], np.cumsum(units)])
+    best: tuple[np.ndarray, float] | None = None
+    for gap in np.flatnonzero(units == 2):
+        m = n - (n[gap] + 1)
+        if not ((m < 0).sum() >= 3 and (m > 0).sum() >= 3):
+            continue
+        design = np.column_stack([np.ones_like(m, dtype=float), m, m**2, m**3])
+        coef, *_ = np.linalg.lstsq(design, positions, rcond=None)
+        rms = float(np.sqrt(np.mean((design @ coef - positions) ** 2)))
+        b_sum, b_diff = coef[1], coef[2]
+        if b_sum <= 0 or b_diff > 0:
+            continue
+        if best is None or rms < best[1]:
+            best = (m, rms)
+    return best
+
+
+def _identify(fit: BandFit, library: Any) -> tuple[str, int, int] | None:
+    """Library isotopologue and band whose origin and B'' this fitted band matches."""
+    best: tuple[float, tuple[str, int, int]] | None = None
+    from processing.levels import band_origin, rotational_constant
+
+    for iso in library.isotopologues():
+        for v_upper, v_lower in CANDIDATE_BANDS:
+            origin = band_origin(iso.dunham, v_upper, v_lower)
+            B_lower = rotational_constant(iso.dunham, v_lower)
+            d_origin = abs(fit.origin.value - origin) / origin
+            d_B = abs(fit.B_lower.value - B_lower) / B_lower
+            if d_origin < 0.01 and d_B < 0.02:
+                score = d_origin + d_B
+                if best is None or score < best[0]:
+                    best = (score, (iso.label, v_upper, v_lower))
+    return best[1] if best else None
+
+
+def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> list[tuple[_Band, dict[int, int]]]:
+    """Bands found by the pattern route: (band, {line index: m})."""
+    found: list[tuple[_Band, dict[int, int]]] = []
+    strong = available & (lines.snr >= 10.0) & ~lines.ringing
+    for _ in range(4):
+        index = np.flatnonzero(strong)
+        if index.size < 8:
+            break
+        positions = lines.position_cm1[index]
+        order = np.argsort(lines.height[index])[::-1]
+        chain = _find_chain(positions, order)
+        if chain is None:
+            break
+        chain_index = index[np.array(chain)]
+        numbered = _number_chain(lines.position_cm1[chain_index])
+        strong[chain_index] = False
+        if numbered is None:
+            continue
+        m, _ = numbered
+        branch, J_lower = branch_from_m(m)
+        try:
+            fit = fit_band("unidentified", 1, 0, branch, J_lower, lines.position_cm1[chain_index], lines.position_sigma_cm1[chain_index])
+        except (ValueError, np.linalg.LinAlgError):
+            continue
+        identity = _identify(fit, library)
+        label, v_upper, v_lower = identity if identity else (f"unidentified-{fit.origin.value:.0f}", 1, 0)
+        band = _Band(label, v_upper, v_lower, "pattern", m, lines.position_cm1[chain_index], np.zeros(m.size), np.ones(m.size))
+        found.append((band, dict(zip(chain_index.tolist(), m.tolist()))))
+    return found
+
+
+# ------------------------------------------------------------------------------- main entry
+def _likely_cause(lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]]) -> str:
+    if lines.ringing[i]:
+        return "ringing beside a strong line"
+    x = lines.position_cm1[i]
+    for low, high, cause in INTERFERENT_REGIONS:
+        if low <= x <= high and not any(a <= x <= b for a, b in first_fit_regions):
+            return cause
+    if lines.snr[i] < 8.0:
+        return "noise"
+    return "unknown"
+
+
+def _excluded_mask(lines: LineTable, excluded: tuple[float, ...]) -> np.ndarray:
+    mask = np.zeros(lines.count, dtype=bool)
+    for position in excluded:
+        if lines.count:
+            mask[int(np.argmin(np.abs(lines.position_cm1 - position)))] = True
+    return mask
+
+
+def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: AssignSettings | None = None, library: Any = None) -> AssignmentResult:
+    """Assign `lines` (measured in a spectrum covering first..last cm-1); see module docstring."""
+    from processing.species import load_library
+
+    settings = settings or AssignSettings()
+    library = library or load_library()
+    notes: list[str] = []
+    peaks = lines.position_cm1
+    excluded = _excluded_mask(lines, settings.excluded_positions_cm1)
+    usable = ~lines.ringing & ~excluded
+    width = lines.typical_width_cm1 if np.isfinite(lines.typical_width_cm1) and lines.typical_width_cm1 > 0 else 0.0
+    tol0 = float(np.clip(0.5 * width, 0.15, 1.0)) if width else 0.3
+    density = lines.count / max(last_cm1 - first_cm1, 1.0)
+
+    molecules = _candidate_molecules(library, settings.species, notes)
+    bands: list[_Band] = []
+    shifts: dict[str, float] = {}
+    J_caps: dict[tuple[str, int, int], int] = {}
+    for molecule in molecules:
+        for v_upper, v_lower in settings.bands:
+            predicted = _library_predictions(library, molecule, v_upper, v_lower, settings.temperature_K, first_cm1, last_cm1)
+            if not predicted:
+                continue
+            shift, _score = _best_shift(peaks[usable], predicted, tol0, settings.max_shift_cm1)
+            present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, density)]
+            if not present:
+                continue
+            main = max(present, key=lambda b: float(b.weight.max()))
+            shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
+            # minor isotopologues ride on the molecule's shift even when weak
+            for band in predicted:
+                if band in present or float(band.weight.max()) >= 0.005:
+                    band.position = band.position + shift
+                    J_caps[band.key] = int(np.max(np.abs(band.m))) + 2
+                    bands.append(band)
+            if abs(shift) > 3 * tol0:
+                notes.append(f"{molecule} {v_upper}-{v_lower}: lines sit {shift:+.2f} cm-1 from the library prediction ({main.isotopologue})")
+
+    winners, blended = _refine(bands, lines, usable, tol0, J_caps) if bands else ({}, set())
+    # drop bands with too few lines
+    counts: dict[int, int] = {}
+    for claim in winners.values():
+        counts[claim.band] = counts.get(claim.band, 0) + 1
+    winners = {line: c for line, c in winners.items() if counts.get(c.band, 0) >= (4 if bands[c.band].fit else MIN_BAND_LINES)}
+    kept_bands = sorted({c.band for c in winners.values()})
+
+    assignment: dict[int, tuple[_Band, int]] = {line: (bands[c.band], c.m) for line, c in winners.items()}
+    if settings.pattern_route:
+        available = usable & ~np.isin(np.arange(lines.count), list(assignment))
+        for band, members in _pattern_bands(lines, available, library):
+            notes.append(f"{band.label}: found by its P/R pattern ({len(members)} lines), numbering from the centre gap")
+            for line, m in members.items():
+                assignment[line] = (band, m)
+
+    # operator corrections to J numbering
+    for iso, v_upper, v_lower, branch_name, offset in settings.j_offsets:
+        for line, (band, m) in list(assignment.items()):
+            if band.key == (iso, v_upper, v_lower):
+                b, J = branch_from_m(np.array([m]))
+                if b[0] == branch_name:
+                    new_J = int(J[0]) + offset
+                    if new_J >= (1 if branch_name == P_BRANCH else 0):
+                        assignment[line] = (band, int(m_from_branch(branch_name, new_J)))
+                    else:
+                        del assignment[line]
+        notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
+
+    return _finish(lines, assignment, blended, shifts, notes, [bands[i] for i in kept_bands])
+
+
+def _candidate_molecules(library: Any, species: tuple[str, ...], notes: list[str]) -> list[str]:
+    if not species:
+        return list(library.molecules())
+    wanted: list[str] = []
+    for iso in library.resolve(species):
+        for name in (iso.molecule, H_D_PARTNERS.get(iso.molecule)):
+            if name and name in library.molecules() and name not in wanted:
+                wanted.append(name)
+    return wanted
+
+
+def _finish(
+    lines: LineTable,
+    assignment: dict[int, tuple[_Band, int]],
+    blended: set[int],
+    shifts: dict[str, float],
+    notes: list[str],
+    library_bands: list[_Band],
+) -> AssignmentResult:
+    """Final fit per band, per-line results with confidence, likely causes for the rest."""
+    groups: dict[tuple[str, int, int], list[int]] = {}
+    band_of: dict[tuple[str, int, int], _Band] = {}
+    for line, (band, _m) in assignment.items():
+        groups.setdefault(band.key, []).append(line)
+        band_of[band.key] = band
+    per_line: list[LineAssignment | None] = [None] * lines.count
+    fits: list[BandFit] = []
+    for key, members in sorted(groups.items(), key=lambda kv: (kv[0][0], kv[0][1], kv[0][2])):
+        band = band_of[key]
+        members.sort()
+        m = np.array([assignment[i][1] for i in members])
+        branch, J_lower = branch_from_m(m)
+        idx = np.array(members)
+        sigma = lines.position_sigma_cm1[idx] * np.where(lines.saturated[idx], 3.0, 1.0) * np.where(np.isin(idx, list(blended)), 5.0, 1.0)
+        fit: BandFit | None = None
+        if idx.size >= 4:
+            try:
+                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx], sigma)
+            except (ValueError, np.linalg.LinAlgError):
+                fit = None
+        if fit is None:
+            notes.append(f"{band.label}: {idx.size} lines, too few to fit; left unassigned")
+            continue
+        fits.append(fit)
+        spread = np.sqrt(fit.rms**2 + lines.position_sigma_cm1[idx] ** 2)
+        for k, line in enumerate(members):
+            residual = float(fit.residuals[k])
+            confidence = float(np.exp(-0.5 * (residual / max(3.0 * spread[k], 1e-9)) ** 2))
+            if line in blended:
+                confidence *= 0.5
+            if lines.saturated[line]:
+                confidence *= 0.8
+            if band.method == "pattern":
+                confidence *= 0.8
+            if not fit.used[k]:
+                confidence *= 0.3
+            per_line[line] = LineAssignment(
+                isotopologue=band.isotopologue,
+                v_upper=band.v_upper,
+                v_lower=band.v_lower,
+                branch=str(branch[k]),
+                J_lower=int(J_lower[k]),
+                calc=float(fit.calc[k]),
+                residual=residual,
+                confidence=round(confidence, 3),
+                method=band.method,
+                blended=line in blended,
+                used_in_fit=bool(fit.used[k]),
+            )
+    fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
+    causes = tuple(None if per_line[i] is not None else _likely_cause(lines, i, fitted_regions) for i in range(lines.count))
+    species = tuple(sorted({f.isotopologue for f in fits}))
+    return AssignmentResult(
+        per_line=tuple(per_line),
+        likely_cause=causes,
+        bands=tuple(fits),
+        species_found=species,
+        band_shifts_cm1=shifts,
+        notes=tuple(notes),
+    )

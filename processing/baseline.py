@@ -1,0 +1,176 @@
+"""Baseline, noise and saturation of an absorbance spectrum.
+
+Baseline: an iterative line-free estimate. The axis is cut into blocks a few line widths
+wide; each block's baseline level is the median of its points not flagged as lines; the
+levels are joined linearly; points more than 3 noise sigma above (lines) or below (ringing,
+emission-like artefacts) the baseline are flagged and the estimate repeated. Vectorised over
+blocks: a 1M-point spectrum costs a few tens of milliseconds.
+
+Noise: sigma = 1.4826 x median(|d - median(d)|) / sqrt(2), d = first differences of the
+line-free points (white noise has var(d) = 2 sigma^2; the MAD makes it robust to lines).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from processing.spectrum import Spectrum
+
+# Absorbance above which a line top is no longer usable for intensities: T < ~3% (common practice).
+DEFAULT_USABLE_ABSORBANCE = 1.5
+
+
+@dataclass(frozen=True)
+class SaturatedRegion:
+    first_cm1: float
+    last_cm1: float
+    peak_absorbance: float
+    reason: str  # "transmittance <= 0", "above usable absorbance", "flat top"
+
+
+@dataclass(frozen=True)
+class BaselineResult:
+    baseline: np.ndarray  # absorbance of the baseline at every point
+    corrected: np.ndarray  # absorbance - baseline
+    noise_sigma: float  # absorbance units, from line-free regions
+    line_free: np.ndarray  # bool mask of points used for the baseline
+    offset_median: float  # median baseline absorbance (a large value means a poor background)
+    tilt_per_1000_cm1: float  # baseline slope
+    saturated_regions: tuple[SaturatedRegion, ...]
+    usable_absorbance: float
+
+    def to_dict(self) -> dict[str, object]:
+        return {
+            "noise_sigma": self.noise_sigma,
+            "offset_median": self.offset_median,
+            "tilt_per_1000_cm1": self.tilt_per_1000_cm1,
+            "line_free_fraction": float(self.line_free.mean()),
+            "usable_absorbance": self.usable_absorbance,
+            "saturated_regions": [
+                {"first_cm1": r.first_cm1, "last_cm1": r.last_cm1, "peak_absorbance": r.peak_absorbance, "reason": r.reason}
+                for r in self.saturated_regions
+            ],
+        }
+
+
+def robust_noise_sigma(values: np.ndarray) -> float:
+    """White-noise sigma from first differences (MAD-based)."""
+    if values.size < 8:
+        return 0.0
+    d = np.diff(values)
+    return float(1.4826 * np.median(np.abs(d - np.median(d))) / np.sqrt(2.0))
+
+
+def _block_levels(y: np.ndarray, free: np.ndarray, block: int) -> tuple[np.ndarray, np.ndarray]:
+    """Median of the free points of each block (NaN where a block has too few)."""
+    n = y.size
+    n_blocks = max(1, n // block)
+    usable = n_blocks * block
+    y_blocks = np.where(free[:usable], y[:usable], np.nan).reshape(n_blocks, block)
+    # the last partial block joins the previous one through the centres only
+    counts = np.sum(~np.isnan(y_blocks), axis=1)
+    with np.errstate(all="ignore"):
+        import warnings
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            levels = np.nanmedian(y_blocks, axis=1)
+    levels[counts < max(3, block // 10)] = np.nan
+    centres = (np.arange(n_blocks) + 0.5) * block
+    if usable < n:
+        centres[-1] = (usable - block + n) / 2.0
+    return centres, levels
+
+
+def _join(centres: np.ndarray, levels: np.ndarray, n: int, fallback: float) -> np.ndarray:
+    good = np.isfinite(levels)
+    if not good.any():
+        return np.full(n, fallback)
+    return np.interp(np.arange(n, dtype=np.float64), centres[good], levels[good])
+
+
+def estimate_baseline(
+    spectrum: Spectrum,
+    block_cm1: float | None = None,
+    usable_absorbance: float = DEFAULT_USABLE_ABSORBANCE,
+    iterations: int = 4,
+) -> BaselineResult:
+    """Baseline, noise and saturated regions of `spectrum` (see module docstring)."""
+    x = spectrum.wavenumber_cm1
+    y = spectrum.absorbance
+    n = y.size
+    spacing = spectrum.spacing_cm1
+    if block_cm1 is None:
+        block_cm1 = 12.0  # a few CO line spacings; wide enough that a block is mostly line-free
+    block = int(np.clip(round(block_cm1 / spacing), 16, max(16, n // 4)))
+    free = ~spectrum.saturated
+    sigma = robust_noise_sigma(y[free]) if free.any() else 0.0
+    floor = 1e-9 * max(1.0, float(np.max(np.abs(y))))
+    baseline = np.full(n, float(np.median(y)))
+    for _ in range(iterations):
+        centres, levels = _block_levels(y, free, block)
+        baseline = _join(centres, levels, n, float(np.median(y)))
+        residual = y - baseline
+        threshold = 3.0 * max(sigma, floor)
+        new_free = (np.abs(residual) <= threshold) & ~spectrum.saturated
+        # grow line flags by a few points so line wings do not lift the baseline
+        grow = 3
+        flagged = ~new_free
+        if flagged.any():
+            padded = np.concatenate([np.zeros(grow, bool), flagged, np.zeros(grow, bool)])
+            window = np.lib.stride_tricks.sliding_window_view(padded, 2 * grow + 1)
+            new_free = ~window.any(axis=1)
+        if new_free.sum() < max(16, n // 20):
+            break
+        sigma = max(robust_noise_sigma(y[new_free]), floor)
+        if np.array_equal(new_free, free):
+            break
+        free = new_free
+    corrected = y - baseline
+    tilt = float(np.polyfit(x, baseline, 1)[0] * 1000.0) if n > 2 else 0.0
+    regions = find_saturated_regions(spectrum, corrected, sigma, usable_absorbance)
+    return BaselineResult(
+        baseline=baseline,
+        corrected=corrected,
+        noise_sigma=float(sigma),
+        line_free=free,
+        offset_median=float(np.median(baseline)),
+        tilt_per_1000_cm1=tilt,
+        saturated_regions=regions,
+        usable_absorbance=usable_absorbance,
+    )
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """(start, stop) index pairs of the True runs of a bool mask (stop exclusive)."""
+    if not mask.any():
+        return []
+    edges = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    return list(zip(np.flatnonzero(edges == 1).tolist(), np.flatnonzero(edges == -1).tolist()))
+
+
+def find_saturated_regions(
+    spectrum: Spectrum, corrected: np.ndarray, sigma: float, usable_absorbance: float
+) -> tuple[SaturatedRegion, ...]:
+    """Regions where absorbance is not measurable (T <= 0), beyond the usable limit, or
+    flat-topped (at least 4 consecutive points within 2 sigma of the local maximum while the
+    maximum is above 1 absorbance unit: a line bottoming out in transmittance)."""
+    x = spectrum.wavenumber_cm1
+    y = spectrum.absorbance
+    regions: list[SaturatedRegion] = []
+    for start, stop in _runs(spectrum.saturated):
+        regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(y[start:stop].max()), "transmittance <= 0"))
+    over = (y > usable_absorbance) & ~spectrum.saturated
+    for start, stop in _runs(over):
+        regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(y[start:stop].max()), "above usable absorbance"))
+    high = (corrected > 1.0) & ~spectrum.saturated & ~over
+    for start, stop in _runs(high):
+        segment = y[start:stop]
+        top = segment.max()
+        near_top = segment >= top - 2.0 * max(sigma, 1e-6)
+        longest = max((b - a for a, b in _runs(near_top)), default=0)
+        if longest >= 4:
+            regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(top), "flat top"))
+    regions.sort(key=lambda r: r.first_cm1)
+    return tuple(regions)

@@ -1,0 +1,307 @@
+"""Band fits of assigned lines, with combination differences as an independent cross-check.
+
+Band model (cm-1), linear in its parameters:
+    nu = nu0 + B' x' - D' x'^2 - B'' x'' + D'' x''^2,   x = J(J+1)
+D terms are chosen automatically: both free when each is significant and they differ
+significantly; one common D when it is significant; none otherwise ("significant" = |value| >
+3 sigma). Combination differences use only one state each:
+    lower:  R(J-1) - P(J+1) = F''(J+1) - F''(J-1)
+    upper:  R(J)   - P(J)   = F'(J+1)  - F'(J-1)
+with F(J) = B x - D x^2, fitted for B (and D when significant).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from processing.estimate import Estimate, format_value_sigma
+from processing.levels import R_BRANCH, upper_J
+from processing.linear_fit import OUTLIER_RULE, LinearFit, weighted_least_squares
+
+SIGNIFICANT = 3.0  # |value| / sigma above which a centrifugal term is kept
+
+
+@dataclass(frozen=True)
+class CombinationDifferenceFit:
+    """B (and D) of one vibrational state from combination differences."""
+
+    state: str  # "lower" or "upper"
+    v: int
+    B: Estimate
+    D: Estimate | None
+    n_pairs: int
+    rms: float
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "state": self.state,
+            "v": self.v,
+            "B": self.B.to_dict(),
+            "D": self.D.to_dict() if self.D else None,
+            "n_pairs": self.n_pairs,
+            "rms": self.rms,
+        }
+
+
+@dataclass(frozen=True)
+class BandFit:
+    """Constants of one v' <- v'' band of one isotopologue, fitted to its assigned lines."""
+
+    isotopologue: str
+    v_upper: int
+    v_lower: int
+    origin: Estimate
+    B_upper: Estimate
+    B_lower: Estimate
+    D_upper: Estimate | None
+    D_lower: Estimate | None
+    d_model: str  # "separate D", "common D" or "no D"
+    n_lines: int  # lines used (after outlier rejection)
+    rms: float  # rms of obs-calc over used lines, cm-1
+    chi2_reduced: float
+    parameter_names: tuple[str, ...]
+    covariance: np.ndarray
+    correlation: np.ndarray
+    J_lower: np.ndarray
+    branch: np.ndarray
+    observed: np.ndarray
+    calc: np.ndarray
+    used: np.ndarray
+    rejection_rule: str = OUTLIER_RULE
+    lower_combination: CombinationDifferenceFit | None = None
+    upper_combination: CombinationDifferenceFit | None = None
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def residuals(self) -> np.ndarray:
+        return self.observed - self.calc
+
+    def predict(self, branch: np.ndarray, J_lower: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Positions of any lines of this band from the fitted constants, with the standard
+        error of each prediction propagated from the covariance (grows outside the fitted J)."""
+        branch = np.asarray(branch)
+        J_lower = np.asarray(J_lower, dtype=np.int64)
+        design, names = _band_design(_x(upper_J(branch, J_lower)), _x(J_lower), self.d_model)
+        values = np.array([self._parameter(name) for name in names])
+        positions = design @ values
+        variance = np.einsum("ij,jk,ik->i", design, self.covariance, design)
+        return positions, np.sqrt(np.clip(variance, 0.0, None))
+
+    def _parameter(self, name: str) -> float:
+        estimate = {
+            "origin": self.origin,
+            "B_upper": self.B_upper,
+            "B_lower": self.B_lower,
+            "D_upper": self.D_upper,
+            "D_lower": self.D_lower,
+            "D": self.D_upper,
+        }[name]
+        assert estimate is not None
+        return estimate.value
+
+    @property
+    def label(self) -> str:
+        return f"{self.isotopologue} {self.v_upper}-{self.v_lower}"
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "isotopologue": self.isotopologue,
+            "v_upper": self.v_upper,
+            "v_lower": self.v_lower,
+            "n_lines": self.n_lines,
+            "n_rejected": int((~self.used).sum()),
+            "rms": self.rms,
+            "origin": self.origin.to_dict(),
+            "B_upper": self.B_upper.to_dict(),
+            "B_lower": self.B_lower.to_dict(),
+            "D_upper": self.D_upper.to_dict() if self.D_upper else None,
+            "D_lower": self.D_lower.to_dict() if self.D_lower else None,
+            "d_model": self.d_model,
+            "chi2_reduced": None if not np.isfinite(self.chi2_reduced) else self.chi2_reduced,
+            "parameters": list(self.parameter_names),
+            "correlation": np.round(self.correlation, 6).tolist(),
+            "rejection_rule": self.rejection_rule,
+            "combination_differences": [
+                cd.to_dict() for cd in (self.lower_combination, self.upper_combination) if cd
+            ],
+            "notes": list(self.notes),
+        }
+
+    def report(self) -> str:
+        """A few lines of text: constants, fit quality, and the combination-difference check."""
+        rows = [f"{self.label}: {self.n_lines} lines, rms {self.rms:.4f} cm-1, {self.d_model}"]
+        for name, estimate in (
+            ("nu0", self.origin),
+            ("B'", self.B_upper),
+            ("B''", self.B_lower),
+            ("D'", self.D_upper),
+            ("D''", self.D_lower),
+        ):
+            if estimate is not None:
+                rows.append(f"  {name:4s} {format_value_sigma(estimate.value, estimate.sigma)} cm-1")
+        for cd in (self.lower_combination, self.upper_combination):
+            if cd is not None:
+                mark = "B''" if cd.state == "lower" else "B'"
+                rows.append(
+                    f"  {mark} from combination differences ({cd.n_pairs} pairs): "
+                    f"{format_value_sigma(cd.B.value, cd.B.sigma)} cm-1"
+                )
+        return "\n".join(rows)
+
+
+def _x(J: np.ndarray) -> np.ndarray:
+    J = np.asarray(J, dtype=np.float64)
+    return J * (J + 1.0)
+
+
+def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str) -> tuple[np.ndarray, tuple[str, ...]]:
+    ones = np.ones_like(x_up)
+    columns = [ones, x_up, -x_low]
+    names: list[str] = ["origin", "B_upper", "B_lower"]
+    if model == "separate D":
+        columns += [-(x_up**2), x_low**2]
+        names += ["D_upper", "D_lower"]
+    elif model == "common D":
+        columns += [-(x_up**2) + x_low**2]
+        names += ["D"]
+    return np.column_stack(columns), tuple(names)
+
+
+def _significant(fit: LinearFit, name: str) -> bool:
+    sigma = fit.sigma(name)
+    return sigma > 0 and abs(fit.value(name)) > SIGNIFICANT * sigma
+
+
+def _choose_band_fit(
+    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray
+) -> tuple[LinearFit, str]:
+    n = observed.size
+    for model, n_params in (("separate D", 5), ("common D", 4)):
+        if n < n_params + 2:
+            continue
+        design, names = _band_design(x_up, x_low, model)
+        fit = weighted_least_squares(design, observed, sigma, names)
+        if model == "separate D":
+            difference = fit.value("D_upper") - fit.value("D_lower")
+            i, j = names.index("D_upper"), names.index("D_lower")
+            var = fit.covariance[i, i] + fit.covariance[j, j] - 2 * fit.covariance[i, j]
+            if (
+                _significant(fit, "D_upper")
+                and _significant(fit, "D_lower")
+                and var > 0
+                and abs(difference) > SIGNIFICANT * np.sqrt(var)
+            ):
+                return fit, model
+        elif _significant(fit, "D"):
+            return fit, model
+    design, names = _band_design(x_up, x_low, "no D")
+    return weighted_least_squares(design, observed, sigma, names), "no D"
+
+
+def fit_band(
+    isotopologue: str,
+    v_upper: int,
+    v_lower: int,
+    branch: np.ndarray,
+    J_lower: np.ndarray,
+    observed_cm1: np.ndarray,
+    sigma_cm1: np.ndarray,
+) -> BandFit:
+    """Weighted least-squares fit of one band's assigned lines (at least 4 lines)."""
+    branch = np.asarray(branch)
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    observed = np.asarray(observed_cm1, dtype=np.float64)
+    sigma = np.asarray(sigma_cm1, dtype=np.float64)
+    if observed.size < 4:
+        raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
+    x_low = _x(J_lower)
+    x_up = _x(upper_J(branch, J_lower))
+    fit, model = _choose_band_fit(x_up, x_low, observed, sigma)
+
+    def estimate(name: str) -> Estimate:
+        return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
+
+    if model == "separate D":
+        D_upper, D_lower = estimate("D_upper"), estimate("D_lower")
+    elif model == "common D":
+        D_upper = D_lower = estimate("D")
+    else:
+        D_upper = D_lower = None
+    lower_cd = fit_combination_differences("lower", v_lower, branch[fit.used], J_lower[fit.used], observed[fit.used], sigma[fit.used])
+    upper_cd = fit_combination_differences("upper", v_upper, branch[fit.used], J_lower[fit.used], observed[fit.used], sigma[fit.used])
+    return BandFit(
+        isotopologue=isotopologue,
+        v_upper=v_upper,
+        v_lower=v_lower,
+        origin=estimate("origin"),
+        B_upper=estimate("B_upper"),
+        B_lower=estimate("B_lower"),
+        D_upper=D_upper,
+        D_lower=D_lower,
+        d_model=model,
+        n_lines=int(fit.used.sum()),
+        rms=fit.rms,
+        chi2_reduced=fit.chi2_reduced,
+        parameter_names=fit.names,
+        covariance=fit.covariance,
+        correlation=fit.correlation,
+        J_lower=J_lower,
+        branch=branch,
+        observed=observed,
+        calc=fit.calc,
+        used=fit.used,
+        lower_combination=lower_cd,
+        upper_combination=upper_cd,
+    )
+
+
+def combination_difference_pairs(
+    state: str, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(J, difference, sigma) of every available pair. J is that of the state concerned:
+    lower: Delta2F''(J) = R(J-1) - P(J+1);  upper: Delta2F'(J) = R(J) - P(J)."""
+    is_r = np.asarray(branch) == R_BRANCH
+    r_pos = {int(j): (float(o), float(s)) for j, o, s in zip(J_lower[is_r], observed[is_r], sigma[is_r])}
+    p_pos = {int(j): (float(o), float(s)) for j, o, s in zip(J_lower[~is_r], observed[~is_r], sigma[~is_r])}
+    J_values, differences, sigmas = [], [], []
+    candidates = sorted(set(r_pos) | set(p_pos))
+    for J in range(0, (max(candidates) if candidates else 0) + 2):
+        r_J, p_J = (J - 1, J + 1) if state == "lower" else (J, J)
+        if r_J in r_pos and p_J in p_pos and J >= 1:
+            (r_obs, r_sig), (p_obs, p_sig) = r_pos[r_J], p_pos[p_J]
+            J_values.append(J)
+            differences.append(r_obs - p_obs)
+            sigmas.append(float(np.hypot(r_sig, p_sig)))
+    return np.array(J_values, dtype=np.int64), np.array(differences), np.array(sigmas)
+
+
+def fit_combination_differences(
+    state: str, v: int, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray
+) -> CombinationDifferenceFit | None:
+    """B (and D if significant) of the `state` ("lower"/"upper") level; None with < 3 pairs."""
+    J, difference, diff_sigma = combination_difference_pairs(state, branch, J_lower, observed, sigma)
+    if J.size < 3:
+        return None
+    x_plus = _x(J + 1)
+    x_minus = _x(J - 1)
+    b_column = x_plus - x_minus  # = 4J + 2
+    d_column = -(x_plus**2 - x_minus**2)
+    fit: LinearFit | None = None
+    if J.size >= 4:
+        trial = weighted_least_squares(np.column_stack([b_column, d_column]), difference, diff_sigma, ("B", "D"))
+        if _significant(trial, "D"):
+            fit = trial
+    if fit is None:
+        fit = weighted_least_squares(b_column[:, None], difference, diff_sigma, ("B",))
+    has_d = "D" in fit.names
+    sig = (lambda name: fit.sigma(name) if fit.dof > 0 else None)
+    return CombinationDifferenceFit(
+        state=state,
+        v=v,
+        B=Estimate(fit.value("B"), sig("B")),
+        D=Estimate(fit.value("D"), sig("D")) if has_d else None,
+        n_pairs=int(fit.used.sum()),
+        rms=fit.rms,
+    )

@@ -1,0 +1,118 @@
+"""Weighted linear least squares with honest standard errors and a stated outlier rule.
+
+Shared by the band fits, the combination-difference fits and the molecular-constant fits.
+Standard errors are sqrt(diag(C)) with C = (A^T W A)^-1 scaled by max(1, chi2/dof): the
+line uncertainties are trusted as a floor, and inflated when the scatter says they are too
+small (Birge-ratio scaling; common practice in spectroscopic fits).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+OUTLIER_RULE = (
+    "worst line removed, one at a time, while |obs-calc|/sigma > 4 x max(1, 1.4826 x median "
+    "|obs-calc|/sigma); at most 20% of the lines, keeping at least parameters + 2"
+)
+
+
+@dataclass(frozen=True)
+class LinearFit:
+    """Result of `weighted_least_squares`."""
+
+    names: tuple[str, ...]
+    values: np.ndarray
+    covariance: np.ndarray  # scaled as described in the module docstring
+    residuals: np.ndarray  # obs - calc for every input row (rejected rows included)
+    calc: np.ndarray
+    used: np.ndarray  # bool per row: False where the outlier rule removed it
+    chi2_reduced: float  # of the used rows; nan when dof = 0
+    dof: int
+
+    @property
+    def sigmas(self) -> np.ndarray:
+        return np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
+
+    @property
+    def correlation(self) -> np.ndarray:
+        sig = self.sigmas
+        with np.errstate(invalid="ignore", divide="ignore"):
+            corr = self.covariance / np.outer(sig, sig)
+        corr[~np.isfinite(corr)] = 0.0
+        return corr
+
+    @property
+    def rms(self) -> float:
+        """Unweighted rms of obs-calc over the used rows, in the data's unit."""
+        r = self.residuals[self.used]
+        return float(np.sqrt(np.mean(r**2))) if r.size else float("nan")
+
+    def value(self, name: str) -> float:
+        return float(self.values[self.names.index(name)])
+
+    def sigma(self, name: str) -> float:
+        return float(self.sigmas[self.names.index(name)])
+
+
+def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Parameters and unscaled covariance of the weighted problem (column-scaled for conditioning)."""
+    sqrt_w = np.sqrt(weights)
+    a = design * sqrt_w[:, None]
+    b = y * sqrt_w
+    scale = np.linalg.norm(a, axis=0)
+    scale[scale == 0] = 1.0
+    a_scaled = a / scale
+    params_scaled, *_ = np.linalg.lstsq(a_scaled, b, rcond=None)
+    normal_inverse = np.linalg.pinv(a_scaled.T @ a_scaled)
+    params = params_scaled / scale
+    covariance = normal_inverse / np.outer(scale, scale)
+    return params, covariance
+
+
+def weighted_least_squares(
+    design: np.ndarray,
+    y: np.ndarray,
+    sigma: np.ndarray,
+    names: tuple[str, ...],
+    reject_outliers: bool = True,
+) -> LinearFit:
+    """Fit y = design @ p with weights 1/sigma^2; optionally apply `OUTLIER_RULE`."""
+    design = np.asarray(design, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    sigma = np.asarray(sigma, dtype=np.float64)
+    n_rows, n_params = design.shape
+    if n_rows < n_params:
+        raise ValueError(f"{n_rows} data for {n_params} parameters")
+    used = np.ones(n_rows, dtype=bool)
+    weights = 1.0 / sigma**2
+    max_rejections = int(0.2 * n_rows) if reject_outliers else 0
+    while True:
+        params, covariance = _solve(design[used], y[used], weights[used])
+        calc = design @ params
+        residuals = y - calc
+        normalised = np.abs(residuals) / sigma
+        dof = int(used.sum()) - n_params
+        n_rejected = int((~used).sum())
+        if n_rejected >= max_rejections or dof < 2:
+            break
+        robust = 1.4826 * float(np.median(normalised[used]))
+        limit = 4.0 * max(1.0, robust)
+        candidates = np.where(used, normalised, -np.inf)
+        worst = int(np.argmax(candidates))
+        if candidates[worst] <= limit:
+            break
+        used[worst] = False
+    chi2 = float(np.sum((residuals[used] / sigma[used]) ** 2))
+    chi2_reduced = chi2 / dof if dof > 0 else float("nan")
+    inflation = max(1.0, chi2_reduced) if dof > 0 else 1.0
+    return LinearFit(
+        names=tuple(names),
+        values=params,
+        covariance=covariance * inflation,
+        residuals=residuals,
+        calc=calc,
+        used=used,
+        chi2_reduced=chi2_reduced,
+        dof=dof,
+    )
