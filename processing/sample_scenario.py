@@ -122,7 +122,7 @@ def demo_runs() -> tuple[DemoRun, ...]:
         ),
         DemoRun(
             "1410_hbr_cell", "HBr cell at 0.125 cm-1, Norton-Beer medium: H79Br/H81Br pairs "
-            "0.4 cm-1 apart are just resolved.",
+            "0.4 cm-1 apart are resolved.",
             SimulationSettings((SampleGas("HBr", 0.02),), Cell(10.0),
                                _instrument(2350.0, 2750.0, resolution_cm1=0.125,
                                            apodization="norton-beer-medium", seed=1410),

@@ -304,3 +304,35 @@ def test_poor_purge_puts_absorption_only_where_the_interferents_are() -> None:
     x, a = result.spectrum.wavenumber_cm1, result.spectrum.absorbance
     assert a[(x > 2300) & (x < 2380)].max() > 0.1
     assert np.abs(a[(x < 2250) | (x > 2420)]).max() < 1e-3
+
+
+# ------------------------------------------------------------------------- command line
+def test_simulate_command_writes_a_readable_csv_and_truth(tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]
+    from processing.readers.delimited import parse
+    from tui.cli import main
+
+    output, truth = tmp_path / "co.csv", tmp_path / "co.json"
+    code = main(["simulate", "--species", "CO", "--pressure-atm", "0.05", "--resolution", "1",
+                 "--range", "2050:2250", "--format", "csv", "--y", "transmittance", "--seed", "4",
+                 "-o", str(output), "--truth", str(truth)])
+    assert code == 0
+    spectrum = parse(output.read_bytes(), str(output))
+    assert spectrum.first_cm1 == pytest.approx(2050.0) and spectrum.last_cm1 == pytest.approx(2250.0)
+    bands = json.loads(truth.read_text())["bands"]
+    # 12C16O nu0(1-0) = 2143.2711 cm-1 (Maki & Wells 1991 band fit, calc)
+    main_band = next(b for b in bands if b["isotopologue"] == "12C16O")
+    assert main_band["origin_cm1"] == pytest.approx(2143.271, abs=0.01)
+
+
+@pytest.mark.parametrize(
+    ("option", "value", "message"),
+    [("--bands", "1-x", "not of the form"), ("--species", "XCl", "unknown species"),
+     ("--apodization", "hann", "unknown apodization"), ("--range", "3000", "FIRST:LAST")],
+)
+def test_simulate_command_rejects_bad_options_with_one_clear_line(tmp_path, capsys, option, value, message) -> None:  # type: ignore[no-untyped-def]
+    from tui.cli import main
+
+    code = main(["simulate", option, value, "-o", str(tmp_path / "x.csv"), "--format", "csv"])
+    assert code == 2
+    error = capsys.readouterr().err
+    assert message in error and error.count("\n") == 1 and "Traceback" not in error
