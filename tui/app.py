@@ -12,6 +12,7 @@ from typing import Any, Callable
 
 from textual.app import App
 from textual.binding import Binding
+from textual.worker import Worker, WorkerState
 
 from tui.messages import StationEventReceived
 
@@ -64,7 +65,13 @@ class BandwatchApp(App[int]):
         """Build and start the station; its events arrive (from its threads) as messages."""
         assert self.station_factory is not None
         self.station = self.station_factory(self.station_event)
-        self.run_worker(self.station.start, thread=True, group="station", name="station start")
+        self.run_worker(self.station.start, thread=True, group="station", name="station start", exit_on_error=False)
+
+    def on_worker_state_changed(self, message: Worker.StateChanged) -> None:
+        """A station that cannot start (folder taken by another station, ...) is said, not a crash."""
+        if message.worker.group == "station" and message.state == WorkerState.ERROR:
+            self.station = None
+            self.notify(str(message.worker.error), title="station not running", severity="error", timeout=30)
 
     def station_event(self, event: Any) -> None:
         """Called by the station from any thread: forward the event to the main screen."""

@@ -7,6 +7,8 @@ renders them, it computes nothing); they are H35Cl/H37Cl values of the right siz
 """
 from __future__ import annotations
 
+import asyncio
+import inspect
 from pathlib import Path
 from typing import Any
 
@@ -14,6 +16,16 @@ import numpy as np
 import pytest
 
 from processing.station.ledger import open_ledger, record_run
+
+@pytest.hookimpl(tryfirst=True)
+def pytest_pyfunc_call(pyfuncitem: pytest.Function) -> bool | None:
+    """Run `async def` tests in a fresh event loop (no asyncio plugin needed)."""
+    if not inspect.iscoroutinefunction(pyfuncitem.obj):
+        return None
+    arguments = {name: pyfuncitem.funcargs[name] for name in pyfuncitem._fixtureinfo.argnames}
+    asyncio.run(pyfuncitem.obj(**arguments))
+    return True
+
 
 ORIGIN_H35CL = 2885.98  # cm-1, Huber & Herzberg 1979 via NIST WebBook, recalled from memory
 B_H35CL = 10.44  # cm-1, ground-state B0 of H35Cl, same source

@@ -1,15 +1,182 @@
-"""`bandwatch demo`: a simulated instrument fills a temporary export folder; the interface watches it."""
+"""`bandwatch demo`: a simulated instrument fills a temporary export folder; the interface watches it.
+
+A temporary export folder and data folder are made; a station runs in-process on them; a
+simulated instrument writes the sample runs into the export folder a few seconds apart (each
+in chunks, as instrument software saves a scan). With a terminal the interface opens on it;
+with --plain (or without a terminal) the station's events are printed one per line.
+"""
 from __future__ import annotations
 
 import argparse
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
 
 HELP = "watch a simulated instrument write the sample runs into a temporary folder"
 
+DEFAULT_SAMPLES = Path(__file__).resolve().parents[2] / "sample_runs"
+
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--interval", type=float, default=4.0, help="seconds between runs")
+    parser.add_argument("--interval", type=float, default=4.0, metavar="SECONDS",
+                        help="seconds between two runs written by the simulated instrument (default 4)")
+    parser.add_argument("--plain", action="store_true",
+                        help="print the station's events instead of opening the interface (CI, no terminal)")
+    parser.add_argument("--once", action="store_true",
+                        help="exit once every sample run has been processed, printing the run list")
+    parser.add_argument("--exit-after", type=float, default=None, metavar="SECONDS",
+                        help="exit after this many seconds whatever the state (headless checks)")
+    parser.add_argument("--samples", default=None, metavar="DIR",
+                        help=f"folder of runs to replay (default: the bundled {DEFAULT_SAMPLES.name}/)")
+    parser.add_argument("--keep", action="store_true", help="keep the temporary folders afterwards")
+    parser.add_argument("--workers", type=int, default=1, help="analysis worker processes (default 1)")
+    parser.add_argument("--operator", default=None, help="name written beside decisions (default: login name)")
 
 
 def run(args: argparse.Namespace) -> int:
-    print("bandwatch: demo is being built")
-    return 2
+    import shutil
+
+    from processing.errors import ConfigError
+    from processing.instrument_replay import InstrumentReplay, sample_files
+    from processing.station.config import StationConfig
+
+    samples = Path(args.samples) if args.samples else DEFAULT_SAMPLES
+    sources = sample_files(samples)
+    if not sources:
+        raise ConfigError(str(samples), "samples", "no spectrum files to replay (regenerate the sample runs first)")
+    if args.interval < 0:
+        raise ConfigError(None, "--interval", "must not be negative")
+    root = Path(tempfile.mkdtemp(prefix="bandwatch-demo-"))
+    export, data = root / "export", root / "data"
+    export.mkdir()
+    config = StationConfig(
+        export_folder=export, data_folder=data, settle_seconds=0.4, rescan_seconds=1.0,
+        workers=max(1, args.workers), operator=args.operator or "",
+    ).with_overrides()
+    replay = InstrumentReplay(sources, export, interval_seconds=args.interval, first_delay_seconds=1.0)
+    plain = args.plain or not (sys.stdin.isatty() and sys.stdout.isatty())
+    if not args.plain and plain:
+        print("bandwatch: no terminal; printing events (as --plain)", file=sys.stderr)
+    print(f"demo: export folder {export}\ndemo: data folder   {data}", file=sys.stderr if not plain else sys.stdout)
+    try:
+        if plain:
+            code = _run_plain(config, replay, len(sources), args.once, args.exit_after)
+        else:
+            code = _run_interface(config, replay, len(sources), args.once, args.exit_after, args.operator)
+        if args.once or plain:
+            _print_runs(data)
+        return code
+    finally:
+        replay.stop()
+        if args.keep:
+            print(f"demo: kept {root}", file=sys.stderr)
+        else:
+            shutil.rmtree(root, ignore_errors=True)
+
+
+class _Countdown:
+    """Counts finished runs (processed, unreadable or failed) and sets `done` at the target."""
+
+    def __init__(self, target: int) -> None:
+        self.target = target
+        self.finished_paths: set[str] = set()
+        self.done = threading.Event()
+
+    def see(self, event: object) -> None:
+        if type(event).__name__ in ("RunProcessed", "RunFailed"):
+            self.finished_paths.add(getattr(event, "path", ""))
+            if len(self.finished_paths) >= self.target:
+                self.done.set()
+
+
+def _run_plain(config: object, replay: object, count: int, once: bool, exit_after: float | None) -> int:
+    from processing.station.events import plain_line
+    from processing.station.station import Station
+
+    countdown = _Countdown(count)
+
+    def on_event(event: object) -> None:
+        print(plain_line(event), flush=True)  # type: ignore[arg-type]
+        countdown.see(event)
+
+    station = Station(config, on_event=on_event)  # type: ignore[arg-type]
+    station.start()
+    replay.start()  # type: ignore[attr-defined]
+    deadline = time.monotonic() + exit_after if exit_after is not None else None
+    try:
+        while True:
+            if once and countdown.done.wait(0.1):
+                break
+            if not once:
+                time.sleep(0.1)
+            if deadline is not None and time.monotonic() >= deadline:
+                break
+    except KeyboardInterrupt:
+        pass
+    finally:
+        replay.stop()  # type: ignore[attr-defined]
+        station.stop()
+    if once and not countdown.done.is_set():
+        print(f"demo: only {len(countdown.finished_paths)} of {count} runs finished in time", file=sys.stderr)
+        return 1
+    return 0
+
+
+def _run_interface(
+    config: object, replay: object, count: int, once: bool, exit_after: float | None, operator: str | None
+) -> int:
+    from processing.station.station import Station
+    from tui.app import BandwatchApp
+
+    countdown = _Countdown(count)
+
+    def make_station(on_event: object) -> Station:
+        def forward(event: object) -> None:
+            on_event(event)  # type: ignore[operator]
+            countdown.see(event)
+
+        station = Station(config, on_event=forward)  # type: ignore[arg-type]
+        replay.start()  # type: ignore[attr-defined]
+        return station
+
+    app = BandwatchApp(
+        config.data_folder,  # type: ignore[attr-defined]
+        config.export_folder,  # type: ignore[attr-defined]
+        station_factory=make_station,
+        operator=operator,
+        exit_after_seconds=exit_after,
+    )
+    if once:
+        # A separate thread, so the station's threads never wait on the interface's loop.
+        threading.Thread(target=_exit_when_done, args=(app, countdown.done), daemon=True).start()
+    app.run()
+    if once and not countdown.done.is_set():
+        return 1
+    return 0
+
+
+def _exit_when_done(app: object, done: threading.Event) -> None:
+    """Leave the interface shortly after the last sample run was recorded (--once)."""
+    done.wait()
+    time.sleep(1.5)  # let the run list show the last run
+    try:
+        app.call_from_thread(app.exit, 0)  # type: ignore[attr-defined]
+    except RuntimeError:
+        pass  # the interface already closed
+
+
+def _print_runs(data: Path) -> None:
+    """The ledger's runs, oldest first, one line each (for headless checks)."""
+    from processing.station.ledger import list_runs, open_ledger
+
+    conn = open_ledger(data)
+    try:
+        runs = list_runs(conn, with_result=False)
+    finally:
+        conn.close()
+    print(f"demo: {len(runs)} run(s) in the ledger")
+    for run in reversed(runs):
+        verdict = (run.verdict or run.status).upper()
+        print(f"  run {run.run_id:>3}  {run.name:<32} {verdict:<10} {','.join(run.species) or '-'}")

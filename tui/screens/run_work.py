@@ -41,6 +41,7 @@ def reprocess_in_thread(
     """
     from processing.station.ledger import get_run, open_ledger, record_reprocessed
     from processing.station.pool import make_settings
+    from processing.station.reports import write_reports
 
     payload, not_applied = split_request(requested)
     conn = open_ledger(data_dir)
@@ -52,6 +53,7 @@ def reprocess_in_thread(
         result_dict = result.to_dict() if hasattr(result, "to_dict") else dict(result)
         stored = {**requested, "not_applied": not_applied}
         record = record_reprocessed(conn, run_id, result_dict, stored)
+        write_reports(data_dir, record.run_id, record.version, result_dict)
     finally:
         conn.close()
     return record.run_id, None, not_applied
@@ -116,8 +118,13 @@ def render_report(run: Any, decisions: list[Any]) -> str:
 
 
 def export_in_thread(data_dir: str | Path, run_id: int) -> tuple[str | None, str | None]:
-    """Write the run's text report and result JSON under DATA/reports/ (never the export folder)."""
+    """Write the run's reports under DATA/reports/ (never the export folder); returns the folder.
+
+    The station's report files (result.json, lines.csv, summary.md) are written again, and
+    report.txt beside them adds the decision trail as it stands now.
+    """
     from processing.station.ledger import decision_history, get_run, open_ledger
+    from processing.station.reports import report_folder, write_reports
 
     conn = open_ledger(data_dir)
     try:
@@ -127,14 +134,12 @@ def export_in_thread(data_dir: str | Path, run_id: int) -> tuple[str | None, str
         decisions = decision_history(conn, run_id)
     finally:
         conn.close()
-    folder = Path(data_dir) / "reports"
+    folder = report_folder(data_dir, run.run_id, run.path)
     try:
-        folder.mkdir(parents=True, exist_ok=True)
-        stem = f"{Path(run.path).stem}-run{run.run_id}"
-        text_path = folder / f"{stem}.txt"
-        text_path.write_text(render_report(run, decisions), encoding="utf-8")
         if run.result is not None:
-            (folder / f"{stem}.json").write_text(json.dumps(run.result, indent=2), encoding="utf-8")
+            folder = write_reports(data_dir, run.run_id, run.version, {**run.result, "file": run.path})
+        folder.mkdir(parents=True, exist_ok=True)
+        (folder / "report.txt").write_text(render_report(run, decisions), encoding="utf-8")
     except OSError as error:
         return None, f"{folder}: cannot write the report ({error.strerror or error})"
-    return str(text_path), None
+    return str(folder), None

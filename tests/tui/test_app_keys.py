@@ -1,0 +1,249 @@
+"""Drive the interface by keys (Textual Pilot, 80x24) and check widgets and the ledger."""
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+from typing import Any
+
+from processing.pipeline import ProcessSettings, RunResult
+from processing.station.events import FileSeen, RunProcessed
+from processing.station.ledger import decision_history, get_run, list_runs, open_ledger
+from tui.app import BandwatchApp
+from tui.messages import StationEventReceived
+from tui.screens.help_screen import HelpScreen
+from tui.screens.history_screen import HistoryScreen, HistoryTable
+from tui.screens.main_screen import MainScreen
+from tui.screens.modals import FlagReasonScreen, ReprocessScreen
+from tui.widgets.run_tables import LinesTable, RunList
+
+SIZE = (80, 24)
+
+
+async def settle(app: BandwatchApp, pilot: Any) -> None:
+    """Let workers finish and their messages be handled."""
+    for _ in range(3):
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+
+
+def runs_by_name(data: Path) -> dict[str, Any]:
+    conn = open_ledger(data)
+    try:
+        return {run.name: run for run in list_runs(conn)}
+    finally:
+        conn.close()
+
+
+def cell(table: RunList, row: int, column: str) -> str:
+    return str(table.get_cell_at((row, table.get_column_index(column))))
+
+
+async def test_run_list_is_newest_first_with_verdict_words(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        table = app.screen.query_one(RunList)
+        names = [cell(table, row, "file") for row in range(table.row_count)]
+        assert names == ["empty_scan.csv", "hcl_cell_03.csv", "hcl_cell_02.csv", "hcl_cell_01.csv"]
+        # status in words and symbols, not colour alone
+        assert [cell(table, row, "verdict") for row in range(4)] == ["✘ UNREAD", "✔ PASS", "! WARN", "✔ PASS"]
+        assert cell(table, 1, "decision") == "pending"
+
+
+async def test_accept_then_undo_are_two_ledger_events(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j")  # from the unreadable run to hcl_cell_03
+        await settle(app, pilot)
+        assert isinstance(app.screen, MainScreen)
+        target = app.screen.selected_run_id
+        await pilot.press("a")
+        await settle(app, pilot)
+        table = app.screen.query_one(RunList)
+        assert cell(table, 1, "decision") == "accepted"
+        conn = open_ledger(lab["data"])
+        run = get_run(conn, target)
+        assert run is not None and run.name == "hcl_cell_03.csv"
+        assert (run.decision, run.operator) == ("accept", "tester")
+        await pilot.press("u")
+        await settle(app, pilot)
+        assert get_run(conn, target).decision is None  # type: ignore[union-attr]
+        assert [event.action for event in decision_history(conn, target)] == ["accept", "undo"]
+        conn.close()
+        assert cell(table, 1, "decision") == "pending"
+
+
+async def test_flag_asks_for_a_reason_and_records_it(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j", "j")  # hcl_cell_02 (the WARN run)
+        await pilot.press("f")
+        await pilot.pause()
+        assert isinstance(app.screen, FlagReasonScreen)
+        await pilot.press("enter")  # an empty reason is refused: the dialog stays
+        await pilot.pause()
+        assert isinstance(app.screen, FlagReasonScreen)
+        await pilot.press(*"cell leak [slow]")
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert isinstance(app.screen, MainScreen)
+    run = runs_by_name(lab["data"])["hcl_cell_02.csv"]
+    assert (run.decision, run.decision_reason, run.operator) == ("flag", "cell leak [slow]", "tester")
+
+
+async def test_escape_cancels_a_flag(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j", "f", *"oops", "escape")
+        await settle(app, pilot)
+        assert isinstance(app.screen, MainScreen)
+    assert runs_by_name(lab["data"])["hcl_cell_03.csv"].decision is None
+
+
+class RecordingProcess:
+    """Stands in for the pipeline: records what it was asked, returns a processed result."""
+
+    def __init__(self, release: threading.Event | None = None) -> None:
+        self.calls: list[tuple[str, ProcessSettings]] = []
+        self.release = release
+
+    def __call__(self, path: str, settings: ProcessSettings) -> RunResult:
+        self.calls.append((path, settings))
+        if self.release is not None:
+            assert self.release.wait(20), "test never released the slow processing"
+        return RunResult(file=path, status="processed", sha256="1" * 64, verdict="warn")
+
+
+async def test_reprocess_with_changed_settings_records_a_new_version(lab: dict[str, Path]) -> None:
+    process = RecordingProcess()
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester", process_function=process)
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j")  # hcl_cell_03
+        original = app.screen.selected_run_id
+        await pilot.press("2")  # lines pane
+        lines = app.screen.query_one(LinesTable)
+        assert lines.has_focus
+        await pilot.press("x")  # exclude the top line (highest wavenumber: R(3))
+        excluded = set(lines.excluded)
+        assert len(excluded) == 1
+        await pilot.press("r")
+        await pilot.pause()
+        assert isinstance(app.screen, ReprocessScreen)
+        await pilot.press("ctrl+u", *"H35Cl, H37Cl")  # replace the species field
+        await pilot.press("tab")  # to the branch renumbering choice
+        await pilot.press("enter", "down", "enter")  # first option after "no J renumbering"
+        await pilot.press("ctrl+s")
+        await settle(app, pilot)
+        assert isinstance(app.screen, MainScreen)
+        new_id = app.screen.selected_run_id
+    assert len(process.calls) == 1
+    path, settings = process.calls[0]
+    assert Path(path).name == "hcl_cell_03.csv"
+    assert settings.species == ("H35Cl", "H37Cl")
+    conn = open_ledger(lab["data"])
+    new = get_run(conn, new_id)
+    conn.close()
+    assert new is not None and new.reprocessed_from == original and new.version == 2
+    assert new.settings is not None
+    assert new.settings["species"] == ["H35Cl", "H37Cl"]
+    assert new.settings["exclude_cm1"] == sorted(excluded)
+    assert new.settings["j_shifts"] == [{"isotopologue": "H35Cl", "branch": "P", "shift": 1}]
+
+
+async def test_keys_still_move_the_cursor_while_a_slow_file_is_processed(lab: dict[str, Path]) -> None:
+    release = threading.Event()
+    process = RecordingProcess(release)
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester", process_function=process)
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j", "r")
+        await pilot.pause()
+        await pilot.press("ctrl+s")  # redo with the settings as they are: the slow call starts
+        await pilot.pause()
+        busy = [w for w in app.workers if w.group == "reprocess" and w.is_running]
+        assert busy, "the redo should still be running"
+        table = app.screen.query_one(RunList)
+        table.focus()
+        before = table.cursor_row
+        await pilot.press("j")
+        await pilot.pause()
+        assert table.cursor_row == before + 1
+        await pilot.press("k")
+        await pilot.pause()
+        assert table.cursor_row == before
+        assert busy[0].is_running  # the keys were answered while the work was still going on
+        release.set()
+        await settle(app, pilot)
+    assert len(process.calls) == 1
+
+
+async def test_station_events_show_a_busy_row_then_the_new_run(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        screen = app.screen
+        new_file = str(lab["export"] / "hcl_cell_04.csv")
+        screen.post_message(StationEventReceived(FileSeen(new_file)))
+        await settle(app, pilot)
+        table = screen.query_one(RunList)
+        assert cell(table, 0, "file") == "hcl_cell_04.csv"
+        assert cell(table, 0, "verdict") == "… BUSY"
+        screen.post_message(
+            StationEventReceived(RunProcessed(9, 1, new_file, "unreadable", None, (), error="empty"))
+        )
+        await settle(app, pilot)
+        assert table.row_count == 4  # busy row gone; nothing new was recorded in the ledger
+        assert "working on" not in str(screen.query_one("#title-bar").render())
+
+
+async def test_help_lists_the_keys_and_closes(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("question_mark")
+        await pilot.pause()
+        assert isinstance(app.screen, HelpScreen)
+        text = str(app.screen.query_one("Static").render())
+        for expected in ("Accept", "Flag", "Undo", "ctrl+q", "Exclude line", "Flip axis"):
+            assert expected in text
+        await pilot.press("escape")
+        await pilot.pause()
+        assert isinstance(app.screen, MainScreen)
+
+
+async def test_trend_screen_shows_the_band_origin_over_the_day(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j", "t")
+        await settle(app, pilot)
+        assert isinstance(app.screen, HistoryScreen)
+        table = app.screen.query_one(HistoryTable)
+        assert table.row_count == 3
+        # the fixture's origins drift by +0.004 and +0.011 cm-1 over the day
+        deltas = [str(table.get_cell_at((row, 4))) for row in range(3)]
+        assert deltas == ["0.0000", "0.0040", "0.0110"]
+        await pilot.press("escape")
+        await pilot.pause()
+        assert isinstance(app.screen, MainScreen)
+
+
+async def test_export_writes_the_report_outside_the_export_folder(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j", "a")
+        await settle(app, pilot)
+        await pilot.press("e")
+        await settle(app, pilot)
+    reports = list((lab["data"] / "reports").rglob("report.txt"))
+    assert len(reports) == 1
+    text = reports[0].read_text(encoding="utf-8")
+    assert "hcl_cell_03.csv" in text and "accept" in text and "H35Cl 1-0 R(3)" in text
+    assert sorted(p.name for p in lab["export"].iterdir()) == [
+        "empty_scan.csv", "hcl_cell_01.csv", "hcl_cell_02.csv", "hcl_cell_03.csv"
+    ]
