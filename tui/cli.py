@@ -14,6 +14,9 @@ COMMANDS: dict[str, str] = {
     "process": "process",
     "simulate": "simulate",
     "demo": "demo",
+    "watch": "watch",
+    "ledger": "ledger",
+    "init": "init",
 }
 
 

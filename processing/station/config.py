@@ -1,0 +1,248 @@
+"""Station configuration: a TOML file, validated into a frozen `StationConfig`.
+
+Every bad value is one `ConfigError` naming the file and the key. Command-line options
+override the file (`StationConfig.with_overrides`). `TEMPLATE` is what `bandwatch init` writes.
+"""
+from __future__ import annotations
+
+import os
+import tomllib
+from dataclasses import dataclass, field, fields, replace
+from pathlib import Path
+from typing import Any
+
+from processing.errors import ConfigError
+
+DEFAULT_PROCESS_FUNCTION = "processing.pipeline:process_file"
+DEFAULT_EXCLUDE = (".*", "~*", "*~", "*.tmp", "*.part", "*.partial", "*.crdownload", "*.swp", "*.lock")
+
+
+def default_config_path() -> Path:
+    """$BANDWATCH_CONFIG, else ~/.config/bandwatch/station.toml (XDG_CONFIG_HOME honoured)."""
+    explicit = os.environ.get("BANDWATCH_CONFIG")
+    if explicit:
+        return Path(explicit).expanduser()
+    base = os.environ.get("XDG_CONFIG_HOME") or str(Path.home() / ".config")
+    return Path(base) / "bandwatch" / "station.toml"
+
+
+def default_data_dir() -> Path:
+    """$XDG_DATA_HOME/bandwatch, else ~/.local/share/bandwatch."""
+    base = os.environ.get("XDG_DATA_HOME") or str(Path.home() / ".local" / "share")
+    return Path(base) / "bandwatch"
+
+
+@dataclass(frozen=True)
+class StationConfig:
+    """Everything the station needs; defaults suit one instrument PC with 2 cores."""
+
+    export_folder: Path | None = None
+    data_folder: Path = field(default_factory=default_data_dir)
+    include: tuple[str, ...] = ("*",)
+    exclude: tuple[str, ...] = ()  # in addition to DEFAULT_EXCLUDE (temporary/partial files)
+    recursive: bool = False
+    poll: bool = False
+    settle_seconds: float = 0.5
+    max_wait_seconds: float = 30.0  # an incomplete file (JCAMP without ##END=) waits this long
+    rescan_seconds: float = 5.0
+    operator: str = ""
+    workers: int = 2
+    timeout_seconds: float = 60.0
+    memory_limit_mb: int = 2048
+    species: tuple[str, ...] = ()
+    checks: dict[str, Any] = field(default_factory=dict)  # passed through to the analysis
+    source: str | None = None  # the file this came from, for messages
+    # "module:function" taking (path, ProcessSettings) -> RunResult; tests inject failures here
+    process_function: str = DEFAULT_PROCESS_FUNCTION
+
+    def with_overrides(self, **values: Any) -> StationConfig:
+        """A copy with the non-None values replaced, validated again."""
+        chosen = {key: value for key, value in values.items() if value is not None}
+        return validate(replace(self, **chosen))
+
+    @property
+    def excluded_patterns(self) -> tuple[str, ...]:
+        return DEFAULT_EXCLUDE + self.exclude
+
+
+_KEYS = {f.name for f in fields(StationConfig)} - {"source", "process_function"}
+
+
+def load_config(path: str | Path | None = None, *, required: bool = False) -> StationConfig:
+    """Read a station TOML file; a missing default file gives the defaults."""
+    chosen = Path(path).expanduser() if path is not None else default_config_path()
+    if not chosen.exists():
+        if required or path is not None:
+            raise ConfigError(chosen, "file", "no such configuration file")
+        return StationConfig()
+    try:
+        with open(chosen, "rb") as handle:
+            table = tomllib.load(handle)
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(chosen, "file", f"not valid TOML ({error})") from None
+    except OSError as error:
+        raise ConfigError(chosen, "file", f"cannot be read ({error.strerror or error})") from None
+    return config_from_table(table, source=str(chosen), base_dir=chosen.parent)
+
+
+def config_from_table(table: dict[str, Any], source: str | None = None, base_dir: Path | None = None) -> StationConfig:
+    """Validate a parsed TOML table; relative folders are taken relative to the file."""
+    for key in table:
+        if key not in _KEYS:
+            raise ConfigError(source, key, f"unknown key (known: {', '.join(sorted(_KEYS))})")
+    values: dict[str, Any] = {}
+    for key, value in table.items():
+        values[key] = _convert(source, key, value, base_dir)
+    return validate(replace(StationConfig(source=source), **values))
+
+
+def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) -> Any:
+    if key in ("export_folder", "data_folder"):
+        if not isinstance(value, str) or not value.strip():
+            raise ConfigError(source, key, "must be a folder path (a non-empty string)")
+        folder = Path(os.path.expandvars(value)).expanduser()
+        if not folder.is_absolute() and base_dir is not None:
+            folder = base_dir / folder
+        return folder
+    if key in ("include", "exclude", "species"):
+        if isinstance(value, str):
+            value = [value]
+        if not isinstance(value, list) or not all(isinstance(v, str) and v.strip() for v in value):
+            raise ConfigError(source, key, "must be a list of non-empty strings")
+        return tuple(v.strip() for v in value)
+    if key in ("recursive", "poll"):
+        if not isinstance(value, bool):
+            raise ConfigError(source, key, "must be true or false")
+        return value
+    if key == "operator":
+        if not isinstance(value, str):
+            raise ConfigError(source, key, "must be a string")
+        return value.strip()
+    if key in ("workers", "memory_limit_mb"):
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ConfigError(source, key, "must be a whole number")
+        return value
+    if key in ("settle_seconds", "max_wait_seconds", "rescan_seconds", "timeout_seconds"):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ConfigError(source, key, "must be a number of seconds")
+        return float(value)
+    if key == "checks":
+        if not isinstance(value, dict):
+            raise ConfigError(source, key, "must be a table of check thresholds")
+        for name, threshold in value.items():
+            if isinstance(threshold, bool) or not isinstance(threshold, (int, float, str, dict)):
+                raise ConfigError(source, f"checks.{name}", "must be a number, a string or a table")
+        return dict(value)
+    raise ConfigError(source, key, "unknown key")
+
+
+def validate(config: StationConfig) -> StationConfig:
+    """Range checks shared by the file and the command line."""
+    source = config.source
+    if config.settle_seconds < 0 or config.settle_seconds > 3600:
+        raise ConfigError(source, "settle_seconds", "must be between 0 and 3600 s")
+    if config.max_wait_seconds < config.settle_seconds:
+        raise ConfigError(source, "max_wait_seconds", "must be at least settle_seconds")
+    if config.rescan_seconds < 0.1:
+        raise ConfigError(source, "rescan_seconds", "must be at least 0.1 s")
+    if not 1 <= config.workers <= 64:
+        raise ConfigError(source, "workers", "must be between 1 and 64")
+    if config.timeout_seconds <= 0:
+        raise ConfigError(source, "timeout_seconds", "must be more than 0 s")
+    if config.memory_limit_mb != 0 and config.memory_limit_mb < 256:
+        raise ConfigError(source, "memory_limit_mb", "must be at least 256 MB (0 = no limit)")
+    if ":" not in config.process_function:
+        raise ConfigError(source, "process_function", "must be 'module:function'")
+    return config
+
+
+def check_folders(config: StationConfig) -> tuple[Path, Path]:
+    """The export and data folders, resolved; refuses a data folder inside the export folder."""
+    if config.export_folder is None:
+        raise ConfigError(config.source, "export_folder", "no export folder given (argument DIR or the key)")
+    export = config.export_folder.expanduser().resolve()
+    data = config.data_folder.expanduser().resolve()
+    if not export.is_dir():
+        raise ConfigError(config.source, "export_folder", f"{export} is not a folder")
+    if data == export or export in data.parents:
+        raise ConfigError(
+            config.source,
+            "data_folder",
+            f"{data} is inside the export folder {export}; bandwatch never writes there, "
+            "choose a data folder elsewhere",
+        )
+    return export, data
+
+
+def settings_payload(config: StationConfig) -> dict[str, Any]:
+    """The analysis settings as plain data (sent to workers, stored with reprocessed runs)."""
+    return {"species": list(config.species), "checks": dict(config.checks)}
+
+
+TEMPLATE = """\
+# bandwatch station configuration (TOML).
+# Every station command reads this file: bandwatch watch, bandwatch ledger ...
+# Default location: $BANDWATCH_CONFIG, else ~/.config/bandwatch/station.toml.
+# Relative folders are taken relative to this file.
+
+# The folder the spectrometer exports into. bandwatch only reads it, never writes into it.
+export_folder = "{export_folder}"
+
+# Where the ledger (ledger.sqlite3) and the reports go. Must be outside the export folder.
+data_folder = "{data_folder}"
+
+# Your name, written beside every accept/flag decision.
+operator = "{operator}"
+
+# Which files to take (shell patterns on the file name). Names starting with . or ~ and
+# *.tmp *.part *.partial *.crdownload *.swp *.lock are always ignored.
+include = ["*"]
+exclude = []
+
+# Look into subfolders too.
+recursive = false
+
+# Poll the folder instead of using file-system events (network shares are polled anyway).
+poll = false
+
+# A file is taken once its size and time stamp have not changed for this long (seconds).
+settle_seconds = 0.5
+
+# A file that still looks incomplete (JCAMP-DX without ##END=) is waited for this long,
+# then recorded as unreadable (seconds).
+max_wait_seconds = 30
+
+# A full rescan of the folder this often catches anything the events missed (seconds).
+rescan_seconds = 5
+
+# Worker processes analysing files, and the limits that protect the station from one bad file.
+workers = 2
+timeout_seconds = 60
+memory_limit_mb = 2048
+
+# Molecules or isotopologues expected in the spectra (empty = detect).
+species = []
+
+# Check thresholds, passed through to the analysis as they are.
+[checks]
+"""
+
+
+def render_template(export_folder: str = "/path/to/export", data_folder: str | None = None, operator: str = "") -> str:
+    return TEMPLATE.format(
+        export_folder=_toml_escape(export_folder),
+        data_folder=_toml_escape(data_folder or str(default_data_dir())),
+        operator=_toml_escape(operator),
+    )
+
+
+def _toml_escape(text: str) -> str:
+    return text.replace("\\", "\\\\").replace('"', '\\"')
+
+
+def station_config(config_path: str | None, data_dir: str | None = None) -> StationConfig:
+    """The configuration a station command uses: --config FILE (or the default file), then --data."""
+    config = load_config(config_path)
+    if data_dir:
+        config = config.with_overrides(data_folder=Path(data_dir).expanduser())
+    return config

@@ -1,0 +1,154 @@
+"""Small event dataclasses the station emits; `--plain` prints them, the app posts them.
+
+Every event has `at` (UTC ISO time) and `plain()` -> one log line without the time stamp.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from processing.station.ledger import now_iso
+
+
+def _name(path: str) -> str:
+    return Path(path).name
+
+
+@dataclass(frozen=True)
+class StationEvent:
+    """Base of every station event."""
+
+    at: str = field(default_factory=now_iso, kw_only=True)
+
+    def plain(self) -> str:
+        return type(self).__name__
+
+
+@dataclass(frozen=True)
+class StationStarted(StationEvent):
+    export_folder: str
+    data_folder: str
+    observer: str  # "native" | "polling"
+    workers: int
+
+    def plain(self) -> str:
+        return (
+            f"started watching {self.export_folder} ({self.observer} events, {self.workers} workers)"
+            f" data={self.data_folder}"
+        )
+
+
+@dataclass(frozen=True)
+class StationStopped(StationEvent):
+    def plain(self) -> str:
+        return "stopped"
+
+
+@dataclass(frozen=True)
+class CatchUpFound(StationEvent):
+    """Files already in the folder at start that the ledger has not seen."""
+
+    count: int
+
+    def plain(self) -> str:
+        return f"catch-up {self.count} file(s) not yet in the ledger"
+
+
+@dataclass(frozen=True)
+class ClaimResumed(StationEvent):
+    """A file left in progress by a station that stopped abruptly; it is redone."""
+
+    path: str
+
+    def plain(self) -> str:
+        return f"resumed {_name(self.path)} (left in progress by an earlier station)"
+
+
+@dataclass(frozen=True)
+class FileSeen(StationEvent):
+    path: str
+
+    def plain(self) -> str:
+        return f"seen {_name(self.path)}"
+
+
+@dataclass(frozen=True)
+class FileVanished(StationEvent):
+    """A file deleted before it settled; nothing is recorded for it."""
+
+    path: str
+
+    def plain(self) -> str:
+        return f"vanished {_name(self.path)} (deleted before it settled; not recorded)"
+
+
+@dataclass(frozen=True)
+class FileSettled(StationEvent):
+    path: str
+    sha256: str | None
+    size_bytes: int
+
+    def plain(self) -> str:
+        return f"settled {_name(self.path)} {self.size_bytes} bytes"
+
+
+@dataclass(frozen=True)
+class FileUnchanged(StationEvent):
+    """A settled file the ledger already holds with the same content."""
+
+    path: str
+    run_id: int
+
+    def plain(self) -> str:
+        return f"unchanged {_name(self.path)} (run {self.run_id})"
+
+
+@dataclass(frozen=True)
+class RunProcessed(StationEvent):
+    """A run recorded with status "processed" or "unreadable"."""
+
+    run_id: int
+    version: int
+    path: str
+    status: str
+    verdict: str | None
+    species: tuple[str, ...]
+    error: str | None = None
+    report_folder: str | None = None
+
+    def plain(self) -> str:
+        if self.status == "processed":
+            species = ",".join(self.species) or "-"
+            return (
+                f"processed run {self.run_id} v{self.version} {_name(self.path)}"
+                f" verdict={self.verdict or '-'} species={species}"
+            )
+        return f"{self.status} run {self.run_id} v{self.version} {_name(self.path)} error={self.error}"
+
+
+@dataclass(frozen=True)
+class RunFailed(StationEvent):
+    """A run recorded as "failed": the worker crashed, hung or ran out of memory."""
+
+    run_id: int
+    version: int
+    path: str
+    reason: str
+
+    def plain(self) -> str:
+        return f"failed run {self.run_id} v{self.version} {_name(self.path)} reason={self.reason}"
+
+
+@dataclass(frozen=True)
+class StationProblem(StationEvent):
+    """Something went wrong in the station itself (it carries on)."""
+
+    message: str
+
+    def plain(self) -> str:
+        return f"problem {self.message}"
+
+
+def plain_line(event: StationEvent) -> str:
+    """`2026-12-02T14:03:11 processed run 12 v1 sample.csv verdict=pass species=H35Cl`."""
+    return f"{event.at[:19]} {event.plain()}"

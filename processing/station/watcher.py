@@ -1,0 +1,134 @@
+"""Which files to take, and the file-system observer that reports them.
+
+The observer only says "something happened to this path"; what to do is decided by
+`settle.Settler` from the file's own size and time stamp. watchdog's native observer is used
+unless the folder is on a network file system (where native events do not arrive) or polling
+is asked for; a periodic rescan (in the station) catches anything events missed.
+"""
+from __future__ import annotations
+
+import fnmatch
+import os
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+from watchdog.events import FileSystemEvent, FileSystemEventHandler
+from watchdog.observers import Observer
+from watchdog.observers.api import BaseObserver
+from watchdog.observers.polling import PollingObserver
+
+NETWORK_FS_TYPES = frozenset(
+    {"nfs", "nfs4", "cifs", "smb", "smb2", "smb3", "smbfs", "ncpfs", "afs", "9p", "fuse.sshfs",
+     "sshfs", "fuse", "fuse.rclone", "fuse.gvfsd-fuse", "davfs", "fuse.davfs2", "glusterfs",
+     "ceph", "lustre", "gpfs", "vboxsf", "virtiofs", "drvfs"}
+)
+POLL_INTERVAL_SECONDS = 1.0
+
+
+@dataclass(frozen=True)
+class FileFilter:
+    """Include/exclude shell patterns on file names, recursion, hidden folders skipped."""
+
+    root: Path
+    include: tuple[str, ...] = ("*",)
+    exclude: tuple[str, ...] = ()
+    recursive: bool = False
+
+    def accepts(self, path: str | Path) -> bool:
+        """True for a path under root that names a file we should take (by name only)."""
+        candidate = Path(path)
+        try:
+            relative = candidate.relative_to(self.root)
+        except ValueError:
+            return False
+        parts = relative.parts
+        if not parts or (len(parts) > 1 and not self.recursive):
+            return False
+        if any(part.startswith(".") for part in parts[:-1]):
+            return False
+        name = parts[-1]
+        if any(fnmatch.fnmatch(name, pattern) for pattern in self.exclude):
+            return False
+        return any(fnmatch.fnmatch(name, pattern) for pattern in self.include)
+
+    def scan(self) -> Iterator[tuple[str, os.stat_result]]:
+        """Every accepted regular file now in the folder, with its stat."""
+        stack = [self.root]
+        while stack:
+            folder = stack.pop()
+            try:
+                entries = list(os.scandir(folder))
+            except OSError:
+                continue
+            for entry in entries:
+                try:
+                    if entry.is_dir(follow_symlinks=False):
+                        if self.recursive and not entry.name.startswith("."):
+                            stack.append(Path(entry.path))
+                        continue
+                    if not entry.is_file() or not self.accepts(entry.path):
+                        continue
+                    yield entry.path, entry.stat()
+                except OSError:
+                    continue  # vanished while scanning
+
+
+def filesystem_type(path: str | Path) -> str:
+    """The file-system type of the mount holding `path` (from /proc/mounts), or ''."""
+    target = os.path.realpath(path)
+    best, best_type = "", ""
+    try:
+        with open("/proc/mounts", encoding="utf-8", errors="replace") as mounts:
+            for line in mounts:
+                fields = line.split()
+                if len(fields) < 3:
+                    continue
+                mount_point = fields[1].replace("\\040", " ")
+                inside = target == mount_point or target.startswith(mount_point.rstrip("/") + "/")
+                if inside and len(mount_point) >= len(best):
+                    best, best_type = mount_point, fields[2]
+    except OSError:
+        return ""
+    return best_type
+
+
+def needs_polling(path: str | Path) -> bool:
+    """True when native file events are unlikely to arrive (network and FUSE file systems)."""
+    kind = filesystem_type(path)
+    return kind in NETWORK_FS_TYPES or kind.startswith("fuse.") or kind.startswith("nfs")
+
+
+class _Forwarder(FileSystemEventHandler):
+    """Passes every file path an event mentions to `notify` (the settler decides)."""
+
+    def __init__(self, notify: Callable[[str], None]) -> None:
+        self.notify = notify
+
+    def on_any_event(self, event: FileSystemEvent) -> None:
+        if event.is_directory:
+            if event.event_type in ("created", "moved"):
+                self.notify(os.fsdecode(getattr(event, "dest_path", "") or event.src_path))
+            return
+        self.notify(os.fsdecode(event.src_path))
+        dest = getattr(event, "dest_path", "")
+        if dest:
+            self.notify(os.fsdecode(dest))
+
+
+def start_observer(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None]) -> tuple[BaseObserver, str]:
+    """Start watching `root`; returns the observer and "native" or "polling"."""
+    use_polling = poll or needs_polling(root)
+    observer: BaseObserver = PollingObserver(timeout=POLL_INTERVAL_SECONDS) if use_polling else Observer()
+    observer.schedule(_Forwarder(notify), str(root), recursive=recursive)
+    try:
+        observer.start()
+    except OSError:
+        if use_polling:
+            raise
+        # e.g. the inotify watch limit is reached: fall back to polling
+        observer = PollingObserver(timeout=POLL_INTERVAL_SECONDS)
+        observer.schedule(_Forwarder(notify), str(root), recursive=recursive)
+        observer.start()
+        use_polling = True
+    return observer, "polling" if use_polling else "native"

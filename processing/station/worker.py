@@ -1,0 +1,98 @@
+"""One worker process: `python -m processing.station.worker IN_FD OUT_FD FUNCTION MEMORY_MB`.
+
+Receives (job_id, path, settings) over IN_FD and answers ("done", job_id, result dict) or
+("failed", job_id, reason) over OUT_FD (multiprocessing's length-prefixed pickles). Runs under
+an address-space limit so a memory blow-up is a MemoryError here, not a starved machine. Exits
+when the station closes the pipe or disappears. Standard output is sent to standard error, so
+nothing the analysis prints can corrupt the pipe.
+"""
+from __future__ import annotations
+
+import importlib
+import os
+import signal
+import sys
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import fields
+from multiprocessing.connection import Connection
+from typing import Any
+
+
+def resolve_function(spec: str) -> Callable[..., Any]:
+    """'module:function' -> the callable (raises ImportError/AttributeError if absent)."""
+    module_name, _, attribute = spec.partition(":")
+    function = getattr(importlib.import_module(module_name), attribute)
+    if not callable(function):
+        raise TypeError(f"{spec} is not callable")
+    return function
+
+
+def make_settings(payload: dict[str, Any]) -> Any:
+    """ProcessSettings from plain data, passing only the fields this version of it has."""
+    from processing.pipeline import ProcessSettings
+
+    known = {f.name for f in fields(ProcessSettings)}
+    values: dict[str, Any] = {}
+    for key, value in payload.items():
+        if key in known:
+            values[key] = tuple(value) if isinstance(value, list) else value
+    return ProcessSettings(**values)
+
+
+def _exit_when_orphaned(parent: int) -> None:
+    """The station was killed: do not linger (a hung analysis would otherwise live on)."""
+    while os.getppid() == parent:
+        time.sleep(0.5)
+    os._exit(1)
+
+
+def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limit_mb: int) -> None:
+    """The worker loop."""
+    function = resolve_function(function_spec)
+    importlib.import_module("processing.pipeline")  # warm up before the first file
+    if memory_limit_mb > 0:
+        import resource
+
+        limit = memory_limit_mb * 1024 * 1024
+        resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
+    outbox.send(("ready", None, None))
+    while True:
+        try:
+            message = inbox.recv()
+        except (EOFError, OSError):
+            return
+        if message is None:
+            return
+        job_id, path, payload = message
+        try:
+            result = function(path, make_settings(payload))
+            data = result.to_dict() if hasattr(result, "to_dict") else result
+        except MemoryError:
+            outbox.send(("failed", job_id, f"out of memory (worker limit {memory_limit_mb} MB)"))
+            return  # a fresh worker replaces this one
+        except Exception as error:  # becomes the run's failure reason; the worker goes on
+            outbox.send(("failed", job_id, f"analysis crashed: {type(error).__name__}: {error}"))
+            continue
+        outbox.send(("done", job_id, data))
+
+
+def main(argv: list[str]) -> int:
+    in_fd, out_fd, function_spec, memory_limit_mb = int(argv[0]), int(argv[1]), argv[2], int(argv[3])
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the station's to handle
+    sys.stdout = sys.stderr
+    threading.Thread(target=_exit_when_orphaned, args=(os.getppid(),), daemon=True).start()
+    inbox = Connection(in_fd, writable=False)
+    outbox = Connection(out_fd, readable=False)
+    try:
+        serve(inbox, outbox, function_spec, memory_limit_mb)
+    except (BrokenPipeError, EOFError):
+        return 0
+    return 0
+
+
+if __name__ == "__main__":
+    for name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(name, "1")  # set before numpy loads: one thread per worker
+    sys.exit(main(sys.argv[1:]))

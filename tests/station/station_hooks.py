@@ -1,0 +1,38 @@
+"""Processing functions that misbehave on purpose, injected into the station's workers.
+
+Named as "station_hooks:<function>" (this folder is on sys.path under pytest and in the
+subprocess tests). Each misbehaves only for files whose name contains its trigger word, and
+runs the real analysis otherwise, so one test can mix good and bad files.
+"""
+from __future__ import annotations
+
+import os
+import signal
+import time
+from pathlib import Path
+from typing import Any
+
+from processing.pipeline import ProcessSettings, RunResult, process_file
+
+
+def misbehave(path: str, settings: ProcessSettings) -> RunResult:
+    name = Path(path).name
+    if "crash" in name:
+        os._exit(3)
+    if "segv" in name:
+        os.kill(os.getpid(), signal.SIGSEGV)
+    if "hang" in name:
+        time.sleep(60)
+    if "hog" in name:
+        hoard: list[Any] = []
+        for _ in range(64):  # 64 x 128 MB = 8 GB, far over the test's limit
+            hoard.append(bytearray(128 * 1024 * 1024))
+    if "raise" in name:
+        raise RuntimeError("deliberate failure")
+    return process_file(path, settings)
+
+
+def slow(path: str, settings: ProcessSettings) -> RunResult:
+    """The real analysis, 0.4 s later: leaves time to kill the station mid-file."""
+    time.sleep(0.4)
+    return process_file(path, settings)

@@ -1,0 +1,122 @@
+"""`bandwatch watch [DIR]`: the station. Watches the export folder and processes files as they land."""
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+HELP = "watch an export folder: process each file as it lands, record runs in the ledger"
+
+
+def add_station_arguments(parser: argparse.ArgumentParser) -> None:
+    """--config and --data, shared by every station command."""
+    parser.add_argument("--config", default=None, metavar="FILE",
+                        help="station configuration (default: $BANDWATCH_CONFIG or ~/.config/bandwatch/station.toml)")
+    parser.add_argument("--data", default=None, metavar="DIR",
+                        help="data folder with the ledger and reports (default: the configuration's, "
+                        "else $XDG_DATA_HOME/bandwatch or ~/.local/share/bandwatch)")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("folder", nargs="?", default=None, metavar="DIR",
+                        help="export folder to watch (default: the configuration's export_folder)")
+    add_station_arguments(parser)
+    parser.add_argument("--plain", action="store_true",
+                        help="one line per event on standard output, no interface (logs, scripts)")
+    parser.add_argument("--once", action="store_true",
+                        help="process what is in the folder now, then exit (no watching)")
+    parser.add_argument("--poll", action="store_true", default=None,
+                        help="poll the folder instead of file-system events")
+    parser.add_argument("--recursive", action="store_true", default=None, help="watch subfolders too")
+    parser.add_argument("--include", action="append", default=None, metavar="PATTERN",
+                        help="take only file names matching this pattern (repeatable; default *)")
+    parser.add_argument("--exclude", action="append", default=None, metavar="PATTERN",
+                        help="skip file names matching this pattern (repeatable)")
+    parser.add_argument("--settle", type=float, default=None, metavar="SECONDS",
+                        help="seconds a file must stay unchanged before it is read (default 0.5)")
+    parser.add_argument("--workers", type=int, default=None, help="worker processes (default 2)")
+    parser.add_argument("--timeout", type=float, default=None, metavar="SECONDS",
+                        help="longest analysis of one file before it is stopped (default 60)")
+    parser.add_argument("--memory-mb", type=int, default=None, metavar="MB",
+                        help="memory limit of each worker (default 2048; 0 = none)")
+    parser.add_argument("--species", default=None,
+                        help="comma-separated molecules or isotopologues expected (default: detect)")
+    parser.add_argument("--operator", default=None, help="name written beside decisions")
+
+
+def build_config(args: argparse.Namespace):  # -> StationConfig (import kept inside)
+    from processing.station.config import station_config
+
+    config = station_config(args.config, args.data)
+    species = None
+    if args.species is not None:
+        species = tuple(s.strip() for s in args.species.split(",") if s.strip())
+    return config.with_overrides(
+        export_folder=Path(args.folder).expanduser() if args.folder else None,
+        poll=args.poll,
+        recursive=args.recursive,
+        include=tuple(args.include) if args.include else None,
+        exclude=tuple(args.exclude) if args.exclude else None,
+        settle_seconds=args.settle,
+        workers=args.workers,
+        timeout_seconds=args.timeout,
+        memory_limit_mb=args.memory_mb,
+        species=species,
+        operator=args.operator,
+    )
+
+
+def run(args: argparse.Namespace) -> int:
+    config = build_config(args)
+    if args.plain or args.once:
+        return run_plain(config, once=args.once)
+    try:
+        from tui.app import BandwatchApp
+    except ImportError:
+        print("bandwatch: the interface is not available here; printing events instead (--plain)",
+              file=sys.stderr)
+        return run_plain(config, once=False)
+    from processing.station.config import check_folders
+    from processing.station.station import Station
+
+    export_dir, data_dir = check_folders(config)  # one clear error before the screen opens
+
+    def make_station(on_event):  # type: ignore[no-untyped-def]
+        return Station(config, on_event=on_event)
+
+    app = BandwatchApp(data_dir, export_dir, station_factory=make_station, operator=config.operator or None)
+    return int(app.run() or 0)
+
+
+def run_plain(config, once: bool) -> int:  # type: ignore[no-untyped-def]
+    """Run the station, printing one line per event, until Ctrl-C (or idle with `once`)."""
+    import signal
+    import threading
+
+    from processing.station.events import RunFailed, StationEvent, plain_line
+    from processing.station.station import Station
+
+    failures = 0
+
+    def on_event(event: StationEvent) -> None:
+        nonlocal failures
+        failures += isinstance(event, RunFailed)
+        sys.stdout.write(plain_line(event) + "\n")
+        sys.stdout.flush()
+
+    station = Station(config, on_event=on_event)
+    stop = threading.Event()
+    previous = signal.signal(signal.SIGTERM, lambda signum, frame: stop.set())
+    station.start()
+    try:
+        if once:
+            station.wait_idle(timeout=float("inf"))
+        else:
+            while not stop.wait(0.5):
+                pass
+    except KeyboardInterrupt:
+        pass
+    finally:
+        station.stop()
+        signal.signal(signal.SIGTERM, previous)
+    return 1 if once and failures else 0
