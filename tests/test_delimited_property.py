@@ -1,0 +1,69 @@
+"""Mutated delimited files: a valid Spectrum or a SpectrumFileError, never anything else."""
+from __future__ import annotations
+
+import numpy as np
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from processing.errors import SpectrumFileError
+from processing.readers import delimited, parse_bytes
+from processing.spectrum import Spectrum
+
+
+def _valid_files() -> list[bytes]:
+    x = 2000.0 + 0.125 * np.arange(40)
+    y = 0.5 + 0.01 * np.sin(x)
+    comma = "cm-1,A\n" + "".join(f"{a!r},{b!r}\n" for a, b in zip(x.tolist(), y.tolist()))
+    quirky = "\ufeffLab export\r\nWavenumber (cm-1);%T;\r\n" + "".join(
+        f"{a:.2f};{100 * b:.3f};\r\n".replace(".", ",") for a, b in zip(x[::-1].tolist(), y.tolist())
+    )
+    tabbed = "".join(f"{a:.3f}\t{b:.5f}\t7\n" for a, b in zip(x.tolist(), y.tolist())) + "END\n"
+    return [comma.encode(), quirky.encode("utf-8"), tabbed.encode()]
+
+
+VALID = _valid_files()
+
+mutation = st.one_of(
+    st.tuples(st.just("flip"), st.integers(0, 10_000), st.integers(0, 255)),
+    st.tuples(st.just("delete"), st.integers(0, 10_000), st.integers(1, 40)),
+    st.tuples(st.just("truncate"), st.integers(0, 10_000), st.just(0)),
+    st.tuples(st.just("insert"), st.integers(0, 10_000), st.binary(min_size=1, max_size=12)),
+)
+
+
+def mutate(data: bytes, steps: list[tuple[str, int, object]]) -> bytes:
+    buffer = bytearray(data)
+    for kind, where, arg in steps:
+        at = where % (len(buffer) + 1)
+        if kind == "flip" and buffer:
+            buffer[at % len(buffer)] = int(arg)  # type: ignore[call-overload]
+        elif kind == "delete":
+            del buffer[at : at + int(arg)]  # type: ignore[call-overload]
+        elif kind == "truncate":
+            del buffer[at:]
+        elif kind == "insert":
+            buffer[at:at] = arg  # type: ignore[assignment]
+    return bytes(buffer)
+
+
+@settings(max_examples=200, deadline=2000, suppress_health_check=[HealthCheck.too_slow])
+@given(st.sampled_from(range(len(VALID))), st.lists(mutation, min_size=1, max_size=4))
+def test_mutated_files_read_or_fail_cleanly(which: int, steps: list[tuple[str, int, object]]) -> None:
+    data = mutate(VALID[which], steps)
+    for read in (lambda: delimited.parse(data, "mutant.csv"), lambda: parse_bytes(data, "mutant.csv")):
+        try:
+            result = read()
+        except SpectrumFileError as error:
+            assert str(error).startswith("mutant.csv")
+            assert "\n" not in str(error)
+            continue
+        assert isinstance(result, Spectrum)
+        assert result.points >= 2
+        assert np.all(np.diff(result.wavenumber_cm1) > 0)
+        assert np.all(np.isfinite(result.absorbance))
+
+
+def test_unmutated_files_are_valid() -> None:
+    # Guards the property above: the starting files must themselves read.
+    for data in VALID:
+        assert delimited.parse(data, "valid.csv").points == 40
