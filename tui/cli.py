@@ -38,10 +38,18 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
-    if getattr(args, "_run", None) is None:
-        parser.print_help()
-        return 0
     from processing.errors import BandwatchError
+
+    if getattr(args, "_run", None) is None:
+        # No command: open the interface on the configured export folder, else show help.
+        try:
+            args = _configured_watch(parser)
+        except BandwatchError as error:
+            print(f"bandwatch: {error}", file=sys.stderr)
+            return 1
+        if args is None:
+            parser.print_help()
+            return 0
 
     try:
         return int(args._run(args) or 0)
@@ -50,6 +58,17 @@ def main(argv: list[str] | None = None) -> int:
         return 1
     except KeyboardInterrupt:
         return 130
+
+
+def _configured_watch(parser: argparse.ArgumentParser) -> argparse.Namespace | None:
+    """`bandwatch watch` arguments when a configuration names an export folder and a terminal is there."""
+    if not (sys.stdin.isatty() and sys.stdout.isatty()):
+        return None
+    from processing.station.config import station_config
+
+    if station_config(None).export_folder is None:
+        return None
+    return parser.parse_args(["watch"])
 
 
 if __name__ == "__main__":
