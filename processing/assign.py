@@ -118,6 +118,17 @@ class _Band:
     sigma: np.ndarray  # prediction uncertainty
     weight: np.ndarray  # predicted relative intensity (molecule-band scale, 1 = strongest)
     fit: BandFit | None = None
+    # unresolved isotopologue partners: m -> shift of the blend centre from this line
+    pull: dict[int, float] = field(default_factory=dict)
+    merged_with: str | None = None
+
+    def pull_of(self, m: np.ndarray) -> np.ndarray:
+        return np.array([self.pull.get(int(k), 0.0) for k in np.atleast_1d(m)])
+
+    @property
+    def matched_position(self) -> np.ndarray:
+        """Where the measured line should sit: the prediction plus any blend pull."""
+        return self.position + self.pull_of(self.m)
 
     @property
     def key(self) -> tuple[str, int, int]:
@@ -233,8 +244,9 @@ def _claims(peaks: np.ndarray, usable: np.ndarray, bands: list[_Band], tolerance
     for bi, (band, tol) in enumerate(zip(bands, tolerances)):
         if peaks.size == 0:
             break
-        idx = np.clip(np.searchsorted(peaks, band.position), 1, max(peaks.size - 1, 1))
-        for k, (target, t) in enumerate(zip(band.position, tol)):
+        targets = band.matched_position
+        idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
+        for k, (target, t) in enumerate(zip(targets, tol)):
             for j in (idx[k] - 1, idx[k]):
                 if 0 <= j < peaks.size and usable[j]:
                     d = abs(peaks[j] - target) / t
@@ -284,9 +296,81 @@ def _fit_band_lines(
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx], sigma)
+        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma)
     except (ValueError, np.linalg.LinAlgError):
         return None
+
+
+def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarray, shift: float, notes: list[str]) -> None:
+    """Isotopologue line pairs that the spectrum shows as one peak are treated as one blend:
+    the weaker partner's line is dropped and the stronger one's expected position becomes
+    the intensity-weighted blend centre (isotope shifts come from mass scaling, exact to
+    ~0.01 cm-1 for heavy-atom swaps). A pair closer than two line widths counts as resolved
+    only where two distinct peaks were found at the two predicted places."""
+    if len(bands) < 2:
+        return
+    ordered = sorted(bands, key=lambda b: -float(b.weight.max()))
+
+    def nearest(target: float, window: float) -> int | None:
+        if peaks.size == 0:
+            return None
+        j = int(np.argmin(np.abs(peaks - target)))
+        return j if abs(peaks[j] - target) <= window else None
+
+    for i, major in enumerate(ordered):
+        for minor in ordered[i + 1 :]:
+            common = np.intersect1d(major.m, minor.m)
+            if common.size == 0:
+                continue
+            index_major = {int(k): j for j, k in enumerate(major.m)}
+            index_minor = {int(k): j for j, k in enumerate(minor.m)}
+            merged = []
+            for m in common.tolist():
+                a, b = index_major[m], index_minor[m]
+                separation = float(minor.position[b] - major.position[a])
+                if width and abs(separation) >= 2.0 * width:
+                    continue
+                window = 0.35 * abs(separation)
+                at_major = nearest(major.position[a] + shift, window)
+                at_minor = nearest(minor.position[b] + shift, window)
+                if at_major is not None and at_minor is not None and at_major != at_minor:
+                    continue  # resolved here
+                w_major, w_minor = float(major.weight[a]), float(minor.weight[b])
+                major.pull[m] = major.pull.get(m, 0.0) + w_minor / (w_major + w_minor) * separation
+                merged.append(m)
+            if merged:
+                keep = ~np.isin(minor.m, merged)
+                minor.m, minor.position, minor.sigma, minor.weight = minor.m[keep], minor.position[keep], minor.sigma[keep], minor.weight[keep]
+                major.merged_with = minor.isotopologue
+                notes.append(
+                    f"{major.label}: {len(merged)} lines unresolved from {minor.isotopologue}; positions "
+                    "corrected for the predicted blend centre"
+                )
+
+
+def _drop_undetectable(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable, threshold_sigma: float = 5.0) -> set[int]:
+    """Bands whose own lines could not have been seen: fewer than MIN_BAND_LINES predicted
+    lines reach the detection threshold at the intensity scale of the molecule's strongest
+    band, or under half of those were found. Returns the band indices to drop."""
+    scale_of: dict[tuple[int, int], float] = {}
+    for claim in winners.values():
+        band = bands[claim.band]
+        w = float(band.weight[band.m == claim.m][0]) if np.any(band.m == claim.m) else 0.0
+        if w > 0.05 and np.isfinite(lines.snr[claim.line]):
+            key = (band.v_upper, band.v_lower)
+            scale_of.setdefault(key, [])  # type: ignore[arg-type]
+            scale_of[key].append(lines.snr[claim.line] / w)  # type: ignore[union-attr]
+    drop: set[int] = set()
+    for bi, band in enumerate(bands):
+        scales = scale_of.get((band.v_upper, band.v_lower))
+        if not scales:
+            continue
+        snr_per_weight = float(np.median(scales))  # type: ignore[arg-type]
+        detectable = int(np.sum(band.weight * snr_per_weight >= threshold_sigma))
+        found = sum(1 for c in winners.values() if c.band == bi)
+        if detectable < MIN_BAND_LINES or found < 0.5 * detectable:
+            drop.add(bi)
+    return drop
 
 
 def _tolerances(bands: list[_Band], lines: LineTable, tol0: float) -> list[np.ndarray]:
@@ -492,8 +576,10 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
             main = max(present, key=lambda b: float(b.weight.max()))
             shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
             # minor isotopologues ride on the molecule's shift even when weak
-            for band in predicted:
-                if band in present or float(band.weight.max()) >= 0.005:
+            riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.005]
+            _merge_unresolved_partners(riding, width, peaks[usable], shift, notes)
+            for band in riding:
+                if band.m.size:
                     band.position = band.position + shift
                     J_caps[band.key] = int(np.max(np.abs(band.m))) + 2
                     bands.append(band)
@@ -501,6 +587,11 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
                 notes.append(f"{molecule} {v_upper}-{v_lower}: lines sit {shift:+.2f} cm-1 from the library prediction ({main.isotopologue})")
 
     winners, blended = _refine(bands, lines, usable, tol0, J_caps) if bands else ({}, set())
+    if bands and np.all(np.isfinite(lines.snr)):
+        dropped = _drop_undetectable(bands, winners, lines)
+        if dropped:
+            notes.extend(f"{bands[i].label}: too weak to be seen here; not assigned" for i in sorted(dropped) if any(c.band == i for c in winners.values()))
+            winners = {line: c for line, c in winners.items() if c.band not in dropped}
     # drop bands with too few lines
     counts: dict[int, int] = {}
     for claim in winners.values():
@@ -565,11 +656,12 @@ def _finish(
         m = np.array([assignment[i][1] for i in members])
         branch, J_lower = branch_from_m(m)
         idx = np.array(members)
+        pull = band.pull_of(m)
         sigma = lines.position_sigma_cm1[idx] * np.where(lines.saturated[idx], 3.0, 1.0) * np.where(np.isin(idx, list(blended)), 5.0, 1.0)
         fit: BandFit | None = None
         if idx.size >= 4:
             try:
-                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx], sigma)
+                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - pull, sigma)
             except (ValueError, np.linalg.LinAlgError):
                 fit = None
         if fit is None:
@@ -580,7 +672,8 @@ def _finish(
         for k, line in enumerate(members):
             residual = float(fit.residuals[k])
             confidence = float(np.exp(-0.5 * (residual / max(3.0 * spread[k], 1e-9)) ** 2))
-            if line in blended:
+            merged = abs(pull[k]) > 0
+            if line in blended or merged:
                 confidence *= 0.5
             if lines.saturated[line]:
                 confidence *= 0.8
@@ -594,11 +687,11 @@ def _finish(
                 v_lower=band.v_lower,
                 branch=str(branch[k]),
                 J_lower=int(J_lower[k]),
-                calc=float(fit.calc[k]),
+                calc=float(fit.calc[k] + pull[k]),
                 residual=residual,
                 confidence=round(confidence, 3),
                 method=band.method,
-                blended=line in blended,
+                blended=line in blended or merged,
                 used_in_fit=bool(fit.used[k]),
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
