@@ -5,12 +5,13 @@ with status "unreadable" and the one-line reason; it never raises for a bad file
 """
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from processing.errors import SpectrumFileError
-from processing.readers import DEFAULT_MAX_BYTES, read_any
+from processing.readers import DEFAULT_MAX_BYTES, load_bytes, parse_bytes
 from processing.spectrum import LineList, Spectrum
 
 SCHEMA_VERSION = 1
@@ -229,7 +230,13 @@ def process_file(path: str | Path, settings: ProcessSettings | None = None) -> R
     settings = settings or ProcessSettings()
     source = str(path)
     try:
-        data = read_any(source, settings.max_bytes)
+        raw = load_bytes(source, settings.max_bytes)
     except SpectrumFileError as error:
         return RunResult(file=source, status="unreadable", error=str(error))
+    try:
+        data = parse_bytes(raw, source)
+    except SpectrumFileError as error:
+        # The bytes were read: their hash lets a ledger recognise the same bad file again.
+        digest = hashlib.sha256(raw).hexdigest()
+        return RunResult(file=source, status="unreadable", sha256=digest, error=str(error))
     return result_from_analysis(source, analyse(data, settings))
