@@ -6,8 +6,9 @@ Steps (each a pure function on numpy arrays):
    isotopologue's mass, Lorentz HWHM = broadening coefficient x total cell pressure.
 2. fine-grid optical depth: tau(nu) = sum_i S_i N_i L g_i(nu) (natural; decadic A = tau/ln10),
    N_i from the partial pressure by the ideal gas law, g_i a unit-area Voigt profile evaluated
-   in a window of +-50 Voigt HWHM and renormalised to unit area inside it (so each line's
-   integrated optical depth is exactly S N L). Transmittance T = exp(-tau).
+   in a window of +-50 Voigt HWHM (wider for strong lines, out to where the wing's optical depth
+   is 1e-4) and renormalised to unit area inside it (so each line's integrated optical depth is
+   exactly S N L). Transmittance T = exp(-tau) on a grid of step <= Voigt HWHM / 4.
 3. instrument: the ILS applied to T (processing.instrument), sampled on the instrument grid.
 4. window fringes and baseline (a decadic absorbance offset/tilt), then noise on T.
 Reproducible bit-for-bit for the same settings and seed.
@@ -29,7 +30,8 @@ from processing.levels import band_origin, centrifugal_constant, rotational_cons
 from processing.spectrum import FileMetadata, Spectrum
 
 STANDARD_ATMOSPHERE_PA = _sc.atm  # 101325 Pa (scipy.constants)
-VOIGT_WINDOW_HWHM = 50.0  # each line is evaluated within +- this many Voigt HWHM
+VOIGT_WINDOW_HWHM = 50.0  # each line is evaluated within +- this many Voigt HWHM (at least)
+WING_OPTICAL_DEPTH = 1e-4  # ... and out to where its Lorentz wing's optical depth falls to this
 MIN_RELATIVE_STRENGTH = 1e-5  # lines weaker than this x the band's strongest are left out
 LN10 = math.log(10.0)
 
@@ -243,7 +245,10 @@ def optical_depth_on_grid(
     sigma = lines.doppler_fwhm_cm1 / (2.0 * math.sqrt(2.0 * math.log(2.0)))
     gamma = lines.lorentz_hwhm_cm1
     hwhm = voigt_hwhm_cm1(lines.doppler_fwhm_cm1, gamma)
-    half_points = np.ceil(VOIGT_WINDOW_HWHM * hwhm / step_cm1).astype(np.int64)
+    # Window: +-50 HWHM, widened for strong lines until the Lorentz wing A gamma/(pi d^2)
+    # falls below WING_OPTICAL_DEPTH (a saturated line's wings absorb far from its centre).
+    wing = np.sqrt(area * gamma / (math.pi * WING_OPTICAL_DEPTH))
+    half_points = np.ceil(np.maximum(VOIGT_WINDOW_HWHM * hwhm, wing) / step_cm1).astype(np.int64)
     # Round window sizes up to powers of two so a few groups cover all lines.
     group_half = 1 << np.ceil(np.log2(np.maximum(half_points, 2))).astype(np.int64)
     centre_index = np.rint((centres - first_cm1) / step_cm1).astype(np.int64)
@@ -381,7 +386,7 @@ def margin_cm1(instrument: Instrument) -> float:
 
 
 def fine_grid_for(lines: LineTable, instrument: Instrument) -> FineGrid:
-    """Fine grid with spacing <= half the narrowest line's Voigt HWHM (see plan_fine_grid)."""
+    """Fine grid with spacing <= a quarter of the narrowest line's Voigt HWHM (see plan_fine_grid)."""
     if lines.count:
         narrowest = float(np.min(voigt_hwhm_cm1(lines.doppler_fwhm_cm1, lines.lorentz_hwhm_cm1)))
     else:

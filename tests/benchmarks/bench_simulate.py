@@ -2,12 +2,12 @@
 
 Four isotopologues (H35Cl, H37Cl, D35Cl, D37Cl), bands 1-0 and 2-0 each, 1750-5950 cm-1 at
 0.0168 cm-1 resolution with zero filling 2 (spacing 0.0042 cm-1, ~1.0M output points), 0.002 atm
-of each gas in a 200 cm cell: nearly Doppler-limited lines, so the fine grid is ~4M points.
+of each gas in a 200 cm cell: nearly Doppler-limited lines, so the fine grid is ~8M points.
 Reports the median of several runs, each stage's share, and the time of one numpy FFT of the
 output length measured in the same run (ratio = simulator / FFT). Target: < 2 s on 2 cores.
 
-Trade-off: the fine grid is uniform with spacing <= half the narrowest line's Voigt HWHM (4x finer
-than the output here). Adaptive grids near lines would need fewer points but make the
+Trade-off: the fine grid is uniform with spacing <= a quarter of the narrowest line's Voigt HWHM
+(8x finer than the output here). Adaptive grids near lines would need fewer points but make the
 ILS step a non-uniform transform; one uniform real FFT is simpler and exact.
 """
 from __future__ import annotations
