@@ -175,8 +175,16 @@ def check_folders(config: StationConfig) -> tuple[Path, Path]:
 
 
 def settings_payload(config: StationConfig) -> dict[str, Any]:
-    """The analysis settings as plain data (sent to workers, stored with reprocessed runs)."""
-    return {"species": list(config.species), "checks": dict(config.checks)}
+    """The analysis settings as plain data (sent to workers, stored with reprocessed runs).
+
+    The [checks] table goes through whole as "checks", and each of its keys also on its own,
+    so a threshold named like a `ProcessSettings` field (e.g. threshold_sigma) reaches it;
+    keys the analysis does not know are ignored by the worker.
+    """
+    payload: dict[str, Any] = {key: value for key, value in config.checks.items()}
+    payload["checks"] = dict(config.checks)
+    payload["species"] = list(config.species)
+    return payload
 
 
 TEMPLATE = """\

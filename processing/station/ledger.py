@@ -215,17 +215,19 @@ class _Transaction:
 
 
 def species_in_result(result: dict[str, Any] | None) -> tuple[str, ...]:
-    """Isotopologues the analysis found: labels in bands, constants, then assigned lines."""
+    """Isotopologues the analysis found: its species_found, then labels in bands, constants, lines."""
     if not result:
         return ()
-    found: list[str] = []
+    found: list[str] = [s for s in result.get("species_found") or () if isinstance(s, str) and s]
     for key in ("bands", "constants", "lines"):
         for item in result.get(key) or ():
             if isinstance(item, dict):
+                if isinstance(item.get("assigned"), dict):
+                    item = item["assigned"]
                 label = item.get("isotopologue") or item.get("species")
                 if isinstance(label, str) and label and label not in found:
                     found.append(label)
-    return tuple(found)
+    return tuple(dict.fromkeys(found))
 
 
 def next_version(conn: sqlite3.Connection, path: str) -> int:

@@ -23,6 +23,7 @@ LINE_COLUMNS = (
     "sigma_cm1",
     "height",
     "width_cm1",
+    "calc_cm1",
     "isotopologue",
     "branch",
     "J_lower",
@@ -35,11 +36,12 @@ _LINE_KEYS: dict[str, tuple[str, ...]] = {
     "sigma_cm1": ("position_sigma_cm1", "sigma_cm1", "sigma", "position_sigma"),
     "height": ("height", "peak_height", "absorbance", "depth"),
     "width_cm1": ("fwhm_cm1", "width_cm1", "width", "fwhm"),
+    "calc_cm1": ("calc_cm1", "calc"),
     "isotopologue": ("isotopologue", "species"),
     "branch": ("branch",),
     "J_lower": ("J_lower", "J", "j_lower"),
     "assignment": ("assignment", "label"),
-    "obs_minus_calc_cm1": ("obs_minus_calc_cm1", "obs_minus_calc", "residual_cm1", "o_c", "obs_calc"),
+    "obs_minus_calc_cm1": ("obs_minus_calc_cm1", "obs_minus_calc", "residual_cm1", "residual", "o_c"),
 }
 
 
@@ -71,14 +73,17 @@ def line_rows(result: dict[str, Any]) -> list[dict[str, str]]:
     for line in result.get("lines") or ():
         if not isinstance(line, dict):
             continue
+        assigned = line.get("assigned") if isinstance(line.get("assigned"), dict) else {}
+        merged = {**line, **{key: value for key, value in assigned.items() if key not in ("blended",)}}
         row: dict[str, str] = {}
         for column, keys in _LINE_KEYS.items():
-            found = next((line[key] for key in keys if key in line), None)
+            found = next((merged[key] for key in keys if key in merged), None)
             if column == "sigma_cm1" and found is None and isinstance(line.get("position"), dict):
                 found = line["position"].get("sigma")
             row[column] = _cell(found)
         if not row["assignment"] and row["branch"] and row["J_lower"]:
-            row["assignment"] = f"{row['isotopologue']} {row['branch']}({row['J_lower']})".strip()
+            band = f"{assigned['v_upper']}-{assigned['v_lower']} " if "v_upper" in assigned and "v_lower" in assigned else ""
+            row["assignment"] = f"{row['isotopologue']} {band}{row['branch']}({row['J_lower']})".strip()
         rows.append(row)
     return rows
 

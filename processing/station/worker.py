@@ -37,8 +37,15 @@ def make_settings(payload: dict[str, Any]) -> Any:
     values: dict[str, Any] = {}
     for key, value in payload.items():
         if key in known:
-            values[key] = tuple(value) if isinstance(value, list) else value
+            values[key] = _frozen(value)
     return ProcessSettings(**values)
+
+
+def _frozen(value: Any) -> Any:
+    """JSON lists back to the tuples a frozen settings object holds (nested too)."""
+    if isinstance(value, list):
+        return tuple(_frozen(item) for item in value)
+    return value
 
 
 def _exit_when_orphaned(parent: int) -> None:

@@ -1,0 +1,112 @@
+"""Station configuration: the template reads back, bad values name their key, folder rules."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from processing.errors import ConfigError
+from processing.station.config import (
+    StationConfig,
+    check_folders,
+    config_from_table,
+    default_config_path,
+    default_data_dir,
+    load_config,
+    render_template,
+    settings_payload,
+)
+
+
+def test_template_reads_back_with_the_values_written(tmp_path: Path) -> None:
+    path = tmp_path / "station.toml"
+    path.write_text(render_template(str(tmp_path / "exp"), str(tmp_path / "data"), "ana"), encoding="utf-8")
+    config = load_config(path)
+    assert config.export_folder == tmp_path / "exp"
+    assert config.data_folder == tmp_path / "data"
+    assert config.operator == "ana"
+    # the documented defaults (the template repeats them)
+    assert (config.settle_seconds, config.workers, config.timeout_seconds, config.memory_limit_mb) == (0.5, 2, 60.0, 2048)
+    assert (config.include, config.exclude, config.recursive, config.poll) == (("*",), (), False, False)
+    assert config.checks == {} and config.species == ()
+
+
+@pytest.mark.parametrize(
+    ("line", "key"),
+    [
+        ('workers = "two"', "workers"),
+        ("workers = 0", "workers"),
+        ("settle_seconds = -1", "settle_seconds"),
+        ("recursive = 1", "recursive"),
+        ("include = [1, 2]", "include"),
+        ("memory_limit_mb = 10", "memory_limit_mb"),
+        ("timeout_seconds = 0", "timeout_seconds"),
+        ("colour = true", "colour"),
+        ('checks = "strict"', "checks"),
+        ('export_folder = ""', "export_folder"),
+    ],
+)
+def test_bad_value_is_one_error_naming_the_key(tmp_path: Path, line: str, key: str) -> None:
+    path = tmp_path / "station.toml"
+    path.write_text(line + "\n", encoding="utf-8")
+    with pytest.raises(ConfigError) as caught:
+        load_config(path)
+    message = str(caught.value)
+    assert caught.value.key == key
+    assert message.startswith(f"{path}: {key}: ") and "\n" not in message
+
+
+def test_broken_toml_and_missing_file_are_clear(tmp_path: Path) -> None:
+    path = tmp_path / "station.toml"
+    path.write_text("workers = = 2\n", encoding="utf-8")
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        load_config(path)
+    with pytest.raises(ConfigError, match="no such configuration file"):
+        load_config(tmp_path / "absent.toml")
+
+
+def test_default_locations_follow_the_environment(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("BANDWATCH_CONFIG", str(tmp_path / "mine.toml"))
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "share"))
+    assert default_config_path() == tmp_path / "mine.toml"
+    assert default_data_dir() == tmp_path / "share" / "bandwatch"
+    # an absent default file is not an error: the defaults apply
+    assert load_config().workers == 2
+    monkeypatch.delenv("BANDWATCH_CONFIG")
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path / "cfg"))
+    assert default_config_path() == tmp_path / "cfg" / "bandwatch" / "station.toml"
+
+
+def test_relative_folders_are_relative_to_the_file(tmp_path: Path) -> None:
+    config = config_from_table({"export_folder": "exp", "data_folder": "../d"}, "x.toml", tmp_path / "etc")
+    assert config.export_folder == tmp_path / "etc" / "exp"
+    assert config.data_folder == tmp_path / "etc" / ".." / "d"
+
+
+def test_data_folder_inside_export_folder_is_refused(tmp_path: Path) -> None:
+    export = tmp_path / "export"
+    export.mkdir()
+    for data in (export, export / "bandwatch", export / "a" / "b"):
+        with pytest.raises(ConfigError, match="inside the export folder") as caught:
+            check_folders(StationConfig(export_folder=export, data_folder=data))
+        assert caught.value.key == "data_folder"
+    assert check_folders(StationConfig(export_folder=export, data_folder=tmp_path / "data"))[1] == tmp_path / "data"
+    with pytest.raises(ConfigError, match="not a folder"):
+        check_folders(StationConfig(export_folder=tmp_path / "absent", data_folder=tmp_path / "data"))
+    with pytest.raises(ConfigError, match="no export folder"):
+        check_folders(StationConfig(data_folder=tmp_path / "data"))
+
+
+def test_overrides_are_validated_and_checks_pass_through() -> None:
+    config = StationConfig().with_overrides(workers=3, settle_seconds=None)
+    assert (config.workers, config.settle_seconds) == (3, 0.5)
+    with pytest.raises(ConfigError, match="workers"):
+        StationConfig().with_overrides(workers=0)
+    tuned = config_from_table({"checks": {"threshold_sigma": 4.0, "max_rms_cm1": 0.01}, "species": ["HCl"]})
+    payload = settings_payload(tuned)
+    assert payload["checks"] == {"threshold_sigma": 4.0, "max_rms_cm1": 0.01}
+    assert payload["threshold_sigma"] == 4.0 and payload["species"] == ["HCl"]
+    from processing.station.pool import make_settings
+
+    settings = make_settings(payload)  # fields the analysis has are set, unknown keys ignored
+    assert settings.threshold_sigma == 4.0 and settings.species == ("HCl",)

@@ -1,0 +1,50 @@
+"""The worker pool: a crash, hang, memory blow-up or exception fails one file, never the pool."""
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+from conftest import spectrum_csv, write_file
+
+from processing.station.pool import Job, JobOutcome, WorkerPool, describe_exit
+
+
+def _run_jobs(paths: list[Path], **options: object) -> dict[str, JobOutcome]:
+    outcomes: dict[str, JobOutcome] = {}
+    done = threading.Event()
+
+    def collect(outcome: JobOutcome) -> None:
+        outcomes[Path(outcome.job.path).name] = outcome
+        if len(outcomes) == len(paths):
+            done.set()
+
+    pool = WorkerPool(collect, function_spec="station_hooks:misbehave", **options)  # type: ignore[arg-type]
+    pool.start()
+    try:
+        for index, path in enumerate(paths):
+            pool.submit(Job(index, str(path), {}))
+        assert done.wait(30), f"only {sorted(outcomes)} finished"
+    finally:
+        pool.stop()
+    return outcomes
+
+
+def test_crash_segfault_hang_hog_and_exception_fail_only_their_file(tmp_path: Path) -> None:
+    names = ["good1.csv", "crash.csv", "good2.csv", "segv.csv", "hang.csv", "hog.csv", "raise.csv", "good3.csv"]
+    paths = [write_file(tmp_path / name, spectrum_csv(200)) for name in names]
+    outcomes = _run_jobs(paths, workers=2, timeout_seconds=1.5, memory_limit_mb=768)
+    assert sorted(outcomes) == sorted(names)
+    for name in ("good1.csv", "good2.csv", "good3.csv"):
+        assert not outcomes[name].failed and outcomes[name].result["status"] == "processed"
+    assert outcomes["crash.csv"].reason == "worker process exited with code 3"
+    assert outcomes["segv.csv"].reason == "worker process killed by SIGSEGV"
+    assert outcomes["hang.csv"].reason == "timed out after 1.5 s"
+    assert outcomes["hang.csv"].seconds < 5  # killed at the timeout, not after its 60 s sleep
+    assert outcomes["hog.csv"].reason == "out of memory (worker limit 768 MB)"
+    assert outcomes["raise.csv"].reason == "analysis crashed: RuntimeError: deliberate failure"
+
+
+def test_exit_descriptions() -> None:
+    assert describe_exit(-9) == "worker process killed by SIGKILL (out of memory?)"
+    assert describe_exit(-11) == "worker process killed by SIGSEGV"
+    assert describe_exit(2) == "worker process exited with code 2"
