@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -27,7 +28,7 @@ from processing.simulate import (
     simulate,
     write_spectrum,
 )
-from processing.spectrum import Spectrum
+from processing.spectrum import LineList, Spectrum
 
 LAB = "Saltmarsh Row teaching laboratory (fictional)"
 # Decimal places kept in written y values: far below the noise (sigma >= 1e-4 in T) and it
@@ -42,7 +43,7 @@ class DemoRun:
     name: str
     story: str
     settings: SimulationSettings
-    file_format: str  # jcamp-dif, jcamp-affn, csv, csv-export-quirks, jcamp-peaks
+    file_format: str  # jcamp-dif, jcamp-affn, csv, csv-export-quirks, jcamp-peaks (line list)
     y: str = "absorbance"  # transmittance, absorbance, percent
 
     @property
@@ -70,6 +71,13 @@ def demo_runs() -> tuple[DemoRun, ...]:
             SimulationSettings(hcl_1_0, Cell(10.0), _instrument(2600.0, 3150.0, seed=905),
                                title=f"{LAB}: HCl 10 cm cell, 7.6 torr"),
             "jcamp-dif",
+        ),
+        DemoRun(
+            "0906_hcl_cell_peaks", "Peak table the instrument software picked from the 0905 "
+            "HCl spectrum (maxima above 10 noise sigma, parabola-refined).",
+            SimulationSettings(hcl_1_0, Cell(10.0), _instrument(2600.0, 3150.0, seed=905),
+                               title=f"{LAB}: HCl 10 cm cell, 7.6 torr, peak table"),
+            "jcamp-peaks",
         ),
         DemoRun(
             "0930_dcl_exchanged", "DCl cell that has partly exchanged back to HCl on wet glass: "
@@ -162,15 +170,36 @@ def export_quirks_csv(spectrum: Spectrum, title: str) -> bytes:
     return b"\xef\xbb\xbf" + ("\r\n".join(lines) + "\r\n").encode("utf-8")
 
 
-def truth_sidecar(run: DemoRun, result: SimulationResult) -> str:
-    """The sidecar JSON: the story, the file, and the full truth record."""
+def picked_peaks(result: SimulationResult, noise_multiple: float = 10.0) -> LineList:
+    """An instrument-style peak pick: absorbance maxima above `noise_multiple` x the noise
+    (in absorbance), each refined by a parabola through its top three points; positions to
+    0.001 cm-1 and heights to 0.0001."""
+    from scipy.signal import find_peaks
+
+    spectrum = result.spectrum
+    x, a = spectrum.wavenumber_cm1, spectrum.absorbance
+    sigma = result.truth.noise_sigma_transmittance or 1e-4
+    threshold = noise_multiple * sigma / math.log(10.0)
+    peaks, _ = find_peaks(a, height=threshold)
+    peaks = peaks[(peaks > 0) & (peaks < a.size - 1)]
+    left, top, right = a[peaks - 1], a[peaks], a[peaks + 1]
+    curvature = left - 2.0 * top + right
+    offset = np.where(curvature < 0, 0.5 * (left - right) / np.where(curvature < 0, curvature, -1.0), 0.0)
+    position = np.round(x[peaks] + offset * (x[1] - x[0]), 3)
+    height = np.round(top - 0.25 * (left - right) * offset, 4)
+    meta = replace(spectrum.meta, notes=spectrum.meta.notes + ("peak pick above 10 noise sigma",))
+    return LineList(position, height, "absorbance", meta)
+
+
+def truth_sidecar(run: DemoRun, result: SimulationResult, points: int) -> str:
+    """The sidecar JSON: the story, the file (`points` written), and the full truth record."""
     data = {
         "file": run.filename,
         "lab": LAB,
         "story": run.story,
         "format": run.file_format,
         "y": run.y,
-        "points": result.spectrum.points,
+        "points": points,
         **result.truth.to_dict(),
     }
     return json.dumps(data, indent=1) + "\n"
@@ -182,12 +211,19 @@ def write_run(directory: Path, run: DemoRun) -> list[Path]:
     target = directory / run.filename
     spectrum = _rounded(result.spectrum, run.y)
     rounded_result = replace(result, spectrum=spectrum)
+    points = spectrum.points
     if run.file_format == "csv-export-quirks":
         target.write_bytes(export_quirks_csv(spectrum, run.settings.title))
+    elif run.file_format == "jcamp-peaks":
+        from processing.readers.jcamp_write import write_peak_table
+
+        peaks = picked_peaks(result)
+        points = peaks.points
+        write_peak_table(str(target), peaks, title=run.settings.title)
     else:
         write_spectrum(str(target), rounded_result, run.file_format, run.y)
     sidecar = directory / f"{run.name}.truth.json"
-    sidecar.write_text(truth_sidecar(run, result), encoding="utf-8")
+    sidecar.write_text(truth_sidecar(run, result, points), encoding="utf-8")
     return [target, sidecar]
 
 

@@ -492,8 +492,6 @@ def write_spectrum(path: str, result: SimulationResult, file_format: str, y: str
 
         write_csv(path, spectrum, y_kind=y_kind)
         return
-    try:
-        from processing.readers.jcamp import write_jcamp
-    except ImportError:
-        raise ValueError("the JCAMP-DX writer is not available in this build") from None
-    write_jcamp(path, spectrum, form="dif" if file_format == "jcamp-dif" else "affn")
+    from processing.readers.jcamp_write import write_jcamp
+
+    write_jcamp(path, spectrum, form="dif" if file_format == "jcamp-dif" else "affn", y_kind=y_kind)
