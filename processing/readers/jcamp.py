@@ -1,0 +1,590 @@
+"""JCAMP-DX 4.24 / 5.01 reader (IUPAC open standard): infrared spectra and peak tables.
+
+Reads `##XYDATA=(X++(Y..Y))` in AFFN and every ASDF form (SQZ, DIF, DUP, mixed), with the
+DIF Y-check verified; `##XYPOINTS=(XY..XY)` as a spectrum; `##PEAK TABLE=(XY..XY)` as a
+`LineList`. The data lines are decoded by vectorised numpy code (`jcamp_asdf`). Header values
+(FIRSTX, LASTX, DELTAX, NPOINTS, FIRSTY) are cross-checked against the decoded data; a
+mismatch that makes the data wrong is a `SpectrumFileError`, one that does not is a note.
+The writers live beside this module in `jcamp_write`.
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from processing.errors import SpectrumFileError
+from processing.readers.jcamp_asdf import DecodedOrdinates, DecodeError, decode_xydata, parse_pairs
+from processing.spectrum import FileMetadata, LineList, Spectrum
+
+FORMAT_NAME = "JCAMP-DX"
+EXTENSIONS: tuple[str, ...] = (".jdx", ".dx", ".jcamp", ".jcm")
+
+MAX_POINTS = 100_000_000  # NPOINTS beyond this is refused as absurd
+DATA_LABELS = ("XYDATA", "XYPOINTS", "PEAKTABLE", "DATATABLE", "NTUPLES")
+NOT_INFRARED = ("NMR", "MASS", "UV", "RAMAN", "CHROMATOGRAM")
+# A transmittance file whose values go above this holds percent (0-100), not a fraction (0-1):
+# fractions exceed 1 only by noise of a few percent (common practice).
+PERCENT_THRESHOLD = 1.5
+
+_IDENTIFY = re.compile(rb"(?im)^[ \t]*##[ \t]*(?:TITLE|JCAMP[-_ ]?DX)[ \t]*=")
+_LABEL_DROP = str.maketrans("", "", " -/_\t")
+_HEADER_NUMBER = re.compile(r"[+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][+-]?\d+)?")
+_COMMENT = re.compile(rb"\$\$[^\n]*")
+
+
+def identify(head: bytes) -> bool:
+    """True when the first bytes hold a `##TITLE=` or `##JCAMP-DX=` labelled record."""
+    return _IDENTIFY.search(head[:4096]) is not None
+
+
+def normalise_label(label: str) -> str:
+    """Label as the standard compares them: no spaces, dashes, slashes, underscores; upper case."""
+    return label.translate(_LABEL_DROP).upper()
+
+
+@dataclass
+class _Record:
+    label: str  # normalised
+    raw_label: str
+    value: str
+    line: int  # 1-based line of the `##`
+    data: bytes = b""  # data lines of a data record (comments removed)
+    data_line: int = 0  # 1-based line of the first data line
+
+
+@dataclass
+class _Block:
+    title: str
+    line: int
+    records: list[_Record] = field(default_factory=list)
+    closed: bool = False
+
+    def values(self, label: str) -> list[_Record]:
+        return [record for record in self.records if record.label == label]
+
+    def text(self, label: str) -> str | None:
+        found = self.values(label)
+        return found[0].value if found else None
+
+    def data_record(self) -> _Record | None:
+        for label in ("XYDATA", "XYPOINTS", "PEAKTABLE"):
+            found = self.values(label)
+            if found:
+                return found[0]
+        return None
+
+
+def _decode_text(raw: bytes) -> str:
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError:
+        return raw.decode("latin-1")
+
+
+def _record_starts(data: bytes) -> list[int]:
+    """Byte offsets of every `##` that begins a line (after optional blanks)."""
+    starts: list[int] = []
+    position = data.find(b"##")
+    while position != -1:
+        line_start = data.rfind(b"\n", 0, position) + 1
+        if not data[line_start:position].strip(b" \t"):
+            starts.append(position)
+            newline = data.find(b"\n", position)
+            if newline == -1:
+                break
+            position = data.find(b"##", newline)
+        else:
+            position = data.find(b"##", position + 2)
+    return starts
+
+
+def _split_records(data: bytes, source: str, notes: list[str]) -> list[_Record]:
+    starts = _record_starts(data)
+    if not starts:
+        raise SpectrumFileError(source, "no JCAMP-DX labelled records (##LABEL=value lines)")
+    records: list[_Record] = []
+    line = 1 + data.count(b"\n", 0, starts[0])
+    bounds = starts + [len(data)]
+    for index, start in enumerate(starts):
+        end = bounds[index + 1]
+        chunk = data[start:end]
+        newline = chunk.find(b"\n")
+        first = chunk if newline == -1 else chunk[:newline]
+        rest = b"" if newline == -1 else chunk[newline + 1 :]
+        equals = first.find(b"=")
+        if equals == -1:
+            notes.append(f"line {line}: {first[:40].decode('latin-1')!r} has no '='; ignored")
+        else:
+            raw_label = _decode_text(first[2:equals]).strip()
+            label = normalise_label(raw_label)
+            head_value = _COMMENT.sub(b"", first[equals + 1 :])
+            if label in DATA_LABELS:
+                if b"$$" in rest:
+                    rest = _COMMENT.sub(b"", rest)
+                record = _Record(label, raw_label, _decode_text(head_value).strip(), line, rest, line + 1)
+            else:
+                text = head_value + (b"\n" + _COMMENT.sub(b"", rest) if rest.strip() else b"")
+                record = _Record(label, raw_label, _decode_text(text).strip(), line)
+            records.append(record)
+        line += chunk.count(b"\n")
+    return records
+
+
+def _blocks(records: list[_Record], source: str, notes: list[str], last_line: int) -> list[_Block]:
+    """Group records into blocks: `##TITLE=` opens one (nested in a link block), `##END=` closes."""
+    blocks: list[_Block] = []
+    stack: list[_Block] = []
+    for record in records:
+        if record.label == "TITLE":
+            block = _Block(record.value.splitlines()[0].strip() if record.value else "", record.line)
+            block.records.append(record)
+            blocks.append(block)
+            stack.append(block)
+        elif record.label == "END":
+            if stack:
+                stack.pop().closed = True
+            else:
+                notes.append(f"line {record.line}: ##END= with no open block; ignored")
+        else:
+            if not stack:
+                block = _Block("", record.line)
+                blocks.append(block)
+                stack.append(block)
+                notes.append(f"line {record.line}: records before any ##TITLE=")
+            stack[-1].records.append(record)
+    if stack:
+        open_block = stack[-1]
+        raise SpectrumFileError(
+            source,
+            f"truncated: block {open_block.title!r} (from line {open_block.line}) has no ##END=",
+            last_line,
+        )
+    return blocks
+
+
+def _choose_block(blocks: list[_Block], source: str, notes: list[str]) -> _Block:
+    """The infrared spectrum block; a peak table only when there is no spectrum."""
+    candidates: list[tuple[int, int, _Block]] = []
+    skipped: list[str] = []
+    for number, block in enumerate(blocks, start=1):
+        record = block.data_record()
+        if record is None:
+            continue
+        data_type = (block.text("DATATYPE") or "").upper()
+        if any(word in data_type for word in NOT_INFRARED):
+            skipped.append(data_type)
+            continue
+        if record.label == "PEAKTABLE":
+            score = 1
+        elif "INFRARED" in data_type or re.search(r"\bIR\b", data_type):
+            score = 3
+        else:
+            score = 2
+        candidates.append((score, -number, block))
+    if not candidates:
+        if skipped:
+            raise SpectrumFileError(source, f"no infrared data (data types: {', '.join(skipped)})")
+        other = [r.label for b in blocks for r in b.records if r.label in ("DATATABLE", "NTUPLES")]
+        if other:
+            raise SpectrumFileError(source, f"##{other[0]}= data are not read; need XYDATA, XYPOINTS or PEAK TABLE")
+        raise SpectrumFileError(source, "no ##XYDATA=, ##XYPOINTS= or ##PEAK TABLE= record")
+    score, minus_number, chosen = max(candidates, key=lambda item: (item[0], item[1]))
+    data_blocks = sum(1 for b in blocks if b.data_record() is not None)
+    if data_blocks > 1:
+        data_type = chosen.text("DATATYPE") or "no DATA TYPE"
+        notes.append(
+            f"multi-block file: read block {-minus_number} of {len(blocks)} "
+            f"({chosen.title!r}, {data_type}); {data_blocks - 1} other data block(s) ignored"
+        )
+    return chosen
+
+
+class _Header:
+    """Numbers from a block's records; decimal commas allowed; bad values name their line."""
+
+    def __init__(self, block: _Block, source: str, notes: list[str]) -> None:
+        self.block = block
+        self.source = source
+        self.notes = notes
+
+    def number(self, label: str) -> float | None:
+        found = self.block.values(label)
+        if not found:
+            return None
+        values = [self._parse(record) for record in found]
+        if len(set(values)) > 1:
+            self.notes.append(f"##{label}= given {len(values)} times ({', '.join(f'{v:g}' for v in values)}); first used")
+        return values[0]
+
+    def all_numbers(self, label: str) -> list[float]:
+        return [self._parse(record) for record in self.block.values(label)]
+
+    def _parse(self, record: _Record) -> float:
+        text = record.value.strip().split("\n")[0].strip()
+        match = _HEADER_NUMBER.match(text)
+        if match is None:
+            raise SpectrumFileError(self.source, f"##{record.raw_label}= {text[:30]!r} is not a number", record.line)
+        literal = match.group()
+        if "," in literal:
+            literal = literal.replace(",", ".")
+        value = float(literal)
+        if not np.isfinite(value):
+            raise SpectrumFileError(self.source, f"##{record.raw_label}= is not finite", record.line)
+        return value
+
+
+def _rounding_unit(values: np.ndarray) -> float:
+    """The coarsest decimal step all values sit on (1, 0.1, ...): how they were rounded."""
+    scale = np.max(np.abs(values)) if values.size else 0.0
+    for decimals in range(0, 10):
+        scaled = values * 10.0**decimals
+        if np.all(np.abs(scaled - np.rint(scaled)) <= 1e-6 + 1e-12 * scale * 10.0**decimals):
+            return 10.0**-decimals
+    return 0.0
+
+
+def _x_axis(
+    decoded: DecodedOrdinates,
+    header: _Header,
+    xfactor: float,
+    source: str,
+    data_line: int,
+    notes: list[str],
+) -> np.ndarray:
+    """Place the points from FIRSTX/LASTX (or DELTAX); line-start X and NPOINTS only check."""
+    n = decoded.y.size
+    first_x = header.number("FIRSTX")
+    last_x = header.number("LASTX")
+    delta_x = header.number("DELTAX")
+    stated_counts = header.all_numbers("NPOINTS")
+    for stated in stated_counts:
+        if stated != int(stated) or stated < 1 or stated > MAX_POINTS:
+            record = header.block.values("NPOINTS")[0]
+            raise SpectrumFileError(source, f"##NPOINTS={stated:g} is not a plausible point count", record.line)
+    line_x = decoded.line_x * xfactor
+    index = decoded.line_index
+    line_numbers = decoded.line_number + data_line
+    span = index[-1] - index[0]
+    line_spacing = (line_x[-1] - line_x[0]) / span if span > 0 else None
+    if first_x is None:
+        first_x = float(line_x[0] - index[0] * (line_spacing or 0.0))
+        notes.append("no ##FIRSTX=; the first line's X is used")
+    if last_x is not None:
+        if last_x == first_x:
+            raise SpectrumFileError(source, "##FIRSTX= equals ##LASTX=", header.block.values("LASTX")[0].line)
+        spacing = (last_x - first_x) / (n - 1)
+        basis = "FIRSTX/LASTX"
+    elif delta_x is not None and delta_x != 0:
+        spacing = delta_x
+        basis = "FIRSTX/DELTAX"
+    elif line_spacing:
+        spacing = line_spacing
+        basis = "line-start X values"
+        notes.append("no ##LASTX= or ##DELTAX=; point spacing taken from the line-start X values")
+    else:
+        raise SpectrumFileError(source, "cannot place the X values: no ##LASTX=, ##DELTAX= or second data line", data_line)
+    if delta_x is None and basis == "FIRSTX/LASTX":
+        notes.append(f"no ##DELTAX=; spacing {spacing:.10g} derived from FIRSTX, LASTX and the point count")
+    elif delta_x is not None and basis == "FIRSTX/LASTX":
+        if abs(delta_x - spacing) > 1e-3 * abs(spacing):
+            notes.append(f"##DELTAX={delta_x:g} disagrees with (LASTX-FIRSTX)/(n-1) = {spacing:.10g}; FIRSTX/LASTX used")
+
+    unit = _rounding_unit(decoded.line_x) * abs(xfactor)
+    magnitude = float(np.max(np.abs(line_x))) if line_x.size else 0.0
+    tolerance = unit + 1e-9 * magnitude + 1e-6 * abs(spacing)  # one printed digit, rounded or cut
+
+    # Local check: the X step between consecutive lines must match the points between them.
+    step_spacing = delta_x if delta_x else spacing
+    if line_x.size >= 2 and 2.0 * tolerance < 0.5 * abs(step_spacing):
+        implied = np.diff(line_x) / step_spacing
+        held = np.diff(index)
+        wrong = np.flatnonzero(np.abs(implied - held) > 0.5)
+        if wrong.size:
+            k = int(wrong[0])
+            raise SpectrumFileError(
+                source,
+                f"line-start X steps by {implied[k]:.2f} points since the previous line, which holds "
+                f"{held[k]}: points are missing or extra",
+                int(line_numbers[k + 1]),
+            )
+
+    stated = [int(s) for s in stated_counts]
+    if stated and n not in stated:
+        predicted_last = line_x[-1] + (n - 1 - index[-1]) * step_spacing
+        reaches_last = last_x is not None and abs(predicted_last - last_x) <= tolerance + 0.5 * abs(step_spacing)
+        if reaches_last and line_x.size >= 2:
+            notes.append(f"##NPOINTS={stated[0]} but the data hold {n} points ending at LASTX; the data are used")
+        elif n < stated[0]:
+            raise SpectrumFileError(source, f"truncated: {n} points decoded, ##NPOINTS={stated[0]}", int(line_numbers[-1]))
+        else:
+            raise SpectrumFileError(source, f"{n} points decoded, ##NPOINTS={stated[0]}", int(line_numbers[-1]))
+    elif not stated:
+        notes.append(f"no ##NPOINTS=; {n} points decoded")
+    elif len(set(stated)) > 1:
+        notes.append(f"##NPOINTS= given as {', '.join(map(str, stated))}; {n} points decoded")
+
+    if basis == "FIRSTX/LASTX":
+        x = first_x + (last_x - first_x) * (np.arange(n, dtype=np.float64) / (n - 1))
+        x[-1] = last_x
+    else:
+        x = first_x + spacing * np.arange(n, dtype=np.float64)
+
+    residual = line_x - x[index]
+    off = np.abs(residual) > tolerance
+    if off.any():
+        raw_residual = decoded.line_x - x[index]
+        if xfactor != 1.0 and np.all(np.abs(raw_residual) <= tolerance / abs(xfactor) + unit):
+            notes.append("line-start X values are in x units, not XFACTOR units")
+        else:
+            worst = int(np.argmax(np.abs(residual)))
+            if abs(residual[worst]) > tolerance + 0.5 * abs(spacing):
+                raise SpectrumFileError(
+                    source,
+                    f"line starts at X={line_x[worst]:.10g} but {basis} put its point at "
+                    f"{x[index[worst]]:.10g} ({residual[worst] / spacing:+.1f} point spacings)",
+                    int(line_numbers[worst]),
+                )
+            notes.append(
+                f"line-start X values differ from the {basis} placement by up to "
+                f"{abs(residual[worst]):.3g} (less than half a point spacing)"
+            )
+    return x
+
+
+_X_UNITS = {
+    "1/CM": "cm1", "CM1": "cm1", "CM^1": "cm1", "1/CM1": "cm1", "WAVENUMBERS": "cm1", "WAVENUMBER": "cm1",
+    "MICROMETERS": "um", "MICROMETER": "um", "MICRONS": "um", "MICRON": "um", "UM": "um", "µM": "um",
+    "NANOMETERS": "nm", "NANOMETER": "nm", "NM": "nm",
+}
+
+
+def _to_wavenumber(x: np.ndarray, block: _Block, source: str, notes: list[str]) -> np.ndarray:
+    raw = block.text("XUNITS")
+    if raw is None:
+        raise SpectrumFileError(source, "no ##XUNITS=; cannot tell wavenumber from wavelength")
+    key = raw.upper().replace(" ", "").replace("-", "")
+    unit = _X_UNITS.get(key) or _X_UNITS.get(raw.upper().replace(" ", ""))
+    line = block.values("XUNITS")[0].line
+    if unit is None:
+        raise SpectrumFileError(source, f"##XUNITS={raw} not read (need 1/CM or MICROMETERS)", line)
+    if unit == "cm1":
+        return x
+    if np.any(x <= 0):
+        raise SpectrumFileError(source, f"wavelength values must be positive under ##XUNITS={raw}", line)
+    factor = 1e4 if unit == "um" else 1e7
+    notes.append(f"x converted from {'micrometers' if unit == 'um' else 'nanometers'}: cm-1 = {factor:g} / x")
+    return factor / x
+
+
+def _y_kind(y: np.ndarray, block: _Block, source: str, notes: list[str], peaks: bool) -> str:
+    raw = block.text("YUNITS")
+    if raw is None:
+        if peaks:
+            return "unknown"
+        raise SpectrumFileError(source, "no ##YUNITS=; cannot tell absorbance from transmittance")
+    key = raw.upper().replace(" ", "")
+    if key in ("ABSORBANCE", "ABS", "A"):
+        return "absorbance"
+    if key in ("%T", "%TRANSMITTANCE", "PERCENTTRANSMITTANCE", "TRANSMITTANCE(%)", "TRANSMITTANCE%", "%TRANSMISSION"):
+        return "percent_transmittance"
+    if key in ("TRANSMITTANCE", "TRANSMISSION", "T"):
+        if y.size and float(np.max(y)) > PERCENT_THRESHOLD:
+            notes.append(
+                f"##YUNITS={raw} but values reach {float(np.max(y)):.4g}: read as percent transmittance"
+            )
+            return "percent_transmittance"
+        return "transmittance"
+    if peaks:
+        return "unknown"
+    raise SpectrumFileError(source, f"##YUNITS={raw} not read (need ABSORBANCE or TRANSMITTANCE)", block.values("YUNITS")[0].line)
+
+
+_LONG_DATE = re.compile(r"(\d{4})[/.-](\d{1,2})[/.-](\d{1,2})(?:[ T,]+(\d{1,2}):(\d{2})(?::(\d{2}(?:\.\d+)?))?)?")
+_TIME = re.compile(r"(\d{1,2}):(\d{2})(?::(\d{2}))?")
+
+
+def _acquired(block: _Block) -> str | None:
+    """ISO date/time from ##LONGDATE or ##DATE/##TIME; the raw text when it cannot be parsed."""
+    long_date = block.text("LONGDATE")
+    date = block.text("DATE")
+    time = block.text("TIME")
+    text = long_date or " ".join(part for part in (date, time) if part)
+    if not text:
+        return None
+    match = _LONG_DATE.search(text)
+    if match is None:
+        return text.strip()
+    year, month, day, hour, minute, second = match.groups()
+    if not (1 <= int(month) <= 12 and 1 <= int(day) <= 31):
+        return text.strip()
+    iso = f"{int(year):04d}-{int(month):02d}-{int(day):02d}"
+    if hour is None and time:
+        found = _TIME.search(time)
+        if found:
+            hour, minute, second = found.groups()
+    if hour is not None:
+        iso += f"T{int(hour):02d}:{minute}" + (f":{second}" if second else "")
+    return iso
+
+
+def _metadata(block: _Block, record_name: str, forms: str, notes: list[str], source: str) -> FileMetadata:
+    version = (block.text("JCAMPDX") or "").split()
+    resolution = None
+    resolution_records = block.values("RESOLUTION")
+    if resolution_records:
+        match = _HEADER_NUMBER.search(resolution_records[0].value)
+        if match:
+            resolution = float(match.group().replace(",", "."))
+            if not np.isfinite(resolution) or resolution <= 0:
+                notes.append(f"##RESOLUTION={resolution_records[0].value} ignored")
+                resolution = None
+    apodization = next((r.value for r in block.records if "APOD" in r.label and r.value), None)
+    format_name = " ".join(part for part in ("JCAMP-DX", version[0] if version else "", record_name, forms) if part)
+    header = tuple((r.raw_label, r.value) for r in block.records if r.label not in DATA_LABELS) + tuple(
+        (r.raw_label, r.value) for r in block.records if r.label in DATA_LABELS
+    )
+    return FileMetadata(
+        title=block.title,
+        acquired=_acquired(block),
+        resolution_cm1=resolution,
+        apodization=apodization,
+        source_path=source,
+        format=format_name,
+        header=header,
+        notes=tuple(notes),
+    )
+
+
+def _factor(header: _Header, label: str, source: str) -> float:
+    value = header.number(label)
+    if value is None:
+        return 1.0
+    if value == 0:
+        raise SpectrumFileError(source, f"##{label}=0 would make every value zero", header.block.values(label)[0].line)
+    return value
+
+
+def _read_xydata(block: _Block, record: _Record, source: str, notes: list[str], size: int) -> Spectrum:
+    variables = re.sub(r"\s", "", record.value).upper()
+    if variables == "(X++(Y..Y)":
+        notes.append("##XYDATA= variable list lacks its closing ')'")
+    elif variables != "(X++(Y..Y))":
+        raise SpectrumFileError(source, f"##XYDATA={record.value} not read (only (X++(Y..Y)))", record.line)
+    header = _Header(block, source, notes)
+    xfactor = _factor(header, "XFACTOR", source)
+    yfactor = _factor(header, "YFACTOR", source)
+    stated = header.all_numbers("NPOINTS")
+    plausible = [int(s) for s in stated if s == int(s) and 1 <= s <= MAX_POINTS]
+    if stated and not plausible:
+        raise SpectrumFileError(source, f"##NPOINTS={stated[0]:g} is not a plausible point count", block.values("NPOINTS")[0].line)
+    limit = min(MAX_POINTS, 2 * max(plausible) + 100) if plausible else min(MAX_POINTS, 50 * size + 1000)
+    try:
+        decoded = decode_xydata(record.data, limit)
+    except DecodeError as error:
+        raise SpectrumFileError(source, error.problem, record.data_line + error.line) from None
+    if decoded.y.size < 2:
+        raise SpectrumFileError(source, f"only {decoded.y.size} point in ##XYDATA=; a spectrum needs 2 or more", record.line)
+    y = decoded.y * yfactor
+    x = _x_axis(decoded, header, xfactor, source, record.data_line, notes)
+    first_y = header.number("FIRSTY")
+    if first_y is not None:
+        # FIRSTY is often printed with few digits: allow 1e-3 relative or one YFACTOR step.
+        allowed = 1e-3 * abs(first_y) + abs(yfactor) + 1e-9 * float(np.max(np.abs(y)))
+        if abs(y[0] - first_y) > allowed:
+            notes.append(f"##FIRSTY={first_y:g} but the first decoded Y is {y[0]:.8g}; FIRSTY ignored")
+    if decoded.checks:
+        notes.append(f"{decoded.checks} DIF Y-check values verified and dropped")
+    forms = " ".join(f for f in ("DIF", "SQZ", "DUP", "AFFN") if f in decoded.forms and not (f == "SQZ" and "DIF" in decoded.forms))
+    return _spectrum(x, y, block, source, notes, "XYDATA", forms)
+
+
+def _spectrum(x: np.ndarray, y: np.ndarray, block: _Block, source: str, notes: list[str], record: str, forms: str) -> Spectrum:
+    x = _to_wavenumber(x, block, source, notes)
+    kind = _y_kind(y, block, source, notes, peaks=False)
+    meta = _metadata(block, record, forms, notes, source)
+    try:
+        return Spectrum.from_y(x, y, kind, meta)
+    except ValueError as error:
+        raise SpectrumFileError(source, str(error)) from None
+
+
+def _read_table(block: _Block, record: _Record, source: str, notes: list[str]) -> Spectrum | LineList:
+    variables = re.sub(r"\s", "", record.value).upper().rstrip(")").lstrip("(")
+    groups = {"XY..XY": 2, "XYW..XYW": 3, "XYM..XYM": 3}
+    if variables not in groups:
+        raise SpectrumFileError(source, f"##{record.raw_label}={record.value} not read (need (XY..XY))", record.line)
+    header = _Header(block, source, notes)
+    xfactor = _factor(header, "XFACTOR", source)
+    yfactor = _factor(header, "YFACTOR", source)
+    try:
+        rows, lines = parse_pairs(record.data, groups[variables])
+    except DecodeError as error:
+        raise SpectrumFileError(source, error.problem, record.data_line + error.line) from None
+    x = rows[:, 0] * xfactor
+    y = rows[:, 1] * yfactor
+    stated = header.all_numbers("NPOINTS")
+    if stated and int(stated[0]) != x.size:
+        if stated[0] < 1 or stated[0] > MAX_POINTS:
+            raise SpectrumFileError(source, f"##NPOINTS={stated[0]:g} is not a plausible point count", block.values("NPOINTS")[0].line)
+        last_x = header.number("LASTX")
+        if last_x is not None and x.size and abs(x[-1] - last_x) <= 1e-6 * max(1.0, abs(last_x)):
+            notes.append(f"##NPOINTS={stated[0]:g} but {x.size} points end at LASTX; the data are used")
+        else:
+            where = record.data_line + int(lines[-1]) if lines.size else record.line
+            raise SpectrumFileError(source, f"{x.size} points read, ##NPOINTS={stated[0]:g}", where)
+    if record.label == "PEAKTABLE":
+        if x.size == 0:
+            raise SpectrumFileError(source, "empty ##PEAK TABLE=", record.line)
+        x = _to_wavenumber(x, block, source, notes)
+        kind = _y_kind(y, block, source, notes, peaks=True)
+        if kind == "percent_transmittance":
+            kind = "percent_transmittance"
+        meta = _metadata(block, "PEAK TABLE", "AFFN", notes, source)
+        try:
+            return LineList(x, y, kind, meta)
+        except ValueError as error:
+            raise SpectrumFileError(source, str(error)) from None
+    if x.size < 2:
+        raise SpectrumFileError(source, f"only {x.size} point in ##XYPOINTS=; a spectrum needs 2 or more", record.line)
+    return _spectrum(x, y, block, source, notes, "XYPOINTS", "AFFN")
+
+
+def _prepare(data: bytes, source: str) -> bytes:
+    if data.startswith(b"\xef\xbb\xbf"):
+        data = data[3:]
+    if not data.strip():
+        raise SpectrumFileError(source, "file is empty")
+    if b"\x00" in data:
+        raise SpectrumFileError(source, "binary data (NUL bytes), not a JCAMP-DX text file")
+    if b"\r" in data:
+        data = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
+    return data
+
+
+def parse(data: bytes, source: str) -> Spectrum | LineList:
+    """Read JCAMP-DX bytes; every problem is a `SpectrumFileError` naming `source` and line."""
+    try:
+        with np.errstate(all="ignore"):
+            return _parse(data, source)
+    except SpectrumFileError:
+        raise
+    except (ValueError, ArithmeticError, IndexError, MemoryError, RecursionError) as error:
+        # Safety net so no other exception type escapes; the text marks it as a reader fault.
+        raise SpectrumFileError(source, f"reader fault ({type(error).__name__}: {error})") from error
+
+
+def _parse(data: bytes, source: str) -> Spectrum | LineList:
+    data = _prepare(data, source)
+    notes: list[str] = []
+    records = _split_records(data, source, notes)
+    last_line = data.count(b"\n") + (0 if data.endswith(b"\n") else 1)
+    blocks = _blocks(records, source, notes, last_line)
+    block = _choose_block(blocks, source, notes)
+    record = block.data_record()
+    if record is None:  # _choose_block only returns blocks with data
+        raise SpectrumFileError(source, "no data record")
+    if record.label == "XYDATA":
+        return _read_xydata(block, record, source, notes, len(data))
+    return _read_table(block, record, source, notes)
