@@ -88,6 +88,7 @@ class Station:
         self.pool: WorkerPool | None = None
         self.observer_kind = ""
         self._idle_ticks = 0
+        self._ticks = 0
         self._started = False
 
     # ---------------------------------------------------------------- lifecycle
@@ -148,13 +149,18 @@ class Station:
         """Nothing pending, settling or running (as of the last two loop ticks)."""
         return self._idle_ticks >= 2
 
-    def wait_idle(self, timeout: float = 30.0) -> bool:
-        """Block until idle or `timeout` seconds; True when idle."""
+    def wait_idle(self, timeout: float = 30.0, quiet_ticks: int = 3) -> bool:
+        """Block until idle for `quiet_ticks` loop ticks after this call; True when idle.
+
+        Counting ticks after the call keeps a change made just before it (whose event may
+        still be on its way) from being missed.
+        """
         deadline = time.monotonic() + timeout
+        first_tick = self._ticks
         while time.monotonic() < deadline:
-            if self.idle:
+            if self._idle_ticks >= quiet_ticks and self._ticks - first_tick >= quiet_ticks:
                 return True
-            time.sleep(self.tick_seconds)
+            time.sleep(self.tick_seconds / 2)
         return self.idle
 
     # ---------------------------------------------------------------- plumbing
@@ -217,6 +223,7 @@ class Station:
             with self._lock:
                 quiet = not busy and not self.settler.pending and not self._inflight
             self._idle_ticks = self._idle_ticks + 1 if quiet else 0
+            self._ticks += 1
 
     def _catch_up(self) -> None:
         """Queue every file in the folder; those the ledger holds unchanged are skipped later."""

@@ -25,8 +25,8 @@ def misbehave(path: str, settings: ProcessSettings) -> RunResult:
         time.sleep(60)
     if "hog" in name:
         hoard: list[Any] = []
-        for _ in range(64):  # 64 x 128 MB = 8 GB, far over the test's limit
-            hoard.append(bytearray(128 * 1024 * 1024))
+        for _ in range(16):  # 16 x 512 MB = 8 GB, far over the test's limit
+            hoard.append(bytearray(512 * 1024 * 1024))
     if "raise" in name:
         raise RuntimeError("deliberate failure")
     return process_file(path, settings)
