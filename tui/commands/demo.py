@@ -106,11 +106,9 @@ def _run_plain(config: object, replay: object, count: int, once: bool, exit_afte
     replay.start()  # type: ignore[attr-defined]
     deadline = time.monotonic() + exit_after if exit_after is not None else None
     try:
-        while True:
-            if once and countdown.done.wait(0.1):
+        while not countdown.done.wait(0.1):
+            if once and _all_handled(replay, station):
                 break
-            if not once:
-                time.sleep(0.1)
             if deadline is not None and time.monotonic() >= deadline:
                 break
     except KeyboardInterrupt:
@@ -131,6 +129,7 @@ def _run_interface(
     from tui.app import BandwatchApp
 
     countdown = _Countdown(count)
+    stations: list[Station] = []
 
     def make_station(on_event: object) -> Station:
         def forward(event: object) -> None:
@@ -138,6 +137,7 @@ def _run_interface(
             countdown.see(event)
 
         station = Station(config, on_event=forward)  # type: ignore[arg-type]
+        stations.append(station)
         replay.start()  # type: ignore[attr-defined]
         return station
 
@@ -150,16 +150,26 @@ def _run_interface(
     )
     if once:
         # A separate thread, so the station's threads never wait on the interface's loop.
-        threading.Thread(target=_exit_when_done, args=(app, countdown.done), daemon=True).start()
+        threading.Thread(target=_exit_when_done, args=(app, countdown, replay, stations), daemon=True).start()
     app.run()
     if once and not countdown.done.is_set():
         return 1
     return 0
 
 
-def _exit_when_done(app: object, done: threading.Event) -> None:
-    """Leave the interface shortly after the last sample run was recorded (--once)."""
-    done.wait()
+def _all_handled(replay: object, station: object) -> bool:
+    """The instrument wrote everything and the station has nothing left pending or running."""
+    if not (replay.finished and station.wait_idle(timeout=2.0)):  # type: ignore[attr-defined]
+        return False
+    time.sleep(1.5)  # past the settle time and a rescan: a last file would show up by now
+    return bool(station.idle)  # type: ignore[attr-defined]
+
+
+def _exit_when_done(app: object, countdown: _Countdown, replay: object, stations: list[object]) -> None:
+    """Leave the interface shortly after the last sample run was handled (--once)."""
+    while not countdown.done.wait(0.2):
+        if stations and _all_handled(replay, stations[0]):
+            break
     time.sleep(1.5)  # let the run list show the last run
     try:
         app.call_from_thread(app.exit, 0)  # type: ignore[attr-defined]
