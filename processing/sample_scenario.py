@@ -95,10 +95,11 @@ def demo_runs() -> tuple[DemoRun, ...]:
             "csv",
         ),
         DemoRun(
-            "1040_hcl_saturated", "HCl cell filled to half an atmosphere: the strong lines are "
-            "black at their centres (flat tops, H35Cl/H37Cl peak ratio far below 3).",
+            "1040_hcl_saturated", "HCl cell filled to half an atmosphere: the strong lines go "
+            "black (transmittance at the noise floor over several points: flat, noisy tops in "
+            "absorbance; H35Cl/H37Cl peak ratio far below 3).",
             SimulationSettings((SampleGas("HCl", 0.5),), Cell(10.0),
-                               _instrument(2600.0, 3150.0, resolution_cm1=1.0, seed=1040),
+                               _instrument(2600.0, 3150.0, seed=1040),
                                title=f"{LAB}: HCl 10 cm cell, 380 torr"),
             "jcamp-dif", "transmittance",
         ),

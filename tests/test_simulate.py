@@ -158,16 +158,14 @@ def test_weak_line_integrated_absorbance_equals_s_n_l() -> None:
     # R(3) of H35Cl near 2963.3 cm-1 (handbook position, see below); neighbours >= 2 cm-1 away.
     index = int(np.argmin(np.abs(truth.position_cm1 - 2963.29)))
     assert truth.source[index] == "H35Cl"
-    # N from the ideal gas law with scipy.constants; 75.76 % of the HCl is H35Cl (as simulated).
-    pressure = 1e-6 * truth.column_density_per_cm2[index] / (
-        number_density_per_cm3(1e-6, 296.0) * 10.0)
-    n = pressure * constants.atm / (constants.k * 296.0) * 1e-6
+    # N from the ideal gas law with scipy.constants; 75.76 % of natural HCl is H35Cl (IUPAC).
+    n = 1e-6 * 0.7576 * constants.atm / (constants.k * 296.0) * 1e-6
     expected = truth.strength_cm_per_molecule[index] * n * 10.0
     x = result.spectrum.wavenumber_cm1
     window = np.abs(x - truth.position_cm1[index]) < 1.0  # H37Cl partner is 2.1 cm-1 below
     integrated = float(np.sum(np.log(10) * result.spectrum.absorbance[window]) * (x[1] - x[0]))
     # 1 %: peak optical depth << 1 so -ln T ~ 1 - T; Happ-Genzel sidelobes beyond +-1 cm-1 hold
-    # < 0.5 % of the area.
+    # < 0.5 % of the area; the library's 35Cl share equals the IUPAC 0.7576 to < 1e-4.
     assert integrated == pytest.approx(expected, rel=0.01)
 
 
@@ -336,3 +334,34 @@ def test_simulate_command_rejects_bad_options_with_one_clear_line(tmp_path, caps
     assert code == 2
     error = capsys.readouterr().err
     assert message in error and error.count("\n") == 1 and "Traceback" not in error
+
+
+def test_saturated_demo_run_shows_saturation_signatures() -> None:
+    # Saturation signatures (common practice): peak A > ~1.5 (T < 3 %) and flat, black tops.
+    # An unsaturated Happ-Genzel line at 0.5 cm-1 (FWHM 0.454 cm-1, calc) keeps its minimum
+    # at one point: one 0.125 cm-1 step away its depth has fallen ~20 %. A black line has
+    # T < 1 % over >= 3 consecutive points.
+    from processing.sample_scenario import demo_runs
+
+    run = next(r for r in demo_runs() if r.name == "1040_hcl_saturated")
+    result = simulate(replace(run.settings, instrument=replace(run.settings.instrument, snr=None)))
+    x, t = result.spectrum.wavenumber_cm1, result.transmittance
+    assert t.min() < 10**-1.5
+    depth = 1.0 - t
+    peaks, _ = find_peaks(depth, height=0.05)
+    strongest = peaks[np.argsort(depth[peaks])[-6:]]
+    for peak in strongest:
+        assert np.all(t[peak - 1 : peak + 2] < 0.01), x[peak]
+
+
+def test_fringes_have_the_requested_period_and_amplitude() -> None:
+    from processing.instrument import Fringes
+
+    settings = SimulationSettings(gases=(), instrument=Instrument(
+        first_cm1=2000.0, last_cm1=2400.0, snr=None, fringes=Fringes(0.02, 0.82)))
+    transmittance = simulate(settings).transmittance
+    # period 1/(2 n t): 0.82 cm-1 for a 4 mm KBr window (n ~1.53) (calc)
+    spectrum = np.abs(np.fft.rfft(transmittance - transmittance.mean()))
+    frequency = np.fft.rfftfreq(transmittance.size, d=0.125)
+    assert 1.0 / frequency[np.argmax(spectrum)] == pytest.approx(0.82, rel=0.01)
+    assert (transmittance.max() - transmittance.min()) / 2 == pytest.approx(0.02, rel=0.02)
