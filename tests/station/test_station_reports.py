@@ -1,0 +1,62 @@
+"""Report files: result JSON as `process --json` prints it, the line list CSV, the summary."""
+from __future__ import annotations
+
+import csv
+import io
+import json
+from pathlib import Path
+
+from conftest import spectrum_csv, write_file
+
+from processing.pipeline import process_file
+from processing.station.reports import LINE_COLUMNS, lines_csv, report_folder, summary_markdown, write_reports
+
+
+def _result() -> dict:
+    # the shape of the pipeline's public JSON; numbers invented for the test
+    return {
+        "schema": 1, "file": "/exp/run 7.csv", "sha256": "ab" * 32, "status": "processed", "error": None,
+        "spectrum": {"points": 4096, "first_cm1": 2500.0, "last_cm1": 3200.0, "format": "delimited text"},
+        "lines": [
+            {"position": {"value": 2906.2466, "sigma": 0.0004}, "height": 0.41, "width": 0.21,
+             "assigned": {"isotopologue": "H35Cl", "v_upper": 1, "v_lower": 0, "branch": "R", "J_lower": 0,
+                          "calc": 2906.2460, "residual": 0.0006}},
+            {"position": {"value": 2750.1, "sigma": None}, "height": 0.02, "width": None, "assigned": None},
+        ],
+        "bands": [{"isotopologue": "H35Cl", "v_upper": 1, "v_lower": 0, "n_lines": 20, "rms": 0.0012,
+                   "origin": {"value": 2885.9775, "sigma": 0.0031}, "B_upper": {"value": 10.1365, "sigma": 0.0002},
+                   "B_lower": {"value": 10.4398, "sigma": 0.0002}}],
+        "constants": [{"isotopologue": "H35Cl", "B_e": {"value": 10.5934, "sigma": 0.0004}}],
+        "checks": [{"name": "combination differences", "status": "pass", "message": "agree within 2 sigma"}],
+        "verdict": "pass",
+    }
+
+
+def test_line_list_csv_has_one_row_per_line_with_assignment_and_obs_minus_calc() -> None:
+    rows = list(csv.DictReader(io.StringIO(lines_csv(_result()))))
+    assert tuple(rows[0]) == LINE_COLUMNS
+    assert rows[0]["position_cm1"] == "2906.2466" and rows[0]["sigma_cm1"] == "0.0004"
+    assert rows[0]["assignment"] == "H35Cl 1-0 R(0)" and rows[0]["obs_minus_calc_cm1"] == "0.0006"
+    assert rows[1]["assignment"] == "" and rows[1]["width_cm1"] == "" and rows[1]["sigma_cm1"] == ""
+
+
+def test_summary_names_file_hash_verdict_bands_constants_checks() -> None:
+    text = summary_markdown(_result(), 7, 2)
+    assert text.startswith("# Run 7 v2: run 7.csv")
+    assert "ab" * 32 in text and "**pass**" in text
+    assert "| H35Cl | 1-0 | 2885.9775(31) cm-1 |" in text
+    assert "B_e = 10.59340(40) cm-1" in text  # two digits of sigma, as the estimate formatter writes
+    assert "- combination differences: pass agree within 2 sigma" in text
+
+
+def test_reports_of_a_real_run_are_written_in_the_data_folder(tmp_path: Path) -> None:
+    (tmp_path / "export").mkdir()
+    source = write_file(tmp_path / "export" / "sample.csv", spectrum_csv(300))
+    result = process_file(source).to_dict()
+    folder = write_reports(tmp_path / "data", 12, 1, result)
+    assert folder == report_folder(tmp_path / "data", 12, str(source)) == tmp_path / "data" / "reports" / "12-sample"
+    assert json.loads((folder / "result.json").read_text()) == result
+    rows = list(csv.DictReader(io.StringIO((folder / "lines.csv").read_text())))
+    assert len(rows) == len(result["lines"]) >= 1
+    assert "sample.csv" in (folder / "summary.md").read_text()
+    assert sorted(p.name for p in (tmp_path / "export").iterdir()) == ["sample.csv"]
