@@ -200,8 +200,12 @@ def _match_count(peaks: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarr
     return nearest <= tol
 
 
-def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: float) -> tuple[float, float]:
-    """Common shift maximising the matched predicted intensity; returns (shift, score)."""
+def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: float, first: float, last: float) -> tuple[float, float]:
+    """Common shift maximising matched minus missed predicted intensity; (shift, score).
+
+    A predicted line that lands inside the measured range on no peak counts against its
+    shift: this is what tells the true numbering from one shifted by a whole line spacing
+    (the alias puts a line into the empty band-centre gap)."""
     positions = np.concatenate([b.position for b in bands])
     weights = np.concatenate([b.weight for b in bands])
     keep = weights >= 0.02
@@ -212,15 +216,17 @@ def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: fl
     shifts = np.arange(-max_shift, max_shift + step / 2, step)
     targets = positions[None, :] + shifts[:, None]
     matched = _match_count(peaks, targets.ravel(), tol).reshape(targets.shape)
-    scores = matched @ weights
+    inside = (targets >= first) & (targets <= last)
+    scores = matched @ weights - (inside & ~matched) @ weights
     # prefer the smallest shift among equal scores
     best = int(np.lexsort((np.abs(shifts), -scores))[0])
     return float(shifts[best]), float(scores[best] / weights.sum())
 
 
-def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, density: float) -> bool:
-    """Enough strong predicted lines matched, well beyond what chance gives."""
-    strong = band.weight >= 0.05
+def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, density: float, first: float, last: float) -> bool:
+    """Enough strong predicted lines inside the measured range matched, well beyond chance."""
+    shifted = band.position + shift
+    strong = (band.weight >= 0.05) & (shifted >= first) & (shifted <= last)
     n_expected = int(strong.sum())
     if n_expected < MIN_BAND_LINES:
         return False
@@ -296,7 +302,7 @@ def _fit_band_lines(
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma)
+        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known)
     except (ValueError, np.linalg.LinAlgError):
         return None
 
@@ -420,8 +426,36 @@ def _refine(bands: list[_Band], lines: LineTable, usable: np.ndarray, tol0: floa
 
 
 # ------------------------------------------------------------------------------ pattern route
+def _walk(positions: np.ndarray, chain: list[int], direction: int) -> None:
+    """Extend `chain` in `direction` (+1 up, -1 down) while the next line sits where the
+    spacing trend puts it; one or two lines may be skipped (a gap, or the band centre)."""
+    end = chain[-1] if direction > 0 else chain[0]
+    spacing = abs(positions[chain[-1]] - positions[chain[-2]]) if direction > 0 else abs(positions[chain[1]] - positions[chain[0]])
+    trend = 0.0
+    misses = 0
+    while misses < 2:
+        steps = misses + 1
+        expected = sum(spacing + trend * k for k in range(1, steps + 1))
+        target = positions[end] + direction * expected
+        k = int(np.argmin(np.abs(positions - target)))
+        if abs(positions[k] - target) < 0.08 * spacing * steps and k not in chain:
+            new_spacing = abs(positions[k] - positions[end]) / steps
+            if abs(new_spacing - spacing) > 0.15 * spacing:
+                return
+            trend = 0.5 * trend + 0.5 * (new_spacing - spacing)
+            spacing = new_spacing
+            end = k
+            misses = 0
+            if direction > 0:
+                chain.append(k)
+            else:
+                chain.insert(0, k)
+        else:
+            misses += 1
+
+
 def _find_chain(positions: np.ndarray, order_by_height: np.ndarray) -> list[int] | None:
-    """The longest chain of near-evenly spaced lines (one step may be skipped), as indices."""
+    """The longest chain of near-evenly spaced lines (a line may be skipped), as indices."""
     best: list[int] = []
     seeds = order_by_height[: min(40, order_by_height.size)]
     for i in seeds:
@@ -430,25 +464,8 @@ def _find_chain(positions: np.ndarray, order_by_height: np.ndarray) -> list[int]
             if not (0.4 < d < 50.0):
                 continue
             chain = [int(i), int(j)]
-            # walk up then down
-            for direction in (+1, -1):
-                last, spacing, misses = (chain[-1], d, 0) if direction > 0 else (chain[0], d, 0)
-                while misses < 2:
-                    target = positions[last] + direction * spacing * (misses + 1)
-                    k = int(np.argmin(np.abs(positions - target)))
-                    if abs(positions[k] - target) < 0.08 * spacing and k not in chain:
-                        new_spacing = abs(positions[k] - positions[last]) / (misses + 1)
-                        if abs(new_spacing - spacing) > 0.1 * spacing:
-                            break
-                        spacing = new_spacing
-                        last = k
-                        misses = 0
-                        if direction > 0:
-                            chain.append(k)
-                        else:
-                            chain.insert(0, k)
-                    else:
-                        misses += 1
+            _walk(positions, chain, +1)
+            _walk(positions, chain, -1)
             if len(chain) > len(best):
                 best = chain
     return best if len(best) >= 8 else None
@@ -515,7 +532,7 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> lis
         m, _ = numbered
         branch, J_lower = branch_from_m(m)
         try:
-            fit = fit_band("unidentified", 1, 0, branch, J_lower, lines.position_cm1[chain_index], lines.position_sigma_cm1[chain_index])
+            fit = fit_band("unidentified", 1, 0, branch, J_lower, lines.position_cm1[chain_index], lines.position_sigma_cm1[chain_index], lines.sigma_known)
         except (ValueError, np.linalg.LinAlgError):
             continue
         identity = _identify(fit, library)
@@ -569,8 +586,8 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
             predicted = _library_predictions(library, molecule, v_upper, v_lower, settings.temperature_K, first_cm1, last_cm1)
             if not predicted:
                 continue
-            shift, _score = _best_shift(peaks[usable], predicted, tol0, settings.max_shift_cm1)
-            present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, density)]
+            shift, _score = _best_shift(peaks[usable], predicted, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
+            present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, density, first_cm1, last_cm1)]
             if not present:
                 continue
             main = max(present, key=lambda b: float(b.weight.max()))
@@ -661,7 +678,7 @@ def _finish(
         fit: BandFit | None = None
         if idx.size >= 4:
             try:
-                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - pull, sigma)
+                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - pull, sigma, lines.sigma_known)
             except (ValueError, np.linalg.LinAlgError):
                 fit = None
         if fit is None:

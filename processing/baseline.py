@@ -159,12 +159,11 @@ def find_saturated_regions(
     x = spectrum.wavenumber_cm1
     y = spectrum.absorbance
     regions: list[SaturatedRegion] = []
-    for start, stop in _runs(spectrum.saturated):
-        regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(y[start:stop].max()), "transmittance <= 0"))
-    over = (y > usable_absorbance) & ~spectrum.saturated
+    over = (y > usable_absorbance) | spectrum.saturated
     for start, stop in _runs(over):
-        regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(y[start:stop].max()), "above usable absorbance"))
-    high = (corrected > 1.0) & ~spectrum.saturated & ~over
+        reason = "transmittance <= 0" if spectrum.saturated[start:stop].any() else "above usable absorbance"
+        regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(y[start:stop].max()), reason))
+    high = (corrected > 1.0) & ~over
     for start, stop in _runs(high):
         segment = y[start:stop]
         top = segment.max()

@@ -175,14 +175,14 @@ def _significant(fit: LinearFit, name: str) -> bool:
 
 
 def _choose_band_fit(
-    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray
+    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray, sigma_known: bool
 ) -> tuple[LinearFit, str]:
     n = observed.size
     for model, n_params in (("separate D", 5), ("common D", 4)):
         if n < n_params + 2:
             continue
         design, names = _band_design(x_up, x_low, model)
-        fit = weighted_least_squares(design, observed, sigma, names)
+        fit = weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known)
         if model == "separate D":
             difference = fit.value("D_upper") - fit.value("D_lower")
             i, j = names.index("D_upper"), names.index("D_lower")
@@ -197,7 +197,7 @@ def _choose_band_fit(
         elif _significant(fit, "D"):
             return fit, model
     design, names = _band_design(x_up, x_low, "no D")
-    return weighted_least_squares(design, observed, sigma, names), "no D"
+    return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D"
 
 
 def fit_band(
@@ -208,8 +208,11 @@ def fit_band(
     J_lower: np.ndarray,
     observed_cm1: np.ndarray,
     sigma_cm1: np.ndarray,
+    sigma_known: bool = True,
 ) -> BandFit:
-    """Weighted least-squares fit of one band's assigned lines (at least 4 lines)."""
+    """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
+
+    `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`)."""
     branch = np.asarray(branch)
     J_lower = np.asarray(J_lower, dtype=np.int64)
     observed = np.asarray(observed_cm1, dtype=np.float64)
@@ -218,7 +221,7 @@ def fit_band(
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
     x_low = _x(J_lower)
     x_up = _x(upper_J(branch, J_lower))
-    fit, model = _choose_band_fit(x_up, x_low, observed, sigma)
+    fit, model = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known)
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
@@ -229,8 +232,9 @@ def fit_band(
         D_upper = D_lower = estimate("D")
     else:
         D_upper = D_lower = None
-    lower_cd = fit_combination_differences("lower", v_lower, branch[fit.used], J_lower[fit.used], observed[fit.used], sigma[fit.used])
-    upper_cd = fit_combination_differences("upper", v_upper, branch[fit.used], J_lower[fit.used], observed[fit.used], sigma[fit.used])
+    used = fit.used
+    lower_cd = fit_combination_differences("lower", v_lower, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
+    upper_cd = fit_combination_differences("upper", v_upper, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
     return BandFit(
         isotopologue=isotopologue,
         v_upper=v_upper,
@@ -278,7 +282,8 @@ def combination_difference_pairs(
 
 
 def fit_combination_differences(
-    state: str, v: int, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray
+    state: str, v: int, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray,
+    sigma_known: bool = True,
 ) -> CombinationDifferenceFit | None:
     """B (and D if significant) of the `state` ("lower"/"upper") level; None with < 3 pairs."""
     J, difference, diff_sigma = combination_difference_pairs(state, branch, J_lower, observed, sigma)
@@ -290,11 +295,11 @@ def fit_combination_differences(
     d_column = -(x_plus**2 - x_minus**2)
     fit: LinearFit | None = None
     if J.size >= 4:
-        trial = weighted_least_squares(np.column_stack([b_column, d_column]), difference, diff_sigma, ("B", "D"))
+        trial = weighted_least_squares(np.column_stack([b_column, d_column]), difference, diff_sigma, ("B", "D"), sigma_known=sigma_known)
         if _significant(trial, "D"):
             fit = trial
     if fit is None:
-        fit = weighted_least_squares(b_column[:, None], difference, diff_sigma, ("B",))
+        fit = weighted_least_squares(b_column[:, None], difference, diff_sigma, ("B",), sigma_known=sigma_known)
     has_d = "D" in fit.names
     sig = (lambda name: fit.sigma(name) if fit.dof > 0 else None)
     return CombinationDifferenceFit(

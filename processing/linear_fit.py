@@ -3,7 +3,8 @@
 Shared by the band fits, the combination-difference fits and the molecular-constant fits.
 Standard errors are sqrt(diag(C)) with C = (A^T W A)^-1 scaled by max(1, chi2/dof): the
 line uncertainties are trusted as a floor, and inflated when the scatter says they are too
-small (Birge-ratio scaling; common practice in spectroscopic fits).
+small (Birge-ratio scaling; common practice in spectroscopic fits). When the uncertainties are
+only nominal, C is scaled by chi2/dof itself.
 """
 from __future__ import annotations
 
@@ -76,8 +77,12 @@ def weighted_least_squares(
     sigma: np.ndarray,
     names: tuple[str, ...],
     reject_outliers: bool = True,
+    sigma_known: bool = True,
 ) -> LinearFit:
-    """Fit y = design @ p with weights 1/sigma^2; optionally apply `OUTLIER_RULE`."""
+    """Fit y = design @ p with weights 1/sigma^2; optionally apply `OUTLIER_RULE`.
+
+    `sigma_known=False` says the sigmas are only relative weights (e.g. a line list with no
+    stated uncertainties): the covariance is then scaled by chi2/dof in both directions."""
     design = np.asarray(design, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
     sigma = np.asarray(sigma, dtype=np.float64)
@@ -105,7 +110,12 @@ def weighted_least_squares(
         used[worst] = False
     chi2 = float(np.sum((residuals[used] / sigma[used]) ** 2))
     chi2_reduced = chi2 / dof if dof > 0 else float("nan")
-    inflation = max(1.0, chi2_reduced) if dof > 0 else 1.0
+    if dof <= 0:
+        inflation = 1.0
+    elif sigma_known:
+        inflation = max(1.0, chi2_reduced)
+    else:
+        inflation = chi2_reduced
     return LinearFit(
         names=tuple(names),
         values=params,

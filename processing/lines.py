@@ -41,6 +41,7 @@ class LineTable:
     ringing: np.ndarray  # weak companion of a much stronger line (possible ILS sidelobe)
     typical_width_cm1: float = 0.0
     notes: tuple[str, ...] = field(default=())
+    sigma_known: bool = True  # False for a line list: position_sigma_cm1 is only a weight
 
     @property
     def count(self) -> int:
@@ -67,7 +68,8 @@ class LineTable:
             saturated=false,
             blended=false.copy(),
             ringing=false.copy(),
-            notes=(f"line list: positions as given, nominal sigma {sigma_cm1:g} cm-1",),
+            notes=(f"line list: positions as given, uncertainties from the fit scatter",),
+            sigma_known=False,
         )
 
 
@@ -136,8 +138,14 @@ def find_peaks(corrected: np.ndarray, sigma: float, threshold_sigma: float, widt
     left_min = window[:, :reach].min(axis=1)
     right_min = window[:, reach + 1 :].min(axis=1)
     prominence = y[peaks] - np.maximum(left_min, right_min)
-    peaks = peaks[prominence > threshold]
+    peaks = peaks[prominence > threshold * local_noise_factor(np.maximum(left_min, right_min))]
     return peaks, float(width_points)
+
+
+def local_noise_factor(absorbance_above_baseline: np.ndarray) -> np.ndarray:
+    """How much larger the absorbance noise is than at the baseline: detector noise is
+    white in transmittance, so sigma_A = sigma_T / (T ln 10) grows as 10**A (capped at A = 3)."""
+    return np.power(10.0, np.clip(absorbance_above_baseline, 0.0, 3.0))
 
 
 def _gaussian(x: np.ndarray, height: np.ndarray, centre: np.ndarray, fwhm: np.ndarray) -> np.ndarray:
@@ -197,11 +205,14 @@ def measure_lines(
     sigma = baseline.noise_sigma
     width_points_hint = None if width_hint_cm1 is None else width_hint_cm1 / spacing
     peaks, width_points = find_peaks(y_all, sigma, threshold_sigma, width_points_hint)
+    peaks, saturated_lines = _collapse_saturated(spectrum, baseline, peaks)
     empty = np.zeros(0)
-    if peaks.size == 0:
+    if peaks.size == 0 and not saturated_lines:
         f = np.zeros(0, dtype=bool)
         return LineTable(empty, empty, empty, empty, empty, empty, f, f, f, 0.0, ("no peaks above threshold",))
     half = max(1, int(round(0.6 * width_points)))
+    if peaks.size == 0:
+        peaks = np.zeros(0, dtype=np.int64)
     y_win, index = _gather(y_all, peaks, half)
     x_win = x_all[index]
     top = y_all[peaks]
@@ -230,20 +241,23 @@ def measure_lines(
         c = np.where(bad, centre0, c)
         w = np.where(~np.isfinite(w) | bad, fwhm0, w)
         h = np.where(~np.isfinite(h) | bad, height0, h)
-    scatter = np.maximum(sigma, rms)
+    scatter = np.maximum(sigma * local_noise_factor(0.5 * h), rms)
     position_sigma = np.sqrt(np.clip(cov[:, 1, 1], 0, None)) * scatter
     position_sigma = np.maximum(np.nan_to_num(position_sigma, nan=spacing), 0.01 * spacing)
+    raw_top = spectrum.absorbance[peaks]
+    sat_window, _ = _gather(spectrum.saturated.astype(np.int8), peaks, half)
+    saturated = (raw_top > baseline.usable_absorbance) | (sat_window.max(axis=1) > 0)
+    if saturated_lines:
+        extra = np.array(saturated_lines)  # centre, sigma, height, width
+        c = np.concatenate([c, extra[:, 0]])
+        position_sigma = np.concatenate([position_sigma, extra[:, 1]])
+        h = np.concatenate([h, extra[:, 2]])
+        w = np.concatenate([w, extra[:, 3]])
+        saturated = np.concatenate([saturated, np.ones(extra.shape[0], dtype=bool)])
     order = np.argsort(c)
-    c, h, w, position_sigma = c[order], h[order], w[order], position_sigma[order]
-    peaks_sorted = peaks[order]
-    raw_top = spectrum.absorbance[peaks_sorted]
-    sat_window, _ = _gather(spectrum.saturated.astype(np.int8), peaks_sorted, half)
-    in_region = np.zeros(peaks_sorted.size, dtype=bool)
-    for region in baseline.saturated_regions:
-        in_region |= (c >= region.first_cm1 - spacing) & (c <= region.last_cm1 + spacing)
-    saturated = (raw_top > baseline.usable_absorbance) | (sat_window.max(axis=1) > 0) | in_region
+    c, h, w, position_sigma, saturated = c[order], h[order], w[order], position_sigma[order], saturated[order]
     gaps = np.diff(c)
-    strong = snr_of(h, sigma) >= 10.0
+    strong = (snr_of(h, sigma) >= 10.0) & ~saturated
     typical = float(np.percentile(w[strong] if strong.sum() >= 3 else w, 25))
     close = gaps < 1.5 * typical
     blended = np.zeros(c.size, dtype=bool)
@@ -264,6 +278,26 @@ def measure_lines(
         typical_width_cm1=typical,
         notes=(f"threshold {threshold_sigma:g} x noise sigma {sigma:.3g}", f"typical FWHM {typical:.4f} cm-1"),
     )
+
+
+def _collapse_saturated(spectrum: Spectrum, baseline: BaselineResult, peaks: np.ndarray) -> tuple[np.ndarray, list[tuple[float, float, float, float]]]:
+    """Peaks inside a saturated region (unmeasurable or flat top) are noise on a line that has
+    bottomed out: they are replaced by one line at the region's centre, which is where a
+    symmetric line's centre is. Its uncertainty is half a point spacing (the edges are known
+    to about a point each). Returns the remaining peak indices and (centre, sigma, height,
+    width) of each collapsed line."""
+    x = spectrum.wavenumber_cm1
+    spacing = spectrum.spacing_cm1
+    keep = np.ones(peaks.size, dtype=bool)
+    collapsed: list[tuple[float, float, float, float]] = []
+    for region in baseline.saturated_regions:
+        inside = (x[peaks] >= region.first_cm1 - 2 * spacing) & (x[peaks] <= region.last_cm1 + 2 * spacing)
+        keep &= ~inside
+        centre = 0.5 * (region.first_cm1 + region.last_cm1)
+        k = int(np.argmin(np.abs(x - centre)))
+        height = float(region.peak_absorbance - baseline.baseline[k])
+        collapsed.append((centre, 0.5 * spacing, height, region.last_cm1 - region.first_cm1 + spacing))
+    return peaks[keep], collapsed
 
 
 def snr_of(height: np.ndarray, sigma: float) -> np.ndarray:
