@@ -57,6 +57,7 @@ class MainScreen(Screen[None]):
         super().__init__()
         self.runs: dict[int, Any] = {}
         self.busy_paths: list[str] = []
+        self.problems: dict[str, str] = {}  # path -> what the station said when it could not record it
         self.selected_run_id: int | None = None
         self.excluded: dict[int, set[float]] = {}
         self.station_state = "no station"
@@ -194,7 +195,9 @@ class MainScreen(Screen[None]):
         self.runs = {run.run_id: run for run in message.runs}
         table = self.query_one(RunList)
         keep = self.selected_run_id
-        table.fill(message.runs, self.busy_paths, keep_run_id=keep)
+        recorded = {run.path for run in message.runs}
+        self.busy_paths = [path for path in self.busy_paths if path not in recorded]
+        table.fill(message.runs, self.busy_paths, keep_run_id=keep, problems=self.problems)
         if keep is None or keep not in self.runs:
             self.select_run(table.selected_run_id())
         else:
@@ -203,9 +206,13 @@ class MainScreen(Screen[None]):
 
     @on(DataTable.RowHighlighted, "#runs")
     def run_highlighted(self, message: DataTable.RowHighlighted) -> None:
-        run_id = self.query_one(RunList).selected_run_id()
+        table = self.query_one(RunList)
+        run_id = table.selected_run_id()
         if run_id != self.selected_run_id:
             self.select_run(run_id)
+        key = table.selected_key() or ""
+        if run_id is None and key.startswith("problem:"):
+            self.query_one("#run-summary", Static).update(Text(self.problems.get(key[8:], ""), no_wrap=True))
 
     def select_run(self, run_id: int | None) -> None:
         """Fill the detail panes from the run's stored result; re-read its file for the plot."""
@@ -265,11 +272,19 @@ class MainScreen(Screen[None]):
             self.busy_paths.append(path)
         if kind in ("RunProcessed", "RunFailed", "FileVanished", "FileUnchanged") and path in self.busy_paths:
             self.busy_paths.remove(path)
+        if kind == "StationProblem":
+            for busy in list(self.busy_paths):
+                if busy in str(getattr(event, "message", "")):
+                    self.busy_paths.remove(busy)
+                    self.problems[busy] = str(getattr(event, "message", ""))
+        if kind in ("FileSeen", "FileSettled", "ClaimResumed") and path:
+            self.problems.pop(path, None)
         if kind == "RunFailed":
             self.notify(self.last_event, title="run failed", severity="error")
         elif kind == "StationProblem":
             self.notify(self.last_event, title="station", severity="warning")
-        if kind in ("RunProcessed", "RunFailed", "FileSeen", "FileSettled", "FileVanished", "ClaimResumed"):
+        if kind in ("RunProcessed", "RunFailed", "FileSeen", "FileSettled", "FileVanished", "ClaimResumed",
+                    "StationProblem"):
             self.load_runs()
         else:
             self.update_title()

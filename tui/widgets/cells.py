@@ -20,6 +20,7 @@ STATUS_LABELS: dict[str, tuple[str, str]] = {
     "unreadable": ("✘ UNREAD", "bold red"),
     "failed": ("✘ ERROR", "bold red"),
     "busy": ("… BUSY", "cyan"),
+    "problem": ("✘ PROBLEM", "bold red"),
 }
 DECISION_LABELS: dict[str | None, tuple[str, str]] = {
     "accept": ("accepted", "green"),

@@ -54,10 +54,21 @@ class RunList(DataTable):
         self.add_column("verdict", key="verdict", width=8)
         self.add_column("decision", key="decision", width=8)
 
-    def fill(self, runs: Iterable[Any], busy: Iterable[str] = (), keep_run_id: int | None = None) -> None:
-        """Replace the rows: files in progress (`busy` paths) first, then ledger runs."""
+    def fill(
+        self,
+        runs: Iterable[Any],
+        busy: Iterable[str] = (),
+        keep_run_id: int | None = None,
+        problems: dict[str, str] | None = None,
+    ) -> None:
+        """Replace the rows: files the station could not record, files in progress, then runs."""
         self.clear()
         self.run_ids = []
+        for path in problems or {}:
+            self.add_row(
+                Text("now", style="dim"), plain(path.rsplit("/", 1)[-1]), Text(""), Text(""),
+                verdict_text("problem", None), Text(""), key=f"problem:{path}",
+            )
         for path in busy:
             name = path.rsplit("/", 1)[-1]
             self.add_row(
@@ -82,9 +93,15 @@ class RunList(DataTable):
         if self.row_count == 0:
             return None
         key = self.coordinate_to_cell_key((self.cursor_row, 0)).row_key.value
-        if key is None or key.startswith("busy:"):
+        if key is None or not key.isdigit():
             return None
         return int(key)
+
+    def selected_key(self) -> str | None:
+        """The row key: a run id, "busy:PATH" or "problem:PATH"."""
+        if self.row_count == 0:
+            return None
+        return self.coordinate_to_cell_key((self.cursor_row, 0)).row_key.value
 
 
 def line_label(assigned: dict[str, Any] | None) -> str:
