@@ -109,10 +109,9 @@ def _split_records(data: bytes, source: str, notes: list[str]) -> list[_Record]:
     bounds = starts + [len(data)]
     for index, start in enumerate(starts):
         end = bounds[index + 1]
-        chunk = data[start:end]
-        newline = chunk.find(b"\n")
-        first = chunk if newline == -1 else chunk[:newline]
-        rest = b"" if newline == -1 else chunk[newline + 1 :]
+        newline = data.find(b"\n", start, end)
+        first = data[start:end] if newline == -1 else data[start:newline]
+        rest = b"" if newline == -1 else data[newline + 1 : end]
         equals = first.find(b"=")
         if equals == -1:
             notes.append(f"line {line}: {first[:40].decode('latin-1')!r} has no '='; ignored")
@@ -128,7 +127,7 @@ def _split_records(data: bytes, source: str, notes: list[str]) -> list[_Record]:
                 text = head_value + (b"\n" + _COMMENT.sub(b"", rest) if rest.strip() else b"")
                 record = _Record(label, raw_label, _decode_text(text).strip(), line)
             records.append(record)
-        line += chunk.count(b"\n")
+        line += data.count(b"\n", start, end)
     return records
 
 
@@ -554,7 +553,7 @@ def _read_table(block: _Block, record: _Record, source: str, notes: list[str]) -
 def _prepare(data: bytes, source: str) -> bytes:
     if data.startswith(b"\xef\xbb\xbf"):
         data = data[3:]
-    if not data.strip():
+    if re.search(rb"\S", data) is None:
         raise SpectrumFileError(source, "file is empty")
     if b"\x00" in data:
         raise SpectrumFileError(source, "binary data (NUL bytes), not a JCAMP-DX text file")

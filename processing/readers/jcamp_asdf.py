@@ -29,7 +29,6 @@ _CLASS = np.zeros(256, dtype=np.uint8)
 _KIND = np.full(256, KIND_AFFN, dtype=np.uint8)
 _SIGN_BYTE = np.full(256, ord("+"), dtype=np.uint8)
 _DIGIT_BYTE = np.zeros(256, dtype=np.uint8)
-_WIDTH = np.ones(256, dtype=np.intp)  # bytes each input byte becomes in the rewritten text
 
 for _c in b"0123456789":
     _CLASS[_c] = DIGIT
@@ -47,25 +46,17 @@ for _table, _cls, _kind in (
             _KIND[_byte] = _kind
             _SIGN_BYTE[_byte] = ord(_sign)
             _DIGIT_BYTE[_byte] = ord("0") + _digit
-            _WIDTH[_byte] = 3
 for _digit, _byte in enumerate(b"STUVWXYZs", start=1):
     _CLASS[_byte] = DUP
     _KIND[_byte] = KIND_DUP
     _DIGIT_BYTE[_byte] = ord("0") + _digit
-    _WIDTH[_byte] = 3
 for _byte in b"+-":
     _CLASS[_byte] = SIGN
-    _WIDTH[_byte] = 2
 for _byte in b" \t,":
     _CLASS[_byte] = SEP
 _CLASS[ord("\n")] = NEWLINE
 _KIND[ord("\n")] = KIND_LINE
-_WIDTH[ord("\n")] = 5  # becomes b" nan "
 
-_IS_START = np.isin(_CLASS, (SQZ, DIF, DUP, SIGN, NEWLINE))  # always begins a token
-_IS_NUMBER = np.isin(_CLASS, (DIGIT, DOT))  # begins a token only after a separator
-_IS_SEPARATOR = np.isin(_CLASS, (SEP, NEWLINE))
-_ASDF_LETTERS = bytes(b for b in range(256) if _CLASS[b] in (SQZ, DIF, DUP) and b not in b"Ee")
 _AFFN_DELETE = b"0123456789.+-eE \t,\n"
 _MARKER = b" nan "
 
@@ -114,61 +105,138 @@ def _parse_numbers(text: bytes) -> np.ndarray:
             raise ValueError(str(error)) from None
 
 
-def _first_bad_line(lines: list[bytes], rewrite: bool) -> tuple[int, str]:
-    """Slow path, only after a failure: the first line numpy cannot read, and a snippet."""
+def _first_bad_line(lines: list[bytes], compressed: bool) -> tuple[int, str]:
+    """Slow path, only after a failure: the first line that cannot be read, and a snippet."""
     for number, line in enumerate(lines):
-        text = _rewrite_asdf(line)[0] if rewrite else line.replace(b",", b" ")
         try:
-            _parse_numbers(text.replace(b"\n", b" "))
-        except ValueError:
+            if compressed:
+                _decode_asdf(line)
+            else:
+                _parse_numbers(line.replace(b",", b" "))
+        except (ValueError, DecodeError):
             snippet = line.strip()[:40].decode("latin-1")
             return number, f"cannot read the numbers in {snippet!r}"
     return max(len(lines) - 1, 0), "cannot read the numbers in the data lines"
 
 
-def _rewrite_asdf(section: bytes) -> tuple[bytes, np.ndarray, np.ndarray]:
-    """ASDF bytes -> plain signed numbers with line markers; also token start bytes and kinds."""
-    raw = np.frombuffer(section, dtype=np.uint8)
-    classes = _CLASS[raw]
-    invalid = np.flatnonzero(classes == INVALID)
-    if invalid.size:
-        position = int(invalid[0])
-        character = chr(section[position])
+_CLASS_TABLE = bytes(_CLASS.tolist())
+_LEAD = np.full(256, ord("0"), dtype=np.uint64)  # ASCII of a token's leading digit
+_NEGATIVE = np.zeros(256, dtype=bool)
+for _byte in range(256):
+    if _CLASS[_byte] in (SQZ, DIF, DUP):
+        _LEAD[_byte] = _DIGIT_BYTE[_byte]
+        _NEGATIVE[_byte] = _SIGN_BYTE[_byte] == ord("-")
+    elif _CLASS[_byte] in (DIGIT, DOT):
+        _LEAD[_byte] = _byte
+_NEGATIVE[ord("-")] = True
+_SIGN_FACTOR = np.where(_NEGATIVE, -1.0, 1.0)
+_KIND_OF_CLASS = np.full(16, KIND_AFFN, dtype=np.uint8)
+_KIND_OF_CLASS[[SQZ, DIF, DUP, NEWLINE]] = (KIND_SQZ, KIND_DIF, KIND_DUP, KIND_LINE)
+_KIND_SEPARATOR = 255
+_KIND_OF_CLASS[SEP] = _KIND_SEPARATOR
+_ASCII_ZEROS = np.uint64(0x3030303030303030)
+_KEEP_BYTES = np.array([(1 << (8 * k)) - 1 for k in range(8)] + [2**64 - 1], dtype=np.uint64)
+_ALIGN = np.array([8 * (8 - k) for k in range(9)], dtype=np.uint64)
+
+
+def _swar_digits(words: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """Integers from up to 8 ASCII digits per uint64 (first digit in the lowest byte).
+
+    Works in place on `words`: subtract ASCII '0' from every byte, drop bytes past the token,
+    right-align, then combine pairs, quads and octets (SIMD-within-a-register arithmetic).
+    """
+    np.subtract(words, _ASCII_ZEROS, out=words)
+    np.bitwise_and(words, _KEEP_BYTES[lengths], out=words)
+    np.left_shift(words, _ALIGN[lengths], out=words)
+    for multiplier, shift, mask in (
+        (10, 8, 0x00FF00FF00FF00FF),
+        (100, 16, 0x0000FFFF0000FFFF),
+        (10000, 32, 0x00000000FFFFFFFF),
+    ):
+        high = words >> np.uint64(shift)
+        np.multiply(words, np.uint64(multiplier), out=words)
+        np.add(words, high, out=words)
+        np.bitwise_and(words, np.uint64(mask), out=words)
+    return words
+
+
+def _decode_asdf(section: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """Values and kinds of every token (and line marker) of a compressed data section.
+
+    Tokens of up to 8 characters without a decimal point (nearly all ASDF tokens) are read
+    8 bytes at a time with integer SWAR arithmetic; longer ones (line-start X values) are
+    gathered into one string for numpy's C parser.
+    """
+    size = len(section)
+    classes_bytes = section.translate(_CLASS_TABLE)
+    bad = classes_bytes.find(b"\x00")
+    if bad != -1:
         raise DecodeError(
-            _line_of(section, position),
-            f"character {character!r} is not allowed in JCAMP-DX data",
+            _line_of(section, bad), f"character {chr(section[bad])!r} is not allowed in JCAMP-DX data"
         )
-    separator = _IS_SEPARATOR[raw]
-    after_separator = np.empty_like(separator)
-    after_separator[0] = True
-    after_separator[1:] = separator[:-1]
-    start = _IS_START[raw] | (_IS_NUMBER[raw] & after_separator)
+    classes = np.frombuffer(classes_bytes, dtype=np.uint8)
+    start = classes >= SQZ  # SQZ, DIF, DUP, sign, separator, newline all begin a token
+    if size:
+        start[1:] |= (classes[1:] <= DOT) & (classes[:-1] >= SEP)
+        start[0] = True
     starts = np.flatnonzero(start)
-    _refuse_spelled_nonfinite(section, raw, starts, after_separator)
-    start_bytes = raw[starts]
-    kinds = _KIND[start_bytes]
-    widths = _WIDTH[raw]
-    out = np.repeat(raw, widths)
-    special = np.flatnonzero(_WIDTH[start_bytes] > 1)
-    special_positions = starts[special]
-    special_bytes = start_bytes[special]
-    extra = _WIDTH[special_bytes] - 1
-    shifted = special_positions + np.cumsum(extra) - extra
-    out[shifted] = ord(" ")  # every special byte starts with a separator
-    three = _WIDTH[special_bytes] == 3
-    at = shifted[three]
-    out[at + 1] = _SIGN_BYTE[special_bytes[three]]
-    out[at + 2] = _DIGIT_BYTE[special_bytes[three]]
-    five = _WIDTH[special_bytes] == 5
-    at = shifted[five]
-    for offset, byte in enumerate(_MARKER):
-        out[at + offset] = byte
-    return out.tobytes(), starts, kinds
+    lengths = np.diff(starts, append=size)
+    kinds = _KIND_OF_CLASS[classes[starts]]
+    raw = np.frombuffer(section, dtype=np.uint8)
+    keep = kinds != _KIND_SEPARATOR
+    after_separator = np.zeros(starts.size, dtype=bool)
+    after_separator[1:] = kinds[:-1] == _KIND_SEPARATOR
+    _refuse_spelled_nonfinite(section, raw, starts[keep & after_separator])
+    starts, lengths, kinds = starts[keep], lengths[keep], kinds[keep]
+    first_bytes = raw[starts]
+    numeric = kinds != KIND_LINE
+    values = np.full(starts.size, np.nan)
+    simple = numeric & (lengths <= 8)
+    if b"." in section:
+        dots = np.flatnonzero(raw == ord("."))
+        owner = np.searchsorted(starts, dots, side="right") - 1
+        simple[owner[owner >= 0]] = False
+    lonely_sign = numeric & (lengths == 1) & (classes[starts] == SIGN)
+    if lonely_sign.any():
+        at = int(starts[np.flatnonzero(lonely_sign)[0]])
+        raise DecodeError(_line_of(section, at), "a sign with no digits after it")
+    padded = section + b"\x00" * (16 - size % 8)
+    words_view = np.lib.stride_tricks.as_strided(
+        np.frombuffer(padded, dtype="<u8", count=len(padded) // 8), shape=(size,), strides=(1,)
+    )
+    pick = np.flatnonzero(simple)
+    words = words_view[starts[pick]]
+    words = (words & ~np.uint64(0xFF)) | _LEAD[first_bytes[pick]]
+    magnitude = _swar_digits(words, lengths[pick]).astype(np.float64)
+    magnitude *= _SIGN_FACTOR[first_bytes[pick]]
+    values[pick] = magnitude
+    rest = np.flatnonzero(numeric & ~simple)
+    if rest.size:
+        values[rest] = _parse_long_tokens(section, raw, starts[rest], lengths[rest], first_bytes[rest])
+    return values, kinds
+
+
+def _parse_long_tokens(
+    section: bytes, raw: np.ndarray, starts: np.ndarray, lengths: np.ndarray, first: np.ndarray
+) -> np.ndarray:
+    """Tokens with a decimal point or over 8 characters: gathered, then numpy's C parser."""
+    count = starts.size
+    widths = lengths + 1  # each token and the byte after it, which becomes a space
+    offsets = np.cumsum(widths) - widths
+    source = np.arange(int(widths.sum())) + np.repeat(starts - offsets, widths)
+    np.minimum(source, raw.size - 1, out=source)
+    out = raw[source]
+    out[offsets + lengths] = ord(" ")
+    out[offsets] = _LEAD[first].astype(np.uint8)
+    magnitude = _parse_numbers(out.tobytes())  # ValueError: the caller finds the line
+    if magnitude.size != count:
+        raise ValueError("token count changed while parsing")
+    return np.where(_NEGATIVE[first], -magnitude, magnitude)
 
 
 def _is_affn(section: bytes) -> bool:
     """True for sections that hold only plain numbers (E/e then only as exponents)."""
-    if section.translate(None, _AFFN_DELETE):
+    if section[:4096].translate(None, _AFFN_DELETE) or section.translate(None, _AFFN_DELETE):
         return False
     exponents = section.count(b"E") + section.count(b"e")
     if not exponents:
@@ -180,14 +248,11 @@ def _is_affn(section: bytes) -> bool:
 _NONFINITE_WORD = re.compile(rb"(?i)[+-]?(?:nan|inf(?:inity)?)")
 
 
-def _refuse_spelled_nonfinite(
-    section: bytes, raw: np.ndarray, starts: np.ndarray, after_separator: np.ndarray
-) -> None:
+def _refuse_spelled_nonfinite(section: bytes, raw: np.ndarray, first: np.ndarray) -> None:
     """`nan`/`inf` written out: letters that would otherwise decode as SQZ/DIF digits.
 
-    Only a whole separated word counts, so genuine ASDF such as `A5nan` is not refused.
+    Only a whole word after a separator counts, so genuine ASDF such as `A5nan` is read.
     """
-    first = starts[after_separator[starts]]
     first = first[np.isin(raw[first], np.frombuffer(b"nNiI+-", dtype=np.uint8))]
     first = first[first + 2 < raw.size]
     letters = np.where(np.isin(raw[first], np.frombuffer(b"+-", dtype=np.uint8)), first + 1, first)
@@ -218,19 +283,15 @@ def tokenize(section: bytes) -> Tokens:
             try:
                 values = _parse_numbers(spaced.replace(b"\n", _MARKER))
             except ValueError:
-                line, problem = _first_bad_line(spaced.split(b"\n"), rewrite=False)
+                line, problem = _first_bad_line(spaced.split(b"\n"), compressed=False)
                 raise DecodeError(line, problem) from None
         kinds = np.where(np.isnan(values), KIND_LINE, KIND_AFFN).astype(np.uint8)
         return Tokens(values, kinds, compressed=False)
-    text, starts, kinds = _rewrite_asdf(section)
     try:
-        values = _parse_numbers(text)
+        values, kinds = _decode_asdf(section)
     except ValueError:
-        line, problem = _first_bad_line(section.split(b"\n"), rewrite=True)
+        line, problem = _first_bad_line(section.split(b"\n"), compressed=True)
         raise DecodeError(line, problem) from None
-    if values.size != kinds.size:
-        line, problem = _first_bad_line(section.split(b"\n"), rewrite=True)
-        raise DecodeError(line, problem)
     return Tokens(values, kinds, compressed=True)
 
 
@@ -366,7 +427,7 @@ def parse_pairs(section: bytes, group: int) -> tuple[np.ndarray, np.ndarray]:
         try:
             values = _parse_numbers(spaced.replace(b"\n", _MARKER))
         except ValueError:
-            line, problem = _first_bad_line(spaced.split(b"\n"), rewrite=False)
+            line, problem = _first_bad_line(spaced.split(b"\n"), compressed=False)
             raise DecodeError(line, problem) from None
     is_line = np.isnan(values)
     line_of_value = np.cumsum(is_line)[~is_line]
