@@ -37,10 +37,17 @@ def load_bytes(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES) -> bytes:
         size = os.stat(source).st_size
         if size > max_bytes:
             raise SpectrumFileError(
-                source, f"file is {size / 1e6:.1f} MB, over the {max_bytes / 1e6:.0f} MB limit"
+                source, f"file is {size / 1e6:.3g} MB, over the {max_bytes / 1e6:.3g} MB limit"
             )
         with open(source, "rb") as handle:
-            data = handle.read(max_bytes + 1)
+            # read(n) allocates n bytes up front: ask for the size seen (+1 to notice growth),
+            # then keep reading only if the file grew, never past the limit.
+            data = handle.read(size + 1)
+            while len(data) <= max_bytes:
+                more = handle.read(min(1 << 20, max_bytes + 1 - len(data)))
+                if not more:
+                    break
+                data += more
     except FileNotFoundError:
         raise SpectrumFileError(source, "no such file") from None
     except IsADirectoryError:
@@ -50,8 +57,8 @@ def load_bytes(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES) -> bytes:
     except OSError as error:
         raise SpectrumFileError(source, f"cannot be read ({error.strerror or error})") from None
     if len(data) > max_bytes:
-        raise SpectrumFileError(source, f"file grew past the {max_bytes / 1e6:.0f} MB limit")
-    if not data.strip():
+        raise SpectrumFileError(source, f"file grew past the {max_bytes / 1e6:.3g} MB limit")
+    if not data or data.isspace():
         raise SpectrumFileError(source, "file is empty")
     return data
 
