@@ -17,6 +17,7 @@ import io
 import re
 from dataclasses import dataclass
 from pathlib import Path
+from collections.abc import Callable
 from typing import BinaryIO, TextIO
 
 import numpy as np
@@ -227,7 +228,7 @@ def _normalise_bytes(data: bytes, source: str, notes: list[str]) -> bytes:
         except UnicodeDecodeError:
             raise SpectrumFileError(source, "starts like UTF-16 text but does not decode") from None
         notes.append("UTF-16 text decoded")
-    if not data.strip():
+    if not data or data.isspace():
         raise SpectrumFileError(source, "file is empty")
     if b"\x00" in data:
         line = data.count(b"\n", 0, data.index(b"\x00")) + 1
@@ -293,15 +294,76 @@ def _split_trailing_text(data: bytes, offset: int, layout: _RowFormat) -> tuple[
         end = start
 
 
-def _fast_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
-    """The whole body parsed at C speed, or None when its shape is not the clean one."""
-    source_map = {layout.separator: " "} if layout.separator != " " else {}
+def _numpy_text_reader() -> Callable[..., np.ndarray] | None:
+    """numpy's C text reader (the engine behind `numpy.loadtxt`), called on a stream.
+
+    `numpy.loadtxt` only streams in C from a path; given an in-memory stream it goes line by
+    line in Python. The engine itself takes any text stream, so the bytes already read (and
+    hashed) are parsed at loadtxt's speed without touching the file again. It is a private
+    numpy function: when it is missing or its signature changes, `_fromstring_table` is used.
+    """
+    for module_name in ("numpy._core._multiarray_umath", "numpy.core._multiarray_umath"):
+        try:
+            module = __import__(module_name, fromlist=["_load_from_filelike"])
+        except ImportError:
+            continue
+        reader = getattr(module, "_load_from_filelike", None)
+        if reader is not None:
+            return reader  # type: ignore[no-any-return]
+    return None
+
+
+_TEXT_READER = _numpy_text_reader()
+_LOADTXT_DELIMITER = {",": ",", ";": ";", "\t": "\t", " ": None}
+
+
+def _clean_body(body: bytes, layout: _RowFormat) -> bytes:
+    """Decimal commas to points; a trailing separator on each row removed."""
     if layout.decimal_comma:
-        source_map[","] = "."
-    if source_map:
-        table = bytes.maketrans(
-            "".join(source_map).encode(), "".join(source_map.values()).encode()
+        body = body.replace(b",", b".")
+    if layout.trailing_separator:
+        separator = layout.separator.encode()
+        body = body.replace(separator + b"\r\n", b"\n").replace(separator + b"\n", b"\n")
+        if body.endswith(separator):
+            body = body[: -len(separator)]
+    return body
+
+
+def _loadtxt_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
+    """The body through numpy's C text reader; None when it refuses (the slow pass says why)."""
+    assert _TEXT_READER is not None
+    stream = io.TextIOWrapper(io.BytesIO(_clean_body(body, layout)), encoding="latin-1")
+    try:
+        values = _TEXT_READER(
+            stream,
+            delimiter=_LOADTXT_DELIMITER[layout.separator],
+            comment=None,
+            quote='"',
+            imaginary_unit="j",
+            usecols=None,
+            skiplines=0,
+            max_rows=-1,
+            converters=None,
+            dtype=np.dtype(np.float64),
+            encoding="latin-1",
+            filelike=True,
+            byte_converters=False,
         )
+    except (ValueError, TypeError, OverflowError):
+        return None
+    if values.ndim != 2 or values.shape[1] != layout.columns or values.shape[0] == 0:
+        return None
+    return _Table(values, first_line, None)
+
+
+def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
+    """The body parsed by `numpy.fromstring` after separators become spaces; None when the
+    value count is not rows x columns (the slow pass then says why)."""
+    mapping = {layout.separator: " "} if layout.separator != " " else {}
+    if layout.decimal_comma:
+        mapping[","] = "."
+    if mapping:
+        table = bytes.maketrans("".join(mapping).encode(), "".join(mapping.values()).encode())
         translated = body.translate(table)
     else:
         translated = body
@@ -313,6 +375,26 @@ def _fast_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | No
     if values.size != rows * layout.columns:
         return None
     return _Table(values.reshape(rows, layout.columns), first_line, None)
+
+
+def _fast_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
+    """The whole body parsed at C speed, or None when it is not clean (slow pass follows)."""
+    if _TEXT_READER is not None:
+        table = _loadtxt_table(body, layout, first_line)
+        if table is not None or _TEXT_READER_WORKS:
+            return table
+    return _fromstring_table(body, layout, first_line)
+
+
+def _text_reader_works() -> bool:
+    """True when the private reader answers as expected on a tiny sample."""
+    if _TEXT_READER is None:
+        return False
+    sample = _loadtxt_table(b"1,2\n3,4", _RowFormat(",", False, 2, False), 1)
+    return sample is not None and sample.values.tolist() == [[1.0, 2.0], [3.0, 4.0]]
+
+
+_TEXT_READER_WORKS = _text_reader_works()
 
 
 def _slow_table(body: bytes, layout: _RowFormat, first_line: int, source: str) -> _Table:
