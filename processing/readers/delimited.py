@@ -2,11 +2,11 @@
 
 The reader is the registry's catch-all. It finds where the numbers start (after a byte-order
 mark, free text and a column header), detects the separator and decimal mark from the first
-rows, then parses the numeric body in one vectorised pass: separators become spaces with
-`bytes.translate` and `numpy.fromstring` converts every value at C speed. Only when that fast
-pass disagrees with the expected shape does a slow line-by-line pass run, to name the first
-offending line. Trailing text after the data is dropped with a note; text followed by more
-data is an error.
+rows, drops trailing text after the data (with a note; text followed by more data is an
+error), then parses the numeric body in one C pass: numpy's text-reading engine (the one behind
+`numpy.loadtxt`) streams the bytes already in memory, with `numpy.fromstring` as the fallback.
+Only when that fast pass refuses the body, or its values fail a check, does a line-by-line pass
+run, to name the first offending line.
 
 Inside bandwatch x is wavenumber in cm-1; micrometre and nanometre columns are converted here
 (cm-1 = 1e4 / um = 1e7 / nm) and y becomes decadic absorbance via `Spectrum`'s conversion.
@@ -329,10 +329,17 @@ def _clean_body(body: bytes, layout: _RowFormat) -> bytes:
     return body
 
 
-def _loadtxt_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
-    """The body through numpy's C text reader; None when it refuses (the slow pass says why)."""
+def _loadtxt_table(data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int) -> _Table | None:
+    """data[offset:end] through numpy's C text reader; None when it refuses (the slow pass
+    then says why). A clean body is streamed from `data` in place, without a copy."""
     assert _TEXT_READER is not None
-    stream = io.TextIOWrapper(io.BytesIO(_clean_body(body, layout)), encoding="latin-1")
+    if layout.decimal_comma or layout.trailing_separator or not data[end:].isspace() and end < len(data):
+        buffer, start = _clean_body(data[offset:end], layout), 0
+    else:
+        buffer, start = data, offset
+    raw = io.BytesIO(buffer)
+    raw.seek(start)
+    stream = io.TextIOWrapper(raw, encoding="latin-1")
     try:
         values = _TEXT_READER(
             stream,
@@ -377,20 +384,20 @@ def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int) -> _Tabl
     return _Table(values.reshape(rows, layout.columns), first_line, None)
 
 
-def _fast_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
-    """The whole body parsed at C speed, or None when it is not clean (slow pass follows)."""
+def _fast_table(data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int) -> _Table | None:
+    """data[offset:end] parsed at C speed, or None when it is not clean (slow pass follows)."""
     if _TEXT_READER is not None:
-        table = _loadtxt_table(body, layout, first_line)
+        table = _loadtxt_table(data, offset, end, layout, first_line)
         if table is not None or _TEXT_READER_WORKS:
             return table
-    return _fromstring_table(body, layout, first_line)
+    return _fromstring_table(data[offset:end], layout, first_line)
 
 
 def _text_reader_works() -> bool:
     """True when the private reader answers as expected on a tiny sample."""
     if _TEXT_READER is None:
         return False
-    sample = _loadtxt_table(b"1,2\n3,4", _RowFormat(",", False, 2, False), 1)
+    sample = _loadtxt_table(b"1,2\n3,4", 0, 7, _RowFormat(",", False, 2, False), 1)
     return sample is not None and sample.values.tolist() == [[1.0, 2.0], [3.0, 4.0]]
 
 
@@ -499,6 +506,8 @@ def _check_axis(x: np.ndarray, table: _Table, source: str) -> np.ndarray:
 
 
 def _check_finite(values: np.ndarray, columns: tuple[int, int], table: _Table, source: str) -> None:
+    if np.isfinite(np.sum(values)):  # one cheap pass; overflow only sends us to the full check
+        return
     used = values[:, list(columns)]
     finite = np.isfinite(used)
     if not finite.all():
@@ -553,11 +562,11 @@ def _parse(data: bytes, source: str) -> Spectrum:
         notes.append(
             f"{len(footer)} line(s) of text after the data ignored (first: {footer[0][:60]!r})"
         )
-    body = data[offset:end]  # CR of CRLF endings is whitespace to the parsers: left in place
-    table = _fast_table(body, layout, first_line)
+    table = _fast_table(data, offset, end, layout, first_line)
     if table is None:
+        body = data[offset:end]  # CR of CRLF endings is whitespace to the parsers: left in place
         table = _slow_table(body, layout, first_line, source)
-        if table.row_lines is not None and table.values.shape[0] < body.count(b"\n") + 1:
+        if table.values.shape[0] < body.count(b"\n") + 1:
             notes.append("blank lines inside the data skipped")
 
     y_column, header_kind = _choose_y_column(header, layout.columns)
@@ -566,9 +575,9 @@ def _parse(data: bytes, source: str) -> Spectrum:
     except SpectrumFileError:
         if table.row_lines is not None:
             raise
-        # The fast pass only checked the total count: re-read line by line so that a ragged
-        # row is reported as such, and other problems carry the right line number.
-        table = _slow_table(body, layout, first_line, source)
+        # The fast pass skips blank lines and may have checked only the total count: re-read
+        # line by line so that the problem is named with its file line.
+        table = _slow_table(data[offset:end], layout, first_line, source)
         steps = _check_table(table, y_column, source)
     values = table.values
     if layout.columns > 2:
