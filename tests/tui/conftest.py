@@ -115,9 +115,14 @@ def write_spectrum_csv(path: Path, origin: float) -> None:
 @pytest.fixture
 def lab(tmp_path: Path) -> dict[str, Path]:
     """An export folder with three spectra and a data folder whose ledger holds their runs."""
-    export = tmp_path / "export"
-    data = tmp_path / "data"
-    export.mkdir()
+    return make_lab(tmp_path)
+
+
+def make_lab(root: Path) -> dict[str, Path]:
+    """Build the lab under `root` (export/ and data/), with fixed run times."""
+    export = root / "export"
+    data = root / "data"
+    export.mkdir(parents=True)
     conn = open_ledger(data)
     origins = (ORIGIN_H35CL, ORIGIN_H35CL + 0.004, ORIGIN_H35CL + 0.011)  # a small drift over the day
     verdicts = ("pass", "warn", "pass")

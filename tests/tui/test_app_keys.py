@@ -207,7 +207,7 @@ async def test_help_lists_the_keys_and_closes(lab: dict[str, Path]) -> None:
         await pilot.press("question_mark")
         await pilot.pause()
         assert isinstance(app.screen, HelpScreen)
-        text = str(app.screen.query_one("Static").render())
+        text = str(app.screen.query_one("#help-text").render())
         for expected in ("Accept", "Flag", "Undo", "ctrl+q", "Exclude line", "Flip axis"):
             assert expected in text
         await pilot.press("escape")

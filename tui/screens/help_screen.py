@@ -60,7 +60,8 @@ def help_text(keymap: dict[str, str] | None = None) -> Text:
             binding = bindings.get(binding_id)
             if binding is None:
                 continue
-            keys = keymap.get(binding_id, binding.key).replace(",", " / ")
+            keys = keymap.get(binding_id, binding.key)
+            keys = keys.replace("question_mark", "?").replace("equals_sign", "=").replace(",", " / ")
             text.append(f"  {keys:<20} {binding.description}\n")
         if title == "Runs and panes":
             for keys, what in EXTRA_KEYS:
@@ -73,11 +74,23 @@ def help_text(keymap: dict[str, str] | None = None) -> Text:
 class HelpScreen(ModalScreen[None]):
     """Keys and panes; any of Escape, q or ? closes it."""
 
-    BINDINGS = [Binding("escape,q,question_mark", "close", "Close", id="help.close")]
+    BINDINGS = [
+        Binding("escape,q,question_mark", "close", "Close", id="help.close"),
+        Binding("j", "scroll('down')", "Scroll down", show=False, id="help.down"),
+        Binding("k", "scroll('up')", "Scroll up", show=False, id="help.up"),
+    ]
 
     def compose(self) -> ComposeResult:
-        with VerticalScroll(classes="dialog help"):
-            yield Static(help_text(getattr(self.app, "_keymap", None) or {}))
+        with VerticalScroll(classes="dialog help", id="help-body"):
+            yield Static(Text("↑/↓ or j/k scroll · Esc, q or ? closes\n", style="dim"))
+            yield Static(help_text(getattr(self.app, "_keymap", None) or {}), id="help-text")
+
+    def on_mount(self) -> None:
+        self.query_one("#help-body").focus()
+
+    def action_scroll(self, direction: str) -> None:
+        body = self.query_one("#help-body", VerticalScroll)
+        body.scroll_down() if direction == "down" else body.scroll_up()
 
     def action_close(self) -> None:
         self.dismiss(None)

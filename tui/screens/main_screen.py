@@ -34,6 +34,16 @@ if TYPE_CHECKING:
 TABS = ("tab-plot", "tab-lines", "tab-constants", "tab-checks")
 
 
+def short_error(run: Any | None) -> str | None:
+    """The run's error without the file's path in front (the path is in the run list)."""
+    if run is None or not run.error:
+        return None
+    error = str(run.error)
+    if error.startswith(run.path):
+        error = error[len(run.path):].lstrip(":0123456789 ") or error
+    return error
+
+
 class MainScreen(Screen[None]):
     """Runs newest first; the details of the highlighted one."""
 
@@ -80,15 +90,13 @@ class MainScreen(Screen[None]):
                 yield ConstantsTable(id="constants")
             with TabPane("4 Checks", id="tab-checks"):
                 yield ChecksTable(id="checks")
+                yield Static(id="check-detail")
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.update_title()
         self.query_one(RunList).focus()
         self.load_runs()
-
-    def on_resize(self) -> None:
-        self.set_class(self.size.height >= 36, "tall")
 
     # ------------------------------------------------------------ title and summary
 
@@ -224,7 +232,9 @@ class MainScreen(Screen[None]):
         excluded = self.excluded.get(run_id, set()) if run_id is not None else set()
         self.query_one(LinesTable).fill(list(result.get("lines") or []), excluded)
         self.query_one(ConstantsTable).fill(list(result.get("bands") or []), list(result.get("constants") or []))
-        self.query_one(ChecksTable).fill(list(result.get("checks") or []), run.error if run else None)
+        checks = self.query_one(ChecksTable)
+        checks.fill(list(result.get("checks") or []), short_error(run))
+        self.query_one("#check-detail", Static).update(Text(checks.details[0] if checks.details else ""))
         if run is None:
             plot.show_message("no run selected")
             return
@@ -249,6 +259,13 @@ class MainScreen(Screen[None]):
         full = (float(message.x[0]), float(message.x[-1]))
         keep = previous if previous and full[0] <= previous[0] < previous[1] <= full[1] else None
         plot.show(message.x, message.y, self.plot_lines(message.run_id), keep)
+
+    @on(DataTable.RowHighlighted, "#checks")
+    def check_highlighted(self, message: DataTable.RowHighlighted) -> None:
+        """The highlighted check's whole reason, wrapped (the table cell may be cut off)."""
+        table = self.query_one(ChecksTable)
+        detail = table.details[message.cursor_row] if message.cursor_row < len(table.details) else ""
+        self.query_one("#check-detail", Static).update(Text(detail))
 
     @on(LinesTable.ExclusionsChanged)
     def exclusions_changed(self, message: LinesTable.ExclusionsChanged) -> None:

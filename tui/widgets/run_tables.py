@@ -279,6 +279,7 @@ class ChecksTable(DataTable):
 
     def __init__(self, **kwargs: Any) -> None:
         super().__init__(cursor_type="row", **kwargs)
+        self.details: list[str] = []
 
     def on_mount(self) -> None:
         self.add_column("status", key="status", width=7)
@@ -287,9 +288,12 @@ class ChecksTable(DataTable):
 
     def fill(self, checks: list[dict[str, Any]], error: str | None = None) -> None:
         self.clear()
+        self.details = []
         if error:
+            self.details.append(f"file: {error}")
             self.add_row(check_text("fail"), plain("file"), plain(error))
         for check in checks:
+            self.details.append(f"{check.get('name', '')}: {check.get('detail', '')}")
             self.add_row(
                 check_text(str(check.get("status", "?"))),
                 plain(check.get("name", "")),

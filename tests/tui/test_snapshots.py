@@ -1,0 +1,80 @@
+"""Snapshots of the main screens at 80x24 and 120x40 with fixed data (times, paths, no blink).
+
+Update after an intended change of the layout: `python -m pytest tests/tui/test_snapshots.py
+--snapshot-update`, then look at the SVGs in tests/tui/__snapshots__/.
+"""
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+from typing import Any, Callable
+
+import pytest
+
+from tui.app import BandwatchApp
+
+from conftest import make_lab
+
+# A fixed place, so the folder name in the title bar is the same in every run.
+SNAPSHOT_ROOT = Path("/tmp/bandwatch-snapshot-lab")
+
+
+@pytest.fixture
+def snapshot_app() -> BandwatchApp:
+    shutil.rmtree(SNAPSHOT_ROOT, ignore_errors=True)
+    lab = make_lab(SNAPSHOT_ROOT)
+    return BandwatchApp(lab["data"], lab["export"], operator="tester")
+
+
+def keys(*pressed: str) -> Callable[[Any], Any]:
+    """run_before: wait for the ledger and file reads, press keys, wait again."""
+
+    async def run_before(pilot: Any) -> None:
+        for _ in range(3):
+            await pilot.app.workers.wait_for_complete()
+            await pilot.pause()
+        for key in pressed:
+            await pilot.press(key)
+            for _ in range(2):
+                await pilot.app.workers.wait_for_complete()
+                await pilot.pause()
+        for widget in pilot.app.screen.query("Input"):
+            widget.cursor_blink = False
+
+    return run_before
+
+
+def test_main_screen_plot_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j"))
+
+
+def test_main_screen_plot_120x40(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(120, 40), run_before=keys("j"))
+
+
+def test_lines_pane_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j", "2", "j", "x"))
+
+
+def test_constants_pane_120x40(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(120, 40), run_before=keys("j", "3"))
+
+
+def test_checks_of_an_unreadable_file_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("4"))
+
+
+def test_trend_screen_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j", "t"))
+
+
+def test_help_screen_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("question_mark"))
+
+
+def test_flag_dialog_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j", "f", "c", "e", "l", "l"))
+
+
+def test_redo_dialog_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j", "r"))
