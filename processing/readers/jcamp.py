@@ -244,6 +244,20 @@ def _rounding_unit(values: np.ndarray) -> float:
     return 0.0
 
 
+def _fits_better_unscaled(
+    raw: np.ndarray, scaled: np.ndarray, index: np.ndarray, first_x: float | None, delta_x: float | None
+) -> bool:
+    """True when line-start X make sense without XFACTOR (a writer's slip seen in practice)."""
+    if first_x is not None:
+        return abs(raw[0] - first_x) < abs(scaled[0] - first_x)
+    if delta_x and raw.size >= 2:
+        held = np.diff(index)
+        return float(np.max(np.abs(np.diff(raw) / delta_x - held))) < float(
+            np.max(np.abs(np.diff(scaled) / delta_x - held))
+        )
+    return False
+
+
 def _x_axis(
     decoded: DecodedOrdinates,
     header: _Header,
@@ -262,8 +276,12 @@ def _x_axis(
         if stated != int(stated) or stated < 1 or stated > MAX_POINTS:
             record = header.block.values("NPOINTS")[0]
             raise SpectrumFileError(source, f"##NPOINTS={stated:g} is not a plausible point count", record.line)
-    line_x = decoded.line_x * xfactor
     index = decoded.line_index
+    line_x = decoded.line_x * xfactor
+    if xfactor != 1.0 and _fits_better_unscaled(decoded.line_x, line_x, index, first_x, delta_x):
+        line_x = decoded.line_x.copy()
+        notes.append("line-start X values are in x units, not XFACTOR units")
+        xfactor = 1.0
     line_numbers = decoded.line_number + data_line
     span = index[-1] - index[0]
     line_spacing = (line_x[-1] - line_x[0]) / span if span > 0 else None
@@ -333,22 +351,18 @@ def _x_axis(
     residual = line_x - x[index]
     off = np.abs(residual) > tolerance
     if off.any():
-        raw_residual = decoded.line_x - x[index]
-        if xfactor != 1.0 and np.all(np.abs(raw_residual) <= tolerance / abs(xfactor) + unit):
-            notes.append("line-start X values are in x units, not XFACTOR units")
-        else:
-            worst = int(np.argmax(np.abs(residual)))
-            if abs(residual[worst]) > tolerance + 0.5 * abs(spacing):
-                raise SpectrumFileError(
-                    source,
-                    f"line starts at X={line_x[worst]:.10g} but {basis} put its point at "
-                    f"{x[index[worst]]:.10g} ({residual[worst] / spacing:+.1f} point spacings)",
-                    int(line_numbers[worst]),
-                )
-            notes.append(
-                f"line-start X values differ from the {basis} placement by up to "
-                f"{abs(residual[worst]):.3g} (less than half a point spacing)"
+        worst = int(np.argmax(np.abs(residual)))
+        if abs(residual[worst]) > tolerance + 0.5 * abs(spacing):
+            raise SpectrumFileError(
+                source,
+                f"line starts at X={line_x[worst]:.10g} but {basis} put its point at "
+                f"{x[index[worst]]:.10g} ({residual[worst] / spacing:+.1f} point spacings)",
+                int(line_numbers[worst]),
             )
+        notes.append(
+            f"line-start X values differ from the {basis} placement by up to "
+            f"{abs(residual[worst]):.3g} (less than half a point spacing)"
+        )
     return x
 
 
