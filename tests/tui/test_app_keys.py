@@ -144,14 +144,17 @@ async def test_reprocess_with_changed_settings_records_a_new_version(lab: dict[s
     path, settings = process.calls[0]
     assert Path(path).name == "hcl_cell_03.csv"
     assert settings.species == ("H35Cl", "H37Cl")
+    assert [tuple(offset) for offset in settings.j_offsets] == [("H35Cl", 1, 0, "P", 1)]
+    assert settings.excluded_positions_cm1 == tuple(sorted(excluded))
     conn = open_ledger(lab["data"])
     new = get_run(conn, new_id)
     conn.close()
     assert new is not None and new.reprocessed_from == original and new.version == 2
     assert new.settings is not None
     assert new.settings["species"] == ["H35Cl", "H37Cl"]
-    assert new.settings["exclude_cm1"] == sorted(excluded)
-    assert new.settings["j_shifts"] == [{"isotopologue": "H35Cl", "branch": "P", "shift": 1}]
+    assert new.settings["excluded_positions_cm1"] == sorted(excluded)
+    assert new.settings["j_offsets"] == [["H35Cl", 1, 0, "P", 1]]
+    assert new.settings["not_applied"] == []
 
 
 async def test_keys_still_move_the_cursor_while_a_slow_file_is_processed(lab: dict[str, Path]) -> None:

@@ -43,13 +43,26 @@ class FlagReasonScreen(ModalScreen[str | None]):
         self.dismiss(None)
 
 
-def shift_options(species: tuple[str, ...] | list[str]) -> list[tuple[str, str]]:
-    """Select options "H35Cl P +1" etc.: renumber one branch of one isotopologue by one J."""
+def band_keys(run: Any) -> list[tuple[str, int, int]]:
+    """(isotopologue, v_upper, v_lower) of the run's fitted bands; 1-0 of each species otherwise."""
+    bands = [
+        (str(b.get("isotopologue")), int(b.get("v_upper", 1)), int(b.get("v_lower", 0)))
+        for b in ((run.result or {}).get("bands") or [])
+        if b.get("isotopologue")
+    ]
+    return bands or [(iso, 1, 0) for iso in run.species]
+
+
+def shift_options(bands: list[tuple[str, int, int]]) -> list[tuple[str, str]]:
+    """Select options such as "H35Cl 1-0 P branch J+1": renumber one branch of one band by one."""
     options = [("no J renumbering", NO_SHIFT)]
-    for iso in species:
+    for iso, v_upper, v_lower in bands:
         for branch in ("P", "R"):
             for shift in (+1, -1):
-                options.append((f"{iso} {branch} branch J{shift:+d}", f"{iso}|{branch}|{shift}"))
+                options.append(
+                    (f"{iso} {v_upper}-{v_lower} {branch} branch J{shift:+d}",
+                     f"{iso}|{v_upper}|{v_lower}|{branch}|{shift}")
+                )
     return options
 
 
@@ -89,7 +102,7 @@ class ReprocessScreen(ModalScreen[dict[str, Any] | None]):
             yield Label("species (comma separated; empty = detect)", classes="field-label")
             yield Input(value=self.species_text, id="species")
             yield Label("renumber a branch", classes="field-label")
-            yield Select(shift_options(self.run.species), value=NO_SHIFT, allow_blank=False, id="shift")
+            yield Select(shift_options(band_keys(self.run)), value=NO_SHIFT, allow_blank=False, id="shift")
             yield Label("exclude lines at cm-1 (marked with x in Lines)", classes="field-label")
             yield Input(value=", ".join(f"{p:.4f}" for p in self.excluded), id="exclude")
             yield Static("Enter or ctrl+s redoes · Tab next field · Esc cancels", classes="hint")
@@ -109,11 +122,12 @@ class ReprocessScreen(ModalScreen[dict[str, Any] | None]):
             self.notify(str(error), severity="error", timeout=3)
             return
         shift_value = self.query_one("#shift", Select).value
-        shifts: list[dict[str, Any]] = []
+        offsets: list[list[Any]] = []
         if isinstance(shift_value, str) and shift_value != NO_SHIFT:
-            iso, branch, amount = shift_value.split("|")
-            shifts.append({"isotopologue": iso, "branch": branch, "shift": int(amount)})
-        self.dismiss({"species": species, "j_shifts": shifts, "exclude_cm1": exclude})
+            iso, v_upper, v_lower, branch, amount = shift_value.split("|")
+            offsets.append([iso, int(v_upper), int(v_lower), branch, int(amount)])
+        # names as in processing.pipeline.ProcessSettings
+        self.dismiss({"species": species, "j_offsets": offsets, "excluded_positions_cm1": exclude})
 
     def action_cancel(self) -> None:
         self.dismiss(None)
