@@ -368,3 +368,11 @@ def test_writer_to_a_binary_stream_and_unknown_kind() -> None:
     assert stream.getvalue() == b"wavenumber_cm-1,absorbance\n1.0,0.25\n2.0,0.5\n"
     with pytest.raises(ValueError, match="unknown y kind"):
         delimited.write_csv(io.StringIO(), spectrum, y_kind="reflectance")
+
+
+def test_a_cut_off_last_row_is_an_error_not_a_footer() -> None:
+    # A file still being written ends mid-row: that is a ragged row, not trailing text.
+    with pytest.raises(SpectrumFileError) as caught:
+        read("cm-1,A\n1000,0.1\n1001,0.2\n1002.")
+    assert caught.value.line == 4
+    assert "1 values, expected 2" in caught.value.problem

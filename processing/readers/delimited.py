@@ -39,6 +39,7 @@ PROBE_ROWS = 50
 # off their grid, e.g. 2 decimals on a 0.125 cm-1 grid: +-0.005 is 4 %).
 ROUNDING_NOTE_FRACTION = 1e-3
 
+NO_ROWS = "no rows of numbers (x and y columns)"
 SEPARATOR_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", " ": "whitespace"}
 
 _NUMBER = re.compile(
@@ -253,11 +254,12 @@ def _find_data_start(
         before.append((index + 1, text.strip()))
         if len(before) > MAX_LEADING_TEXT_LINES:
             raise SpectrumFileError(
-                source, f"no rows of numbers (x and y columns) in the first {len(before)} lines of text"
+                source,
+                f"no rows of numbers (x and y columns) in the first {len(before)} lines of text",
             )
     if len(before) == 1:
-        raise SpectrumFileError(source, "no rows of numbers (x and y columns): one line of text", before[0][0])
-    raise SpectrumFileError(source, "no rows of numbers (x and y columns); the file holds only text")
+        raise SpectrumFileError(source, f"{NO_ROWS}: one line of text", before[0][0])
+    raise SpectrumFileError(source, f"{NO_ROWS}; the file holds only text")
 
 
 def _settle_decimal_mark(data: bytes, offset: int, layout: _RowFormat) -> _RowFormat:
@@ -271,6 +273,11 @@ def _settle_decimal_mark(data: bytes, offset: int, layout: _RowFormat) -> _RowFo
     return layout
 
 
+def _starts_with_number(text: str, layout: _RowFormat) -> bool:
+    fields = _split_fields(text, layout.separator)
+    return bool(fields) and _number(fields[0], layout.decimal_comma) is not None
+
+
 def _split_trailing_text(data: bytes, offset: int, layout: _RowFormat) -> tuple[int, list[str]]:
     """End of the numeric body and the text lines after it (a footer), read from the end."""
     end = len(data)
@@ -282,7 +289,8 @@ def _split_trailing_text(data: bytes, offset: int, layout: _RowFormat) -> tuple[
             return end, footer[::-1]
         start = max(data.rfind(b"\n", offset, end) + 1, offset)
         text = _decode_line(data[start:end]).strip()
-        if isinstance(_row_values(text, layout), list):
+        if _starts_with_number(text, layout):
+            # Data, even if malformed (a cut-off last row): the body pass reports it.
             return end, footer[::-1]
         footer.append(text)
         if len(footer) > MAX_TRAILING_TEXT_LINES:
@@ -329,11 +337,14 @@ def _clean_body(body: bytes, layout: _RowFormat) -> bytes:
     return body
 
 
-def _loadtxt_table(data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int) -> _Table | None:
+def _loadtxt_table(
+    data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int
+) -> _Table | None:
     """data[offset:end] through numpy's C text reader; None when it refuses (the slow pass
     then says why). A clean body is streamed from `data` in place, without a copy."""
     assert _TEXT_READER is not None
-    if layout.decimal_comma or layout.trailing_separator or not data[end:].isspace() and end < len(data):
+    footer_follows = end < len(data) and not data[end:].isspace()
+    if layout.decimal_comma or layout.trailing_separator or footer_follows:
         buffer, start = _clean_body(data[offset:end], layout), 0
     else:
         buffer, start = data, offset
@@ -384,7 +395,9 @@ def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int) -> _Tabl
     return _Table(values.reshape(rows, layout.columns), first_line, None)
 
 
-def _fast_table(data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int) -> _Table | None:
+def _fast_table(
+    data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int
+) -> _Table | None:
     """data[offset:end] parsed at C speed, or None when it is not clean (slow pass follows)."""
     if _TEXT_READER is not None:
         table = _loadtxt_table(data, offset, end, layout, first_line)
@@ -415,7 +428,9 @@ def _slow_table(body: bytes, layout: _RowFormat, first_line: int, source: str) -
             continue
         parsed = _row_values(text, layout)
         if isinstance(parsed, str):
-            raise SpectrumFileError(source, f"{parsed} (inside the data: rows of numbers follow)", line)
+            raise SpectrumFileError(
+                source, f"{parsed} (inside the data: rows of numbers follow)", line
+            )
         rows.append(parsed)
         lines.append(line)
     values = np.array(rows, dtype=np.float64).reshape(len(rows), layout.columns)
@@ -474,8 +489,14 @@ def _infer_y_kind(y: np.ndarray) -> tuple[str, str]:
     if low >= -0.05 and high <= 1.05 and high >= 0.8 and baseline_on_top:
         return "transmittance", f"{summary}: within 0..1.05, max near 1, baseline at the top"
     if low >= -5.0 and high <= 105.0 and median > 10.0 and baseline_on_top:
-        return "percent_transmittance", f"{summary}: within 0..105, median > 10, baseline at the top"
-    return "absorbance", f"{summary}: not a transmittance pattern (baseline at the bottom or out of 0..1 / 0..100)"
+        return (
+            "percent_transmittance",
+            f"{summary}: within 0..105, median > 10, baseline at the top",
+        )
+    return (
+        "absorbance",
+        f"{summary}: not a transmittance pattern (baseline at the bottom or out of 0..1 / 0..100)",
+    )
 
 
 def _check_axis(x: np.ndarray, table: _Table, source: str) -> np.ndarray:
@@ -490,8 +511,8 @@ def _check_axis(x: np.ndarray, table: _Table, source: str) -> np.ndarray:
             row = int(zero[0]) + 1
             raise SpectrumFileError(
                 source,
-                f"x value {float(x[row])!r} repeats the previous row's (line {table.line_of(row - 1)}): "
-                "duplicated x",
+                f"x value {float(x[row])!r} repeats the previous row's "
+                f"(line {table.line_of(row - 1)}): duplicated x",
                 table.line_of(row),
             )
         row = first_turn + 1
@@ -514,7 +535,8 @@ def _check_finite(values: np.ndarray, columns: tuple[int, int], table: _Table, s
         row, column = (int(i) for i in np.argwhere(~finite)[0])
         raise SpectrumFileError(
             source,
-            f"value {float(used[row, column])!r} in column {columns[column] + 1} is not a finite number",
+            f"value {float(used[row, column])!r} in column {columns[column] + 1} "
+            "is not a finite number",
             table.line_of(row),
         )
 
@@ -646,7 +668,9 @@ def _to_wavenumber(
     if nonpositive.size:
         row = int(nonpositive[0])
         raise SpectrumFileError(
-            source, f"wavelength {float(x[row])!r} is not positive: cannot convert to cm-1", table.line_of(row)
+            source,
+            f"wavelength {float(x[row])!r} is not positive: cannot convert to cm-1",
+            table.line_of(row),
         )
     factor = 1e4 if unit == "micrometre" else 1e7
     notes.append(f"x converted from {unit}: cm-1 = {factor:g} / x")
