@@ -471,13 +471,23 @@ def _find_chain(positions: np.ndarray, order_by_height: np.ndarray) -> list[int]
     return best if len(best) >= 8 else None
 
 
-def _number_chain(positions: np.ndarray) -> tuple[np.ndarray, float] | None:
-    """m for each chained line, choosing the band centre that gives the smoothest nu(m)."""
+def _number_chain(positions: np.ndarray, heights: np.ndarray) -> tuple[np.ndarray, float] | None:
+    """m for each chained line: every gap of ~2 steps is tried as the band centre.
+
+    Shifting all m by a constant fits nu(m) equally well, so the fit alone cannot place the
+    centre when another line is missing. What does: the lines beside the true centre, P(1) and
+    R(0), are the weakest of their branches' first lines (Hoenl-London factor 1 against 2, 3,
+    ...; common practice). Among numberings whose polynomial rms is within 2x the best, the one
+    whose gap-side lines are weakest relative to the next ones wins."""
     steps = np.diff(positions)
-    local = np.convolve(steps, np.ones(3) / 3.0, mode="same")
-    units = np.maximum(1, np.round(steps / np.minimum(local, np.median(steps))).astype(int))
+    # each step against its neighbours' (a skipped line or the centre gap shows as ~2x)
+    reference = np.empty_like(steps)
+    for i in range(steps.size):
+        around = np.concatenate([steps[max(0, i - 2) : i], steps[i + 1 : i + 3]])
+        reference[i] = np.min(around) if around.size else steps[i]
+    units = np.maximum(1, np.round(steps / reference).astype(int))
     n = np.concatenate([[0], np.cumsum(units)])
-    best: tuple[np.ndarray, float] | None = None
+    candidates: list[tuple[float, float, np.ndarray]] = []
     for gap in np.flatnonzero(units == 2):
         m = n - (n[gap] + 1)
         if not ((m < 0).sum() >= 3 and (m > 0).sum() >= 3):
@@ -485,12 +495,17 @@ def _number_chain(positions: np.ndarray) -> tuple[np.ndarray, float] | None:
         design = np.column_stack([np.ones_like(m, dtype=float), m, m**2, m**3])
         coef, *_ = np.linalg.lstsq(design, positions, rcond=None)
         rms = float(np.sqrt(np.mean((design @ coef - positions) ** 2)))
-        b_sum, b_diff = coef[1], coef[2]
-        if b_sum <= 0 or b_diff > 0:
+        if coef[1] <= 0 or coef[2] > 0:
             continue
-        if best is None or rms < best[1]:
-            best = (m, rms)
-    return best
+        beside = heights[np.abs(m) == 1]
+        further = heights[(np.abs(m) >= 2) & (np.abs(m) <= 4)]
+        contrast = float(beside.mean() / further.mean()) if beside.size and further.size else 1.0
+        candidates.append((rms, contrast, m))
+    if not candidates:
+        return None
+    best_rms = min(c[0] for c in candidates)
+    rms, _, m = min((c for c in candidates if c[0] <= 2.0 * best_rms + 1e-9), key=lambda c: c[1])
+    return m, rms
 
 
 def _identify(fit: BandFit, library: Any) -> tuple[str, int, int] | None:
@@ -504,7 +519,7 @@ def _identify(fit: BandFit, library: Any) -> tuple[str, int, int] | None:
             B_lower = rotational_constant(iso.dunham, v_lower)
             d_origin = abs(fit.origin.value - origin) / origin
             d_B = abs(fit.B_lower.value - B_lower) / B_lower
-            if d_origin < 0.01 and d_B < 0.02:
+            if abs(fit.origin.value - origin) < 10.0 and d_B < 0.01:
                 score = d_origin + d_B
                 if best is None or score < best[0]:
                     best = (score, (iso.label, v_upper, v_lower))
@@ -525,7 +540,7 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> lis
         if chain is None:
             break
         chain_index = index[np.array(chain)]
-        numbered = _number_chain(lines.position_cm1[chain_index])
+        numbered = _number_chain(lines.position_cm1[chain_index], lines.height[chain_index])
         strong[chain_index] = False
         if numbered is None:
             continue
@@ -593,7 +608,7 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
             main = max(present, key=lambda b: float(b.weight.max()))
             shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
             # minor isotopologues ride on the molecule's shift even when weak
-            riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.005]
+            riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.001]
             _merge_unresolved_partners(riding, width, peaks[usable], shift, notes)
             for band in riding:
                 if band.m.size:
@@ -689,7 +704,7 @@ def _finish(
         for k, line in enumerate(members):
             residual = float(fit.residuals[k])
             confidence = float(np.exp(-0.5 * (residual / max(3.0 * spread[k], 1e-9)) ** 2))
-            merged = abs(pull[k]) > 0
+            merged = bool(abs(pull[k]) > 0)
             if line in blended or merged:
                 confidence *= 0.5
             if lines.saturated[line]:
