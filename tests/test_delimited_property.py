@@ -15,7 +15,8 @@ def _valid_files() -> list[bytes]:
     y = 0.5 + 0.01 * np.sin(x)
     comma = "cm-1,A\n" + "".join(f"{a!r},{b!r}\n" for a, b in zip(x.tolist(), y.tolist()))
     quirky = "\ufeffLab export\r\nWavenumber (cm-1);%T;\r\n" + "".join(
-        f"{a:.2f};{100 * b:.3f};\r\n".replace(".", ",") for a, b in zip(x[::-1].tolist(), y.tolist())
+        f"{a:.2f};{100 * b:.3f};\r\n".replace(".", ",")
+        for a, b in zip(x[::-1].tolist(), y.tolist())
     )
     tabbed = "".join(f"{a:.3f}\t{b:.5f}\t7\n" for a, b in zip(x.tolist(), y.tolist())) + "END\n"
     return [comma.encode(), quirky.encode("utf-8"), tabbed.encode()]
@@ -48,9 +49,12 @@ def mutate(data: bytes, steps: list[tuple[str, int, object]]) -> bytes:
 
 @settings(max_examples=200, deadline=2000, suppress_health_check=[HealthCheck.too_slow])
 @given(st.sampled_from(range(len(VALID))), st.lists(mutation, min_size=1, max_size=4))
-def test_mutated_files_read_or_fail_cleanly(which: int, steps: list[tuple[str, int, object]]) -> None:
+def test_mutated_files_read_or_fail_cleanly(
+    which: int, steps: list[tuple[str, int, object]]
+) -> None:
     data = mutate(VALID[which], steps)
-    for read in (lambda: delimited.parse(data, "mutant.csv"), lambda: parse_bytes(data, "mutant.csv")):
+    readers = (lambda: delimited.parse(data, "mutant.csv"), lambda: parse_bytes(data, "mutant.csv"))
+    for read in readers:
         try:
             result = read()
         except SpectrumFileError as error:

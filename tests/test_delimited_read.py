@@ -121,7 +121,9 @@ def _lines_on_baseline(baseline: float, depth: float, n: int = 200) -> np.ndarra
         (0.5, 30.0, "absorbance"),  # out of 0..1 and baseline at the bottom
     ],
 )
-def test_y_kind_inferred_from_values_with_the_reason(baseline: float, depth: float, kind: str) -> None:
+def test_y_kind_inferred_from_values_with_the_reason(
+    baseline: float, depth: float, kind: str
+) -> None:
     y = _lines_on_baseline(baseline, depth)
     x = 2000.0 + 0.5 * np.arange(y.size)
     text = "".join(f"{a!r},{b!r}\n" for a, b in zip(x.tolist(), y.tolist()))
@@ -207,7 +209,8 @@ def test_whole_numbers_without_decimals() -> None:
 
 
 def test_x_rounded_off_a_regular_grid_is_kept_and_noted() -> None:
-    # A 0.125 cm-1 grid written with 2 decimals: steps of 0.12 and 0.13 (common practice in exports).
+    # A 0.125 cm-1 grid written with 2 decimals: steps of 0.12 and 0.13
+    # (common practice in exports).
     grid = 2000.0 + 0.125 * np.arange(40)
     rounded = np.round(grid, 2)
     assert np.max(np.abs(rounded - grid)) == pytest.approx(0.005, abs=1e-9)

@@ -30,12 +30,14 @@ def make_spectrum(points: int) -> Spectrum:
     """A plausible absorbance trace: 0.0605 cm-1 grid from 400 cm-1, baseline 0.5, noise."""
     rng = np.random.default_rng(points)
     x = 400.0 + 0.0605 * np.arange(points)
-    y = 0.5 + 0.002 * rng.standard_normal(points) + 0.3 * np.exp(-(((x - x[points // 2]) / 0.2) ** 2))
+    line = 0.3 * np.exp(-(((x - x[points // 2]) / 0.2) ** 2))
+    y = 0.5 + 0.002 * rng.standard_normal(points) + line
     return Spectrum.from_y(x, y, "absorbance")
 
 
 def write_quirky(path: Path, spectrum: Spectrum) -> None:
-    rows = map("{!r},{!r},\r\n".format, spectrum.wavenumber_cm1[::-1].tolist(), spectrum.absorbance[::-1].tolist())
+    x = spectrum.wavenumber_cm1[::-1].tolist()
+    rows = map("{!r},{!r},\r\n".format, x, spectrum.absorbance[::-1].tolist())
     text = "\ufeffExported by the demo lab's bench spectrometer\r\ncm-1,A,\r\n" + "".join(rows)
     path.write_bytes(text.encode("utf-8"))
 
@@ -80,7 +82,8 @@ def bench(points: int, folder: Path, repeats: int) -> dict[str, float]:
     table = with_loadtxt()
     ours = read_any(clean)
     assert isinstance(ours, Spectrum)
-    assert np.array_equal(table[:, 0], spectrum.wavenumber_cm1) and np.array_equal(ours.absorbance, spectrum.absorbance)
+    assert np.array_equal(table[:, 0], spectrum.wavenumber_cm1)
+    assert np.array_equal(ours.absorbance, spectrum.absorbance)
 
     timings: dict[str, list[float]] = {"loadtxt": [], "read_any": [], "parse": []}
     # Interleaved rounds, so that load from other work on the machine hits all three alike.
@@ -126,17 +129,19 @@ def main(argv: list[str] | None = None) -> int:
         for points in sizes:
             rows.append((points, bench(points, Path(folder), repeats)))
     print()
-    print(f"medians of {repeats} interleaved runs each; ratio = bandwatch / loadtxt (< 1 is faster)")
+    print(f"medians of {repeats} interleaved runs; ratio = bandwatch / loadtxt (< 1 is faster)")
     head = (
         f"{'points':>9} {'MB':>6} {'loadtxt s':>10} {'read_any s':>11} {'ratio':>6} "
-        f"{'parse s':>8} {'ratio':>6} {'quirky s':>9} {'peak MB loadtxt':>16} {'peak MB read_any':>17}"
+        f"{'parse s':>8} {'ratio':>6} {'quirky s':>9} "
+        f"{'peak MB loadtxt':>16} {'peak MB read_any':>17}"
     )
     print(head)
     print("-" * len(head))
     for points, r in rows:
         print(
             f"{points:>9} {r['mb']:>6.1f} {r['loadtxt']:>10.4f} {r['read_any']:>11.4f} "
-            f"{r['read_any'] / r['loadtxt']:>6.2f} {r['parse']:>8.4f} {r['parse'] / r['loadtxt']:>6.2f} "
+            f"{r['read_any'] / r['loadtxt']:>6.2f} {r['parse']:>8.4f} "
+            f"{r['parse'] / r['loadtxt']:>6.2f} "
             f"{r['quirky_s']:>9.4f} {r['mem_loadtxt']:>16.1f} {r['mem_read_any']:>17.1f}"
         )
     return 0
