@@ -39,6 +39,7 @@ PROBE_ROWS = 50
 # off their grid, e.g. 2 decimals on a 0.125 cm-1 grid: +-0.005 is 4 %).
 ROUNDING_NOTE_FRACTION = 1e-3
 
+_BLANK = re.compile(rb"\s*")
 NO_ROWS = "no rows of numbers (x and y columns)"
 SEPARATOR_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", " ": "whitespace"}
 
@@ -156,7 +157,7 @@ def _row_values(text: str, layout: _RowFormat) -> list[float] | str:
 
 
 def _lines_with_offsets(data: bytes, start: int, limit: int) -> list[tuple[int, int, bytes]]:
-    """Up to `limit` lines from `start` as (1-based line number offset, byte offset, raw)."""
+    """Up to `limit` lines from `start` as (0-based index from `start`, byte offset, raw)."""
     lines: list[tuple[int, int, bytes]] = []
     position = start
     index = 0
@@ -218,10 +219,12 @@ def parse(data: bytes, source: str) -> Spectrum:
         raise SpectrumFileError(source, f"cannot be read as delimited text ({error})") from None
 
 
-def _normalise_bytes(data: bytes, source: str, notes: list[str]) -> bytes:
-    """Strip a byte-order mark, turn UTF-16 into UTF-8 and lone CR endings into LF."""
+def _normalise_bytes(data: bytes, source: str, notes: list[str]) -> tuple[bytes, int]:
+    """(data, where the text starts): skips a byte-order mark (no copy), turns UTF-16 into
+    UTF-8 and lone CR line endings into LF."""
+    start = 0
     if data.startswith(UTF8_BOM):
-        data = data[len(UTF8_BOM) :]
+        start = len(UTF8_BOM)
         notes.append("UTF-8 byte-order mark skipped")
     elif data.startswith((b"\xff\xfe", b"\xfe\xff")):
         try:
@@ -229,22 +232,22 @@ def _normalise_bytes(data: bytes, source: str, notes: list[str]) -> bytes:
         except UnicodeDecodeError:
             raise SpectrumFileError(source, "starts like UTF-16 text but does not decode") from None
         notes.append("UTF-16 text decoded")
-    if not data or data.isspace():
+    if _BLANK.fullmatch(data, start):
         raise SpectrumFileError(source, "file is empty")
     if b"\x00" in data:
         line = data.count(b"\n", 0, data.index(b"\x00")) + 1
         raise SpectrumFileError(source, "binary data (NUL bytes), not delimited text", line)
     if b"\n" not in data and b"\r" in data:
         data = data.replace(b"\r", b"\n")
-    return data
+    return data, start
 
 
 def _find_data_start(
-    data: bytes, source: str
+    data: bytes, start: int, source: str
 ) -> tuple[int, int, _RowFormat, list[tuple[int, str]]]:
     """(byte offset, 1-based line, layout, [(line, text) of non-blank lines before data])."""
     before: list[tuple[int, str]] = []
-    for index, offset, raw in _lines_with_offsets(data, 0, 10 * MAX_LEADING_TEXT_LINES):
+    for index, offset, raw in _lines_with_offsets(data, start, 10 * MAX_LEADING_TEXT_LINES):
         text = _decode_line(raw)
         if not text.strip():
             continue
@@ -331,7 +334,10 @@ def _clean_body(body: bytes, layout: _RowFormat) -> bytes:
         body = body.replace(b",", b".")
     if layout.trailing_separator:
         separator = layout.separator.encode()
-        body = body.replace(separator + b"\r\n", b"\n").replace(separator + b"\n", b"\n")
+        # One pass for the file's line ending; a row ending otherwise leaves an empty field,
+        # which the C reader refuses and the slow pass then handles.
+        ending = b"\r\n" if b"\r\n" in body else b"\n"
+        body = body.replace(separator + ending, ending)
         if body.endswith(separator):
             body = body[: -len(separator)]
     return body
@@ -565,8 +571,8 @@ def _choose_y_column(header: tuple[str, ...] | None, columns: int) -> tuple[int,
 
 def _parse(data: bytes, source: str) -> Spectrum:
     notes: list[str] = []
-    data = _normalise_bytes(data, source, notes)
-    offset, first_line, layout, before = _find_data_start(data, source)
+    data, start = _normalise_bytes(data, source, notes)
+    offset, first_line, layout, before = _find_data_start(data, start, source)
     layout = _settle_decimal_mark(data, offset, layout)
 
     header: tuple[str, ...] | None = None
