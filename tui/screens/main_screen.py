@@ -67,7 +67,8 @@ class MainScreen(Screen[None]):
         super().__init__()
         self.runs: dict[int, Any] = {}
         self.busy_paths: list[str] = []
-        self.problems: dict[str, str] = {}  # path -> what the station said when it could not record it
+        self.problems: dict[str, str] = {}
+        self.follow_hold = False  # set while a just-redone run is to stay selected  # path -> what the station said when it could not record it
         self.selected_run_id: int | None = None
         self.excluded: dict[int, set[float]] = {}
         self.station_state = "no station"
@@ -200,14 +201,20 @@ class MainScreen(Screen[None]):
 
     @on(RunsLoaded)
     def show_runs(self, message: RunsLoaded) -> None:
-        self.runs = {run.run_id: run for run in message.runs}
         table = self.query_one(RunList)
+        # On the newest run (or none yet): follow new runs as they arrive; else stay put.
+        following = self.selected_run_id is None or self.selected_run_id == max(self.runs, default=None)
+        self.runs = {run.run_id: run for run in message.runs}
         keep = self.selected_run_id
+        if following and message.runs:
+            keep = message.runs[0].run_id
         recorded = {run.path for run in message.runs}
         self.busy_paths = [path for path in self.busy_paths if path not in recorded]
         table.fill(message.runs, self.busy_paths, keep_run_id=keep, problems=self.problems)
         if keep is None or keep not in self.runs:
             self.select_run(table.selected_run_id())
+        elif keep != self.selected_run_id:
+            self.select_run(keep)
         else:
             self.update_summary()
         self.update_title()

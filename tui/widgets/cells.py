@@ -39,7 +39,7 @@ def verdict_text(status: str, verdict: str | None) -> Text:
     if status in STATUS_LABELS:
         label, style = STATUS_LABELS[status]
     else:
-        label, style = VERDICT_LABELS.get(verdict, (f"? {verdict or 'none'}".upper(), "dim"))
+        label, style = VERDICT_LABELS.get(verdict, (f"· {verdict or 'none'}", "dim"))
     return Text(label, style=style)
 
 

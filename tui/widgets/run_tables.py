@@ -227,7 +227,7 @@ class ConstantsTable(DataTable):
 
     def on_mount(self) -> None:
         self.add_column("isotopologue", key="iso", width=12)
-        self.add_column("quantity", key="quantity", width=16)
+        self.add_column("quantity", key="quantity", width=17)
         self.add_column("fitted", key="value", width=12)
         self.add_column("±", key="sigma", width=9)
         self.add_column("reference", key="reference", width=11)
@@ -245,7 +245,7 @@ class ConstantsTable(DataTable):
                 self._add(iso, key, f"{label} {tag}", value, sigma, Text(""))
             rms = band.get("rms")
             self._add(
-                iso, "", f"rms cm-1 {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text("")
+                iso, "", f"rms {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text("")
             )
         for constant in constants:
             iso = str(constant.get("isotopologue", "?"))

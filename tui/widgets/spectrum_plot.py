@@ -71,7 +71,10 @@ def braille_rows(columns_low: np.ndarray, columns_high: np.ndarray, dot_rows: in
 
 
 def _tick_label(value: float) -> str:
-    return f"{value:.0f}" if abs(value) >= 100 else f"{value:.3g}"
+    if abs(value) >= 100:
+        return f"{value:.0f}"
+    text = f"{value:.3f}" if abs(value) < 10 else f"{value:.2f}"
+    return "0.000" if text == "-0.000" else text
 
 
 def draw_spectrum(
@@ -90,10 +93,12 @@ def draw_spectrum(
     """
     low, high = float(min(window)), float(max(window))
     plot_width = max(4, width - GUTTER)
-    isotopologues: list[str] = []
+    # Isotopologues by number of assigned lines, most first: the main one gets the P/R markers.
+    counts: dict[str, int] = {}
     for line in lines:
-        if line.isotopologue and line.isotopologue not in isotopologues:
-            isotopologues.append(line.isotopologue)
+        if line.isotopologue:
+            counts[line.isotopologue] = counts.get(line.isotopologue, 0) + 1
+    isotopologues = sorted(counts, key=lambda iso: (-counts[iso], iso))
     visible = [ln for ln in lines if low <= ln.position_cm1 <= high]
     shown_isos = [iso for iso in isotopologues if any(ln.isotopologue == iso for ln in visible)]
     has_unassigned = any(ln.isotopologue is None for ln in visible)
