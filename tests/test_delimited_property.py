@@ -71,3 +71,32 @@ def test_unmutated_files_are_valid() -> None:
     # Guards the property above: the starting files must themselves read.
     for data in VALID:
         assert delimited.parse(data, "valid.csv").points == 40
+
+
+finite = st.floats(allow_nan=False, allow_infinity=False, width=64)
+
+
+@settings(max_examples=100, deadline=2000)
+@given(
+    st.lists(
+        st.tuples(st.floats(0.01, 1e4), finite), min_size=2, max_size=30, unique_by=lambda r: r[0]
+    ),
+    st.sampled_from([",", ";", "\t", " "]),
+    st.booleans(),
+)
+def test_fast_and_line_by_line_passes_read_the_same_exact_numbers(
+    rows: list[tuple[float, float]], separator: str, trailing: bool
+) -> None:
+    rows.sort()
+    end = separator if trailing and separator != " " else ""
+    lines = [f"{x!r}{separator}{y!r}{end}" for x, y in rows]
+    clean = ("x" + separator + "A\n" + "\n".join(lines) + "\n").encode()
+    # A blank line in the middle sends the body through the line-by-line pass instead.
+    middle = len(lines) // 2
+    spaced = ("x" + separator + "A\n" + "\n".join(lines[:middle] + [""] + lines[middle:])).encode()
+    fast, slow = delimited.parse(clean, "a.csv"), delimited.parse(spaced, "b.csv")
+    # repr text reads back to the identical double (shortest round-trip repr, Python docs).
+    assert fast.wavenumber_cm1.tolist() == [x for x, _ in rows]
+    assert fast.absorbance.tolist() == [y for _, y in rows]
+    assert np.array_equal(slow.wavenumber_cm1, fast.wavenumber_cm1)
+    assert np.array_equal(slow.absorbance, fast.absorbance)

@@ -212,7 +212,9 @@ def identify(head: bytes) -> bool:
 def parse(data: bytes, source: str) -> Spectrum:
     """Read delimited text into a `Spectrum`; any problem is a `SpectrumFileError`."""
     try:
-        return _parse(data, source)
+        # Huge but finite values may overflow sums and steps: checks handle that themselves.
+        with np.errstate(over="ignore", invalid="ignore"):
+            return _parse(data, source)
     except SpectrumFileError:
         raise
     except (ValueError, TypeError, IndexError, OverflowError, UnicodeError) as error:
