@@ -379,3 +379,26 @@ def test_a_cut_off_last_row_is_an_error_not_a_footer() -> None:
         read("cm-1,A\n1000,0.1\n1001,0.2\n1002.")
     assert caught.value.line == 4
     assert "1 values, expected 2" in caught.value.problem
+
+
+def test_numpys_c_reader_is_the_fast_path_on_this_numpy() -> None:
+    # If a numpy upgrade removes or changes it, reading still works (fallback below) but
+    # slower: this test says so instead of letting the benchmark drift silently.
+    assert delimited._TEXT_READER_WORKS
+
+
+@pytest.mark.parametrize(
+    "text",
+    ["\ufeffnote\ncm-1,A,\n3000,0.5,\n2999.5,0.25,\n", "cm-1;A\n2999,5;0,25\n3000;0,5\n"],
+)
+def test_the_fromstring_fallback_reads_the_same(
+    monkeypatch: pytest.MonkeyPatch, text: str
+) -> None:
+    expected = read(text)
+    monkeypatch.setattr(delimited, "_TEXT_READER", None)
+    again = read(text)
+    assert again.wavenumber_cm1.tolist() == expected.wavenumber_cm1.tolist() == [2999.5, 3000.0]
+    assert again.absorbance.tolist() == expected.absorbance.tolist() == [0.25, 0.5]
+    with pytest.raises(SpectrumFileError) as caught:
+        read("cm-1,A\n1,2\n2,3\n3\n4,5\n")
+    assert caught.value.line == 4
