@@ -250,3 +250,32 @@ async def test_export_writes_the_report_outside_the_export_folder(lab: dict[str,
     assert sorted(p.name for p in lab["export"].iterdir()) == [
         "empty_scan.csv", "hcl_cell_01.csv", "hcl_cell_02.csv", "hcl_cell_03.csv"
     ]
+
+
+async def test_selection_follows_new_runs_only_from_the_newest(lab: dict[str, Path]) -> None:
+    from processing.station.ledger import record_run
+
+    from conftest import hcl_result
+
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        screen = app.screen
+        assert isinstance(screen, MainScreen)
+        newest = screen.selected_run_id
+
+        async def new_run(name: str) -> int:
+            path = str(lab["export"] / name)
+            conn = open_ledger(lab["data"])
+            run = record_run(conn, path, "2" * 64, "processed", result=hcl_result(path, 2885.99))
+            conn.close()
+            screen.post_message(StationEventReceived(RunProcessed(run.run_id, 1, path, "processed", "pass", ("H35Cl",))))
+            await settle(app, pilot)
+            return run.run_id
+
+        first = await new_run("hcl_cell_05.csv")
+        assert first != newest and screen.selected_run_id == first  # was on the newest: follows
+        await pilot.press("j", "j")  # move down to an older run
+        older = screen.selected_run_id
+        await new_run("hcl_cell_06.csv")
+        assert screen.selected_run_id == older  # reading an older run: stays put
