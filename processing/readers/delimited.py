@@ -15,9 +15,9 @@ from __future__ import annotations
 
 import io
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from collections.abc import Callable
 from typing import BinaryIO, TextIO
 
 import numpy as np
@@ -35,7 +35,7 @@ MAX_LEADING_TEXT_LINES = 60
 MAX_TRAILING_TEXT_LINES = 60
 # Rows sampled at the top of the data to settle separator and decimal mark.
 PROBE_ROWS = 50
-# x steps varying by more than this fraction of the median step get a note (values rounded
+# x steps varying by more than this fraction of the mean step get a note (values rounded
 # off their grid, e.g. 2 decimals on a 0.125 cm-1 grid: +-0.005 is 4 %).
 ROUNDING_NOTE_FRACTION = 1e-3
 
