@@ -389,3 +389,13 @@ def test_bad_input_is_one_error(text: str | bytes, fragments: tuple[str, ...]) -
 def test_truncated_error_names_the_last_line() -> None:
     text = header(FIRSTX=1, LASTX=3, NPOINTS=3) + XY + "1 1 2 3\n"
     assert refused(text).line == 10  # 8 header lines, ##XYDATA= on 9, the data line on 10
+
+
+def test_check_only_last_line_with_e_right_after_x() -> None:
+    # 1946E434JJ: X 1946, E434 = +5434, J = +1 twice -> 5435, 5436; "1948E436" is the Y-check
+    # alone on the last line (X 1948 = the third point), dropped: 3 points, not 4.
+    # (the same file is shown in tests/benchmarks/bench_read_jcamp.py)
+    text = header(FIRSTX=1946, LASTX=1948, DELTAX=1, NPOINTS=3) + "##XYDATA=(X++(Y..Y))\n1946E434JJ\n1948E436\n##END=\n"
+    s = read_spectrum(text)
+    assert s.wavenumber_cm1.tolist() == [1946, 1947, 1948]
+    assert s.absorbance.tolist() == [5434, 5435, 5436]
