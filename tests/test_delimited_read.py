@@ -402,3 +402,24 @@ def test_the_fromstring_fallback_reads_the_same(
     with pytest.raises(SpectrumFileError) as caught:
         read("cm-1,A\n1,2\n2,3\n3\n4,5\n")
     assert caught.value.line == 4
+
+
+@pytest.mark.parametrize(
+    "line, value",
+    [
+        ("Resolution: 0.5 cm-1", 0.5),
+        ("resolution,4", 4.0),
+        ("Resolution (cm-1) = 0,25", 0.25),
+        ("Spectral resolution 2 1/cm; 32 scans", 2.0),
+        ("Resolution: 0.5 cm-1 Happ-Genzel", 0.5),
+    ],
+)
+def test_resolution_stated_in_the_free_text_is_kept(line: str, value: float) -> None:
+    spectrum = read(f"{line}\ncm-1,A\n1000,0.1\n1001,0.2\n")
+    assert spectrum.meta.resolution_cm1 == value
+    assert has_note(spectrum, "resolution", "taken from the text")
+
+
+def test_no_resolution_when_the_text_does_not_state_one() -> None:
+    text = "Resolution set by operator\nRun 4, 0.5 torr\nResolution: 0.5 nm\ncm-1,A\n1000,0.1\n1001,0.2\n"
+    assert read(text).meta.resolution_cm1 is None

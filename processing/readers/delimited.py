@@ -61,6 +61,12 @@ _X_CM1 = re.compile(
 _X_UM = _word(r"µm|μm|um|microns?|micrometres?|micrometers?")
 _X_NM = _word(r"nm|nanometres?|nanometers?")
 _X_WAVELENGTH = _word(r"wavelength|lambda|λ")
+# "Resolution: 0.5 cm-1", "resolution,4", "Resolution = 0,25 1/cm" in free text above the data.
+_RESOLUTION = re.compile(
+    r"resolution\s*(?:\([^)]*\))?\s*[:=,;\t ]\s*(\d+(?:[.,]\d+)?)"
+    r"(?:\s*(?:cm-1|1/cm|cm\^-1|cm⁻¹)(?!\w)|(?!\s*[A-Za-zµ%\d.,]))",
+    re.IGNORECASE,
+)
 _Y_PERCENT = re.compile(r"%|percent", re.IGNORECASE)
 _Y_ABSORBANCE = _word(r"a|abs|absorbance|absorption|au|a\.u\.")
 _Y_TRANSMITTANCE = _word(r"t|trans|transmittance|transmission|transmissivity")
@@ -586,6 +592,7 @@ def _parse(data: bytes, source: str) -> Spectrum:
             header_text = free_text.pop()
     if free_text:
         notes.append(f"{len(free_text)} line(s) of free text before the data kept as title/header")
+    resolution = _stated_resolution(free_text, notes)
 
     end, footer = _split_trailing_text(data, offset, layout)
     if footer:
@@ -650,6 +657,7 @@ def _parse(data: bytes, source: str) -> Spectrum:
         header_pairs += (("columns", header_text),)
     meta = FileMetadata(
         title=free_text[0] if free_text else "",
+        resolution_cm1=resolution,
         format=file_format,
         header=header_pairs,
         notes=tuple(notes),
@@ -658,6 +666,18 @@ def _parse(data: bytes, source: str) -> Spectrum:
         return Spectrum(x_cm1, absorbance, saturated, kind, conversion, meta)
     except ValueError as error:  # e.g. two x values equal after unit conversion
         raise SpectrumFileError(source, str(error)) from None
+
+
+def _stated_resolution(free_text: list[str], notes: list[str]) -> float | None:
+    """A resolution stated in the free text above the data (cm-1), as the file gives it."""
+    for text in free_text:
+        found = _RESOLUTION.search(text)
+        if found is not None:
+            value = float(found.group(1).replace(",", "."))
+            if value > 0:
+                notes.append(f"resolution {value:g} cm-1 taken from the text {text[:60]!r}")
+                return value
+    return None
 
 
 def _to_wavenumber(
