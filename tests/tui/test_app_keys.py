@@ -219,10 +219,22 @@ async def test_help_lists_the_keys_and_closes(lab: dict[str, Path]) -> None:
 
 
 async def test_trend_screen_shows_the_band_origin_over_the_day(lab: dict[str, Path]) -> None:
+    from processing.station.ledger import record_run
+
+    from conftest import hcl_result
+
+    # An overtone run of the same isotopologue: its 2-0 origin must not join the 1-0 trend.
+    overtone_path = str(lab["export"] / "hcl_overtone.csv")
+    overtone = hcl_result(overtone_path, 5667.98)  # H35Cl 2-0 origin, same source as conftest
+    overtone["bands"][0]["v_upper"] = 2
+    conn = open_ledger(lab["data"])
+    record_run(conn, overtone_path, "3" * 64, "processed", result=overtone,
+               received_at="2026-03-05T11:00:00.000Z", processed_at="2026-03-05T11:00:00.000Z")
+    conn.close()
     app = BandwatchApp(lab["data"], lab["export"], operator="tester")
     async with app.run_test(size=SIZE) as pilot:
         await settle(app, pilot)
-        await pilot.press("j", "t")
+        await pilot.press("j", "j", "t")  # hcl_cell_03 (below the unreadable run and the overtone)
         await settle(app, pilot)
         assert isinstance(app.screen, HistoryScreen)
         table = app.screen.query_one(HistoryTable)

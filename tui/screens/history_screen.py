@@ -19,19 +19,37 @@ from tui.widgets.trend_plot import TrendPlot
 
 
 def quantity_choices(result: dict[str, Any]) -> list[tuple[str, str, str]]:
-    """(isotopologue, quantity key, label) for every quantity the run has a value of."""
+    """(isotopologue, quantity id, label) for every quantity the run has a value of.
+
+    A band quantity's id carries its band ("origin@1-0"), so runs of another band of the same
+    isotopologue (an overtone) are not mixed into its trend.
+    """
     choices: list[tuple[str, str, str]] = []
     for band in result.get("bands") or []:
         iso = str(band.get("isotopologue", "?"))
+        tag = f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}"
         for key, label in BAND_ROWS:
-            if isinstance(band.get(key), dict) and (iso, key) not in [(c[0], c[1]) for c in choices]:
-                choices.append((iso, key, f"{iso} {label}"))
+            if isinstance(band.get(key), dict) and (iso, f"{key}@{tag}") not in [(c[0], c[1]) for c in choices]:
+                choices.append((iso, f"{key}@{tag}", f"{iso} {label} {tag}"))
     for constant in result.get("constants") or []:
         iso = str(constant.get("isotopologue", "?"))
         for key, label in CONSTANT_ROWS:
             if isinstance(constant.get(key), dict):
                 choices.append((iso, key, f"{iso} {label}"))
     return choices
+
+
+def in_band(result: dict[str, Any] | None, isotopologue: str, quantity: str, tag: str, value: float) -> bool:
+    """True when the run's value of `quantity` for `isotopologue` belongs to band `tag` ("1-0")."""
+    for band in (result or {}).get("bands") or []:
+        if band.get("isotopologue") != isotopologue:
+            continue
+        if f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}" != tag:
+            continue
+        estimate = band.get(quantity)
+        if isinstance(estimate, dict) and estimate.get("value") == value:
+            return True
+    return False
 
 
 class HistoryTable(DataTable):
@@ -94,15 +112,21 @@ class HistoryScreen(Screen[None]):
         self.load_history(iso, key)
 
     @work(thread=True, exclusive=True, exit_on_error=False)
-    def load_history(self, isotopologue: str, quantity: str) -> None:
-        from processing.station.ledger import constant_history, open_ledger
+    def load_history(self, isotopologue: str, quantity_id: str) -> None:
+        from processing.station.ledger import constant_history, get_run, open_ledger
 
+        quantity, _, band_tag = quantity_id.partition("@")
         conn = open_ledger(self.app.data_dir)  # type: ignore[attr-defined]
         try:
             points = constant_history(conn, isotopologue, quantity)
+            if band_tag:
+                points = [
+                    point for point in points
+                    if in_band(getattr(get_run(conn, point[1]), "result", None), isotopologue, quantity, band_tag, point[2])
+                ]
         finally:
             conn.close()
-        self.post_message(HistoryLoaded(isotopologue, quantity, points))
+        self.post_message(HistoryLoaded(isotopologue, quantity_id, points))
 
     @on(HistoryLoaded)
     def show_history(self, message: HistoryLoaded) -> None:

@@ -242,7 +242,7 @@ class ConstantsTable(DataTable):
                 if band.get(key) is None:
                     continue
                 value, sigma = quantity_cells(band.get(key))
-                self._add(iso, key, f"{label} {tag}", value, sigma, Text(""))
+                self._add(iso, f"{key}@{tag}", f"{label} {tag}", value, sigma, Text(""))
             rms = band.get("rms")
             self._add(
                 iso, "", f"rms {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text("")

@@ -33,8 +33,14 @@ def draw_trend(values: Sequence[float], sigmas: Sequence[float | None], width: i
 
     top = np.full(dot_cols, dot_rows, dtype=int)
     bottom = np.full(dot_cols, -1, dtype=int)
-    np.minimum.at(top, columns, to_row(value_array + sigma_array))
-    np.maximum.at(bottom, columns, to_row(value_array - sigma_array))
+    centre = to_row(value_array)
+    # each run: its ±sigma bar, at least three dots tall, two dots wide, so a point is visible
+    bar_top = np.minimum(to_row(value_array + sigma_array), np.maximum(centre - 1, 0))
+    bar_bottom = np.maximum(to_row(value_array - sigma_array), np.minimum(centre + 1, dot_rows - 1))
+    for offset in (0, 1):
+        cols = np.clip(columns + offset if count > 1 else columns + offset, 0, dot_cols - 1)
+        np.minimum.at(top, cols, bar_top)
+        np.maximum.at(bottom, cols, bar_bottom)
     rows = braille_rows(top, bottom, dot_rows)
     out: list[Text] = []
     for index, row in enumerate(rows):
