@@ -24,7 +24,7 @@ Each assignment carries a confidence in [0, 1]; lines left over get a likely cau
 from __future__ import annotations
 
 import functools
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -150,17 +150,24 @@ def _predicted_band(library: Any, label: str, v_upper: int, v_lower: int, temper
         return None
 
 
-def _band_may_overlap(iso: Any, v_upper: int, v_lower: int, first: float, last: float) -> bool:
-    """Cheap test before predicting intensities: the band's lines up to J'' = 40 reach the range."""
-    lines = band_lines(iso.dunham, v_upper, v_lower, 40)
+@functools.lru_cache(maxsize=1024)
+def _band_extent(library: Any, label: str, v_upper: int, v_lower: int) -> tuple[float, float]:
+    """Lowest and highest line of the band up to J'' = 40 (cached)."""
+    lines = band_lines(library.isotopologue(label).dunham, v_upper, v_lower, 40)
     position = lines.wavenumber_cm1[np.isfinite(lines.wavenumber_cm1)]
-    return bool(position.size) and float(position.max()) > first - 10.0 and float(position.min()) < last + 10.0
+    return (float(position.min()), float(position.max())) if position.size else (np.inf, -np.inf)
+
+
+def _band_may_overlap(library: Any, iso: Any, v_upper: int, v_lower: int, first: float, last: float) -> bool:
+    """Cheap test before predicting intensities: the band's lines up to J'' = 40 reach the range."""
+    low, high = _band_extent(library, iso.label, v_upper, v_lower)
+    return high > first - 10.0 and low < last + 10.0
 
 
 def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> list[_Band]:
     bands: list[_Band] = []
     for iso in library.molecule(molecule):
-        if not _band_may_overlap(iso, v_upper, v_lower, first, last):
+        if not _band_may_overlap(library, iso, v_upper, v_lower, first, last):
             continue
         predicted = _predicted_band(library, iso.label, v_upper, v_lower, temperature_K)
         if predicted is None:
@@ -302,7 +309,7 @@ def _fit_band_lines(
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known)
+        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False)
     except (ValueError, np.linalg.LinAlgError):
         return None
 
@@ -409,6 +416,7 @@ def _refine(bands: list[_Band], lines: LineTable, usable: np.ndarray, tol0: floa
     previous: dict[int, tuple[int, int]] | None = None
     winners: dict[int, _Claim] = {}
     blended: set[int] = set()
+    members_before: dict[int, frozenset[tuple[int, int]]] = {}
     for _ in range(8):
         claims = _claims(peaks, usable, bands, _tolerances(bands, lines, tol0))
         winners, blended = _resolve(claims, bands)
@@ -418,6 +426,10 @@ def _refine(bands: list[_Band], lines: LineTable, usable: np.ndarray, tol0: floa
         previous = state
         for bi, band in enumerate(bands):
             mine = [c for c in winners.values() if c.band == bi]
+            members = frozenset((c.line, c.m) for c in mine)
+            if members_before.get(bi) == members:
+                continue  # same lines as last pass: the fit would not change
+            members_before[bi] = members
             fit = _fit_band_lines(band, mine, lines, blended)
             if fit is not None and fit.n_lines >= 4:
                 band.fit = fit
@@ -544,7 +556,12 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> lis
         strong[chain_index] = False
         if numbered is None:
             continue
-        m, _ = numbered
+        m, rms = numbered
+        spacing = float(np.median(np.abs(np.diff(lines.position_cm1[chain_index]) / np.maximum(np.abs(np.diff(m)), 1))))
+        # a real band follows its smooth nu(m) to ~1e-3 of a spacing; chance chains of
+        # unrelated lines (dense water-like regions) scatter by a few percent
+        if rms > 0.01 * spacing or (m < 0).sum() < 4 or (m > 0).sum() < 4:
+            continue
         branch, J_lower = branch_from_m(m)
         try:
             fit = fit_band("unidentified", 1, 0, branch, J_lower, lines.position_cm1[chain_index], lines.position_sigma_cm1[chain_index], lines.sigma_known)
@@ -605,7 +622,6 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
             present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, density, first_cm1, last_cm1)]
             if not present:
                 continue
-            main = max(present, key=lambda b: float(b.weight.max()))
             shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
             # minor isotopologues ride on the molecule's shift even when weak
             riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.001]
@@ -615,8 +631,6 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
                     band.position = band.position + shift
                     J_caps[band.key] = int(np.max(np.abs(band.m))) + 2
                     bands.append(band)
-            if abs(shift) > 3 * tol0:
-                notes.append(f"{molecule} {v_upper}-{v_lower}: lines sit {shift:+.2f} cm-1 from the library prediction ({main.isotopologue})")
 
     winners, blended = _refine(bands, lines, usable, tol0, J_caps) if bands else ({}, set())
     if bands and np.all(np.isfinite(lines.snr)):
@@ -652,7 +666,13 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    return _finish(lines, assignment, blended, shifts, notes, [bands[i] for i in kept_bands])
+    result = _finish(lines, assignment, blended, shifts, notes, [bands[i] for i in kept_bands])
+    if settings.species:
+        found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
+        missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
+        if missing:
+            result = replace(result, notes=result.notes + tuple(f"expected {name}: no band of it found" for name in missing))
+    return result
 
 
 def _candidate_molecules(library: Any, species: tuple[str, ...], notes: list[str]) -> list[str]:

@@ -209,10 +209,12 @@ def fit_band(
     observed_cm1: np.ndarray,
     sigma_cm1: np.ndarray,
     sigma_known: bool = True,
+    cross_check: bool = True,
 ) -> BandFit:
     """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
 
-    `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`)."""
+    `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`);
+    `cross_check=False` skips the combination-difference fits (used while iterating)."""
     branch = np.asarray(branch)
     J_lower = np.asarray(J_lower, dtype=np.int64)
     observed = np.asarray(observed_cm1, dtype=np.float64)
@@ -233,8 +235,10 @@ def fit_band(
     else:
         D_upper = D_lower = None
     used = fit.used
-    lower_cd = fit_combination_differences("lower", v_lower, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
-    upper_cd = fit_combination_differences("upper", v_upper, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
+    lower_cd = upper_cd = None
+    if cross_check:
+        lower_cd = fit_combination_differences("lower", v_lower, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
+        upper_cd = fit_combination_differences("upper", v_upper, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
     return BandFit(
         isotopologue=isotopologue,
         v_upper=v_upper,

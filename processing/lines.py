@@ -290,11 +290,13 @@ def _collapse_saturated(spectrum: Spectrum, baseline: BaselineResult, peaks: np.
     spacing = spectrum.spacing_cm1
     keep = np.ones(peaks.size, dtype=bool)
     collapsed: list[tuple[float, float, float, float]] = []
+    peak_x = x[peaks]
     for region in baseline.saturated_regions:
-        inside = (x[peaks] >= region.first_cm1 - 2 * spacing) & (x[peaks] <= region.last_cm1 + 2 * spacing)
-        keep &= ~inside
+        lo = np.searchsorted(peak_x, region.first_cm1 - 2 * spacing)
+        hi = np.searchsorted(peak_x, region.last_cm1 + 2 * spacing, side="right")
+        keep[lo:hi] = False
         centre = 0.5 * (region.first_cm1 + region.last_cm1)
-        k = int(np.argmin(np.abs(x - centre)))
+        k = min(int(np.searchsorted(x, centre)), x.size - 1)
         height = float(region.peak_absorbance - baseline.baseline[k])
         collapsed.append((centre, 0.5 * spacing, height, region.last_cm1 - region.first_cm1 + spacing))
     return peaks[keep], collapsed

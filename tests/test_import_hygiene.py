@@ -40,3 +40,16 @@ def test_process_command_path_does_not_import_textual() -> None:
     )
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert result.stdout.strip() == "False"
+
+
+def test_import_linter_contract_holds() -> None:
+    # The same wall stated statically in pyproject.toml ([tool.importlinter]).
+    import shutil
+    from pathlib import Path
+
+    linter = shutil.which("lint-imports", path=str(Path(sys.executable).parent)) or shutil.which("lint-imports")
+    assert linter, "import-linter is part of the test extra"
+    root = Path(__file__).resolve().parents[1]
+    result = subprocess.run([linter], capture_output=True, text=True, cwd=root)
+    assert result.returncode == 0, result.stdout + result.stderr
+    assert "1 kept, 0 broken" in result.stdout

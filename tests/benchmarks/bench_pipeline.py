@@ -1,0 +1,133 @@
+"""Benchmark: spectrum file -> band fits (`bandwatch process`'s work), in-process and whole-process.
+
+Run: python tests/benchmarks/bench_pipeline.py [--repeat N]
+
+Reports, in one run on this machine (shared and noisy, so ratios matter):
+- in-process time from a file on disk to band fits for a 64k- and a 1M-point spectrum
+  (JCAMP-DX DIF and CSV), median of N, with the share of each stage; targets 50 ms and 0.6 s;
+  a same-run reference (numpy.loadtxt reading the same spectrum as CSV) and the ratio to it;
+- whole-process `bandwatch process FILE` against `python -c "import numpy"` (target <= 5x);
+- the peak search on a 1M-point array, noise-free against pure noise (must not degrade).
+"""
+from __future__ import annotations
+
+import argparse
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from processing.baseline import estimate_baseline
+from processing.instrument import Instrument
+from processing.lines import find_peaks
+from processing.pipeline import ProcessSettings, analyse
+from processing.readers import read_any
+from processing.readers.delimited import write_csv
+from processing.readers.jcamp_write import write_jcamp
+from processing.simulate import Cell, SampleGas, SimulationSettings, simulate
+
+
+def median_time(function, repeat: int) -> float:
+    times = []
+    for _ in range(repeat):
+        start = time.perf_counter()
+        function()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def make_spectrum(points: int):
+    """HCl + DCl cell, resolution chosen so the band region fills `points` (spacing res/4)."""
+    span = 3100.0 - 1850.0
+    resolution = 4.0 * span / points
+    settings = SimulationSettings(
+        (SampleGas(("HCl",), 0.05), SampleGas(("DCl",), 0.05)),
+        Cell(10.0),
+        Instrument(resolution_cm1=resolution, zero_fill=2, first_cm1=1850.0, last_cm1=3100.0, seed=1),
+    )
+    return simulate(settings).spectrum
+
+
+def in_process(path: Path, repeat: int) -> tuple[float, dict[str, float], int]:
+    stage_times: dict[str, list[float]] = {}
+    totals = []
+    bands = 0
+    for _ in range(repeat):
+        start = time.perf_counter()
+        data = read_any(path)
+        read_time = time.perf_counter() - start
+        analysis = analyse(data, ProcessSettings())
+        totals.append(time.perf_counter() - start)
+        stage_times.setdefault("read", []).append(read_time * 1e3)
+        for stage, ms in analysis.timing_ms.items():
+            stage_times.setdefault(stage, []).append(ms)
+        bands = len(analysis.assignment.bands)
+    return statistics.median(totals), {k: statistics.median(v) for k, v in stage_times.items()}, bands
+
+
+def whole_process(command: list[str], repeat: int) -> float:
+    return median_time(lambda: subprocess.run(command, check=True, capture_output=True), repeat)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--repeat", type=int, default=7)
+    args = parser.parse_args()
+    print("bandwatch pipeline benchmark (file -> band fits)")
+    with tempfile.TemporaryDirectory() as folder:
+        work = Path(folder)
+        rows = []
+        files = {}
+        for points in (65_536, 1_000_000):
+            spectrum = make_spectrum(points)
+            for form in ("dif", "csv"):
+                path = work / f"bench_{points}.{ 'jdx' if form == 'dif' else 'csv'}"
+                if form == "dif":
+                    write_jcamp(path, spectrum, form="dif")
+                else:
+                    write_csv(path, spectrum)
+                files[(points, form)] = path
+                analyse(read_any(path))  # warm the library caches, as a running station has them
+                repeat = args.repeat if points < 500_000 else max(3, args.repeat // 2)
+                total, stages, bands = in_process(path, repeat)
+                csv_path = files.get((points, "csv")) or work / f"ref_{points}.csv"
+                if not csv_path.exists():
+                    write_csv(csv_path, spectrum)
+                reference = median_time(lambda: np.loadtxt(csv_path, delimiter=",", skiprows=1), max(3, repeat // 2))
+                rows.append((points, form, total, stages, bands, reference))
+        print(f"\n{'points':>9} {'file':>4} {'median':>10} {'target':>8} {'loadtxt':>9} {'ratio':>6}  shares (read/baseline/lines/assign+fit)  bands")
+        for points, form, total, stages, bands, reference in rows:
+            target = 0.050 if points < 500_000 else 0.600
+            share = " / ".join(f"{100 * stages.get(k, 0) / (total * 1e3):.0f}%" for k in ("read", "baseline", "lines", "assignment and fits"))
+            verdict = "ok" if total <= target else "OVER"
+            print(f"{points:>9} {form:>4} {total * 1e3:>8.1f}ms {target * 1e3:>6.0f}ms {reference * 1e3:>7.1f}ms {total / reference:>6.1f}  {share:<40} {bands}  {verdict}")
+
+        # whole process: the command-line tool against a bare numpy import
+        numpy_import = whole_process([sys.executable, "-c", "import numpy"], args.repeat)
+        cli = whole_process([sys.executable, "-m", "tui", "process", str(files[(65_536, "dif")])], args.repeat)
+        print(f"\nwhole process on a 64k-point file: bandwatch process {cli * 1e3:.0f} ms, "
+              f"python -c 'import numpy' {numpy_import * 1e3:.0f} ms, ratio {cli / numpy_import:.2f} (target <= 5)")
+
+    # peak search must not degrade with noise
+    rng = np.random.default_rng(2)
+    x = np.arange(1_000_000, dtype=np.float64)
+    clean = np.zeros_like(x)
+    for centre in rng.uniform(1000, 999_000, 300):
+        lo, hi = int(centre) - 30, int(centre) + 30
+        clean[lo:hi] += np.exp(-0.5 * ((x[lo:hi] - centre) / 4.0) ** 2)
+    noisy = clean + rng.normal(0, 0.01, x.size)
+    pure_noise = rng.normal(0, 0.01, x.size)
+    t_clean = median_time(lambda: find_peaks(clean, 1e-3, 5.0, None), args.repeat)
+    t_noisy = median_time(lambda: find_peaks(noisy, 0.01, 5.0, None), args.repeat)
+    t_noise = median_time(lambda: find_peaks(pure_noise, 0.01, 5.0, None), args.repeat)
+    maxima = int(np.sum((pure_noise[1:-1] > pure_noise[:-2]) & (pure_noise[1:-1] >= pure_noise[2:])))
+    print(f"\npeak search on 1M points: lines only {t_clean * 1e3:.1f} ms, lines + noise {t_noisy * 1e3:.1f} ms, "
+          f"pure noise {t_noise * 1e3:.1f} ms ({maxima} local maxima in the noise); noisy/clean ratio {t_noisy / t_clean:.2f}")
+
+
+if __name__ == "__main__":
+    main()
