@@ -108,7 +108,7 @@ def estimate_baseline(
     spacing = spectrum.spacing_cm1
     if block_cm1 is None:
         block_cm1 = 12.0  # a few CO line spacings; wide enough that a block is mostly line-free
-    block = int(np.clip(round(block_cm1 / spacing), 16, max(16, n // 4)))
+    block = int(min(np.clip(round(block_cm1 / spacing), 16, max(16, n // 4)), n))
     free = ~spectrum.saturated
     sigma = robust_noise_sigma(y[free]) if free.any() else 0.0
     floor = 1e-9 * max(1.0, float(np.max(np.abs(y))))

@@ -127,11 +127,6 @@ def test_human_output_names_an_unreadable_file(corrupt_csv: Path) -> None:
     assert "Traceback" not in result.stderr
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="known bug outside the reader: the baseline stage reshapes spectra shorter than one "
-    "16-point block and raises ValueError (a traceback). Remove this mark once fixed.",
-)
 def test_a_readable_but_tiny_spectrum_is_not_a_traceback(tmp_path: Path) -> None:
     path = tmp_path / "tiny.csv"
     path.write_text("cm-1,A\n2000,0.1\n2000.5,0.2\n2001,0.15\n", encoding="utf-8")
