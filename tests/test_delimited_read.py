@@ -235,7 +235,7 @@ def test_text_followed_by_more_data_is_an_error_at_the_text_line() -> None:
     with pytest.raises(SpectrumFileError) as caught:
         read("cm-1,A\n1000,0.1\n1001,0.2\n-- segment 2 --\n1002,0.3\n1003,0.3\n")
     assert caught.value.line == 4
-    assert "rows of numbers follow" in str(caught.value)
+    assert "data rows follow it" in str(caught.value)
 
 
 def test_blank_lines_inside_the_data_are_skipped() -> None:
@@ -265,7 +265,7 @@ def test_more_columns_take_the_first_two_unless_the_header_names_y() -> None:
     "text, line, words",
     [
         ("cm-1,A\n1000,0.1\n1001,abc\n1002,0.3\n", 3, "'abc' is not a number"),
-        ("cm-1,A\n1000,0.1\n1001,0.2\n1002\n1003,0.3\n", 4, "1 values, expected 2"),
+        ("cm-1,A\n1000,0.1\n1001,0.2\n1002\n1003,0.3\n", 4, "1 value, expected 2"),
         ("cm-1,A\n1000,0.1\n1001,0.2,5\n1002\n1003,0.3\n", 3, "3 values, expected 2"),
         ("cm-1,A\n1000,0.1\n1001,nan\n1002,0.3\n", 3, "not a finite number"),
         ("cm-1,A\n1000,0.1\ninf,0.2\n1002,0.3\n", 3, "not a finite number"),
@@ -378,7 +378,7 @@ def test_a_cut_off_last_row_is_an_error_not_a_footer() -> None:
     with pytest.raises(SpectrumFileError) as caught:
         read("cm-1,A\n1000,0.1\n1001,0.2\n1002.")
     assert caught.value.line == 4
-    assert "1 values, expected 2" in caught.value.problem
+    assert caught.value.problem == "row has 1 value, expected 2 like the rows above"
 
 
 def test_numpys_c_reader_is_the_fast_path_on_this_numpy() -> None:

@@ -158,7 +158,8 @@ def _row_values(text: str, layout: _RowFormat) -> list[float] | str:
             return f"field {position} {shown!r} is not a number"
         values.append(value)
     if len(values) != layout.columns:
-        return f"row has {len(values)} values, expected {layout.columns} like the rows above"
+        count = f"{len(values)} value" + ("" if len(values) == 1 else "s")
+        return f"row has {count}, expected {layout.columns} like the rows above"
     return values
 
 
@@ -435,16 +436,17 @@ def _slow_table(body: bytes, layout: _RowFormat, first_line: int, source: str) -
     """Line by line: names the first bad row; tolerates blank lines inside the data."""
     rows: list[list[float]] = []
     lines: list[int] = []
-    for index, raw in enumerate(body.split(b"\n")):
+    raw_lines = body.split(b"\n")
+    for index, raw in enumerate(raw_lines):
         line = first_line + index
         text = _decode_line(raw).strip()
         if not text:
             continue
         parsed = _row_values(text, layout)
         if isinstance(parsed, str):
-            raise SpectrumFileError(
-                source, f"{parsed} (inside the data: rows of numbers follow)", line
-            )
+            if any(later.strip() for later in raw_lines[index + 1 :]):
+                parsed += "; data rows follow it"
+            raise SpectrumFileError(source, parsed, line)
         rows.append(parsed)
         lines.append(line)
     values = np.array(rows, dtype=np.float64).reshape(len(rows), layout.columns)
