@@ -243,7 +243,8 @@ def _normalise_bytes(data: bytes, source: str, notes: list[str]) -> tuple[bytes,
         notes.append("UTF-16 text decoded")
     if _BLANK.fullmatch(data, start):
         raise SpectrumFileError(source, "file is empty")
-    if b"\x00" in data:
+    # NUL bytes near the top mean a binary file; one deeper down is a bad field in its row.
+    if b"\x00" in data[: start + 4096]:
         line = data.count(b"\n", 0, data.index(b"\x00")) + 1
         raise SpectrumFileError(source, "binary data (NUL bytes), not delimited text", line)
     if b"\n" not in data and b"\r" in data:
