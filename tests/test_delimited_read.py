@@ -423,3 +423,17 @@ def test_resolution_stated_in_the_free_text_is_kept(line: str, value: float) -> 
 def test_no_resolution_when_the_text_does_not_state_one() -> None:
     text = "Resolution set by operator\nRun 4, 0.5 torr\nResolution: 0.5 nm\ncm-1,A\n1000,0.1\n1001,0.2\n"
     assert read(text).meta.resolution_cm1 is None
+
+
+def test_a_damaged_last_row_is_an_error_not_a_footer() -> None:
+    with pytest.raises(SpectrumFileError) as caught:
+        read(b"cm-1,A\n1000,0.1\n1001,0.2\n10\x0002,0.3\n")
+    assert caught.value.line == 4
+
+
+def test_a_nul_deep_in_the_data_names_its_row() -> None:
+    rows = b"".join(b"%d,0.1\n" % x for x in range(1000, 3000))
+    damaged = rows[:20_000] + b"\x00" + rows[20_000:]
+    with pytest.raises(SpectrumFileError) as caught:
+        read(b"cm-1,A\n" + damaged)
+    assert caught.value.line == damaged[:20_000].count(b"\n") + 2

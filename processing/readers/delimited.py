@@ -302,8 +302,8 @@ def _split_trailing_text(data: bytes, offset: int, layout: _RowFormat) -> tuple[
             return end, footer[::-1]
         start = max(data.rfind(b"\n", offset, end) + 1, offset)
         text = _decode_line(data[start:end]).strip()
-        if _starts_with_number(text, layout):
-            # Data, even if malformed (a cut-off last row): the body pass reports it.
+        if _starts_with_number(text, layout) or not text.replace("\t", " ").isprintable():
+            # Data, even if malformed (a cut-off or damaged last row): the body pass reports it.
             return end, footer[::-1]
         footer.append(text)
         if len(footer) > MAX_TRAILING_TEXT_LINES:
