@@ -291,3 +291,37 @@ async def test_selection_follows_new_runs_only_from_the_newest(lab: dict[str, Pa
         older = screen.selected_run_id
         await new_run("hcl_cell_06.csv")
         assert screen.selected_run_id == older  # reading an older run: stays put
+
+
+async def test_keys_can_be_remapped_by_binding_id(lab: dict[str, Path]) -> None:
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        app.set_keymap({"run.accept": "y", "table.down": "s"})
+        await settle(app, pilot)
+        await pilot.press("s", "y")  # down to hcl_cell_03, then accept with the new keys
+        await settle(app, pilot)
+    assert runs_by_name(lab["data"])["hcl_cell_03.csv"].decision == "accept"
+
+
+async def test_plot_zooms_pans_and_flips_by_keys(lab: dict[str, Path]) -> None:
+    from tui.widgets.spectrum_plot import SpectrumPlot
+
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.press("j")
+        await settle(app, pilot)
+        await pilot.press("1")
+        plot = app.screen.query_one(SpectrumPlot)
+        assert plot.has_focus and plot.window == (2700.0, 3100.0)  # the fixture's whole range
+        await pilot.press("plus")
+        assert plot.window == (2800.0, 3000.0)  # half the width about the centre
+        await pilot.press("left")  # falling axis: the screen's left is higher wavenumber
+        assert plot.window == (2850.0, 3050.0)
+        await pilot.press("l", "l", "l", "l", "l")  # pan right stops at the low end
+        assert plot.window == (2700.0, 2900.0)
+        await pilot.press("x")
+        assert plot.high_to_low is False
+        await pilot.press("0")
+        assert plot.window == (2700.0, 3100.0)
+        rendered = plot.render().plain
+        assert "low→high" in rendered and "H35Cl" in rendered

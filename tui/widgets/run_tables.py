@@ -138,7 +138,7 @@ class LinesTable(DataTable):
         self.add_column("assignment", key="assignment", width=15)
         self.add_column("calc cm-1", key="calc", width=10)
         self.add_column("obs-calc", key="residual", width=8)
-        self.add_column("note", key="note", width=22)
+        self.add_column("note", key="note", width=18)
 
     def fill(self, lines: list[dict[str, Any]], excluded: set[float] | None = None) -> None:
         self.clear()
