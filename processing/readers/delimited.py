@@ -13,6 +13,7 @@ Inside bandwatch x is wavenumber in cm-1; micrometre and nanometre columns are c
 """
 from __future__ import annotations
 
+import importlib
 import io
 import re
 from collections.abc import Callable
@@ -325,7 +326,7 @@ def _numpy_text_reader() -> Callable[..., np.ndarray] | None:
     """
     for module_name in ("numpy._core._multiarray_umath", "numpy.core._multiarray_umath"):
         try:
-            module = __import__(module_name, fromlist=["_load_from_filelike"])
+            module = importlib.import_module(module_name)
         except ImportError:
             continue
         reader = getattr(module, "_load_from_filelike", None)
