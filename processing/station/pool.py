@@ -25,6 +25,7 @@ from processing.station.worker import make_settings, resolve_function
 __all__ = ["Job", "JobOutcome", "WorkerPool", "describe_exit", "make_settings", "resolve_function"]
 
 RESTART_BACKOFF_SECONDS = 1.0
+MAX_RESTART_BACKOFF_SECONDS = 30.0
 
 
 @dataclass(frozen=True)
@@ -77,6 +78,9 @@ class _Slot:
         self.job: Job | None = None
         self.started = 0.0
         self.spawned = 0.0
+        self.start_failures = 0
+        self.broken_reason: str | None = None
+        self.respawn_at: float | None = None
 
 
 def _child_environment() -> dict[str, str]:
@@ -188,6 +192,7 @@ class WorkerPool:
         slot.outbox = Connection(to_worker_write, readable=False)
         slot.inbox = Connection(from_worker_read, writable=False)
         slot.ready = slot.retiring = False
+        slot.broken_reason = None
         slot.job = None
         slot.spawned = time.monotonic()
 
@@ -200,6 +205,7 @@ class WorkerPool:
 
     def _supervise(self) -> None:
         while not self._stopping.is_set():
+            self._respawn_due()
             self._assign()
             waitables: list[Any] = [self._wake_reader]
             waitables += [slot.inbox for slot in self._slots if slot.inbox is not None]
@@ -222,6 +228,7 @@ class WorkerPool:
     def _next_timeout(self) -> float:
         now = time.monotonic()
         waits = [0.5]
+        waits += [slot.respawn_at - now for slot in self._slots if slot.respawn_at is not None]
         for slot in self._slots:
             if slot.job is not None:
                 waits.append(slot.started + self.timeout_seconds - now)
@@ -250,6 +257,10 @@ class WorkerPool:
             return False
         if kind == "ready":
             slot.ready = True
+            slot.start_failures = 0
+            return True
+        if kind == "broken":
+            slot.broken_reason = str(payload)
             return True
         job = slot.job
         if job is None or job.job_id != job_id:
@@ -278,9 +289,13 @@ class WorkerPool:
         if job is not None:
             self._report(JobOutcome(job, None, describe_exit(exitcode), time.monotonic() - slot.started))
         elif not slot.ready and not slot.retiring:
-            self.on_problem(f"worker {slot.index} failed to start ({describe_exit(exitcode)})")
-            if time.monotonic() - slot.spawned < RESTART_BACKOFF_SECONDS:
-                self._stopping.wait(RESTART_BACKOFF_SECONDS)
+            # Files stay queued: a station that cannot start workers records nothing wrongly.
+            slot.start_failures += 1
+            why = slot.broken_reason or describe_exit(exitcode)
+            self.on_problem(f"worker {slot.index} failed to start ({why}); files wait in the queue")
+            backoff = min(MAX_RESTART_BACKOFF_SECONDS, RESTART_BACKOFF_SECONDS * 2 ** (slot.start_failures - 1))
+            self._replace(slot, delay=backoff)
+            return
         self._replace(slot)
 
     def _check_deadlines(self) -> None:
@@ -297,12 +312,25 @@ class WorkerPool:
             self._report(JobOutcome(job, None, f"timed out after {self.timeout_seconds:g} s", now - slot.started))
             self._replace(slot)
 
-    def _replace(self, slot: _Slot) -> None:
+    def _replace(self, slot: _Slot, delay: float = 0.0) -> None:
+        """A new worker in this slot, now or (after start failures) a little later."""
         self._close(slot)
+        slot.process = None
+        slot.ready = False
         if self._stopping.is_set():
             return
         self.restarts += 1
-        self._spawn(slot)
+        if delay > 0:
+            slot.respawn_at = time.monotonic() + delay
+        else:
+            self._spawn(slot)
+
+    def _respawn_due(self) -> None:
+        now = time.monotonic()
+        for slot in self._slots:
+            if slot.process is None and slot.respawn_at is not None and now >= slot.respawn_at:
+                slot.respawn_at = None
+                self._spawn(slot)
 
     def _report(self, outcome: JobOutcome) -> None:
         try:

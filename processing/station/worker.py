@@ -48,6 +48,35 @@ def _frozen(value: Any) -> Any:
     return value
 
 
+# Imported before the first file so its latency carries no import time; absent ones are skipped.
+WARM_MODULES = (
+    "processing.pipeline",
+    "processing.readers.delimited",
+    "processing.readers.jcamp",
+    "processing.baseline",
+    "processing.lines",
+    "processing.assign",
+    "processing.fit",
+    "processing.checks",
+    "processing.species",
+)
+
+
+def warm_up() -> None:
+    for name in WARM_MODULES:
+        try:
+            importlib.import_module(name)
+        except Exception:  # absent or broken: the first file that needs it reports it
+            continue
+    species = sys.modules.get("processing.species")
+    load_library = getattr(species, "load_library", None)
+    if callable(load_library):
+        try:
+            load_library()  # the shipped library file, parsed once per worker
+        except Exception:  # a library problem is reported by the first real file instead
+            pass
+
+
 def _exit_when_orphaned(parent: int) -> None:
     """The station was killed: do not linger (a hung analysis would otherwise live on)."""
     while os.getppid() == parent:
@@ -57,8 +86,12 @@ def _exit_when_orphaned(parent: int) -> None:
 
 def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limit_mb: int) -> None:
     """The worker loop."""
-    function = resolve_function(function_spec)
-    importlib.import_module("processing.pipeline")  # warm up before the first file
+    try:
+        function = resolve_function(function_spec)
+        warm_up()
+    except Exception as error:  # said to the station, which keeps the files queued
+        outbox.send(("broken", None, f"{type(error).__name__}: {error}"))
+        return
     if memory_limit_mb > 0:
         import resource
 

@@ -47,3 +47,7 @@ def quick(path: str, settings: ProcessSettings) -> RunResult:
     if not data.strip():
         return RunResult(file=path, status="unreadable", error=f"{path}: file is empty")
     return RunResult(file=path, status="processed", sha256=hashlib.sha256(data).hexdigest(), verdict="pass")
+
+
+if os.environ.get("BANDWATCH_TEST_BREAK_WORKERS"):
+    raise RuntimeError("this worker cannot start (test)")

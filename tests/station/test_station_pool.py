@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import threading
+import time
 from pathlib import Path
 
 from conftest import spectrum_csv, write_file
@@ -48,3 +49,23 @@ def test_exit_descriptions() -> None:
     assert describe_exit(-9) == "worker process killed by SIGKILL (out of memory?)"
     assert describe_exit(-11) == "worker process killed by SIGSEGV"
     assert describe_exit(2) == "worker process exited with code 2"
+
+
+def test_workers_that_cannot_start_are_reported_and_files_stay_queued(tmp_path: Path, monkeypatch) -> None:
+    import station_hooks  # noqa: F401  (imported here before the workers' environment breaks)
+
+    monkeypatch.setenv("BANDWATCH_TEST_BREAK_WORKERS", "1")
+    outcomes: list[JobOutcome] = []
+    problems: list[str] = []
+    pool = WorkerPool(outcomes.append, workers=1, function_spec="station_hooks:misbehave", on_problem=problems.append)
+    pool.start()
+    try:
+        pool.submit(Job(1, str(write_file(tmp_path / "a.csv", spectrum_csv(100))), {}))
+        deadline = time.monotonic() + 10
+        while not problems and time.monotonic() < deadline:
+            time.sleep(0.05)
+        time.sleep(0.3)
+        assert problems and "RuntimeError: this worker cannot start (test)" in problems[0]
+        assert outcomes == [] and pool.busy == 1  # not recorded as a failure of the file
+    finally:
+        pool.stop()
