@@ -88,10 +88,23 @@ def choose_reader(data: bytes, source: str) -> ModuleType:
     raise SpectrumFileError(source, "not a recognised spectrum format (JCAMP-DX or delimited text)")
 
 
+def as_utf8(data: bytes, source: str) -> bytes:
+    """UTF-16 text (with its byte-order mark, as some Windows exports write it) as UTF-8;
+    anything else unchanged. Without this its NUL bytes would make it look binary."""
+    if not data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return data
+    try:
+        return data.decode("utf-16").encode("utf-8")
+    except UnicodeDecodeError:
+        raise SpectrumFileError(source, "starts like UTF-16 text but does not decode") from None
+
+
 def parse_bytes(data: bytes, source: str = "<data>") -> Spectrum | LineList:
-    """Parse bytes already in memory; stamps the sha256 and source path into the metadata."""
-    reader = choose_reader(data, source)
-    result = reader.parse(data, source)
+    """Parse bytes already in memory; stamps the sha256 (of the bytes as given) and source
+    path into the metadata."""
+    text = as_utf8(data, source)
+    reader = choose_reader(text, source)
+    result = reader.parse(text, source)
     meta = replace(result.meta, source_path=source, sha256=hashlib.sha256(data).hexdigest())
     return replace(result, meta=meta)
 
