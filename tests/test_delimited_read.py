@@ -437,3 +437,19 @@ def test_a_nul_deep_in_the_data_names_its_row() -> None:
     with pytest.raises(SpectrumFileError) as caught:
         read(b"cm-1,A\n" + damaged)
     assert caught.value.line == damaged[:20_000].count(b"\n") + 2
+
+
+@pytest.mark.parametrize("encoding", ["utf-16", "utf-16-be"])
+def test_utf16_exports_are_read_through_the_registry(encoding: str) -> None:
+    import hashlib
+
+    from processing.readers import parse_bytes
+
+    text = "Wavelength (µm)\tT\r\n2.5\t0.5\r\n5\t0.25\r\n"
+    data = ("\ufeff" + text).encode(encoding) if encoding.endswith("be") else text.encode(encoding)
+    assert data[:2] in (b"\xff\xfe", b"\xfe\xff")  # a byte-order mark either way round
+    spectrum = parse_bytes(data, "unicode.txt")
+    assert isinstance(spectrum, Spectrum)
+    assert spectrum.wavenumber_cm1.tolist() == [2000.0, 4000.0]
+    assert spectrum.original_y_kind == "transmittance"
+    assert spectrum.meta.sha256 == hashlib.sha256(data).hexdigest()  # of the file's own bytes
