@@ -48,9 +48,9 @@ class RunList(DataTable):
 
     def on_mount(self) -> None:
         self.add_column("time UTC", key="time", width=8)
-        self.add_column("file", key="file", width=24)
+        self.add_column("file", key="file", width=26)
         self.add_column("v", key="version", width=2)
-        self.add_column("species", key="species", width=14)
+        self.add_column("species", key="species", width=12)
         self.add_column("verdict", key="verdict", width=8)
         self.add_column("decision", key="decision", width=8)
 
