@@ -30,11 +30,13 @@ def round_trip(spectrum: Spectrum, **options: object) -> tuple[Spectrum, str]:
 
 
 @pytest.mark.parametrize("descending", [False, True])
-def test_affn_round_trip_is_exact(descending: bool) -> None:
+def test_affn_round_trip_within_one_ulp(descending: bool) -> None:
     s = synthetic()
     back, text = round_trip(s, form="affn", descending=descending)
-    # repr() of a float reads back to the same float (Python float repr is round-trip exact)
-    np.testing.assert_array_equal(back.absorbance, s.absorbance)
+    # repr() writes the shortest digits that identify the float; the vectorised reader forms
+    # mantissa / 10**k in float64, which is correctly rounded below 2**53 and at most 1 ulp off
+    # above (17-digit mantissas): so within 2.3e-16 relative, far inside the 1e-12 target
+    np.testing.assert_allclose(back.absorbance, s.absorbance, rtol=2.3e-16, atol=0)
     # x is rebuilt as FIRSTX + (LASTX - FIRSTX) i/(n-1): a few ulp from the input grid
     np.testing.assert_allclose(back.wavenumber_cm1, s.wavenumber_cm1, rtol=1e-12, atol=0)
     assert "##YUNITS=ABSORBANCE" in text and "##XUNITS=1/CM" in text

@@ -322,8 +322,8 @@ def _x_axis(
             k = int(wrong[0])
             raise SpectrumFileError(
                 source,
-                f"line-start X steps by {implied[k]:.2f} points since the previous line, which holds "
-                f"{held[k]}: points are missing or extra",
+                f"line-start X steps by {implied[k]:.2f} points since line {int(line_numbers[k])}, "
+                f"but {held[k]} points lie between: points are missing or extra",
                 int(line_numbers[k + 1]),
             )
 

@@ -109,10 +109,7 @@ def _first_bad_line(lines: list[bytes], compressed: bool) -> tuple[int, str]:
     """Slow path, only after a failure: the first line that cannot be read, and a snippet."""
     for number, line in enumerate(lines):
         try:
-            if compressed:
-                _decode_asdf(line)
-            else:
-                _parse_numbers(line.replace(b",", b" "))
+            _decode_tokens(line, affn=not compressed)
         except (ValueError, DecodeError):
             snippet = line.strip()[:40].decode("latin-1")
             return number, f"cannot read the numbers in {snippet!r}"
@@ -160,59 +157,141 @@ def _swar_digits(words: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     return words
 
 
-def _decode_asdf(section: bytes) -> tuple[np.ndarray, np.ndarray]:
-    """Values and kinds of every token (and line marker) of a compressed data section.
+_AFFN_CLASS = _CLASS.copy()
+for _byte in range(256):
+    if _AFFN_CLASS[_byte] in (SQZ, DIF, DUP):
+        _AFFN_CLASS[_byte] = INVALID
+EXPONENT = 9
+_AFFN_CLASS[[ord("E"), ord("e")]] = EXPONENT
+_AFFN_CLASS_TABLE = bytes(_AFFN_CLASS.tolist())
+_KIND_OF_CLASS[EXPONENT] = KIND_AFFN
+_DOTS = np.uint64(0x2E2E2E2E2E2E2E2E)
+_ONES = np.uint64(0x0101010101010101)
+_HIGHS = np.uint64(0x8080808080808080)
+_ABOVE_NINE = np.uint64(0x7676767676767676)  # + 0x76 sets the high bit of any byte above 9
+_POW10_INT = np.array([10**k for k in range(9)], dtype=np.uint64)
+_POW10_FLOAT = np.array([10.0**k for k in range(30)])
+
+
+def _byte_windows(section: bytes) -> np.ndarray:
+    """A uint64 view starting at every byte (unaligned), padded so reads past the end are 0."""
+    padded = section + b"\x00" * (32 - len(section) % 8)
+    return np.lib.stride_tricks.as_strided(
+        np.frombuffer(padded, dtype="<u8", count=len(padded) // 8), shape=(len(section) + 17,), strides=(1,)
+    )
+
+
+def _lowest_byte(flags: np.ndarray) -> np.ndarray:
+    """Index (0-7) of the lowest byte whose high bit is set; 8 when none is."""
+    isolated = flags & (~flags + np.uint64(1))
+    position = np.full(flags.size, 8, dtype=np.int64)
+    found = isolated != 0
+    position[found] = (np.log2(isolated[found].astype(np.float64)).astype(np.int64) - 7) // 8
+    return position
+
+
+def _swar_decimal(
+    windows: np.ndarray, starts: np.ndarray, lengths: np.ndarray, lead: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Magnitudes of plain decimals (digits, at most one '.', up to 24 bytes, 19 digits).
+
+    `lead` is the ASCII byte that replaces each token's first byte (its SQZ/DIF digit, or '0'
+    for a sign). Returns (magnitude, ok); tokens not ok (exponents, junk) go to the slow path.
+    The result is the integer mantissa over a power of ten: at most 1 ulp from correct rounding.
+    """
+    count = starts.size
+    words = [windows[starts + offset] for offset in (0, 1, 8, 9, 16, 17)]
+    words[0] &= ~np.uint64(0xFF)
+    words[0] |= lead
+    keep = [_KEEP_BYTES[np.clip(lengths - 8 * k, 0, 8)] for k in range(3)]
+    dot = np.full(count, 24, dtype=np.int64)
+    for k in (2, 1, 0):  # lowest word last, so the first dot wins
+        probe = words[2 * k] ^ _DOTS
+        flags = (probe - _ONES) & ~probe & _HIGHS & keep[k]
+        position = _lowest_byte(flags)
+        found = position < 8
+        dot[found] = 8 * k + position[found]
+    has_dot = dot < lengths
+    digits = lengths - has_dot
+    mantissa = np.zeros(count, dtype=np.uint64)
+    ok = (lengths <= 24) & (digits >= 1) & (digits <= 19)
+    for k in range(3):
+        here, following = words[2 * k], words[2 * k + 1]
+        inside = dot - 8 * k
+        low = _KEEP_BYTES[np.clip(inside, 0, 8)]
+        dotless = np.where(inside >= 8, here, np.where(inside < 0, following, (here & low) | (following & ~low)))
+        size = np.clip(digits - 8 * k, 0, 8)
+        shifted = (dotless - _ASCII_ZEROS) & _KEEP_BYTES[size]
+        ok &= ((shifted + _ABOVE_NINE) | shifted) & _HIGHS & _KEEP_BYTES[size] == 0
+        part = _swar_digits(shifted + _ASCII_ZEROS & _KEEP_BYTES[size] | (~_KEEP_BYTES[size] & _ASCII_ZEROS), size)
+        mantissa = mantissa * _POW10_INT[size] + part
+    fraction = np.where(has_dot, lengths - dot - 1, 0)
+    magnitude = mantissa.astype(np.float64) / _POW10_FLOAT[np.clip(fraction, 0, 29)]
+    return magnitude, ok
+
+
+def _decode_tokens(section: bytes, affn: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Values and kinds of every token (and line marker) of a data section.
 
     Tokens of up to 8 characters without a decimal point (nearly all ASDF tokens) are read
-    8 bytes at a time with integer SWAR arithmetic; longer ones (line-start X values) are
-    gathered into one string for numpy's C parser.
+    8 bytes at a time with integer SWAR arithmetic; decimals of up to 24 bytes by a 3-word
+    variant; anything else (exponents) is gathered into one string for numpy's C parser.
     """
     size = len(section)
-    classes_bytes = section.translate(_CLASS_TABLE)
+    classes_bytes = section.translate(_AFFN_CLASS_TABLE if affn else _CLASS_TABLE)
     bad = classes_bytes.find(b"\x00")
     if bad != -1:
         raise DecodeError(
             _line_of(section, bad), f"character {chr(section[bad])!r} is not allowed in JCAMP-DX data"
         )
     classes = np.frombuffer(classes_bytes, dtype=np.uint8)
-    start = classes >= SQZ  # SQZ, DIF, DUP, sign, separator, newline all begin a token
+    start = (classes >= SQZ) & (classes != EXPONENT)  # SQZ DIF DUP sign separator newline
     if size:
-        start[1:] |= (classes[1:] <= DOT) & (classes[:-1] >= SEP)
+        start[1:] |= (classes[1:] <= DOT) & (classes[:-1] >= SEP) & (classes[:-1] != EXPONENT)
+        if affn and (b"E" in section or b"e" in section):
+            start[1:] &= ~((classes[1:] == SIGN) & (classes[:-1] == EXPONENT))  # 1E-3
         start[0] = True
     starts = np.flatnonzero(start)
     lengths = np.diff(starts, append=size)
     kinds = _KIND_OF_CLASS[classes[starts]]
     raw = np.frombuffer(section, dtype=np.uint8)
-    keep = kinds != _KIND_SEPARATOR
-    after_separator = np.zeros(starts.size, dtype=bool)
-    after_separator[1:] = kinds[:-1] == _KIND_SEPARATOR
-    _refuse_spelled_nonfinite(section, raw, starts[keep & after_separator])
-    starts, lengths, kinds = starts[keep], lengths[keep], kinds[keep]
+    if b" " in section or b"\t" in section or b"," in section:
+        keep = kinds != _KIND_SEPARATOR
+        if not affn:
+            after_separator = np.zeros(starts.size, dtype=bool)
+            after_separator[1:] = kinds[:-1] == _KIND_SEPARATOR
+            _refuse_spelled_nonfinite(section, raw, starts[keep & after_separator])
+        starts, lengths, kinds = starts[keep], lengths[keep], kinds[keep]
     first_bytes = raw[starts]
     numeric = kinds != KIND_LINE
-    values = np.full(starts.size, np.nan)
-    simple = numeric & (lengths <= 8)
+    windows = _byte_windows(section)
+    words = windows[starts]
+    words &= ~np.uint64(0xFF)
+    words |= _LEAD[first_bytes]
+    values = _swar_digits(words, np.minimum(lengths, 8)).astype(np.float64)
+    values *= _SIGN_FACTOR[first_bytes]
+    values[~numeric] = np.nan
+    long_token = lengths > 8
     if b"." in section:
         dots = np.flatnonzero(raw == ord("."))
         owner = np.searchsorted(starts, dots, side="right") - 1
-        simple[owner[owner >= 0]] = False
-    lonely_sign = numeric & (lengths == 1) & (classes[starts] == SIGN)
-    if lonely_sign.any():
-        at = int(starts[np.flatnonzero(lonely_sign)[0]])
-        raise DecodeError(_line_of(section, at), "a sign with no digits after it")
-    padded = section + b"\x00" * (16 - size % 8)
-    words_view = np.lib.stride_tricks.as_strided(
-        np.frombuffer(padded, dtype="<u8", count=len(padded) // 8), shape=(size,), strides=(1,)
-    )
-    pick = np.flatnonzero(simple)
-    words = words_view[starts[pick]]
-    words = (words & ~np.uint64(0xFF)) | _LEAD[first_bytes[pick]]
-    magnitude = _swar_digits(words, lengths[pick]).astype(np.float64)
-    magnitude *= _SIGN_FACTOR[first_bytes[pick]]
-    values[pick] = magnitude
-    rest = np.flatnonzero(numeric & ~simple)
+        long_token[owner[owner >= 0]] = True
+    if affn and (b"E" in section or b"e" in section):
+        marks = np.flatnonzero(classes == EXPONENT)
+        owner = np.searchsorted(starts, marks, side="right") - 1
+        long_token[owner[owner >= 0]] = True
+    if b"+" in section or b"-" in section:
+        bare = numeric & (lengths == 1) & (classes[starts] == SIGN)
+        if bare.any():
+            at = int(starts[np.flatnonzero(bare)[0]])
+            raise DecodeError(_line_of(section, at), "a sign with no digits after it")
+    rest = np.flatnonzero(numeric & long_token)
     if rest.size:
-        values[rest] = _parse_long_tokens(section, raw, starts[rest], lengths[rest], first_bytes[rest])
+        magnitude, ok = _swar_decimal(windows, starts[rest], lengths[rest], _LEAD[first_bytes[rest]])
+        values[rest[ok]] = magnitude[ok] * _SIGN_FACTOR[first_bytes[rest[ok]]]
+        slow = rest[~ok]
+        if slow.size:
+            values[slow] = _parse_long_tokens(section, raw, starts[slow], lengths[slow], first_bytes[slow])
     return values, kinds
 
 
@@ -272,27 +351,13 @@ def _refuse_spelled_nonfinite(section: bytes, raw: np.ndarray, first: np.ndarray
 
 def tokenize(section: bytes) -> Tokens:
     """All numbers of a `(X++(Y..Y))` data section with kinds; KIND_LINE after each line."""
-    if _is_affn(section):
-        text = section.replace(b",", b" ") if b"," in section else section
-        marked = text.replace(b"\n", _MARKER)
-        try:
-            values = _parse_numbers(marked)
-        except ValueError:
-            # Signs also separate AFFN numbers: `1.5-2.3` is 1.5 and -2.3 (not after an exponent).
-            spaced = re.sub(rb"(?<=[0-9.])([+-])", rb" \1", text)
-            try:
-                values = _parse_numbers(spaced.replace(b"\n", _MARKER))
-            except ValueError:
-                line, problem = _first_bad_line(spaced.split(b"\n"), compressed=False)
-                raise DecodeError(line, problem) from None
-        kinds = np.where(np.isnan(values), KIND_LINE, KIND_AFFN).astype(np.uint8)
-        return Tokens(values, kinds, compressed=False)
+    affn = _is_affn(section)
     try:
-        values, kinds = _decode_asdf(section)
+        values, kinds = _decode_tokens(section, affn)
     except ValueError:
-        line, problem = _first_bad_line(section.split(b"\n"), compressed=True)
+        line, problem = _first_bad_line(section.split(b"\n"), compressed=not affn)
         raise DecodeError(line, problem) from None
-    return Tokens(values, kinds, compressed=True)
+    return Tokens(values, kinds, compressed=not affn)
 
 
 def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
@@ -302,106 +367,124 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     """
     tokens = tokenize(section)
     values, kinds = tokens.values, tokens.kinds
-    if values.size and not np.all(np.isfinite(values[kinds != KIND_LINE])):
-        bad = int(np.flatnonzero(~np.isfinite(values) & (kinds != KIND_LINE))[0])
-        raise DecodeError(int(np.count_nonzero(kinds[:bad] == KIND_LINE)), "value is not finite")
     is_line = kinds == KIND_LINE
-    line_of_token = np.cumsum(is_line)  # marker belongs to the next line; tokens to their own
-    line_of_token[is_line] -= 1
-    previous_is_line = np.empty(kinds.size, dtype=bool)
+    if np.isinf(values).any():  # markers are NaN; an overflowing number is inf
+        bad = int(np.flatnonzero(np.isinf(values))[0])
+        raise DecodeError(int(np.count_nonzero(is_line[:bad])), "value is not finite")
+
+    def line_of(token: int) -> int:
+        return int(np.count_nonzero(is_line[:token]))
+
+    is_x = np.empty(kinds.size, dtype=bool)
     if kinds.size:
-        previous_is_line[0] = True
-        previous_is_line[1:] = is_line[:-1]
-    is_x = previous_is_line & ~is_line
-    x_kinds = kinds[is_x]
+        is_x[0] = True
+        is_x[1:] = is_line[:-1]
+    is_x &= ~is_line
+    x_at = np.flatnonzero(is_x)
+    x_kinds = kinds[x_at]
     wrong_x = np.flatnonzero((x_kinds == KIND_DIF) | (x_kinds == KIND_DUP))
     if wrong_x.size:
-        line = int(line_of_token[is_x][wrong_x[0]])
-        raise DecodeError(line, "line starts with a DIF or DUP character where its X value belongs")
-    is_y = ~is_x & ~is_line
-    y_values = values[is_y]
-    y_kinds = kinds[is_y]
-    y_lines = line_of_token[is_y]
-    if y_values.size == 0:
+        raise DecodeError(line_of(int(x_at[wrong_x[0]])), "line starts with a DIF or DUP character where its X value belongs")
+    is_first_y = np.zeros(kinds.size, dtype=bool)
+    is_first_y[x_at[x_at + 1 < kinds.size] + 1] = True
+    is_y = ~(is_x | is_line)
+    is_first_y &= is_y
+    y_at = np.flatnonzero(is_y)
+    if y_at.size == 0:
         raise DecodeError(0, "no Y values in the data lines")
-
-    forms = {"AFFN" if k == KIND_AFFN else ("SQZ", "DIF", "DUP")[k - 1] for k in np.unique(y_kinds).tolist()}
+    y_values = values[y_at]
+    y_kinds = kinds[y_at]
+    first_y = is_first_y[y_at]
+    seen = np.bincount(y_kinds, minlength=5)
+    forms = tuple(name for name, kind in (("AFFN", KIND_AFFN), ("SQZ", KIND_SQZ), ("DIF", KIND_DIF), ("DUP", KIND_DUP)) if seen[kind])
 
     # DUP: the count is how often the preceding value (or difference) appears in total.
-    is_dup = y_kinds == KIND_DUP
-    if is_dup.any():
+    line_start = np.flatnonzero(first_y)
+    if seen[KIND_DUP]:
+        is_dup = y_kinds == KIND_DUP
         dups = np.flatnonzero(is_dup)
-        previous = dups - 1
-        if dups[0] == 0 or np.any(is_dup[previous]) or np.any(y_lines[previous] != y_lines[dups]):
-            bad = next(
-                int(d) for d in dups if d == 0 or is_dup[d - 1] or y_lines[d - 1] != y_lines[d]
-            )
-            raise DecodeError(int(y_lines[bad]), "DUP count with no value before it on the line")
+        orphan = first_y[dups] | is_dup[np.maximum(dups - 1, 0)]
+        if orphan.any():
+            bad = int(dups[np.flatnonzero(orphan)[0]])
+            raise DecodeError(line_of(int(y_at[bad])), "DUP count with no value before it on the line")
         counts = y_values[dups]
-        if np.any(counts < 1) or np.any(counts != np.rint(counts)):
-            bad = int(dups[np.flatnonzero((counts < 1) | (counts != np.rint(counts)))[0]])
-            raise DecodeError(int(y_lines[bad]), "DUP count is not a whole number of at least 1")
-        repeats = np.ones(y_values.size, dtype=np.float64)
-        repeats[previous] = counts
+        wrong = (counts < 1) | (counts != np.rint(counts))
+        if wrong.any():
+            bad = int(dups[np.flatnonzero(wrong)[0]])
+            raise DecodeError(line_of(int(y_at[bad])), "DUP count is not a whole number of at least 1")
+        repeats = np.ones(y_values.size, dtype=np.intp)
+        total = float(y_values.size - dups.size) + float(np.sum(counts - 1.0))
+        if total > max_points:
+            bad = int(dups[np.argmax(counts)])
+            raise DecodeError(line_of(int(y_at[bad])), f"DUP counts expand to {total:.0f} points, more than the {max_points} possible")
+        repeats[dups - 1] = counts.astype(np.intp)
         keep = ~is_dup
         repeats = repeats[keep]
-        total = float(repeats.sum())
-        if total > max_points:
-            raise DecodeError(
-                int(y_lines[dups[np.argmax(counts)]]),
-                f"DUP counts expand to {total:.0f} points, more than the {max_points} possible",
-            )
-        repeats_int = repeats.astype(np.intp)
-        y_values = np.repeat(y_values[keep], repeats_int)
-        y_kinds = np.repeat(y_kinds[keep], repeats_int)
-        y_lines = np.repeat(y_lines[keep], repeats_int)
-    elif y_values.size > max_points:
-        raise DecodeError(int(y_lines[-1]), f"more than {max_points} Y values")
+        kept_at = np.flatnonzero(keep)
+        y_at = y_at[kept_at]
+        first_kept = first_y[kept_at]
+        y_values = np.repeat(y_values[keep], repeats)
+        y_kinds = np.repeat(y_kinds[keep], repeats)
+        expanded_start = np.cumsum(repeats) - repeats
+        line_start = expanded_start[np.flatnonzero(first_kept)]
+        source_token = lambda point: int(y_at[np.searchsorted(expanded_start, point, side="right") - 1])  # noqa: E731
+    else:
+        if y_values.size > max_points:
+            raise DecodeError(line_of(int(y_at[-1])), f"more than {max_points} Y values")
+        source_token = lambda point: int(y_at[point])  # noqa: E731
 
     # DIF: integrate differences from the last absolute value.
     is_absolute = y_kinds != KIND_DIF
     if not is_absolute[0]:
-        raise DecodeError(int(y_lines[0]), "first Y value is a DIF difference with no value before it")
-    absolute_at = np.flatnonzero(is_absolute)
-    group = np.cumsum(is_absolute) - 1
-    steps = np.where(is_absolute, 0.0, y_values)
-    running = np.cumsum(steps)
-    y = y_values[absolute_at][group] + (running - running[absolute_at][group])
+        raise DecodeError(line_of(source_token(0)), "first Y value is a DIF difference with no value before it")
+    if seen[KIND_DIF]:
+        absolute_at = np.flatnonzero(is_absolute)
+        group = np.cumsum(is_absolute)
+        group -= 1
+        steps = np.where(is_absolute, 0.0, y_values)
+        running = np.cumsum(steps)
+        y = running + (y_values[absolute_at] - running[absolute_at])[group]
+    else:
+        y = y_values
 
     # Y-check: a line after one ending in a DIF starts by repeating that line's last value.
-    first_on_line = np.flatnonzero(np.concatenate(([True], y_lines[1:] != y_lines[:-1])))
-    later = first_on_line[1:]
+    later = line_start[line_start > 0]
     is_check = (y_kinds[later - 1] == KIND_DIF) & is_absolute[later]
     check_at = later[is_check]
     if check_at.size:
         scale = float(np.max(np.abs(y))) + 1.0
         tolerance = 1e-9 * scale  # exact for integer ordinates below 1e9 (common practice)
-        mismatch = np.abs(y[check_at] - y[check_at - 1]) > tolerance
+        mismatch = np.abs(y_values[check_at] - y[check_at - 1]) > tolerance
         if mismatch.any():
             bad = int(check_at[np.flatnonzero(mismatch)[0]])
             raise DecodeError(
-                int(y_lines[bad]),
+                line_of(source_token(bad)),
                 f"DIF check failed: line starts with Y={y_values[bad]:.10g} but the previous "
                 f"line's differences end at {y[bad - 1]:.10g}",
             )
-    keep_point = np.ones(y.size, dtype=bool)
-    keep_point[check_at] = False
-    new_index = np.cumsum(keep_point) - 1
+        keep_point = np.ones(y.size, dtype=bool)
+        keep_point[check_at] = False
+        new_index = np.cumsum(keep_point)
+        new_index -= 1
+        y = y[keep_point]
+    else:
+        new_index = np.arange(y.size)
     # Point index of each line's X: the check point (previous line's last) or its first value.
-    line_first = first_on_line
-    line_is_check = np.zeros(line_first.size, dtype=bool)
-    line_is_check[1:] = is_check
-    point_of_line = np.where(line_is_check, new_index[np.maximum(line_first - 1, 0)], new_index[line_first])
-    lines_with_y = y_lines[line_first]
-    x_lines = line_of_token[is_x]
-    x_values = values[is_x]
-    order = np.searchsorted(x_lines, lines_with_y)
+    line_is_check = np.zeros(line_start.size, dtype=bool)
+    line_is_check[line_start > 0] = is_check
+    point_of_line = np.where(line_is_check, new_index[np.maximum(line_start - 1, 0)], new_index[line_start])
+    # line-start X of lines that hold Y values, and their section line numbers
+    x_with_y = x_at[x_at + 1 < kinds.size]
+    x_with_y = x_with_y[is_first_y[x_with_y + 1]]
+    line_numbers = np.cumsum(is_line)[x_with_y] - is_line[x_with_y]
+    line_x = values[x_with_y]
+    read = ~np.isnan(line_x)  # unread (sampled-out) line-start X are NaN
     return DecodedOrdinates(
-        y=y[keep_point],
-        line_x=x_values[order],
-        line_index=point_of_line.astype(np.int64),
-        line_number=lines_with_y.astype(np.int64),
-        forms=tuple(f for f in ("AFFN", "SQZ", "DIF", "DUP") if f in forms),
+        y=y,
+        line_x=line_x[read],
+        line_index=point_of_line[read].astype(np.int64),
+        line_number=line_numbers[read].astype(np.int64),
+        forms=forms,
         checks=int(check_at.size),
     )
 

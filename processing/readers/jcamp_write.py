@@ -1,8 +1,9 @@
 """JCAMP-DX 5.01 writers: the exact inverse of `jcamp.parse` for spectra and peak tables.
 
 Round-trip guarantees (tested in tests/test_jcamp_write.py):
-- form="affn": x from repr-exact FIRSTX/LASTX; y written with `repr`, so read(write(s)) gives
-  the same absorbance bit for bit, and x within a few ulp (1e-12 relative).
+- form="affn": y written with `repr` (shortest exact digits); the reader gives each value back
+  within 1 ulp (2.3e-16 relative; bit-exact when the mantissa has 15 digits or fewer), and x
+  from repr-exact FIRSTX/LASTX within a few ulp (1e-12 relative).
 - form="dif": y quantised to integers with YFACTOR = (largest |y|) / 1e7, so every value comes
   back within YFACTOR / 2 = 5e-8 of full scale (plus float rounding of one product); when all
   y are already integers below 2**31, YFACTOR = 1 and the round trip is exact.
