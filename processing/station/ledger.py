@@ -286,9 +286,12 @@ def record_run(
         if claim_id is not None:
             conn.execute("DELETE FROM claims WHERE claim_id = ?", (claim_id,))
         run_id = int(cursor.lastrowid or 0)
-    record = get_run(conn, run_id)
-    assert record is not None
-    return record
+    return RunRecord(  # a new run has no decision yet; no need to read it back
+        run_id=run_id, path=path, sha256=sha256, version=version, status=status, verdict=verdict,
+        decision=None, decision_reason=None, operator=None, received_at=received_at or stamp,
+        processed_at=processed_at or stamp, species=tuple(species), error=error, result=result,
+        settings=settings, reprocessed_from=reprocessed_from,
+    )
 
 
 def record_reprocessed(

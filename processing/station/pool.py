@@ -269,6 +269,7 @@ class WorkerPool:
             slot.job = None
         seconds = time.monotonic() - slot.started
         if kind == "done":
+            self._assign()  # keep the worker busy while this outcome is recorded
             self._report(JobOutcome(job, payload, None, seconds))
         else:
             if str(payload).startswith("out of memory"):

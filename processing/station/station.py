@@ -6,8 +6,8 @@
     station.stop()
 
 Threads: the watchdog observer (only forwards paths), the station loop (settling, rescans,
-claims, submitting), the pool supervisor (records outcomes). Each opens its own ledger
-connection. `on_event` is called from those threads with small `events` dataclasses; without
+claims, submitting), the pool supervisor (feeds and watches the workers), the recorder (writes
+outcomes to the ledger and the reports). Each opens its own ledger connection. `on_event` is called from those threads with small `events` dataclasses; without
 it, events go to `Station.events` (a queue) for the caller to drain.
 """
 from __future__ import annotations
@@ -86,6 +86,8 @@ class Station:
         self._observer = None
         self._loop: threading.Thread | None = None
         self.pool: WorkerPool | None = None
+        self._outcomes: queue.SimpleQueue[JobOutcome | None] = queue.SimpleQueue()
+        self._recorder: threading.Thread | None = None
         self.observer_kind = ""
         self._idle_ticks = 0
         self._ticks = 0
@@ -108,6 +110,8 @@ class Station:
             memory_limit_mb=self.config.memory_limit_mb,
             on_problem=lambda message: self._emit(StationProblem(message)),
         )
+        self._recorder = threading.Thread(target=self._run_recorder, name="bandwatch-recorder", daemon=True)
+        self._recorder.start()
         self.pool.start()
         self._observer, self.observer_kind = start_observer(
             self.export_dir, self.config.recursive, self.config.poll, self._notify
@@ -131,6 +135,9 @@ class Station:
             self._loop.join(timeout=5)
         if self.pool is not None:
             self.pool.stop()
+        if self._recorder is not None:
+            self._outcomes.put(None)  # after the outcomes already handed over
+            self._recorder.join(timeout=30)
         self._emit(StationStopped())
         if self._lock_handle is not None:
             fcntl.flock(self._lock_handle, fcntl.LOCK_UN)
@@ -296,6 +303,20 @@ class Station:
     # ---------------------------------------------------------------- outcomes (pool thread)
 
     def _on_outcome(self, outcome: JobOutcome) -> None:
+        """From the pool's thread: hand over to the recorder, so the pool goes straight on."""
+        self._outcomes.put(outcome)
+
+    def _run_recorder(self) -> None:
+        while True:
+            outcome = self._outcomes.get()
+            if outcome is None:
+                return
+            try:
+                self._handle_outcome(outcome)
+            except Exception as error:  # reported; the claim stays and is redone at next start
+                self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}"))
+
+    def _handle_outcome(self, outcome: JobOutcome) -> None:
         with self._lock:
             info = self._inflight.get(outcome.job.job_id)
         if info is None:
