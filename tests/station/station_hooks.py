@@ -24,9 +24,11 @@ def misbehave(path: str, settings: ProcessSettings) -> RunResult:
     if "hang" in name:
         time.sleep(60)
     if "hog" in name:
-        hoard: list[Any] = []
-        for _ in range(16):  # 16 x 512 MB = 8 GB, far over the test's limit
-            hoard.append(bytearray(512 * 1024 * 1024))
+        import numpy as np
+
+        hoard: list[Any] = [np.ones(16 * 1024 * 1024)]  # 128 MB really used first
+        for _ in range(16):  # then 16 x 1 GB reserved (not touched): far over the test's limit
+            hoard.append(np.empty(128 * 1024 * 1024))
     if "raise" in name:
         raise RuntimeError("deliberate failure")
     return process_file(path, settings)
