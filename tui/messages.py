@@ -27,6 +27,14 @@ class RunsLoaded(Message):
         self.runs = runs
 
 
+class RunDetailLoaded(Message):
+    """One run with its full result (the run list itself is read without results)."""
+
+    def __init__(self, run: Any) -> None:
+        super().__init__()
+        self.run = run
+
+
 class SpectrumLoaded(Message):
     """The arrays of one run's file, re-read read-only for the plot."""
 

@@ -20,8 +20,8 @@ SIZE = (80, 24)
 
 
 async def settle(app: BandwatchApp, pilot: Any) -> None:
-    """Let workers finish and their messages be handled."""
-    for _ in range(3):
+    """Let workers finish and their messages be handled (workers may start more workers)."""
+    for _ in range(4):
         await app.workers.wait_for_complete()
         await pilot.pause()
 

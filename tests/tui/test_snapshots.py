@@ -30,12 +30,12 @@ def keys(*pressed: str) -> Callable[[Any], Any]:
     """run_before: wait for the ledger and file reads, press keys, wait again."""
 
     async def run_before(pilot: Any) -> None:
-        for _ in range(3):
+        for _ in range(4):
             await pilot.app.workers.wait_for_complete()
             await pilot.pause()
         for key in pressed:
             await pilot.press(key)
-            for _ in range(2):
+            for _ in range(3):
                 await pilot.app.workers.wait_for_complete()
                 await pilot.pause()
         for widget in pilot.app.screen.query("Input"):

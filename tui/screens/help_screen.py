@@ -9,6 +9,8 @@ from textual.screen import ModalScreen
 from textual.widgets import Static
 
 PANES_TEXT = """\
+Every key has an id (e.g. run.accept, plot.zoom_in) for remapping with App.set_keymap.
+
 Panes (top to bottom)
   run list      newest first: time (UTC), file, version, species found, verdict, decision
   summary       the highlighted run: verdict, decision, who decided and why
@@ -62,7 +64,7 @@ def help_text(keymap: dict[str, str] | None = None) -> Text:
                 continue
             keys = keymap.get(binding_id, binding.key)
             keys = keys.replace("question_mark", "?").replace("equals_sign", "=").replace(",", " / ")
-            text.append(f"  {keys:<20} {binding.description}\n")
+            text.append(f"  {keys:<20} {binding.tooltip or binding.description}\n")
         if title == "Runs and panes":
             for keys, what in EXTRA_KEYS:
                 text.append(f"  {keys:<20} {what}\n")

@@ -20,6 +20,7 @@ from tui.messages import (
     DecisionRecorded,
     ReportExported,
     ReprocessFinished,
+    RunDetailLoaded,
     RunsLoaded,
     SpectrumLoaded,
     StationEventReceived,
@@ -65,7 +66,8 @@ class MainScreen(Screen[None]):
 
     def __init__(self) -> None:
         super().__init__()
-        self.runs: dict[int, Any] = {}
+        self.runs: dict[int, Any] = {}  # run list records, read without their results
+        self.detail: Any | None = None  # the selected run, with its result
         self.busy_paths: list[str] = []
         self.problems: dict[str, str] = {}
         self.follow_hold = False  # set while a just-redone run is to stay selected  # path -> what the station said when it could not record it
@@ -138,10 +140,22 @@ class MainScreen(Screen[None]):
 
         conn = open_ledger(self.bw.data_dir)
         try:
-            runs = list_runs(conn, limit=self.bw.run_limit)
+            runs = list_runs(conn, limit=self.bw.run_limit, with_result=False)
         finally:
             conn.close()
         self.post_message(RunsLoaded(runs))
+
+    @work(thread=True, exclusive=True, group="detail", exit_on_error=False)
+    def load_detail(self, run_id: int) -> None:
+        from processing.station.ledger import get_run, open_ledger
+
+        conn = open_ledger(self.bw.data_dir)
+        try:
+            run = get_run(conn, run_id)
+        finally:
+            conn.close()
+        if run is not None:
+            self.post_message(RunDetailLoaded(run))
 
     @work(thread=True, exclusive=True, group="spectrum", exit_on_error=False)
     def load_spectrum(self, run_id: int, path: str) -> None:
@@ -230,26 +244,40 @@ class MainScreen(Screen[None]):
             self.query_one("#run-summary", Static).update(Text(self.problems.get(key[8:], ""), no_wrap=True))
 
     def select_run(self, run_id: int | None) -> None:
-        """Fill the detail panes from the run's stored result; re-read its file for the plot."""
+        """Show the run's summary at once; its result and its file are read by workers."""
         self.selected_run_id = run_id
+        self.detail = None
         run = self.runs.get(run_id) if run_id is not None else None
         self.update_summary()
+        self.fill_details(None)
         plot = self.query_one(SpectrumPlot)
+        if run is None:
+            plot.show_message("no run selected")
+            return
+        plot.show_message(f"reading {run.name} …")
+        self.load_detail(run.run_id)
+        self.load_spectrum(run.run_id, run.path)
+
+    def fill_details(self, run: Any | None) -> None:
+        """Lines, constants and checks of `run` (None: empty panes)."""
         result = (run.result if run else None) or {}
-        excluded = self.excluded.get(run_id, set()) if run_id is not None else set()
+        excluded = self.excluded.get(run.run_id, set()) if run is not None else set()
         self.query_one(LinesTable).fill(list(result.get("lines") or []), excluded)
         self.query_one(ConstantsTable).fill(list(result.get("bands") or []), list(result.get("constants") or []))
         checks = self.query_one(ChecksTable)
         checks.fill(list(result.get("checks") or []), short_error(run))
         self.query_one("#check-detail", Static).update(Text(checks.details[0] if checks.details else ""))
-        if run is None:
-            plot.show_message("no run selected")
+
+    @on(RunDetailLoaded)
+    def show_detail(self, message: RunDetailLoaded) -> None:
+        if message.run.run_id != self.selected_run_id:
             return
-        plot.show_message(f"reading {run.name} …")
-        self.load_spectrum(run.run_id, run.path)
+        self.detail = message.run
+        self.fill_details(message.run)
+        self.query_one(SpectrumPlot).set_lines(self.plot_lines(message.run.run_id))
 
     def plot_lines(self, run_id: int) -> list[PlotLine]:
-        run = self.runs.get(run_id)
+        run = self.detail if self.detail is not None and self.detail.run_id == run_id else None
         lines = ((run.result or {}).get("lines") or []) if run else []
         excluded = self.excluded.get(run_id, set())
         return [PlotLine.from_result_line(line, line_key(line) in excluded) for line in lines]
@@ -374,6 +402,8 @@ class MainScreen(Screen[None]):
         run = self._current_run()
         if run is None:
             return
+        if self.detail is not None and self.detail.run_id == run.run_id:
+            run = self.detail  # with its result: the redo dialog offers the run's bands
         excluded = sorted(self.excluded.get(run.run_id, set()), reverse=True)
 
         def chosen(requested: dict[str, Any] | None) -> None:
@@ -391,7 +421,7 @@ class MainScreen(Screen[None]):
     def action_history(self) -> None:
         from tui.screens.history_screen import HistoryScreen
 
-        run = self.runs.get(self.selected_run_id) if self.selected_run_id is not None else None
+        run = self.detail if self.detail is not None and self.detail.run_id == self.selected_run_id else None
         preferred = None
         if self.query_one(TabbedContent).active == "tab-constants":
             preferred = self.query_one(ConstantsTable).selected_quantity()

@@ -207,10 +207,13 @@ class SpectrumPlot(Widget, can_focus=True):
     BINDINGS = [
         Binding("plus,equals_sign,i", "zoom(0.5)", "Zoom in", id="plot.zoom_in", key_display="+"),
         Binding("minus,o", "zoom(2.0)", "Zoom out", id="plot.zoom_out", key_display="-"),
-        Binding("left,h", "pan(-0.25)", "Pan", id="plot.pan_left", key_display="←/→"),
-        Binding("right,l", "pan(0.25)", "Pan", id="plot.pan_right", show=False),
-        Binding("0", "reset_view", "Whole", id="plot.reset"),
-        Binding("x", "flip_axis", "Flip axis", id="plot.flip"),
+        Binding("left,h", "pan(-0.25)", "Pan", id="plot.pan_left", key_display="←/→",
+                tooltip="Pan left (a quarter of the view)"),
+        Binding("right,l", "pan(0.25)", "Pan right", id="plot.pan_right", show=False,
+                tooltip="Pan right (a quarter of the view)"),
+        Binding("0", "reset_view", "Whole", id="plot.reset", tooltip="Whole spectrum"),
+        Binding("x", "flip_axis", "Flip axis", id="plot.flip",
+                tooltip="Flip axis (high to low wavenumber, or low to high)"),
     ]
 
     high_to_low: reactive[bool] = reactive(True)
