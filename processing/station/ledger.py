@@ -20,6 +20,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
+from processing.errors import BandwatchError
+
 LEDGER_FILE = "ledger.sqlite3"
 RUN_STATUSES = ("processed", "unreadable", "failed")
 DECISION_ACTIONS = ("accept", "flag")
@@ -27,7 +29,7 @@ UNDO = "undo"
 BUSY_TIMEOUT_MS = 10_000
 
 
-class LedgerError(Exception):
+class LedgerError(BandwatchError):
     """A ledger that cannot be used as it stands (e.g. written by a newer bandwatch)."""
 
 

@@ -21,7 +21,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import IO
+from typing import IO, Any
 
 from processing.errors import ConfigError
 from processing.readers import DEFAULT_MAX_BYTES
@@ -53,8 +53,12 @@ LOCK_FILE = "station.lock"
 class _InFlight:
     path: str
     sha256: str | None
-    claim_id: int
+    claim_id: int | None
     received_at: str
+    reprocess_of: int | None = None  # set for a redo of a run with changed settings
+    requested: dict[str, Any] | None = None
+    done: threading.Event | None = None
+    answer: dict[str, Any] | None = None  # the redo's new run id lands here
 
 
 class Station:
@@ -138,11 +142,39 @@ class Station:
         if self._recorder is not None:
             self._outcomes.put(None)  # after the outcomes already handed over
             self._recorder.join(timeout=30)
+        with self._lock:
+            for info in self._inflight.values():
+                if info.done is not None:
+                    info.done.set()  # a redo still waiting gets None
         self._emit(StationStopped())
         if self._lock_handle is not None:
             fcntl.flock(self._lock_handle, fcntl.LOCK_UN)
             self._lock_handle.close()
             self._lock_handle = None
+
+    def reprocess(self, run_id: int, requested: dict[str, Any], timeout: float | None = None) -> int | None:
+        """Redo a run's file in the pool with changed settings; the new version's run id.
+
+        Blocks the calling thread (not the station) until recorded; None when the station
+        stopped first or `timeout` passed. The request is stored with the new version.
+        """
+        if self.pool is None or not self._started:
+            raise ledger.LedgerError("the station is not running")
+        run = ledger.get_run(self._conn(), run_id)
+        if run is None:
+            raise ledger.LedgerError(f"no run {run_id} in the ledger")
+        done = threading.Event()
+        answer: dict[str, Any] = {}
+        with self._lock:
+            self._job_ids += 1
+            job = Job(self._job_ids, run.path, {**self.settings, **requested})
+            self._inflight[job.job_id] = _InFlight(
+                run.path, run.sha256, None, ledger.now_iso(), run_id, dict(requested), done, answer
+            )
+            self._inflight_paths.add(run.path)
+        self.pool.submit(job)
+        done.wait(timeout)
+        return answer.get("run_id")
 
     def __enter__(self) -> Station:
         self.start()
@@ -330,6 +362,13 @@ class Station:
             self._wakeup.set()
 
     def _record_outcome(self, outcome: JobOutcome, info: _InFlight) -> None:
+        if info.reprocess_of is not None:
+            try:
+                self._record_redo(outcome, info)
+            finally:
+                assert info.done is not None
+                info.done.set()
+            return
         conn = self._conn()
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
@@ -350,6 +389,33 @@ class Station:
         )
         folder = None
         if status == "processed":
+            try:
+                folder = str(write_reports(self.data_dir, record.run_id, record.version, result))
+            except OSError as error:
+                self._emit(StationProblem(f"report for run {record.run_id} not written: {error}"))
+        self._emit(
+            RunProcessed(
+                record.run_id, record.version, record.path, record.status,
+                record.verdict, record.species, record.error, folder,
+            )
+        )
+
+    def _record_redo(self, outcome: JobOutcome, info: _InFlight) -> None:
+        """A reprocessed run: a new version with the request stored beside it."""
+        assert info.reprocess_of is not None and info.answer is not None
+        conn = self._conn()
+        settings = dict(info.requested or {})
+        if outcome.failed or outcome.result is None:
+            reason = outcome.reason or "no result"
+            record = ledger.record_reprocessed(conn, info.reprocess_of, None, settings, status="failed", error=reason)
+            info.answer["run_id"] = record.run_id
+            self._emit(RunFailed(record.run_id, record.version, record.path, reason))
+            return
+        result = outcome.result
+        record = ledger.record_reprocessed(conn, info.reprocess_of, result, settings)
+        info.answer["run_id"] = record.run_id
+        folder = None
+        if record.status == "processed":
             try:
                 folder = str(write_reports(self.data_dir, record.run_id, record.version, result))
             except OSError as error:
