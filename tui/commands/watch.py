@@ -22,7 +22,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="export folder to watch (default: the configuration's export_folder)")
     add_station_arguments(parser)
     parser.add_argument("--plain", action="store_true",
-                        help="one line per event on standard output, no interface (logs, scripts)")
+                        help="one line per event on standard output, no interface (logs, scripts; "
+                        "also chosen when standard output is not a terminal)")
     parser.add_argument("--once", action="store_true",
                         help="process what is in the folder now, then exit (no watching)")
     parser.add_argument("--poll", action="store_true", default=None,
@@ -70,6 +71,9 @@ def run(args: argparse.Namespace) -> int:
     config = build_config(args)
     if args.plain or args.once:
         return run_plain(config, once=args.once)
+    if not sys.stdout.isatty():
+        print("bandwatch: no terminal; printing events instead (--plain)", file=sys.stderr)
+        return run_plain(config, once=False)
     try:
         from tui.app import BandwatchApp
     except ImportError:

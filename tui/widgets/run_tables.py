@@ -161,8 +161,15 @@ class LinesTable(DataTable):
     def _note(self, line: dict[str, Any]) -> Text:
         if line_key(line) in self.excluded:
             return Text("x EXCLUDE on redo", style="bold")
-        cause = line.get("likely_cause")
-        return plain(cause or "")
+        notes = [str(line["likely_cause"])] if line.get("likely_cause") else []
+        assigned = line.get("assigned") or {}
+        if line.get("saturated"):
+            notes.append("saturated")
+        if line.get("blended") or assigned.get("blended"):
+            notes.append("blended")
+        if assigned.get("used_in_fit") is False:
+            notes.append("not in fit")
+        return plain(", ".join(notes))
 
     def action_toggle_exclude(self) -> None:
         if not self.lines:
