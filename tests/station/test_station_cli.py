@@ -111,3 +111,30 @@ def test_bad_configuration_and_folder_mistakes_are_one_line(isolated: Path, caps
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "data_folder" in err and "inside the export folder" in err
     assert not (export / "bw").exists()
+
+
+def test_watch_without_plain_hands_a_station_factory_to_the_app(
+    isolated: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    import tui.app
+
+    export, data = isolated / "export", isolated / "data"
+    export.mkdir()
+    seen: dict[str, object] = {}
+
+    class FakeApp:
+        def __init__(self, data_dir, export_dir, *, station_factory, operator=None):  # type: ignore[no-untyped-def]
+            seen.update(data_dir=data_dir, export_dir=export_dir, operator=operator, factory=station_factory)
+
+        def run(self) -> int:
+            station = seen["factory"](lambda event: None)  # type: ignore[operator]
+            seen["station"] = station
+            return 0
+
+    monkeypatch.setattr(tui.app, "BandwatchApp", FakeApp)
+    monkeypatch.setattr("sys.stdout.isatty", lambda: True)
+    assert main(["watch", str(export), "--data", str(data), "--operator", "ana"]) == 0
+    from processing.station.station import Station
+
+    assert (seen["data_dir"], seen["export_dir"], seen["operator"]) == (data, export, "ana")
+    assert isinstance(seen["station"], Station) and seen["station"].export_dir == export
