@@ -135,6 +135,21 @@ class Claim:
     owner_pid: int | None
 
 
+def json_default(value: Any) -> Any:
+    """Numbers and arrays from numpy (or anything else) in a result become plain JSON."""
+    if hasattr(value, "tolist"):
+        return value.tolist()
+    if hasattr(value, "item"):
+        return value.item()
+    if isinstance(value, (set, frozenset, tuple)):
+        return list(value)
+    return str(value)
+
+
+def to_json(value: Any) -> str:
+    return json.dumps(value, default=json_default)
+
+
 def now_iso() -> str:
     """The current UTC time as ISO 8601 with milliseconds (sorts as text)."""
     return datetime.now(timezone.utc).isoformat(timespec="milliseconds").replace("+00:00", "Z")
@@ -277,11 +292,11 @@ def record_run(
                 status,
                 verdict,
                 ",".join(species),
-                json.dumps(result) if result is not None else None,
+                to_json(result) if result is not None else None,
                 error,
                 received_at or stamp,
                 processed_at or stamp,
-                json.dumps(settings) if settings is not None else None,
+                to_json(settings) if settings is not None else None,
                 reprocessed_from,
             ),
         )

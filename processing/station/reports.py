@@ -18,6 +18,8 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
+from processing.station.ledger import json_default
+
 LINE_COLUMNS = (
     "position_cm1",
     "sigma_cm1",
@@ -173,7 +175,7 @@ def write_reports(data_dir: str | Path, run_id: int, version: int, result: dict[
     """Write the three report files for a run; returns their folder."""
     folder = report_folder(data_dir, run_id, str(result.get("file", "")))
     folder.mkdir(parents=True, exist_ok=True)
-    _write_atomic(folder / "result.json", json.dumps(result) + "\n")
+    _write_atomic(folder / "result.json", json.dumps(result, default=json_default) + "\n")
     _write_atomic(folder / "lines.csv", lines_csv(result))
     _write_atomic(folder / "summary.md", summary_markdown(result, run_id, version))
     return folder

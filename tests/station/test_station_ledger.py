@@ -184,3 +184,13 @@ def test_reader_connection_reads_while_a_writer_writes(tmp_path: Path) -> None:
     assert not errors
     assert counts == sorted(counts)  # a reader never sees rows vanish
     assert len(lg.list_runs(writer_conn)) == 200
+
+
+def test_numpy_values_in_a_result_are_stored_as_plain_json(tmp_path: Path) -> None:
+    import numpy as np
+
+    conn = lg.open_ledger(tmp_path)
+    result = _result() | {"timing_ms": {"fit": np.float64(1.5)}, "mask": np.array([1, 0])}
+    run = lg.record_run(conn, "/exp/a.csv", "1" * 64, "processed", result=result)
+    stored = lg.get_run(conn, run.run_id).result
+    assert stored["timing_ms"] == {"fit": 1.5} and stored["mask"] == [1, 0]
