@@ -41,6 +41,7 @@ class BandwatchApp(App[int]):
         process_function: Callable[[str, Any], Any] | None = None,
         run_limit: int = 500,
         exit_after_seconds: float | None = None,
+        keymap: dict[str, str] | None = None,
     ) -> None:
         super().__init__()
         self.data_dir = Path(data_dir)
@@ -51,10 +52,20 @@ class BandwatchApp(App[int]):
         self.process_function = process_function
         self.run_limit = run_limit
         self.exit_after_seconds = exit_after_seconds
+        self.user_keymap = keymap  # None: read the user's keys file on mount
 
     def on_mount(self) -> None:
+        from processing.errors import ConfigError
+        from tui.keymap import load_keymap
         from tui.screens.main_screen import MainScreen
 
+        try:
+            keymap = self.user_keymap if self.user_keymap is not None else load_keymap()
+        except ConfigError as error:
+            keymap = {}
+            self.notify(str(error), title="keys file ignored", severity="error", timeout=15)
+        if keymap:
+            self.set_keymap(keymap)
         self.push_screen(MainScreen())
         if self.station_factory is not None:
             self.start_station()

@@ -113,6 +113,66 @@ def render_bands(result: RunResult) -> list[str]:
     return out
 
 
+CONSTANT_ROWS = (
+    ("omega_e", "omega_e", "cm-1"),
+    ("omega_e_x_e", "omega_e x_e", "cm-1"),
+    ("B_e", "B_e", "cm-1"),
+    ("alpha_e", "alpha_e", "cm-1"),
+    ("gamma_e", "gamma_e", "cm-1"),
+    ("D_e", "D_e", "cm-1"),
+    ("beta_e", "beta_e", "cm-1"),
+    ("r_e", "r_e", "angstrom"),
+)
+
+
+def render_constants(result: RunResult) -> list[str]:
+    if not result.constants:
+        return []
+    out = ["   molecular constants (one term-value fit of all lines of each isotopologue):"]
+    rows = []
+    for entry in result.constants:
+        references = entry.get("reference", {})
+        for key, label, unit in CONSTANT_ROWS:
+            q = entry.get(key)
+            if not q:
+                continue
+            ref = references.get(key)
+            if ref:
+                reference_text = f"{ref['reference']:.6g}"
+                difference = f"{ref['difference_percent']:+.3f}%"
+                z = ref.get("effective_z") if ref.get("effective_z") is not None else ref.get("z")
+                z_text = "" if z is None else f"{z:+.1f}"
+                if ref.get("effective_reference") is not None:
+                    reference_text += f" (eff {ref['effective_reference']:.6g})"
+            else:
+                reference_text = difference = z_text = ""
+            rows.append([entry["isotopologue"], label, format_value_sigma(q["value"], q.get("sigma")), unit, reference_text, difference, z_text])
+    out.append(table(["isotopologue", "constant", "fitted", "unit", "reference", "diff", "z"], rows, right={2, 5, 6}))
+    derived_rows = []
+    for entry in result.constants:
+        for name, d in entry.get("derived", {}).items():
+            derived_rows.append([entry["isotopologue"], name, format_value_sigma(d["value"], d.get("sigma")), d["unit"], d["model"]])
+    if derived_rows:
+        out.append("   derived (each under the model named):")
+        out.append(table(["isotopologue", "quantity", "value", "unit", "model"], derived_rows, right={2}))
+    for fit in result.extra.get("mass_reduced", []):
+        out.append(f"   mass-reduced fit {fit['molecule']} ({', '.join(fit['isotopologues'])}): rms {fit['rms']:.4f} cm-1")
+        mr_rows = []
+        for label, entry in fit["per_isotopologue"].items():
+            omega = entry.get("omega_e")
+            mr_rows.append([label, format_value_sigma(omega["value"], omega["sigma"]) if omega else "-", f"{entry['residual_mean']:+.4f}", f"{entry['residual_rms']:.4f}"])
+        out.append(table(["isotopologue", "omega_e cm-1", "mean obs-calc", "rms"], mr_rows, right={1, 2, 3}))
+        out += [f"   note: {note}" for note in fit.get("notes", [])]
+    return out
+
+
+def render_checks(result: RunResult) -> list[str]:
+    if not result.checks:
+        return []
+    rows = [[c["status"].upper(), c["name"], c["detail"]] for c in result.checks]
+    return [table(["status", "check", "reason"], rows), f"   verdict: {str(result.verdict).upper()}"]
+
+
 def render_result(result: RunResult) -> str:
     out = [f"== {result.file}"]
     if result.status != "processed" or result.spectrum is None:
@@ -124,6 +184,12 @@ def render_result(result: RunResult) -> str:
         out += render_lines(result)
         out.append("")
         out += render_bands(result)
+        constants = render_constants(result)
+        if constants:
+            out.append("")
+            out += constants
+        out.append("")
+        out += render_checks(result)
     for note in result.extra.get("notes", []):
         out.append(f"   note: {note}")
     return "\n".join(out)

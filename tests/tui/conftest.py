@@ -27,6 +27,12 @@ def pytest_pyfunc_call(pyfuncitem: pytest.Function) -> bool | None:
     return True
 
 
+@pytest.fixture(autouse=True)
+def no_user_keys_file(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> None:
+    """Tests never read the keys file of whoever runs them."""
+    monkeypatch.setenv("BANDWATCH_KEYS", str(tmp_path / "no-keys.toml"))
+
+
 ORIGIN_H35CL = 2885.98  # cm-1, Huber & Herzberg 1979 via NIST WebBook, recalled from memory
 B_H35CL = 10.44  # cm-1, ground-state B0 of H35Cl, same source
 RUN_TIMES = ("2026-03-05T09:15:00.000Z", "2026-03-05T10:40:00.000Z", "2026-03-05T12:05:00.000Z")

@@ -325,3 +325,25 @@ async def test_plot_zooms_pans_and_flips_by_keys(lab: dict[str, Path]) -> None:
         assert plot.window == (2700.0, 3100.0)
         rendered = plot.render().plain
         assert "low→high" in rendered and "H35Cl" in rendered
+
+
+async def test_keys_file_remaps_and_a_bad_file_is_one_clear_message(lab: dict[str, Path], tmp_path: Path,
+                                                                     monkeypatch: Any) -> None:
+    import pytest
+
+    from processing.errors import ConfigError
+    from tui.keymap import load_keymap
+
+    keys = tmp_path / "keys.toml"
+    keys.write_text('"run.accept" = "y"\n"table.down" = "s,down"\n', encoding="utf-8")
+    monkeypatch.setenv("BANDWATCH_KEYS", str(keys))
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("s", "y")
+        await settle(app, pilot)
+    assert runs_by_name(lab["data"])["hcl_cell_03.csv"].decision == "accept"
+    keys.write_text('"run.acept" = "y"\n', encoding="utf-8")
+    with pytest.raises(ConfigError) as caught:
+        load_keymap(keys)
+    assert str(keys) in str(caught.value) and "run.acept" in str(caught.value)

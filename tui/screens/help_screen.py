@@ -9,7 +9,8 @@ from textual.screen import ModalScreen
 from textual.widgets import Static
 
 PANES_TEXT = """\
-Every key has an id (e.g. run.accept, plot.zoom_in) for remapping with App.set_keymap.
+Keys can be remapped by their id (right column) in ~/.config/bandwatch/keys.toml
+(or the file named by $BANDWATCH_KEYS), e.g.  "run.accept" = "y"
 
 Panes (top to bottom)
   run list      newest first: time (UTC), file, version, species found, verdict, decision
@@ -51,6 +52,17 @@ def _all_bindings() -> dict[str, Binding]:
     return found
 
 
+def binding_ids() -> set[str]:
+    """Every remappable binding id of the interface."""
+    from tui.screens.history_screen import HistoryScreen
+    from tui.screens.modals import FlagReasonScreen, ReprocessScreen
+
+    ids = set(_all_bindings())
+    for screen in (HelpScreen, HistoryScreen, FlagReasonScreen, ReprocessScreen):
+        ids.update(b.id for b in screen.BINDINGS if isinstance(b, Binding) and b.id)
+    return ids
+
+
 def help_text(keymap: dict[str, str] | None = None) -> Text:
     """The help page; `keymap` (binding id -> keys) overrides the default keys shown."""
     bindings = _all_bindings()
@@ -64,10 +76,12 @@ def help_text(keymap: dict[str, str] | None = None) -> Text:
                 continue
             keys = keymap.get(binding_id, binding.key)
             keys = keys.replace("question_mark", "?").replace("equals_sign", "=").replace(",", " / ")
-            text.append(f"  {keys:<20} {binding.tooltip or binding.description}\n")
+            what = binding.tooltip or binding.description
+            text.append(f"  {keys:<18} {what[:38]:<39}")
+            text.append(f"{binding_id}\n", style="dim")
         if title == "Runs and panes":
             for keys, what in EXTRA_KEYS:
-                text.append(f"  {keys:<20} {what}\n")
+                text.append(f"  {keys:<18} {what}\n")
     text.append("\n")
     text.append(PANES_TEXT)
     return text

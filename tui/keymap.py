@@ -1,0 +1,46 @@
+"""The user's key remapping: a TOML file of binding id = "keys" (e.g. `"run.accept" = "y"`).
+
+Read from $BANDWATCH_KEYS, else $XDG_CONFIG_HOME/bandwatch/keys.toml (~/.config/...). Each id
+is one of the interface's binding ids (the help screen lists them); keys use Textual's key
+names, comma-separated for alternatives ("down,j").
+"""
+from __future__ import annotations
+
+import os
+import tomllib
+from pathlib import Path
+
+from processing.errors import ConfigError
+
+
+def keymap_path() -> Path:
+    explicit = os.environ.get("BANDWATCH_KEYS")
+    if explicit:
+        return Path(explicit).expanduser()
+    base = os.environ.get("XDG_CONFIG_HOME") or str(Path.home() / ".config")
+    return Path(base) / "bandwatch" / "keys.toml"
+
+
+def load_keymap(path: str | Path | None = None) -> dict[str, str]:
+    """binding id -> keys; {} when there is no file. Raises ConfigError naming the file and id."""
+    from tui.screens.help_screen import binding_ids
+
+    chosen = Path(path) if path is not None else keymap_path()
+    if not chosen.exists():
+        return {}
+    try:
+        with open(chosen, "rb") as handle:
+            table = tomllib.load(handle)
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(chosen, "file", f"not valid TOML ({error})") from None
+    except OSError as error:
+        raise ConfigError(chosen, "file", f"cannot be read ({error.strerror or error})") from None
+    known = binding_ids()
+    keymap: dict[str, str] = {}
+    for binding_id, keys in table.items():
+        if binding_id not in known:
+            raise ConfigError(chosen, binding_id, f"unknown key id (known: {', '.join(sorted(known))})")
+        if not isinstance(keys, str) or not keys.strip() or any(not k.strip() for k in keys.split(",")):
+            raise ConfigError(chosen, binding_id, 'must be key names, e.g. "y" or "down,j"')
+        keymap[binding_id] = keys.replace(" ", "")
+    return keymap
