@@ -80,6 +80,12 @@ MIGRATIONS: tuple[str, ...] = (
     );
     CREATE INDEX claims_by_path ON claims (path);
     """,
+    # 2 -> 3: the file's size and time stamp when read, so a restart need not re-read
+    # unchanged files to know they are done
+    """
+    ALTER TABLE runs ADD COLUMN size_bytes INTEGER;
+    ALTER TABLE runs ADD COLUMN mtime_ns INTEGER;
+    """,
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -267,10 +273,13 @@ def record_run(
     claim_id: int | None = None,
     settings: dict[str, Any] | None = None,
     reprocessed_from: int | None = None,
+    size_bytes: int | None = None,
+    mtime_ns: int | None = None,
 ) -> RunRecord:
     """Record a finished run as the next version of `path`; drops `claim_id` atomically.
 
-    `verdict` and `species` default to what `result` says.
+    `verdict` and `species` default to what `result` says. `size_bytes` and `mtime_ns` are
+    the file's stat when it was read (lets a restart skip unchanged files without reading).
     """
     if status not in RUN_STATUSES:
         raise ValueError(f"run status must be one of {RUN_STATUSES}, not {status!r}")
@@ -283,8 +292,8 @@ def record_run(
         version = next_version(conn, path)
         cursor = conn.execute(
             "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error,"
-            " received_at, processed_at, settings_json, reprocessed_from)"
-            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns)"
+            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (
                 path,
                 sha256,
@@ -298,6 +307,8 @@ def record_run(
                 processed_at or stamp,
                 to_json(settings) if settings is not None else None,
                 reprocessed_from,
+                size_bytes,
+                mtime_ns,
             ),
         )
         if claim_id is not None:
@@ -442,6 +453,16 @@ def latest_run_for_path(conn: sqlite3.Connection, path: str) -> RunRecord | None
     if row is None:
         return None
     return _record(row, _current_decisions(conn, [row["run_id"]]).get(row["run_id"]), with_result=False)
+
+
+def latest_stat_by_path(conn: sqlite3.Connection) -> dict[str, tuple[int, int]]:
+    """path -> (size_bytes, mtime_ns) of its newest version, where recorded."""
+    rows = conn.execute(
+        "SELECT path, size_bytes, mtime_ns FROM runs AS r WHERE version ="
+        " (SELECT MAX(version) FROM runs WHERE path = r.path)"
+        " AND size_bytes IS NOT NULL AND mtime_ns IS NOT NULL"
+    ).fetchall()
+    return {row["path"]: (int(row["size_bytes"]), int(row["mtime_ns"])) for row in rows}
 
 
 def latest_sha_by_path(conn: sqlite3.Connection) -> dict[str, str | None]:

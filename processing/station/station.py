@@ -55,6 +55,8 @@ class _InFlight:
     sha256: str | None
     claim_id: int | None
     received_at: str
+    size_bytes: int | None = None
+    mtime_ns: int | None = None
     reprocess_of: int | None = None  # set for a redo of a run with changed settings
     requested: dict[str, Any] | None = None
     done: threading.Event | None = None
@@ -169,7 +171,8 @@ class Station:
             self._job_ids += 1
             job = Job(self._job_ids, run.path, {**self.settings, **requested})
             self._inflight[job.job_id] = _InFlight(
-                run.path, run.sha256, None, ledger.now_iso(), run_id, dict(requested), done, answer
+                run.path, run.sha256, None, ledger.now_iso(),
+                reprocess_of=run_id, requested=dict(requested), done=done, answer=answer,
             )
             self._inflight_paths.add(run.path)
         self.pool.submit(job)
@@ -265,11 +268,17 @@ class Station:
             self._ticks += 1
 
     def _catch_up(self) -> None:
-        """Queue every file in the folder; those the ledger holds unchanged are skipped later."""
-        seen = ledger.latest_sha_by_path(self._conn())
+        """Queue every file in the folder the ledger does not hold as it is now.
+
+        A file whose size and time stamp match its newest run is done (not even read); any
+        other is read, and one whose content (sha256) matches its newest run is skipped then.
+        """
+        conn = self._conn()
+        seen = ledger.latest_sha_by_path(conn)
+        self.settler.known.update(ledger.latest_stat_by_path(conn))
         found = sorted(self.filter.scan(), key=lambda item: item[1].st_mtime_ns)
         new = sum(1 for path, _ in found if path not in seen)
-        if found:
+        if new:
             self._emit(CatchUpFound(new))
         for path, stat in found:
             self.settler.touch(path, stat)
@@ -328,7 +337,9 @@ class Station:
         with self._lock:
             self._job_ids += 1
             job = Job(self._job_ids, item.path, self.settings)
-            self._inflight[job.job_id] = _InFlight(item.path, item.sha256, claim.claim_id, claim.received_at)
+            self._inflight[job.job_id] = _InFlight(
+                item.path, item.sha256, claim.claim_id, claim.received_at, item.size_bytes, item.mtime_ns
+            )
             self._inflight_paths.add(item.path)
         self.pool.submit(job)
 
@@ -375,6 +386,7 @@ class Station:
             record = ledger.record_run(
                 conn, info.path, info.sha256, "failed", error=reason,
                 received_at=info.received_at, claim_id=info.claim_id,
+                size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
             )
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
@@ -386,6 +398,7 @@ class Station:
             conn, info.path, result.get("sha256") or info.sha256, status,
             result=result, error=result.get("error"),
             received_at=info.received_at, claim_id=info.claim_id,
+            size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
         )
         folder = None
         if status == "processed":
