@@ -49,19 +49,19 @@ class MainScreen(Screen[None]):
     """Runs newest first; the details of the highlighted one."""
 
     BINDINGS = [
-        Binding("a", "accept", "Accept", id="run.accept"),
-        Binding("f", "flag", "Flag", id="run.flag"),
-        Binding("u", "undo", "Undo", id="run.undo"),
-        Binding("r", "reprocess", "Redo…", id="run.reprocess"),
-        Binding("e", "export", "Export", id="run.export"),
-        Binding("t", "history", "Trend", id="run.history"),
+        Binding("a", "accept", "Accept", id="run.accept", tooltip="Accept the run"),
+        Binding("f", "flag", "Flag", id="run.flag", tooltip="Flag the run (asks why)"),
+        Binding("u", "undo", "Undo", id="run.undo", tooltip="Undo the last decision (kept on record)"),
+        Binding("r", "reprocess", "Redo…", id="run.reprocess", tooltip="Redo the run with changed settings"),
+        Binding("e", "export", "Export", id="run.export", tooltip="Write the run's report under DATA/reports"),
+        Binding("t", "history", "Trend", id="run.history", tooltip="Trend of a fitted quantity over runs"),
         Binding("n,ctrl+n", "next_run", "Next run", show=False, id="run.next"),
         Binding("p,ctrl+p", "previous_run", "Previous run", show=False, id="run.previous"),
-        Binding("1", "show_tab('tab-plot')", "Plot", show=False, id="pane.plot"),
-        Binding("2", "show_tab('tab-lines')", "Lines", show=False, id="pane.lines"),
-        Binding("3", "show_tab('tab-constants')", "Constants", show=False, id="pane.constants"),
-        Binding("4", "show_tab('tab-checks')", "Checks", show=False, id="pane.checks"),
-        Binding("w", "focus_runs", "Runs", show=False, id="pane.runs"),
+        Binding("1", "show_tab('tab-plot')", "Plot", show=False, id="pane.plot", tooltip="Show the plot pane"),
+        Binding("2", "show_tab('tab-lines')", "Lines", show=False, id="pane.lines", tooltip="Show the lines pane"),
+        Binding("3", "show_tab('tab-constants')", "Constants", show=False, id="pane.constants", tooltip="Show the constants pane"),
+        Binding("4", "show_tab('tab-checks')", "Checks", show=False, id="pane.checks", tooltip="Show the checks pane"),
+        Binding("w", "focus_runs", "Runs", show=False, id="pane.runs", tooltip="Go to the run list"),
     ]
 
     def __init__(self) -> None:
