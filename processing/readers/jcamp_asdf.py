@@ -59,6 +59,7 @@ _KIND[ord("\n")] = KIND_LINE
 
 _AFFN_DELETE = b"0123456789.+-eE \t,\n"
 _MARKER = b" nan "
+CHUNK_BYTES = 1 << 20  # compressed data are decoded in pieces of ~1 MB
 
 
 class DecodeError(Exception):
@@ -352,31 +353,68 @@ def _refuse_spelled_nonfinite(section: bytes, raw: np.ndarray, first: np.ndarray
 def tokenize(section: bytes) -> Tokens:
     """All numbers of a `(X++(Y..Y))` data section with kinds; KIND_LINE after each line."""
     affn = _is_affn(section)
-    try:
-        values, kinds = _decode_tokens(section, affn)
-    except ValueError:
-        line, problem = _first_bad_line(section.split(b"\n"), compressed=not affn)
-        raise DecodeError(line, problem) from None
-    return Tokens(values, kinds, compressed=not affn)
+    if affn:
+        # numpy's C parser over the whole section, a NaN marker in place of each line end
+        text = section.replace(b",", b" ") if b"," in section else section
+        try:
+            values = _parse_numbers(text.replace(b"\n", _MARKER))
+        except ValueError:
+            # Signs also separate AFFN numbers: `1.5-2.3` is 1.5 and -2.3 (not after an exponent).
+            spaced = re.sub(rb"(?<=[0-9.])([+-])", rb" \1", text)
+            try:
+                values = _parse_numbers(spaced.replace(b"\n", _MARKER))
+            except ValueError:
+                line, problem = _first_bad_line(spaced.split(b"\n"), compressed=False)
+                raise DecodeError(line, problem) from None
+        kinds = np.where(np.isnan(values), KIND_LINE, KIND_AFFN).astype(np.uint8)
+        return Tokens(values, kinds, compressed=False)
+    # Pieces of about CHUNK_BYTES, cut after a line end, keep the arrays in cache.
+    value_parts: list[np.ndarray] = []
+    kind_parts: list[np.ndarray] = []
+    begin = 0
+    lines_before = 0
+    while begin < len(section):
+        cut = section.find(b"\n", begin + CHUNK_BYTES)
+        end = len(section) if cut == -1 else cut + 1
+        piece = section[begin:end]
+        try:
+            values, kinds = _decode_tokens(piece, affn)
+        except ValueError:
+            line, problem = _first_bad_line(piece.split(b"\n"), compressed=True)
+            raise DecodeError(lines_before + line, problem) from None
+        except DecodeError as error:
+            raise DecodeError(lines_before + error.line, error.problem) from None
+        value_parts.append(values)
+        kind_parts.append(kinds)
+        lines_before += piece.count(b"\n")
+        begin = end
+    if len(value_parts) == 1:
+        return Tokens(value_parts[0], kind_parts[0], compressed=True)
+    return Tokens(np.concatenate(value_parts), np.concatenate(kind_parts), compressed=True)
 
 
 def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     """Decode `(X++(Y..Y))` lines: DUP expansion, DIF integration, Y-check verification.
 
-    `max_points` bounds the expanded size (a corrupt DUP count must not exhaust memory).
+    Works in token space: each token gets a repeat count (1 for a Y value, the DUP count for a
+    value followed by DUP, 0 for X values, line markers, DUP tokens and Y-check values), so one
+    `np.repeat` expands DUPs and drops everything that is not a point. `max_points` bounds the
+    expanded size (a corrupt DUP count must not exhaust memory).
     """
     tokens = tokenize(section)
     values, kinds = tokens.values, tokens.kinds
+    size = kinds.size
     is_line = kinds == KIND_LINE
     if np.isinf(values).any():  # markers are NaN; an overflowing number is inf
         bad = int(np.flatnonzero(np.isinf(values))[0])
         raise DecodeError(int(np.count_nonzero(is_line[:bad])), "value is not finite")
+    markers = np.flatnonzero(is_line)
 
     def line_of(token: int) -> int:
-        return int(np.count_nonzero(is_line[:token]))
+        return int(np.searchsorted(markers, token))
 
-    is_x = np.empty(kinds.size, dtype=bool)
-    if kinds.size:
+    is_x = np.empty(size, dtype=bool)
+    if size:
         is_x[0] = True
         is_x[1:] = is_line[:-1]
     is_x &= ~is_line
@@ -385,105 +423,85 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     wrong_x = np.flatnonzero((x_kinds == KIND_DIF) | (x_kinds == KIND_DUP))
     if wrong_x.size:
         raise DecodeError(line_of(int(x_at[wrong_x[0]])), "line starts with a DIF or DUP character where its X value belongs")
-    is_first_y = np.zeros(kinds.size, dtype=bool)
-    is_first_y[x_at[x_at + 1 < kinds.size] + 1] = True
     is_y = ~(is_x | is_line)
-    is_first_y &= is_y
-    y_at = np.flatnonzero(is_y)
-    if y_at.size == 0:
+    after_x = x_at[x_at + 1 < size] + 1
+    line_first = after_x[is_y[after_x]]  # first Y token of every line holding Y values
+    if line_first.size == 0:
         raise DecodeError(0, "no Y values in the data lines")
-    y_values = values[y_at]
-    y_kinds = kinds[y_at]
-    first_y = is_first_y[y_at]
-    seen = np.bincount(y_kinds, minlength=5)
-    forms = tuple(name for name, kind in (("AFFN", KIND_AFFN), ("SQZ", KIND_SQZ), ("DIF", KIND_DIF), ("DUP", KIND_DUP)) if seen[kind])
+    seen = np.bincount(kinds, minlength=5) - np.bincount(x_kinds, minlength=5)
+    forms = tuple(
+        name for name, kind in (("AFFN", KIND_AFFN), ("SQZ", KIND_SQZ), ("DIF", KIND_DIF), ("DUP", KIND_DUP)) if seen[kind]
+    )
+    first = int(line_first[0])
+    if kinds[first] == KIND_DIF:
+        raise DecodeError(line_of(first), "first Y value is a DIF difference with no value before it")
+    is_dif = kinds == KIND_DIF
+    repeats = is_y.astype(np.intp)
 
     # DUP: the count is how often the preceding value (or difference) appears in total.
-    line_start = np.flatnonzero(first_y)
     if seen[KIND_DUP]:
-        is_dup = y_kinds == KIND_DUP
-        dups = np.flatnonzero(is_dup)
-        orphan = first_y[dups] | is_dup[np.maximum(dups - 1, 0)]
+        dups = np.flatnonzero(kinds == KIND_DUP)
+        before = dups - 1
+        orphan = (dups == 0) | ~is_y[np.maximum(before, 0)] | (kinds[np.maximum(before, 0)] == KIND_DUP)
         if orphan.any():
-            bad = int(dups[np.flatnonzero(orphan)[0]])
-            raise DecodeError(line_of(int(y_at[bad])), "DUP count with no value before it on the line")
-        counts = y_values[dups]
-        wrong = (counts < 1) | (counts != np.rint(counts))
+            raise DecodeError(line_of(int(dups[np.flatnonzero(orphan)[0]])), "DUP count with no value before it on the line")
+        counts = values[dups]
+        wrong = (counts < 1) | (counts != np.rint(counts)) | (counts > max_points)
         if wrong.any():
             bad = int(dups[np.flatnonzero(wrong)[0]])
-            raise DecodeError(line_of(int(y_at[bad])), "DUP count is not a whole number of at least 1")
-        repeats = np.ones(y_values.size, dtype=np.intp)
-        total = float(y_values.size - dups.size) + float(np.sum(counts - 1.0))
-        if total > max_points:
-            bad = int(dups[np.argmax(counts)])
-            raise DecodeError(line_of(int(y_at[bad])), f"DUP counts expand to {total:.0f} points, more than the {max_points} possible")
-        repeats[dups - 1] = counts.astype(np.intp)
-        keep = ~is_dup
-        repeats = repeats[keep]
-        kept_at = np.flatnonzero(keep)
-        y_at = y_at[kept_at]
-        first_kept = first_y[kept_at]
-        y_values = np.repeat(y_values[keep], repeats)
-        y_kinds = np.repeat(y_kinds[keep], repeats)
-        expanded_start = np.cumsum(repeats) - repeats
-        line_start = expanded_start[np.flatnonzero(first_kept)]
-        source_token = lambda point: int(y_at[np.searchsorted(expanded_start, point, side="right") - 1])  # noqa: E731
-    else:
-        if y_values.size > max_points:
-            raise DecodeError(line_of(int(y_at[-1])), f"more than {max_points} Y values")
-        source_token = lambda point: int(y_at[point])  # noqa: E731
+            raise DecodeError(line_of(bad), "DUP count is not a whole number from 1 to the point limit")
+        repeats[dups] = 0
+        repeats[before] = counts.astype(np.intp)
 
-    # DIF: integrate differences from the last absolute value.
-    is_absolute = y_kinds != KIND_DIF
-    if not is_absolute[0]:
-        raise DecodeError(line_of(source_token(0)), "first Y value is a DIF difference with no value before it")
-    if seen[KIND_DIF]:
+    # Y-check: a line after one ending in a DIF starts by repeating that line's last value.
+    later = line_first[1:]
+    y_tokens = np.flatnonzero(is_y)
+    previous = y_tokens[np.searchsorted(y_tokens, later) - 1]  # last Y token of the line before
+    base = np.where(kinds[previous] == KIND_DUP, previous - 1, previous)
+    is_check = is_dif[base] & ~is_dif[later]
+    check_at = later[is_check]
+    repeats[check_at] = 0
+    total = int(repeats.sum())
+    if total > max_points:
+        raise DecodeError(line_of(int(y_tokens[-1])), f"{total} points decoded, more than the {max_points} possible")
+    absolute_y = int(seen[KIND_AFFN] + seen[KIND_SQZ])
+    if seen[KIND_DIF] and absolute_y == 1 + check_at.size:
+        # The usual layout: one starting value, then differences (checks add nothing).
+        steps = np.where(is_dif, values, 0.0)
+        steps[first] = values[first]
+        y = np.cumsum(np.repeat(steps, repeats))
+    elif seen[KIND_DIF]:
+        expanded = np.repeat(values, repeats)
+        is_absolute = ~np.repeat(is_dif, repeats)
         absolute_at = np.flatnonzero(is_absolute)
         group = np.cumsum(is_absolute)
         group -= 1
-        steps = np.where(is_absolute, 0.0, y_values)
-        running = np.cumsum(steps)
-        y = running + (y_values[absolute_at] - running[absolute_at])[group]
+        running = np.cumsum(np.where(is_absolute, 0.0, expanded))
+        y = running + (expanded[absolute_at] - running[absolute_at])[group]
     else:
-        y = y_values
-
-    # Y-check: a line after one ending in a DIF starts by repeating that line's last value.
-    later = line_start[line_start > 0]
-    is_check = (y_kinds[later - 1] == KIND_DIF) & is_absolute[later]
-    check_at = later[is_check]
+        y = np.repeat(values, repeats)
+    points_through = np.cumsum(repeats)  # points up to and including each token
     if check_at.size:
-        scale = float(np.max(np.abs(y))) + 1.0
+        before_check = points_through[check_at] - 1
+        scale = float(np.max(np.abs(y))) + 1.0 if y.size else 1.0
         tolerance = 1e-9 * scale  # exact for integer ordinates below 1e9 (common practice)
-        mismatch = np.abs(y_values[check_at] - y[check_at - 1]) > tolerance
+        mismatch = (before_check < 0) | (np.abs(values[check_at] - y[np.maximum(before_check, 0)]) > tolerance)
         if mismatch.any():
-            bad = int(check_at[np.flatnonzero(mismatch)[0]])
+            bad = int(np.flatnonzero(mismatch)[0])
             raise DecodeError(
-                line_of(source_token(bad)),
-                f"DIF check failed: line starts with Y={y_values[bad]:.10g} but the previous "
-                f"line's differences end at {y[bad - 1]:.10g}",
+                line_of(int(check_at[bad])),
+                f"DIF check failed: line starts with Y={values[check_at[bad]]:.10g} but the previous "
+                f"line's differences end at {y[max(int(before_check[bad]), 0)]:.10g}",
             )
-        keep_point = np.ones(y.size, dtype=bool)
-        keep_point[check_at] = False
-        new_index = np.cumsum(keep_point)
-        new_index -= 1
-        y = y[keep_point]
-    else:
-        new_index = np.arange(y.size)
     # Point index of each line's X: the check point (previous line's last) or its first value.
-    line_is_check = np.zeros(line_start.size, dtype=bool)
-    line_is_check[line_start > 0] = is_check
-    point_of_line = np.where(line_is_check, new_index[np.maximum(line_start - 1, 0)], new_index[line_start])
-    # line-start X of lines that hold Y values, and their section line numbers
-    x_with_y = x_at[x_at + 1 < kinds.size]
-    x_with_y = x_with_y[is_first_y[x_with_y + 1]]
-    line_numbers = np.cumsum(is_line)[x_with_y] - is_line[x_with_y]
-    line_x = values[x_with_y]
-    read = ~np.isnan(line_x)  # unread (sampled-out) line-start X are NaN
+    line_point = points_through[line_first] - repeats[line_first]
+    line_point[1:][is_check] -= 1
+    kept = line_point < total  # a line whose only value was a failed-free check still counts
     return DecodedOrdinates(
         y=y,
-        line_x=line_x[read],
-        line_index=point_of_line[read].astype(np.int64),
-        line_number=line_numbers[read].astype(np.int64),
+        line_x=values[line_first - 1][kept],
+        line_index=line_point[kept].astype(np.int64),
+        line_number=np.searchsorted(markers, line_first)[kept].astype(np.int64),
         forms=forms,
         checks=int(check_at.size),
     )
