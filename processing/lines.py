@@ -243,7 +243,13 @@ def measure_lines(
         h = np.where(~np.isfinite(h) | bad, height0, h)
     scatter = np.maximum(sigma * local_noise_factor(0.5 * h), rms)
     position_sigma = np.sqrt(np.clip(cov[:, 1, 1], 0, None)) * scatter
-    position_sigma = np.maximum(np.nan_to_num(position_sigma, nan=spacing), 0.01 * spacing)
+    position_sigma = np.maximum(np.nan_to_num(position_sigma, nan=np.inf), 0.01 * spacing)
+    # a profile fit that cannot place its centre to 10% of a width has failed (e.g. a
+    # distorted blend): keep the three-point parabola centre with that 10% as its uncertainty
+    limit = 0.1 * np.median(w)
+    failed = position_sigma > limit
+    c = np.where(failed, centre0, c)
+    position_sigma = np.where(failed, limit, position_sigma)
     raw_top = spectrum.absorbance[peaks]
     sat_window, _ = _gather(spectrum.saturated.astype(np.int8), peaks, half)
     saturated = (raw_top > baseline.usable_absorbance) | (sat_window.max(axis=1) > 0)

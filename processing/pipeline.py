@@ -30,6 +30,7 @@ class ProcessSettings:
     j_offsets: tuple[tuple[str, int, int, str, int], ...] = ()
     excluded_positions_cm1: tuple[float, ...] = ()  # lines to leave out of assignment and fits
     library_file: str | None = None  # a user library file that adds or overrides species
+    checks: dict[str, Any] = field(default_factory=dict)  # threshold overrides (see processing.checks)
 
 
 @dataclass(frozen=True)
@@ -133,6 +134,10 @@ class Analysis:
     lines: Any  # LineTable
     assignment: Any  # AssignmentResult
     timing_ms: dict[str, float]
+    constants: Any = None  # ConstantsResult
+    intensities: Any = None  # IntensityResult | None
+    checks: tuple[Any, ...] = ()  # Check
+    verdict: str | None = None
 
 
 def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) -> Analysis:
@@ -175,13 +180,25 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
     )
     assignment = assign_lines(lines, first, last, assign_settings, library)
     lap("assignment and fits")
-    return Analysis(data, baseline, lines, assignment, timing)
+    from processing.checks import CheckThresholds, run_checks, verdict_of
+    from processing.line_intensities import analyse_intensities
+    from processing.molecular_constants import molecular_constants
+
+    thresholds = CheckThresholds.from_mapping(settings.checks)
+    partial = Analysis(data, baseline, lines, assignment, timing)
+    constants = molecular_constants(partial, library)
+    intensities = analyse_intensities(partial, library, settings.temperature_K)
+    lap("constants and intensities")
+    checks = run_checks(partial, library, intensities, settings.species, thresholds)
+    lap("checks")
+    return Analysis(data, baseline, lines, assignment, timing, constants, intensities, tuple(checks), verdict_of(checks))
 
 
 def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
     lines = analysis.lines
     assignment = analysis.assignment
     records = []
+    widths = analysis.intensities.equivalent_width_cm1 if analysis.intensities is not None else None
     for i in range(lines.count):
         assigned = assignment.per_line[i]
         width = float(lines.width_cm1[i])
@@ -196,6 +213,8 @@ def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
                 "snr": snr if snr != float("inf") else None,
                 "saturated": bool(lines.saturated[i]),
                 "blended": bool(lines.blended[i]),
+                "ringing": bool(lines.ringing[i]),
+                "equivalent_width": float(widths[i]) if widths is not None and widths[i] == widths[i] else None,
                 "assigned": assigned.to_dict() if assigned else None,
                 "likely_cause": assignment.likely_cause[i],
             }
@@ -214,6 +233,11 @@ def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
     }
     if analysis.baseline is not None:
         extra["baseline"] = analysis.baseline.to_dict()
+    if analysis.constants is not None:
+        extra["mass_reduced"] = [m.to_dict() for m in analysis.constants.mass_reduced]
+        extra["notes"] = extra["notes"] + list(analysis.constants.notes)
+    if analysis.intensities is not None:
+        extra["intensities"] = analysis.intensities.to_dict()
     return RunResult(
         file=source,
         status="processed",
@@ -221,6 +245,9 @@ def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
         spectrum=SpectrumSummary.of(data),
         lines=_line_records(analysis),
         bands=tuple(fit.to_dict() for fit in analysis.assignment.bands),
+        constants=tuple(c.to_dict() for c in analysis.constants.per_isotopologue) if analysis.constants else (),
+        checks=tuple(c.to_dict() for c in analysis.checks),
+        verdict=analysis.verdict,
         extra=extra,
     )
 

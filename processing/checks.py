@@ -1,0 +1,315 @@
+"""Run checks: is this scan good enough to keep? Each check says pass, warn or fail with a
+one-line reason and the number behind it; the verdict is the worst of them.
+
+Thresholds live in `CheckThresholds` (defaults below, each with its reason); the station
+configuration's [checks] table overrides any of them by name.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, fields
+from typing import Any
+
+import numpy as np
+
+from processing.errors import ConfigError
+
+STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}
+
+
+@dataclass(frozen=True)
+class CheckThresholds:
+    # strongest assigned line in units of the noise sigma (common practice: >= 10 to measure
+    # positions well; weak runs still give constants)
+    snr_pass: float = 30.0
+    snr_warn: float = 10.0
+    # apparent absorbance beyond which a line top is not measurable (T < ~3%, common practice)
+    usable_absorbance: float = 1.5
+    saturated_lines_fail_fraction: float = 0.2  # of assigned lines
+    thin_ratio_warn: float = 0.5  # measured/natural isotopologue ratio below this: strongly thick
+    # lines per band
+    band_lines_pass: float = 10.0
+    band_lines_warn: float = 6.0
+    # band fit rms as a fraction of the measured line width (a line is located to a few % of
+    # its width at SNR >= 30; more means misassignments or blends)
+    rms_width_pass: float = 0.1
+    rms_width_warn: float = 0.25
+    # band origin against the library (cm-1); 0.05 ~ the library's own accuracy
+    calibration_pass_cm1: float = 0.05
+    calibration_warn_cm1: float = 0.5
+    # interferent lines left unassigned in their typical regions
+    interferent_lines_warn: float = 5.0
+    negative_lines_warn: float = 5.0
+    # rotational temperature range for a room-temperature cell (K)
+    temperature_min_K: float = 273.0
+    temperature_max_K: float = 323.0
+    # isotopologue abundance ratio against natural, relative
+    abundance_ratio_tolerance: float = 0.15
+    # baseline away from zero where nothing absorbs (common practice: |A| > 0.05)
+    baseline_offset_warn: float = 0.05
+    baseline_tilt_warn_per_1000_cm1: float = 0.05
+    fringe_amplitude_warn: float = 0.003  # absorbance
+
+    @classmethod
+    def from_mapping(cls, values: dict[str, Any] | None) -> CheckThresholds:
+        """Defaults overridden by a mapping (the [checks] table); unknown names are left for
+        other consumers, bad values raise ConfigError naming the key."""
+        known = {f.name for f in fields(cls)}
+        chosen: dict[str, float] = {}
+        for key, value in (values or {}).items():
+            if key not in known:
+                continue
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+                raise ConfigError(None, f"checks.{key}", f"must be a number, got {value!r}")
+            chosen[key] = float(value)
+        return cls(**chosen)
+
+
+@dataclass(frozen=True)
+class Check:
+    name: str
+    status: str  # "pass" | "warn" | "fail"
+    detail: str
+    value: float | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "status": self.status, "detail": self.detail, "value": self.value}
+
+
+def _grade(value: float, good: float, fair: float, higher_is_better: bool = True) -> str:
+    if higher_is_better:
+        return "pass" if value >= good else "warn" if value >= fair else "fail"
+    return "pass" if value <= good else "warn" if value <= fair else "fail"
+
+
+def verdict_of(checks: list[Check]) -> str:
+    return max((c.status for c in checks), key=STATUS_ORDER.__getitem__, default="pass")
+
+
+# ----------------------------------------------------------------------------- the checks
+def check_signal_to_noise(analysis: Any, t: CheckThresholds) -> Check:
+    lines = analysis.lines
+    if analysis.baseline is None:
+        return Check("signal_to_noise", "pass", "line list: no spectrum to measure noise on", None)
+    sigma = analysis.baseline.noise_sigma
+    if lines.count == 0:
+        return Check("signal_to_noise", "fail", f"no absorption line above 5x the noise (noise sigma {sigma:.2g} A)", 0.0)
+    assigned = np.array([a is not None for a in analysis.assignment.per_line])
+    pool = lines.snr[assigned] if assigned.any() else lines.snr
+    best = float(np.max(pool))
+    what = "strongest assigned line" if assigned.any() else "strongest line (none assigned)"
+    return Check("signal_to_noise", _grade(best, t.snr_pass, t.snr_warn), f"{what} {best:.0f}x the noise (noise sigma {sigma:.2g} A)", best)
+
+
+def check_saturation(analysis: Any, intensities: Any, t: CheckThresholds) -> Check:
+    lines = analysis.lines
+    assigned = np.array([a is not None for a in analysis.assignment.per_line], dtype=bool)
+    if analysis.baseline is None:
+        return Check("saturation", "pass", "line list: saturation not assessable", None)
+    peak = float(np.max(analysis.data.absorbance))
+    saturated = int((lines.saturated & assigned).sum()) if lines.count else 0
+    n_assigned = int(assigned.sum())
+    if saturated and saturated >= max(3, t.saturated_lines_fail_fraction * max(n_assigned, 1)):
+        return Check("saturation", "fail", f"{saturated} of {n_assigned} assigned lines saturated or flat-topped (peak absorbance {peak:.2f}): reduce pressure or path", float(saturated))
+    if saturated:
+        return Check("saturation", "warn", f"{saturated} assigned line(s) saturated (peak absorbance {peak:.2f}); they are down-weighted", float(saturated))
+    if intensities is not None and intensities.thinness is not None and intensities.thinness < t.thin_ratio_warn:
+        return Check("saturation", "warn", f"line centres strongly optically thick: isotopologue ratio at {intensities.thinness:.2f} of natural (peak absorbance {peak:.2f})", intensities.thinness)
+    return Check("saturation", "pass", f"no saturated line (peak absorbance {peak:.2f})", 0.0)
+
+
+def check_band_lines(analysis: Any, t: CheckThresholds) -> Check:
+    bands = analysis.assignment.bands
+    if not bands:
+        return Check("assigned_lines", "fail", "no band could be assigned", 0.0)
+    fewest = min(bands, key=lambda b: b.n_lines)
+    return Check("assigned_lines", _grade(fewest.n_lines, t.band_lines_pass, t.band_lines_warn),
+                 f"{len(bands)} band(s); fewest lines: {fewest.label} with {fewest.n_lines}", float(fewest.n_lines))
+
+
+def check_fit_rms(analysis: Any, t: CheckThresholds) -> Check:
+    bands = analysis.assignment.bands
+    if not bands:
+        return Check("fit_rms", "fail", "no band fit", None)
+    width = analysis.lines.typical_width_cm1
+    if not (width and np.isfinite(width)):
+        worst = max(bands, key=lambda b: b.rms)
+        return Check("fit_rms", "pass", f"worst band {worst.label}: rms {worst.rms:.4f} cm-1 (no line width to compare: line list)", worst.rms)
+    worst = max(bands, key=lambda b: b.rms / width)
+    fraction = worst.rms / width
+    return Check("fit_rms", _grade(fraction, t.rms_width_pass, t.rms_width_warn, higher_is_better=False),
+                 f"worst band {worst.label}: rms {worst.rms:.4f} cm-1 = {100 * fraction:.1f}% of the {width:.3f} cm-1 line width", fraction)
+
+
+def _reference_origin(library: Any, label: str, v_upper: int, v_lower: int) -> tuple[float, float] | None:
+    """Library band origin and its own uncertainty: ~0.02 cm-1 when omega_e y_e is known,
+    ~0.3 cm-1 without it (13/4 omega_e y_e is that big for the hydrides, calc) or when the
+    isotopologue is mass-scaled across H/D (Born-Oppenheimer breakdown, calc)."""
+    from processing.levels import band_origin
+
+    try:
+        iso = library.isotopologue(label)
+    except Exception:  # noqa: BLE001 - an unidentified band has no library entry
+        return None
+    uncertainty = 0.02 if (3, 0) in iso.dunham else 0.3
+    if iso.derived_from:
+        parent = library.isotopologue(iso.derived_from)
+        if ("2H" in iso.nuclides) != ("2H" in parent.nuclides):
+            uncertainty = 0.3
+    return band_origin(iso.dunham, v_upper, v_lower), uncertainty
+
+
+def check_calibration(analysis: Any, library: Any, t: CheckThresholds) -> Check:
+    offsets = []
+    for fit in analysis.assignment.bands:
+        reference = _reference_origin(library, fit.isotopologue, fit.v_upper, fit.v_lower)
+        if reference is None:
+            continue
+        origin, uncertainty = reference
+        sigma = math.hypot(fit.origin.sigma or 0.0, uncertainty)
+        offsets.append((fit.origin.value - origin, sigma, fit.label, uncertainty))
+    if not offsets:
+        return Check("calibration", "pass", "no library band to compare with", None)
+    weights = np.array([1 / s**2 for _, s, _, _ in offsets])
+    values = np.array([o for o, _, _, _ in offsets])
+    mean = float(np.sum(weights * values) / weights.sum())
+    sigma = float(1 / math.sqrt(weights.sum()))
+    tolerance = max(t.calibration_pass_cm1, 3 * sigma)
+    detail_bands = ", ".join(f"{label} {o:+.3f}" for o, _, label, _ in offsets[:4])
+    status = "pass" if abs(mean) <= tolerance else "warn" if abs(mean) <= t.calibration_warn_cm1 else "fail"
+    reason = "band origins agree with the library" if status == "pass" else "wavenumber calibration offset"
+    return Check("calibration", status, f"{reason}: {mean:+.3f} cm-1 (+-{sigma:.3f}; {detail_bands})", mean)
+
+
+def check_interferents(analysis: Any, t: CheckThresholds) -> Check:
+    causes = [c for c in analysis.assignment.likely_cause if c]
+    co2 = sum("CO2" in c for c in causes)
+    water = sum("water" in c for c in causes)
+    negative = _negative_lines(analysis)
+    problems = []
+    if co2 >= t.interferent_lines_warn:
+        problems.append(f"{co2} unassigned lines in the CO2 region")
+    if water >= t.interferent_lines_warn:
+        problems.append(f"{water} unassigned lines in water-vapour regions")
+    if negative >= t.negative_lines_warn:
+        problems.append(f"{negative} negative lines (background taken with a different purge)")
+    if problems:
+        return Check("interferents", "warn", "; ".join(problems) + ": check the purge", float(co2 + water + negative))
+    return Check("interferents", "pass", f"no interferent bands ({co2} CO2-region, {water} water-region, {negative} negative lines)", float(co2 + water + negative))
+
+
+def _negative_lines(analysis: Any) -> int:
+    if analysis.baseline is None:
+        return 0
+    from processing.lines import find_peaks
+
+    inverted = -analysis.baseline.corrected
+    peaks, _ = find_peaks(inverted, analysis.baseline.noise_sigma, 8.0, None)
+    if peaks.size == 0:
+        return 0
+    # dips next to strong lines are ringing, not lines
+    positions = analysis.data.wavenumber_cm1[peaks]
+    strong = analysis.lines.position_cm1[analysis.lines.height > 20 * inverted[peaks].max()] if analysis.lines.count else np.zeros(0)
+    width = analysis.lines.typical_width_cm1 or 1.0
+    isolated = [p for p in positions if strong.size == 0 or np.min(np.abs(strong - p)) > 20 * width]
+    return len(isolated)
+
+
+def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], t: CheckThresholds) -> Check:
+    found = set(analysis.assignment.species_found)
+    unidentified = sorted(f for f in found if f.startswith("unidentified"))
+    labels = {iso.label: iso for iso in library.isotopologues()}
+    found_molecules = {labels[f].molecule for f in found if f in labels}
+    problems: list[tuple[str, str]] = []
+    if expected:
+        wanted = {iso.molecule for iso in library.resolve(expected)}
+        for molecule in sorted(wanted - found_molecules):
+            problems.append(("fail", f"expected {molecule} not found"))
+        for molecule in sorted(found_molecules - wanted):
+            partner_note = " (H/D exchange?)" if any(_hd_partners(molecule, w) for w in wanted) else ""
+            problems.append(("warn", f"unexpected {molecule} present{partner_note}"))
+    for band in unidentified:
+        problems.append(("warn", f"{band}: a band not in the library"))
+    if intensities is not None:
+        for fraction in intensities.hydrogen_fractions:
+            problems.append(("warn", f"{fraction.molecule_h} in {fraction.molecule_d}: hydrogen fraction ~{100 * fraction.fraction_h.value:.0f}% (H/D exchange)"))
+    if intensities is not None and intensities.optically_thin:
+        for ratio in intensities.ratios:
+            if ratio.natural and abs(ratio.ratio.value / ratio.natural - 1) > t.abundance_ratio_tolerance:
+                problems.append(("warn", f"{ratio.numerator}/{ratio.denominator} = {ratio.ratio.value:.2f}, natural {ratio.natural:.2f}"))
+    if not found:
+        return Check("isotopologues", "fail" if expected else "warn", "no isotopologue identified", 0.0)
+    if problems:
+        status = "fail" if any(s == "fail" for s, _ in problems) else "warn"
+        return Check("isotopologues", status, "; ".join(text for _, text in problems), float(len(problems)))
+    return Check("isotopologues", "pass", "found " + ", ".join(sorted(found)), float(len(found)))
+
+
+def _hd_partners(a: str, b: str) -> bool:
+    return a != b and a.replace("D", "H") == b.replace("D", "H")
+
+
+def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
+    if intensities is None or not intensities.temperatures:
+        return Check("temperature", "pass", "not assessed: too few clean lines for a Boltzmann plot", None)
+    best = min(intensities.temperatures, key=lambda r: r.temperature.sigma or np.inf)
+    T = best.temperature.value
+    sigma = best.temperature.sigma or 0.0
+    if intensities.optically_thin is False:
+        return Check("temperature", "pass", f"not assessed: line centres optically thick (isotopologue ratio at {intensities.thinness:.2f} of natural); the Boltzmann plot gives {T:.0f} K, biased high", None)
+    if intensities.optically_thin is None:
+        return Check("temperature", "pass", f"not assessed: optical depth cannot be verified without a 35/37-like isotopologue pair (Boltzmann plot: {T:.0f} +- {sigma:.0f} K, an upper bound if lines are thick)", None)
+    inside = t.temperature_min_K - 2 * sigma <= T <= t.temperature_max_K + 2 * sigma
+    return Check("temperature", "pass" if inside else "warn",
+                 f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower}", T)
+
+
+def check_baseline(analysis: Any, t: CheckThresholds) -> Check:
+    baseline = analysis.baseline
+    if baseline is None:
+        return Check("baseline", "pass", "line list: no baseline", None)
+    problems = []
+    if abs(baseline.offset_median) > t.baseline_offset_warn:
+        problems.append(f"baseline at {baseline.offset_median:+.3f} A where nothing absorbs (background mismatch?)")
+    if abs(baseline.tilt_per_1000_cm1) > t.baseline_tilt_warn_per_1000_cm1:
+        problems.append(f"tilt {baseline.tilt_per_1000_cm1:+.3f} A per 1000 cm-1")
+    amplitude, period = fringe_amplitude(analysis)
+    if amplitude > max(t.fringe_amplitude_warn, 5 * baseline.noise_sigma):
+        problems.append(f"fringes: {amplitude:.4f} A with period {period:.2f} cm-1 (window etalon)")
+    if problems:
+        return Check("baseline", "warn", "; ".join(problems), baseline.offset_median)
+    return Check("baseline", "pass", f"flat: offset {baseline.offset_median:+.3f} A, fringes below {max(t.fringe_amplitude_warn, 5 * baseline.noise_sigma):.4f} A", baseline.offset_median)
+
+
+def fringe_amplitude(analysis: Any) -> tuple[float, float]:
+    """Largest periodic baseline component (amplitude in A, period in cm-1) in line-free
+    points, from the Fourier transform of the baseline-corrected residual (periods 0.3-20 cm-1)."""
+    baseline = analysis.baseline
+    x = analysis.data.wavenumber_cm1
+    residual = np.where(baseline.line_free, baseline.corrected, 0.0)
+    n = residual.size
+    if n < 64 or baseline.line_free.mean() < 0.3:
+        return 0.0, 0.0
+    spectrum = np.fft.rfft(residual - residual.mean())
+    frequency = np.fft.rfftfreq(n, d=analysis.data.spacing_cm1)  # cycles per cm-1
+    band = (frequency > 1 / 20.0) & (frequency < 1 / 0.3)
+    if not band.any():
+        return 0.0, 0.0
+    power = np.abs(spectrum[band])
+    k = int(np.argmax(power))
+    amplitude = 2.0 * power[k] / max(baseline.line_free.sum(), 1)
+    return float(amplitude), float(1.0 / frequency[band][k])
+
+
+def run_checks(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], thresholds: CheckThresholds) -> list[Check]:
+    return [
+        check_signal_to_noise(analysis, thresholds),
+        check_saturation(analysis, intensities, thresholds),
+        check_band_lines(analysis, thresholds),
+        check_fit_rms(analysis, thresholds),
+        check_calibration(analysis, library, thresholds),
+        check_interferents(analysis, thresholds),
+        check_isotopologues(analysis, library, intensities, expected, thresholds),
+        check_temperature(intensities, thresholds),
+        check_baseline(analysis, thresholds),
+    ]

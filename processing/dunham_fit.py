@@ -1,0 +1,160 @@
+"""Term-value fits of assigned lines: per isotopologue, and mass-reduced across isotopologues.
+
+Every assigned line is nu = E(v', J') - E(v'', J'') with Dunham term values
+    E(v, J) = sum_kl Y_kl (v + 1/2)^k [J(J+1)]^l,
+which is linear in the Y_kl, so all bands of one isotopologue (fundamental, overtone, hot
+band) are fitted at once by weighted linear least squares. Which Y_kl are floated depends on
+what the data determine:
+- vibrational Y_k0 (k >= 1): one fewer than the number of vibrational levels seen. With only
+  v = 0 and 1 the single term is G(1) - G(0), not omega_e (reported as not determined);
+- Y01 always; Y11 with two or more levels; Y21 with three or more;
+- Y02 and Y12 (centrifugal) and Y21 only when significant (|value| > 3 sigma).
+Mass-reduced fit: Y_kl = U_kl mu^-(k/2 + l) for all isotopologues of one molecule; the mass
+dependence separates U10 from U20 when hydrogen and deuterium forms are both present.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from processing.estimate import Estimate
+from processing.linear_fit import LinearFit, weighted_least_squares
+
+SIGNIFICANT = 3.0
+OPTIONAL_TERMS = ((1, 2), (2, 1), (0, 2))  # dropped in this order while not significant
+
+
+@dataclass(frozen=True)
+class AssignedLines:
+    """Assigned lines of one or more isotopologues, as aligned arrays."""
+
+    isotopologue: np.ndarray  # labels
+    reduced_mass_u: np.ndarray
+    v_upper: np.ndarray
+    v_lower: np.ndarray
+    J_upper: np.ndarray
+    J_lower: np.ndarray
+    position_cm1: np.ndarray
+    sigma_cm1: np.ndarray
+    sigma_known: bool = True
+
+    @property
+    def count(self) -> int:
+        return int(self.position_cm1.size)
+
+    def select(self, mask: np.ndarray) -> AssignedLines:
+        return AssignedLines(
+            self.isotopologue[mask], self.reduced_mass_u[mask], self.v_upper[mask], self.v_lower[mask],
+            self.J_upper[mask], self.J_lower[mask], self.position_cm1[mask], self.sigma_cm1[mask], self.sigma_known,
+        )
+
+    @property
+    def levels(self) -> tuple[int, ...]:
+        return tuple(sorted(set(self.v_upper.tolist()) | set(self.v_lower.tolist())))
+
+
+def term_name(k: int, l: int) -> str:
+    return f"Y{k}{l}"
+
+
+def _column(lines: AssignedLines, k: int, l: int, mass_reduced: bool) -> np.ndarray:
+    x_up = lines.J_upper.astype(np.float64) * (lines.J_upper + 1.0)
+    x_low = lines.J_lower.astype(np.float64) * (lines.J_lower + 1.0)
+    column = (lines.v_upper + 0.5) ** k * x_up**l - (lines.v_lower + 0.5) ** k * x_low**l
+    if mass_reduced:
+        column = column * lines.reduced_mass_u ** (-(k / 2.0 + l))
+    return column
+
+
+@dataclass(frozen=True)
+class TermFit:
+    """A Dunham (or mass-reduced) fit: parameters by name ("Y10", or "U10" when mass-reduced)."""
+
+    terms: tuple[tuple[int, int], ...]
+    fit: LinearFit
+    mass_reduced: bool
+    vibrational_levels: tuple[int, ...]
+
+    def estimate(self, k: int, l: int) -> Estimate | None:
+        name = ("U" if self.mass_reduced else "Y") + f"{k}{l}"
+        if name not in self.fit.names:
+            return None
+        sigma = self.fit.sigma(name) if self.fit.dof > 0 else None
+        unit = "cm-1" if not self.mass_reduced else f"cm-1 u^{k / 2 + l:g}"
+        return Estimate(self.fit.value(name), sigma, unit)
+
+    def index(self, k: int, l: int) -> int | None:
+        name = ("U" if self.mass_reduced else "Y") + f"{k}{l}"
+        return self.fit.names.index(name) if name in self.fit.names else None
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return self.fit.names
+
+
+def _candidate_terms(n_levels: int, vibrational_from_mass: bool) -> list[tuple[int, int]]:
+    n_vib = max(1, n_levels - 1) + (1 if vibrational_from_mass else 0)
+    terms = [(k, 0) for k in range(1, min(n_vib, 3) + 1)]
+    terms.append((0, 1))
+    if n_levels >= 2:
+        terms += [(1, 1), (1, 2)]
+    if n_levels >= 3:
+        terms.append((2, 1))
+    terms.append((0, 2))
+    return terms
+
+
+def vibration_separable(lines: AssignedLines, mass_reduced: bool) -> bool:
+    """Whether omega_e and omega_e x_e can both be floated: three vibrational levels, or (mass-
+    reduced) hydrogen and deuterium forms together (reduced masses differing by > 20%)."""
+    masses = lines.reduced_mass_u
+    from_mass = mass_reduced and masses.size > 0 and float(masses.max() / masses.min()) > 1.2
+    return len(lines.levels) >= 3 or from_mass
+
+
+def fit_terms(lines: AssignedLines, mass_reduced: bool = False, held: dict[tuple[int, int], float] | None = None) -> TermFit:
+    """Fit the lines' term values; optional terms are dropped while not significant.
+
+    `held` fixes terms at given values (subtracted from the positions, not floated)."""
+    levels = lines.levels
+    masses = lines.reduced_mass_u
+    vibrational_from_mass = mass_reduced and masses.size > 0 and float(masses.max() / masses.min()) > 1.2
+    terms = [t for t in _candidate_terms(len(levels), vibrational_from_mass) if not held or t not in held]
+    prefix = "U" if mass_reduced else "Y"
+    target = lines.position_cm1.copy()
+    for (k, l), value in (held or {}).items():
+        target = target - value * _column(lines, k, l, mass_reduced)
+    while True:
+        design = np.column_stack([_column(lines, k, l, mass_reduced) for k, l in terms])
+        names = tuple(prefix + f"{k}{l}" for k, l in terms)
+        if lines.count < len(terms) + 1:
+            # too few lines: drop optional terms first
+            optional = [t for t in OPTIONAL_TERMS if t in terms]
+            if not optional:
+                raise ValueError(f"{lines.count} lines cannot determine {len(terms)} term constants")
+            terms.remove(optional[0])
+            continue
+        fit = weighted_least_squares(design, target, lines.sigma_cm1, names, sigma_known=lines.sigma_known)
+        weak = [
+            t for t in OPTIONAL_TERMS
+            if t in terms and not abs(fit.value(prefix + f"{t[0]}{t[1]}")) > SIGNIFICANT * fit.sigma(prefix + f"{t[0]}{t[1]}")
+        ]
+        if not weak:
+            return TermFit(tuple(terms), fit, mass_reduced, levels)
+        terms.remove(weak[0])
+
+
+def propagate(function: Any, values: np.ndarray, covariance: np.ndarray) -> tuple[float, float]:
+    """Value and standard error of function(values) by linear propagation (numerical
+    Jacobian with relative steps of 1e-6)."""
+    base = float(function(values))
+    gradient = np.zeros(values.size)
+    for i in range(values.size):
+        step = 1e-6 * max(abs(values[i]), 1e-12)
+        shifted = values.copy()
+        shifted[i] += step
+        gradient[i] = (float(function(shifted)) - base) / step
+    variance = float(gradient @ covariance @ gradient)
+    return base, float(np.sqrt(max(variance, 0.0)))

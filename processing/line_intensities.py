@@ -1,0 +1,314 @@
+"""Intensities: equivalent widths, rotational temperature, abundance ratios.
+
+Line area = equivalent width W = integral (1 - T) d(nu), with T = 10^-(A - baseline). The
+instrument line shape has unit area, so W is the same before and after the instrument (the
+absorbance area is not, once lines are strong). For an optically thin line W = S N L.
+
+Rotational temperature (per band): Boltzmann plot of ln(W / (L_HL nu)) against E''/k, with
+L_HL = J''+1 (R) or J'' (P) (Hoenl-London), E'' from the band's fitted B'' and D''. The slope
+is -1/T. P and R lines get separate intercepts (absorbs Herman-Wallis differences between
+branches). Saturated, blended, ringing and weak (< 10 sigma) lines are left out.
+
+All of this assumes optically thin lines. Gas lines are far narrower than the resolution, so
+their centres can be black while the spectrum looks moderate; a check (`optically_thin`)
+compares matched 35/37 (or 79/81) equivalent-width ratios with the natural abundance ratio.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from processing.estimate import Estimate
+from processing.linear_fit import weighted_least_squares
+from processing.physical_constants import C2_CM_K
+
+
+@dataclass(frozen=True)
+class RotationalTemperature:
+    isotopologue: str
+    v_upper: int
+    v_lower: int
+    temperature: Estimate  # K
+    n_lines: int
+    rms: float  # of ln(W/(L nu)) residuals
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "isotopologue": self.isotopologue,
+            "v_upper": self.v_upper,
+            "v_lower": self.v_lower,
+            "temperature_K": self.temperature.to_dict(),
+            "n_lines": self.n_lines,
+            "rms": self.rms,
+        }
+
+
+@dataclass(frozen=True)
+class AbundanceRatio:
+    numerator: str
+    denominator: str
+    ratio: Estimate  # dimensionless
+    natural: float | None
+    n_pairs: int
+    basis: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "numerator": self.numerator,
+            "denominator": self.denominator,
+            "ratio": self.ratio.to_dict(),
+            "natural": self.natural,
+            "n_pairs": self.n_pairs,
+            "basis": self.basis,
+        }
+
+
+@dataclass(frozen=True)
+class HydrogenFraction:
+    molecule_h: str
+    molecule_d: str
+    fraction_h: Estimate  # N(H form) / (N(H form) + N(D form))
+    n_lines: int
+    basis: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"molecule_h": self.molecule_h, "molecule_d": self.molecule_d, "hydrogen_fraction": self.fraction_h.to_dict(), "n_lines": self.n_lines, "basis": self.basis}
+
+
+@dataclass(frozen=True)
+class IntensityResult:
+    equivalent_width_cm1: np.ndarray  # per line of the LineTable (nan where not measured)
+    equivalent_width_sigma_cm1: np.ndarray
+    temperatures: tuple[RotationalTemperature, ...]
+    ratios: tuple[AbundanceRatio, ...]
+    optically_thin: bool | None  # None: no isotopologue pair to tell
+    thinness: float | None  # measured/natural ratio of the best-measured pair (1 = thin)
+    hydrogen_fractions: tuple[HydrogenFraction, ...] = ()
+    notes: tuple[str, ...] = field(default=())
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "rotational_temperatures": [t.to_dict() for t in self.temperatures],
+            "abundance_ratios": [r.to_dict() for r in self.ratios],
+            "optically_thin": self.optically_thin,
+            "hydrogen_fractions": [h.to_dict() for h in self.hydrogen_fractions],
+            "thin_ratio": self.thinness,
+            "notes": list(self.notes),
+        }
+
+
+def equivalent_widths(spectrum: Any, baseline: Any, lines: Any) -> tuple[np.ndarray, np.ndarray]:
+    """W and its standard error for every line: integral of 1 - 10^-(A - baseline) over
+    +-2.5 line widths, cut at half-way to each neighbour."""
+    x = spectrum.wavenumber_cm1
+    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
+    n = lines.count
+    widths = np.full(n, np.nan)
+    sigmas = np.full(n, np.nan)
+    if n == 0:
+        return widths, sigmas
+    centre = lines.position_cm1
+    half = 2.5 * np.where(np.isfinite(lines.width_cm1), lines.width_cm1, lines.typical_width_cm1)
+    left = centre - half
+    right = centre + half
+    if n > 1:
+        middle = 0.5 * (centre[1:] + centre[:-1])
+        left[1:] = np.maximum(left[1:], middle)
+        right[:-1] = np.minimum(right[:-1], middle)
+    spacing = spectrum.spacing_cm1
+    # transmittance noise ~ ln10 x absorbance noise near the baseline
+    noise_t = math.log(10.0) * baseline.noise_sigma
+    cumulative = np.concatenate([[0.0], np.cumsum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x))])
+    lo = np.clip(np.searchsorted(x, left), 0, x.size - 1)
+    hi = np.clip(np.searchsorted(x, right), 0, x.size - 1)
+    widths = cumulative[hi] - cumulative[lo]
+    points = np.maximum(hi - lo, 1)
+    sigmas = noise_t * spacing * np.sqrt(points)
+    return widths, sigmas
+
+
+def rotational_temperatures(lines: Any, assignment: Any, widths: np.ndarray, width_sigmas: np.ndarray) -> list[RotationalTemperature]:
+    out = []
+    for fit in assignment.bands:
+        rows = []
+        for i, assigned in enumerate(assignment.per_line):
+            if assigned is None or (assigned.isotopologue, assigned.v_upper, assigned.v_lower) != (fit.isotopologue, fit.v_upper, fit.v_lower):
+                continue
+            if lines.saturated[i] or assigned.blended or lines.ringing[i] or not assigned.used_in_fit:
+                continue
+            W, sW = widths[i], width_sigmas[i]
+            if not (np.isfinite(W) and W > 10.0 * sW):
+                continue
+            J = assigned.J_lower
+            hoenl_london = J + 1 if assigned.branch == "R" else J
+            if hoenl_london <= 0:
+                continue
+            x = J * (J + 1.0)
+            D = fit.D_lower.value if fit.D_lower else 0.0
+            energy = fit.B_lower.value * x - D * x * x
+            rows.append((math.log(W / (hoenl_london * lines.position_cm1[i])), sW / W, C2_CM_K * energy, assigned.branch == "R"))
+        if len(rows) < 6:
+            continue
+        y, sy, e, is_r = (np.array(c) for c in zip(*rows))
+        if is_r.all() or (~is_r).all():
+            design = np.column_stack([np.ones_like(e), -e])
+            names: tuple[str, ...] = ("intercept", "inverse_T")
+        else:
+            design = np.column_stack([is_r.astype(float), (~is_r).astype(float), -e])
+            names = ("intercept_R", "intercept_P", "inverse_T")
+        if np.ptp(e) <= 0:
+            continue
+        result = weighted_least_squares(design, y, np.maximum(sy, 1e-3), names)
+        inverse = result.value("inverse_T")
+        if inverse <= 0:
+            continue
+        temperature = 1.0 / inverse
+        sigma = result.sigma("inverse_T") / inverse**2
+        out.append(RotationalTemperature(fit.isotopologue, fit.v_upper, fit.v_lower, Estimate(temperature, sigma, "K"), int(result.used.sum()), result.rms))
+    return out
+
+
+def _pairs(assignment: Any, a: str, b: str, band: tuple[int, int]) -> list[tuple[int, int]]:
+    index: dict[tuple[str, int], dict[str, int]] = {}
+    for i, assigned in enumerate(assignment.per_line):
+        if assigned and (assigned.v_upper, assigned.v_lower) == band and assigned.isotopologue in (a, b) and not assigned.blended:
+            index.setdefault((assigned.branch, assigned.J_lower), {})[assigned.isotopologue] = i
+    return [(d[a], d[b]) for d in index.values() if a in d and b in d]
+
+
+def abundance_ratios(lines: Any, assignment: Any, widths: np.ndarray, width_sigmas: np.ndarray, library: Any, temperature_K: float) -> list[AbundanceRatio]:
+    """Heavy-atom isotope ratios (e.g. H35Cl/H37Cl) from matched lines of one band: median of
+    the fitted peak-height ratios (both isotopologues' lines have the same shape, so heights
+    scale as strengths for thin lines, and a neighbour's pressure-broadened wing barely
+    reaches the other's peak), divided by the predicted per-molecule strength ratio (nu and
+    Boltzmann factors, ~1%) so that what is left is the abundance ratio."""
+    from processing.intensities import line_strengths
+    from processing.levels import band_lines
+
+    found = sorted({(f.isotopologue, f.v_upper, f.v_lower) for f in assignment.bands})
+    out = []
+    by_band: dict[tuple[int, int], list[str]] = {}
+    for label, v_upper, v_lower in found:
+        by_band.setdefault((v_upper, v_lower), []).append(label)
+    known = {iso.label for iso in library.isotopologues()}
+    for band, labels in by_band.items():
+        for a in labels:
+            for b in labels:
+                if a >= b or a not in known or b not in known:
+                    continue
+                iso_a, iso_b = library.isotopologue(a), library.isotopologue(b)
+                if iso_a.molecule != iso_b.molecule:
+                    continue
+                pairs = [(i, j) for i, j in _pairs(assignment, a, b, band) if not lines.saturated[i] and not lines.saturated[j] and widths[i] > 10 * width_sigmas[i] and widths[j] > 10 * width_sigmas[j]]
+                if len(pairs) < 3:
+                    continue
+                # predicted per-molecule strength ratio for the same lines
+                J_max = max(assignment.per_line[i].J_lower for i, _ in pairs) + 1
+                bl_a = band_lines(iso_a.dunham, band[0], band[1], J_max)
+                bl_b = band_lines(iso_b.dunham, band[0], band[1], J_max)
+                s_a = line_strengths(iso_a, bl_a, temperature_K, include_abundance=False)
+                s_b = line_strengths(iso_b, bl_b, temperature_K, include_abundance=False)
+                ratios = []
+                for i, j in pairs:
+                    assigned = assignment.per_line[i]
+                    k = int(np.flatnonzero((bl_a.branch == assigned.branch) & (bl_a.J_lower == assigned.J_lower))[0])
+                    ratios.append((lines.height[i] / lines.height[j]) / (s_a[k] / s_b[k]))
+                ratios_array = np.array(ratios)
+                ratio = float(np.median(ratios_array))
+                sigma = float(1.2533 * np.std(ratios_array) / math.sqrt(len(ratios)))  # std error of a median
+                natural = iso_a.abundance / iso_b.abundance if iso_b.abundance > 0 else None
+                major, minor = (a, b) if (natural or 1) >= 1 else (b, a)
+                if major != a:
+                    ratio, sigma, natural = 1.0 / ratio, sigma / ratio**2, (1.0 / natural if natural else None)
+                out.append(AbundanceRatio(major, minor, Estimate(ratio, sigma, "1"), natural, len(pairs), f"median of matched {band[0]}-{band[1]} peak-height ratios"))
+    return out
+
+
+def analyse_intensities(analysis: Any, library: Any, temperature_K: float = 296.0) -> IntensityResult | None:
+    """Equivalent widths, rotational temperatures and abundance ratios (spectra only)."""
+    if analysis.baseline is None:
+        return None
+    widths, sigmas = equivalent_widths(analysis.data, analysis.baseline, analysis.lines)
+    temperatures = rotational_temperatures(analysis.lines, analysis.assignment, widths, sigmas)
+    ratios = abundance_ratios(analysis.lines, analysis.assignment, widths, sigmas, library, temperature_K)
+    notes = ["line areas are equivalent widths (transmittance); valid for optically thin lines"]
+    # only a pair with a large natural contrast (35/37: 3.1, 12C/13C: 92) shows optical depth;
+    # 79Br/81Br (~1) saturate alike and keep their ratio
+    natural_pairs = [r for r in ratios if r.natural and r.natural >= 2.0]
+    thinness = None
+    thin = None
+    if natural_pairs:
+        best = max(natural_pairs, key=lambda r: r.n_pairs)
+        thinness = best.ratio.value / best.natural
+        # a pair of the same molecule at natural abundance: its ratio is the natural one only
+        # while the stronger line is still thin (THIN_LIMIT: within 10%; a 10% ratio deficit already biases a Boltzmann plot by tens of K, calc from the runs here)
+        thin = thinness >= THIN_LIMIT
+        if not thin:
+            notes.append(
+                f"lines are optically thick at their centres: {best.numerator}/{best.denominator} = "
+                f"{best.ratio.value:.2f} against natural {best.natural:.2f}; intensities are not linear in strength"
+            )
+    fractions = hydrogen_fractions(analysis.lines, analysis.assignment, library, temperature_K)
+    return IntensityResult(widths, sigmas, tuple(temperatures), tuple(ratios), thin, thinness, tuple(fractions), tuple(notes))
+
+
+def _column_per_line(lines: Any, assignment: Any, library: Any, labels: set[str], temperature_K: float) -> np.ndarray:
+    """height / predicted strength per molecule of the isotopologue (no abundance: a deuterated
+    sample is not natural) for the clean assigned fundamental lines of `labels`: proportional
+    to the isotopologue's column while lines are thin (all lines share the instrument's shape)."""
+    from processing.intensities import line_strengths
+    from processing.levels import band_lines
+
+    values = []
+    for i, assigned in enumerate(assignment.per_line):
+        if assigned is None or assigned.isotopologue not in labels or (assigned.v_upper, assigned.v_lower) != (1, 0):
+            continue
+        if lines.saturated[i] or assigned.blended:
+            continue
+        iso = library.isotopologue(assigned.isotopologue)
+        bl = band_lines(iso.dunham, 1, 0, assigned.J_lower + 1)
+        k = int(np.flatnonzero((bl.branch == assigned.branch) & (bl.J_lower == assigned.J_lower))[0])
+        strength = line_strengths(iso, bl, temperature_K, include_abundance=False)[k]
+        if strength > 0:
+            values.append(lines.height[i] / strength)
+    return np.array(values)
+
+
+def hydrogen_fractions(lines: Any, assignment: Any, library: Any, temperature_K: float) -> list[HydrogenFraction]:
+    """Hydrogen fraction when H and D forms of one molecule are both assigned (e.g. HCl in a
+    DCl cell). Relies on the library's absolute band strengths, which are approximate (the
+    deuterated ones estimated from the hydride), so this is an estimate to ~20-30%."""
+    from processing.assign import H_D_PARTNERS
+
+    known = {iso.label: iso for iso in library.isotopologues()}
+    found = {known[label].molecule: set() for label in {a.isotopologue for a in assignment.per_line if a} if label in known}
+    for a in assignment.per_line:
+        if a and a.isotopologue in known:
+            found[known[a.isotopologue].molecule].add(a.isotopologue)
+    out = []
+    for molecule_h, molecule_d in H_D_PARTNERS.items():
+        if not molecule_h.startswith("H") or molecule_h not in found or molecule_d not in found:
+            continue
+        # compare the main heavy-atom isotopologues (e.g. H35Cl with D35Cl): same heavy isotope share
+        main_h = max(found[molecule_h], key=lambda label: known[label].abundance)
+        heavy = [n for n in known[main_h].nuclides if n not in ("1H", "2H")]
+        main_d = [label for label in found[molecule_d] if [n for n in known[label].nuclides if n not in ("1H", "2H")] == heavy]
+        if not main_d:
+            continue
+        column_h = _column_per_line(lines, assignment, library, {main_h}, temperature_K)
+        column_d = _column_per_line(lines, assignment, library, set(main_d), temperature_K)
+        if column_h.size < 3 or column_d.size < 3:
+            continue
+        ratio = float(np.median(column_h) / np.median(column_d))
+        relative = math.hypot(1.2533 * np.std(column_h) / np.median(column_h) / math.sqrt(column_h.size), 1.2533 * np.std(column_d) / np.median(column_d) / math.sqrt(column_d.size))
+        fraction = ratio / (1.0 + ratio)
+        sigma = fraction * (1 - fraction) * relative
+        out.append(HydrogenFraction(molecule_h, molecule_d, Estimate(fraction, sigma, "1"), int(column_h.size + column_d.size),
+                                    f"{main_h} against {main_d[0]}: line heights over library line strengths (approximate band strengths; thin lines)"))
+    return out
+
+
+THIN_LIMIT = 0.9
