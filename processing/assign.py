@@ -604,7 +604,11 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
     notes: list[str] = []
     peaks = lines.position_cm1
     excluded = _excluded_mask(lines, settings.excluded_positions_cm1)
+    # possible ringing stays out of the shift search and the pattern route, but the refined
+    # matching (tolerances from the fit) may still claim it: a real weak line beside a strong
+    # one (e.g. 13C16O beside 12C16O) is not lost
     usable = ~lines.ringing & ~excluded
+    claimable = ~excluded
     width = lines.typical_width_cm1 if np.isfinite(lines.typical_width_cm1) and lines.typical_width_cm1 > 0 else 0.0
     tol0 = float(np.clip(0.5 * width, 0.15, 1.0)) if width else 0.3
     density = lines.count / max(last_cm1 - first_cm1, 1.0)
@@ -632,7 +636,7 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
                     J_caps[band.key] = int(np.max(np.abs(band.m))) + 2
                     bands.append(band)
 
-    winners, blended = _refine(bands, lines, usable, tol0, J_caps) if bands else ({}, set())
+    winners, blended = _refine(bands, lines, claimable, tol0, J_caps) if bands else ({}, set())
     if bands and np.all(np.isfinite(lines.snr)):
         dropped = _drop_undetectable(bands, winners, lines)
         if dropped:

@@ -23,13 +23,13 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import constants as _sc
 
+from processing.physical_constants import C2_CM_K as _C2_CM_K
 from processing.levels import BandLines, DunhamCoefficients, R_BRANCH, band_lines, term_value
 from processing.species import Isotopologue
 
 # Second radiation constant c2 = h c / k in cm K (CODATA via scipy.constants).
-C2_CM_K: float = _sc.h * _sc.c / _sc.k * 100.0
+C2_CM_K: float = _C2_CM_K
 REFERENCE_TEMPERATURE_K: float = 296.0
 # Terms with exp(-c2 E/T) below this are dropped from sums (relative to the ground level).
 _NEGLIGIBLE_EXPONENT = 46.0  # exp(-46) ~ 1e-20

@@ -17,9 +17,8 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from scipy import constants as _sc
-
 from processing.errors import LibraryFileError, UnknownSpeciesError
+from processing.physical_constants import ROTATIONAL_FACTOR_A2_CM1_U
 from processing.levels import CONSTANT_TO_DUNHAM, dunham_from_constants
 
 SHIPPED_LIBRARY_NAME = "isotopologues.toml"
@@ -38,10 +37,7 @@ _MOLECULE_NUMBERS = (
 )
 
 # h / (8 pi^2 c u) in angstrom^2 cm-1 u: r_e/angstrom = sqrt(this / (mu/u * B_e/cm-1)).
-_ROTATIONAL_FACTOR_A2_CM1_U = (
-    _sc.h / (8.0 * math.pi**2 * _sc.c * 100.0 * _sc.physical_constants["atomic mass constant"][0])
-    * 1e20
-)
+_ROTATIONAL_FACTOR_A2_CM1_U = ROTATIONAL_FACTOR_A2_CM1_U
 
 
 # ---------------------------------------------------------------------------- value objects
