@@ -1,9 +1,10 @@
 """JCAMP-DX 5.01 writers: the exact inverse of `jcamp.parse` for spectra and peak tables.
 
 Round-trip guarantees (tested in tests/test_jcamp_write.py):
-- form="affn": y written with `repr` (shortest exact digits); the reader gives each value back
-  within 1 ulp (2.3e-16 relative; bit-exact when the mantissa has 15 digits or fewer), and x
-  from repr-exact FIRSTX/LASTX within a few ulp (1e-12 relative).
+- form="affn": y (and line-start x) written with `digits` significant digits, 13 by default,
+  so every value comes back within 5e-13 relative (half a unit in the 13th digit); with
+  digits=None they are written with `repr` and come back bit for bit. x itself is rebuilt
+  from repr-exact FIRSTX/LASTX, within a few ulp (1e-12 relative) of the input grid.
 - form="dif": y quantised to integers with YFACTOR = (largest |y|) / 1e7, so every value comes
   back within YFACTOR / 2 = 5e-8 of full scale (plus float rounding of one product); when all
   y are already integers below 2**31, YFACTOR = 1 and the round trip is exact.
@@ -22,6 +23,7 @@ from processing.spectrum import LineList, Spectrum
 
 DIF_FULL_SCALE = 10_000_000  # integer full scale of DIF data: y quantised to 1e-7 of max |y|
 LINE_LIMIT = 80  # the standard's maximum line length
+AFFN_DIGITS = 13  # significant digits of AFFN values: <= 5e-13 relative, inside the 1e-12 target
 
 _SQZ_POSITIVE = "@ABCDEFGHI"
 _SQZ_NEGATIVE = "@abcdefghi"
@@ -81,15 +83,17 @@ def _header(title: str, data_type: str, y_units: str, extra: list[tuple[str, str
     return lines
 
 
-def _affn_lines(x: np.ndarray, y: np.ndarray) -> list[str]:
+def _affn_lines(x: np.ndarray, y: np.ndarray, digits: int | None) -> list[str]:
+    form = repr if digits is None else f"%.{digits}g".__mod__
+    texts = [form(value) for value in y.tolist()]
     lines: list[str] = []
     index = 0
     while index < y.size:
-        parts = [repr(float(x[index]))]
+        parts = [form(float(x[index]))]
         length = len(parts[0])
         start = index
         while index < y.size:
-            text = repr(float(y[index]))
+            text = texts[index]
             if index > start and length + 1 + len(text) > LINE_LIMIT:
                 break
             parts.append(text)
@@ -139,11 +143,15 @@ def write_jcamp(
     title: str | None = None,
     y_kind: YWrite = "absorbance",
     descending: bool = False,
+    digits: int | None = AFFN_DIGITS,
 ) -> None:
     """Write `spectrum` as JCAMP-DX 5.01 `(X++(Y..Y))` in cm-1 (or XYPOINTS if x is uneven).
 
-    `descending` writes from high to low wavenumber, as many instruments do.
+    `descending` writes from high to low wavenumber, as many instruments do. `digits` is the
+    number of significant digits of AFFN values (None: `repr`, exact).
     """
+    if digits is not None and not 13 <= digits <= 17:
+        raise ValueError("digits must be 13 to 17 (1e-12 relative or better) or None")
     if form not in ("affn", "dif"):
         raise ValueError(f"form must be 'affn' or 'dif', not {form!r}")
     x = np.asarray(spectrum.wavenumber_cm1, dtype=np.float64)
@@ -167,7 +175,7 @@ def write_jcamp(
     spacing = (x[-1] - x[0]) / (x.size - 1)
     if form == "affn":
         y_factor = 1.0
-        data_lines = _affn_lines(x, y)
+        data_lines = _affn_lines(x, y, digits)
     else:
         largest = float(np.max(np.abs(y)))
         integral = bool(np.all(y == np.rint(y))) and largest < 2**31

@@ -1,7 +1,8 @@
 """Benchmark: bandwatch's JCAMP-DX reader against the general-purpose `jcamp` package.
 
 Run: python tests/benchmarks/bench_read_jcamp.py [--quick]
-Writes 64k- and 1M-point spectra (AFFN and DIF) with bandwatch's writer into a temp dir,
+Writes 64k- and 1M-point spectra (AFFN with 13 significant digits, DIF, and at 1M also AFFN
+with repr's 17 digits) with bandwatch's writer into a temp dir,
 times bandwatch (file bytes + parse, median of 5) and `jcamp.readfile` (median of 3) in the
 same run, and prints medians, the speed ratio and peak traced memory of one read of each.
 Then shows two valid files that `jcamp` misreads and bandwatch reads.
@@ -76,19 +77,23 @@ def main() -> int:
     with tempfile.TemporaryDirectory() as folder:
         for points in sizes:
             s = spectrum(points)
-            for form in ("affn", "dif"):
-                path = Path(folder) / f"bench_{points}_{form}.jdx"
-                write_jcamp(path, s, form=form)  # type: ignore[arg-type]
+            variants = [("affn", 13), ("dif", None)]
+            if points >= 1_000_000:
+                variants.append(("affn", None))  # repr: 17-digit numbers, the slowest to parse
+            for form, digits in variants:
+                label = form if form == "dif" else f"affn{digits or '-repr'}"
+                path = Path(folder) / f"bench_{points}_{label}.jdx"
+                write_jcamp(path, s, form=form, digits=digits)  # type: ignore[arg-type]
                 ours = median_time(bandwatch_read, path, 5)
                 theirs = median_time(baseline_read, path, 3)
                 rows.append(
-                    (points, form, path.stat().st_size / 1e6, ours, theirs, theirs / ours,
+                    (points, label, path.stat().st_size / 1e6, ours, theirs, theirs / ours,
                      peak_memory_mb(bandwatch_read, path), peak_memory_mb(baseline_read, path))
                 )
-        print(f"{'points':>9} {'form':>5} {'MB':>6} {'bandwatch s':>12} {'jcamp s':>9} {'ratio':>6} "
+        print(f"{'points':>9} {'form':>9} {'MB':>6} {'bandwatch s':>12} {'jcamp s':>9} {'ratio':>6} "
               f"{'bw peak MB':>10} {'jcamp peak MB':>13}")
         for points, form, size, ours, theirs, ratio, our_mem, their_mem in rows:
-            print(f"{points:>9} {form:>5} {size:>6.1f} {ours:>12.4f} {theirs:>9.4f} {ratio:>6.1f} "
+            print(f"{points:>9} {form:>9} {size:>6.1f} {ours:>12.4f} {theirs:>9.4f} {ratio:>6.1f} "
                   f"{our_mem:>10.1f} {their_mem:>13.1f}")
         print("\nvalid files the jcamp package misreads:")
         for name, text, expected in (
