@@ -44,14 +44,40 @@ def normalise_label(label: str) -> str:
     return label.translate(_LABEL_DROP).upper()
 
 
+class _LineCounter:
+    """1-based line numbers of byte offsets, counted on demand (big data sections skipped)."""
+
+    def __init__(self, data: bytes) -> None:
+        self.data = data
+        self.offset = 0
+        self.line = 1
+
+    def at(self, offset: int) -> int:
+        if offset < self.offset:
+            self.offset, self.line = 0, 1
+        self.line += self.data.count(b"\n", self.offset, offset)
+        self.offset = offset
+        return self.line
+
+
 @dataclass
 class _Record:
     label: str  # normalised
     raw_label: str
     value: str
-    line: int  # 1-based line of the `##`
+    offset: int  # byte offset of the `##`
+    counter: _LineCounter
     data: bytes = b""  # data lines of a data record (comments removed)
-    data_line: int = 0  # 1-based line of the first data line
+
+    @property
+    def line(self) -> int:
+        """1-based line of the `##`."""
+        return self.counter.at(self.offset)
+
+    @property
+    def data_line(self) -> int:
+        """1-based line of the first data line."""
+        return self.line + 1
 
 
 @dataclass
@@ -105,7 +131,7 @@ def _split_records(data: bytes, source: str, notes: list[str]) -> list[_Record]:
     if not starts:
         raise SpectrumFileError(source, "no JCAMP-DX labelled records (##LABEL=value lines)")
     records: list[_Record] = []
-    line = 1 + data.count(b"\n", 0, starts[0])
+    counter = _LineCounter(data)
     bounds = starts + [len(data)]
     for index, start in enumerate(starts):
         end = bounds[index + 1]
@@ -114,24 +140,23 @@ def _split_records(data: bytes, source: str, notes: list[str]) -> list[_Record]:
         rest = b"" if newline == -1 else data[newline + 1 : end]
         equals = first.find(b"=")
         if equals == -1:
-            notes.append(f"line {line}: {first[:40].decode('latin-1')!r} has no '='; ignored")
+            notes.append(f"line {counter.at(start)}: {first[:40].decode('latin-1')!r} has no '='; ignored")
+            continue
+        raw_label = _decode_text(first[2:equals]).strip()
+        label = normalise_label(raw_label)
+        head_value = _COMMENT.sub(b"", first[equals + 1 :])
+        if label in DATA_LABELS:
+            if b"$$" in rest:
+                rest = _COMMENT.sub(b"", rest)
+            record = _Record(label, raw_label, _decode_text(head_value).strip(), start, counter, rest)
         else:
-            raw_label = _decode_text(first[2:equals]).strip()
-            label = normalise_label(raw_label)
-            head_value = _COMMENT.sub(b"", first[equals + 1 :])
-            if label in DATA_LABELS:
-                if b"$$" in rest:
-                    rest = _COMMENT.sub(b"", rest)
-                record = _Record(label, raw_label, _decode_text(head_value).strip(), line, rest, line + 1)
-            else:
-                text = head_value + (b"\n" + _COMMENT.sub(b"", rest) if rest.strip() else b"")
-                record = _Record(label, raw_label, _decode_text(text).strip(), line)
-            records.append(record)
-        line += data.count(b"\n", start, end)
+            text = head_value + (b"\n" + _COMMENT.sub(b"", rest) if rest.strip() else b"")
+            record = _Record(label, raw_label, _decode_text(text).strip(), start, counter)
+        records.append(record)
     return records
 
 
-def _blocks(records: list[_Record], source: str, notes: list[str], last_line: int) -> list[_Block]:
+def _blocks(records: list[_Record], source: str, notes: list[str], data: bytes) -> list[_Block]:
     """Group records into blocks: `##TITLE=` opens one (nested in a link block), `##END=` closes."""
     blocks: list[_Block] = []
     stack: list[_Block] = []
@@ -158,7 +183,7 @@ def _blocks(records: list[_Record], source: str, notes: list[str], last_line: in
         raise SpectrumFileError(
             source,
             f"truncated: block {open_block.title!r} (from line {open_block.line}) has no ##END=",
-            last_line,
+            data.count(b"\n") + (0 if data.endswith(b"\n") else 1),
         )
     return blocks
 
@@ -235,7 +260,11 @@ class _Header:
 
 
 def _rounding_unit(values: np.ndarray) -> float:
-    """The coarsest decimal step all values sit on (1, 0.1, ...): how they were rounded."""
+    """The coarsest decimal step all values sit on (1, 0.1, ...): how they were rounded.
+
+    Judged on the first 4096 values: a writer rounds every line the same way.
+    """
+    values = values[:4096]
     scale = np.max(np.abs(values)) if values.size else 0.0
     for decimals in range(0, 10):
         scaled = values * 10.0**decimals
@@ -610,8 +639,7 @@ def _parse(data: bytes, source: str) -> Spectrum | LineList:
     data = _prepare(data, source)
     notes: list[str] = []
     records = _split_records(data, source, notes)
-    last_line = data.count(b"\n") + (0 if data.endswith(b"\n") else 1)
-    blocks = _blocks(records, source, notes, last_line)
+    blocks = _blocks(records, source, notes, data)
     block = _choose_block(blocks, source, notes)
     record = block.data_record()
     if record is None:  # _choose_block only returns blocks with data

@@ -315,14 +315,19 @@ def _parse_long_tokens(
 
 
 def _is_affn(section: bytes) -> bool:
-    """True for sections that hold only plain numbers (E/e then only as exponents)."""
-    if section[:4096].translate(None, _AFFN_DELETE) or section.translate(None, _AFFN_DELETE):
+    """True for sections that look like plain numbers (E/e only as exponents, `1E-3`).
+
+    Judged on the first 4 kB for letters; a later letter makes numpy's parser fail, and
+    `tokenize` then takes the compressed path. `1946E434`: E before a digit is SQZ +5.
+    """
+    if section[:4096].translate(None, _AFFN_DELETE):
         return False
-    exponents = section.count(b"E") + section.count(b"e")
-    if not exponents:
+    if b"E" not in section and b"e" not in section:
         return True
-    signed = sum(section.count(p) for p in (b"E+", b"E-", b"e+", b"e-"))
-    return signed == exponents  # `1946E434`: E followed by a digit is the SQZ digit +5
+    raw = np.frombuffer(section, dtype=np.uint8)
+    marks = np.flatnonzero((raw | 0x20) == ord("e"))
+    following = raw[np.minimum(marks + 1, raw.size - 1)]
+    return bool(np.all((following == ord("+")) | (following == ord("-"))) and marks[-1] + 1 < raw.size)
 
 
 _NONFINITE_WORD = re.compile(rb"(?i)[+-]?(?:nan|inf(?:inity)?)")
@@ -364,10 +369,14 @@ def tokenize(section: bytes) -> Tokens:
             try:
                 values = _parse_numbers(spaced.replace(b"\n", _MARKER))
             except ValueError:
-                line, problem = _first_bad_line(spaced.split(b"\n"), compressed=False)
-                raise DecodeError(line, problem) from None
-        kinds = np.where(np.isnan(values), KIND_LINE, KIND_AFFN).astype(np.uint8)
-        return Tokens(values, kinds, compressed=False)
+                if section.translate(None, _AFFN_DELETE):
+                    affn = False  # letters after the first 4 kB: compressed data after all
+                else:
+                    line, problem = _first_bad_line(spaced.split(b"\n"), compressed=False)
+                    raise DecodeError(line, problem) from None
+        if affn:
+            kinds = np.where(np.isnan(values), KIND_LINE, KIND_AFFN).astype(np.uint8)
+            return Tokens(values, kinds, compressed=False)
     # Pieces of about CHUNK_BYTES, cut after a line end, keep the arrays in cache.
     value_parts: list[np.ndarray] = []
     kind_parts: list[np.ndarray] = []
