@@ -24,10 +24,11 @@ import numpy as np
 from processing.dunham_fit import AssignedLines, TermFit, fit_terms, propagate
 from processing.estimate import Estimate
 from processing.levels import upper_J
+from processing.species import equilibrium_bond_length_sigma_angstrom
 from processing.physical_constants import (
     CM1_TO_EV,
     CM1_TO_KJ_PER_MOL,
-    ROTATIONAL_FACTOR_A2_CM1_U,
+    bond_length_angstrom,
     force_constant_n_per_m,
 )
 
@@ -217,8 +218,8 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any) -> Isoto
     assert B_index is not None
     B_e = float(values[B_index])
     B_sigma = math.sqrt(covariance[B_index, B_index])
-    r_e = math.sqrt(ROTATIONAL_FACTOR_A2_CM1_U / (mu * B_e))
-    r_sigma = 0.5 * r_e * math.hypot(B_sigma / B_e, mu_sigma / mu)
+    r_e = bond_length_angstrom(B_e, mu)
+    r_sigma = equilibrium_bond_length_sigma_angstrom(B_e, B_sigma, mu, mu_sigma)
     constants["r_e"] = Estimate(r_e, r_sigma, "angstrom")
 
     band_origins: dict[str, Estimate] = {}
@@ -306,7 +307,7 @@ def _effective_reference(name: str, isotopologue: Any, levels: tuple[int, ...], 
         return alpha_eff, rule
     if name == "B_e":
         return B_e_eff, rule
-    return math.sqrt(ROTATIONAL_FACTOR_A2_CM1_U / (isotopologue.reduced_mass_u * B_e_eff)), rule
+    return bond_length_angstrom(B_e_eff, isotopologue.reduced_mass_u), rule
 
 
 def _compare(constants: dict[str, Estimate | None], isotopologue: Any, levels: tuple[int, ...], term_fit: TermFit) -> list[Comparison]:
@@ -335,7 +336,7 @@ def _derived_reference(isotopologue: Any, name: str) -> float | None:
 
     if name == "r_e":
         B_e = isotopologue.dunham.get((0, 1))
-        return math.sqrt(ROTATIONAL_FACTOR_A2_CM1_U / (isotopologue.reduced_mass_u * B_e)) if B_e else None
+        return bond_length_angstrom(B_e, isotopologue.reduced_mass_u) if B_e else None
     if name not in CONSTANT_TO_DUNHAM:
         return None
     k, l, sign = CONSTANT_TO_DUNHAM[name]

@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from processing.errors import LibraryFileError, UnknownSpeciesError
-from processing.physical_constants import ROTATIONAL_FACTOR_A2_CM1_U
+from processing.physical_constants import bond_length_angstrom
 from processing.levels import CONSTANT_TO_DUNHAM, dunham_from_constants
 
 SHIPPED_LIBRARY_NAME = "isotopologues.toml"
@@ -35,9 +35,6 @@ _MOLECULE_NUMBERS = (
     "overtone_ratio",
     "broadening_hwhm_cm1_per_atm",
 )
-
-# h / (8 pi^2 c u) in angstrom^2 cm-1 u: r_e/angstrom = sqrt(this / (mu/u * B_e/cm-1)).
-_ROTATIONAL_FACTOR_A2_CM1_U = ROTATIONAL_FACTOR_A2_CM1_U
 
 
 # ---------------------------------------------------------------------------- value objects
@@ -103,10 +100,10 @@ class Isotopologue:
 
 # ---------------------------------------------------------------------------- bond length
 def equilibrium_bond_length_angstrom(B_e_cm1: float, reduced_mass_u: float) -> float:
-    """r_e = sqrt(h / (8 pi^2 c mu B_e)) in angstrom, from CODATA constants (scipy)."""
+    """r_e = sqrt(h / (8 pi^2 c mu B_e)) in angstrom, from CODATA constants."""
     if B_e_cm1 <= 0 or reduced_mass_u <= 0:
         raise ValueError("B_e and the reduced mass must be positive")
-    return math.sqrt(_ROTATIONAL_FACTOR_A2_CM1_U / (reduced_mass_u * B_e_cm1))
+    return bond_length_angstrom(B_e_cm1, reduced_mass_u)
 
 
 def equilibrium_bond_length_sigma_angstrom(
