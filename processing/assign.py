@@ -72,6 +72,7 @@ class LineAssignment:
     method: str  # "library" or "pattern"
     blended: bool
     used_in_fit: bool
+    blend_pull: float = 0.0  # shift of an unresolved blend's centre from this line (in calc)
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -749,6 +750,7 @@ def _finish(
                 method=band.method,
                 blended=line in blended or merged,
                 used_in_fit=bool(fit.used[k]),
+                blend_pull=float(pull[k]),
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
     causes = tuple(None if per_line[i] is not None else _likely_cause(lines, i, fitted_regions) for i in range(lines.count))

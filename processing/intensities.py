@@ -19,6 +19,7 @@ wavenumbers.
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -98,6 +99,7 @@ def vibrational_partition_function(isotopologue: Isotopologue, temperature_K: fl
     return float(np.sum(np.exp(-exponent[exponent < _NEGLIGIBLE_EXPONENT])))
 
 
+@functools.lru_cache(maxsize=512)
 def total_partition_function(isotopologue: Isotopologue, temperature_K: float) -> float:
     """Q(T) = sum over v, J of (2J+1) exp(-c2 E(v,J)/T), E from the (0,0) level; a direct sum
     (no rigid-rotor or harmonic separation)."""

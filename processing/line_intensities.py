@@ -15,6 +15,7 @@ compares matched 35/37 (or 79/81) equivalent-width ratios with the natural abund
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 from typing import Any
@@ -185,9 +186,6 @@ def abundance_ratios(lines: Any, assignment: Any, widths: np.ndarray, width_sigm
     scale as strengths for thin lines, and a neighbour's pressure-broadened wing barely
     reaches the other's peak), divided by the predicted per-molecule strength ratio (nu and
     Boltzmann factors, ~1%) so that what is left is the abundance ratio."""
-    from processing.intensities import line_strengths
-    from processing.levels import band_lines
-
     found = sorted({(f.isotopologue, f.v_upper, f.v_lower) for f in assignment.bands})
     out = []
     by_band: dict[tuple[int, int], list[str]] = {}
@@ -206,16 +204,16 @@ def abundance_ratios(lines: Any, assignment: Any, widths: np.ndarray, width_sigm
                 if len(pairs) < 3:
                     continue
                 # predicted per-molecule strength ratio for the same lines
-                J_max = max(assignment.per_line[i].J_lower for i, _ in pairs) + 1
-                bl_a = band_lines(iso_a.dunham, band[0], band[1], J_max)
-                bl_b = band_lines(iso_b.dunham, band[0], band[1], J_max)
-                s_a = line_strengths(iso_a, bl_a, temperature_K, include_abundance=False)
-                s_b = line_strengths(iso_b, bl_b, temperature_K, include_abundance=False)
+                table_a = band_strength_table(library, a, band[0], band[1], float(temperature_K), False)
+                table_b = band_strength_table(library, b, band[0], band[1], float(temperature_K), False)
                 ratios = []
                 for i, j in pairs:
                     assigned = assignment.per_line[i]
-                    k = int(np.flatnonzero((bl_a.branch == assigned.branch) & (bl_a.J_lower == assigned.J_lower))[0])
-                    ratios.append((lines.height[i] / lines.height[j]) / (s_a[k] / s_b[k]))
+                    key = (assigned.branch, assigned.J_lower)
+                    if table_a.get(key, 0.0) > 0 and table_b.get(key, 0.0) > 0:
+                        ratios.append((lines.height[i] / lines.height[j]) / (table_a[key] / table_b[key]))
+                if len(ratios) < 3:
+                    continue
                 ratios_array = np.array(ratios)
                 ratio = float(np.median(ratios_array))
                 sigma = float(1.2533 * np.std(ratios_array) / math.sqrt(len(ratios)))  # std error of a median
@@ -255,23 +253,31 @@ def analyse_intensities(analysis: Any, library: Any, temperature_K: float = 296.
     return IntensityResult(widths, sigmas, tuple(temperatures), tuple(ratios), thin, thinness, tuple(fractions), tuple(notes))
 
 
+@functools.lru_cache(maxsize=256)
+def band_strength_table(library: Any, label: str, v_upper: int, v_lower: int, temperature_K: float, include_abundance: bool) -> dict[tuple[str, int], float]:
+    """Predicted strength of every line of a band up to J'' = 40, by (branch, J'') (cached:
+    the library and temperature fix it)."""
+    from processing.intensities import line_strengths
+    from processing.levels import band_lines
+
+    iso = library.isotopologue(label)
+    lines = band_lines(iso.dunham, v_upper, v_lower, 40)
+    strengths = line_strengths(iso, lines, temperature_K, include_abundance=include_abundance)
+    return {(str(b), int(j)): float(s) for b, j, s in zip(lines.branch, lines.J_lower, strengths)}
+
+
 def _column_per_line(lines: Any, assignment: Any, library: Any, labels: set[str], temperature_K: float) -> np.ndarray:
     """height / predicted strength per molecule of the isotopologue (no abundance: a deuterated
     sample is not natural) for the clean assigned fundamental lines of `labels`: proportional
     to the isotopologue's column while lines are thin (all lines share the instrument's shape)."""
-    from processing.intensities import line_strengths
-    from processing.levels import band_lines
-
     values = []
     for i, assigned in enumerate(assignment.per_line):
         if assigned is None or assigned.isotopologue not in labels or (assigned.v_upper, assigned.v_lower) != (1, 0):
             continue
         if lines.saturated[i] or assigned.blended:
             continue
-        iso = library.isotopologue(assigned.isotopologue)
-        bl = band_lines(iso.dunham, 1, 0, assigned.J_lower + 1)
-        k = int(np.flatnonzero((bl.branch == assigned.branch) & (bl.J_lower == assigned.J_lower))[0])
-        strength = line_strengths(iso, bl, temperature_K, include_abundance=False)[k]
+        table = band_strength_table(library, assigned.isotopologue, 1, 0, float(temperature_K), False)
+        strength = table.get((assigned.branch, assigned.J_lower), 0.0)
         if strength > 0:
             values.append(lines.height[i] / strength)
     return np.array(values)

@@ -158,7 +158,7 @@ def assigned_lines_from(analysis: Any, library: Any) -> AssignedLines:
             continue
         sigma = float(lines.position_sigma_cm1[i]) * (3.0 if lines.saturated[i] else 1.0) * (5.0 if assigned.blended else 1.0)
         # an unresolved partner's pull was removed in the band fit: use the same corrected position
-        observed = float(lines.position_cm1[i]) - (assigned.calc - _band_calc(fits, assigned))
+        observed = float(lines.position_cm1[i]) - assigned.blend_pull
         rows.append((assigned.isotopologue, masses[assigned.isotopologue], assigned.v_upper, assigned.v_lower,
                      int(upper_J(assigned.branch, assigned.J_lower)), assigned.J_lower, observed, sigma))
     if not rows:
@@ -176,13 +176,6 @@ def assigned_lines_from(analysis: Any, library: Any) -> AssignedLines:
         sigma_cm1=np.array(columns[7], dtype=np.float64),
         sigma_known=bool(lines.sigma_known),
     )
-
-
-def _band_calc(fits: dict[tuple[str, int, int], Any], assigned: Any) -> float:
-    """The band fit's own calc for this line (without any blend pull)."""
-    fit = fits[(assigned.isotopologue, assigned.v_upper, assigned.v_lower)]
-    position, _ = fit.predict(np.array([assigned.branch]), np.array([assigned.J_lower]))
-    return float(position[0])
 
 
 # ------------------------------------------------------------------------ per isotopologue
