@@ -109,10 +109,20 @@ def _decode_text(raw: bytes) -> str:
         return raw.decode("latin-1")
 
 
+def _find_pair(data: bytes, pair: bytes, start: int, end: int | None = None) -> int:
+    """`data.find(pair, start, end)` for a doubled byte, by memchr on one byte (much faster)."""
+    single = pair[:1]
+    stop = len(data) if end is None else end
+    position = data.find(single, start, stop)
+    while position != -1 and position + 1 < stop and data[position + 1 : position + 2] != single:
+        position = data.find(single, position + 2, stop)
+    return position if position != -1 and position + 1 < stop else -1
+
+
 def _record_starts(data: bytes) -> list[int]:
     """Byte offsets of every `##` that begins a line (after optional blanks)."""
     starts: list[int] = []
-    position = data.find(b"##")
+    position = _find_pair(data, b"##", 0)
     while position != -1:
         line_start = data.rfind(b"\n", 0, position) + 1
         if not data[line_start:position].strip(b" \t"):
@@ -120,9 +130,9 @@ def _record_starts(data: bytes) -> list[int]:
             newline = data.find(b"\n", position)
             if newline == -1:
                 break
-            position = data.find(b"##", newline)
+            position = _find_pair(data, b"##", newline)
         else:
-            position = data.find(b"##", position + 2)
+            position = _find_pair(data, b"##", position + 2)
     return starts
 
 
@@ -146,7 +156,7 @@ def _split_records(data: bytes, source: str, notes: list[str]) -> list[_Record]:
         label = normalise_label(raw_label)
         head_value = _COMMENT.sub(b"", first[equals + 1 :])
         if label in DATA_LABELS:
-            if b"$$" in rest:
+            if _find_pair(rest, b"$$", 0) != -1:
                 rest = _COMMENT.sub(b"", rest)
             record = _Record(label, raw_label, _decode_text(head_value).strip(), start, counter, rest)
         else:
