@@ -399,3 +399,33 @@ def test_check_only_last_line_with_e_right_after_x() -> None:
     s = read_spectrum(text)
     assert s.wavenumber_cm1.tolist() == [1946, 1947, 1948]
     assert s.absorbance.tolist() == [5434, 5435, 5436]
+
+
+def dif_lines(lines: int, short_line: int | None = None) -> str:
+    """A DIF file of flat data: each line `X A00 % s` = a check/start value 100 and the zero
+    difference 9 more times (s = DUP 9); with `short_line`, that line says Z (DUP 8) instead."""
+    body = []
+    for k in range(lines):
+        dup = "Z" if k == short_line else "s"
+        body.append(f"{1000 + 90 * k}A00%{dup}")
+    points = 10 + 9 * (lines - 1)
+    body.append(f"{1000 + 10 * (points - 1)}A00")  # the check value alone on the last line
+    head = header(FIRSTX=1000, LASTX=1000 + 10 * (points - 1), DELTAX=10, NPOINTS=points)
+    return head + "##XYDATA=(X++(Y..Y))\n" + "\n".join(body) + "\n##END=\n"
+
+
+def test_many_dif_lines_read_with_checks() -> None:
+    # 40 lines: 10 points on the first, 9 new ones on each of the other 39 -> 361 points
+    s = read_spectrum(dif_lines(40))
+    assert s.points == 361
+    assert np.all(s.absorbance == 100.0)
+    np.testing.assert_array_equal(s.wavenumber_cm1, 1000.0 + 10.0 * np.arange(361))
+
+
+def test_lost_zero_difference_caught_by_line_x_steps() -> None:
+    # A zero difference dropped on line 20 passes every DIF check (the sum is unchanged), but
+    # the line-start X values then step by one point more than the lines between them hold.
+    error = refused(dif_lines(40, short_line=20), "points are missing or extra")
+    # 9 header lines, ##XYDATA= on 10, data line k on 11 + k; the error names the first line
+    # whose X is read after the short line (line-start X are read on every 8th line)
+    assert 11 + 20 < error.line <= 11 + 20 + 8

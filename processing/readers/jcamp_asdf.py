@@ -59,6 +59,7 @@ _KIND[ord("\n")] = KIND_LINE
 
 _AFFN_DELETE = b"0123456789.+-eE \t,\n"
 _MARKER = b" nan "
+LINE_SAMPLE = 8  # compressed data: line-start X read on every 8th line (and the last)
 CHUNK_BYTES = 1 << 20  # compressed data are decoded in pieces of ~1 MB
 
 
@@ -270,8 +271,7 @@ def _decode_tokens(section: bytes, affn: bool) -> tuple[np.ndarray, np.ndarray]:
     words &= ~np.uint64(0xFF)
     words |= _LEAD[first_bytes]
     values = _swar_digits(words, np.minimum(lengths, 8)).astype(np.float64)
-    values *= _SIGN_FACTOR[first_bytes]
-    values[~numeric] = np.nan
+    values *= _SIGN_FACTOR[first_bytes]  # (line markers hold junk: only their kind is used)
     long_token = lengths > 8
     if b"." in section:
         dots = np.flatnonzero(raw == ord("."))
@@ -287,6 +287,19 @@ def _decode_tokens(section: bytes, affn: bool) -> tuple[np.ndarray, np.ndarray]:
             at = int(starts[np.flatnonzero(bare)[0]])
             raise DecodeError(_line_of(section, at), "a sign with no digits after it")
     rest = np.flatnonzero(numeric & long_token)
+    if rest.size and not affn:
+        # Line-start X values are checks only: those of every LINE_SAMPLE-th line (and the last)
+        # are read; the step check between read lines still counts every point between them.
+        previous = np.maximum(rest - 1, 0)
+        is_x = (rest == 0) | (kinds[previous] == KIND_LINE)
+        x_rest = np.flatnonzero(is_x)
+        if x_rest.size > 2 * LINE_SAMPLE:
+            skip = np.zeros(rest.size, dtype=bool)
+            skip[x_rest] = True
+            skip[x_rest[::LINE_SAMPLE]] = False
+            skip[x_rest[-1]] = False
+            values[rest[skip]] = np.nan
+            rest = rest[~skip]
     if rest.size:
         magnitude, ok = _swar_decimal(windows, starts[rest], lengths[rest], _LEAD[first_bytes[rest]])
         values[rest[ok]] = magnitude[ok] * _SIGN_FACTOR[first_bytes[rest[ok]]]
@@ -505,10 +518,11 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     # Point index of each line's X: the check point (previous line's last) or its first value.
     line_point = points_through[line_first] - repeats[line_first]
     line_point[1:][is_check] -= 1
-    kept = line_point < total  # a line whose only value was a failed-free check still counts
+    line_x = values[line_first - 1]
+    kept = ~np.isnan(line_x)  # line-start X not read (see LINE_SAMPLE) are NaN
     return DecodedOrdinates(
         y=y,
-        line_x=values[line_first - 1][kept],
+        line_x=line_x[kept],
         line_index=line_point[kept].astype(np.int64),
         line_number=np.searchsorted(markers, line_first)[kept].astype(np.int64),
         forms=forms,
