@@ -138,14 +138,17 @@ _KEEP_BYTES = np.array([(1 << (8 * k)) - 1 for k in range(8)] + [2**64 - 1], dty
 _ALIGN = np.array([8 * (8 - k) for k in range(9)], dtype=np.uint64)
 
 
-def _swar_digits(words: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+def _swar_digits(words: np.ndarray, lengths: np.ndarray, masked: bool = True) -> np.ndarray:
     """Integers from up to 8 ASCII digits per uint64 (first digit in the lowest byte).
 
     Works in place on `words`: subtract ASCII '0' from every byte, drop bytes past the token,
     right-align, then combine pairs, quads and octets (SIMD-within-a-register arithmetic).
+    With `masked=False` (lengths 1-8 only) the right-align shift alone drops the bytes past
+    the token: they move out of the top, and a borrow from them only runs further up.
     """
     np.subtract(words, _ASCII_ZEROS, out=words)
-    np.bitwise_and(words, _KEEP_BYTES[lengths], out=words)
+    if masked:
+        np.bitwise_and(words, _KEEP_BYTES[lengths], out=words)
     np.left_shift(words, _ALIGN[lengths], out=words)
     for multiplier, shift, mask in (
         (10, 8, 0x00FF00FF00FF00FF),
@@ -270,7 +273,7 @@ def _decode_tokens(section: bytes, affn: bool) -> tuple[np.ndarray, np.ndarray]:
     words = windows[starts]
     words &= ~np.uint64(0xFF)
     words |= _LEAD[first_bytes]
-    values = _swar_digits(words, np.minimum(lengths, 8)).astype(np.float64)
+    values = _swar_digits(words, np.minimum(lengths, 8), masked=False).astype(np.float64)
     values *= _SIGN_FACTOR[first_bytes]  # (line markers hold junk: only their kind is used)
     long_token = lengths > 8
     if b"." in section:
@@ -450,7 +453,11 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     line_first = after_x[is_y[after_x]]  # first Y token of every line holding Y values
     if line_first.size == 0:
         raise DecodeError(0, "no Y values in the data lines")
-    seen = np.bincount(kinds, minlength=5) - np.bincount(x_kinds, minlength=5)
+    seen = np.zeros(5, dtype=np.int64)
+    if tokens.compressed:
+        for kind in (KIND_SQZ, KIND_DIF, KIND_DUP):
+            seen[kind] = np.count_nonzero(kinds == kind) - np.count_nonzero(x_kinds == kind)
+    seen[KIND_AFFN] = np.count_nonzero(is_y) - seen[KIND_SQZ] - seen[KIND_DIF] - seen[KIND_DUP]
     forms = tuple(
         name for name, kind in (("AFFN", KIND_AFFN), ("SQZ", KIND_SQZ), ("DIF", KIND_DIF), ("DUP", KIND_DUP)) if seen[kind]
     )
@@ -477,15 +484,23 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
 
     # Y-check: a line after one ending in a DIF starts by repeating that line's last value.
     later = line_first[1:]
-    y_tokens = np.flatnonzero(is_y)
-    previous = y_tokens[np.searchsorted(y_tokens, later) - 1]  # last Y token of the line before
-    base = np.where(kinds[previous] == KIND_DUP, previous - 1, previous)
-    is_check = is_dif[base] & ~is_dif[later]
+    if seen[KIND_DIF]:
+        # last Y token of the line before: usually three tokens back (Y, marker, X, here)
+        previous = later - 3
+        direct = is_y[np.maximum(previous, 0)] & (previous >= 0)
+        if not direct.all():
+            y_tokens = np.flatnonzero(is_y)
+            far = ~direct
+            previous[far] = y_tokens[np.searchsorted(y_tokens, later[far]) - 1]
+        base = np.where(kinds[previous] == KIND_DUP, previous - 1, previous)
+        is_check = is_dif[base] & ~is_dif[later]
+    else:
+        is_check = np.zeros(later.size, dtype=bool)
     check_at = later[is_check]
     repeats[check_at] = 0
     total = int(repeats.sum())
     if total > max_points:
-        raise DecodeError(line_of(int(y_tokens[-1])), f"{total} points decoded, more than the {max_points} possible")
+        raise DecodeError(line_of(int(np.flatnonzero(is_y)[-1])), f"{total} points decoded, more than the {max_points} possible")
     absolute_y = int(seen[KIND_AFFN] + seen[KIND_SQZ])
     if seen[KIND_DIF] and absolute_y == 1 + check_at.size:
         # The usual layout: one starting value, then differences (checks add nothing).
