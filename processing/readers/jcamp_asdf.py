@@ -1,10 +1,16 @@
 """Vectorised decoding of JCAMP-DX `(X++(Y..Y))` data lines: AFFN and ASDF (SQZ, DIF, DUP).
 
-The whole data section is handled as one numpy byte array; there is no per-character Python
-loop. ASDF characters are rewritten into signed AFFN numbers (`J05` -> ` +105`, `S2` -> ` +12`)
-by one `np.repeat` plus a few fancy assignments, a ` nan ` marker is put in place of every line
-end, and numpy's C number parser reads the lot. Token kinds come from the byte at each token
-start, so DIF integration, DUP expansion and the per-line DIF Y-check are array operations.
+No per-character or per-line Python loop touches the data:
+- ASDF: `bytes.translate` classifies every byte; token starts come from a few boolean array
+  operations; each token's first 8 bytes are gathered as one uint64 (an unaligned strided
+  view), its SQZ/DIF/DUP letter replaced by the digit it stands for, and the digits combined
+  by SWAR integer arithmetic (3 multiply-shift-mask rounds). Longer tokens with a decimal point
+  (line-start X) use a 3-word variant; anything else (exponents, junk) goes to numpy's C
+  parser, which also finds the line of a bad token.
+- AFFN: numpy's C parser reads the whole section, with a ` nan ` marker in place of each line
+  end so the line structure survives.
+Token kinds come from the byte at each token start. DUP expansion, DIF integration and the
+per-line DIF Y-check are then done in token space with one `np.repeat` and one `np.cumsum`.
 
 Character meanings (IUPAC JCAMP-DX 4.24 / 5.01 ASDF tables):
     SQZ  @ A-I = 0, +1..+9    a-i = -1..-9     (first digit of an absolute value)
@@ -76,7 +82,7 @@ class DecodeError(Exception):
 class Tokens:
     """Every number in a data section, in order, with its kind; KIND_LINE marks line ends."""
 
-    values: np.ndarray  # float64; NaN at KIND_LINE markers
+    values: np.ndarray  # float64; meaningless at KIND_LINE markers (NaN or junk)
     kinds: np.ndarray  # uint8 KIND_*
     compressed: bool  # True when ASDF characters were present
 
