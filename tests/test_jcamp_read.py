@@ -429,3 +429,28 @@ def test_lost_zero_difference_caught_by_line_x_steps() -> None:
     # 9 header lines, ##XYDATA= on 10, data line k on 11 + k; the error names the first line
     # whose X is read after the short line (line-start X are read on every 8th line)
     assert 11 + 20 < error.line <= 11 + 20 + 8
+
+
+def test_pieces_of_the_data_section_join_exactly(monkeypatch: pytest.MonkeyPatch) -> None:
+    # Compressed data are decoded in pieces cut at line ends; tiny pieces must give the same
+    # numbers, and an error in a later piece must still name its own file line.
+    from processing.readers import jcamp_asdf
+
+    text = dif_lines(40)
+    whole = read_spectrum(text)
+    monkeypatch.setattr(jcamp_asdf, "CHUNK_BYTES", 16)
+    pieces = read_spectrum(text)
+    np.testing.assert_array_equal(pieces.absorbance, whole.absorbance)
+    np.testing.assert_array_equal(pieces.wavenumber_cm1, whole.wavenumber_cm1)
+    broken = text.replace("1900A00%s", "1900A01%s")  # data line 21 (k = 10): check 101 != 100
+    error = refused(broken, "DIF check failed")
+    assert error.line == 11 + 10  # ##XYDATA= on line 10, data line k on 11 + k
+
+
+def test_peak_table_with_widths() -> None:
+    # (XYW..XYW): position, intensity, width triples; the width is not kept
+    text = header() + "##PEAK TABLE=(XYW..XYW)\n2906.2, 0.5, 0.1\n2925.9, 0.25, 0.2\n##END=\n"
+    result = read(text)
+    assert isinstance(result, LineList)
+    assert result.position_cm1.tolist() == [2906.2, 2925.9]
+    assert result.intensity.tolist() == [0.5, 0.25]
