@@ -135,3 +135,12 @@ def test_write_to_path_and_binary_stream(tmp_path) -> None:
     assert path.read_bytes() == binary.getvalue()
     with pytest.raises(ValueError):
         write_jcamp(io.StringIO(), s, form="sqz")  # type: ignore[arg-type]
+
+
+def test_original_kind_is_written_back() -> None:
+    # a %T spectrum written with y_kind="original" is %T again: %T = 100 * 10**-A
+    s = Spectrum.from_y(np.array([1000.0, 1001.0, 1002.0]), np.array([100.0, 10.0, 1.0]), "percent_transmittance")
+    back, text = round_trip(s, form="affn", y_kind="original")
+    assert "##YUNITS=%T" in text and back.original_y_kind == "percent_transmittance"
+    # A = 0, 1, 2 through 13 significant digits of %T: 5e-13 relative of T -> ~2e-13 in A
+    np.testing.assert_allclose(back.absorbance, [0.0, 1.0, 2.0], rtol=0, atol=1e-12)

@@ -31,7 +31,7 @@ _DIF_POSITIVE = "%JKLMNOPQR"
 _DIF_NEGATIVE = "%jklmnopqr"
 _DUP = "?STUVWXYZs"  # index = first digit of the count (0 never leads)
 
-YWrite = Literal["absorbance", "transmittance", "percent_transmittance"]
+YWrite = Literal["absorbance", "transmittance", "percent_transmittance", "original"]
 
 
 def _sqz(value: int) -> str:
@@ -52,6 +52,9 @@ def _dup(count: int) -> str:
 
 
 def _y_values(spectrum: Spectrum, y_kind: YWrite) -> tuple[np.ndarray, str]:
+    """The values to write and their YUNITS; "original" means the kind the file had."""
+    if y_kind == "original":
+        y_kind = spectrum.original_y_kind  # type: ignore[assignment]
     if y_kind == "absorbance":
         return np.asarray(spectrum.absorbance, dtype=np.float64), "ABSORBANCE"
     transmitted = np.power(10.0, -spectrum.absorbance)
