@@ -454,3 +454,14 @@ def test_peak_table_with_widths() -> None:
     assert isinstance(result, LineList)
     assert result.position_cm1.tolist() == [2906.2, 2925.9]
     assert result.intensity.tolist() == [0.5, 0.25]
+
+
+def test_dup_on_first_value_and_on_a_check_value() -> None:
+    # line 1: A00 = 100, U = it appears 3 times in all -> 100 100 100; J = +1 -> 101  (x 1000-1003)
+    # line 2 (X 1003): A01 = check 101 (dropped), T = it appears twice in all -> one new 101;
+    #   J -> 102                                                             (x 1004, 1005)
+    # line 3 (X 1005): A02 = check only
+    text = header(FIRSTX=1000, LASTX=1005, DELTAX=1, NPOINTS=6) + "##XYDATA=(X++(Y..Y))\n1000A00UJ\n1003A01TJ\n1005A02\n##END=\n"
+    s = read_spectrum(text)
+    assert s.absorbance.tolist() == [100, 100, 100, 101, 101, 102]
+    assert s.wavenumber_cm1.tolist() == [1000, 1001, 1002, 1003, 1004, 1005]

@@ -176,6 +176,7 @@ EXPONENT = 9
 _AFFN_CLASS[[ord("E"), ord("e")]] = EXPONENT
 _AFFN_CLASS_TABLE = bytes(_AFFN_CLASS.tolist())
 _KIND_OF_CLASS[EXPONENT] = KIND_AFFN
+_KIND_OF_BYTE = _KIND_OF_CLASS[_CLASS]  # kind of a token from its first byte
 _DOTS = np.uint64(0x2E2E2E2E2E2E2E2E)
 _ONES = np.uint64(0x0101010101010101)
 _HIGHS = np.uint64(0x8080808080808080)
@@ -264,16 +265,16 @@ def _decode_tokens(section: bytes, affn: bool) -> tuple[np.ndarray, np.ndarray]:
         start[0] = True
     starts = np.flatnonzero(start)
     lengths = np.diff(starts, append=size)
-    kinds = _KIND_OF_CLASS[classes[starts]]
     raw = np.frombuffer(section, dtype=np.uint8)
+    first_bytes = raw[starts]
+    kinds = _KIND_OF_BYTE[first_bytes]
     if b" " in section or b"\t" in section or b"," in section:
         keep = kinds != _KIND_SEPARATOR
         if not affn:
             after_separator = np.zeros(starts.size, dtype=bool)
             after_separator[1:] = kinds[:-1] == _KIND_SEPARATOR
             _refuse_spelled_nonfinite(section, raw, starts[keep & after_separator])
-        starts, lengths, kinds = starts[keep], lengths[keep], kinds[keep]
-    first_bytes = raw[starts]
+        starts, lengths, kinds, first_bytes = starts[keep], lengths[keep], kinds[keep], first_bytes[keep]
     numeric = kinds != KIND_LINE
     windows = _byte_windows(section)
     words = windows[starts]
@@ -503,16 +504,19 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     else:
         is_check = np.zeros(later.size, dtype=bool)
     check_at = later[is_check]
-    repeats[check_at] = 0
+    repeats[check_at] -= 1  # the check repeats the previous point; a DUP after it adds points
     total = int(repeats.sum())
     if total > max_points:
         raise DecodeError(line_of(int(np.flatnonzero(is_y)[-1])), f"{total} points decoded, more than the {max_points} possible")
     absolute_y = int(seen[KIND_AFFN] + seen[KIND_SQZ])
-    if seen[KIND_DIF] and absolute_y == 1 + check_at.size:
+    simple = (
+        absolute_y == 1 + check_at.size and repeats[first] == 1 and not np.any(repeats[check_at])
+    )
+    if seen[KIND_DIF] and simple:
         # The usual layout: one starting value, then differences (checks add nothing).
-        steps = np.where(is_dif, values, 0.0)
-        steps[first] = values[first]
-        y = np.cumsum(np.repeat(steps, repeats))
+        # Only the first value and differences have repeats > 0 here (X values, markers, DUP
+        # counts and checks have 0), so the running sum of the expanded values is y.
+        y = np.cumsum(np.repeat(values, repeats))
     elif seen[KIND_DIF]:
         expanded = np.repeat(values, repeats)
         is_absolute = ~np.repeat(is_dif, repeats)
@@ -525,7 +529,7 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
         y = np.repeat(values, repeats)
     points_through = np.cumsum(repeats)  # points up to and including each token
     if check_at.size:
-        before_check = points_through[check_at] - 1
+        before_check = points_through[check_at] - repeats[check_at] - 1
         scale = float(np.max(np.abs(y))) + 1.0 if y.size else 1.0
         tolerance = 1e-9 * scale  # exact for integer ordinates below 1e9 (common practice)
         mismatch = (before_check < 0) | (np.abs(values[check_at] - y[np.maximum(before_check, 0)]) > tolerance)
