@@ -6,7 +6,7 @@ decadic absorbance A = -log10(T). Readers convert at the edge and note what they
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
@@ -84,6 +84,11 @@ class Spectrum:
     @property
     def points(self) -> int:
         return int(self.wavenumber_cm1.size)
+
+    def with_meta(self, meta: FileMetadata) -> Spectrum:
+        """The same spectrum with other metadata (arrays shared: they are read-only and were
+        validated when this spectrum was made)."""
+        return _copy_with_meta(self, meta)
 
     @property
     def spacing_cm1(self) -> float:
@@ -198,3 +203,15 @@ class LineList:
     @property
     def points(self) -> int:
         return int(self.position_cm1.size)
+
+    def with_meta(self, meta: FileMetadata) -> LineList:
+        """The same line list with other metadata (arrays shared, already validated)."""
+        return _copy_with_meta(self, meta)
+
+
+def _copy_with_meta(value: Any, meta: FileMetadata) -> Any:
+    clone = object.__new__(type(value))
+    for name, field_value in vars(value).items():
+        object.__setattr__(clone, name, field_value)
+    object.__setattr__(clone, "meta", meta)
+    return clone

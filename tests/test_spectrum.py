@@ -62,3 +62,14 @@ def test_line_list_sorts_positions() -> None:
     lines = LineList([3.0, 1.0, 2.0], [30.0, 10.0, 20.0])
     assert lines.position_cm1.tolist() == [1.0, 2.0, 3.0]
     assert lines.intensity.tolist() == [10.0, 20.0, 30.0]
+
+
+def test_with_meta_keeps_the_arrays_and_changes_only_the_metadata() -> None:
+    from processing.spectrum import FileMetadata
+
+    s = Spectrum.from_y([1.0, 2.0, 3.0], [0.5, 0.1, 0.2], "transmittance")
+    t = s.with_meta(FileMetadata(title="renamed", sha256="ab"))
+    assert t.meta.title == "renamed" and t.meta.sha256 == "ab"
+    assert t.wavenumber_cm1 is s.wavenumber_cm1 and t.absorbance is s.absorbance
+    assert t.original_y_kind == "transmittance" and t.conversion == s.conversion
+    assert s.meta.title == ""

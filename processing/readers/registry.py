@@ -106,7 +106,7 @@ def parse_bytes(data: bytes, source: str = "<data>") -> Spectrum | LineList:
     reader = choose_reader(text, source)
     result = reader.parse(text, source)
     meta = replace(result.meta, source_path=source, sha256=hashlib.sha256(data).hexdigest())
-    return replace(result, meta=meta)
+    return result.with_meta(meta)
 
 
 def read_any(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES) -> Spectrum | LineList:
