@@ -40,6 +40,12 @@ class FileMetadata:
 
 
 def _frozen_float_array(values: np.ndarray | list[float], name: str) -> np.ndarray:
+    """A read-only float64 copy; an array that is already read-only float64 is taken as it is
+    (handed over by a reader that owns it: no copy of a million points)."""
+    if isinstance(values, np.ndarray) and values.dtype == np.float64 and not values.flags.writeable:
+        if values.ndim != 1:
+            raise ValueError(f"{name} must be one-dimensional, got shape {values.shape}")
+        return values
     array = np.array(values, dtype=np.float64, copy=True)
     if array.ndim != 1:
         raise ValueError(f"{name} must be one-dimensional, got shape {array.shape}")
@@ -65,8 +71,11 @@ class Spectrum:
     def __post_init__(self) -> None:
         x = _frozen_float_array(self.wavenumber_cm1, "wavenumber_cm1")
         y = _frozen_float_array(self.absorbance, "absorbance")
-        mask = np.array(self.saturated, dtype=bool, copy=True)
-        mask.setflags(write=False)
+        if isinstance(self.saturated, np.ndarray) and self.saturated.dtype == bool and not self.saturated.flags.writeable:
+            mask = self.saturated
+        else:
+            mask = np.array(self.saturated, dtype=bool, copy=True)
+            mask.setflags(write=False)
         object.__setattr__(self, "wavenumber_cm1", x)
         object.__setattr__(self, "absorbance", y)
         object.__setattr__(self, "saturated", mask)
@@ -146,6 +155,12 @@ class Spectrum:
             raise ValueError(f"x is not monotonic: direction changes at point {turn + 2}")
         absorbance, saturated, conversion = to_absorbance(values, y_kind)
         return cls(x, absorbance, saturated, y_kind, conversion, meta)
+
+
+def handed_over(*arrays: np.ndarray) -> None:
+    """Mark arrays a reader owns as read-only, so `Spectrum` takes them without copying."""
+    for array in arrays:
+        array.setflags(write=False)
 
 
 def to_absorbance(values: np.ndarray, y_kind: str) -> tuple[np.ndarray, np.ndarray, str]:

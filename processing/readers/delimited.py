@@ -24,7 +24,7 @@ from typing import BinaryIO, TextIO
 import numpy as np
 
 from processing.errors import SpectrumFileError
-from processing.spectrum import FileMetadata, Spectrum, to_absorbance
+from processing.spectrum import handed_over, FileMetadata, Spectrum, to_absorbance
 
 FORMAT_NAME = "delimited text"
 EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".dat", ".prn", ".asc")
@@ -666,6 +666,7 @@ def _parse(data: bytes, source: str) -> Spectrum:
         header=header_pairs,
         notes=tuple(notes),
     )
+    handed_over(x_cm1, absorbance, saturated)
     try:
         return Spectrum(x_cm1, absorbance, saturated, kind, conversion, meta)
     except ValueError as error:  # e.g. two x values equal after unit conversion

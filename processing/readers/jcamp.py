@@ -16,7 +16,7 @@ import numpy as np
 
 from processing.errors import SpectrumFileError
 from processing.readers.jcamp_asdf import DecodedOrdinates, DecodeError, decode_xydata, parse_pairs
-from processing.spectrum import FileMetadata, LineList, Spectrum, to_absorbance
+from processing.spectrum import handed_over, FileMetadata, LineList, Spectrum, to_absorbance
 
 FORMAT_NAME = "JCAMP-DX"
 EXTENSIONS: tuple[str, ...] = (".jdx", ".dx", ".jcamp", ".jcm")
@@ -564,6 +564,7 @@ def _even_spectrum(x: np.ndarray, y: np.ndarray, block: _Block, source: str, not
         notes.append("x axis was descending; reversed to ascending")
     absorbance, saturated, conversion = to_absorbance(y, kind)
     meta = _metadata(block, "XYDATA", forms, notes, source)
+    handed_over(x, absorbance, saturated)
     try:
         return Spectrum(x, absorbance, saturated, kind, conversion, meta)
     except ValueError as error:  # e.g. spacing below float resolution: not ascending

@@ -11,6 +11,7 @@ Adding a format = one module with those four names, listed in `READERS` below.
 from __future__ import annotations
 
 import hashlib
+import threading
 import os
 from dataclasses import replace
 from pathlib import Path
@@ -21,6 +22,7 @@ from processing.spectrum import LineList, Spectrum
 
 DEFAULT_MAX_BYTES = 256 * 1024 * 1024
 HEAD_BYTES = 4096
+PARALLEL_HASH_BYTES = 1 << 20  # below 1 MB a thread costs more than it saves
 
 
 def _readers() -> tuple[ModuleType, ...]:
