@@ -319,17 +319,11 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
     """Isotopologue line pairs that the spectrum shows as one peak are treated as one blend:
     the weaker partner's line is dropped and the stronger one's expected position becomes
     the intensity-weighted blend centre (isotope shifts come from mass scaling, exact to
-    ~0.01 cm-1 for heavy-atom swaps). A pair closer than two line widths counts as resolved
-    only where two distinct peaks were found at the two predicted places."""
+    ~0.01 cm-1 for heavy-atom swaps). A pair closer than two line widths counts as one blend
+    where the spectrum shows a single peak across the pair, and as resolved where it shows two."""
     if len(bands) < 2:
         return
     ordered = sorted(bands, key=lambda b: -float(b.weight.max()))
-
-    def nearest(target: float, window: float) -> int | None:
-        if peaks.size == 0:
-            return None
-        j = int(np.argmin(np.abs(peaks - target)))
-        return j if abs(peaks[j] - target) <= window else None
 
     for i, major in enumerate(ordered):
         for minor in ordered[i + 1 :]:
@@ -344,11 +338,11 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
                 separation = float(minor.position[b] - major.position[a])
                 if width and abs(separation) >= 2.0 * width:
                     continue
-                window = 0.35 * abs(separation)
-                at_major = nearest(major.position[a] + shift, window)
-                at_minor = nearest(minor.position[b] + shift, window)
-                if at_major is not None and at_minor is not None and at_major != at_minor:
-                    continue  # resolved here
+                low = min(major.position[a], minor.position[b]) + shift - 0.5 * abs(separation)
+                high = max(major.position[a], minor.position[b]) + shift + 0.5 * abs(separation)
+                found = int(np.searchsorted(peaks, high) - np.searchsorted(peaks, low))
+                if found >= 2 or (found == 0 and width and abs(separation) >= width):
+                    continue  # two peaks there: resolved (or partly), each measured on its own
                 w_major, w_minor = float(major.weight[a]), float(minor.weight[b])
                 major.pull[m] = major.pull.get(m, 0.0) + w_minor / (w_major + w_minor) * separation
                 merged.append(m)
