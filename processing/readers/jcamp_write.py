@@ -1,8 +1,9 @@
 """JCAMP-DX 5.01 writers: the exact inverse of `jcamp.parse` for spectra and peak tables.
 
 Round-trip guarantees (tested in tests/test_jcamp_write.py):
-- form="affn": y (and line-start x) written with `digits` significant digits, 13 by default,
-  so every value comes back within 5e-13 relative (half a unit in the 13th digit); with
+- form="affn": y (and line-start x) written with `digits` significant digits, 13 by default
+  (`repr` when that is as short and exact), so every value comes back within 5e-13 relative
+  (half a unit in the 13th digit); with
   digits=None they are written with `repr` and come back bit for bit. x itself is rebuilt
   from repr-exact FIRSTX/LASTX, within a few ulp (1e-12 relative) of the input grid.
 - form="dif": y quantised to integers with YFACTOR = (largest |y|) / 1e7, so every value comes
@@ -15,7 +16,7 @@ from __future__ import annotations
 
 import io
 from pathlib import Path
-from typing import IO, Literal
+from typing import IO, Callable, Literal
 
 import numpy as np
 
@@ -86,8 +87,21 @@ def _header(title: str, data_type: str, y_units: str, extra: list[tuple[str, str
     return lines
 
 
+def _affn_text(digits: int | None) -> Callable[[float], str]:
+    """Number formatter: `repr` when it is exact within `digits`, else `digits` significant."""
+    if digits is None:
+        return repr
+    pattern = f"%.{digits}g"
+
+    def text(value: float) -> str:
+        short = pattern % value
+        return repr(value) if float(short) == value else short
+
+    return text
+
+
 def _affn_lines(x: np.ndarray, y: np.ndarray, digits: int | None) -> list[str]:
-    form = repr if digits is None else f"%.{digits}g".__mod__
+    form = _affn_text(digits)
     texts = [form(value) for value in y.tolist()]
     lines: list[str] = []
     index = 0
