@@ -420,8 +420,10 @@ def tokenize(section: bytes) -> Tokens:
         kind_parts.append(kinds)
         lines_before += piece.count(b"\n")
         begin = end
-    if len(value_parts) == 1:
-        return Tokens(value_parts[0], kind_parts[0], compressed=True)
+    if len(value_parts) <= 1:
+        empty = (np.empty(0), np.empty(0, dtype=np.uint8))
+        values, kinds = (value_parts[0], kind_parts[0]) if value_parts else empty
+        return Tokens(values, kinds, compressed=True)
     return Tokens(np.concatenate(value_parts), np.concatenate(kind_parts), compressed=True)
 
 
