@@ -25,6 +25,15 @@ def _valid_files() -> list[bytes]:
     buffer = io.BytesIO()
     write_peak_table(buffer, LineList(x[:5], y[:5], "absorbance"))
     files.append(buffer.getvalue())
+    # hand-made: a link block around a peak table and a SQZ/DIF/DUP spectrum with comments
+    files.append(
+        b"##TITLE=link\n##JCAMP-DX=5.01\n##DATA TYPE=LINK\n##BLOCKS=2\n"
+        b"##TITLE=peaks\n##DATA TYPE=INFRARED PEAK TABLE\n##XUNITS=1/CM\n##YUNITS=ABSORBANCE\n"
+        b"##PEAK TABLE=(XY..XY)\n1001, 2; 1003.5, 1\n##END=\n"
+        b"##TITLE=cell\n##DATA TYPE=INFRARED SPECTRUM\n##XUNITS=MICROMETERS\n##YUNITS=TRANSMITTANCE\n"
+        b"##XFACTOR=0,001\n##YFACTOR=0.01\n##FIRSTX=2.5\n##LASTX=2.509\n##NPOINTS=10 $$ count\n"
+        b"##XYDATA=(X++(Y..Y)\n2500A00JT%T\n2504A02j%U\n2508A01J\n2509A02\n##END=\n##END=\n"
+    )
     return files
 
 
