@@ -465,3 +465,11 @@ def test_dup_on_first_value_and_on_a_check_value() -> None:
     s = read_spectrum(text)
     assert s.absorbance.tolist() == [100, 100, 100, 101, 101, 102]
     assert s.wavenumber_cm1.tolist() == [1000, 1001, 1002, 1003, 1004, 1005]
+
+
+def test_rounded_deltax_does_not_trip_the_line_step_check() -> None:
+    # DELTAX=10.5 (5 % off the true 10) over 40 DIF lines: only a note, the data are fine
+    text = dif_lines(40).replace("##DELTAX=10", "##DELTAX=10.5")
+    s = read_spectrum(text)
+    assert s.points == 361
+    assert any("##DELTAX=10.5 disagrees" in note for note in s.meta.notes)

@@ -351,8 +351,10 @@ def _x_axis(
     magnitude = float(np.max(np.abs(line_x))) if line_x.size else 0.0
     tolerance = unit + 1e-9 * magnitude + 1e-6 * abs(spacing)  # one printed digit, rounded or cut
 
-    # Local check: the X step between consecutive lines must match the points between them.
-    step_spacing = delta_x if delta_x else spacing
+    # Local check: the X step between consecutive (read) lines must match the points between
+    # them. The spacing is the lines' own end-to-end one, so a rounded or wrong DELTAX cannot
+    # trip it, while one lost point still shows as a step of one point too many.
+    step_spacing = line_spacing if line_spacing else spacing
     if line_x.size >= 2 and 2.0 * tolerance < 0.5 * abs(step_spacing):
         implied = np.diff(line_x) / step_spacing
         held = np.diff(index)
