@@ -398,7 +398,7 @@ def tokenize(section: bytes) -> Tokens:
                     line, problem = _first_bad_line(spaced.split(b"\n"), compressed=False)
                     raise DecodeError(line, problem) from None
         if affn:
-            kinds = np.where(np.isnan(values), KIND_LINE, KIND_AFFN).astype(np.uint8)
+            kinds = np.isnan(values).view(np.uint8) * np.uint8(KIND_LINE)  # KIND_AFFN is 0
             return Tokens(values, kinds, compressed=False)
     # Pieces of about CHUNK_BYTES, cut after a line end, keep the arrays in cache.
     value_parts: list[np.ndarray] = []
@@ -473,6 +473,21 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     first = int(line_first[0])
     if kinds[first] == KIND_DIF:
         raise DecodeError(line_of(first), "first Y value is a DIF difference with no value before it")
+    if not (seen[KIND_DIF] or seen[KIND_DUP]):
+        # plain values (AFFN or SQZ): every Y token is one point
+        y_at = np.flatnonzero(is_y)
+        if y_at.size > max_points:
+            raise DecodeError(line_of(int(y_at[-1])), f"{y_at.size} points decoded, more than the {max_points} possible")
+        line_x = values[line_first - 1]
+        kept = ~np.isnan(line_x)
+        return DecodedOrdinates(
+            y=values[y_at],
+            line_x=line_x[kept],
+            line_index=np.searchsorted(y_at, line_first)[kept].astype(np.int64),
+            line_number=np.searchsorted(markers, line_first)[kept].astype(np.int64),
+            forms=forms,
+            checks=0,
+        )
     is_dif = kinds == KIND_DIF
     repeats = is_y.astype(np.intp)
 
