@@ -27,6 +27,37 @@ def pytest_pyfunc_call(pyfuncitem: pytest.Function) -> bool | None:
     return True
 
 
+async def quiet(pilot: Any) -> None:
+    """Wait (by conditions, not by time) until no worker runs and the selected run is shown.
+
+    Workers start other workers through messages (runs -> detail and spectrum), so a fixed
+    number of pauses is not enough on a loaded machine.
+    """
+    from tui.screens.main_screen import MainScreen
+    from tui.widgets.run_tables import RunList
+    from tui.widgets.spectrum_plot import SpectrumPlot
+
+    app = pilot.app
+    for _ in range(1000):
+        await app.workers.wait_for_complete()
+        await pilot.pause(0.01)
+        if any(worker.is_running for worker in app.workers):
+            continue
+        main = next((s for s in app.screen_stack if isinstance(s, MainScreen)), None)
+        if main is None or not main.runs:
+            continue
+        selected = main.selected_run_id
+        if main.query_one(RunList).selected_run_id() != selected:
+            continue  # a cursor move not yet handled
+        if selected is not None and (main.detail is None or main.detail.run_id != selected):
+            continue
+        if main.query_one(SpectrumPlot).is_loading_for(selected):
+            continue
+        await pilot.pause()
+        return
+    raise AssertionError("the interface did not settle within 10 s")
+
+
 @pytest.fixture(autouse=True)
 def no_user_keys_file(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> None:
     """Tests never read the keys file of whoever runs them."""

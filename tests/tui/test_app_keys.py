@@ -16,14 +16,14 @@ from tui.screens.main_screen import MainScreen
 from tui.screens.modals import FlagReasonScreen, ReprocessScreen
 from tui.widgets.run_tables import LinesTable, RunList
 
+from conftest import quiet
+
 SIZE = (80, 24)
 
 
 async def settle(app: BandwatchApp, pilot: Any) -> None:
-    """Let workers finish and their messages be handled (workers may start more workers)."""
-    for _ in range(4):
-        await app.workers.wait_for_complete()
-        await pilot.pause()
+    """Let workers finish and their messages be handled (see conftest.quiet)."""
+    await quiet(pilot)
 
 
 def runs_by_name(data: Path) -> dict[str, Any]:
@@ -312,7 +312,8 @@ async def test_plot_zooms_pans_and_flips_by_keys(lab: dict[str, Path]) -> None:
         await settle(app, pilot)
         await pilot.press("1")
         plot = app.screen.query_one(SpectrumPlot)
-        assert plot.has_focus and plot.window == (2700.0, 3100.0)  # the fixture's whole range
+        assert plot.has_focus
+        assert plot.window == (2700.0, 3100.0), plot._message  # the fixture's whole range
         await pilot.press("plus")
         assert plot.window == (2800.0, 3000.0)  # half the width about the centre
         await pilot.press("left")  # falling axis: the screen's left is higher wavenumber

@@ -14,8 +14,9 @@ import importlib.metadata
 import pytest
 
 from tui.app import BandwatchApp
+from tui.screens.main_screen import MainScreen
 
-from conftest import make_lab
+from conftest import make_lab, quiet
 
 # The SVGs were drawn with these versions; another Textual or Rich draws other bytes, so the
 # comparison is only meaningful with them (the Pilot tests check behaviour on any version).
@@ -36,18 +37,18 @@ def snapshot_app() -> BandwatchApp:
     return BandwatchApp(lab["data"], lab["export"], operator="tester")
 
 
-def keys(*pressed: str) -> Callable[[Any], Any]:
+def keys(*pressed: str, selected: int | None = None) -> Callable[[Any], Any]:
     """run_before: wait for the ledger and file reads, press keys, wait again."""
 
     async def run_before(pilot: Any) -> None:
-        for _ in range(4):
-            await pilot.app.workers.wait_for_complete()
-            await pilot.pause()
+        await quiet(pilot)
         for key in pressed:
             await pilot.press(key)
-            for _ in range(3):
-                await pilot.app.workers.wait_for_complete()
-                await pilot.pause()
+            await quiet(pilot)
+        if selected is not None:
+            main = next(s for s in pilot.app.screen_stack if isinstance(s, MainScreen))
+            table = main.query_one("RunList")
+            assert main.selected_run_id == selected, (main.selected_run_id, table.cursor_row, table.scroll_y)
         for widget in pilot.app.screen.query("Input"):
             widget.cursor_blink = False
 
@@ -55,11 +56,11 @@ def keys(*pressed: str) -> Callable[[Any], Any]:
 
 
 def test_main_screen_plot_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
-    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j"))
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j", selected=3))
 
 
 def test_main_screen_plot_120x40(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
-    assert snap_compare(snapshot_app, terminal_size=(120, 40), run_before=keys("j"))
+    assert snap_compare(snapshot_app, terminal_size=(120, 40), run_before=keys("j", selected=3))
 
 
 def test_lines_pane_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:

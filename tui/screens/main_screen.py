@@ -68,6 +68,7 @@ class MainScreen(Screen[None]):
         super().__init__()
         self.runs: dict[int, Any] = {}  # run list records, read without their results
         self.detail: Any | None = None  # the selected run, with its result
+        self.jump_to: int | None = None  # a run to select once the run list holds it
         self.busy_paths: list[str] = []
         self.problems: dict[str, str] = {}
         self.follow_hold = False  # set while a just-redone run is to stay selected  # path -> what the station said when it could not record it
@@ -222,6 +223,8 @@ class MainScreen(Screen[None]):
         keep = self.selected_run_id
         if following and message.runs:
             keep = message.runs[0].run_id
+        if self.jump_to is not None and self.jump_to in self.runs:
+            keep, self.jump_to = self.jump_to, None
         recorded = {run.path for run in message.runs}
         self.busy_paths = [path for path in self.busy_paths if path not in recorded]
         table.fill(message.runs, self.busy_paths, keep_run_id=keep, problems=self.problems)
@@ -254,7 +257,7 @@ class MainScreen(Screen[None]):
         if run is None:
             plot.show_message("no run selected")
             return
-        plot.show_message(f"reading {run.name} …")
+        plot.show_message(f"reading {run.name} …", loading_run_id=run.run_id)
         self.load_detail(run.run_id)
         self.load_spectrum(run.run_id, run.path)
 
@@ -355,7 +358,7 @@ class MainScreen(Screen[None]):
             self.notify(message.problem, title=f"redo of run {message.run_id}", severity="error")
             return
         self.notify(f"run {message.run_id} redone as run {message.new_run_id}", timeout=3)
-        self.selected_run_id = message.new_run_id
+        self.jump_to = message.new_run_id
         self.load_runs()
 
     @on(ReportExported)

@@ -225,6 +225,7 @@ class SpectrumPlot(Widget, can_focus=True):
         self._y: np.ndarray | None = None
         self._lines: tuple[PlotLine, ...] = ()
         self._message = "no run selected"
+        self._loading_run_id: int | None = None
 
     @property
     def full_range(self) -> tuple[float, float] | None:
@@ -242,6 +243,7 @@ class SpectrumPlot(Widget, can_focus=True):
         """Plot y against ascending wavenumber x (cm-1) with markers; window None = all of it."""
         self._x = np.asarray(x, dtype=float)
         self._y = np.asarray(y, dtype=float)
+        self._loading_run_id = None
         self._lines = tuple(lines)
         self.window = window or self.full_range
         self.refresh()
@@ -251,13 +253,18 @@ class SpectrumPlot(Widget, can_focus=True):
         self._lines = tuple(lines)
         self.refresh()
 
-    def show_message(self, message: str) -> None:
+    def show_message(self, message: str, loading_run_id: int | None = None) -> None:
         """Clear the plot and say why (loading, unreadable file, line list only)."""
         self._x = self._y = None
         self._lines = ()
         self._message = message
+        self._loading_run_id = loading_run_id
         self.window = None
         self.refresh()
+
+    def is_loading_for(self, run_id: int | None) -> bool:
+        """True while the spectrum of `run_id` is being read."""
+        return run_id is not None and self._loading_run_id == run_id
 
     def render(self) -> Text:
         width, height = self.content_size.width, self.content_size.height
