@@ -431,15 +431,15 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     """Decode `(X++(Y..Y))` lines: DUP expansion, DIF integration, Y-check verification.
 
     Works in token space: each token gets a repeat count (1 for a Y value, the DUP count for a
-    value followed by DUP, 0 for X values, line markers, DUP tokens and Y-check values), so one
-    `np.repeat` expands DUPs and drops everything that is not a point. `max_points` bounds the
+    value followed by DUP, one less for a Y-check value, 0 for X values, line markers and DUP
+    tokens), so one `np.repeat` expands DUPs and drops everything that is not a point. `max_points` bounds the
     expanded size (a corrupt DUP count must not exhaust memory).
     """
     tokens = tokenize(section)
     values, kinds = tokens.values, tokens.kinds
     size = kinds.size
     is_line = kinds == KIND_LINE
-    if np.isinf(values).any():  # markers are NaN; an overflowing number is inf
+    if np.isinf(values).any():  # an overflowing number is inf (markers hold NaN or junk)
         bad = int(np.flatnonzero(np.isinf(values))[0])
         raise DecodeError(int(np.count_nonzero(is_line[:bad])), "value is not finite")
     markers = np.flatnonzero(is_line)
