@@ -246,7 +246,7 @@ def measure_lines(
     position_sigma = np.maximum(np.nan_to_num(position_sigma, nan=np.inf), 0.01 * spacing)
     # a profile fit that cannot place its centre to 10% of a width has failed (e.g. a
     # distorted blend): keep the three-point parabola centre with that 10% as its uncertainty
-    limit = 0.1 * np.median(w)
+    limit = 0.1 * float(np.median(w)) if w.size else spacing
     failed = position_sigma > limit
     c = np.where(failed, centre0, c)
     position_sigma = np.where(failed, limit, position_sigma)
