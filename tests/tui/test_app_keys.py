@@ -308,7 +308,8 @@ async def test_plot_zooms_pans_and_flips_by_keys(lab: dict[str, Path]) -> None:
 
     app = BandwatchApp(lab["data"], lab["export"], operator="tester")
     async with app.run_test(size=SIZE) as pilot:
-        await pilot.press("j")
+        await settle(app, pilot)
+        await pilot.press("j")  # hcl_cell_03
         await settle(app, pilot)
         await pilot.press("1")
         plot = app.screen.query_one(SpectrumPlot)
