@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
@@ -121,6 +121,8 @@ class _Band:
     fit: BandFit | None = None
     # unresolved isotopologue partners: m -> shift of the blend centre from this line
     pull: dict[int, float] = field(default_factory=dict)
+    # the same lines' partner: m -> (separation from this line, intensity ratio partner/this)
+    partner: dict[int, tuple[float, float]] = field(default_factory=dict)
     merged_with: str | None = None
 
     def pull_of(self, m: np.ndarray) -> np.ndarray:
@@ -319,8 +321,9 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
     """Isotopologue line pairs that the spectrum shows as one peak are treated as one blend:
     the weaker partner's line is dropped and the stronger one's expected position becomes
     the intensity-weighted blend centre (isotope shifts come from mass scaling, exact to
-    ~0.01 cm-1 for heavy-atom swaps). A pair closer than two line widths counts as one blend
-    where the spectrum shows a single peak across the pair, and as resolved where it shows two."""
+    ~0.01 cm-1 for heavy-atom swaps). A pair closer than one line width is always one blend
+    (the final fit measures it as a doublet); between one and two widths it is one blend where
+    the spectrum shows a single peak across it, and two lines where it shows two."""
     if len(bands) < 2:
         return
     ordered = sorted(bands, key=lambda b: -float(b.weight.max()))
@@ -341,10 +344,11 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
                 low = min(major.position[a], minor.position[b]) + shift - 0.5 * abs(separation)
                 high = max(major.position[a], minor.position[b]) + shift + 0.5 * abs(separation)
                 found = int(np.searchsorted(peaks, high) - np.searchsorted(peaks, low))
-                if found >= 2 or (found == 0 and width and abs(separation) >= width):
+                if width and abs(separation) >= 1.0 * width and (found >= 2 or found == 0):
                     continue  # two peaks there: resolved (or partly), each measured on its own
                 w_major, w_minor = float(major.weight[a]), float(minor.weight[b])
                 major.pull[m] = major.pull.get(m, 0.0) + w_minor / (w_major + w_minor) * separation
+                major.partner[m] = (separation, w_minor / w_major)
                 merged.append(m)
             if merged:
                 keep = ~np.isin(minor.m, merged)
@@ -590,8 +594,23 @@ def _excluded_mask(lines: LineTable, excluded: tuple[float, ...]) -> np.ndarray:
     return mask
 
 
-def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: AssignSettings | None = None, library: Any = None) -> AssignmentResult:
-    """Assign `lines` (measured in a spectrum covering first..last cm-1); see module docstring."""
+DoubletMeasure = Callable[[float, float, float], "tuple[float, float] | None"]
+
+
+def assign_lines(
+    lines: LineTable,
+    first_cm1: float,
+    last_cm1: float,
+    settings: AssignSettings | None = None,
+    library: Any = None,
+    measure_doublet: DoubletMeasure | None = None,
+) -> AssignmentResult:
+    """Assign `lines` (measured in a spectrum covering first..last cm-1); see module docstring.
+
+    `measure_doublet(centre_guess, separation, ratio) -> (centre, sigma)` re-measures a line
+    blended with an isotopologue partner from the spectrum itself (see
+    `lines.measure_doublet`); without it (a line list) the blend centre is corrected by the
+    predicted intensity-weighted shift."""
     from processing.species import load_library
 
     settings = settings or AssignSettings()
@@ -665,7 +684,7 @@ def assign_lines(lines: LineTable, first_cm1: float, last_cm1: float, settings: 
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    result = _finish(lines, assignment, blended, shifts, notes, [bands[i] for i in kept_bands])
+    result = _finish(lines, assignment, blended, shifts, notes, [bands[i] for i in kept_bands], measure_doublet)
     if settings.species:
         found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
         missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
@@ -692,6 +711,7 @@ def _finish(
     shifts: dict[str, float],
     notes: list[str],
     library_bands: list[_Band],
+    measure_doublet: DoubletMeasure | None = None,
 ) -> AssignmentResult:
     """Final fit per band, per-line results with confidence, likely causes for the rest."""
     groups: dict[tuple[str, int, int], list[int]] = {}
@@ -708,7 +728,16 @@ def _finish(
         branch, J_lower = branch_from_m(m)
         idx = np.array(members)
         pull = band.pull_of(m)
-        sigma = lines.position_sigma_cm1[idx] * np.where(lines.saturated[idx], 3.0, 1.0) * np.where(np.isin(idx, list(blended)), 5.0, 1.0)
+        sigma = lines.position_sigma_cm1[idx] * np.where(lines.saturated[idx], 3.0, 1.0) * np.where(np.isin(idx, list(blended)) | (pull != 0), 5.0, 1.0)
+        if measure_doublet is not None:
+            for k, m_k in enumerate(m.tolist()):
+                if m_k in band.partner:
+                    separation, ratio = band.partner[m_k]
+                    measured = measure_doublet(float(lines.position_cm1[idx[k]] - pull[k]), separation, ratio)
+                    if measured is not None:
+                        # the feature sits `pull` from the line: measured from the doublet fit
+                        pull[k] = float(lines.position_cm1[idx[k]] - measured[0])
+                        sigma[k] = measured[1] * (3.0 if lines.saturated[idx[k]] else 1.0)
         fit: BandFit | None = None
         if idx.size >= 4:
             try:

@@ -178,7 +178,14 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
         j_offsets=settings.j_offsets,
         excluded_positions_cm1=settings.excluded_positions_cm1,
     )
-    assignment = assign_lines(lines, first, last, assign_settings, library)
+    doublet = None
+    if isinstance(data, Spectrum):
+        from processing.lines import measure_doublet
+
+        def doublet(centre: float, separation: float, ratio: float) -> Any:
+            return measure_doublet(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
+
+    assignment = assign_lines(lines, first, last, assign_settings, library, doublet)
     lap("assignment and fits")
     from processing.checks import CheckThresholds, run_checks, verdict_of
     from processing.line_intensities import analyse_intensities
