@@ -24,13 +24,14 @@ def two_samples(folder: Path) -> Path:
     return folder
 
 
-def test_demo_plain_once_records_every_sample_run_and_cleans_up(tmp_path: Path) -> None:
+def test_demo_without_a_terminal_prints_events_and_ends_when_all_runs_are_handled(tmp_path: Path) -> None:
     samples = two_samples(tmp_path / "samples")
-    completed = subprocess.run(
-        [sys.executable, "-m", "tui", "demo", "--plain", "--once", "--interval", "0.2", "--samples", str(samples)],
+    completed = subprocess.run(  # no --plain, no --once: no terminal implies both
+        [sys.executable, "-m", "tui", "demo", "--interval", "0.2", "--samples", str(samples)],
         capture_output=True, text=True, timeout=120, stdin=subprocess.DEVNULL,
     )
     assert completed.returncode == 0, completed.stderr
+    assert "as --plain --once" in completed.stderr
     out = completed.stdout
     assert "demo: 2 run(s) in the ledger" in out
     assert all(name in out for name in TWO_RUNS)

@@ -23,7 +23,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--interval", type=float, default=4.0, metavar="SECONDS",
                         help="seconds between two runs written by the simulated instrument (default 4)")
     parser.add_argument("--plain", action="store_true",
-                        help="print the station's events instead of opening the interface (CI, no terminal)")
+                        help="print the station's events instead of opening the interface (also the case, "
+                        "with --once, when there is no terminal)")
     parser.add_argument("--once", action="store_true",
                         help="exit once every sample run has been processed, printing the run list")
     parser.add_argument("--exit-after", type=float, default=None, metavar="SECONDS",
@@ -57,15 +58,19 @@ def run(args: argparse.Namespace) -> int:
     ).with_overrides()
     replay = InstrumentReplay(sources, export, interval_seconds=args.interval, first_delay_seconds=1.0)
     plain = args.plain or not (sys.stdin.isatty() and sys.stdout.isatty())
+    once = args.once
     if not args.plain and plain:
-        print("bandwatch: no terminal; printing events (as --plain)", file=sys.stderr)
+        # Without a terminal nobody can press ctrl+q: print events and stop when all are done.
+        print("bandwatch: no terminal; printing events until every run is handled (as --plain --once)",
+              file=sys.stderr)
+        once = True
     print(f"demo: export folder {export}\ndemo: data folder   {data}", file=sys.stderr if not plain else sys.stdout)
     try:
         if plain:
-            code = _run_plain(config, replay, len(sources), args.once, args.exit_after)
+            code = _run_plain(config, replay, len(sources), once, args.exit_after)
         else:
-            code = _run_interface(config, replay, len(sources), args.once, args.exit_after, args.operator)
-        if args.once or plain:
+            code = _run_interface(config, replay, len(sources), once, args.exit_after, args.operator)
+        if once or plain:
             _print_runs(data)
         return code
     finally:
