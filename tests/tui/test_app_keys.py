@@ -327,6 +327,10 @@ async def test_plot_zooms_pans_and_flips_by_keys(lab: dict[str, Path]) -> None:
         assert plot.window == (2700.0, 3100.0)
         rendered = plot.render().plain
         assert "low→high" in rendered and "H35Cl" in rendered
+        await pilot.press("plus")
+        await pilot.press("w", "j")  # the next run keeps the zoomed window, to compare one region
+        await settle(app, pilot)
+        assert app.screen.selected_run_id == 2 and plot.window == (2800.0, 3000.0)
 
 
 async def test_keys_file_remaps_and_a_bad_file_is_one_clear_message(lab: dict[str, Path], tmp_path: Path,

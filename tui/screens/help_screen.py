@@ -16,7 +16,8 @@ Panes (top to bottom)
   run list      newest first: time (UTC), file, version, species found, verdict, decision
   summary       the highlighted run: verdict, decision, who decided and why
   1 Plot        the spectrum; markers above it: P R = first isotopologue's P and R lines,
-                p r = second, < > = third, ? = unassigned, x = marked for exclusion
+                p r = second, < > = third, ? = unassigned, x = marked for exclusion;
+                the zoom is kept when moving to another run (0 shows everything)
   2 Lines       observed position, assignment, calculated position, obs-calc; x marks a line
                 to leave out of the next redo
   3 Constants   band and molecular constants with uncertainties beside reference values

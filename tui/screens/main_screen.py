@@ -69,6 +69,7 @@ class MainScreen(Screen[None]):
         self.runs: dict[int, Any] = {}  # run list records, read without their results
         self.detail: Any | None = None  # the selected run, with its result
         self.jump_to: int | None = None  # a run to select once the run list holds it
+        self.view_window: tuple[float, float] | None = None  # the plot's zoom, kept across runs
         self.busy_paths: list[str] = []
         self.problems: dict[str, str] = {}
         self.follow_hold = False  # set while a just-redone run is to stay selected  # path -> what the station said when it could not record it
@@ -257,6 +258,8 @@ class MainScreen(Screen[None]):
         if run is None:
             plot.show_message("no run selected")
             return
+        if plot.window is not None:
+            self.view_window = plot.window  # kept for the next run: compare one region across runs
         plot.show_message(f"reading {run.name} …", loading_run_id=run.run_id)
         self.load_detail(run.run_id)
         self.load_spectrum(run.run_id, run.path)
@@ -293,7 +296,7 @@ class MainScreen(Screen[None]):
         if message.x is None or message.y is None:
             plot.show_message(message.problem or "no spectrum")
             return
-        previous = plot.window
+        previous = self.view_window
         full = (float(message.x[0]), float(message.x[-1]))
         keep = previous if previous and full[0] <= previous[0] < previous[1] <= full[1] else None
         plot.show(message.x, message.y, self.plot_lines(message.run_id), keep)
