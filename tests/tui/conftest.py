@@ -126,7 +126,13 @@ def hcl_result(path: str, origin: float, verdict: str = "pass") -> dict[str, Any
             {"isotopologue": "H35Cl", "B_e": q(10.5934, 0.0006), "alpha_e": q(0.3072, 0.0005), "D_e": None,
              "r_e": {"value": 1.27455, "sigma": 0.00004, "unit": "angstrom"}, "omega_e": None,
              "omega_e_x_e": None,
-             "reference": {"B_e": 10.5934, "alpha_e": 0.3072, "r_e": 1.27455, "source": "library"}}
+             # the analysis' comparison object for B_e, plain numbers for the others
+             "reference": {
+                 "B_e": {"name": "B_e", "fitted": q(10.5934, 0.0006), "reference": 10.593416,
+                         "source": "library", "difference": -0.000016, "z": -0.03,
+                         "effective_reference": 10.5936, "effective_z": -0.33,
+                         "effective_rule": "higher terms not determined by two levels"},
+                 "alpha_e": 0.3072, "r_e": 1.27455}}
         ],
         "checks": [
             {"name": "saturation", "status": "pass", "detail": "no saturated points"},

@@ -353,3 +353,25 @@ async def test_keys_file_remaps_and_a_bad_file_is_one_clear_message(lab: dict[st
     with pytest.raises(ConfigError) as caught:
         load_keymap(keys)
     assert str(keys) in str(caught.value) and "run.acept" in str(caught.value)
+
+
+async def test_constants_pane_shows_reference_and_deviation(lab: dict[str, Path]) -> None:
+    from tui.widgets.run_tables import ConstantsTable
+
+    app = BandwatchApp(lab["data"], lab["export"], operator="tester")
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(app, pilot)
+        await pilot.press("j", "3")
+        await settle(app, pilot)
+        table = app.screen.query_one(ConstantsTable)
+        rows = {str(table.get_cell_at((r, 1))): r for r in range(table.row_count)}
+        b_e = rows["B_e cm-1"]
+        assert [str(table.get_cell_at((b_e, c))).strip() for c in (2, 3, 4, 5)] == [
+            "10.59340", "±0.00060", "10.59342", "-0.3"  # the comparable reference's deviation
+        ]
+        assert str(table.get_cell_at((rows["alpha_e cm-1"], 4))).strip() == "0.30720"
+        for _ in range(b_e):
+            await pilot.press("j")
+        await settle(app, pilot)
+        detail = str(app.screen.query_one("#constant-detail").render())
+        assert "reference 10.593416 (library)" in detail and "-0.3 σ" in detail

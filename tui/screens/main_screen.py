@@ -93,9 +93,10 @@ class MainScreen(Screen[None]):
                 yield LinesTable(id="lines")
             with TabPane("3 Constants", id="tab-constants"):
                 yield ConstantsTable(id="constants")
+                yield Static(id="constant-detail", classes="detail-line")
             with TabPane("4 Checks", id="tab-checks"):
                 yield ChecksTable(id="checks")
-                yield Static(id="check-detail")
+                yield Static(id="check-detail", classes="detail-line")
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
@@ -273,6 +274,8 @@ class MainScreen(Screen[None]):
         checks = self.query_one(ChecksTable)
         checks.fill(list(result.get("checks") or []), short_error(run))
         self.query_one("#check-detail", Static).update(Text(checks.details[0] if checks.details else ""))
+        constants = self.query_one(ConstantsTable)
+        self.query_one("#constant-detail", Static).update(Text(constants.details[0] if constants.details else ""))
 
     @on(RunDetailLoaded)
     def show_detail(self, message: RunDetailLoaded) -> None:
@@ -307,6 +310,13 @@ class MainScreen(Screen[None]):
         table = self.query_one(ChecksTable)
         detail = table.details[message.cursor_row] if message.cursor_row < len(table.details) else ""
         self.query_one("#check-detail", Static).update(Text(detail))
+
+    @on(DataTable.RowHighlighted, "#constants")
+    def constant_highlighted(self, message: DataTable.RowHighlighted) -> None:
+        """The highlighted quantity against its reference, in words (source, rule, sigma)."""
+        table = self.query_one(ConstantsTable)
+        detail = table.details[message.cursor_row] if message.cursor_row < len(table.details) else ""
+        self.query_one("#constant-detail", Static).update(Text(detail))
 
     @on(LinesTable.ExclusionsChanged)
     def exclusions_changed(self, message: LinesTable.ExclusionsChanged) -> None:

@@ -206,13 +206,52 @@ BAND_ROWS: tuple[tuple[str, str], ...] = (
 
 
 def reference_value(reference: Any, key: str) -> float | None:
-    """A reference value from the constants' `reference` object: a number or {"value": ...}."""
+    """The handbook value for `key` from a constants entry's `reference` object.
+
+    Accepts a number, {"value": ...} or the analysis' comparison object {"reference": ...}.
+    """
     if not isinstance(reference, dict):
         return None
     item = reference.get(key)
     if isinstance(item, dict):
-        item = item.get("value")
+        item = item.get("reference", item.get("value"))
     return float(item) if isinstance(item, (int, float)) else None
+
+
+def comparison_z(reference: Any, key: str) -> float | None:
+    """(fit - reference) / sigma as the analysis states it: against the comparable reference
+    (`effective_z`, when the analysis corrected the reference for terms the fit cannot
+    determine), else the plain `z`. None when not given."""
+    item = reference.get(key) if isinstance(reference, dict) else None
+    if not isinstance(item, dict):
+        return None
+    for name in ("effective_z", "z"):
+        if isinstance(item.get(name), (int, float)):
+            return float(item[name])
+    return None
+
+
+def comparison_text(iso: str, key: str, estimate: Any, reference: Any) -> str:
+    """One sentence on a fitted constant and its reference, for the line under the table."""
+    value = estimate.get("value") if isinstance(estimate, dict) else None
+    sigma = estimate.get("sigma") if isinstance(estimate, dict) else None
+    parts = [f"{iso} {key}: fitted {value:.8g}" if isinstance(value, (int, float)) else f"{iso} {key}"]
+    if isinstance(sigma, (int, float)):
+        parts[0] += f" ± {sigma:.2g}"
+    item = reference.get(key) if isinstance(reference, dict) else None
+    if isinstance(item, dict):
+        if isinstance(item.get("reference"), (int, float)):
+            source = f" ({item['source']})" if item.get("source") else ""
+            parts.append(f"reference {item['reference']:.8g}{source}")
+        if isinstance(item.get("z"), (int, float)):
+            parts.append(f"{item['z']:+.1f} σ")
+        if isinstance(item.get("effective_reference"), (int, float)):
+            rule = f" [{item['effective_rule']}]" if item.get("effective_rule") else ""
+            z = f": {item['effective_z']:+.1f} σ" if isinstance(item.get("effective_z"), (int, float)) else ""
+            parts.append(f"comparable reference {item['effective_reference']:.8g}{z}{rule}")
+    elif isinstance(item, (int, float)):
+        parts.append(f"reference {item:.8g}")
+    return "; ".join(parts)
 
 
 def reference_cell(reference: float | None, estimate: Any) -> Text:
@@ -231,17 +270,20 @@ class ConstantsTable(DataTable):
     def __init__(self, **kwargs: Any) -> None:
         super().__init__(cursor_type="row", **kwargs)
         self.quantities: list[tuple[str, str]] = []  # (isotopologue, quantity) per row
+        self.details: list[str] = []  # a sentence per row, shown under the table
 
     def on_mount(self) -> None:
-        self.add_column("isotopologue", key="iso", width=12)
+        self.add_column("isotope", key="iso", width=7)
         self.add_column("quantity", key="quantity", width=17)
         self.add_column("fitted", key="value", width=12)
         self.add_column("±", key="sigma", width=9)
         self.add_column("reference", key="reference", width=11)
+        self.add_column("Δ/σ", key="z", width=6)
 
     def fill(self, bands: list[dict[str, Any]], constants: list[dict[str, Any]]) -> None:
         self.clear()
         self.quantities = []
+        self.details = []
         for band in bands:
             iso = str(band.get("isotopologue", "?"))
             tag = f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}"
@@ -249,10 +291,12 @@ class ConstantsTable(DataTable):
                 if band.get(key) is None:
                     continue
                 value, sigma = quantity_cells(band.get(key))
-                self._add(iso, f"{key}@{tag}", f"{label} {tag}", value, sigma, Text(""))
+                self._add(iso, f"{key}@{tag}", f"{label} {tag}", value, sigma, Text(""), Text(""),
+                          comparison_text(iso, f"{key} ({tag})", band.get(key), None))
             rms = band.get("rms")
             self._add(
-                iso, "", f"rms {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text("")
+                iso, "", f"rms {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text(""),
+                Text(""), f"{iso} {tag}: {band.get('n_lines', '?')} lines in the fit, rms {rms} cm-1",
             )
         for constant in constants:
             iso = str(constant.get("isotopologue", "?"))
@@ -264,13 +308,19 @@ class ConstantsTable(DataTable):
                 value, sigma = quantity_cells(estimate)
                 ref = reference_value(reference, key)
                 ref_cell = reference_cell(ref, estimate)
-                self._add(iso, key, label, value, sigma, ref_cell)
+                z = comparison_z(reference, key)
+                z_cell = Text(f"{z:+.1f}", justify="right") if z is not None else Text("")
+                self._add(iso, key, label, value, sigma, ref_cell, z_cell,
+                          comparison_text(iso, key, estimate, reference))
         if self.row_count == 0:
-            self.add_row(Text("no fitted constants for this run", style="dim"), "", "", "", "")
+            self.add_row(Text("no fitted constants for this run", style="dim"), "", "", "", "", "")
 
-    def _add(self, iso: str, key: str, label: str, value: Text, sigma: Text, reference: Text) -> None:
+    def _add(
+        self, iso: str, key: str, label: str, value: Text, sigma: Text, reference: Text, z: Text, detail: str
+    ) -> None:
         self.quantities.append((iso, key))
-        self.add_row(plain(iso), plain(label), value, sigma, reference)
+        self.details.append(detail)
+        self.add_row(plain(iso), plain(label), value, sigma, reference, z)
 
     def selected_quantity(self) -> tuple[str, str] | None:
         if not self.quantities or self.cursor_row >= len(self.quantities):
