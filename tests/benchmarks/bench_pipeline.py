@@ -4,7 +4,9 @@ Run: python tests/benchmarks/bench_pipeline.py [--repeat N]
 
 Reports, in one run on this machine (shared and noisy, so ratios matter):
 - in-process time from a file on disk to band fits for a 64k- and a 1M-point spectrum
-  (JCAMP-DX DIF and CSV), median of N, with the share of each stage; targets 50 ms and 0.6 s;
+  (JCAMP-DX DIF; CSV with 17-digit floats as bandwatch writes it; CSV with 4/6 decimals as
+  instrument software exports it), median of N, with the share of each stage; targets 50 ms
+  and 0.6 s;
   a same-run reference (numpy.loadtxt reading the same spectrum as CSV) and the ratio to it;
 - whole-process `bandwatch process FILE` against `python -c "import numpy"` (target <= 5x);
 - the peak search on a 1M-point array, noise-free against pure noise (must not degrade).
@@ -89,12 +91,16 @@ def main() -> None:
         files = {}
         for points in (65_536, 1_000_000):
             spectrum = make_spectrum(points)
-            for form in ("dif", "csv"):
-                path = work / f"bench_{points}.{ 'jdx' if form == 'dif' else 'csv'}"
+            for form in ("dif", "csv", "csv6"):
+                path = work / f"bench_{points}_{form}.{'jdx' if form == 'dif' else 'csv'}"
                 if form == "dif":
                     write_jcamp(path, spectrum, form="dif")
+                elif form == "csv":
+                    write_csv(path, spectrum)  # 17-digit repr floats (exact round trip)
                 else:
-                    write_csv(path, spectrum)
+                    # as instrument software exports: x to 4 decimals, absorbance to 6
+                    text = "\n".join(f"{x:.4f},{y:.6f}" for x, y in zip(spectrum.wavenumber_cm1, spectrum.absorbance))
+                    path.write_text("cm-1,A\n" + text + "\n")
                 files[(points, form)] = path
                 analyse(read_any(path))  # warm the library caches, as a running station has them
                 repeat = args.repeat if points < 500_000 else max(3, args.repeat // 2)
