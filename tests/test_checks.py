@@ -88,3 +88,13 @@ def test_verdict_is_the_worst_check() -> None:
     assert verdict_of(checks) == "warn"
     assert verdict_of(checks + [Check("d", "fail", "")]) == "fail"
     assert verdict_of([]) == "pass"
+
+
+def test_window_fringes_are_found_with_their_period() -> None:
+    # The after-service run carries 1% transmittance fringes (0.0043 A) with a 0.82 cm-1 period
+    # (a 4 mm KBr window: 1/(2 n t), common practice), as its sidecar says.
+    _, checks = _checks("1500_hcl_after_service.jdx")
+    assert checks["baseline"]["status"] == "warn"
+    assert "period 0.82 cm-1" in checks["baseline"]["detail"]
+    _, clean = _checks("0905_hcl_cell.jdx")
+    assert clean["baseline"]["status"] == "pass"
