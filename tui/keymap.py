@@ -14,11 +14,13 @@ from processing.errors import ConfigError
 
 
 def keymap_path() -> Path:
+    """$BANDWATCH_KEYS, else keys.toml beside the station configuration."""
+    from processing.station.config import config_home
+
     explicit = os.environ.get("BANDWATCH_KEYS")
     if explicit:
         return Path(explicit).expanduser()
-    base = os.environ.get("XDG_CONFIG_HOME") or str(Path.home() / ".config")
-    return Path(base) / "bandwatch" / "keys.toml"
+    return config_home() / "keys.toml"
 
 
 def load_keymap(path: str | Path | None = None) -> dict[str, str]:

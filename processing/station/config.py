@@ -17,13 +17,18 @@ DEFAULT_PROCESS_FUNCTION = "processing.pipeline:process_file"
 DEFAULT_EXCLUDE = (".*", "~*", "*~", "*.tmp", "*.part", "*.partial", "*.crdownload", "*.swp", "*.lock")
 
 
+def config_home() -> Path:
+    """bandwatch's folder of user settings: $XDG_CONFIG_HOME/bandwatch, else ~/.config/bandwatch."""
+    base = os.environ.get("XDG_CONFIG_HOME") or str(Path.home() / ".config")
+    return Path(base) / "bandwatch"
+
+
 def default_config_path() -> Path:
-    """$BANDWATCH_CONFIG, else ~/.config/bandwatch/station.toml (XDG_CONFIG_HOME honoured)."""
+    """$BANDWATCH_CONFIG, else station.toml in `config_home()`."""
     explicit = os.environ.get("BANDWATCH_CONFIG")
     if explicit:
         return Path(explicit).expanduser()
-    base = os.environ.get("XDG_CONFIG_HOME") or str(Path.home() / ".config")
-    return Path(base) / "bandwatch" / "station.toml"
+    return config_home() / "station.toml"
 
 
 def default_data_dir() -> Path:

@@ -400,8 +400,13 @@ class Station:
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
         )
+        self._report_and_announce(record, result)
+
+    def _report_and_announce(self, record: Any, result: Any) -> None:
+        """Write a processed run's reports (a failure to write is a problem event, not a crash)
+        and announce the run."""
         folder = None
-        if status == "processed":
+        if record.status == "processed":
             try:
                 folder = str(write_reports(self.data_dir, record.run_id, record.version, result))
             except OSError as error:
@@ -427,15 +432,4 @@ class Station:
         result = outcome.result
         record = ledger.record_reprocessed(conn, info.reprocess_of, result, settings)
         info.answer["run_id"] = record.run_id
-        folder = None
-        if record.status == "processed":
-            try:
-                folder = str(write_reports(self.data_dir, record.run_id, record.version, result))
-            except OSError as error:
-                self._emit(StationProblem(f"report for run {record.run_id} not written: {error}"))
-        self._emit(
-            RunProcessed(
-                record.run_id, record.version, record.path, record.status,
-                record.verdict, record.species, record.error, folder,
-            )
-        )
+        self._report_and_announce(record, result)
