@@ -8,7 +8,7 @@ import re
 from pathlib import Path
 
 import pytest
-from conftest import spectrum_csv, write_file
+from station_files import spectrum_csv, write_file
 
 from tui.cli import main
 

@@ -5,7 +5,7 @@ import threading
 import time
 from pathlib import Path
 
-from conftest import spectrum_csv, write_file
+from station_files import spectrum_csv, write_file
 
 from processing.station.pool import Job, JobOutcome, WorkerPool, describe_exit
 

@@ -13,7 +13,7 @@ import time
 from pathlib import Path
 
 import pytest
-from conftest import HERE, spectrum_csv, write_file
+from station_files import HERE, spectrum_csv, write_file
 
 from processing.station import ledger
 from processing.station.events import (

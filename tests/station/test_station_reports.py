@@ -6,7 +6,7 @@ import io
 import json
 from pathlib import Path
 
-from conftest import spectrum_csv, write_file
+from station_files import spectrum_csv, write_file
 
 from processing.pipeline import process_file
 from processing.station.reports import LINE_COLUMNS, lines_csv, report_folder, summary_markdown, write_reports

@@ -5,7 +5,7 @@ import time
 from pathlib import Path
 
 import pytest
-from conftest import spectrum_csv, write_file
+from station_files import spectrum_csv, write_file
 
 from processing.station import ledger
 from processing.station import station as station_module

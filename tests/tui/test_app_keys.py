@@ -16,7 +16,7 @@ from tui.screens.main_screen import MainScreen
 from tui.screens.modals import FlagReasonScreen, ReprocessScreen
 from tui.widgets.run_tables import LinesTable, RunList
 
-from conftest import quiet
+from tui_support import quiet
 
 SIZE = (80, 24)
 
@@ -221,7 +221,7 @@ async def test_help_lists_the_keys_and_closes(lab: dict[str, Path]) -> None:
 async def test_trend_screen_shows_the_band_origin_over_the_day(lab: dict[str, Path]) -> None:
     from processing.station.ledger import record_run
 
-    from conftest import hcl_result
+    from tui_support import hcl_result
 
     # An overtone run of the same isotopologue: its 2-0 origin must not join the 1-0 trend.
     overtone_path = str(lab["export"] / "hcl_overtone.csv")
@@ -267,7 +267,7 @@ async def test_export_writes_the_report_outside_the_export_folder(lab: dict[str,
 async def test_selection_follows_new_runs_only_from_the_newest(lab: dict[str, Path]) -> None:
     from processing.station.ledger import record_run
 
-    from conftest import hcl_result
+    from tui_support import hcl_result
 
     app = BandwatchApp(lab["data"], lab["export"], operator="tester")
     async with app.run_test(size=SIZE) as pilot:

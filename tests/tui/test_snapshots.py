@@ -16,7 +16,7 @@ import pytest
 from tui.app import BandwatchApp
 from tui.screens.main_screen import MainScreen
 
-from conftest import make_lab, quiet
+from tui_support import make_lab, quiet
 
 # The SVGs were drawn with these versions; another Textual or Rich draws other bytes, so the
 # comparison is only meaningful with them (the Pilot tests check behaviour on any version).
