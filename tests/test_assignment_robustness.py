@@ -228,3 +228,21 @@ def test_merged_chlorine_doublets_at_low_resolution_are_measured_as_doublets(res
     truth = _truth(sim)[("H35Cl", 1, 0)]
     assert abs(fit.origin.value - truth.origin_cm1) < min(5 * fit.origin.sigma + 0.002, 0.01 * resolution)
     assert any("unresolved" in note for note in analysis.assignment.notes)
+
+
+def test_operator_can_shift_a_branch_numbering_and_exclude_a_line() -> None:
+    # Redo settings from the interface: shift the H35Cl R branch's J'' by +1 and leave out one
+    # line. Shifting one branch by one J breaks the band model: the rms must grow by orders of
+    # magnitude and the note must say what was asked (J/m bookkeeping in levels.py).
+    sim = _simulate((SampleGas(("HCl",), 0.05),), seed=17)
+    plain = analyse(sim.spectrum, ProcessSettings())
+    good = _bands(plain)[("H35Cl", 1, 0)]
+    r3 = next(i for i, a in enumerate(plain.assignment.per_line) if a and a.isotopologue == "H35Cl" and a.branch == "R" and a.J_lower == 3)
+    position = float(plain.lines.position_cm1[r3])
+    shifted = analyse(sim.spectrum, ProcessSettings(j_offsets=(("H35Cl", 1, 0, "R", 1),)))
+    assert shifted.assignment.per_line[r3].J_lower == 4
+    assert _bands(shifted)[("H35Cl", 1, 0)].rms > 20 * good.rms
+    assert any("shifted by +1" in note for note in shifted.assignment.notes)
+    excluded = analyse(sim.spectrum, ProcessSettings(excluded_positions_cm1=(position,)))
+    assert excluded.assignment.per_line[r3] is None
+    assert _bands(excluded)[("H35Cl", 1, 0)].n_lines == good.n_lines - 1
