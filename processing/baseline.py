@@ -130,9 +130,10 @@ def estimate_baseline(
         if new_free.sum() < max(16, n // 20):
             break
         sigma = max(robust_noise_sigma(y[new_free]), floor)
-        if np.array_equal(new_free, free):
-            break
+        settled = np.count_nonzero(new_free != free) < 0.01 * n  # under 1% of points moved
         free = new_free
+        if settled:
+            break
     corrected = y - baseline
     good = np.isfinite(levels)
     if good.sum() >= 2:

@@ -57,15 +57,19 @@ class LinearFit:
 
 
 def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Parameters and unscaled covariance of the weighted problem (column-scaled for conditioning)."""
+    """Parameters and unscaled covariance of the weighted problem, from one SVD of the
+    column-scaled design (singular directions below 1e-12 of the largest are dropped)."""
     sqrt_w = np.sqrt(weights)
     a = design * sqrt_w[:, None]
     b = y * sqrt_w
     scale = np.linalg.norm(a, axis=0)
     scale[scale == 0] = 1.0
-    a_scaled = a / scale
-    params_scaled, *_ = np.linalg.lstsq(a_scaled, b, rcond=None)
-    normal_inverse = np.linalg.pinv(a_scaled.T @ a_scaled)
+    u, singular, vt = np.linalg.svd(a / scale, full_matrices=False)
+    keep = singular > 1e-12 * singular[0] if singular.size else singular.astype(bool)
+    inverse = np.zeros_like(singular)
+    inverse[keep] = 1.0 / singular[keep]
+    params_scaled = vt.T @ (inverse * (u.T @ b))
+    normal_inverse = (vt.T * inverse**2) @ vt
     params = params_scaled / scale
     covariance = normal_inverse / np.outer(scale, scale)
     return params, covariance
