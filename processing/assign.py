@@ -31,7 +31,7 @@ import numpy as np
 
 from processing.fit import BandFit, fit_band
 from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, m_from_branch
-from processing.lines import LineTable
+from processing.lines import LineTable, fit_sigma_factor
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
 H_D_PARTNERS = {"HF": "DF", "DF": "HF", "HCl": "DCl", "DCl": "HCl", "HBr": "DBr", "DBr": "HBr", "HI": "DI", "DI": "HI"}
@@ -308,7 +308,7 @@ def _fit_band_lines(
     branch, J_lower = branch_from_m(m)
     idx = np.array([c.line for c in claims])
     sigma = lines.position_sigma_cm1[idx].copy()
-    inflate = np.where(lines.saturated[idx], 3.0, 1.0) * np.where(np.isin(idx, list(blended)), 5.0, 1.0)
+    inflate = fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)))
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
@@ -661,7 +661,6 @@ def assign_lines(
     for claim in winners.values():
         counts[claim.band] = counts.get(claim.band, 0) + 1
     winners = {line: c for line, c in winners.items() if counts.get(c.band, 0) >= (4 if bands[c.band].fit else MIN_BAND_LINES)}
-    kept_bands = sorted({c.band for c in winners.values()})
 
     assignment: dict[int, tuple[_Band, int]] = {line: (bands[c.band], c.m) for line, c in winners.items()}
     if settings.pattern_route:
@@ -684,7 +683,7 @@ def assign_lines(
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    result = _finish(lines, assignment, blended, shifts, notes, [bands[i] for i in kept_bands], measure_doublet)
+    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet)
     if settings.species:
         found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
         missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
@@ -710,7 +709,6 @@ def _finish(
     blended: set[int],
     shifts: dict[str, float],
     notes: list[str],
-    library_bands: list[_Band],
     measure_doublet: DoubletMeasure | None = None,
 ) -> AssignmentResult:
     """Final fit per band, per-line results with confidence, likely causes for the rest."""
@@ -728,7 +726,7 @@ def _finish(
         branch, J_lower = branch_from_m(m)
         idx = np.array(members)
         pull = band.pull_of(m)
-        sigma = lines.position_sigma_cm1[idx] * np.where(lines.saturated[idx], 3.0, 1.0) * np.where(np.isin(idx, list(blended)) | (pull != 0), 5.0, 1.0)
+        sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)) | (pull != 0))
         if measure_doublet is not None:
             for k, m_k in enumerate(m.tolist()):
                 if m_k in band.partner:
@@ -737,7 +735,7 @@ def _finish(
                     if measured is not None:
                         # the feature sits `pull` from the line: measured from the doublet fit
                         pull[k] = float(lines.position_cm1[idx[k]] - measured[0])
-                        sigma[k] = measured[1] * (3.0 if lines.saturated[idx[k]] else 1.0)
+                        sigma[k] = measured[1] * float(fit_sigma_factor(lines.saturated[idx[k]], False))
         fit: BandFit | None = None
         if idx.size >= 4:
             try:

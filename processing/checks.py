@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from processing.errors import ConfigError
+from processing.errors import ConfigError, UnknownSpeciesError
 
 STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}
 
@@ -149,7 +149,7 @@ def _reference_origin(library: Any, label: str, v_upper: int, v_lower: int) -> t
 
     try:
         iso = library.isotopologue(label)
-    except Exception:  # noqa: BLE001 - an unidentified band has no library entry
+    except UnknownSpeciesError:  # an unidentified band has no library entry
         return None
     uncertainty = 0.02 if (3, 0) in iso.dunham else 0.3
     if iso.derived_from:

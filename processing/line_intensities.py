@@ -26,6 +26,9 @@ from processing.estimate import Estimate
 from processing.linear_fit import weighted_least_squares
 from processing.physical_constants import C2_CM_K
 
+# measured/natural isotopologue ratio above which lines count as optically thin
+THIN_LIMIT = 0.9
+
 
 @dataclass(frozen=True)
 class RotationalTemperature:
@@ -316,5 +319,3 @@ def hydrogen_fractions(lines: Any, assignment: Any, library: Any, temperature_K:
                                     f"{main_h} against {main_d[0]}: line heights over library line strengths (approximate band strengths; thin lines)"))
     return out
 
-
-THIN_LIMIT = 0.9

@@ -73,6 +73,16 @@ class LineTable:
         )
 
 
+SATURATED_WEIGHT_FACTOR = 3.0  # a flat or black top locates its centre less well
+BLENDED_WEIGHT_FACTOR = 5.0  # a line sharing its profile with a neighbour
+
+
+def fit_sigma_factor(saturated: np.ndarray | bool, blended: np.ndarray | bool) -> np.ndarray:
+    """How much a line's position uncertainty is widened when it enters a fit (the one rule
+    used by band fits, term-value fits and the assignment)."""
+    return np.where(saturated, SATURATED_WEIGHT_FACTOR, 1.0) * np.where(blended, BLENDED_WEIGHT_FACTOR, 1.0)
+
+
 def _gather(values: np.ndarray, centres: np.ndarray, half: int) -> tuple[np.ndarray, np.ndarray]:
     """values[centre-half .. centre+half] for each centre (clipped at the ends) and the indices."""
     offsets = np.arange(-half, half + 1)

@@ -24,6 +24,7 @@ import numpy as np
 from processing.dunham_fit import AssignedLines, TermFit, fit_terms, propagate
 from processing.estimate import Estimate
 from processing.levels import upper_J
+from processing.lines import fit_sigma_factor
 from processing.species import equilibrium_bond_length_sigma_angstrom
 from processing.physical_constants import (
     CM1_TO_EV,
@@ -156,7 +157,7 @@ def assigned_lines_from(analysis: Any, library: Any) -> AssignedLines:
             continue
         if (assigned.isotopologue, assigned.v_upper, assigned.v_lower) not in fits:
             continue
-        sigma = float(lines.position_sigma_cm1[i]) * (3.0 if lines.saturated[i] else 1.0) * (5.0 if assigned.blended else 1.0)
+        sigma = float(lines.position_sigma_cm1[i] * fit_sigma_factor(lines.saturated[i], assigned.blended))
         # an unresolved partner's pull was removed in the band fit: use the same corrected position
         observed = float(lines.position_cm1[i]) - assigned.blend_pull
         rows.append((assigned.isotopologue, masses[assigned.isotopologue], assigned.v_upper, assigned.v_lower,
