@@ -1,5 +1,7 @@
 """Run checks: is this scan good enough to keep? Each check says pass, warn or fail with a
-one-line reason and the number behind it; the verdict is the worst of them.
+one-line reason and the number behind it, or `not_assessed` when the data cannot answer it (a
+line list has no noise to measure; thick lines give no temperature); the verdict is the worst
+of the checks that were made.
 
 Thresholds live in `CheckThresholds` (defaults below, each with its reason); the station
 configuration's [checks] table overrides any of them by name.
@@ -15,6 +17,7 @@ import numpy as np
 from processing.errors import ConfigError, UnknownSpeciesError
 
 STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}
+NOT_ASSESSED = "not_assessed"  # the check could not be made; ignored by the verdict
 
 
 @dataclass(frozen=True)
@@ -68,7 +71,7 @@ class CheckThresholds:
 @dataclass(frozen=True)
 class Check:
     name: str
-    status: str  # "pass" | "warn" | "fail"
+    status: str  # "pass" | "warn" | "fail" | "not_assessed"
     detail: str
     value: float | None = None
 
@@ -83,14 +86,16 @@ def _grade(value: float, good: float, fair: float, higher_is_better: bool = True
 
 
 def verdict_of(checks: list[Check]) -> str:
-    return max((c.status for c in checks), key=STATUS_ORDER.__getitem__, default="pass")
+    """The worst status among the checks that were made (a check not assessed counts for nothing)."""
+    made = [c.status for c in checks if c.status != NOT_ASSESSED]
+    return max(made, key=STATUS_ORDER.__getitem__, default="pass")
 
 
 # ----------------------------------------------------------------------------- the checks
 def check_signal_to_noise(analysis: Any, t: CheckThresholds) -> Check:
     lines = analysis.lines
     if analysis.baseline is None:
-        return Check("signal_to_noise", "pass", "line list: no spectrum to measure noise on", None)
+        return Check("signal_to_noise", NOT_ASSESSED, "line list: no spectrum to measure noise on", None)
     sigma = analysis.baseline.noise_sigma
     if lines.count == 0:
         return Check("signal_to_noise", "fail", f"no absorption line above 5x the noise (noise sigma {sigma:.2g} A)", 0.0)
@@ -105,7 +110,7 @@ def check_saturation(analysis: Any, intensities: Any, t: CheckThresholds) -> Che
     lines = analysis.lines
     assigned = np.array([a is not None for a in analysis.assignment.per_line], dtype=bool)
     if analysis.baseline is None:
-        return Check("saturation", "pass", "line list: saturation not assessable", None)
+        return Check("saturation", NOT_ASSESSED, "line list: saturation cannot be judged without the spectrum", None)
     peak = float(np.max(analysis.data.absorbance))
     saturated = int((lines.saturated & assigned).sum()) if lines.count else 0
     n_assigned = int(assigned.sum())
@@ -134,7 +139,7 @@ def check_fit_rms(analysis: Any, t: CheckThresholds) -> Check:
     width = analysis.lines.typical_width_cm1
     if not (width and np.isfinite(width)):
         worst = max(bands, key=lambda b: b.rms)
-        return Check("fit_rms", "pass", f"worst band {worst.label}: rms {worst.rms:.4f} cm-1 (no line width to compare: line list)", worst.rms)
+        return Check("fit_rms", NOT_ASSESSED, f"worst band {worst.label}: rms {worst.rms:.4f} cm-1 (no line width to compare: line list)", worst.rms)
     worst = max(bands, key=lambda b: b.rms / width)
     fraction = worst.rms / width
     return Check("fit_rms", _grade(fraction, t.rms_width_pass, t.rms_width_warn, higher_is_better=False),
@@ -169,7 +174,7 @@ def check_calibration(analysis: Any, library: Any, t: CheckThresholds) -> Check:
         sigma = math.hypot(fit.origin.sigma or 0.0, uncertainty)
         offsets.append((fit.origin.value - origin, sigma, fit.label, uncertainty))
     if not offsets:
-        return Check("calibration", "pass", "no library band to compare with", None)
+        return Check("calibration", NOT_ASSESSED, "no library band to compare with", None)
     weights = np.array([1 / s**2 for _, s, _, _ in offsets])
     values = np.array([o for o, _, _, _ in offsets])
     mean = float(np.sum(weights * values) / weights.sum())
@@ -251,14 +256,14 @@ def _hd_partners(a: str, b: str) -> bool:
 
 def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
     if intensities is None or not intensities.temperatures:
-        return Check("temperature", "pass", "not assessed: too few clean lines for a Boltzmann plot", None)
+        return Check("temperature", NOT_ASSESSED, "not assessed: too few clean lines for a Boltzmann plot", None)
     best = min(intensities.temperatures, key=lambda r: r.temperature.sigma or np.inf)
     T = best.temperature.value
     sigma = best.temperature.sigma or 0.0
     if intensities.optically_thin is False:
-        return Check("temperature", "pass", f"not assessed: line centres optically thick (isotopologue ratio at {intensities.thinness:.2f} of natural); the Boltzmann plot gives {T:.0f} K, biased high", None)
+        return Check("temperature", NOT_ASSESSED, f"not assessed: line centres optically thick (isotopologue ratio at {intensities.thinness:.2f} of natural); the Boltzmann plot gives {T:.0f} K, biased high", None)
     if intensities.optically_thin is None:
-        return Check("temperature", "pass", f"not assessed: optical depth cannot be verified without a 35/37-like isotopologue pair (Boltzmann plot: {T:.0f} +- {sigma:.0f} K, an upper bound if lines are thick)", None)
+        return Check("temperature", NOT_ASSESSED, f"not assessed: optical depth cannot be verified without a 35/37-like isotopologue pair (Boltzmann plot: {T:.0f} +- {sigma:.0f} K, an upper bound if lines are thick)", None)
     inside = t.temperature_min_K - 2 * sigma <= T <= t.temperature_max_K + 2 * sigma
     return Check("temperature", "pass" if inside else "warn",
                  f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower}", T)
@@ -267,7 +272,7 @@ def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
 def check_baseline(analysis: Any, t: CheckThresholds) -> Check:
     baseline = analysis.baseline
     if baseline is None:
-        return Check("baseline", "pass", "line list: no baseline", None)
+        return Check("baseline", NOT_ASSESSED, "line list: no baseline", None)
     problems = []
     if abs(baseline.offset_median) > t.baseline_offset_warn:
         problems.append(f"baseline at {baseline.offset_median:+.3f} A where nothing absorbs (background mismatch?)")

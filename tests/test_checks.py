@@ -98,3 +98,17 @@ def test_window_fringes_are_found_with_their_period() -> None:
     assert "period 0.82 cm-1" in checks["baseline"]["detail"]
     _, clean = _checks("0905_hcl_cell.jdx")
     assert clean["baseline"]["status"] == "pass"
+
+
+def test_a_check_not_made_is_not_a_pass_and_does_not_set_the_verdict() -> None:
+    made_and_not = [Check("a", "warn", ""), Check("b", "not_assessed", "not assessed: thick lines")]
+    assert verdict_of(made_and_not) == "warn"
+    assert verdict_of([Check("a", "pass", ""), Check("b", "not_assessed", "")]) == "pass"
+
+
+def test_a_peak_table_says_which_checks_it_cannot_answer() -> None:
+    # A line list carries no noise, baseline or line shape: those checks are not made.
+    verdict, checks = _checks("0906_hcl_cell_peaks.jdx")
+    for name in ("signal_to_noise", "saturation", "baseline"):
+        assert checks[name]["status"] == "not_assessed", checks[name]
+    assert verdict in ("pass", "warn", "fail")

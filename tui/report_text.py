@@ -169,7 +169,7 @@ def render_constants(result: RunResult) -> list[str]:
 def render_checks(result: RunResult) -> list[str]:
     if not result.checks:
         return []
-    rows = [[c["status"].upper(), c["name"], c["detail"]] for c in result.checks]
+    rows = [[c["status"].replace("_", " ").upper(), c["name"], c["detail"]] for c in result.checks]
     return [table(["status", "check", "reason"], rows), f"   verdict: {str(result.verdict).upper()}"]
 
 

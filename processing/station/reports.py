@@ -155,7 +155,7 @@ def summary_markdown(result: dict[str, Any], run_id: int, version: int) -> str:
             name = check.get("name") or check.get("check") or "check"
             status = check.get("status") or check.get("result") or check.get("verdict") or ""
             detail = check.get("message") or check.get("detail") or ""
-            out.append(f"- {name}: {status} {detail}".rstrip())
+            out.append(f"- {name}: {str(status).replace('_', ' ')} {detail}".rstrip())
     return "\n".join(out) + "\n"
 
 

@@ -31,6 +31,7 @@ CHECK_LABELS: dict[str, tuple[str, str]] = {
     "pass": ("✔ pass", "green"),
     "warn": ("! WARN", "yellow"),
     "fail": ("✘ FAIL", "bold red"),
+    "not_assessed": ("– n/a", "dim"),  # the check could not be made (not a pass)
 }
 
 
