@@ -6,8 +6,9 @@ levels are joined linearly; points more than 3 noise sigma above (lines) or belo
 emission-like artefacts) the baseline are flagged and the estimate repeated. Vectorised over
 blocks: a 1M-point spectrum costs a few tens of milliseconds.
 
-Noise: sigma = 1.4826 x median(|d - median(d)|) / sqrt(2), d = first differences of the
-line-free points (white noise has var(d) = 2 sigma^2; the MAD makes it robust to lines).
+Noise: the per-point sigma of the line-free residual itself, clipped at 3 sigma and made
+self-consistent with the line flags; its correlation and the file's rounding grid are measured
+too (`processing.noise`).
 """
 from __future__ import annotations
 
@@ -15,6 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from processing.noise import NoiseEstimate, clipped_sigma, estimate_noise, lagged_sigma, quantization_step
 from processing.spectrum import Spectrum
 
 # Absorbance above which a line top is no longer usable for intensities: T < ~3% (common practice).
@@ -33,16 +35,23 @@ class SaturatedRegion:
 class BaselineResult:
     baseline: np.ndarray  # absorbance of the baseline at every point
     corrected: np.ndarray  # absorbance - baseline
-    noise_sigma: float  # absorbance units, from line-free regions
+    noise_sigma: float  # per-point standard deviation, absorbance units, from line-free regions
     line_free: np.ndarray  # bool mask of points used for the baseline
     offset_median: float  # median baseline absorbance (a large value means a poor background)
     tilt_per_1000_cm1: float  # baseline slope
     saturated_regions: tuple[SaturatedRegion, ...]
     usable_absorbance: float
+    noise: NoiseEstimate | None = None  # correlation, rounding grid, measurability
 
     def to_dict(self) -> dict[str, object]:
+        noise = self.noise
         return {
             "noise_sigma": self.noise_sigma,
+            "noise_correlation_points": noise.correlation_points if noise else None,
+            "quantization_step": noise.quantization_step if noise else None,
+            "quantization_floor": noise.quantization_floor if noise else None,
+            "noise_measurable": noise.measurable if noise else None,
+            "noise_description": noise.description if noise else None,
             "offset_median": self.offset_median,
             "tilt_per_1000_cm1": self.tilt_per_1000_cm1,
             "line_free_fraction": float(self.line_free.mean()),
@@ -54,16 +63,26 @@ class BaselineResult:
         }
 
 
-def robust_noise_sigma(values: np.ndarray, max_samples: int = 20_000) -> float:
-    """White-noise sigma from first differences (MAD-based); at most `max_samples` evenly
-    spread differences are used (the MAD of 2e4 values is good to ~1%)."""
-    if values.size < 8:
-        return 0.0
-    d = np.diff(values)
-    if d.size > max_samples:
-        d = d[:: d.size // max_samples]
-    centred = np.abs(d - np.median(d))
-    return float(1.4826 * np.median(centred) / np.sqrt(2.0))
+def original_values(spectrum: Spectrum, index: np.ndarray) -> np.ndarray:
+    """The y values at `index` as the file held them (absorbance, T or %T), for spotting a
+    rounding grid."""
+    absorbance = spectrum.absorbance[index]
+    if spectrum.original_y_kind == "absorbance":
+        return absorbance
+    transmittance = np.power(10.0, -absorbance)
+    return transmittance * 100.0 if spectrum.original_y_kind == "percent_transmittance" else transmittance
+
+
+def rounding_floor_absorbance(step: float | None, y_kind: str, baseline_absorbance: float) -> float | None:
+    """The noise a rounding grid of `step` (file units) alone puts on absorbance at the
+    baseline: step / sqrt(12), through dA = dT / (T ln 10) for transmittance files."""
+    if step is None:
+        return None
+    floor = step / np.sqrt(12.0)
+    if y_kind == "absorbance":
+        return float(floor)
+    fraction = floor / 100.0 if y_kind == "percent_transmittance" else floor
+    return float(fraction / (np.power(10.0, -baseline_absorbance) * np.log(10.0)))
 
 
 def _block_levels(y: np.ndarray, free: np.ndarray, block: int) -> tuple[np.ndarray, np.ndarray]:
@@ -99,7 +118,7 @@ def estimate_baseline(
     spectrum: Spectrum,
     block_cm1: float | None = None,
     usable_absorbance: float = DEFAULT_USABLE_ABSORBANCE,
-    iterations: int = 4,
+    iterations: int = 6,
 ) -> BaselineResult:
     """Baseline, noise and saturated regions of `spectrum` (see module docstring)."""
     x = spectrum.wavenumber_cm1
@@ -110,7 +129,7 @@ def estimate_baseline(
         block_cm1 = 12.0  # a few CO line spacings; wide enough that a block is mostly line-free
     block = int(min(np.clip(round(block_cm1 / spacing), 16, max(16, n // 4)), n))
     free = ~spectrum.saturated
-    sigma = robust_noise_sigma(y[free]) if free.any() else 0.0
+    sigma = lagged_sigma(y[free]) if free.any() else 0.0
     floor = 1e-9 * max(1.0, float(np.max(np.abs(y))))
     overall = float(np.median(y[:: max(1, n // 100_000)]))
     baseline = np.full(n, overall)
@@ -122,16 +141,13 @@ def estimate_baseline(
         residual = y - baseline
         threshold = 3.0 * max(sigma, floor)
         new_free = (np.abs(residual) <= threshold) & ~spectrum.saturated
-        # grow line flags by a few points so line wings do not lift the baseline
-        grow = 3
-        flagged = ~new_free
-        if flagged.any():
-            new_free = np.convolve(flagged.astype(np.float32), np.ones(2 * grow + 1, np.float32), mode="same") < 0.5
+        new_free = ~grow_flags(~new_free) & ~spectrum.saturated
         if new_free.sum() < max(16, n // 20):
             break
-        sigma = max(robust_noise_sigma(y[new_free]), floor)
-        settled = np.count_nonzero(new_free != free) < 0.01 * n  # under 1% of points moved
-        free = new_free
+        new_sigma = max(clipped_sigma(residual[new_free], sigma), floor)
+        # settled: under 1% of points changed flag and sigma within 2%
+        settled = np.count_nonzero(new_free != free) < 0.01 * n and abs(new_sigma - sigma) <= 0.02 * new_sigma
+        free, sigma = new_free, new_sigma
         if settled:
             break
     corrected = y - baseline
@@ -141,17 +157,42 @@ def estimate_baseline(
         tilt = float(np.polyfit(centre_x, levels[good], 1)[0] * 1000.0)
     else:
         tilt = 0.0
+    offset = float(np.nanmedian(levels)) if np.isfinite(levels).any() else overall
+    # the grid is seen best over every point (a noise-free baseline may hold one value only)
+    step = quantization_step(original_values(spectrum, np.arange(0, n, max(1, n // 20_000))))
+    floor_rounding = rounding_floor_absorbance(step, spectrum.original_y_kind, offset)
+    stated = (spectrum.meta.apodization, spectrum.meta.resolution_cm1, spacing)
+    noise = estimate_noise(corrected, free, sigma, step, floor_rounding, block, stated)
+    sigma = noise.sigma
     regions = find_saturated_regions(spectrum, corrected, sigma, usable_absorbance)
     return BaselineResult(
         baseline=baseline,
         corrected=corrected,
         noise_sigma=float(sigma),
         line_free=free,
-        offset_median=float(np.nanmedian(levels)) if np.isfinite(levels).any() else overall,
+        offset_median=offset,
         tilt_per_1000_cm1=tilt,
         saturated_regions=regions,
         usable_absorbance=usable_absorbance,
+        noise=noise,
     )
+
+
+def grow_flags(flagged: np.ndarray, minimum: int = 3, fraction: float = 0.75) -> np.ndarray:
+    """Widen each run of flagged points by `fraction` of its own length (at least `minimum`
+    points) on both sides, so a line's wings and first sidelobes, which stay under the flag
+    threshold but are not noise, lift neither the baseline nor the noise estimate."""
+    if not flagged.any():
+        return flagged.copy()
+    n = flagged.size
+    edges = np.diff(np.concatenate([[0], flagged.astype(np.int8), [0]]))
+    starts = np.flatnonzero(edges == 1)
+    stops = np.flatnonzero(edges == -1)
+    grow = np.maximum(minimum, np.rint(fraction * (stops - starts))).astype(np.int64)
+    events = np.zeros(n + 1, dtype=np.int64)
+    np.add.at(events, np.clip(starts - grow, 0, n), 1)
+    np.add.at(events, np.clip(stops + grow, 0, n), -1)
+    return np.cumsum(events[:n]) > 0
 
 
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:

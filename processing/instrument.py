@@ -22,50 +22,9 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
-APODIZATIONS: tuple[str, ...] = (
-    "boxcar",
-    "triangular",
-    "happ-genzel",
-    "blackman-harris-3",
-    "norton-beer-weak",
-    "norton-beer-medium",
-    "norton-beer-strong",
-)
+from processing.apodization import APODIZATIONS, apodization_window
 
-# Norton-Beer windows: sum_i c_i (1 - u^2)^i, u = x/L (Norton & Beer 1976, coefficients
-# recalled from memory; each set sums to 1 so the window is 1 at zero path difference).
-_NORTON_BEER: dict[str, tuple[float, ...]] = {
-    "norton-beer-weak": (0.384093, -0.087577, 0.703484),
-    "norton-beer-medium": (0.152442, -0.136176, 0.983734),
-    "norton-beer-strong": (0.045335, 0.0, 0.554883, 0.0, 0.399782),
-}
-
-# Minimum 3-term Blackman-Harris (Harris 1978), one-sided over 0 <= u <= 1.
-_BLACKMAN_HARRIS_3 = (0.42323, 0.49755, 0.07922)
-
-
-def apodization_window(name: str, u: np.ndarray) -> np.ndarray:
-    """Window value at relative path difference u = |x|/L (0 for |u| > 1)."""
-    u = np.abs(np.asarray(u, dtype=np.float64))
-    inside = u <= 1.0
-    if name == "boxcar":
-        w = np.ones_like(u)
-    elif name == "triangular":
-        w = 1.0 - u
-    elif name == "happ-genzel":
-        w = 0.54 + 0.46 * np.cos(np.pi * u)
-    elif name == "blackman-harris-3":
-        a0, a1, a2 = _BLACKMAN_HARRIS_3
-        w = a0 + a1 * np.cos(np.pi * u) + a2 * np.cos(2.0 * np.pi * u)
-    elif name in _NORTON_BEER:
-        q = np.clip(1.0 - u * u, 0.0, None)
-        w = np.zeros_like(u)
-        for power, coefficient in enumerate(_NORTON_BEER[name]):
-            if coefficient:
-                w = w + coefficient * q**power
-    else:
-        raise ValueError(f"unknown apodization {name!r}; choose one of {', '.join(APODIZATIONS)}")
-    return np.where(inside, w, 0.0)
+NOISE_DOMAINS: tuple[str, ...] = ("interferogram", "points")
 
 
 def instrument_line_shape(name: str, opd_max_cm: float, offset_cm1: np.ndarray) -> np.ndarray:
@@ -126,9 +85,12 @@ class Instrument:
 
     resolution_cm1: R = 1/L (L = max OPD), see module docstring.
     zero_fill: output spacing = 1/(2 L zero_fill); an integer >= 1.
-    snr: signal-to-noise ratio of the 100% line: Gaussian noise of standard deviation 1/snr
-        (in transmittance units, independent per output point) is added to the transmittance.
-        None = no noise.
+    snr: signal-to-noise ratio of the 100% line: Gaussian noise of standard deviation 1/snr per
+        output point (transmittance units) is added to the transmittance. None = no noise.
+    noise_domain: where the noise is made. "interferogram" (default; what an FTIR does): white
+        noise on the interferogram samples |x| <= L, apodized with the same window and
+        zero-filled with the spectrum, so neighbouring output points are correlated exactly as
+        the apodization and zero filling make them. "points": independent per output point.
     baseline_offset / baseline_tilt: a smooth decadic absorbance added to the output,
         offset + tilt * (nu - centre) / (half width of the range).
     calibration_shift_cm1 / calibration_scale: the instrument's axis error: a feature at true
@@ -141,6 +103,7 @@ class Instrument:
     first_cm1: float = 2600.0
     last_cm1: float = 3100.0
     snr: float | None = 1000.0
+    noise_domain: str = "interferogram"
     baseline_offset: float = 0.0
     baseline_tilt: float = 0.0
     fringes: Fringes | None = None
@@ -161,6 +124,8 @@ class Instrument:
             raise ValueError(f"range must satisfy 0 < first < last, got {self.first_cm1}:{self.last_cm1}")
         if self.snr is not None and not self.snr > 0:
             raise ValueError(f"SNR must be positive, got {self.snr}")
+        if self.noise_domain not in NOISE_DOMAINS:
+            raise ValueError(f"unknown noise domain {self.noise_domain!r}; choose one of {', '.join(NOISE_DOMAINS)}")
         if not self.calibration_scale > 0:
             raise ValueError(f"calibration scale must be positive, got {self.calibration_scale}")
 
@@ -275,3 +240,54 @@ def apply_line_shape(
         kept[last] *= 0.5
     depth_out = scipy.fft.irfft(kept, n=n_out, workers=workers) * (n_out / n_fine)
     return 1.0 - depth_out
+
+
+def _noise_filter(instrument: Instrument, points: int) -> tuple[int, np.ndarray]:
+    """FFT length and the amplitude of each kept interferogram bin for noise made on the
+    output grid: bin q has path difference q / (n spacing); bins with |x| <= L carry the
+    apodization window, the rest (zero filling) nothing."""
+    n = _smooth_size(max(points, 2))
+    opd = np.arange(n // 2 + 1) / (n * instrument.spacing_cm1)
+    return n, apodization_window(instrument.apodization, opd / instrument.opd_max_cm)
+
+
+def _filter_power(window: np.ndarray, n: int) -> tuple[float, float]:
+    """(sum of the squared window over the Hermitian spectrum, squared window at x = 0)."""
+    power = window**2
+    total = power[0] + 2.0 * power[1:].sum()
+    if n % 2 == 0:  # the Nyquist bin is its own mirror
+        total -= power[-1]
+    return float(total), float(power[0])
+
+
+def noise_correlation_points(instrument: Instrument) -> float:
+    """Integrated autocorrelation of the instrument's noise in output points,
+    tau = sum over all lags of rho(k): how many output points one independent sample spans.
+    1 for independent points; zero_fill / mean(window^2) for interferogram noise (boxcar: the
+    zero-fill factor; Happ-Genzel: ~2.5 x the zero-fill factor), calc."""
+    if instrument.noise_domain == "points":
+        return 1.0
+    n, window = _noise_filter(instrument, 1 << 16)
+    total, at_zero = _filter_power(window, n)
+    return n * at_zero / total
+
+
+def instrument_noise(instrument: Instrument, points: int, rng: np.random.Generator) -> np.ndarray:
+    """Zero-mean Gaussian noise for `points` output points with standard deviation 1/snr per
+    point (in expectation), made in the instrument's noise domain (see `Instrument`)."""
+    if instrument.snr is None:
+        return np.zeros(points)
+    sigma = 1.0 / instrument.snr
+    if instrument.noise_domain == "points":
+        return rng.normal(0.0, sigma, points)
+    # White complex noise on every interferogram bin, shaped by the window; the circular
+    # series is stationary, so its first `points` values have the right statistics.
+    n, window = _noise_filter(instrument, points)
+    white = rng.normal(0.0, 1.0, window.size) + 1j * rng.normal(0.0, 1.0, window.size)
+    white[0] = white[0].real * np.sqrt(2.0)
+    if n % 2 == 0:
+        white[-1] = white[-1].real * np.sqrt(2.0)
+    total, _ = _filter_power(window, n)
+    # var(irfft) per point = 2 * total / n^2 for unit-variance real and imaginary parts
+    scale = sigma * n / np.sqrt(2.0 * total)
+    return scipy.fft.irfft(white * window, n=n)[:points] * scale

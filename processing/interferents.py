@@ -5,8 +5,15 @@
   rounded CO2-like numbers; the band strength is invented to give a realistic-looking amount
   of absorption for room air in an unpurged beam path.
 - "water": water-vapour-like lines: a seeded, fixed set of narrow lines scattered over
-  1300-2000 and 3450-4000 cm-1 with random strengths. Invented; not real water data. The line
-  set is the same in every run (a fixed model seed), like real water always is.
+  1300-2000 and 3450-4000 cm-1 with random strengths and lower-state energies. Invented; not
+  real water data. The line set is the same in every run (a fixed model seed), like real water
+  always is. Strengths are given at 296 K and scale with temperature through the lower-state
+  energy, so the same vapour at two temperatures differs line by line in either direction.
+
+An interferent can sit in the beam when the sample is measured (absorption lines) or when the
+background was measured (`in_background`): the ratio of the two then shows its lines
+inverted, as negative absorbance. Both together leave the residue lines of either sign that
+real purged benches show.
 
 Line lists come back as `InterferentLines` (positions in cm-1, strengths in cm/molecule).
 """
@@ -35,6 +42,8 @@ WATER_LIKE_MODEL_SEED = 20261202
 WATER_LIKE_REGIONS_CM1: tuple[tuple[float, float, int], ...] = ((1300.0, 2000.0, 260), (3450.0, 4000.0, 220))
 WATER_LIKE_STRENGTH_RANGE = (1.0e-23, 3.0e-19)  # cm/molecule, log-uniform (invented)
 WATER_LIKE_MASS_U = 18.0
+WATER_LIKE_LOWER_ENERGY_CM1 = (0.0, 1500.0)  # uniform (invented)
+WATER_LIKE_REFERENCE_K = 296.0  # strengths are given at this temperature
 WATER_LIKE_BROADENING_HWHM_CM1_PER_ATM = 0.09
 
 
@@ -50,6 +59,7 @@ class Interferent:
     path_length_cm: float
     temperature_K: float = 296.0
     air_pressure_atm: float = 1.0
+    in_background: bool = False  # in the beam for the background measurement, not the sample
 
     def __post_init__(self) -> None:
         if self.kind not in INTERFERENT_KINDS:
@@ -108,8 +118,11 @@ def co2_like_lines(temperature_K: float) -> InterferentLines:
     )
 
 
-def water_like_lines() -> InterferentLines:
-    """The fixed seeded set of water-like lines (independent of the run's seed)."""
+def water_like_lines(temperature_K: float = WATER_LIKE_REFERENCE_K) -> InterferentLines:
+    """The fixed seeded set of water-like lines (independent of the run's seed) at
+    `temperature_K`: S(T) = S(296 K) (296/T)^1.5 exp(-c2 E'' (1/T - 1/296)), a rigid
+    nonlinear rotor's partition function (T^1.5) and the Boltzmann factor of each line's
+    invented lower-state energy E''."""
     rng = np.random.default_rng(WATER_LIKE_MODEL_SEED)
     low, high = np.log10(WATER_LIKE_STRENGTH_RANGE[0]), np.log10(WATER_LIKE_STRENGTH_RANGE[1])
     positions, strengths = [], []
@@ -119,6 +132,11 @@ def water_like_lines() -> InterferentLines:
         strengths.append(10.0 ** (low + (high - low) * rng.uniform(0.0, 1.0, count) ** 2))
     position = np.concatenate(positions)
     strength = np.concatenate(strengths)
+    # drawn from their own stream so the positions and 296 K strengths above never change
+    lower_energy = np.random.default_rng(WATER_LIKE_MODEL_SEED + 1).uniform(*WATER_LIKE_LOWER_ENERGY_CM1, position.size)
+    if temperature_K != WATER_LIKE_REFERENCE_K:
+        strength = strength * (WATER_LIKE_REFERENCE_K / temperature_K) ** 1.5 * np.exp(
+            -C2_CM_K * lower_energy * (1.0 / temperature_K - 1.0 / WATER_LIKE_REFERENCE_K))
     order = np.argsort(position, kind="stable")
     return InterferentLines(
         kind="water",
@@ -135,4 +153,27 @@ def interferent_lines(interferent: Interferent) -> InterferentLines:
     """The line list of an interferent's model at its temperature."""
     if interferent.kind == "co2":
         return co2_like_lines(interferent.temperature_K)
-    return water_like_lines()
+    return water_like_lines(interferent.temperature_K)
+
+
+def parse_interferent(text: str, in_background: bool = False) -> Interferent:
+    """`KIND[:PRESSURE_ATM[:TEMPERATURE_K]]` (e.g. `water`, `water:0.006:303`) -> Interferent;
+    the defaults are the room-air values of DEFAULT_INTERFERENTS. ValueError on bad input."""
+    from dataclasses import replace
+
+    parts = [p.strip() for p in text.split(":")]
+    kind = parts[0].lower()
+    if kind not in DEFAULT_INTERFERENTS:
+        raise ValueError(f"unknown interferent {kind!r}; choose from {', '.join(INTERFERENT_KINDS)}")
+    if len(parts) > 3:
+        raise ValueError(f"interferent {text!r} is not KIND[:PRESSURE_ATM[:TEMPERATURE_K]]")
+    try:
+        numbers = [float(p) for p in parts[1:]]
+    except ValueError:
+        raise ValueError(f"interferent {text!r}: pressure and temperature must be numbers") from None
+    interferent = replace(DEFAULT_INTERFERENTS[kind], in_background=in_background)
+    if numbers:
+        interferent = replace(interferent, partial_pressure_atm=numbers[0])
+    if len(numbers) > 1:
+        interferent = replace(interferent, temperature_K=numbers[1])
+    return interferent

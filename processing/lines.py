@@ -4,22 +4,32 @@ Peaks: local maxima above `threshold_sigma` x noise that are the highest point w
 line width and rise that far above the lowest points within 1.5 widths on both sides. Only
 points above threshold are examined, so the cost does not grow with noise.
 
+The threshold is `threshold_sigma` x the per-point noise, raised where the spectrum holds so
+many independent noise samples that one would pass it by chance (fewer than 0.05 expected
+per spectrum, counting one sample per noise correlation length, `processing.noise`).
+
 Profiles: lines here are far narrower than the instrument resolution, so each observed shape
 is the instrument line shape. Its core is fitted with a Gaussian (height, centre, FWHM) over
 the points within ~0.6 FWHM of the top, by batched Gauss-Newton over all lines at once. A
 symmetric model on a symmetric shape gives an unbiased centre whatever the apodization.
 Neighbours are handled by refitting each line after subtracting the fitted neighbours
-(blends such as 35/37 doublets). The centre's standard error is the fit covariance times the
-larger of the noise sigma and the fit's own residual rms, with a floor of 1% of the point
-spacing (sampling of the shape).
+(blends such as 35/37 doublets). The centre's standard error propagates the noise through the
+fit with the noise's measured point-to-point correlation (apodized, zero-filled noise is
+correlated over several points, so counting points as independent would understate it), scaled
+by the larger of the local noise sigma and the fit's own residual rms. A fit needs at least 4
+points for its 3 parameters; a line drawn on fewer (coarse grids) keeps its fitted or
+parabola centre with the conservative FWHM / (SNR x sqrt(N_eff)) as its uncertainty, N_eff the
+independent noise samples across its FWHM, and is marked `few_points`.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from processing.baseline import BaselineResult
+from processing.noise import NoiseEstimate, white_noise
 from processing.spectrum import Spectrum
 
 FOUR_LN2 = 4.0 * np.log(2.0)
@@ -42,6 +52,11 @@ class LineTable:
     typical_width_cm1: float = 0.0
     notes: tuple[str, ...] = field(default=())
     sigma_known: bool = True  # False for a line list: position_sigma_cm1 is only a weight
+    few_points: np.ndarray | None = None  # profile drawn on < 4 points: conservative sigma
+
+    def __post_init__(self) -> None:
+        if self.few_points is None:
+            object.__setattr__(self, "few_points", np.zeros(self.position_cm1.size, dtype=bool))
 
     @property
     def count(self) -> int:
@@ -152,6 +167,29 @@ def find_peaks(corrected: np.ndarray, sigma: float, threshold_sigma: float, widt
     return peaks, float(width_points)
 
 
+FALSE_PEAKS_PER_SPECTRUM = 0.05
+
+
+def gaussian_tail_sigmas(probability: float) -> float:
+    """k with P(z > k) = probability for a unit Gaussian (bisection on erfc; no scipy)."""
+    low, high = 0.0, 40.0
+    for _ in range(80):
+        middle = 0.5 * (low + high)
+        if 0.5 * math.erfc(middle / math.sqrt(2.0)) > probability:
+            low = middle
+        else:
+            high = middle
+    return 0.5 * (low + high)
+
+
+def detection_sigmas(threshold_sigma: float, points: int, noise: NoiseEstimate) -> float:
+    """The detection threshold in noise sigma: at least `threshold_sigma`, and high enough that
+    fewer than FALSE_PEAKS_PER_SPECTRUM noise maxima pass it among the spectrum's independent
+    noise samples (points / correlation length)."""
+    independent = noise.effective_points(points)
+    return max(threshold_sigma, gaussian_tail_sigmas(FALSE_PEAKS_PER_SPECTRUM / independent))
+
+
 def local_noise_factor(absorbance_above_baseline: np.ndarray) -> np.ndarray:
     """How much larger the absorbance noise is than at the baseline: detector noise is
     white in transmittance, so sigma_A = sigma_T / (T ln 10) grows as 10**A (capped at A = 3)."""
@@ -162,24 +200,48 @@ def _gaussian(x: np.ndarray, height: np.ndarray, centre: np.ndarray, fwhm: np.nd
     return height[:, None] * np.exp(-FOUR_LN2 * ((x - centre[:, None]) / fwhm[:, None]) ** 2)
 
 
+MIN_PROFILE_POINTS = 4  # a 3-parameter profile fit needs positive degrees of freedom
+
+
+def _core_weights(target: np.ndarray, half: int) -> np.ndarray:
+    """0/1 weights of the points each line's profile is fitted on: its upper part (above 20% of
+    the top), widened to above 5% where that leaves fewer than MIN_PROFILE_POINTS (coarse grids)."""
+    top = np.maximum(target.max(axis=1, keepdims=True), 1e-300)
+    weight = (target > 0.2 * top).astype(np.float64)
+    thin = weight.sum(axis=1) < MIN_PROFILE_POINTS
+    if thin.any():
+        weight[thin] = (target[thin] > 0.05 * top[thin]).astype(np.float64)
+    weight[:, half] = 1.0
+    return weight
+
+
+def _jacobian(x: np.ndarray, h: np.ndarray, c: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    u = (x - c[:, None]) / w[:, None]
+    g = np.exp(-FOUR_LN2 * u**2)
+    jac = np.stack([g, h[:, None] * g * 2 * FOUR_LN2 * u / w[:, None], h[:, None] * g * 2 * FOUR_LN2 * u**2 / w[:, None]], axis=2)
+    return g, jac
+
+
 def _fit_gaussians(
-    x: np.ndarray, y: np.ndarray, weight: np.ndarray, height: np.ndarray, centre: np.ndarray, fwhm: np.ndarray, iterations: int = 8
+    x: np.ndarray,
+    y: np.ndarray,
+    weight: np.ndarray,
+    height: np.ndarray,
+    centre: np.ndarray,
+    fwhm: np.ndarray,
+    correlation: np.ndarray | None = None,
+    iterations: int = 8,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Batched Gauss-Newton for y ~ h exp(-4ln2 ((x-c)/w)^2) per row; returns h, c, w,
-    the per-row unscaled covariance (3x3) and the residual rms."""
+    """Batched Gauss-Newton for y ~ h exp(-4ln2 ((x-c)/w)^2) per row; returns h, c, w, the
+    per-row covariance for unit per-point noise with the points' `correlation` matrix (identity
+    when None: independent points), and the residual rms."""
     h, c, w = height.copy(), centre.copy(), fwhm.copy()
     n = h.size
     eye = np.eye(3)[None, :, :]
-    cov = np.zeros((n, 3, 3))
     for _ in range(iterations):
-        u = (x - c[:, None]) / w[:, None]
-        g = np.exp(-FOUR_LN2 * u**2)
-        model = h[:, None] * g
-        r = (y - model) * weight
-        jac = np.stack(
-            [g, h[:, None] * g * 2 * FOUR_LN2 * u / w[:, None], h[:, None] * g * 2 * FOUR_LN2 * u**2 / w[:, None]],
-            axis=2,
-        ) * weight[:, :, None]
+        g, jac = _jacobian(x, h, c, w)
+        jac = jac * weight[:, :, None]
+        r = (y - h[:, None] * g) * weight
         jtj = np.einsum("nki,nkj->nij", jac, jac) + 1e-12 * eye
         jtr = np.einsum("nki,nk->ni", jac, r)
         try:
@@ -191,15 +253,30 @@ def _fit_gaussians(
         h = np.maximum(h + step[:, 0], 1e-12)
         c = c + step[:, 1]
         w = np.clip(w + step[:, 2], 0.3 * fwhm, 3.0 * fwhm)
-        cov = jtj
-    u = (x - c[:, None]) / w[:, None]
-    g = np.exp(-FOUR_LN2 * u**2)
-    jac = np.stack([g, h[:, None] * g * 2 * FOUR_LN2 * u / w[:, None], h[:, None] * g * 2 * FOUR_LN2 * u**2 / w[:, None]], axis=2) * weight[:, :, None]
-    cov = np.linalg.pinv(np.einsum("nki,nkj->nij", jac, jac))
+    g, jac = _jacobian(x, h, c, w)
+    jac = jac * weight[:, :, None]
+    inverse = np.linalg.pinv(np.einsum("nki,nkj->nij", jac, jac))
+    if correlation is None:
+        cov = inverse
+    else:
+        # sandwich: (J'J)^-1 J' R J (J'J)^-1 for least squares on correlated noise
+        middle = np.einsum("nki,kl,nlj->nij", jac, correlation, jac)
+        cov = inverse @ middle @ inverse
     used = weight.sum(axis=1)
     resid = ((y - h[:, None] * g) * weight) ** 2
     rms = np.sqrt(resid.sum(axis=1) / np.maximum(used - 3, 1))
     return h, c, w, cov, rms
+
+
+def conservative_position_sigma(
+    width_cm1: np.ndarray, height: np.ndarray, local_sigma: np.ndarray, spacing_cm1: float, noise: NoiseEstimate
+) -> np.ndarray:
+    """FWHM / (SNR x sqrt(N_eff)): a line's centre uncertainty when its profile cannot be fitted,
+    N_eff the independent noise samples across its FWHM (at least 1). A least-squares centre
+    on a Gaussian does ~1.5x better than this (calc), so it never promises too much."""
+    snr = np.maximum(height / np.maximum(local_sigma, 1e-300), 1.0)
+    independent = np.maximum(1.0, width_cm1 / spacing_cm1 / noise.correlation_points)
+    return width_cm1 / (snr * np.sqrt(independent))
 
 
 def measure_lines(
@@ -213,6 +290,8 @@ def measure_lines(
     y_all = baseline.corrected
     spacing = spectrum.spacing_cm1
     sigma = baseline.noise_sigma
+    noise = baseline.noise or white_noise(sigma)
+    threshold_sigma = detection_sigmas(threshold_sigma, y_all.size, noise)
     width_points_hint = None if width_hint_cm1 is None else width_hint_cm1 / spacing
     peaks, width_points = find_peaks(y_all, sigma, threshold_sigma, width_points_hint)
     peaks, saturated_lines = _collapse_saturated(spectrum, baseline, peaks)
@@ -220,7 +299,7 @@ def measure_lines(
     if peaks.size == 0 and not saturated_lines:
         f = np.zeros(0, dtype=bool)
         return LineTable(empty, empty, empty, empty, empty, empty, f, f, f, 0.0, ("no peaks above threshold",))
-    half = max(1, int(round(0.6 * width_points)))
+    half = max(2, int(round(0.6 * width_points)))
     if peaks.size == 0:
         peaks = np.zeros(0, dtype=np.int64)
     y_win, index = _gather(y_all, peaks, half)
@@ -237,6 +316,7 @@ def measure_lines(
     h, c, w = height0, centre0, fwhm0
     cov = np.zeros((peaks.size, 3, 3))
     rms = np.zeros(peaks.size)
+    weight = np.ones_like(y_win)
     for _ in range(3):
         target = y_win.copy()
         for k in neighbours:
@@ -244,22 +324,28 @@ def measure_lines(
             valid = (np.arange(peaks.size) + k >= 0) & (np.arange(peaks.size) + k < peaks.size)
             contribution = _gaussian(x_win, h[other], c[other], w[other])
             target -= np.where(valid[:, None], contribution, 0.0)
-        weight = (target > 0.2 * np.maximum(target.max(axis=1, keepdims=True), 1e-300)).astype(np.float64)
-        weight[:, half] = 1.0
-        h, c, w, cov, rms = _fit_gaussians(x_win, target, weight, h, c, w)
+        weight = _core_weights(target, half)
+        h, c, w, cov, rms = _fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1))
         bad = ~np.isfinite(c) | (np.abs(c - x_all[peaks]) > spacing * (half + 1))
         c = np.where(bad, centre0, c)
         w = np.where(~np.isfinite(w) | bad, fwhm0, w)
         h = np.where(~np.isfinite(h) | bad, height0, h)
-    scatter = np.maximum(sigma * local_noise_factor(0.5 * h), rms)
+    used = weight.sum(axis=1)
+    local_sigma = sigma * local_noise_factor(0.5 * h)
+    # the fit's own rms says more than the noise only where it has residual freedom to say it
+    scatter = np.where(used - 3 >= 3, np.maximum(local_sigma, rms), local_sigma)
     position_sigma = np.sqrt(np.clip(cov[:, 1, 1], 0, None)) * scatter
     position_sigma = np.maximum(np.nan_to_num(position_sigma, nan=np.inf), 0.01 * spacing)
+    conservative = conservative_position_sigma(w, h, local_sigma, spacing, noise)
+    few_points = used < MIN_PROFILE_POINTS
+    position_sigma = np.where(few_points, conservative, position_sigma)
     # a profile fit that cannot place its centre to 10% of a width has failed (e.g. a
-    # distorted blend): keep the three-point parabola centre with that 10% as its uncertainty
+    # distorted blend): keep the three-point parabola centre, with at least that 10% as its
+    # uncertainty
     limit = 0.1 * float(np.median(w)) if w.size else spacing
-    failed = position_sigma > limit
+    failed = (position_sigma > limit) & ~few_points
     c = np.where(failed, centre0, c)
-    position_sigma = np.where(failed, limit, position_sigma)
+    position_sigma = np.where(failed, np.maximum(limit, conservative), position_sigma)
     raw_top = spectrum.absorbance[peaks]
     sat_window, _ = _gather(spectrum.saturated.astype(np.int8), peaks, half)
     saturated = (raw_top > baseline.usable_absorbance) | (sat_window.max(axis=1) > 0)
@@ -270,8 +356,10 @@ def measure_lines(
         h = np.concatenate([h, extra[:, 2]])
         w = np.concatenate([w, extra[:, 3]])
         saturated = np.concatenate([saturated, np.ones(extra.shape[0], dtype=bool)])
+        few_points = np.concatenate([few_points, np.zeros(extra.shape[0], dtype=bool)])
     order = np.argsort(c)
     c, h, w, position_sigma, saturated = c[order], h[order], w[order], position_sigma[order], saturated[order]
+    few_points = few_points[order]
     gaps = np.diff(c)
     strong = (snr_of(h, sigma) >= 10.0) & ~saturated
     typical = float(np.percentile(w[strong] if strong.sum() >= 3 else w, 25))
@@ -292,7 +380,8 @@ def measure_lines(
         blended=blended,
         ringing=ringing,
         typical_width_cm1=typical,
-        notes=(f"threshold {threshold_sigma:g} x noise sigma {sigma:.3g}", f"typical FWHM {typical:.4f} cm-1"),
+        notes=(f"threshold {threshold_sigma:.3g} x noise sigma {sigma:.3g}", f"typical FWHM {typical:.4f} cm-1"),
+        few_points=few_points,
     )
 
 
@@ -417,6 +506,11 @@ def measure_doublet(
         return None
     residual = y - (h1 * np.exp(-FOUR_LN2 * ((x - c) / w) ** 2) + h2 * np.exp(-FOUR_LN2 * ((x - c - separation_cm1) / w) ** 2))
     scatter = max(baseline.noise_sigma * float(local_noise_factor(np.array(0.5 * h1))), float(np.sqrt(np.mean(residual**2))))
-    covariance = np.linalg.pinv(jac.T @ jac)
+    inverse = np.linalg.pinv(jac.T @ jac)
+    noise = baseline.noise or white_noise(baseline.noise_sigma)
+    # the fitted points sit on the uniform grid between lo and hi: their noise correlation
+    index = np.flatnonzero(upper)
+    correlation = noise.correlation_matrix(int(index[-1]) + 1)[np.ix_(index, index)]
+    covariance = inverse @ (jac.T @ correlation @ jac) @ inverse
     sigma = float(np.sqrt(max(covariance[2, 2], 0.0)) * scatter)
     return c, max(sigma, 0.01 * spectrum.spacing_cm1)

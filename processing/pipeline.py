@@ -221,6 +221,7 @@ def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
                 "saturated": bool(lines.saturated[i]),
                 "blended": bool(lines.blended[i]),
                 "ringing": bool(lines.ringing[i]),
+                "few_points": bool(lines.few_points[i]),
                 "equivalent_width": float(widths[i]) if widths is not None and widths[i] == widths[i] else None,
                 "assigned": assigned.to_dict() if assigned else None,
                 "likely_cause": assignment.likely_cause[i],

@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from processing.instrument import Fringes, Instrument
-from processing.interferents import DEFAULT_INTERFERENTS
+from processing.interferents import DEFAULT_INTERFERENTS, Interferent
 from processing.simulate import (
     Cell,
     SampleGas,
@@ -45,6 +45,7 @@ class DemoRun:
     settings: SimulationSettings
     file_format: str  # jcamp-dif, jcamp-affn, csv, csv-export-quirks, jcamp-peaks (line list)
     y: str = "absorbance"  # transmittance, absorbance, percent
+    decimals: int = Y_DECIMALS  # y values are rounded to this many places when written
 
     @property
     def extension(self) -> str:
@@ -147,17 +148,37 @@ def demo_runs() -> tuple[DemoRun, ...]:
                                title=f"{LAB}: HCl 10 cm cell, after service"),
             "jcamp-dif",
         ),
+        DemoRun(
+            "1545_dcl_hcl_mix_export", "The afternoon group's DCl cell, which (as always) holds "
+            "some HCl, at 0.25 cm-1 with zero fill 4, exported as text by the instrument PC: "
+            "absorbance rounded to 4 decimals, a 0.02 background offset, and water-vapour-like "
+            "residue lines of either sign (the background was taken with the bench warmer).",
+            SimulationSettings((SampleGas("DCl", 0.02), SampleGas("HCl", 0.004)), Cell(10.0),
+                               _instrument(1800.0, 3100.0, resolution_cm1=0.25, zero_fill=4,
+                                           baseline_offset=0.02, snr=1500.0, seed=1545),
+                               interferents=(Interferent("water", 3e-3, 20.0),
+                                             Interferent("water", 3e-3, 20.0, temperature_K=306.0, in_background=True)),
+                               title=f"{LAB}: DCl/HCl 10 cm cell, text export"),
+            "csv", decimals=4,
+        ),
+        DemoRun(
+            "1620_hcl_percent_export", "HCl cell measured before the laser warmed up: the "
+            "wavenumber axis is stretched by 190 ppm (0.55 cm-1 at the band centre), exported "
+            "as %T with 2 decimals.",
+            SimulationSettings(hcl_1_0, Cell(10.0),
+                               _instrument(2600.0, 3150.0, calibration_scale=1.0 + 190e-6, seed=1620),
+                               title=f"{LAB}: HCl 10 cm cell, laser cold"),
+            "csv", "percent", decimals=2,
+        ),
+        DemoRun(
+            "1700_hcl_archive_trace", "An HCl spectrum from the lab's paper archive, digitised "
+            "from the printed chart: no measurable noise, absorbance read to 3 decimals.",
+            SimulationSettings(hcl_1_0, Cell(10.0),
+                               _instrument(2600.0, 3150.0, snr=None, seed=1700),
+                               title=f"{LAB}: HCl 10 cm cell, digitised archive chart"),
+            "csv", decimals=3,
+        ),
     )
-
-
-def _rounded(spectrum: Spectrum, y: str) -> Spectrum:
-    """Spectrum whose written y values (in the requested kind) are rounded to Y_DECIMALS."""
-    if y == "absorbance":
-        return replace(spectrum, absorbance=np.round(spectrum.absorbance, Y_DECIMALS))
-    transmittance = np.round(spectrum.transmittance() * (100.0 if y == "percent" else 1.0), Y_DECIMALS)
-    kind = "percent_transmittance" if y == "percent" else "transmittance"
-    rebuilt = Spectrum.from_y(spectrum.wavenumber_cm1, transmittance, kind, spectrum.meta)
-    return rebuilt
 
 
 def export_quirks_csv(spectrum: Spectrum, title: str) -> bytes:
@@ -200,6 +221,7 @@ def truth_sidecar(run: DemoRun, result: SimulationResult, points: int) -> str:
         "story": run.story,
         "format": run.file_format,
         "y": run.y,
+        "decimals": run.decimals,
         "points": points,
         **result.truth.to_dict(),
     }
@@ -210,8 +232,7 @@ def write_run(directory: Path, run: DemoRun) -> list[Path]:
     """Simulate one run and write its spectrum and sidecar; returns the paths written."""
     result = simulate(run.settings)
     target = directory / run.filename
-    spectrum = _rounded(result.spectrum, run.y)
-    rounded_result = replace(result, spectrum=spectrum)
+    spectrum = result.spectrum
     points = spectrum.points
     if run.file_format == "csv-export-quirks":
         target.write_bytes(export_quirks_csv(spectrum, run.settings.title))
@@ -222,7 +243,7 @@ def write_run(directory: Path, run: DemoRun) -> list[Path]:
         points = peaks.points
         write_peak_table(str(target), peaks, title=run.settings.title)
     else:
-        write_spectrum(str(target), rounded_result, run.file_format, run.y)
+        write_spectrum(str(target), result, run.file_format, run.y, run.decimals)
     sidecar = directory / f"{run.name}.truth.json"
     sidecar.write_text(truth_sidecar(run, result, points), encoding="utf-8")
     return [target, sidecar]

@@ -9,8 +9,12 @@ Steps (each a pure function on numpy arrays):
    in a window of +-50 Voigt HWHM (wider for strong lines, out to where the wing's optical depth
    is 1e-4) and renormalised to unit area inside it (so each line's integrated optical depth is
    exactly S N L). Transmittance T = exp(-tau) on a grid of step <= Voigt HWHM / 4.
-3. instrument: the ILS applied to T (processing.instrument), sampled on the instrument grid.
-4. window fringes and baseline (a decadic absorbance offset/tilt), then noise on T.
+3. instrument: the ILS applied to T (processing.instrument), sampled on the instrument grid;
+   interferents present only when the background was measured divide it out (T_sample /
+   T_background: inverted lines).
+4. window fringes and baseline (a decadic absorbance offset/tilt), then noise on T, made in the
+   interferogram (correlated as the apodization and zero filling make it) or per point.
+5. on export, y values rounded to a number of decimals as instrument software does.
 Reproducible bit-for-bit for the same settings and seed.
 """
 from __future__ import annotations
@@ -24,7 +28,14 @@ import numpy as np
 from scipy import constants as _sc
 from scipy.special import voigt_profile
 
-from processing.instrument import FineGrid, Instrument, apply_line_shape, plan_fine_grid
+from processing.instrument import (
+    FineGrid,
+    Instrument,
+    apply_line_shape,
+    instrument_noise,
+    noise_correlation_points,
+    plan_fine_grid,
+)
 from processing.interferents import Interferent, interferent_lines
 from processing.levels import band_origin, centrifugal_constant, rotational_constant
 from processing.spectrum import FileMetadata, Spectrum
@@ -125,10 +136,29 @@ class LineTable:
     column_density_per_cm2: np.ndarray  # number density x path of the absorber
     doppler_fwhm_cm1: np.ndarray
     lorentz_hwhm_cm1: np.ndarray
+    in_background: np.ndarray | None = None  # bool: the line was in the background's beam
+
+    def __post_init__(self) -> None:
+        if self.in_background is None:
+            object.__setattr__(self, "in_background", np.zeros(self.position_cm1.size, dtype=bool))
 
     @property
     def count(self) -> int:
         return int(self.position_cm1.size)
+
+    def select(self, keep: np.ndarray) -> LineTable:
+        """The lines where `keep` is True."""
+        index = np.flatnonzero(keep)
+        return LineTable(
+            source=tuple(self.source[i] for i in index),
+            v_upper=self.v_upper[index], v_lower=self.v_lower[index],
+            branch=tuple(self.branch[i] for i in index), J_lower=self.J_lower[index],
+            true_position_cm1=self.true_position_cm1[index], position_cm1=self.position_cm1[index],
+            strength_cm_per_molecule=self.strength_cm_per_molecule[index],
+            column_density_per_cm2=self.column_density_per_cm2[index],
+            doppler_fwhm_cm1=self.doppler_fwhm_cm1[index], lorentz_hwhm_cm1=self.lorentz_hwhm_cm1[index],
+            in_background=self.in_background[index],
+        )
 
     def integrated_optical_depth_cm1(self) -> np.ndarray:
         """S N L per line (natural optical depth integrated over wavenumber), cm-1."""
@@ -149,6 +179,7 @@ class LineTable:
                     "integrated_absorbance_cm1": float(
                         f"{self.strength_cm_per_molecule[i] * self.column_density_per_cm2[i] / LN10:.6e}"
                     ),
+                    **({"in_background": True} if self.in_background[i] else {}),
                 }
             )
         return records
@@ -166,6 +197,7 @@ class SimulationTruth:
     noise_sigma_transmittance: float | None
     fine_grid_step_cm1: float
     conventions: tuple[str, ...]
+    noise_correlation_points: float = 1.0  # tau of the noise: output points per independent sample
 
     def to_dict(self, include_lines: bool = True) -> dict[str, Any]:
         data: dict[str, Any] = {
@@ -174,12 +206,23 @@ class SimulationTruth:
             "output_spacing_cm1": self.output_spacing_cm1,
             "ils_fwhm_cm1": round(self.ils_fwhm_cm1, 6),
             "noise_sigma_transmittance": self.noise_sigma_transmittance,
+            "noise_sigma_absorbance_at_baseline": self.noise_sigma_absorbance_at_baseline(),
+            "noise_domain": self.settings.instrument.noise_domain,
+            "noise_correlation_points": round(self.noise_correlation_points, 4),
             "fine_grid_step_cm1": self.fine_grid_step_cm1,
             "conventions": list(self.conventions),
         }
         if include_lines:
             data["lines"] = self.lines.to_records()
         return data
+
+    def noise_sigma_absorbance_at_baseline(self) -> float | None:
+        """The per-point noise in absorbance where nothing absorbs: sigma_T / (T ln 10), with T
+        the baseline's transmittance at the range centre (10^-offset)."""
+        if self.noise_sigma_transmittance is None:
+            return None
+        baseline_t = 10.0 ** -self.settings.instrument.baseline_offset
+        return float(f"{self.noise_sigma_transmittance / (baseline_t * LN10):.6e}")
 
     def to_json(self, include_lines: bool = True) -> str:
         return json.dumps(self.to_dict(include_lines), indent=1, sort_keys=False) + "\n"
@@ -190,7 +233,10 @@ CONVENTIONS: tuple[str, ...] = (
     "resolution R = 1/L with L the maximum optical path difference; ILS FWHM depends on apodization",
     "ILS applied to transmittance (exact convolution via the interferogram, |x| <= L)",
     "output grid nu_k = k * R / (2 * zero_fill)",
-    "snr is for the 100% line: noise standard deviation 1/snr in transmittance, independent per point",
+    "snr is for the 100% line: noise standard deviation 1/snr in transmittance per output point; "
+    "noise_domain interferogram: white on the interferogram, apodized and zero-filled with it (points "
+    "correlated over noise_correlation_points); points: independent per output point",
+    "interferents in_background were in the beam for the background: their lines appear inverted",
     "baseline: decadic absorbance offset + tilt * (nu - centre) / half-range; fringes multiply T after the ILS",
     "calibration error: a feature at true nu appears at nu * scale + shift",
     "line strengths per molecule of the isotopologue; integrated_absorbance_cm1 = S N L / ln 10",
@@ -296,6 +342,7 @@ def build_line_table(settings: SimulationSettings, library: Any = None) -> tuple
         "v_upper", "v_lower", "J_lower", "true_position", "strength", "column", "doppler", "lorentz")}
     sources: list[str] = []
     branches: list[str] = []
+    background: list[np.ndarray] = []
     bands: list[BandTruth] = []
     for gas in settings.gases:
         for iso, share in _isotopologue_shares(gas, library):
@@ -327,6 +374,7 @@ def build_line_table(settings: SimulationSettings, library: Any = None) -> tuple
                 columns["lorentz"].append(np.full(n, iso.broadening_hwhm_cm1_per_atm * total_pressure))
                 sources.extend([iso.label] * n)
                 branches.extend(str(b) for b in lines.branch)
+                background.append(np.zeros(n, dtype=bool))
     for interferent in settings.interferents:
         model = interferent_lines(interferent)
         n = model.position_cm1.size
@@ -342,6 +390,7 @@ def build_line_table(settings: SimulationSettings, library: Any = None) -> tuple
         columns["lorentz"].append(np.full(n, model.broadening_hwhm_cm1_per_atm * interferent.air_pressure_atm))
         sources.extend([f"{model.kind}-like"] * n)
         branches.extend(model.branch)
+        background.append(np.full(n, interferent.in_background))
 
     def joined(key: str, dtype: Any) -> np.ndarray:
         parts = columns[key]
@@ -360,22 +409,13 @@ def build_line_table(settings: SimulationSettings, library: Any = None) -> tuple
         column_density_per_cm2=joined("column", np.float64),
         doppler_fwhm_cm1=joined("doppler", np.float64),
         lorentz_hwhm_cm1=joined("lorentz", np.float64),
+        in_background=np.concatenate(background) if background else np.zeros(0, dtype=bool),
     )
     return table, tuple(bands)
 
 
 def _lines_in_range(lines: LineTable, first_cm1: float, last_cm1: float) -> LineTable:
-    keep = (lines.position_cm1 >= first_cm1) & (lines.position_cm1 <= last_cm1)
-    index = np.flatnonzero(keep)
-    return LineTable(
-        source=tuple(lines.source[i] for i in index),
-        v_upper=lines.v_upper[index], v_lower=lines.v_lower[index],
-        branch=tuple(lines.branch[i] for i in index), J_lower=lines.J_lower[index],
-        true_position_cm1=lines.true_position_cm1[index], position_cm1=lines.position_cm1[index],
-        strength_cm_per_molecule=lines.strength_cm_per_molecule[index],
-        column_density_per_cm2=lines.column_density_per_cm2[index],
-        doppler_fwhm_cm1=lines.doppler_fwhm_cm1[index], lorentz_hwhm_cm1=lines.lorentz_hwhm_cm1[index],
-    )
+    return lines.select((lines.position_cm1 >= first_cm1) & (lines.position_cm1 <= last_cm1))
 
 
 # ---------------------------------------------------------------------------- the simulator
@@ -420,11 +460,12 @@ def add_baseline_and_fringes(instrument: Instrument, wavenumber: np.ndarray, tra
 
 
 def add_noise(instrument: Instrument, transmittance: np.ndarray) -> np.ndarray:
-    """Gaussian noise of standard deviation 1/snr (100% line), seeded by the instrument."""
+    """Gaussian noise of standard deviation 1/snr per point (100% line) in the instrument's
+    noise domain (see `instrument_noise`), seeded by the instrument."""
     if instrument.snr is None:
         return transmittance
     rng = np.random.default_rng(instrument.seed)
-    return transmittance + rng.normal(0.0, 1.0 / instrument.snr, transmittance.size)
+    return transmittance + instrument_noise(instrument, transmittance.size, rng)
 
 
 def simulate(settings: SimulationSettings, library: Any = None, workers: int | None = None) -> SimulationResult:
@@ -434,9 +475,13 @@ def simulate(settings: SimulationSettings, library: Any = None, workers: int | N
     margin = margin_cm1(instrument)
     lines = _lines_in_range(all_lines, instrument.first_cm1 - margin, instrument.last_cm1 + margin)
     grid = fine_grid_for(lines, instrument)
-    tau = optical_depth_on_grid(grid.first_cm1, grid.step_cm1, grid.points, lines)
-    transmittance_fine = np.exp(-tau)
-    padded = apply_line_shape(transmittance_fine, grid, instrument, workers=workers)
+    in_background = lines.in_background
+    tau = optical_depth_on_grid(grid.first_cm1, grid.step_cm1, grid.points, lines.select(~in_background))
+    padded = apply_line_shape(np.exp(-tau), grid, instrument, workers=workers)
+    if in_background.any():
+        # the background single beam saw these lines: the ratio shows them inverted
+        tau_background = optical_depth_on_grid(grid.first_cm1, grid.step_cm1, grid.points, lines.select(in_background))
+        padded = padded / apply_line_shape(np.exp(-tau_background), grid, instrument, workers=workers)
     wavenumber, transmittance = output_transmittance(instrument, padded, grid)
     transmittance = add_baseline_and_fringes(instrument, wavenumber, transmittance)
     transmittance = add_noise(instrument, transmittance)
@@ -447,6 +492,7 @@ def simulate(settings: SimulationSettings, library: Any = None, workers: int | N
         output_spacing_cm1=instrument.spacing_cm1,
         ils_fwhm_cm1=instrument.ils_fwhm_cm1,
         noise_sigma_transmittance=None if instrument.snr is None else 1.0 / instrument.snr,
+        noise_correlation_points=noise_correlation_points(instrument),
         fine_grid_step_cm1=grid.step_cm1,
         conventions=CONVENTIONS,
     )
@@ -479,19 +525,22 @@ _Y_KIND_BY_NAME = {"transmittance": "transmittance", "absorbance": "absorbance",
                    "percent": "percent_transmittance", "percent_transmittance": "percent_transmittance"}
 
 
-def write_spectrum(path: str, result: SimulationResult, file_format: str, y: str = "absorbance") -> None:
-    """Write the simulated spectrum with the project's writers (JCAMP-DX or CSV)."""
+def write_spectrum(path: str, result: SimulationResult, file_format: str, y: str = "absorbance", decimals: int | None = None) -> None:
+    """Write the simulated spectrum with the project's writers (JCAMP-DX or CSV), y values
+    rounded to `decimals` places when given."""
     if file_format not in OUTPUT_FORMATS:
         raise ValueError(f"unknown format {file_format!r}; choose from {', '.join(OUTPUT_FORMATS)}")
     if y not in _Y_KIND_BY_NAME:
         raise ValueError(f"unknown y kind {y!r}; choose transmittance, absorbance or percent")
+    if decimals is not None and not 0 <= decimals <= 15:
+        raise ValueError(f"decimals must be between 0 and 15, got {decimals}")
     y_kind = _Y_KIND_BY_NAME[y]
     spectrum = replace(result.spectrum, original_y_kind=y_kind)
     if file_format == "csv":
         from processing.readers.delimited import write_csv
 
-        write_csv(path, spectrum, y_kind=y_kind)
+        write_csv(path, spectrum, y_kind=y_kind, decimals=decimals)
         return
     from processing.readers.jcamp_write import write_jcamp
 
-    write_jcamp(path, spectrum, form="dif" if file_format == "jcamp-dif" else "affn", y_kind=y_kind)
+    write_jcamp(path, spectrum, form="dif" if file_format == "jcamp-dif" else "affn", y_kind=y_kind, decimals=decimals)

@@ -58,7 +58,7 @@ def render_lines(result: RunResult) -> list[str]:
     for line in result.lines:
         assigned = line.get("assigned")
         flags = "".join(
-            flag for flag, on in (("s", line.get("saturated")), ("b", line.get("blended"))) if on
+            flag for flag, on in (("s", line.get("saturated")), ("b", line.get("blended")), ("p", line.get("few_points"))) if on
         )
         rows.append(
             [
@@ -81,7 +81,7 @@ def render_lines(result: RunResult) -> list[str]:
             rows,
             right={0, 1, 2, 4, 5, 6},
         ),
-        "   flags: s = saturated, b = blended",
+        "   flags: s = saturated, b = blended, p = profile on too few points (conservative sigma)",
     ]
 
 

@@ -739,13 +739,14 @@ Y_HEADER = {
 
 
 def write_csv(
-    target: str | Path | BinaryIO | TextIO, spectrum: Spectrum, y_kind: str = "absorbance"
+    target: str | Path | BinaryIO | TextIO, spectrum: Spectrum, y_kind: str = "absorbance", decimals: int | None = None
 ) -> None:
     """Write `wavenumber_cm-1,<y kind>` then one `x,y` row per point, floats as repr.
 
     repr gives the shortest text that reads back to the identical float, so parse(write(s))
     returns the same x and absorbance bit for bit (transmittance output goes through
-    10**-A and back, good to rounding).
+    10**-A and back, good to rounding). `decimals` writes y rounded to that many places
+    instead, as instrument software exports it.
     """
     if y_kind not in Y_HEADER:
         raise ValueError(f"unknown y kind {y_kind!r}; choose from {', '.join(Y_HEADER)}")
@@ -755,7 +756,8 @@ def write_csv(
         y = spectrum.transmittance()
     else:
         y = spectrum.transmittance() * 100.0
-    rows = map("{!r},{!r}".format, spectrum.wavenumber_cm1.tolist(), y.tolist())
+    y_format = "{!r}" if decimals is None else f"{{:.{decimals}f}}"
+    rows = map(("{!r}," + y_format).format, spectrum.wavenumber_cm1.tolist(), y.tolist())
     text = f"wavenumber_cm-1,{Y_HEADER[y_kind]}\n" + "\n".join(rows) + "\n"
     if isinstance(target, (str, Path)):
         with open(target, "w", encoding="utf-8", newline="\n") as handle:

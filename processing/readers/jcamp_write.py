@@ -100,9 +100,10 @@ def _affn_text(digits: int | None) -> Callable[[float], str]:
     return text
 
 
-def _affn_lines(x: np.ndarray, y: np.ndarray, digits: int | None) -> list[str]:
+def _affn_lines(x: np.ndarray, y: np.ndarray, digits: int | None, decimals: int | None = None) -> list[str]:
     form = _affn_text(digits)
-    texts = [form(value) for value in y.tolist()]
+    y_form = form if decimals is None else f"{{:.{decimals}f}}".format
+    texts = [y_form(value) for value in y.tolist()]
     lines: list[str] = []
     index = 0
     while index < y.size:
@@ -161,11 +162,14 @@ def write_jcamp(
     y_kind: YWrite = "absorbance",
     descending: bool = False,
     digits: int | None = AFFN_DIGITS,
+    decimals: int | None = None,
 ) -> None:
     """Write `spectrum` as JCAMP-DX 5.01 `(X++(Y..Y))` in cm-1 (or XYPOINTS if x is uneven).
 
     `descending` writes from high to low wavenumber, as many instruments do. `digits` is the
-    number of significant digits of AFFN values (None: `repr`, exact).
+    number of significant digits of AFFN values (None: `repr`, exact). `decimals` writes y
+    rounded to that many decimal places instead (AFFN: fixed-point text; DIF: YFACTOR
+    10^-decimals), as instrument software exports rounded values.
     """
     if digits is not None and not 13 <= digits <= 17:
         raise ValueError("digits must be 13 to 17 (1e-12 relative or better) or None")
@@ -190,9 +194,14 @@ def write_jcamp(
         _emit(target, _header(name, "INFRARED SPECTRUM", y_units, extra) + body + ["##END="])
         return
     spacing = (x[-1] - x[0]) / (x.size - 1)
+    if decimals is not None:
+        y = np.round(y, decimals)
     if form == "affn":
         y_factor = 1.0
-        data_lines = _affn_lines(x, y, digits)
+        data_lines = _affn_lines(x, y, digits, decimals)
+    elif decimals is not None:
+        y_factor = 10.0**-decimals
+        data_lines = _dif_lines(x, np.rint(y / y_factor).astype(np.int64))
     else:
         largest = float(np.max(np.abs(y)))
         integral = bool(np.all(y == np.rint(y))) and largest < 2**31

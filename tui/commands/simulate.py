@@ -33,8 +33,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--range", dest="range_cm1", default=None, metavar="FIRST:LAST",
                         help="wavenumber range in cm-1 (default: the bands' lines +- 30 cm-1)")
     parser.add_argument("--snr", default="1000",
-                        help="signal-to-noise of the 100%% line (noise sigma = 1/snr in T); "
+                        help="signal-to-noise of the 100%% line (noise sigma = 1/snr in T per point); "
                         "'none' for no noise (default 1000)")
+    parser.add_argument("--noise-domain", choices=("interferogram", "points"), default="interferogram",
+                        help="interferogram (default): noise made on the interferogram, correlated "
+                        "as the apodization and zero filling make it; points: independent per point")
     parser.add_argument("--baseline-offset", type=float, default=0.0,
                         help="absorbance offset added everywhere (e.g. 0.5)")
     parser.add_argument("--baseline-tilt", type=float, default=0.0,
@@ -43,12 +46,22 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="window fringes: relative amplitude, optional period in cm-1 (default 0.82)")
     parser.add_argument("--shift-cm1", type=float, default=0.0, help="wavenumber calibration shift, cm-1")
     parser.add_argument("--scale", type=float, default=1.0, help="wavenumber calibration scale factor")
-    parser.add_argument("--interferents", default="", help="co2, water or co2,water (poor purge)")
+    parser.add_argument("--scale-ppm", type=float, default=0.0,
+                        help="wavenumber scale error in parts per million (added to --scale - 1)")
+    parser.add_argument("--interferents", default="",
+                        help="absorbers in the beam, KIND[:PRESSURE_ATM[:TEMPERATURE_K]] comma-separated, "
+                        "KIND co2 or water (e.g. co2,water: a poor purge)")
+    parser.add_argument("--background-interferents", default="",
+                        help="absorbers that were in the beam for the background only (their lines "
+                        "show inverted), same form, e.g. water:0.006:303")
     parser.add_argument("--seed", type=int, default=0, help="noise seed (default 0)")
     parser.add_argument("--format", dest="file_format", choices=FORMATS, default="jcamp-dif",
                         help="output format (default jcamp-dif)")
     parser.add_argument("--y", dest="y_kind", choices=Y_CHOICES, default="absorbance",
                         help="y values to write (default absorbance)")
+    parser.add_argument("--decimals", type=int, default=None,
+                        help="round the written y values to this many decimal places, as "
+                        "instrument exports do (default: full precision)")
     parser.add_argument("--title", default=None, help="title stored in the file")
     parser.add_argument("--truth", metavar="FILE", default=None, help="also write the truth record (JSON)")
     parser.add_argument("--sample-runs", metavar="DIR", default=None,
@@ -104,10 +117,14 @@ def run(args: argparse.Namespace) -> int:
         from processing.simulate import simulate, write_spectrum
 
         result = simulate(settings)
-        write_spectrum(args.output, result, args.file_format, args.y_kind)
+        write_spectrum(args.output, result, args.file_format, args.y_kind, args.decimals)
         if args.truth:
+            import json
+
+            truth = result.truth.to_dict()
+            truth["export"] = {"format": args.file_format, "y": args.y_kind, "decimals": args.decimals}
             with open(args.truth, "w", encoding="utf-8") as handle:
-                handle.write(result.truth.to_json())
+                handle.write(json.dumps(truth, indent=1) + "\n")
     except (ValueError, BandwatchError) as error:
         return _fail(str(error))
     except OSError as error:
@@ -121,7 +138,7 @@ def run(args: argparse.Namespace) -> int:
 def settings_from_args(args: argparse.Namespace):  # -> SimulationSettings (import kept lazy)
     """Turn the command-line options into simulator settings; ValueError on bad input."""
     from processing.instrument import Fringes, Instrument
-    from processing.interferents import DEFAULT_INTERFERENTS
+    from processing.interferents import parse_interferent
     from processing.simulate import Cell, SampleGas, SimulationSettings, auto_range
 
     species = [s.strip() for s in args.species.split(",") if s.strip()]
@@ -140,17 +157,16 @@ def settings_from_args(args: argparse.Namespace):  # -> SimulationSettings (impo
     if args.fringes:
         values = [float(v) for v in args.fringes.split(":")]
         fringes = Fringes(amplitude=values[0], period_cm1=values[1] if len(values) > 1 else 0.82)
-    interferents = []
-    for name in (n.strip().lower() for n in args.interferents.split(",") if n.strip()):
-        if name not in DEFAULT_INTERFERENTS:
-            raise ValueError(f"unknown interferent {name!r}; choose from co2, water")
-        interferents.append(DEFAULT_INTERFERENTS[name])
+    interferents = [parse_interferent(text) for text in args.interferents.split(",") if text.strip()]
+    interferents += [parse_interferent(text, in_background=True)
+                     for text in args.background_interferents.split(",") if text.strip()]
     cell = Cell(path_length_cm=args.path_cm, temperature_K=args.temperature_K,
                 total_pressure_atm=args.total_pressure_atm)
     instrument = Instrument(
         resolution_cm1=args.resolution, apodization=args.apodization, zero_fill=args.zero_fill,
-        snr=snr, baseline_offset=args.baseline_offset, baseline_tilt=args.baseline_tilt,
-        fringes=fringes, calibration_shift_cm1=args.shift_cm1, calibration_scale=args.scale,
+        snr=snr, noise_domain=args.noise_domain, baseline_offset=args.baseline_offset,
+        baseline_tilt=args.baseline_tilt, fringes=fringes, calibration_shift_cm1=args.shift_cm1,
+        calibration_scale=args.scale + args.scale_ppm * 1e-6,
         seed=args.seed,
     )
     title = args.title or f"simulated {','.join(species)} {args.path_cm:g} cm"
