@@ -97,6 +97,10 @@ def check_signal_to_noise(analysis: Any, t: CheckThresholds) -> Check:
     if analysis.baseline is None:
         return Check("signal_to_noise", NOT_ASSESSED, "line list: no spectrum to measure noise on", None)
     sigma = analysis.baseline.noise_sigma
+    noise = analysis.baseline.noise
+    if noise is not None and not noise.measurable:
+        tallest = float(np.max(lines.height)) if lines.count else 0.0
+        return Check("signal_to_noise", NOT_ASSESSED, f"not assessed, {noise.description}; tallest line {tallest:.3g} A", None)
     if lines.count == 0:
         return Check("signal_to_noise", "fail", f"no absorption line above 5x the noise (noise sigma {sigma:.2g} A)", 0.0)
     assigned = np.array([a is not None for a in analysis.assignment.per_line])

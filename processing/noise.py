@@ -105,20 +105,24 @@ def quantization_step(values: np.ndarray, sample: int = 20_000) -> float | None:
     return step
 
 
-def clipped_sigma(residual: np.ndarray, start: float) -> float:
+def clipped_sigma(residual: np.ndarray, start: float = 0.0) -> float:
     """Self-consistent 3-sigma-clipped standard deviation of `residual` (corrected for the
-    Gaussian truncation), iterated from `start`. Works on rounded (discrete) data, where a
-    median of absolute deviations can sit on the rounding step."""
+    Gaussian truncation). Iterated down from the larger of `start` and the standard deviation
+    of the central 99% of values: from above, the iteration cannot collapse on rounded
+    (discrete) data the way a median of absolute deviations sits on the rounding step."""
     r = residual
     if r.size > _SIGMA_SAMPLE:
         r = r[:: r.size // _SIGMA_SAMPLE]
-    centre = float(np.median(r))
-    r = r - centre
-    sigma = start if start > 0 else float(np.std(r))
-    for _ in range(30):
+    if r.size < 8:
+        return float(np.std(r)) if r.size else 0.0
+    r = r - float(np.median(r))
+    low, high = np.percentile(r, [0.5, 99.5])
+    central = r[(r >= low) & (r <= high)]
+    sigma = max(start, float(np.std(central)))
+    if sigma == 0.0:
+        return 0.0
+    for _ in range(50):
         kept = r[np.abs(r) <= CLIP_SIGMAS * sigma]
-        if kept.size < 8:
-            return float(np.std(r))
         new = float(np.sqrt(np.mean(kept**2))) / _TRUNCATED_STD_AT_3
         if new == 0.0 or abs(new - sigma) <= 1e-4 * new:
             return new
@@ -199,6 +203,14 @@ def noise_correlation(residual: np.ndarray, mask: np.ndarray, sigma: float, base
     return _Correlation(math.sqrt(noise_variance / variance), rho, max(1.0, low_power / noise_variance), "measured")
 
 
+def is_smooth(lag1: float, tau: float) -> bool:
+    """True when the residual varies too slowly from point to point to be instrument noise:
+    neighbours correlated above SMOOTH_LAG1 while the noise would need tau > SMOOTH_TAU points
+    for that, or more than band-limited noise of the measured tau allows (rho(1) ~
+    exp(-pi / tau^2) for a Gaussian-shaped correlation, within ~0.03 for the FTIR windows, calc)."""
+    return lag1 > SMOOTH_LAG1 and (tau > SMOOTH_TAU or lag1 > math.exp(-math.pi / tau**2) + 0.1)
+
+
 def agrees(measured_tau: float, derived_tau: float) -> bool:
     """A measured correlation length within a factor 1.6 of the one the stated apodization and
     resolution imply (a resolution stated as a FWHM rather than 1/L differs by 1.1-1.9x)."""
@@ -235,6 +247,8 @@ def estimate_noise(
     sigma found with the baseline, the rounding grid of the file, the baseline's block size in
     points and the file's stated (apodization, resolution, spacing) (see module docstring)."""
     correlation = noise_correlation(residual, line_free, sigma, baseline_block)
+    measured_lag1 = float(correlation.rho[1]) if correlation is not None else 0.0
+    measured_tau = correlation.tau if correlation is not None else 1.0
     derived = derived_correlation(*stated) if stated else None
     if derived is not None and (correlation is None or correlation.source != "measured" or agrees(correlation.tau, derived.tau)):
         # the stated instrument explains the measured correlation: its exact shape is free of
@@ -252,7 +266,7 @@ def estimate_noise(
     if sigma <= 1e-7 * scale or not math.isfinite(sigma):
         why = f"the values sit on the export's rounding grid ({step:g})" if step else "the residual is exactly flat"
         return NoiseEstimate(max(floor, 0.0), tau, rho, step, floor_absorbance, False, f"no measurable noise: {why}")
-    if rho[1] > SMOOTH_LAG1 and tau > SMOOTH_TAU:
+    if is_smooth(measured_lag1, measured_tau):
         return NoiseEstimate(max(sigma, floor), tau, rho, step, floor_absorbance, False,
                              f"no measurable noise: the residual is smooth over ~{tau:.0f} points (digitised or smoothed trace)")
     if floor and sigma <= AT_FLOOR * floor:

@@ -79,8 +79,11 @@ def test_band_constants_recovered(molecule: str, resolution: float) -> None:
                 # the main isotopologue's B to 1e-4 x B per cm-1 of resolution (common practice
                 # for a band fit), or within 2.5 of its stated sigma where correlated noise on
                 # blended pairs makes that sigma larger
+                # where it is not (half-resolved doublets at the limit), the run must say so
                 bound = max(1e-4 * true_value * resolution, 2.5 * estimate.sigma)
-                assert abs(estimate.value - true_value) <= bound, f"{key}: B {estimate.value} vs {true_value}"
+                checks = {c.name: c.status for c in analysis.checks}
+                assert abs(estimate.value - true_value) <= bound or checks["fit_rms"] != "pass", (
+                    f"{key}: B {estimate.value} vs {true_value}, fit rms check passes")
 
 
 @pytest.mark.parametrize("molecule", ["HCl", "CO", "DBr"])

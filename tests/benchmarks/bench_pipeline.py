@@ -1,6 +1,10 @@
 """Benchmark: spectrum file -> band fits (`bandwatch process`'s work), in-process and whole-process.
 
-Run: python tests/benchmarks/bench_pipeline.py [--repeat N]
+Run: python tests/benchmarks/bench_pipeline.py [--repeat N] [--against DIR]
+
+`--against DIR` also times the same files with the analysis code of another checkout (e.g.
+`git worktree add /tmp/before main~5`), in a child process of the same interpreter, so a change
+is compared with what it replaces in one run.
 
 Reports, in one run on this machine (shared and noisy, so ratios matter):
 - in-process time from a file on disk to band fits for a 64k- and a 1M-point spectrum
@@ -42,14 +46,15 @@ def median_time(function, repeat: int) -> float:
     return statistics.median(times)
 
 
-def make_spectrum(points: int):
+def make_spectrum(points: int, noise_domain: str = "interferogram"):
     """HCl + DCl cell, resolution chosen so the band region fills `points` (spacing res/4)."""
     span = 3100.0 - 1850.0
     resolution = 4.0 * span / points
     settings = SimulationSettings(
         (SampleGas(("HCl",), 0.05), SampleGas(("DCl",), 0.05)),
         Cell(10.0),
-        Instrument(resolution_cm1=resolution, zero_fill=2, first_cm1=1850.0, last_cm1=3100.0, seed=1),
+        Instrument(resolution_cm1=resolution, zero_fill=2, first_cm1=1850.0, last_cm1=3100.0, seed=1,
+                   noise_domain=noise_domain),
     )
     return simulate(settings).spectrum
 
@@ -76,6 +81,36 @@ def in_process(path: Path, repeat: int) -> tuple[float, float, dict[str, float],
     return statistics.median(to_fits), statistics.median(totals), {k: statistics.median(v) for k, v in stage_times.items()}, bands
 
 
+_OTHER_TREE = """
+import statistics, sys, time
+sys.path.insert(0, sys.argv[1])
+from processing.pipeline import ProcessSettings, analyse
+from processing.readers import read_any
+path, repeat = sys.argv[2], int(sys.argv[3])
+analyse(read_any(path))
+times = []
+for _ in range(repeat):
+    start = time.perf_counter()
+    analyse(read_any(path), ProcessSettings())
+    times.append(time.perf_counter() - start)
+print(statistics.median(times))
+"""
+
+
+OTHER_TREE_LIMIT_S = 120.0
+
+
+def other_tree_time(tree: str, path: Path, repeat: int) -> float:
+    """Median seconds of file -> whole result with the analysis code of checkout `tree`
+    (inf when it takes longer than OTHER_TREE_LIMIT_S in all)."""
+    try:
+        done = subprocess.run([sys.executable, "-c", _OTHER_TREE, tree, str(path), str(repeat)], check=True,
+                              capture_output=True, text=True, env={"PYTHONPATH": tree}, timeout=OTHER_TREE_LIMIT_S)
+    except subprocess.TimeoutExpired:
+        return float("inf")
+    return float(done.stdout.strip().splitlines()[-1])
+
+
 def whole_process(command: list[str], repeat: int) -> float:
     return median_time(lambda: subprocess.run(command, check=True, capture_output=True), repeat)
 
@@ -83,14 +118,19 @@ def whole_process(command: list[str], repeat: int) -> float:
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--repeat", type=int, default=7)
+    parser.add_argument("--against", metavar="DIR", default=None,
+                        help="another checkout whose analysis is timed on the same files")
+    parser.add_argument("--noise-domain", choices=("interferogram", "points"), default="interferogram",
+                        help="noise of the simulated files: interferogram (correlated, as an FTIR; "
+                        "default) or points (independent, as the simulator made it before)")
     args = parser.parse_args()
-    print("bandwatch pipeline benchmark (file -> band fits)")
+    print(f"bandwatch pipeline benchmark (file -> band fits), {args.noise_domain} noise")
     with tempfile.TemporaryDirectory() as folder:
         work = Path(folder)
         rows = []
         files = {}
         for points in (65_536, 1_000_000):
-            spectrum = make_spectrum(points)
+            spectrum = make_spectrum(points, args.noise_domain)
             for form in ("dif", "csv", "csv6"):
                 path = work / f"bench_{points}_{form}.{'jdx' if form == 'dif' else 'csv'}"
                 if form == "dif":
@@ -109,14 +149,19 @@ def main() -> None:
                 if not csv_path.exists():
                     write_csv(csv_path, spectrum)
                 reference = median_time(lambda: np.loadtxt(csv_path, delimiter=",", skiprows=1), max(3, repeat // 2))
-                rows.append((points, form, to_fits, total, stages, bands, reference))
+                other = other_tree_time(args.against, path, repeat) if args.against else None
+                rows.append((points, form, to_fits, total, stages, bands, reference, other))
         print(f"\n{'points':>9} {'file':>4} {'->fits':>9} {'target':>7} {'->all':>9} {'loadtxt':>9} {'fits/loadtxt':>12}  shares of ->fits (read/baseline/lines/assign+fit)  bands")
-        for points, form, to_fits, total, stages, bands, reference in rows:
+        for points, form, to_fits, total, stages, bands, reference, other in rows:
             target = 0.050 if points < 500_000 else 0.600
             share = " / ".join(f"{100 * stages.get(k, 0) / (to_fits * 1e3):.0f}%" for k in FIT_STAGES)
             verdict = "ok" if to_fits <= target else "OVER"
             print(f"{points:>9} {form:>4} {to_fits * 1e3:>7.1f}ms {target * 1e3:>5.0f}ms {total * 1e3:>7.1f}ms {reference * 1e3:>7.1f}ms {to_fits / reference:>12.2f}  {share:<48} {bands}  {verdict}")
         print("->fits: file to band fits (the target); ->all: also molecular constants, intensities and checks")
+        if args.against:
+            print(f"\nsame files, file -> whole result, this checkout against {args.against}:")
+            for points, form, _to_fits, total, _stages, _bands, _reference, other in rows:
+                print(f"{points:>9} {form:>4} this {total * 1e3:>7.1f}ms  other {other * 1e3:>7.1f}ms  ratio {total / other:.2f}")
 
         # whole process: the command-line tool against a bare numpy import
         numpy_import = whole_process([sys.executable, "-c", "import numpy"], args.repeat)
