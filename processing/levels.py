@@ -3,7 +3,7 @@
 Dunham expansion (all in cm-1):
     E(v, J) = sum_kl Y_kl (v + 1/2)^k [J(J+1)]^l
 with Y10 = omega_e, Y20 = -omega_e x_e, Y30 = omega_e y_e, Y01 = B_e, Y11 = -alpha_e,
-Y21 = gamma_e, Y02 = -D_e, Y12 = -beta_e.
+Y21 = gamma_e, Y02 = -D_e, Y12 = -beta_e, Y03 = H_e.
 
 Branch bookkeeping (a line is labelled by its lower-state J, "J''"):
     R(J''):  J' = J'' + 1,  m = J'' + 1   (m = 1, 2, 3, ...)
@@ -30,6 +30,7 @@ CONSTANT_TO_DUNHAM: dict[str, tuple[int, int, float]] = {
     "gamma_e": (2, 1, +1.0),
     "D_e": (0, 2, -1.0),
     "beta_e": (1, 2, -1.0),
+    "H_e": (0, 3, +1.0),
 }
 
 P_BRANCH = "P"
