@@ -296,24 +296,44 @@ def _negative_lines(analysis: Any) -> int:
 
 
 def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], t: CheckThresholds) -> Check:
+    """Expected species present, nothing unexpected. With species named (`--species` or the
+    station's configuration) a named species is never a problem: a DCl cell that holds HCl by
+    design gives its hydrogen fraction as information. Without them an H form beside its D
+    form is reported as H/D exchange. The fraction is quoted only when the lines are thin."""
     found = set(analysis.assignment.species_found)
     unidentified = sorted(f for f in found if f.startswith("unidentified"))
     labels = {iso.label: iso for iso in library.isotopologues()}
     found_molecules = {labels[f].molecule for f in found if f in labels}
+    wanted = {iso.molecule for iso in library.resolve(expected)} if expected else None
     problems: list[tuple[str, str]] = []
-    if expected:
-        wanted = {iso.molecule for iso in library.resolve(expected)}
+    information: list[str] = []
+    fractions = {f.molecule_h: f for f in (intensities.hydrogen_fractions if intensities is not None else ())}
+    thin = intensities is not None and intensities.optically_thin is True
+
+    def fraction_text(molecule_h: str) -> str:
+        fraction = fractions.get(molecule_h)
+        if fraction is None or not thin:
+            return ""
+        value, sigma = fraction.fraction_h.value, fraction.fraction_h.sigma or 0.0
+        return f"hydrogen fraction {molecule_h}/({molecule_h}+{fraction.molecule_d}) {100 * value:.0f} +- {100 * sigma:.0f}%"
+
+    if wanted is not None:
         for molecule in sorted(wanted - found_molecules):
             problems.append(("fail", f"expected {molecule} not found"))
         for molecule in sorted(found_molecules - wanted):
-            partner_note = " (H/D exchange?)" if any(_hd_partners(molecule, w) for w in wanted) else ""
-            problems.append(("warn", f"unexpected {molecule} present{partner_note}"))
+            partner = any(_hd_partners(molecule, w) for w in wanted)
+            extra = fraction_text(molecule) if partner else ""
+            note = " (H/D exchange?" + (f" {extra}" if extra else "") + ")" if partner else ""
+            problems.append(("warn", f"unexpected {molecule} present{note}"))
+    for molecule_h, fraction in fractions.items():
+        text = fraction_text(molecule_h)
+        if wanted is None:
+            problems.append(("warn", f"{molecule_h} in {fraction.molecule_d}" + (f": {text}" if text else "") + " (H/D exchange)"))
+        elif molecule_h in wanted and fraction.molecule_d in wanted and text:
+            information.append(text + " (information)")
     for band in unidentified:
         problems.append(("warn", f"{band}: a band not in the library"))
-    if intensities is not None:
-        for fraction in intensities.hydrogen_fractions:
-            problems.append(("warn", f"{fraction.molecule_h} in {fraction.molecule_d}: hydrogen fraction ~{100 * fraction.fraction_h.value:.0f}% (H/D exchange)"))
-    if intensities is not None and intensities.optically_thin:
+    if thin:
         for ratio in intensities.ratios:
             if ratio.natural and abs(ratio.ratio.value / ratio.natural - 1) > t.abundance_ratio_tolerance:
                 problems.append(("warn", f"{ratio.numerator}/{ratio.denominator} = {ratio.ratio.value:.2f}, natural {ratio.natural:.2f}"))
@@ -321,8 +341,8 @@ def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected:
         return Check("isotopologues", "fail" if expected else "warn", "no isotopologue identified", 0.0)
     if problems:
         status = "fail" if any(s == "fail" for s, _ in problems) else "warn"
-        return Check("isotopologues", status, "; ".join(text for _, text in problems), float(len(problems)))
-    return Check("isotopologues", "pass", "found " + ", ".join(sorted(found)), float(len(found)))
+        return Check("isotopologues", status, "; ".join([text for _, text in problems] + information), float(len(problems)))
+    return Check("isotopologues", "pass", "; ".join(["found " + ", ".join(sorted(found))] + information), float(len(found)))
 
 
 def _hd_partners(a: str, b: str) -> bool:
@@ -330,6 +350,10 @@ def _hd_partners(a: str, b: str) -> bool:
 
 
 def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
+    """Rotational temperature from the best Boltzmann plot, corrected to first order for
+    optical depth (`line_intensities`); not assessed when the lines are too thick for that."""
+    from processing.line_intensities import KAPPA_LIMIT
+
     if intensities is None or not intensities.temperatures:
         return Check("temperature", NOT_ASSESSED, "not assessed: too few clean lines for a Boltzmann plot", None)
     best = min(intensities.temperatures, key=lambda r: r.temperature.sigma or np.inf)
@@ -339,9 +363,12 @@ def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
         return Check("temperature", NOT_ASSESSED, f"not assessed: line centres optically thick (isotopologue ratio at {intensities.thinness:.2f} of natural); the Boltzmann plot gives {T:.0f} K, biased high", None)
     if intensities.optically_thin is None:
         return Check("temperature", NOT_ASSESSED, f"not assessed: optical depth cannot be verified without a 35/37-like isotopologue pair (Boltzmann plot: {T:.0f} +- {sigma:.0f} K, an upper bound if lines are thick)", None)
+    kappa = best.optical_depth.value if best.optical_depth is not None else 0.0
+    if kappa > KAPPA_LIMIT:
+        return Check("temperature", NOT_ASSESSED, f"not assessed: the strongest lines lose {100 * kappa:.0f}% of their area to optical depth, beyond a first-order correction ({T:.0f} K after it)", None)
     inside = t.temperature_min_K - 2 * sigma <= T <= t.temperature_max_K + 2 * sigma
     return Check("temperature", "pass" if inside else "warn",
-                 f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower}", T)
+                 f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower} (optical-depth correction {100 * kappa:+.0f}% on the strongest line)", T)
 
 
 def check_baseline(analysis: Any, t: CheckThresholds) -> Check:
