@@ -365,10 +365,10 @@ def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
         return Check("temperature", NOT_ASSESSED, f"not assessed: optical depth cannot be verified without a 35/37-like isotopologue pair (Boltzmann plot: {T:.0f} +- {sigma:.0f} K, an upper bound if lines are thick)", None)
     kappa = best.optical_depth.value if best.optical_depth is not None else 0.0
     if kappa > KAPPA_LIMIT:
-        return Check("temperature", NOT_ASSESSED, f"not assessed: the strongest lines lose {100 * kappa:.0f}% of their area to optical depth, beyond a first-order correction ({T:.0f} K after it)", None)
+        return Check("temperature", NOT_ASSESSED, f"not assessed: the strongest lines lose ~{100 * kappa:.0f}% of their area to optical depth (Boltzmann plot {T:.0f} +- {sigma:.0f} K)", None)
     inside = t.temperature_min_K - 2 * sigma <= T <= t.temperature_max_K + 2 * sigma
     return Check("temperature", "pass" if inside else "warn",
-                 f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower} (optical-depth correction {100 * kappa:+.0f}% on the strongest line)", T)
+                 f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower} (sigma includes optical depth: strongest line ~{100 * kappa:+.0f}%)", T)
 
 
 def check_baseline(analysis: Any, t: CheckThresholds) -> Check:

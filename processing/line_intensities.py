@@ -34,8 +34,8 @@ THIN_LIMIT = 0.95
 # beyond this first-order deficit of the strongest line the correction is not trusted
 KAPPA_LIMIT = 0.3
 TEMPERATURE_MODEL = (
-    "Boltzmann plot ln(W / (L_HL nu)) = a_P|R - E''/(k T) - kappa W / W_max: kappa corrects the "
-    "strongest lines' optical depth to first order; sigma adds kappa/2 of that correction"
+    "Boltzmann plot ln(W / (L_HL nu)) = a_P|R - E''/(k T); sigma adds the shift a first-order "
+    "optical-depth term (- kappa W / W_max) makes"
 )
 
 
@@ -44,11 +44,11 @@ class RotationalTemperature:
     isotopologue: str
     v_upper: int
     v_lower: int
-    temperature: Estimate  # K, corrected to first order for optical depth
+    temperature: Estimate  # K; sigma includes the optical-depth systematic
     n_lines: int
     rms: float  # of ln(W/(L nu)) residuals
     optical_depth: Estimate | None = None  # kappa: relative W deficit of the strongest line
-    uncorrected: Estimate | None = None  # the plain Boltzmann plot (no optical-depth term)
+    uncorrected: Estimate | None = None  # the plain Boltzmann plot, statistical sigma only
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -59,7 +59,7 @@ class RotationalTemperature:
             "n_lines": self.n_lines,
             "rms": self.rms,
             "optical_depth_deficit": self.optical_depth.to_dict() if self.optical_depth else None,
-            "uncorrected_temperature_K": self.uncorrected.to_dict() if self.uncorrected else None,
+            "statistical_temperature_K": self.uncorrected.to_dict() if self.uncorrected else None,
             "model": TEMPERATURE_MODEL,
         }
 
@@ -187,20 +187,19 @@ def rotational_temperatures(lines: Any, assignment: Any, widths: np.ndarray, wid
         if y.size < design.shape[1] + 3:
             out.append(RotationalTemperature(fit.isotopologue, fit.v_upper, fit.v_lower, uncorrected, int(plain.used.sum()), plain.rms, None, uncorrected))
             continue
-        # first-order curve of growth: ln W = ln(S N) - kappa W / W_max (kappa: the strongest
-        # line's relative deficit), fitted with the temperature; W peaks at mid J, so kappa
-        # is not degenerate with 1/T
+        # optical-depth systematic: a first-order curve-of-growth term, ln W = ln(S N) - kappa
+        # W / W_max (kappa: the strongest line's relative deficit; W peaks at mid J, so it is
+        # not degenerate with 1/T), fitted alongside; the temperature it would move to is
+        # the systematic (the same curvature can also come from line-area errors, so the
+        # plain plot's value is kept and the shift goes into sigma)
         result = weighted_least_squares(np.column_stack([design, -w / w.max()]), y, weights, names + ("kappa",))
         inverse = result.value("inverse_T")
         if inverse <= 0:
             continue
-        temperature = 1.0 / inverse
-        kappa = result.value("kappa")
-        # the second-order remainder of the correction, ~kappa/2 of it, as a systematic
-        remainder = 0.5 * abs(kappa) * abs(temperature - uncorrected.value)
-        sigma = math.hypot(result.sigma("inverse_T") / inverse**2, remainder)
-        out.append(RotationalTemperature(fit.isotopologue, fit.v_upper, fit.v_lower, Estimate(temperature, sigma, "K"), int(result.used.sum()), result.rms,
-                                         Estimate(kappa, result.sigma("kappa"), "1"), uncorrected))
+        shift = 1.0 / inverse - uncorrected.value
+        sigma = math.hypot(uncorrected.sigma or 0.0, shift)
+        out.append(RotationalTemperature(fit.isotopologue, fit.v_upper, fit.v_lower, Estimate(uncorrected.value, sigma, "K"), int(plain.used.sum()), plain.rms,
+                                         Estimate(result.value("kappa"), result.sigma("kappa"), "1"), uncorrected))
     return out
 
 

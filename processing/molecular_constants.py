@@ -47,6 +47,7 @@ from processing.physical_constants import (
 CONSTANT_OF_TERM: dict[tuple[int, int], tuple[str, float]] = {
     (k, l): (name, sign) for name, (k, l, sign) in CONSTANT_TO_DUNHAM.items() if name != "omega_e_z_e"
 }
+NAME_OF_TERM: dict[tuple[int, int], tuple[str, float]] = {(k, l): (name, sign) for name, (k, l, sign) in CONSTANT_TO_DUNHAM.items()}
 COMPARED = ("omega_e", "omega_e_x_e", "omega_e_y_e", "B_e", "alpha_e", "gamma_e", "D_e", "beta_e", "H_e", "r_e")
 # Born-Oppenheimer breakdown between H and D forms: ~0.05-0.3 cm-1 in omega_e, ~3e-4 cm-1 in
 # B_e (calc); a mass-reduced fit without such terms carries them as a systematic on the
@@ -321,7 +322,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
     if term_fit.held:
         notes.append(
             "held at the library's values (not determined by these lines): "
-            + ", ".join(f"{CONSTANT_OF_TERM.get(t, ('Y' + str(t[0]) + str(t[1]), 1.0))[0]}" for t in term_fit.held)
+            + ", ".join(NAME_OF_TERM.get(t, (f"Y{t[0]}{t[1]}", 1.0))[0] for t in term_fit.held)
         )
 
     constants: dict[str, Estimate | None] = {name: None for name in COMPARED}
@@ -370,7 +371,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
     covariance = model.covariance()
     held = {}
     for t, value in term_fit.held.items():
-        name, sign = CONSTANT_OF_TERM.get(t, (f"Y{t[0]}{t[1]}", 1.0))
+        name, sign = NAME_OF_TERM.get(t, (f"Y{t[0]}{t[1]}", 1.0))
         i = model.index(f"Y{t[0]}{t[1]}")
         sigma = math.sqrt(max(covariance[i, i], 0.0)) if i is not None else None
         held[name] = {"value": sign * value, "sigma": sigma, "source": _source(isotopologue, name)}
