@@ -5,6 +5,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from processing.model_reference import compared_reference, compared_z
+
 
 def _number_of(item: Any, *names: str) -> float | None:
     for name in names:
@@ -15,27 +17,20 @@ def _number_of(item: Any, *names: str) -> float | None:
 
 
 def reference_value(reference: Any, key: str) -> float | None:
-    """The reference a constant's Δ/σ is computed against, from a `reference` object.
-
-    Accepts a number, {"value": ...} or the analysis' comparison object, whose compared value
-    is `reference` (older results: `effective_reference` when given, the handbook otherwise)."""
+    """The reference `key`'s Δ/σ is computed against, from a `reference` object (a number,
+    {"value": ...} or the analysis' comparison object)."""
     if not isinstance(reference, dict):
         return None
     item = reference.get(key)
     if isinstance(item, dict):
-        return _number_of(item, "effective_reference", "reference", "value")
+        return compared_reference(item)
     return float(item) if isinstance(item, (int, float)) else None
 
 
 def comparison_z(reference: Any, key: str) -> float | None:
-    """(fit - reference) / sigma against the value `reference_value` returns. None when not
-    given."""
+    """Δ/σ against the value `reference_value` returns; None when not given."""
     item = reference.get(key) if isinstance(reference, dict) else None
-    if not isinstance(item, dict):
-        return None
-    if _number_of(item, "effective_reference") is not None:
-        return _number_of(item, "effective_z")
-    return _number_of(item, "z")
+    return compared_z(item) if isinstance(item, dict) else None
 
 
 def comparison_text(iso: str, key: str, estimate: Any, reference: Any, name: str | None = None) -> str:
