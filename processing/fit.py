@@ -205,9 +205,10 @@ _SIZES = {"separate D": 2, "common D": 1, "no D": 0, "separate H": 2, "common H"
 
 
 def _choose_band_fit(
-    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray, sigma_known: bool
+    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray, sigma_known: bool, sextic: bool = True
 ) -> tuple[LinearFit, str, str]:
-    """(fit, D model, H model): H chosen first with separate D, then D under that H."""
+    """(fit, D model, H model): H chosen first with separate D (unless `sextic` is False),
+    then D under that H."""
     n = observed.size
 
     def attempt(d_model: str, h_model: str) -> LinearFit | None:
@@ -217,7 +218,7 @@ def _choose_band_fit(
         return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known)
 
     h_model = "no H"
-    for candidate in ("separate H", "common H"):
+    for candidate in ("separate H", "common H") if sextic else ():
         trial = attempt("separate D", candidate)
         if trial is None:
             continue
@@ -248,11 +249,14 @@ def fit_band(
     sigma_cm1: np.ndarray,
     sigma_known: bool = True,
     cross_check: bool = True,
+    sextic: bool = True,
 ) -> BandFit:
     """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
 
     `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`);
-    `cross_check=False` skips the combination-difference fits (used while iterating)."""
+    `cross_check=False` skips the combination-difference fits (used while iterating);
+    `sextic=False` leaves H out (while iterating: a cubic term extrapolates predictions to
+    unassigned J wildly when a few positions are still off)."""
     branch = np.asarray(branch)
     J_lower = np.asarray(J_lower, dtype=np.int64)
     observed = np.asarray(observed_cm1, dtype=np.float64)
@@ -261,7 +265,7 @@ def fit_band(
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
     x_low = _x(J_lower)
     x_up = _x(upper_J(branch, J_lower))
-    fit, model, h_model = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known)
+    fit, model, h_model = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic)
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)

@@ -180,10 +180,10 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
     )
     doublet = None
     if isinstance(data, Spectrum):
-        from processing.lines import measure_doublet
+        from processing.doublets import measure_blended_line
 
         def doublet(centre: float, separation: float, ratio: float) -> Any:
-            return measure_doublet(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
+            return measure_blended_line(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
 
     assignment = assign_lines(lines, first, last, assign_settings, library, doublet)
     lap("assignment and fits")
