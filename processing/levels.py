@@ -141,9 +141,10 @@ def band_position_from_constants(
     origin: float, B_upper: float, B_lower: float, D_upper: float, D_lower: float,
     m: np.ndarray,
 ) -> np.ndarray:
-    """nu(m) = nu0 + (B'+B'')m + (B'-B'')m^2 - 2(D'+D'')m^3 - (D'-D'')m^4, cm-1.
+    """nu(m) = nu0 + (B'+B'')m + (B'-B'')m^2 - 2(D'+D'')m^3 - (D'-D'')m^2(m^2+1), cm-1.
 
-    Exact for the band model nu = nu0 + F'(J') - F''(J'') with F(J) = B J(J+1) - D [J(J+1)]^2.
+    Exact for the band model nu = nu0 + F'(J') - F''(J'') with F(J) = B J(J+1) - D [J(J+1)]^2
+    (the m^2 part of the last term is often dropped; it matters once D' != D'', i.e. beta_e).
     """
     m = np.asarray(m, dtype=np.float64)
     return (
@@ -151,5 +152,5 @@ def band_position_from_constants(
         + (B_upper + B_lower) * m
         + (B_upper - B_lower) * m**2
         - 2.0 * (D_upper + D_lower) * m**3
-        - (D_upper - D_lower) * m**4
+        - (D_upper - D_lower) * m**2 * (m**2 + 1.0)
     )
