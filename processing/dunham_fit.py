@@ -62,9 +62,9 @@ def term_name(k: int, l: int) -> str:
 
 
 def _column(lines: AssignedLines, k: int, l: int, mass_reduced: bool) -> np.ndarray:
-    x_up = lines.J_upper.astype(np.float64) * (lines.J_upper + 1.0)
-    x_low = lines.J_lower.astype(np.float64) * (lines.J_lower + 1.0)
-    column = (lines.v_upper + 0.5) ** k * x_up**l - (lines.v_lower + 0.5) ** k * x_low**l
+    from processing.library_uncertainty import term_column
+
+    column = term_column(lines.v_upper, lines.J_upper, lines.v_lower, lines.J_lower, k, l)
     if mass_reduced:
         column = column * lines.reduced_mass_u ** (-(k / 2.0 + l))
     return column

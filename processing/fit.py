@@ -270,18 +270,16 @@ def fit_band(
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
 
-    if model == "separate D":
-        D_upper, D_lower = estimate("D_upper"), estimate("D_lower")
-    elif model == "common D":
-        D_upper = D_lower = estimate("D")
-    else:
-        D_upper = D_lower = None
-    if h_model == "separate H":
-        H_upper, H_lower = estimate("H_upper"), estimate("H_lower")
-    elif h_model == "common H":
-        H_upper = H_lower = estimate("H")
-    else:
-        H_upper = H_lower = None
+    def pair(choice: str, letter: str) -> tuple[Estimate | None, Estimate | None]:
+        """(upper, lower) of a centrifugal term: separate, common or none."""
+        if choice == f"separate {letter}":
+            return estimate(f"{letter}_upper"), estimate(f"{letter}_lower")
+        if choice == f"common {letter}":
+            return estimate(letter), estimate(letter)
+        return None, None
+
+    D_upper, D_lower = pair(model, "D")
+    H_upper, H_lower = pair(h_model, "H")
     used = fit.used
     lower_cd = upper_cd = None
     if cross_check:
