@@ -149,7 +149,7 @@ def test_z_scores_keep_their_promise_by_monte_carlo(library) -> None:
 SIMULATIONS = {
     "HCl fundamental + overtone": dict(gases=[SampleGas("HCl", 0.01, ((1, 0), (2, 0)))], first=2550.0, last=5900.0, path=50.0),
     "HCl + DCl": dict(gases=[SampleGas("DCl", 0.004), SampleGas("HCl", 0.004)], first=1850.0, last=3150.0, total=1.0, species=("HCl", "DCl")),
-    "HF 0.1 cm-1 500 K": dict(gases=[SampleGas("HF", 0.01)], first=3200.0, last=4700.0, resolution=0.1, temperature=500.0, total=0.1),
+    "HF 0.1 cm-1 500 K": dict(gases=[SampleGas("HF", 0.002)], first=3200.0, last=4700.0, resolution=0.1, temperature=500.0, total=0.1),
     "HBr": dict(gases=[SampleGas("HBr", 0.02)], first=2250.0, last=2850.0, resolution=0.125, total=0.1),
     "CO": dict(gases=[SampleGas("CO", 0.01)], first=1950.0, last=2350.0, total=0.1),
 }
