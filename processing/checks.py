@@ -315,7 +315,7 @@ def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected:
         if fraction is None or not thin:
             return ""
         value, sigma = fraction.fraction_h.value, fraction.fraction_h.sigma or 0.0
-        return f"hydrogen fraction {molecule_h}/({molecule_h}+{fraction.molecule_d}) {100 * value:.0f} +- {100 * sigma:.0f}%"
+        return f"hydrogen fraction {molecule_h}/({molecule_h}+{fraction.molecule_d}) {100 * value:.1f} +- {100 * sigma:.1f}%"
 
     if wanted is not None:
         for molecule in sorted(wanted - found_molecules):
