@@ -312,7 +312,7 @@ def _fit_band_lines(
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False)
+        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False, sextic=False)
     except (ValueError, np.linalg.LinAlgError):
         return None
 

@@ -37,9 +37,13 @@ class CheckThresholds:
     # its width at SNR >= 30; more means misassignments or blends)
     rms_width_pass: float = 0.1
     rms_width_warn: float = 0.25
-    # band origin against the library (cm-1); 0.05 ~ the library's own accuracy
+    # wavenumber axis against the library: offset (cm-1, at the bands' mean wavenumber; 0.05
+    # ~ the library's own accuracy) and scale (ppm: the usual FTIR error, laser or aperture;
+    # 30 ppm is 0.06-0.09 cm-1 at 2000-3000 cm-1, 300 ppm about 1 cm-1)
     calibration_pass_cm1: float = 0.05
     calibration_warn_cm1: float = 0.5
+    calibration_scale_pass_ppm: float = 30.0
+    calibration_scale_warn_ppm: float = 300.0
     # interferent lines left unassigned in their typical regions
     interferent_lines_warn: float = 5.0
     negative_lines_warn: float = 5.0
@@ -74,9 +78,13 @@ class Check:
     status: str  # "pass" | "warn" | "fail" | "not_assessed"
     detail: str
     value: float | None = None
+    fit: dict[str, Any] | None = None  # the calibration check's offset + scale fit
 
     def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "status": self.status, "detail": self.detail, "value": self.value}
+        out = {"name": self.name, "status": self.status, "detail": self.detail, "value": self.value}
+        if self.fit is not None:
+            out["fit"] = self.fit
+        return out
 
 
 def _grade(value: float, good: float, fair: float, higher_is_better: bool = True) -> str:
@@ -150,44 +158,111 @@ def check_fit_rms(analysis: Any, t: CheckThresholds) -> Check:
                  f"worst band {worst.label}: rms {worst.rms:.4f} cm-1 = {100 * fraction:.1f}% of the {width:.3f} cm-1 line width", fraction)
 
 
-def _reference_origin(library: Any, label: str, v_upper: int, v_lower: int) -> tuple[float, float] | None:
-    """Library band origin and its own uncertainty: ~0.02 cm-1 when omega_e y_e is known,
-    ~0.3 cm-1 without it (13/4 omega_e y_e is that big for the hydrides, calc) or when the
-    isotopologue is mass-scaled across H/D (Born-Oppenheimer breakdown, calc)."""
-    from processing.levels import band_origin
-
-    try:
-        iso = library.isotopologue(label)
-    except UnknownSpeciesError:  # an unidentified band has no library entry
-        return None
-    uncertainty = 0.02 if (3, 0) in iso.dunham else 0.3
-    if iso.derived_from:
-        parent = library.isotopologue(iso.derived_from)
-        if ("2H" in iso.nuclides) != ("2H" in parent.nuclides):
-            uncertainty = 0.3
-    return band_origin(iso.dunham, v_upper, v_lower), uncertainty
+def _grade_with_noise(value: float, sigma: float, good: float, fair: float) -> str:
+    """pass within max(good, 3 sigma), warn within fair, else fail."""
+    magnitude = abs(value)
+    return "pass" if magnitude <= max(good, 3 * sigma) else "warn" if magnitude <= max(fair, 3 * sigma) else "fail"
 
 
 def check_calibration(analysis: Any, library: Any, t: CheckThresholds) -> Check:
-    offsets = []
-    for fit in analysis.assignment.bands:
-        reference = _reference_origin(library, fit.isotopologue, fit.v_upper, fit.v_lower)
-        if reference is None:
-            continue
-        origin, uncertainty = reference
-        sigma = math.hypot(fit.origin.sigma or 0.0, uncertainty)
-        offsets.append((fit.origin.value - origin, sigma, fit.label, uncertainty))
-    if not offsets:
+    """Offset and scale of the wavenumber axis from every band the library knows.
+
+    A feature at true nu is shown at nu (1 + s) + a. Each band fit then gives its origin
+    (a + s nu0) and its B' and B'' (scaled by 1 + s) against the reference for its model
+    (`model_reference`); one generalised least-squares fit of the offset at the bands' mean
+    wavenumber and the scale uses them all, with the library's correlated uncertainties
+    (isotopologues of one molecule share theirs)."""
+    fit = calibration_fit(analysis)
+    if fit is None:
         return Check("calibration", NOT_ASSESSED, "no library band to compare with", None)
-    weights = np.array([1 / s**2 for _, s, _, _ in offsets])
-    values = np.array([o for o, _, _, _ in offsets])
-    mean = float(np.sum(weights * values) / weights.sum())
-    sigma = float(1 / math.sqrt(weights.sum()))
-    tolerance = max(t.calibration_pass_cm1, 3 * sigma)
-    detail_bands = ", ".join(f"{label} {o:+.3f}" for o, _, label, _ in offsets[:4])
-    status = "pass" if abs(mean) <= tolerance else "warn" if abs(mean) <= t.calibration_warn_cm1 else "fail"
-    reason = "band origins agree with the library" if status == "pass" else "wavenumber calibration offset"
-    return Check("calibration", status, f"{reason}: {mean:+.3f} cm-1 (+-{sigma:.3f}; {detail_bands})", mean)
+    offset, offset_sigma = fit["offset_cm1"], fit["offset_sigma_cm1"]
+    scale, scale_sigma = fit["scale_ppm"], fit["scale_sigma_ppm"]
+    offset_status = _grade_with_noise(offset, offset_sigma, t.calibration_pass_cm1, t.calibration_warn_cm1)
+    scale_status = _grade_with_noise(scale, scale_sigma, t.calibration_scale_pass_ppm, t.calibration_scale_warn_ppm)
+    status = max(offset_status, scale_status, key=STATUS_ORDER.__getitem__)
+    ranked = sorted(fit["bands"], key=lambda b: -b["weight"])
+    named = ", ".join(f"{b['label']} {b['offset']:+.3f} ({100 * b['weight']:.0f}%)" for b in ranked[:4])
+    centre = fit["wavenumber_cm1"]
+    offset_text = f"offset {offset:+.3f} +- {offset_sigma:.3f} cm-1 at {centre:.0f} cm-1"
+    scale_text = f"scale {scale:+.0f} +- {scale_sigma:.0f} ppm"
+    if scale_status != "pass":
+        lowest, highest = min(b["wavenumber_cm1"] for b in fit["bands"]), max(b["wavenumber_cm1"] for b in fit["bands"])
+        at = lambda nu: offset + scale * 1e-6 * (nu - centre)  # noqa: E731
+        stretch = f" (axis stretched: {at(lowest):+.2f} cm-1 at {lowest:.0f}, {at(highest):+.2f} at {highest:.0f})" if highest - lowest > 100 else ""
+        reason = f"wavenumber scale error {scale_text}{stretch}; {offset_text}"
+    elif offset_status != "pass":
+        reason = f"wavenumber calibration offset: {offset_text}; {scale_text}"
+    else:
+        reason = f"band origins agree with the library: {offset_text}, {scale_text}"
+    return Check("calibration", status, f"{reason}; set by {named}", offset, fit)
+
+
+def calibration_fit(analysis: Any) -> dict[str, Any] | None:
+    """Offset (at the mean wavenumber) and scale of the axis from the band references;
+    None when no band has one."""
+    constants = getattr(analysis, "constants", None)
+    references = [b for b in (constants.bands if constants is not None else ()) if b.model.reference is not None]
+    rows: list[tuple[int, int, float, float]] = []  # (band, parameter index, x of offset, x of scale)
+    differences, statistical, sensitivity, per_band = [], [], [], []
+    for number, band in enumerate(references):
+        model = band.model
+        difference = model.values - model.reference
+        covariance = model.statistical
+        chosen = [name for name in ("origin", "B_upper", "B_lower") if name in model.names]
+        indices = [model.names.index(name) for name in chosen]
+        for name, i in zip(chosen, indices):
+            reference_value = float(model.reference[i])
+            rows.append((number, i, 1.0 if name == "origin" else 0.0, reference_value))
+            differences.append(float(difference[i]))
+            sensitivity.append(model.sensitivity[i] - model.reference_sensitivity[i])
+        statistical.append(covariance[np.ix_(indices, indices)])
+        origin = model.names.index("origin")
+        library_cov = model.library.covariance((model.sensitivity - model.reference_sensitivity)[origin])
+        origin_sigma = math.sqrt(max(covariance[origin, origin] + float(library_cov[0, 0]), 0.0))
+        per_band.append({
+            "label": f"{band.isotopologue} {band.v_upper}-{band.v_lower}",
+            "offset": float(difference[origin]),
+            "sigma": origin_sigma,
+            "wavenumber_cm1": float(model.reference[origin]),
+        })
+    if not per_band:
+        return None
+    library = references[0].model.library
+    n = len(differences)
+    d = np.array(differences)
+    blocks = np.zeros((n, n))
+    start = 0
+    for block in statistical:
+        size = block.shape[0]
+        blocks[start:start + size, start:start + size] = block
+        start += size
+    covariance = blocks + library.covariance(np.array(sensitivity))
+    origin_weights = np.array([1.0 / max(b["sigma"], 1e-12) ** 2 for b in per_band])
+    centre = float(np.sum(origin_weights * np.array([b["wavenumber_cm1"] for b in per_band])) / origin_weights.sum())
+    design = np.array([[x_offset, (reference - centre) if x_offset else reference] for _, _, x_offset, reference in rows])
+    design[:, 1] *= 1e-6  # scale in ppm
+    inverse = np.linalg.pinv(covariance)
+    normal = design.T @ inverse @ design
+    normal_inverse = np.linalg.pinv(normal)
+    parameters = normal_inverse @ design.T @ inverse @ d
+    residual = d - design @ parameters
+    dof = n - 2
+    chi2 = float(residual @ inverse @ residual)
+    inflation = max(1.0, chi2 / dof) if dof > 0 else 1.0
+    sigmas = np.sqrt(np.clip(np.diag(normal_inverse) * inflation, 0.0, None))
+    total = origin_weights.sum()
+    for band, weight in zip(per_band, origin_weights):
+        band["weight"] = float(weight / total)
+    return {
+        "offset_cm1": float(parameters[0]),
+        "offset_sigma_cm1": float(sigmas[0]),
+        "scale_ppm": float(parameters[1]),
+        "scale_sigma_ppm": float(sigmas[1]),
+        "wavenumber_cm1": centre,
+        "chi2_reduced": chi2 / dof if dof > 0 else None,
+        "model": "shown = true (1 + scale) + offset; origins, B' and B'' of every band against the reference for its model",
+        "bands": per_band,
+    }
 
 
 def check_interferents(analysis: Any, t: CheckThresholds) -> Check:
@@ -225,24 +300,44 @@ def _negative_lines(analysis: Any) -> int:
 
 
 def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], t: CheckThresholds) -> Check:
+    """Expected species present, nothing unexpected. With species named (`--species` or the
+    station's configuration) a named species is never a problem: a DCl cell that holds HCl by
+    design gives its hydrogen fraction as information. Without them an H form beside its D
+    form is reported as H/D exchange. The fraction is quoted only when the lines are thin."""
     found = set(analysis.assignment.species_found)
     unidentified = sorted(f for f in found if f.startswith("unidentified"))
     labels = {iso.label: iso for iso in library.isotopologues()}
     found_molecules = {labels[f].molecule for f in found if f in labels}
+    wanted = {iso.molecule for iso in library.resolve(expected)} if expected else None
     problems: list[tuple[str, str]] = []
-    if expected:
-        wanted = {iso.molecule for iso in library.resolve(expected)}
+    information: list[str] = []
+    fractions = {f.molecule_h: f for f in (intensities.hydrogen_fractions if intensities is not None else ())}
+    thin = intensities is not None and intensities.optically_thin is True
+
+    def fraction_text(molecule_h: str) -> str:
+        fraction = fractions.get(molecule_h)
+        if fraction is None or not thin:
+            return ""
+        value, sigma = fraction.fraction_h.value, fraction.fraction_h.sigma or 0.0
+        return f"hydrogen fraction {molecule_h}/({molecule_h}+{fraction.molecule_d}) {100 * value:.1f} +- {100 * sigma:.1f}%"
+
+    if wanted is not None:
         for molecule in sorted(wanted - found_molecules):
             problems.append(("fail", f"expected {molecule} not found"))
         for molecule in sorted(found_molecules - wanted):
-            partner_note = " (H/D exchange?)" if any(_hd_partners(molecule, w) for w in wanted) else ""
-            problems.append(("warn", f"unexpected {molecule} present{partner_note}"))
+            partner = any(_hd_partners(molecule, w) for w in wanted)
+            extra = fraction_text(molecule) if partner else ""
+            note = " (H/D exchange?" + (f" {extra}" if extra else "") + ")" if partner else ""
+            problems.append(("warn", f"unexpected {molecule} present{note}"))
+    for molecule_h, fraction in fractions.items():
+        text = fraction_text(molecule_h)
+        if wanted is None:
+            problems.append(("warn", f"{molecule_h} in {fraction.molecule_d}" + (f": {text}" if text else "") + " (H/D exchange)"))
+        elif molecule_h in wanted and fraction.molecule_d in wanted and text:
+            information.append(text + " (information)")
     for band in unidentified:
         problems.append(("warn", f"{band}: a band not in the library"))
-    if intensities is not None:
-        for fraction in intensities.hydrogen_fractions:
-            problems.append(("warn", f"{fraction.molecule_h} in {fraction.molecule_d}: hydrogen fraction ~{100 * fraction.fraction_h.value:.0f}% (H/D exchange)"))
-    if intensities is not None and intensities.optically_thin:
+    if thin:
         for ratio in intensities.ratios:
             if ratio.natural and abs(ratio.ratio.value / ratio.natural - 1) > t.abundance_ratio_tolerance:
                 problems.append(("warn", f"{ratio.numerator}/{ratio.denominator} = {ratio.ratio.value:.2f}, natural {ratio.natural:.2f}"))
@@ -250,8 +345,8 @@ def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected:
         return Check("isotopologues", "fail" if expected else "warn", "no isotopologue identified", 0.0)
     if problems:
         status = "fail" if any(s == "fail" for s, _ in problems) else "warn"
-        return Check("isotopologues", status, "; ".join(text for _, text in problems), float(len(problems)))
-    return Check("isotopologues", "pass", "found " + ", ".join(sorted(found)), float(len(found)))
+        return Check("isotopologues", status, "; ".join([text for _, text in problems] + information), float(len(problems)))
+    return Check("isotopologues", "pass", "; ".join(["found " + ", ".join(sorted(found))] + information), float(len(found)))
 
 
 def _hd_partners(a: str, b: str) -> bool:
@@ -259,6 +354,10 @@ def _hd_partners(a: str, b: str) -> bool:
 
 
 def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
+    """Rotational temperature from the best Boltzmann plot, corrected to first order for
+    optical depth (`line_intensities`); not assessed when the lines are too thick for that."""
+    from processing.line_intensities import KAPPA_LIMIT
+
     if intensities is None or not intensities.temperatures:
         return Check("temperature", NOT_ASSESSED, "not assessed: too few clean lines for a Boltzmann plot", None)
     best = min(intensities.temperatures, key=lambda r: r.temperature.sigma or np.inf)
@@ -268,9 +367,12 @@ def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
         return Check("temperature", NOT_ASSESSED, f"not assessed: line centres optically thick (isotopologue ratio at {intensities.thinness:.2f} of natural); the Boltzmann plot gives {T:.0f} K, biased high", None)
     if intensities.optically_thin is None:
         return Check("temperature", NOT_ASSESSED, f"not assessed: optical depth cannot be verified without a 35/37-like isotopologue pair (Boltzmann plot: {T:.0f} +- {sigma:.0f} K, an upper bound if lines are thick)", None)
+    kappa = best.optical_depth.value if best.optical_depth is not None else 0.0
+    if kappa > KAPPA_LIMIT:
+        return Check("temperature", NOT_ASSESSED, f"not assessed: the strongest lines lose ~{100 * kappa:.0f}% of their area to optical depth (Boltzmann plot {T:.0f} +- {sigma:.0f} K)", None)
     inside = t.temperature_min_K - 2 * sigma <= T <= t.temperature_max_K + 2 * sigma
     return Check("temperature", "pass" if inside else "warn",
-                 f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower}", T)
+                 f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower} (sigma includes optical depth: strongest line ~{100 * kappa:+.0f}%)", T)
 
 
 def check_baseline(analysis: Any, t: CheckThresholds) -> Check:

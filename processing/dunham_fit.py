@@ -5,25 +5,26 @@ Every assigned line is nu = E(v', J') - E(v'', J'') with Dunham term values
 which is linear in the Y_kl, so all bands of one isotopologue (fundamental, overtone, hot
 band) are fitted at once by weighted linear least squares. Which Y_kl are floated depends on
 what the data determine:
-- vibrational Y_k0 (k >= 1): one fewer than the number of vibrational levels seen. With only
-  v = 0 and 1 the single term is G(1) - G(0), not omega_e (reported as not determined);
+- vibrational Y_k0 (k >= 1): one fewer than the number of vibrational levels seen (at most
+  three). With only v = 0 and 1 omega_e is not determined (reported as such);
 - Y01 always; Y11 with two or more levels; Y21 with three or more;
-- Y02 and Y12 (centrifugal) and Y21 only when significant (|value| > 3 sigma).
+- Y03 (sextic), Y12, Y21 and Y02 only when significant (|value| > 3 sigma).
+Every term the fit does not float is held at the `fallback` value given (the library's), not
+at zero: a truncated model would otherwise pass off the missing terms as its own constants.
 Mass-reduced fit: Y_kl = U_kl mu^-(k/2 + l) for all isotopologues of one molecule; the mass
 dependence separates U10 from U20 when hydrogen and deuterium forms are both present.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Any
+from dataclasses import dataclass, field
+from typing import Any, Mapping
 
 import numpy as np
 
 from processing.estimate import Estimate
-from processing.linear_fit import LinearFit, weighted_least_squares
+from processing.linear_fit import SIGNIFICANT, SIGNIFICANT_SEXTIC, LinearFit, weighted_least_squares
 
-SIGNIFICANT = 3.0
-OPTIONAL_TERMS = ((1, 2), (2, 1), (0, 2))  # dropped in this order while not significant
+OPTIONAL_TERMS = ((0, 3), (1, 2), (2, 1), (0, 2))  # dropped in this order while not significant
 
 
 @dataclass(frozen=True)
@@ -60,9 +61,9 @@ def term_name(k: int, l: int) -> str:
 
 
 def _column(lines: AssignedLines, k: int, l: int, mass_reduced: bool) -> np.ndarray:
-    x_up = lines.J_upper.astype(np.float64) * (lines.J_upper + 1.0)
-    x_low = lines.J_lower.astype(np.float64) * (lines.J_lower + 1.0)
-    column = (lines.v_upper + 0.5) ** k * x_up**l - (lines.v_lower + 0.5) ** k * x_low**l
+    from processing.library_uncertainty import term_column
+
+    column = term_column(lines.v_upper, lines.J_upper, lines.v_lower, lines.J_lower, k, l)
     if mass_reduced:
         column = column * lines.reduced_mass_u ** (-(k / 2.0 + l))
     return column
@@ -76,6 +77,7 @@ class TermFit:
     fit: LinearFit
     mass_reduced: bool
     vibrational_levels: tuple[int, ...]
+    held: dict[tuple[int, int], float] = field(default_factory=dict)  # terms not floated: value used
 
     def estimate(self, k: int, l: int) -> Estimate | None:
         name = ("U" if self.mass_reduced else "Y") + f"{k}{l}"
@@ -102,7 +104,7 @@ def _candidate_terms(n_levels: int, vibrational_from_mass: bool) -> list[tuple[i
         terms += [(1, 1), (1, 2)]
     if n_levels >= 3:
         terms.append((2, 1))
-    terms.append((0, 2))
+    terms += [(0, 2), (0, 3)]
     return terms
 
 
@@ -114,20 +116,36 @@ def vibration_separable(lines: AssignedLines, mass_reduced: bool) -> bool:
     return len(lines.levels) >= 3 or from_mass
 
 
-def fit_terms(lines: AssignedLines, mass_reduced: bool = False, held: dict[tuple[int, int], float] | None = None) -> TermFit:
+def term_columns(lines: AssignedLines, terms: Any, mass_reduced: bool) -> np.ndarray:
+    """Design columns (rows = lines) of the given (k, l) terms."""
+    terms = list(terms)
+    if not terms:
+        return np.zeros((lines.count, 0))
+    return np.column_stack([_column(lines, k, l, mass_reduced) for k, l in terms])
+
+
+def fit_terms(
+    lines: AssignedLines,
+    mass_reduced: bool = False,
+    held: dict[tuple[int, int], float] | None = None,
+    fallback: Mapping[tuple[int, int], float] | None = None,
+) -> TermFit:
     """Fit the lines' term values; optional terms are dropped while not significant.
 
-    `held` fixes terms at given values (subtracted from the positions, not floated)."""
+    `held` fixes terms at given values (subtracted from the positions, not floated);
+    `fallback` gives the value of any other term once it is not floated (a candidate dropped
+    as not significant, or one the data cannot reach, such as omega_e y_e with three levels)."""
     levels = lines.levels
     masses = lines.reduced_mass_u
     vibrational_from_mass = mass_reduced and masses.size > 0 and float(masses.max() / masses.min()) > 1.2
-    terms = [t for t in _candidate_terms(len(levels), vibrational_from_mass) if not held or t not in held]
+    fixed = dict(held or {})
+    terms = [t for t in _candidate_terms(len(levels), vibrational_from_mass) if t not in fixed]
     prefix = "U" if mass_reduced else "Y"
-    target = lines.position_cm1.copy()
-    for (k, l), value in (held or {}).items():
-        target = target - value * _column(lines, k, l, mass_reduced)
     while True:
-        design = np.column_stack([_column(lines, k, l, mass_reduced) for k, l in terms])
+        holding = dict(fixed)
+        holding.update({t: v for t, v in (fallback or {}).items() if t not in terms and t not in fixed})
+        target = lines.position_cm1 - term_columns(lines, holding, mass_reduced) @ np.array(list(holding.values()))
+        design = term_columns(lines, terms, mass_reduced)
         names = tuple(prefix + f"{k}{l}" for k, l in terms)
         if lines.count < len(terms) + 1:
             # too few lines: drop optional terms first
@@ -139,10 +157,10 @@ def fit_terms(lines: AssignedLines, mass_reduced: bool = False, held: dict[tuple
         fit = weighted_least_squares(design, target, lines.sigma_cm1, names, sigma_known=lines.sigma_known)
         weak = [
             t for t in OPTIONAL_TERMS
-            if t in terms and not abs(fit.value(prefix + f"{t[0]}{t[1]}")) > SIGNIFICANT * fit.sigma(prefix + f"{t[0]}{t[1]}")
+            if t in terms and not abs(fit.value(prefix + f"{t[0]}{t[1]}")) > (SIGNIFICANT_SEXTIC if t[1] == 3 else SIGNIFICANT) * fit.sigma(prefix + f"{t[0]}{t[1]}")
         ]
         if not weak:
-            return TermFit(tuple(terms), fit, mass_reduced, levels)
+            return TermFit(tuple(terms), fit, mass_reduced, levels, holding)
         terms.remove(weak[0])
 
 

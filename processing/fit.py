@@ -1,10 +1,11 @@
 """Band fits of assigned lines, with combination differences as an independent cross-check.
 
 Band model (cm-1), linear in its parameters:
-    nu = nu0 + B' x' - D' x'^2 - B'' x'' + D'' x''^2,   x = J(J+1)
-D terms are chosen automatically: both free when each is significant and they differ
-significantly; one common D when it is significant; none otherwise ("significant" = |value| >
-3 sigma). Combination differences use only one state each:
+    nu = nu0 + B' x' - D' x'^2 + H' x'^3 - B'' x'' + D'' x''^2 - H'' x''^3,   x = J(J+1)
+Centrifugal terms are chosen automatically ("significant" = |value| > 3 sigma): the sextic H
+first (both free when each is significant and they differ significantly, one common H when it
+is significant, none otherwise: hot or light molecules such as HF at high J need it), then D
+the same way under the chosen H. Combination differences use only one state each:
     lower:  R(J-1) - P(J+1) = F''(J+1) - F''(J-1)
     upper:  R(J)   - P(J)   = F'(J+1)  - F'(J-1)
 with F(J) = B x - D x^2, fitted for B (and D when significant).
@@ -18,9 +19,8 @@ import numpy as np
 
 from processing.estimate import Estimate, format_value_sigma
 from processing.levels import R_BRANCH, upper_J
-from processing.linear_fit import OUTLIER_RULE, LinearFit, weighted_least_squares
+from processing.linear_fit import OUTLIER_RULE, SIGNIFICANT, SIGNIFICANT_SEXTIC, LinearFit, weighted_least_squares
 
-SIGNIFICANT = 3.0  # |value| / sigma above which a centrifugal term is kept
 
 
 @dataclass(frozen=True)
@@ -70,6 +70,11 @@ class BandFit:
     calc: np.ndarray
     used: np.ndarray
     rejection_rule: str = OUTLIER_RULE
+    H_upper: Estimate | None = None
+    H_lower: Estimate | None = None
+    h_model: str = "no H"  # "separate H", "common H" or "no H"
+    sigma: np.ndarray | None = None  # the line uncertainties the fit used (cm-1)
+    linear_fit: LinearFit | None = field(default=None, repr=False, compare=False)  # for model references
     lower_combination: CombinationDifferenceFit | None = None
     upper_combination: CombinationDifferenceFit | None = None
     notes: tuple[str, ...] = field(default=())
@@ -83,7 +88,7 @@ class BandFit:
         error of each prediction propagated from the covariance (grows outside the fitted J)."""
         branch = np.asarray(branch)
         J_lower = np.asarray(J_lower, dtype=np.int64)
-        design, names = _band_design(_x(upper_J(branch, J_lower)), _x(J_lower), self.d_model)
+        design, names = _band_design(_x(upper_J(branch, J_lower)), _x(J_lower), self.d_model, self.h_model)
         values = np.array([self._parameter(name) for name in names])
         positions = design @ values
         variance = np.einsum("ij,jk,ik->i", design, self.covariance, design)
@@ -97,6 +102,9 @@ class BandFit:
             "D_upper": self.D_upper,
             "D_lower": self.D_lower,
             "D": self.D_upper,
+            "H_upper": self.H_upper,
+            "H_lower": self.H_lower,
+            "H": self.H_upper,
         }[name]
         assert estimate is not None
         return estimate.value
@@ -119,6 +127,9 @@ class BandFit:
             "D_upper": self.D_upper.to_dict() if self.D_upper else None,
             "D_lower": self.D_lower.to_dict() if self.D_lower else None,
             "d_model": self.d_model,
+            "H_upper": self.H_upper.to_dict() if self.H_upper else None,
+            "H_lower": self.H_lower.to_dict() if self.H_lower else None,
+            "h_model": self.h_model,
             "chi2_reduced": None if not np.isfinite(self.chi2_reduced) else self.chi2_reduced,
             "parameters": list(self.parameter_names),
             "correlation": np.round(self.correlation, 6).tolist(),
@@ -138,6 +149,8 @@ class BandFit:
             ("B''", self.B_lower),
             ("D'", self.D_upper),
             ("D''", self.D_lower),
+            ("H'", self.H_upper),
+            ("H''", self.H_lower),
         ):
             if estimate is not None:
                 rows.append(f"  {name:4s} {format_value_sigma(estimate.value, estimate.sigma)} cm-1")
@@ -156,7 +169,7 @@ def _x(J: np.ndarray) -> np.ndarray:
     return J * (J + 1.0)
 
 
-def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str) -> tuple[np.ndarray, tuple[str, ...]]:
+def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
     ones = np.ones_like(x_up)
     columns = [ones, x_up, -x_low]
     names: list[str] = ["origin", "B_upper", "B_lower"]
@@ -166,38 +179,67 @@ def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str) -> tuple[np.nd
     elif model == "common D":
         columns += [-(x_up**2) + x_low**2]
         names += ["D"]
+    if h_model == "separate H":
+        columns += [x_up**3, -(x_low**3)]
+        names += ["H_upper", "H_lower"]
+    elif h_model == "common H":
+        columns += [x_up**3 - x_low**3]
+        names += ["H"]
     return np.column_stack(columns), tuple(names)
+
+
+def _threshold(name: str) -> float:
+    return SIGNIFICANT_SEXTIC if name.startswith("H") else SIGNIFICANT
 
 
 def _significant(fit: LinearFit, name: str) -> bool:
     sigma = fit.sigma(name)
-    return sigma > 0 and abs(fit.value(name)) > SIGNIFICANT * sigma
+    return sigma > 0 and abs(fit.value(name)) > _threshold(name) * sigma
+
+
+def _differ(fit: LinearFit, a: str, b: str) -> bool:
+    """Both significant and significantly different from each other."""
+    i, j = fit.names.index(a), fit.names.index(b)
+    var = fit.covariance[i, i] + fit.covariance[j, j] - 2 * fit.covariance[i, j]
+    return _significant(fit, a) and _significant(fit, b) and var > 0 and abs(fit.value(a) - fit.value(b)) > _threshold(a) * np.sqrt(var)
+
+
+_SIZES = {"separate D": 2, "common D": 1, "no D": 0, "separate H": 2, "common H": 1, "no H": 0}
 
 
 def _choose_band_fit(
-    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray, sigma_known: bool
-) -> tuple[LinearFit, str]:
+    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray, sigma_known: bool, sextic: bool = True
+) -> tuple[LinearFit, str, str]:
+    """(fit, D model, H model): H chosen first with separate D (unless `sextic` is False),
+    then D under that H."""
     n = observed.size
-    for model, n_params in (("separate D", 5), ("common D", 4)):
-        if n < n_params + 2:
+
+    def attempt(d_model: str, h_model: str) -> LinearFit | None:
+        if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
+            return None
+        design, names = _band_design(x_up, x_low, d_model, h_model)
+        return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known)
+
+    h_model = "no H"
+    for candidate in ("separate H", "common H") if sextic else ():
+        trial = attempt("separate D", candidate)
+        if trial is None:
             continue
-        design, names = _band_design(x_up, x_low, model)
-        fit = weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known)
-        if model == "separate D":
-            difference = fit.value("D_upper") - fit.value("D_lower")
-            i, j = names.index("D_upper"), names.index("D_lower")
-            var = fit.covariance[i, i] + fit.covariance[j, j] - 2 * fit.covariance[i, j]
-            if (
-                _significant(fit, "D_upper")
-                and _significant(fit, "D_lower")
-                and var > 0
-                and abs(difference) > SIGNIFICANT * np.sqrt(var)
-            ):
-                return fit, model
-        elif _significant(fit, "D"):
-            return fit, model
+        if (candidate == "separate H" and _differ(trial, "H_upper", "H_lower")) or (candidate == "common H" and _significant(trial, "H")):
+            h_model = candidate
+            break
+    for d_model in ("separate D", "common D"):
+        trial = attempt(d_model, h_model)
+        if trial is None:
+            continue
+        if (d_model == "separate D" and _differ(trial, "D_upper", "D_lower")) or (d_model == "common D" and _significant(trial, "D")):
+            return trial, d_model, h_model
+    if h_model != "no H":  # a sextic term without a quartic one is not a model
+        trial = attempt("common D", h_model)
+        if trial is not None:
+            return trial, "common D", h_model
     design, names = _band_design(x_up, x_low, "no D")
-    return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D"
+    return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H"
 
 
 def fit_band(
@@ -210,11 +252,14 @@ def fit_band(
     sigma_cm1: np.ndarray,
     sigma_known: bool = True,
     cross_check: bool = True,
+    sextic: bool = True,
 ) -> BandFit:
     """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
 
     `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`);
-    `cross_check=False` skips the combination-difference fits (used while iterating)."""
+    `cross_check=False` skips the combination-difference fits (used while iterating);
+    `sextic=False` leaves H out (while iterating: a cubic term extrapolates predictions to
+    unassigned J wildly when a few positions are still off)."""
     branch = np.asarray(branch)
     J_lower = np.asarray(J_lower, dtype=np.int64)
     observed = np.asarray(observed_cm1, dtype=np.float64)
@@ -223,17 +268,21 @@ def fit_band(
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
     x_low = _x(J_lower)
     x_up = _x(upper_J(branch, J_lower))
-    fit, model = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known)
+    fit, model, h_model = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic)
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
 
-    if model == "separate D":
-        D_upper, D_lower = estimate("D_upper"), estimate("D_lower")
-    elif model == "common D":
-        D_upper = D_lower = estimate("D")
-    else:
-        D_upper = D_lower = None
+    def pair(choice: str, letter: str) -> tuple[Estimate | None, Estimate | None]:
+        """(upper, lower) of a centrifugal term: separate, common or none."""
+        if choice == f"separate {letter}":
+            return estimate(f"{letter}_upper"), estimate(f"{letter}_lower")
+        if choice == f"common {letter}":
+            return estimate(letter), estimate(letter)
+        return None, None
+
+    D_upper, D_lower = pair(model, "D")
+    H_upper, H_lower = pair(h_model, "H")
     used = fit.used
     lower_cd = upper_cd = None
     if cross_check:
@@ -260,6 +309,11 @@ def fit_band(
         observed=observed,
         calc=fit.calc,
         used=fit.used,
+        H_upper=H_upper,
+        H_lower=H_lower,
+        h_model=h_model,
+        sigma=sigma,
+        linear_fit=fit,
         lower_combination=lower_cd,
         upper_combination=upper_cd,
     )

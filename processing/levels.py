@@ -3,7 +3,7 @@
 Dunham expansion (all in cm-1):
     E(v, J) = sum_kl Y_kl (v + 1/2)^k [J(J+1)]^l
 with Y10 = omega_e, Y20 = -omega_e x_e, Y30 = omega_e y_e, Y01 = B_e, Y11 = -alpha_e,
-Y21 = gamma_e, Y02 = -D_e, Y12 = -beta_e.
+Y21 = gamma_e, Y02 = -D_e, Y12 = -beta_e, Y03 = H_e.
 
 Branch bookkeeping (a line is labelled by its lower-state J, "J''"):
     R(J''):  J' = J'' + 1,  m = J'' + 1   (m = 1, 2, 3, ...)
@@ -30,6 +30,7 @@ CONSTANT_TO_DUNHAM: dict[str, tuple[int, int, float]] = {
     "gamma_e": (2, 1, +1.0),
     "D_e": (0, 2, -1.0),
     "beta_e": (1, 2, -1.0),
+    "H_e": (0, 3, +1.0),
 }
 
 P_BRANCH = "P"
@@ -140,9 +141,10 @@ def band_position_from_constants(
     origin: float, B_upper: float, B_lower: float, D_upper: float, D_lower: float,
     m: np.ndarray,
 ) -> np.ndarray:
-    """nu(m) = nu0 + (B'+B'')m + (B'-B'')m^2 - 2(D'+D'')m^3 - (D'-D'')m^4, cm-1.
+    """nu(m) = nu0 + (B'+B'')m + (B'-B'')m^2 - 2(D'+D'')m^3 - (D'-D'')m^2(m^2+1), cm-1.
 
-    Exact for the band model nu = nu0 + F'(J') - F''(J'') with F(J) = B J(J+1) - D [J(J+1)]^2.
+    Exact for the band model nu = nu0 + F'(J') - F''(J'') with F(J) = B J(J+1) - D [J(J+1)]^2
+    (the m^2 part of the last term is often dropped; it matters once D' != D'', i.e. beta_e).
     """
     m = np.asarray(m, dtype=np.float64)
     return (
@@ -150,5 +152,5 @@ def band_position_from_constants(
         + (B_upper + B_lower) * m
         + (B_upper - B_lower) * m**2
         - 2.0 * (D_upper + D_lower) * m**3
-        - (D_upper - D_lower) * m**4
+        - (D_upper - D_lower) * m**2 * (m**2 + 1.0)
     )

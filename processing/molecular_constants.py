@@ -1,31 +1,41 @@
-"""Molecular constants from all of a run's assigned lines, compared with the library.
+"""Molecular constants from all of a run's assigned lines, each beside the reference for the
+model that was fitted.
 
-Per isotopologue: one Dunham term-value fit of every assigned line (see `dunham_fit`), giving
-B_e, alpha_e (two or more vibrational levels), gamma_e, D_e, beta_e where determined, and
-omega_e, omega_e x_e when three or more vibrational levels are seen (fundamental + overtone,
-or a hot band). Derived quantities, each labelled with the model it assumes:
+Per isotopologue: one Dunham term-value fit of the lines and sigmas its band fits used (see
+`dunham_fit`), giving B_e, alpha_e (two or more vibrational levels), gamma_e, D_e, beta_e,
+H_e where determined, and omega_e, omega_e x_e when three or more vibrational levels are seen
+(fundamental + overtone, or a hot band). Every term the data cannot float is held at the
+library's value, its uncertainty propagated ("held"). Derived quantities, each labelled with
+the model it assumes:
 - r_e = sqrt(h / (8 pi^2 c mu B_e)) (rigid-rotor definition with the Dunham Y01 as B_e);
 - k_e = mu (2 pi c omega_e)^2 (harmonic force constant);
-- zero-point energy G(0) = omega_e/2 - omega_e x_e/4 + omega_e y_e/8 (Dunham, Y00 omitted);
+- zero-point energy G(0) = sum_k Y_k0 / 2^k (Dunham, Y00 omitted);
 - Morse dissociation energy D_e = omega_e^2 / (4 omega_e x_e), and D_0 = D_e - G(0).
+
+Comparisons (one rule for everything, see `model_reference`): each fitted quantity against
+what the same model gives on the library's own positions of the same lines, that reference
+shown beside it, the handbook (library) value and the model named alongside. Band fits get
+the same for their origins, B, D and H values.
+
 Consistency diagnostics: Kratzer D_e ~ 4 B_e^3 / omega_e^2 and Pekeris alpha_e ~
 6 sqrt(omega_e x_e B_e^3)/omega_e - 6 B_e^2/omega_e (the latter only good to 5-20%).
-Mass-reduced fit per molecule: U_kl with Y_kl = U_kl mu^-(k/2+l), residuals per isotopologue
-as an indicator of Born-Oppenheimer breakdown.
+Mass-reduced fit per molecule: U_kl with Y_kl = U_kl mu^-(k/2+l); mean residuals per
+isotopologue beyond their noise indicate Born-Oppenheimer breakdown.
 """
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
-from processing.dunham_fit import AssignedLines, TermFit, fit_terms, propagate
+from processing.dunham_fit import AssignedLines, TermFit, fit_terms, term_columns
+from processing.errors import UnknownSpeciesError
 from processing.estimate import Estimate
-from processing.levels import upper_J
-from processing.lines import fit_sigma_factor
-from processing.species import equilibrium_bond_length_sigma_angstrom
+from processing.levels import CONSTANT_TO_DUNHAM, band_origin, centrifugal_constant, rotational_constant, upper_J
+from processing.library_uncertainty import LibraryParameters, library_parameters, predicted_lines
+from processing.model_reference import Compared, FittedModel, fitted_model
 from processing.physical_constants import (
     CM1_TO_EV,
     CM1_TO_KJ_PER_MOL,
@@ -33,27 +43,30 @@ from processing.physical_constants import (
     force_constant_n_per_m,
 )
 
-# AME2020 mass uncertainties are below 4e-8 u for every nuclide in the library (recalled from
-# memory); used as a conservative per-atom uncertainty in r_e.
-ATOMIC_MASS_SIGMA_U = 4e-8
-
 # Dunham term -> (constant name, sign): constant = sign * Y_kl
 CONSTANT_OF_TERM: dict[tuple[int, int], tuple[str, float]] = {
-    (1, 0): ("omega_e", +1.0),
-    (2, 0): ("omega_e_x_e", -1.0),
-    (3, 0): ("omega_e_y_e", +1.0),
-    (0, 1): ("B_e", +1.0),
-    (1, 1): ("alpha_e", -1.0),
-    (2, 1): ("gamma_e", +1.0),
-    (0, 2): ("D_e", -1.0),
-    (1, 2): ("beta_e", -1.0),
+    (k, l): (name, sign) for name, (k, l, sign) in CONSTANT_TO_DUNHAM.items() if name != "omega_e_z_e"
 }
-COMPARED = ("omega_e", "omega_e_x_e", "B_e", "alpha_e", "D_e", "r_e")
+NAME_OF_TERM: dict[tuple[int, int], tuple[str, float]] = {(k, l): (name, sign) for name, (k, l, sign) in CONSTANT_TO_DUNHAM.items()}
+COMPARED = ("omega_e", "omega_e_x_e", "omega_e_y_e", "B_e", "alpha_e", "gamma_e", "D_e", "beta_e", "H_e", "r_e")
+# Born-Oppenheimer breakdown between H and D forms: ~0.05-0.3 cm-1 in omega_e, ~3e-4 cm-1 in
+# B_e (calc); a mass-reduced fit without such terms carries them as a systematic on the
+# deuterated form's band origins and rotational constants.
+BORN_OPPENHEIMER_OMEGA_CM1 = 0.1
+BORN_OPPENHEIMER_B_CM1 = 3e-4
+# a mean residual per isotopologue beyond this many standard errors is not noise
+RESIDUAL_MEAN_LIMIT = 3.0
 
 
 @dataclass(frozen=True)
 class Comparison:
-    """A fitted constant against the library's reference value."""
+    """A fitted quantity against the reference for the model fitted.
+
+    `reference` is what the same model gives on the library's own positions of the same lines
+    (the value shown beside the fitted one); `handbook` is the library's value of the
+    constant itself (tabulated or mass-scaled); `z` = difference / `combined_sigma` (the fit's
+    statistical error and the reference's own uncertainty). The `effective_*` keys repeat
+    `reference` and `z` for readers of the older form."""
 
     name: str
     fitted: Estimate
@@ -61,26 +74,56 @@ class Comparison:
     source: str
     difference: float
     difference_percent: float
-    z: float | None  # difference / combined uncertainty (the reference's own is not known: 0)
-    # what this run's model should give when the reference has terms the data cannot float
-    # (e.g. gamma_e with two vibrational levels: alpha_e(eff) = alpha_e - 2 gamma_e)
+    z: float | None
     effective_reference: float | None = None
     effective_z: float | None = None
     effective_rule: str | None = None
+    reference_sigma: float | None = None
+    combined_sigma: float | None = None
+    handbook: float | None = None
+    model: str = ""
 
     def to_dict(self) -> dict[str, Any]:
         return {
             "name": self.name,
             "fitted": self.fitted.to_dict(),
             "reference": self.reference,
+            "reference_sigma": self.reference_sigma,
             "source": self.source,
             "difference": self.difference,
             "difference_percent": self.difference_percent,
             "z": self.z,
+            "combined_sigma": self.combined_sigma,
+            "handbook": self.handbook,
+            "model": self.model,
             "effective_reference": self.effective_reference,
             "effective_z": self.effective_z,
             "effective_rule": self.effective_rule,
         }
+
+
+def make_comparison(name: str, compared: Compared, unit: str, handbook: float | None, source: str, model: str) -> Comparison | None:
+    """A Comparison from a `Compared` quantity (None without a reference)."""
+    if compared.reference is None:
+        return None
+    difference = compared.value - compared.reference
+    percent = 100.0 * difference / compared.reference if compared.reference else float("nan")
+    return Comparison(
+        name=name,
+        fitted=Estimate(compared.value, compared.sigma, unit),
+        reference=compared.reference,
+        source=source,
+        difference=difference,
+        difference_percent=percent,
+        z=compared.z,
+        effective_reference=compared.reference,
+        effective_z=compared.z,
+        effective_rule=model,
+        reference_sigma=compared.reference_sigma,
+        combined_sigma=compared.combined_sigma,
+        handbook=handbook,
+        model=model,
+    )
 
 
 @dataclass(frozen=True)
@@ -89,19 +132,24 @@ class IsotopologueConstants:
     n_lines: int
     vibrational_levels: tuple[int, ...]
     rms_cm1: float
-    constants: dict[str, Estimate | None]  # omega_e ... beta_e, r_e (angstrom)
+    constants: dict[str, Estimate | None]  # omega_e ... H_e, r_e (angstrom): fitted only
     band_origins: dict[str, Estimate]  # "1-0" -> nu0 from the term fit
     B_v: dict[int, Estimate]
-    derived: dict[str, dict[str, Any]]  # k_e, zero_point_energy, morse_dissociation: value, sigma, unit, model
+    derived: dict[str, dict[str, Any]]  # k_e, zero_point_energy, morse_*: value, sigma, unit, model, reference, z
     comparisons: tuple[Comparison, ...]
     diagnostics: dict[str, dict[str, Any]]  # kratzer, pekeris
     dunham: dict[str, Estimate]
     correlation: list[list[float]]
     notes: tuple[str, ...] = field(default=())
+    held: dict[str, dict[str, Any]] = field(default_factory=dict)  # constant -> value, sigma, source
+    origin_comparisons: tuple[Comparison, ...] = ()
+    B_v_comparisons: tuple[Comparison, ...] = ()
+    model: str = ""
+    chi2_reduced: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {"isotopologue": self.isotopologue}
-        for name in ("B_e", "alpha_e", "D_e", "r_e", "omega_e", "omega_e_x_e", "omega_e_y_e", "gamma_e", "beta_e"):
+        for name in ("B_e", "alpha_e", "D_e", "r_e", "omega_e", "omega_e_x_e", "omega_e_y_e", "gamma_e", "beta_e", "H_e"):
             estimate = self.constants.get(name)
             out[name] = estimate.to_dict() if estimate is not None else None
         out.update(
@@ -109,8 +157,13 @@ class IsotopologueConstants:
                 "n_lines": self.n_lines,
                 "vibrational_levels": list(self.vibrational_levels),
                 "rms": self.rms_cm1,
+                "chi2_reduced": self.chi2_reduced,
+                "model": self.model,
+                "held": self.held,
                 "band_origins": {k: v.to_dict() for k, v in self.band_origins.items()},
+                "band_origins_reference": {c.name: c.to_dict() for c in self.origin_comparisons},
                 "B_v": {str(v): e.to_dict() for v, e in self.B_v.items()},
+                "B_v_reference": {c.name: c.to_dict() for c in self.B_v_comparisons},
                 "derived": self.derived,
                 "reference": {c.name: c.to_dict() for c in self.comparisons},
                 "diagnostics": self.diagnostics,
@@ -131,6 +184,7 @@ class MassReducedFit:
     parameters: dict[str, Estimate]  # U_kl
     per_isotopologue: dict[str, dict[str, Any]]  # omega_e, omega_e_x_e, B_e derived; residual mean/rms
     notes: tuple[str, ...] = field(default=())
+    held: dict[str, float] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -139,32 +193,49 @@ class MassReducedFit:
             "n_lines": self.n_lines,
             "rms": self.rms_cm1,
             "parameters": {k: v.to_dict() for k, v in self.parameters.items()},
+            "held": self.held,
             "per_isotopologue": self.per_isotopologue,
             "notes": list(self.notes),
         }
 
 
+@dataclass(frozen=True)
+class BandReference:
+    """A band fit's parameters against the reference for its model (see `model_reference`)."""
+
+    isotopologue: str
+    v_upper: int
+    v_lower: int
+    model: FittedModel
+    comparisons: tuple[Comparison, ...]
+
+    @property
+    def key(self) -> tuple[str, int, int]:
+        return (self.isotopologue, self.v_upper, self.v_lower)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {c.name: c.to_dict() for c in self.comparisons}
+
+
 # ------------------------------------------------------------------------------ line table
 def assigned_lines_from(analysis: Any, library: Any) -> AssignedLines:
-    """The assigned lines of an analysis that its band fits used, with line uncertainties
-    (inflated as in the band fits for saturated and blended lines)."""
+    """The lines each band fit used, with the positions and uncertainties it used (blend
+    pulls removed, doublet-measured sigmas, saturated/blended lines widened as it widened
+    them): two fits of the same lines see the same numbers."""
     rows = []
-    lines = analysis.lines
     masses = {iso.label: iso.reduced_mass_u for iso in library.isotopologues()}
-    fits = {(f.isotopologue, f.v_upper, f.v_lower): f for f in analysis.assignment.bands}
-    for i, assigned in enumerate(analysis.assignment.per_line):
-        if assigned is None or not assigned.used_in_fit or assigned.isotopologue not in masses:
+    for band in analysis.assignment.bands:
+        if band.isotopologue not in masses:
             continue
-        if (assigned.isotopologue, assigned.v_upper, assigned.v_lower) not in fits:
-            continue
-        sigma = float(lines.position_sigma_cm1[i] * fit_sigma_factor(lines.saturated[i], assigned.blended))
-        # an unresolved partner's pull was removed in the band fit: use the same corrected position
-        observed = float(lines.position_cm1[i]) - assigned.blend_pull
-        rows.append((assigned.isotopologue, masses[assigned.isotopologue], assigned.v_upper, assigned.v_lower,
-                     int(upper_J(assigned.branch, assigned.J_lower)), assigned.J_lower, observed, sigma))
+        sigma = band.sigma if band.sigma is not None else np.full(band.observed.size, 1e-3)
+        J_up = upper_J(band.branch, band.J_lower)
+        for k in np.flatnonzero(band.used):
+            rows.append((band.isotopologue, masses[band.isotopologue], band.v_upper, band.v_lower,
+                         int(J_up[k]), int(band.J_lower[k]), float(band.observed[k]), float(sigma[k])))
+    sigma_known = bool(analysis.lines.sigma_known)
     if not rows:
         empty = np.zeros(0)
-        return AssignedLines(np.array([], dtype=object), empty, empty.astype(int), empty.astype(int), empty.astype(int), empty.astype(int), empty, empty)
+        return AssignedLines(np.array([], dtype=object), empty, empty.astype(int), empty.astype(int), empty.astype(int), empty.astype(int), empty, empty, sigma_known)
     columns = list(zip(*rows))
     return AssignedLines(
         isotopologue=np.array(columns[0], dtype=object),
@@ -175,60 +246,135 @@ def assigned_lines_from(analysis: Any, library: Any) -> AssignedLines:
         J_lower=np.array(columns[5], dtype=np.int64),
         position_cm1=np.array(columns[6], dtype=np.float64),
         sigma_cm1=np.array(columns[7], dtype=np.float64),
-        sigma_known=bool(lines.sigma_known),
+        sigma_known=sigma_known,
     )
 
 
+# ------------------------------------------------------------------------ model references
+def _library_rows(library: Any, lines: AssignedLines) -> tuple[np.ndarray, np.ndarray]:
+    """Library positions of every line (each with its own isotopologue's constants) and their
+    d/d(theta) rows."""
+    parameters = library_parameters(library)
+    positions = np.zeros(lines.count)
+    jacobian = np.zeros((lines.count, parameters.size))
+    for label in set(lines.isotopologue.tolist()):
+        mine = lines.isotopologue == label
+        p, j = predicted_lines(library, label, lines.v_upper[mine], lines.J_upper[mine], lines.v_lower[mine], lines.J_lower[mine])
+        positions[mine] = p
+        jacobian[mine] = j
+    return positions, jacobian
+
+
+def _term_model(term_fit: TermFit, lines: AssignedLines, library: Any | None, reference_label: str | None,
+                systematic: np.ndarray | None = None) -> FittedModel:
+    """The term fit as a FittedModel: held terms with their library gradients, and the model
+    reference on the library's positions of the same lines."""
+    prefix = "U" if term_fit.mass_reduced else "Y"
+    held_terms = list(term_fit.held)
+    held_names = tuple(prefix + f"{k}{l}" for k, l in held_terms)
+    held_values = np.array([term_fit.held[t] for t in held_terms])
+    columns = term_columns(lines, held_terms, term_fit.mass_reduced)
+    if library is None or reference_label is None:
+        return fitted_model(term_fit.fit, None, held_names=held_names, held_columns=columns, held_values=held_values, systematic=systematic)
+    parameters = library_parameters(library)
+    gradients = parameters.dunham_gradient(reference_label)
+    scale = library.isotopologue(reference_label).reduced_mass_u if term_fit.mass_reduced else 1.0
+    held_gradients = np.array([
+        gradients.get(t, np.zeros(parameters.size)) * scale ** (t[0] / 2 + t[1]) for t in held_terms
+    ]).reshape(len(held_terms), parameters.size)
+    positions, jacobian = _library_rows(library, lines)
+    return fitted_model(term_fit.fit, parameters, positions, jacobian, held_names, columns, held_values, held_gradients, systematic)
+
+
+def _term_getter(model: FittedModel, prefix: str = "Y") -> Callable[[np.ndarray, int, int], float]:
+    indices = {name: i for i, name in enumerate(model.names)}
+
+    def term(values: np.ndarray, k: int, l: int) -> float:
+        i = indices.get(f"{prefix}{k}{l}")
+        return 0.0 if i is None else float(values[i])
+
+    return term
+
+
+def _model_text(term_fit: TermFit) -> str:
+    prefix = "U" if term_fit.mass_reduced else "Y"
+    floated = ", ".join(prefix + f"{k}{l}" for k, l in term_fit.terms)
+    held = ", ".join(prefix + f"{k}{l}" for k, l in term_fit.held)
+    levels = ",".join(str(v) for v in term_fit.vibrational_levels)
+    text = f"Dunham term values of levels v = {levels}: floated {floated}"
+    return text + (f"; held at library values {held}" if held else "")
+
+
 # ------------------------------------------------------------------------ per isotopologue
-def _parameter_vector(term_fit: TermFit) -> tuple[np.ndarray, np.ndarray]:
-    return term_fit.fit.values.copy(), term_fit.fit.covariance
-
-
-def _term(values: np.ndarray, term_fit: TermFit, k: int, l: int) -> float:
-    index = term_fit.index(k, l)
-    return 0.0 if index is None else float(values[index])
-
-
-def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any) -> IsotopologueConstants:
-    """Fit one isotopologue's lines and derive, compare and check its constants."""
-    term_fit = fit_terms(lines)
-    values, covariance = _parameter_vector(term_fit)
+def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library: Any | None = None) -> IsotopologueConstants:
+    """Fit one isotopologue's lines; derive its constants and compare each with the reference
+    for the model fitted."""
+    fallback = dict(isotopologue.dunham) if library is not None else {}
+    term_fit = fit_terms(lines, fallback=fallback)
+    model = _term_model(term_fit, lines, library, isotopologue.label if library is not None else None)
+    term = _term_getter(model)
     levels = term_fit.vibrational_levels
     vibration_determined = len(levels) >= 3
+    model_text = _model_text(term_fit)
     notes: list[str] = []
-    constants: dict[str, Estimate | None] = {name: None for name, _ in CONSTANT_OF_TERM.values()}
-    for (k, l), (name, sign) in CONSTANT_OF_TERM.items():
-        if k >= 1 and l == 0 and not vibration_determined:
-            continue
-        estimate = term_fit.estimate(k, l)
-        if estimate is not None:
-            constants[name] = Estimate(sign * estimate.value, estimate.sigma)
     if not vibration_determined:
         notes.append("omega_e and omega_e x_e need two vibrational intervals (e.g. fundamental + overtone)")
+    if term_fit.held:
+        notes.append(
+            "held at the library's values (not determined by these lines): "
+            + ", ".join(NAME_OF_TERM.get(t, (f"Y{t[0]}{t[1]}", 1.0))[0] for t in term_fit.held)
+        )
+
+    constants: dict[str, Estimate | None] = {name: None for name in COMPARED}
+    comparisons: list[Comparison] = []
+    floated = set(term_fit.terms)
+    for (k, l), (name, sign) in CONSTANT_OF_TERM.items():
+        if (k, l) not in floated or (k >= 1 and l == 0 and not vibration_determined):
+            continue
+        compared = model.quantity(lambda p, k=k, l=l, sign=sign: sign * term(p, k, l))
+        constants[name] = Estimate(compared.value, compared.sigma)
+        handbook = isotopologue.reference.get(name)
+        comparison = make_comparison(name, compared, "cm-1", handbook.value if handbook else None, _source(isotopologue, name), model_text)
+        if comparison is not None:
+            comparisons.append(comparison)
 
     mu = isotopologue.reduced_mass_u
-    mu_sigma = _reduced_mass_sigma(isotopologue)
-    B_index = term_fit.index(0, 1)
-    assert B_index is not None
-    B_e = float(values[B_index])
-    B_sigma = math.sqrt(covariance[B_index, B_index])
-    r_e = bond_length_angstrom(B_e, mu)
-    r_sigma = equilibrium_bond_length_sigma_angstrom(B_e, B_sigma, mu, mu_sigma)
-    constants["r_e"] = Estimate(r_e, r_sigma, "angstrom")
+    r_e = model.quantity(lambda p: bond_length_angstrom(term(p, 0, 1), mu))
+    constants["r_e"] = Estimate(r_e.value, r_e.sigma, "angstrom")
+    r_handbook = isotopologue.reference.get("r_e_angstrom")
+    comparison = make_comparison("r_e", r_e, "angstrom", r_handbook.value if r_handbook else None, _source(isotopologue, "r_e_angstrom"),
+                                 model_text + "; r_e = sqrt(h / (8 pi^2 c mu B_e)) from B_e")
+    if comparison is not None:
+        comparisons.append(comparison)
 
     band_origins: dict[str, Estimate] = {}
+    origin_comparisons: list[Comparison] = []
     for v_upper, v_lower in sorted(set(zip(lines.v_upper.tolist(), lines.v_lower.tolist()))):
-        value, sigma = propagate(lambda p, a=v_upper, b=v_lower: _vibrational_term(p, term_fit, a) - _vibrational_term(p, term_fit, b), values, covariance)
-        band_origins[f"{v_upper}-{v_lower}"] = Estimate(value, sigma)
-    B_v = {}
+        label = f"{v_upper}-{v_lower}"
+        compared = model.quantity(lambda p, a=v_upper, b=v_lower: _vibrational_term(p, term, a) - _vibrational_term(p, term, b))
+        band_origins[label] = Estimate(compared.value, compared.sigma)
+        comparison = make_comparison(label, compared, "cm-1", band_origin(isotopologue.dunham, v_upper, v_lower), _source(isotopologue, "omega_e"), model_text)
+        if comparison is not None:
+            origin_comparisons.append(comparison)
+    B_v: dict[int, Estimate] = {}
+    B_v_comparisons: list[Comparison] = []
     for v in levels:
-        value, sigma = propagate(lambda p, v=v: sum(_term(p, term_fit, k, 1) * (v + 0.5) ** k for k in range(3)), values, covariance)
-        B_v[v] = Estimate(value, sigma)
+        compared = model.quantity(lambda p, v=v: sum(term(p, k, 1) * (v + 0.5) ** k for k in range(4)))
+        B_v[v] = Estimate(compared.value, compared.sigma)
+        comparison = make_comparison(f"B_{v}", compared, "cm-1", rotational_constant(isotopologue.dunham, v), _source(isotopologue, "B_e"), model_text)
+        if comparison is not None:
+            B_v_comparisons.append(comparison)
 
-    derived = _derived(constants, term_fit, values, covariance, mu) if vibration_determined else {}
-    comparisons = tuple(_compare(constants, isotopologue, levels, term_fit))
+    derived = _derived(model, term, mu) if vibration_determined else {}
     diagnostics = _diagnostics(constants, isotopologue)
-    dunham = {name: Estimate(float(values[i]), float(math.sqrt(covariance[i, i]))) for i, name in enumerate(term_fit.names)}
+    dunham = {name: Estimate(float(term_fit.fit.values[i]), float(term_fit.fit.sigmas[i])) for i, name in enumerate(term_fit.names)}
+    covariance = model.covariance()
+    held = {}
+    for t, value in term_fit.held.items():
+        name, sign = NAME_OF_TERM.get(t, (f"Y{t[0]}{t[1]}", 1.0))
+        i = model.index(f"Y{t[0]}{t[1]}")
+        sigma = math.sqrt(max(covariance[i, i], 0.0)) if i is not None else None
+        held[name] = {"value": sign * value, "sigma": sigma, "source": _source(isotopologue, name)}
     return IsotopologueConstants(
         isotopologue=isotopologue.label,
         n_lines=int(term_fit.fit.used.sum()),
@@ -238,96 +384,64 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any) -> Isoto
         band_origins=band_origins,
         B_v=B_v,
         derived=derived,
-        comparisons=comparisons,
+        comparisons=tuple(comparisons),
         diagnostics=diagnostics,
         dunham=dunham,
         correlation=np.round(term_fit.fit.correlation, 6).tolist(),
         notes=tuple(notes),
+        held=held,
+        origin_comparisons=tuple(origin_comparisons),
+        B_v_comparisons=tuple(B_v_comparisons),
+        model=model_text,
+        chi2_reduced=None if not np.isfinite(term_fit.fit.chi2_reduced) else float(term_fit.fit.chi2_reduced),
     )
 
 
-def _vibrational_term(values: np.ndarray, term_fit: TermFit, v: int) -> float:
-    return sum(_term(values, term_fit, k, 0) * (v + 0.5) ** k for k in range(1, 4))
+def _source(isotopologue: Any, name: str) -> str:
+    reference = isotopologue.reference.get(name)
+    if reference is not None:
+        return reference.source
+    return f"mass-scaled from {isotopologue.derived_from}" if isotopologue.derived_from else "library"
 
 
-def _reduced_mass_sigma(isotopologue: Any) -> float:
-    m1, m2 = isotopologue.masses_u
-    # d mu / d m1 = (m2 / (m1 + m2))^2, likewise for m2
-    return ATOMIC_MASS_SIGMA_U * math.hypot((m2 / (m1 + m2)) ** 2, (m1 / (m1 + m2)) ** 2)
+def _vibrational_term(values: np.ndarray, term: Callable[[np.ndarray, int, int], float], v: int) -> float:
+    return sum(term(values, k, 0) * (v + 0.5) ** k for k in range(1, 5))
 
 
-def _derived(constants: dict[str, Estimate | None], term_fit: TermFit, values: np.ndarray, covariance: np.ndarray, mu: float) -> dict[str, dict[str, Any]]:
+def _derived(model: FittedModel, term: Callable[[np.ndarray, int, int], float], mu: float) -> dict[str, dict[str, Any]]:
+    """k_e, zero-point energy and the Morse figures, each with its model reference and z."""
+
     def omega(p: np.ndarray) -> float:
-        return _term(p, term_fit, 1, 0)
+        return term(p, 1, 0)
 
     def omega_x(p: np.ndarray) -> float:
-        return -_term(p, term_fit, 2, 0)
+        return -term(p, 2, 0)
 
     def zero_point(p: np.ndarray) -> float:
-        return _term(p, term_fit, 1, 0) / 2 + _term(p, term_fit, 2, 0) / 4 + _term(p, term_fit, 3, 0) / 8
+        return _vibrational_term(p, term, 0)
+
+    def entry(compared: Compared, unit: str, model_text: str, **extra: Any) -> dict[str, Any]:
+        out = {"value": compared.value, "sigma": compared.sigma, "unit": unit, "model": model_text,
+               "reference": compared.reference, "reference_sigma": compared.reference_sigma, "z": compared.z}
+        out.update(extra)
+        return out
 
     out: dict[str, dict[str, Any]] = {}
-    k_value, k_sigma = propagate(lambda p: force_constant_n_per_m(omega(p), mu), values, covariance)
-    out["k_e"] = {"value": k_value, "sigma": k_sigma, "unit": "N/m", "model": "harmonic: k_e = mu (2 pi c omega_e)^2"}
-    zpe, zpe_sigma = propagate(zero_point, values, covariance)
-    out["zero_point_energy"] = {"value": zpe, "sigma": zpe_sigma, "unit": "cm-1", "model": "Dunham G(0) = omega_e/2 - omega_e x_e/4 + omega_e y_e/8 (Y00 omitted)"}
-    if omega_x(values) > 0:
-        morse, morse_sigma = propagate(lambda p: omega(p) ** 2 / (4 * omega_x(p)), values, covariance)
-        out["morse_dissociation_energy"] = {
-            "value": morse, "sigma": morse_sigma, "unit": "cm-1",
-            "value_eV": morse * CM1_TO_EV, "value_kJ_per_mol": morse * CM1_TO_KJ_PER_MOL,
-            "model": "Morse potential: D_e = omega_e^2 / (4 omega_e x_e) (overestimates real D_e)",
-        }
-        d0, d0_sigma = propagate(lambda p: omega(p) ** 2 / (4 * omega_x(p)) - zero_point(p), values, covariance)
-        out["morse_D0"] = {"value": d0, "sigma": d0_sigma, "unit": "cm-1", "value_eV": d0 * CM1_TO_EV, "model": "Morse D_e minus the zero-point energy"}
+    out["k_e"] = entry(model.quantity(lambda p: force_constant_n_per_m(omega(p), mu)), "N/m", "harmonic: k_e = mu (2 pi c omega_e)^2")
+    out["zero_point_energy"] = entry(model.quantity(zero_point), "cm-1", "Dunham G(0) = sum_k Y_k0 / 2^k, held terms included (Y00 omitted)")
+    if omega_x(model.values) > 0:
+        morse = model.quantity(lambda p: omega(p) ** 2 / (4 * omega_x(p)))
+        out["morse_dissociation_energy"] = entry(
+            morse, "cm-1", "Morse potential: D_e = omega_e^2 / (4 omega_e x_e) (overestimates real D_e)",
+            value_eV=morse.value * CM1_TO_EV, value_kJ_per_mol=morse.value * CM1_TO_KJ_PER_MOL,
+        )
+        d0 = model.quantity(lambda p: omega(p) ** 2 / (4 * omega_x(p)) - zero_point(p))
+        out["morse_D0"] = entry(d0, "cm-1", "Morse D_e minus the zero-point energy", value_eV=d0.value * CM1_TO_EV)
     return out
 
 
-def _effective_reference(name: str, isotopologue: Any, levels: tuple[int, ...], term_fit: TermFit) -> tuple[float | None, str | None]:
-    """The reference as this fit's model sees it: with B_v known at two levels only, a gamma_e
-    the fit cannot float is absorbed: B_e(eff) = B_e - gamma_e (a^2 + ab + b^2 - ...) etc.
-    Computed exactly from the library's B_v at the levels seen (straight line through them)."""
-    gamma = isotopologue.dunham.get((2, 1))
-    if name not in ("B_e", "alpha_e", "r_e") or gamma is None or term_fit.index(2, 1) is not None or len(levels) != 2:
-        return None, None
-    from processing.levels import rotational_constant
-
-    (a, b) = levels
-    B_a, B_b = rotational_constant(isotopologue.dunham, a), rotational_constant(isotopologue.dunham, b)
-    alpha_eff = (B_a - B_b) / (b - a)
-    B_e_eff = B_a + alpha_eff * (a + 0.5)
-    rule = f"gamma_e = {gamma:g} not determined by levels {a},{b}: B_v line through the library's B_{a}, B_{b}"
-    if name == "alpha_e":
-        return alpha_eff, rule
-    if name == "B_e":
-        return B_e_eff, rule
-    return bond_length_angstrom(B_e_eff, isotopologue.reduced_mass_u), rule
-
-
-def _compare(constants: dict[str, Estimate | None], isotopologue: Any, levels: tuple[int, ...], term_fit: TermFit) -> list[Comparison]:
-    out = []
-    for name in COMPARED:
-        fitted = constants.get(name)
-        key = "r_e_angstrom" if name == "r_e" else name
-        reference = isotopologue.reference.get(key)
-        reference_value = reference.value if reference is not None else None
-        source = reference.source if reference is not None else f"mass-scaled from {isotopologue.derived_from}"
-        if reference_value is None:
-            reference_value = _derived_reference(isotopologue, name)
-        if fitted is None or reference_value is None:
-            continue
-        difference = fitted.value - reference_value
-        z = difference / fitted.sigma if fitted.sigma else None
-        effective, rule = _effective_reference(name, isotopologue, levels, term_fit)
-        effective_z = (fitted.value - effective) / fitted.sigma if effective is not None and fitted.sigma else None
-        out.append(Comparison(name, fitted, float(reference_value), source, difference, 100.0 * difference / reference_value, z, effective, effective_z, rule))
-    return out
-
-
-def _derived_reference(isotopologue: Any, name: str) -> float | None:
-    """A reference for a mass-scaled isotopologue from its Dunham set (and r_e from B_e)."""
-    from processing.levels import CONSTANT_TO_DUNHAM
-
+def _library_value(isotopologue: Any, name: str) -> float | None:
+    """A library constant (or r_e from the library's B_e) for diagnostics."""
     if name == "r_e":
         B_e = isotopologue.dunham.get((0, 1))
         return bond_length_angstrom(B_e, isotopologue.reduced_mass_u) if B_e else None
@@ -342,9 +456,9 @@ def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Any) -> di
     """Kratzer and Pekeris relations, with fitted values where the run has them."""
     out: dict[str, dict[str, Any]] = {}
     B_e = constants["B_e"].value if constants.get("B_e") else None
-    omega = constants["omega_e"].value if constants.get("omega_e") else _derived_reference(isotopologue, "omega_e")
+    omega = constants["omega_e"].value if constants.get("omega_e") else _library_value(isotopologue, "omega_e")
     omega_source = "fitted" if constants.get("omega_e") else "library"
-    omega_x = constants["omega_e_x_e"].value if constants.get("omega_e_x_e") else _derived_reference(isotopologue, "omega_e_x_e")
+    omega_x = constants["omega_e_x_e"].value if constants.get("omega_e_x_e") else _library_value(isotopologue, "omega_e_x_e")
     if B_e and omega:
         kratzer = 4 * B_e**3 / omega**2
         D_fit = constants.get("D_e")
@@ -368,53 +482,137 @@ def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Any) -> di
     return out
 
 
+# --------------------------------------------------------------------------- band fits
+def band_reference(fit: Any, library: Any) -> BandReference | None:
+    """A band fit's origin, B, D and H against the same band model fitted to the library's
+    positions of the same lines (None for a band the library does not know)."""
+    if fit.linear_fit is None:
+        return None
+    try:
+        isotopologue = library.isotopologue(fit.isotopologue)
+    except UnknownSpeciesError:
+        return None
+    n = fit.observed.size
+    J_up = upper_J(fit.branch, fit.J_lower)
+    positions, jacobian = predicted_lines(library, isotopologue.label, np.full(n, fit.v_upper), J_up, np.full(n, fit.v_lower), fit.J_lower)
+    model = fitted_model(fit.linear_fit, library_parameters(library), positions, jacobian)
+    dunham = isotopologue.dunham
+    model_text = f"band model ({fit.d_model}, {fit.h_model}) fitted to the library's positions of the same {fit.n_lines} lines"
+    library_values = {
+        "origin": band_origin(dunham, fit.v_upper, fit.v_lower),
+        "B_upper": rotational_constant(dunham, fit.v_upper),
+        "B_lower": rotational_constant(dunham, fit.v_lower),
+        "D_upper": centrifugal_constant(dunham, fit.v_upper),
+        "D_lower": centrifugal_constant(dunham, fit.v_lower),
+        "H_upper": _sextic_constant(dunham, fit.v_upper),
+        "H_lower": _sextic_constant(dunham, fit.v_lower),
+    }
+    aliases = {"D_upper": "D", "D_lower": "D", "H_upper": "H", "H_lower": "H"}
+    comparisons = []
+    for name, handbook in library_values.items():
+        parameter = name if name in model.names else aliases.get(name)
+        if parameter not in model.names:
+            continue
+        compared = model.parameter(parameter)
+        comparison = make_comparison(name, compared, "cm-1", handbook, _source(isotopologue, "B_e" if name != "origin" else "omega_e"), model_text)
+        if comparison is not None:
+            comparisons.append(comparison)
+    return BandReference(fit.isotopologue, fit.v_upper, fit.v_lower, model, tuple(comparisons))
+
+
+def _sextic_constant(dunham: Any, v: int) -> float:
+    """H_v = sum_k Y_k3 (v+1/2)^k, cm-1."""
+    return float(sum(y * (v + 0.5) ** k for (k, l), y in dunham.items() if l == 3))
+
+
 # --------------------------------------------------------------------------- mass-reduced
+def _main_label(labels: list[str], library: Any) -> str:
+    """The isotopologue whose library constants stand for the molecule: a tabulated one,
+    the most abundant first."""
+    entries = [library.isotopologue(label) for label in labels]
+    return max(entries, key=lambda e: (e.derived_from is None, e.abundance)).label
+
+
 def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Any = None) -> MassReducedFit | None:
     """U_kl for all isotopologues of `molecule` in `lines` (needs two or more).
 
-    When the data cannot separate omega_e from omega_e x_e (one vibrational interval, heavy-
-    atom isotopologues only), U20 is held at the library's value: without it the isotope
-    shift of the band origin is mis-modelled by ~2 omega_e x_e (rho - 1) (~0.08 cm-1 for
-    35/37Cl), which would pose as Born-Oppenheimer breakdown."""
-    from processing.dunham_fit import vibration_separable
-
+    Terms the data cannot float are held at the library's values (mass-reduced from the main
+    isotopologue): with one vibrational interval and heavy-atom isotopologues only, U20 (else
+    the isotope shift of the band origin is mis-modelled by ~2 omega_e x_e (rho - 1), ~0.08
+    cm-1 for 35/37Cl, posing as Born-Oppenheimer breakdown); with H and D fundamentals, U30
+    and the higher terms. Such a fit has no Born-Oppenheimer terms: omega_e from it is an
+    effective value whose sigma carries their size as a systematic."""
     labels = sorted(set(lines.isotopologue.tolist()))
     if len(labels) < 2:
         return None
-    held: dict[tuple[int, int], float] = {}
     notes: list[str] = []
-    if not vibration_separable(lines, mass_reduced=True) and library is not None:
-        reference = library.isotopologue(labels[0])
-        Y20 = reference.dunham.get((2, 0))
-        if Y20 is not None:
-            held[(2, 0)] = Y20 * reference.reduced_mass_u
-            notes.append(f"U20 held at the library value {held[(2, 0)]:.4f} cm-1 u (from {reference.label}): not determined by these data")
-    term_fit = fit_terms(lines, mass_reduced=True, held=held)
+    main = _main_label(labels, library) if library is not None else None
+    fallback: dict[tuple[int, int], float] = {}
+    if main is not None:
+        reference = library.isotopologue(main)
+        fallback = {t: y * reference.reduced_mass_u ** (t[0] / 2 + t[1]) for t, y in reference.dunham.items()}
+    term_fit = fit_terms(lines, mass_reduced=True, fallback=fallback)
     fit = term_fit.fit
-    parameters = {name: Estimate(fit.value(name), fit.sigma(name), "cm-1 u^" + f"{int(name[1]) / 2 + int(name[2]):g}") for name in fit.names}
+    masses = lines.reduced_mass_u
+    hydrogen_and_deuterium = float(masses.max() / masses.min()) > 1.2
+    systematic = None
+    if hydrogen_and_deuterium:
+        heavy = masses > 1.2 * masses.min()
+        systematic = np.zeros((len(fit.names), len(fit.names)))
+        for size, column in (
+            (BORN_OPPENHEIMER_OMEGA_CM1, (lines.v_upper - lines.v_lower).astype(float)),
+            (BORN_OPPENHEIMER_B_CM1, lines.J_upper * (lines.J_upper + 1.0) - lines.J_lower * (lines.J_lower + 1.0)),
+        ):
+            effect = fit.operator @ np.where(heavy, column, 0.0) * size
+            systematic += np.outer(effect, effect)
+    model = _term_model(term_fit, lines, library, main, systematic)
+    term = _term_getter(model, "U")
+    parameters = {}
+    for i, name in enumerate(fit.names):
+        compared = model.parameter(name)
+        parameters[name] = Estimate(compared.value, compared.sigma, "cm-1 u^" + f"{int(name[1]) / 2 + int(name[2]):g}")
+    vibration_determined = term_fit.index(2, 0) is not None
     per_isotopologue: dict[str, dict[str, Any]] = {}
+    any_excess = []
     for label in labels:
         mine = lines.isotopologue == label
         mu = float(lines.reduced_mass_u[mine][0])
-        residuals = fit.residuals[mine & fit.used]
+        used = mine & fit.used
+        residuals = fit.residuals[used]
+        weights = 1.0 / lines.sigma_cm1[used] ** 2
+        mean = float(np.sum(weights * residuals) / weights.sum()) if residuals.size else None
+        mean_sigma = float(math.sqrt(max(1.0, fit.chi2_reduced if np.isfinite(fit.chi2_reduced) else 1.0) / weights.sum())) if residuals.size else None
         entry: dict[str, Any] = {
             "reduced_mass_u": mu,
             "n_lines": int(mine.sum()),
-            "residual_mean": float(residuals.mean()) if residuals.size else None,
+            "residual_mean": mean,
+            "residual_mean_sigma": mean_sigma,
             "residual_rms": float(np.sqrt(np.mean(residuals**2))) if residuals.size else None,
         }
-        vibration_determined = term_fit.index(2, 0) is not None
+        if mean is not None and mean_sigma and abs(mean) > RESIDUAL_MEAN_LIMIT * mean_sigma:
+            any_excess.append(f"{label} {mean:+.4f} +- {mean_sigma:.4f} cm-1")
         for (k, l), (name, sign) in CONSTANT_OF_TERM.items():
-            index = term_fit.index(k, l)
-            if index is None or (l == 0 and not vibration_determined):
+            if term_fit.index(k, l) is None or (l == 0 and not vibration_determined):
                 continue
             scale = mu ** (-(k / 2 + l))
-            entry[name] = {"value": sign * float(fit.values[index]) * scale, "sigma": float(fit.sigmas[index]) * scale}
+            compared = model.quantity(lambda p, k=k, l=l, sign=sign, scale=scale: sign * term(p, k, l) * scale)
+            entry[name] = {"value": compared.value, "sigma": compared.sigma, "reference": compared.reference,
+                           "reference_sigma": compared.reference_sigma, "z": compared.z}
         per_isotopologue[label] = entry
-    if term_fit.index(2, 0) is not None:
+    held = {f"U{k}{l}": value for (k, l), value in term_fit.held.items()}
+    if term_fit.held:
+        notes.append("held at the library's values (from " + str(main) + "): " + ", ".join(held))
+    if vibration_determined:
         notes.append("omega_e and omega_e x_e separated by the mass dependence of the band origins")
-    notes.append("systematic residuals per isotopologue indicate Born-Oppenheimer breakdown (expected ~0.1 cm-1 between H and D forms)")
-    return MassReducedFit(molecule, tuple(labels), int(fit.used.sum()), fit.rms, parameters, per_isotopologue, tuple(notes))
+    if hydrogen_and_deuterium:
+        notes.append(
+            f"no Born-Oppenheimer terms fitted: omega_e and B_e here are effective values; their sigmas include "
+            f"{BORN_OPPENHEIMER_OMEGA_CM1} cm-1 (band origin) and {BORN_OPPENHEIMER_B_CM1:g} cm-1 (B) for the deuterated forms"
+        )
+    if any_excess:
+        cause = "Born-Oppenheimer breakdown (H/D) or a misassignment" if hydrogen_and_deuterium else "a misassignment or a blend (heavy-atom isotopologues follow mass scaling to ~0.01 cm-1)"
+        notes.append("mean residuals per isotopologue beyond their noise (" + "; ".join(any_excess) + "): " + cause)
+    return MassReducedFit(molecule, tuple(labels), int(fit.used.sum()), fit.rms, parameters, per_isotopologue, tuple(notes), held)
 
 
 @dataclass(frozen=True)
@@ -422,10 +620,15 @@ class ConstantsResult:
     per_isotopologue: tuple[IsotopologueConstants, ...]
     mass_reduced: tuple[MassReducedFit, ...]
     notes: tuple[str, ...] = ()
+    bands: tuple[BandReference, ...] = ()
+
+    def band(self, key: tuple[str, int, int]) -> BandReference | None:
+        return next((b for b in self.bands if b.key == key), None)
 
 
 def molecular_constants(analysis: Any, library: Any) -> ConstantsResult:
-    """All constants a run's assignment supports (isotopologues with >= 6 fitted lines)."""
+    """All constants a run's assignment supports (isotopologues with >= 6 fitted lines), and
+    every band fit beside its model reference."""
     lines = assigned_lines_from(analysis, library)
     per_isotopologue = []
     notes: list[str] = []
@@ -434,7 +637,7 @@ def molecular_constants(analysis: Any, library: Any) -> ConstantsResult:
         if mine.count < 6:
             continue
         try:
-            per_isotopologue.append(constants_for_isotopologue(mine, library.isotopologue(label)))
+            per_isotopologue.append(constants_for_isotopologue(mine, library.isotopologue(label), library))
         except (ValueError, np.linalg.LinAlgError) as error:
             notes.append(f"{label}: constants not determined ({error})")
     mass_reduced = []
@@ -452,7 +655,8 @@ def molecular_constants(analysis: Any, library: Any) -> ConstantsResult:
             continue
         if fit is not None:
             mass_reduced.append(fit)
-    return ConstantsResult(tuple(per_isotopologue), tuple(mass_reduced), tuple(notes))
+    bands = tuple(b for b in (band_reference(fit, library) for fit in analysis.assignment.bands) if b is not None)
+    return ConstantsResult(tuple(per_isotopologue), tuple(mass_reduced), tuple(notes), bands)
 
 
 def _element_pair(isotopologue: Any) -> str:

@@ -61,6 +61,18 @@ class NoiseEstimate:
         """Independent samples among `points` consecutive points (at least 1)."""
         return max(1.0, points / self.correlation_points)
 
+    def sum_variance_points(self, points: np.ndarray) -> np.ndarray:
+        """Variance of a sum of `points` consecutive values in units of sigma^2:
+        P + 2 sum_k (P - k) rho(k) (P for independent points, ~P tau for P >> tau)."""
+        points = np.asarray(points, dtype=np.float64)
+        rho = self.autocorrelation[1:]
+        lags = np.arange(1, rho.size + 1, dtype=np.float64)
+        # sum over k < P of (P - k) rho(k) = P * S0(m) - S1(m), m = min(P - 1, lags available)
+        s0 = np.concatenate([[0.0], np.cumsum(rho)])
+        s1 = np.concatenate([[0.0], np.cumsum(lags * rho)])
+        m = np.clip(points - 1, 0, rho.size).astype(np.int64)
+        return np.maximum(points + 2.0 * (points * s0[m] - s1[m]), points)
+
     def correlation_matrix(self, size: int) -> np.ndarray:
         """size x size correlation of `size` consecutive points (Toeplitz of rho)."""
         lags = np.abs(np.arange(size)[:, None] - np.arange(size)[None, :])

@@ -180,10 +180,10 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
     )
     doublet = None
     if isinstance(data, Spectrum):
-        from processing.lines import measure_doublet
+        from processing.doublets import measure_blended_line
 
         def doublet(centre: float, separation: float, ratio: float) -> Any:
-            return measure_doublet(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
+            return measure_blended_line(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
 
     assignment = assign_lines(lines, first, last, assign_settings, library, doublet)
     lap("assignment and fits")
@@ -196,6 +196,7 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
     constants = molecular_constants(partial, library)
     intensities = analyse_intensities(partial, library, settings.temperature_K)
     lap("constants and intensities")
+    partial = Analysis(data, baseline, lines, assignment, timing, constants, intensities)
     checks = run_checks(partial, library, intensities, settings.species, thresholds)
     lap("checks")
     return Analysis(data, baseline, lines, assignment, timing, constants, intensities, tuple(checks), verdict_of(checks))
@@ -230,6 +231,14 @@ def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
     return tuple(records)
 
 
+def _band_record(fit: Any, constants: Any) -> dict[str, Any]:
+    """A band fit's JSON with its parameters against the reference for its model."""
+    record = fit.to_dict()
+    reference = constants.band((fit.isotopologue, fit.v_upper, fit.v_lower)) if constants is not None else None
+    record["reference"] = reference.to_dict() if reference is not None else {}
+    return record
+
+
 def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
     """The JSON-ready RunResult of an analysis."""
     data = analysis.data
@@ -252,7 +261,7 @@ def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
         sha256=data.meta.sha256,
         spectrum=SpectrumSummary.of(data),
         lines=_line_records(analysis),
-        bands=tuple(fit.to_dict() for fit in analysis.assignment.bands),
+        bands=tuple(_band_record(fit, analysis.constants) for fit in analysis.assignment.bands),
         constants=tuple(c.to_dict() for c in analysis.constants.per_isotopologue) if analysis.constants else (),
         checks=tuple(c.to_dict() for c in analysis.checks),
         verdict=analysis.verdict,

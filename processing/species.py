@@ -52,11 +52,20 @@ class Nuclide:
 
 @dataclass(frozen=True)
 class ReferenceValue:
-    """A constant with its source; ``recalled`` marks values not re-checked against print."""
+    """A constant with its source; ``recalled`` marks values not re-checked against print.
+
+    `sigma` is the value's standard uncertainty (None: not stated). A value mass-scaled from
+    another isotopologue's constant names it in `scaled_from` with the factor
+    (mu/mu')^(k/2+l) and `scaling_sigma`, the uncertainty the scaling itself adds
+    (Born-Oppenheimer breakdown for H/D swaps); `sigma` then includes the parent's."""
 
     value: float
     source: str
     recalled: bool
+    sigma: float | None = None
+    scaled_from: str | None = None
+    scale_factor: float = 1.0
+    scaling_sigma: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -373,6 +382,7 @@ def _parse_molecule(path: Path, name: str, entry: Mapping[str, Any]) -> dict[str
 
 
 def _parse_constants(path: Path, where: str, table: Any) -> dict[str, ReferenceValue]:
+    """Constants as written; a `scaled_from` entry gets its value later (`_resolve_scaled`)."""
     if not isinstance(table, dict):
         raise LibraryFileError(path, f"{where}: must be a table of constants")
     reference: dict[str, ReferenceValue] = {}
@@ -381,20 +391,46 @@ def _parse_constants(path: Path, where: str, table: Any) -> dict[str, ReferenceV
         if name not in REFERENCE_NAMES:
             raise LibraryFileError(path, f"{key}: unknown constant (known: {', '.join(REFERENCE_NAMES)})")
         if not isinstance(item, dict):
-            raise LibraryFileError(path, f"{key}: must be a table {{value, source, recalled}}")
-        _reject_unknown_keys(path, key, item, {"value", "source", "recalled"})
-        value = _number(path, f"{key}.value", _require(path, key, item, "value"))
-        if name in _MUST_BE_POSITIVE and value <= 0:
-            raise LibraryFileError(path, f"{key}.value: must be positive, got {value!r}")
+            raise LibraryFileError(path, f"{key}: must be a table {{value, sigma, source, recalled}}")
+        _reject_unknown_keys(path, key, item, {"value", "sigma", "source", "recalled", "scaled_from"})
         source = _text(path, f"{key}.source", _require(path, key, item, "source"))
         recalled = item.get("recalled", False)
         if not isinstance(recalled, bool):
             raise LibraryFileError(path, f"{key}.recalled: must be true or false")
-        reference[name] = ReferenceValue(value, source, recalled)
+        sigma = None
+        if "sigma" in item:
+            sigma = _number(path, f"{key}.sigma", item["sigma"])
+            if sigma < 0:
+                raise LibraryFileError(path, f"{key}.sigma: must not be negative, got {sigma!r}")
+        if "scaled_from" in item:
+            if "value" in item:
+                raise LibraryFileError(path, f"{key}: give either value or scaled_from, not both")
+            parent = _text(path, f"{key}.scaled_from", item["scaled_from"])
+            reference[name] = ReferenceValue(math.nan, source, recalled, None, parent, 1.0, sigma or 0.0)
+            continue
+        value = _number(path, f"{key}.value", _require(path, key, item, "value"))
+        if name in _MUST_BE_POSITIVE and value <= 0:
+            raise LibraryFileError(path, f"{key}.value: must be positive, got {value!r}")
+        reference[name] = ReferenceValue(value, source, recalled, sigma)
     for name in _REQUIRED_CONSTANTS:
         if name not in reference:
             raise LibraryFileError(path, f"{where}.{name}: missing")
     return reference
+
+
+def _parse_scaling_sigma(path: Path, where: str, table: Any) -> dict[str, float]:
+    """`mass_scaling_sigma`: per constant, the uncertainty mass scaling adds (cm-1)."""
+    if not isinstance(table, dict):
+        raise LibraryFileError(path, f"{where}: must be a table of constant = sigma")
+    out: dict[str, float] = {}
+    for name, value in table.items():
+        if name not in DUNHAM_CONSTANT_NAMES:
+            raise LibraryFileError(path, f"{where}.{name}: unknown constant (known: {', '.join(DUNHAM_CONSTANT_NAMES)})")
+        number = _number(path, f"{where}.{name}", value)
+        if number < 0:
+            raise LibraryFileError(path, f"{where}.{name}: must not be negative, got {number!r}")
+        out[name] = number
+    return out
 
 
 def _build(
@@ -409,7 +445,7 @@ def _build(
         for name, entry in raw.get("molecules", {}).items()
     }
     isotopologue_tables: dict[str, Mapping[str, Any]] = raw.get("isotopologues", {})
-    allowed = {"molecule", "nuclides", "constants", "derived_from"} | set(_MOLECULE_NUMBERS)
+    allowed = {"molecule", "nuclides", "constants", "derived_from", "mass_scaling_sigma"} | set(_MOLECULE_NUMBERS)
 
     prepared: dict[str, dict[str, Any]] = {}
     for label, entry in isotopologue_tables.items():
@@ -456,6 +492,10 @@ def _build(
             "derived_from": (
                 _text(path, f"{where}.derived_from", entry["derived_from"]) if has_parent else None
             ),
+            "scaling_sigma": (
+                _parse_scaling_sigma(path, f"{where}.mass_scaling_sigma", entry["mass_scaling_sigma"])
+                if "mass_scaling_sigma" in entry else {}
+            ),
         }
 
     entries: dict[str, Isotopologue] = {}
@@ -478,37 +518,78 @@ def _build(
     return Library(nuclides=nuclides, entries=entries, sources=sources)
 
 
+def _scale_exponent(name: str) -> float:
+    """k/2 + l of a constant's Dunham term; 0 for r_e (mass-independent)."""
+    if name == "r_e_angstrom":
+        return 0.0
+    k, l, _sign = CONSTANT_TO_DUNHAM[name]
+    return k / 2.0 + l
+
+
+def _scaled(
+    name: str, parent_label: str, target: Mapping[str, Any], prepared: Mapping[str, Mapping[str, Any]],
+    extra_sigma: float, source: str, where: str, stack: tuple[str, ...],
+) -> ReferenceValue | None:
+    """`name` of `parent_label` mass-scaled to the target's reduced mass (None: parent lacks it)."""
+    path = target["path"]
+    parent = prepared.get(parent_label)
+    if parent is None:
+        raise LibraryFileError(path, f"{where}: unknown isotopologue {parent_label!r}")
+    if parent["constants"] is None:
+        raise LibraryFileError(path, f"{where}: {parent_label!r} is itself derived; name a tabulated one")
+    if parent_label in stack:
+        raise LibraryFileError(path, f"{where}: mass scaling goes round in a circle ({' -> '.join(stack + (parent_label,))})")
+    if name not in parent["constants"]:
+        return None
+    base = _resolved(parent_label, name, prepared, stack + (parent_label,))
+    ratio = reduced_mass_u(*parent["masses_u"]) / reduced_mass_u(*target["masses_u"])
+    factor = ratio ** _scale_exponent(name)
+    sigma = None
+    if base.sigma is not None:
+        sigma = math.hypot(base.sigma * factor, extra_sigma)
+    elif extra_sigma:
+        sigma = extra_sigma
+    return ReferenceValue(base.value * factor, source, base.recalled, sigma, parent_label, factor, extra_sigma)
+
+
+def _resolved(label: str, name: str, prepared: Mapping[str, Mapping[str, Any]], stack: tuple[str, ...]) -> ReferenceValue:
+    """A tabulated entry's constant with any `scaled_from` value computed."""
+    item = prepared[label]
+    ref: ReferenceValue = item["constants"][name]
+    if ref.scaled_from is None:
+        return ref
+    where = f"isotopologues.{label}.constants.{name}.scaled_from"
+    scaled = _scaled(name, ref.scaled_from, item, prepared, ref.scaling_sigma, ref.source, where, stack)
+    if scaled is None:
+        raise LibraryFileError(item["path"], f"{where}: {ref.scaled_from!r} has no {name}")
+    return scaled
+
+
 def _constants_for(
     label: str, item: Mapping[str, Any], prepared: Mapping[str, Mapping[str, Any]]
 ) -> tuple[dict[str, ReferenceValue], dict[tuple[int, int], float], str]:
     """Reference constants, Dunham coefficients and a derivation note for one entry."""
     if item["constants"] is not None:
-        reference = item["constants"]
+        reference = {name: _resolved(label, name, prepared, (label,)) for name in item["constants"]}
         dunham = dunham_from_constants({name: ref.value for name, ref in reference.items()})
-        return reference, dunham, "tabulated"
+        scaled = sorted(name for name, ref in reference.items() if ref.scaled_from)
+        derivation = "tabulated" + (f"; mass-scaled: {', '.join(scaled)}" if scaled else "")
+        return reference, dunham, derivation
     parent_label = item["derived_from"]
-    path = item["path"]
+    where = f"isotopologues.{label}.derived_from"
     parent = prepared.get(parent_label)
     if parent is None:
-        raise LibraryFileError(path, f"isotopologues.{label}.derived_from: unknown isotopologue {parent_label!r}")
-    if parent["constants"] is None:
-        raise LibraryFileError(
-            path, f"isotopologues.{label}.derived_from: {parent_label!r} is itself derived; name a tabulated one"
-        )
-    mu_parent = reduced_mass_u(*parent["masses_u"])
-    mu_target = reduced_mass_u(*item["masses_u"])
-    ratio = mu_parent / mu_target
-    parent_reference: dict[str, ReferenceValue] = parent["constants"]
+        raise LibraryFileError(item["path"], f"{where}: unknown isotopologue {parent_label!r}")
     source = f"mass-scaled from {parent_label} ({MASS_SCALING_RULE})"
     reference: dict[str, ReferenceValue] = {}
-    for name, ref in parent_reference.items():
-        if name == "r_e_angstrom":
-            scaled = ref.value
-        else:
-            k, l, _sign = CONSTANT_TO_DUNHAM[name]
-            scaled = ref.value * ratio ** (k / 2.0 + l)
-        reference[name] = ReferenceValue(scaled, source, ref.recalled)
+    for name in (parent["constants"] or {}):
+        extra = item["scaling_sigma"].get(name, 0.0)
+        scaled = _scaled(name, parent_label, item, prepared, extra, source, where, (label,))
+        if scaled is not None:
+            reference[name] = scaled
     dunham = dunham_from_constants({name: ref.value for name, ref in reference.items()})
+    mu_parent = reduced_mass_u(*parent["masses_u"])
+    mu_target = reduced_mass_u(*item["masses_u"])
     derivation = (
         f"Dunham mass scaling from {parent_label}: {MASS_SCALING_RULE}, "
         f"mu({parent_label}) = {mu_parent:.9f} u, mu({label}) = {mu_target:.9f} u"

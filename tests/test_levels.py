@@ -65,7 +65,7 @@ def test_band_lines_layout(library) -> None:
 def test_band_model_formula_equals_term_differences(library) -> None:
     # For a Dunham set with l <= 2 the band formula with B_v, D_v is exact algebra (common
     # practice); 1e-9 cm-1 is far above float rounding (~1e-12 at 3000 cm-1).
-    dunham = library.isotopologue("H35Cl").dunham
+    dunham = {term: y for term, y in library.isotopologue("H35Cl").dunham.items() if term[1] <= 2}
     for v_up, v_low in ((1, 0), (2, 0), (2, 1)):
         band = band_lines(dunham, v_up, v_low, J_max=25)
         model = band_position_from_constants(

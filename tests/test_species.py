@@ -36,7 +36,7 @@ HANDBOOK = [
     ("D35Cl", "omega_e", 2145.163), ("D35Cl", "omega_e_x_e", 27.1825),
     ("D35Cl", "B_e", 5.448794), ("D35Cl", "alpha_e", 0.113291), ("D35Cl", "r_e", 1.274581),
     ("H79Br", "omega_e", 2648.975), ("H79Br", "omega_e_x_e", 45.2175),
-    ("H79Br", "B_e", 8.464884), ("H79Br", "alpha_e", 0.23328), ("H79Br", "r_e", 1.41443),
+    ("H79Br", "B_e", 8.464884), ("H79Br", "alpha_e", 0.23328),
     ("H19F", "omega_e", 4138.32), ("H19F", "omega_e_x_e", 89.88), ("H19F", "B_e", 20.9557),
     ("H19F", "alpha_e", 0.798), ("H19F", "D_e", 2.151e-3), ("H19F", "r_e", 0.916808),
     ("D19F", "omega_e", 2998.192), ("D19F", "omega_e_x_e", 45.761), ("D19F", "B_e", 11.0102),
@@ -65,12 +65,12 @@ def test_every_tabulated_value_names_a_source(library) -> None:
 
 
 def test_unknown_constants_are_absent_not_zero(library) -> None:
-    # Not tabulated in the library for DCl/HF: must read as unknown, never as 0.0.
-    assert library.isotopologue("D35Cl").constant("gamma_e") is None
-    assert library.isotopologue("H19F").constant("beta_e") is None
-    assert (2, 1) not in library.isotopologue("D35Cl").dunham
+    # Not in the library for DF/CO: must read as unknown, never as 0.0.
+    assert library.isotopologue("D19F").constant("gamma_e") is None
+    assert library.isotopologue("12C16O").constant("gamma_e") is None
+    assert (2, 1) not in library.isotopologue("D19F").dunham
     # ...and stay absent after mass scaling.
-    assert library.isotopologue("D37Cl").constant("gamma_e") is None
+    assert library.isotopologue("13C16O").constant("gamma_e") is None
 
 
 # ------------------------------------------------------------------ r_e from B_e and masses
@@ -278,6 +278,18 @@ B_e = { value = 1.67195, source = "user lab notebook", recalled = true }
 """
 
 
+def test_scaled_constants_carry_their_parent_and_their_own_sigma(library) -> None:
+    # D35Cl omega_e y_e = H35Cl's x (mu_H/mu_D)^(3/2) [Dunham mass scaling]; its sigma adds the
+    # scaling's own (stated in the file) to the parent's, scaled.
+    h, d = library.isotopologue("H35Cl"), library.isotopologue("D35Cl")
+    ref = d.reference["omega_e_y_e"]
+    factor = (h.reduced_mass_u / d.reduced_mass_u) ** 1.5
+    assert ref.scaled_from == "H35Cl" and ref.value == pytest.approx(0.2243 * factor, rel=1e-12)
+    assert ref.sigma == pytest.approx(math.hypot(h.reference["omega_e_y_e"].sigma * factor, ref.scaling_sigma), rel=1e-12)
+    # derived H/D isotopologues state the Born-Oppenheimer size of their scaled omega_e, B_e
+    assert library.isotopologue("D79Br").reference["omega_e"].scaling_sigma == 0.3
+
+
 def test_user_file_adds_a_molecule(tmp_path) -> None:
     library = load_library(write(tmp_path, NITRIC_OXIDE))
     (entry,) = library.resolve(["no"])
@@ -328,6 +340,16 @@ broadening_hwhm_cm1_per_atm = 0.15
         ('[nuclides.35Cl]\nmass_u = 35.453\n', "nuclides.35Cl.mass_u: 35.453 u is not an isotopic mass"),
         ("[isotopologues.H35Cl\nB_e = 1\n", "not valid TOML"),
         ("[species]\nx = 1\n", "species: unknown section"),
+        ('[isotopologues.H35Cl.constants]\nB_e = { value = 10.6, sigma = -1e-6, source = "x" }\n',
+         "isotopologues.H35Cl.constants.B_e.sigma: must not be negative"),
+        ('[isotopologues.D35Cl.constants]\ngamma_e = { scaled_from = "H35Cl", value = 1e-4, source = "x" }\n',
+         "isotopologues.D35Cl.constants.gamma_e: give either value or scaled_from"),
+        ('[isotopologues.D35Cl.constants]\ngamma_e = { scaled_from = "H36Cl", source = "x" }\n',
+         "gamma_e.scaled_from: unknown isotopologue 'H36Cl'"),
+        ('[isotopologues.D35Cl.constants]\ngamma_e = { scaled_from = "D19F", source = "x" }\n',
+         "'D19F' has no gamma_e"),
+        ('[isotopologues.D79Br]\nmass_scaling_sigma = { omega_e = "big" }\n',
+         "isotopologues.D79Br.mass_scaling_sigma.omega_e: must be a number"),
     ],
 )
 def test_malformed_user_file_names_file_and_key(tmp_path, text, expected_in_message) -> None:

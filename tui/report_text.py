@@ -5,6 +5,7 @@ from typing import Any
 
 from processing.estimate import format_value_sigma
 from processing.pipeline import RunResult
+from tui.comparison_text import comparison_z, reference_value
 
 
 def table(headers: list[str], rows: list[list[str]], right: set[int] | None = None) -> str:
@@ -102,6 +103,27 @@ def render_bands(result: RunResult) -> list[str]:
         for b in result.bands
     ]
     out = [table(["band", "lines", "rms", "nu0 cm-1", "B' cm-1", "B'' cm-1", "D' cm-1", "D'' cm-1"], rows, right={1, 2, 3, 4, 5, 6, 7})]
+    sextic = [[f"{b['isotopologue']} {b['v_upper']}-{b['v_lower']}", _q(b.get("H_upper")), _q(b.get("H_lower"))] for b in result.bands if b.get("H_upper")]
+    if sextic:
+        out.append(table(["band", "H' cm-1", "H'' cm-1"], sextic, right={1, 2}))
+    reference_rows = []
+    for b in result.bands:
+        references = b.get("reference") or {}
+        for key, label in (("origin", "nu0"), ("B_upper", "B'"), ("B_lower", "B''"), ("D_upper", "D'"), ("D_lower", "D''"), ("H_upper", "H'"), ("H_lower", "H''")):
+            if key not in references or not b.get(key):
+                continue
+            item = references[key]
+            rows_ref = reference_value(references, key)
+            z = comparison_z(references, key)
+            reference_rows.append([
+                f"{b['isotopologue']} {b['v_upper']}-{b['v_lower']}", label, _q(b[key]),
+                format_value_sigma(rows_ref, item.get("reference_sigma")) if rows_ref is not None else "-",
+                "" if z is None else f"{z:+.1f}",
+                f"{item['handbook']:.8g}" if isinstance(item.get("handbook"), (int, float)) else "",
+            ])
+    if reference_rows:
+        out.append("   against the reference for each band model (the same model fitted to the library's positions of the same lines):")
+        out.append(table(["band", "constant", "fitted", "reference", "z", "library B_v/G"], reference_rows, right={2, 3, 4, 5}))
     cd_rows = []
     for b in result.bands:
         for cd in b.get("combination_differences", []):
@@ -116,19 +138,39 @@ def render_bands(result: RunResult) -> list[str]:
 CONSTANT_ROWS = (
     ("omega_e", "omega_e", "cm-1"),
     ("omega_e_x_e", "omega_e x_e", "cm-1"),
+    ("omega_e_y_e", "omega_e y_e", "cm-1"),
     ("B_e", "B_e", "cm-1"),
     ("alpha_e", "alpha_e", "cm-1"),
     ("gamma_e", "gamma_e", "cm-1"),
     ("D_e", "D_e", "cm-1"),
     ("beta_e", "beta_e", "cm-1"),
+    ("H_e", "H_e", "cm-1"),
     ("r_e", "r_e", "angstrom"),
 )
+
+
+def _comparison_row(isotopologue: str, label: str, q: dict[str, Any], unit: str, references: Any, key: str) -> list[str]:
+    item = references.get(key) if isinstance(references, dict) else None
+    reference = reference_value(references, key)
+    z = comparison_z(references, key)
+    reference_text = difference = handbook = ""
+    if reference is not None:
+        reference_sigma = item.get("reference_sigma") if isinstance(item, dict) else None
+        reference_text = format_value_sigma(reference, reference_sigma)
+        if reference:
+            difference = f"{100 * (q['value'] - reference) / reference:+.3f}%"
+    if isinstance(item, dict):
+        value = item.get("handbook") if item.get("handbook") is not None else (item.get("reference") if item.get("effective_reference") is not None else None)
+        if isinstance(value, (int, float)):
+            handbook = f"{value:.8g}"
+    return [isotopologue, label, format_value_sigma(q["value"], q.get("sigma")), unit, reference_text, difference, "" if z is None else f"{z:+.1f}", handbook]
 
 
 def render_constants(result: RunResult) -> list[str]:
     if not result.constants:
         return []
-    out = ["   molecular constants (one term-value fit of all lines of each isotopologue):"]
+    out = ["   molecular constants (one term-value fit of all lines of each isotopologue), each against the reference"
+           " for the model fitted (the same fit of the library's positions of the same lines):"]
     rows = []
     for entry in result.constants:
         references = entry.get("reference", {})
@@ -136,32 +178,46 @@ def render_constants(result: RunResult) -> list[str]:
             q = entry.get(key)
             if not q:
                 continue
-            ref = references.get(key)
-            if ref:
-                reference_text = f"{ref['reference']:.6g}"
-                difference = f"{ref['difference_percent']:+.3f}%"
-                z = ref.get("effective_z") if ref.get("effective_z") is not None else ref.get("z")
-                z_text = "" if z is None else f"{z:+.1f}"
-                if ref.get("effective_reference") is not None:
-                    reference_text += f" (eff {ref['effective_reference']:.6g})"
-            else:
-                reference_text = difference = z_text = ""
-            rows.append([entry["isotopologue"], label, format_value_sigma(q["value"], q.get("sigma")), unit, reference_text, difference, z_text])
-    out.append(table(["isotopologue", "constant", "fitted", "unit", "reference", "diff", "z"], rows, right={2, 5, 6}))
+            rows.append(_comparison_row(entry["isotopologue"], label, q, unit, references, key))
+        for kind, values, refs in (("nu0", entry.get("band_origins", {}), entry.get("band_origins_reference", {})),
+                                   ("B", entry.get("B_v", {}), entry.get("B_v_reference", {}))):
+            for tag, q in values.items():
+                key = tag if kind == "nu0" else f"B_{tag}"
+                rows.append(_comparison_row(entry["isotopologue"], f"{kind} {tag}" if kind == "nu0" else key, q, "cm-1", refs, key))
+    out.append(table(["isotopologue", "constant", "fitted", "unit", "reference", "diff", "z", "handbook"], rows, right={2, 4, 5, 6, 7}))
+    for entry in result.constants:
+        held = entry.get("held") or {}
+        if held:
+            out.append(f"   {entry['isotopologue']}: held at library values: " + ", ".join(
+                f"{name} {format_value_sigma(h['value'], h.get('sigma'))}" for name, h in held.items()))
+        if entry.get("model"):
+            out.append(f"   {entry['isotopologue']} model: {entry['model']}")
     derived_rows = []
     for entry in result.constants:
         for name, d in entry.get("derived", {}).items():
-            derived_rows.append([entry["isotopologue"], name, format_value_sigma(d["value"], d.get("sigma")), d["unit"], d["model"]])
+            reference = d.get("reference")
+            z = d.get("z")
+            derived_rows.append([entry["isotopologue"], name, format_value_sigma(d["value"], d.get("sigma")), d["unit"],
+                                 format_value_sigma(reference, d.get("reference_sigma")) if isinstance(reference, (int, float)) else "",
+                                 "" if z is None else f"{z:+.1f}", d["model"]])
     if derived_rows:
         out.append("   derived (each under the model named):")
-        out.append(table(["isotopologue", "quantity", "value", "unit", "model"], derived_rows, right={2}))
+        out.append(table(["isotopologue", "quantity", "value", "unit", "reference", "z", "model"], derived_rows, right={2, 4, 5}))
     for fit in result.extra.get("mass_reduced", []):
         out.append(f"   mass-reduced fit {fit['molecule']} ({', '.join(fit['isotopologues'])}): rms {fit['rms']:.4f} cm-1")
         mr_rows = []
         for label, entry in fit["per_isotopologue"].items():
             omega = entry.get("omega_e")
-            mr_rows.append([label, format_value_sigma(omega["value"], omega["sigma"]) if omega else "-", f"{entry['residual_mean']:+.4f}", f"{entry['residual_rms']:.4f}"])
-        out.append(table(["isotopologue", "omega_e cm-1", "mean obs-calc", "rms"], mr_rows, right={1, 2, 3}))
+            mean, mean_sigma = entry.get("residual_mean"), entry.get("residual_mean_sigma")
+            mr_rows.append([
+                label,
+                format_value_sigma(omega["value"], omega["sigma"]) if omega else "-",
+                format_value_sigma(omega["reference"], omega.get("reference_sigma")) if omega and isinstance(omega.get("reference"), (int, float)) else "-",
+                f"{omega['z']:+.1f}" if omega and isinstance(omega.get("z"), (int, float)) else "",
+                "-" if mean is None else (f"{mean:+.4f}" + (f" +- {mean_sigma:.4f}" if mean_sigma else "")),
+                "-" if entry.get("residual_rms") is None else f"{entry['residual_rms']:.4f}",
+            ])
+        out.append(table(["isotopologue", "omega_e cm-1", "reference", "z", "mean obs-calc", "rms"], mr_rows, right={1, 2, 3, 4, 5}))
         out += [f"   note: {note}" for note in fit.get("notes", [])]
     return out
 

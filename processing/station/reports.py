@@ -107,6 +107,17 @@ def _estimate_text(value: Any) -> str:
     return _cell(value)
 
 
+def _reference_text(comparison: Any) -> str:
+    """" (reference R, z Z)": the value a constant's z is computed against (the reference for
+    the model fitted), never a number it was not compared with."""
+    from processing.model_reference import compared_reference, compared_z
+
+    reference, z = compared_reference(comparison), compared_z(comparison)
+    if reference is None:
+        return ""
+    return f" (reference {reference:.8g}" + (f", z {z:+.1f})" if isinstance(z, (int, float)) else ")")
+
+
 def summary_markdown(result: dict[str, Any], run_id: int, version: int) -> str:
     """A short human summary of one run."""
     out = [
@@ -142,8 +153,9 @@ def summary_markdown(result: dict[str, Any], run_id: int, version: int) -> str:
         out += ["", "## Constants", ""]
         for entry in constants:
             label = entry.get("isotopologue", "")
+            references = entry.get("reference") if isinstance(entry.get("reference"), dict) else {}
             values = ", ".join(
-                f"{key} = {_estimate_text(value)}"
+                f"{key} = {_estimate_text(value)}{_reference_text(references.get(key))}"
                 for key, value in entry.items()
                 if isinstance(value, dict) and "value" in value
             )

@@ -366,12 +366,17 @@ async def test_constants_pane_shows_reference_and_deviation(lab: dict[str, Path]
         table = app.screen.query_one(ConstantsTable)
         rows = {str(table.get_cell_at((r, 1))): r for r in range(table.row_count)}
         b_e = rows["B_e cm-1"]
+        # an older result: its Δ/σ was against the effective reference, so that is the value
+        # shown beside it (never a number the Δ/σ was not computed against)
         assert [str(table.get_cell_at((b_e, c))).strip() for c in (2, 3, 4, 5)] == [
-            "10.59340", "±0.00060", "10.59342", "-0.3"  # the comparable reference's deviation
+            "10.59340", "±0.00060", "10.59360", "-0.3"
         ]
         assert str(table.get_cell_at((rows["alpha_e cm-1"], 4))).strip() == "0.30720"
+        # a band origin beside the reference for its band model, Δ/σ against it, `!` beyond 3
+        origin = rows["origin cm-1 1-0"]
+        assert [str(table.get_cell_at((origin, c))).strip() for c in (4, 5)] == ["2885.9862", "!+4.0"]
         for _ in range(b_e):
             await pilot.press("j")
         await settle(app, pilot)
         detail = str(app.screen.query_one("#constant-detail").render())
-        assert "reference 10.593416 (library)" in detail and "-0.3 σ" in detail
+        assert "reference 10.5936: -0.3 σ" in detail and "handbook 10.593416 (library)" in detail

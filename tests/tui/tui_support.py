@@ -102,7 +102,11 @@ def hcl_result(path: str, origin: float, verdict: str = "pass") -> dict[str, Any
         "bands": [
             {"isotopologue": "H35Cl", "v_upper": 1, "v_lower": 0, "n_lines": 7, "rms": 0.0031,
              "origin": q(origin, 0.0012), "B_upper": q(10.1365, 0.0004), "B_lower": q(10.4398, 0.0004),
-             "D_upper": None, "D_lower": None}
+             "D_upper": None, "D_lower": None,
+             "reference": {"origin": {"name": "origin", "fitted": q(origin, 0.0012), "reference": round(origin - 0.0048, 4),
+                                      "reference_sigma": 0.0005, "z": 4.0, "handbook": round(origin - 0.0048, 4),
+                                      "model": "band model fitted to the library's positions of the same lines",
+                                      "source": "library"}}}
         ],
         "constants": [
             {"isotopologue": "H35Cl", "B_e": q(10.5934, 0.0006), "alpha_e": q(0.3072, 0.0005), "D_e": None,

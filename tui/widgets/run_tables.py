@@ -12,6 +12,7 @@ from textual.binding import Binding
 from textual.message import Message
 from textual.widgets import DataTable
 
+from tui.comparison_text import comparison_text, comparison_z, reference_value
 from tui.widgets.cells import (
     check_text,
     decision_text,
@@ -189,12 +190,16 @@ class LinesTable(DataTable):
 
 
 CONSTANT_ROWS: tuple[tuple[str, str], ...] = (
-    ("B_e", "B_e cm-1"),
-    ("alpha_e", "alpha_e cm-1"),
-    ("D_e", "D_e cm-1"),
-    ("r_e", "r_e Å"),
     ("omega_e", "omega_e cm-1"),
     ("omega_e_x_e", "omega_e x_e cm-1"),
+    ("omega_e_y_e", "omega_e y_e cm-1"),
+    ("B_e", "B_e cm-1"),
+    ("alpha_e", "alpha_e cm-1"),
+    ("gamma_e", "gamma_e cm-1"),
+    ("D_e", "D_e cm-1"),
+    ("beta_e", "beta_e cm-1"),
+    ("H_e", "H_e cm-1"),
+    ("r_e", "r_e Å"),
 )
 BAND_ROWS: tuple[tuple[str, str], ...] = (
     ("origin", "origin cm-1"),
@@ -202,56 +207,9 @@ BAND_ROWS: tuple[tuple[str, str], ...] = (
     ("B_lower", "B'' cm-1"),
     ("D_upper", "D' cm-1"),
     ("D_lower", "D'' cm-1"),
+    ("H_upper", "H' cm-1"),
+    ("H_lower", "H'' cm-1"),
 )
-
-
-def reference_value(reference: Any, key: str) -> float | None:
-    """The handbook value for `key` from a constants entry's `reference` object.
-
-    Accepts a number, {"value": ...} or the analysis' comparison object {"reference": ...}.
-    """
-    if not isinstance(reference, dict):
-        return None
-    item = reference.get(key)
-    if isinstance(item, dict):
-        item = item.get("reference", item.get("value"))
-    return float(item) if isinstance(item, (int, float)) else None
-
-
-def comparison_z(reference: Any, key: str) -> float | None:
-    """(fit - reference) / sigma as the analysis states it: against the comparable reference
-    (`effective_z`, when the analysis corrected the reference for terms the fit cannot
-    determine), else the plain `z`. None when not given."""
-    item = reference.get(key) if isinstance(reference, dict) else None
-    if not isinstance(item, dict):
-        return None
-    for name in ("effective_z", "z"):
-        if isinstance(item.get(name), (int, float)):
-            return float(item[name])
-    return None
-
-
-def comparison_text(iso: str, key: str, estimate: Any, reference: Any) -> str:
-    """One sentence on a fitted constant and its reference, for the line under the table."""
-    value = estimate.get("value") if isinstance(estimate, dict) else None
-    sigma = estimate.get("sigma") if isinstance(estimate, dict) else None
-    parts = [f"{iso} {key}: fitted {value:.8g}" if isinstance(value, (int, float)) else f"{iso} {key}"]
-    if isinstance(sigma, (int, float)):
-        parts[0] += f" ± {sigma:.2g}"
-    item = reference.get(key) if isinstance(reference, dict) else None
-    if isinstance(item, dict):
-        if isinstance(item.get("reference"), (int, float)):
-            source = f" ({item['source']})" if item.get("source") else ""
-            parts.append(f"reference {item['reference']:.8g}{source}")
-        if isinstance(item.get("z"), (int, float)):
-            parts.append(f"{item['z']:+.1f} σ")
-        if isinstance(item.get("effective_reference"), (int, float)):
-            rule = f" [{item['effective_rule']}]" if item.get("effective_rule") else ""
-            z = f": {item['effective_z']:+.1f} σ" if isinstance(item.get("effective_z"), (int, float)) else ""
-            parts.append(f"comparable reference {item['effective_reference']:.8g}{z}{rule}")
-    elif isinstance(item, (int, float)):
-        parts.append(f"reference {item:.8g}")
-    return "; ".join(parts)
 
 
 def reference_cell(reference: float | None, estimate: Any) -> Text:
@@ -262,8 +220,17 @@ def reference_cell(reference: float | None, estimate: Any) -> Text:
     return quantity_cells({"value": reference, "sigma": sigma})[0]
 
 
+def z_cell(z: float | None) -> Text:
+    """Δ/σ, marked `!` beyond 3 (never by colour alone)."""
+    if z is None:
+        return Text("")
+    mark = "!" if abs(z) >= 3 else ""
+    return Text(f"{mark}{z:+.1f}", justify="right", style="bold" if mark else "")
+
+
 class ConstantsTable(DataTable):
-    """Band constants per band and molecular constants per isotopologue, beside reference values."""
+    """Band constants per band and molecular constants per isotopologue, each beside the
+    reference its Δ/σ is computed against (the same model on the library's own lines)."""
 
     BINDINGS = VERTICAL_KEYS
 
@@ -287,12 +254,15 @@ class ConstantsTable(DataTable):
         for band in bands:
             iso = str(band.get("isotopologue", "?"))
             tag = f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}"
+            references = band.get("reference") or {}
             for key, label in BAND_ROWS:
                 if band.get(key) is None:
                     continue
-                value, sigma = quantity_cells(band.get(key))
-                self._add(iso, f"{key}@{tag}", f"{label} {tag}", value, sigma, Text(""), Text(""),
-                          comparison_text(iso, f"{key} ({tag})", band.get(key), None))
+                estimate = band.get(key)
+                value, sigma = quantity_cells(estimate)
+                ref_cell = reference_cell(reference_value(references, key), estimate)
+                self._add(iso, f"{key}@{tag}", f"{label} {tag}", value, sigma, ref_cell, z_cell(comparison_z(references, key)),
+                          comparison_text(iso, key, estimate, references, f"{key} ({tag})"))
             rms = band.get("rms")
             self._add(
                 iso, "", f"rms {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text(""),
@@ -306,11 +276,8 @@ class ConstantsTable(DataTable):
                     continue
                 estimate = constant.get(key)
                 value, sigma = quantity_cells(estimate)
-                ref = reference_value(reference, key)
-                ref_cell = reference_cell(ref, estimate)
-                z = comparison_z(reference, key)
-                z_cell = Text(f"{z:+.1f}", justify="right") if z is not None else Text("")
-                self._add(iso, key, label, value, sigma, ref_cell, z_cell,
+                ref_cell = reference_cell(reference_value(reference, key), estimate)
+                self._add(iso, key, label, value, sigma, ref_cell, z_cell(comparison_z(reference, key)),
                           comparison_text(iso, key, estimate, reference))
         if self.row_count == 0:
             self.add_row(Text("no fitted constants for this run", style="dim"), "", "", "", "", "")

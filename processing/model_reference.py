@@ -1,0 +1,196 @@
+"""Each fitted quantity beside the reference for the model that was fitted.
+
+A fit with a truncated model (two vibrational levels, no gamma_e, no H_v, ...) does not
+estimate the handbook constants: its parameters absorb the terms it lacks. The reference it
+must be compared with is what the same model, fitted to the same lines with the same weights,
+gives on the library's own positions of those lines (computed from the library's full
+constant set): `reference = operator @ library_positions`. Terms the data cannot float are
+held at their library values (`held`), their uncertainty propagated into the fitted values.
+
+Library errors enter through `processing.library_uncertainty` (independent parameters theta).
+With S = d(fitted)/d(theta) (through held terms) and R = d(reference)/d(theta):
+    covariance of the fitted values    C_stat + S Sigma S^T
+    covariance of the reference        R Sigma R^T
+    covariance of fitted - reference   C_stat + (S - R) Sigma (S - R)^T
+(held terms cancel in the difference: fitted - reference = operator (y - library positions)).
+z = (f(fitted) - f(reference)) / that last sigma, for any function f of the parameters.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from processing.library_uncertainty import LibraryParameters
+from processing.linear_fit import LinearFit
+
+
+@dataclass(frozen=True)
+class Compared:
+    """A fitted quantity and the reference for its model: value +- sigma against reference
+    +- reference_sigma; z = (value - reference) / combined_sigma."""
+
+    value: float
+    sigma: float | None
+    reference: float | None = None
+    reference_sigma: float | None = None
+    z: float | None = None
+    combined_sigma: float | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "value": self.value,
+            "sigma": self.sigma,
+            "reference": self.reference,
+            "reference_sigma": self.reference_sigma,
+            "z": self.z,
+            "combined_sigma": self.combined_sigma,
+        }
+
+
+def _gradient(function: Callable[[np.ndarray], float], values: np.ndarray) -> np.ndarray:
+    """Numerical gradient (central differences, relative step 1e-6)."""
+    gradient = np.zeros(values.size)
+    for i in range(values.size):
+        step = 1e-6 * max(abs(values[i]), 1e-12)
+        up, down = values.copy(), values.copy()
+        up[i] += step
+        down[i] -= step
+        gradient[i] = (float(function(up)) - float(function(down))) / (2 * step)
+    return gradient
+
+
+def _quadratic(gradient: np.ndarray, covariance: np.ndarray) -> float:
+    return float(np.sqrt(max(float(gradient @ covariance @ gradient), 0.0)))
+
+
+@dataclass(frozen=True)
+class FittedModel:
+    """Fitted parameters (floated, then held) with what is needed to compare any function of
+    them with its model reference. `reference` is None when the library has no such species."""
+
+    names: tuple[str, ...]
+    values: np.ndarray
+    statistical: np.ndarray  # from the data (held rows and columns are zero)
+    library: LibraryParameters | None
+    sensitivity: np.ndarray  # d values / d theta
+    reference: np.ndarray | None = None
+    reference_sensitivity: np.ndarray | None = None
+    systematic: np.ndarray | None = None  # model systematics added to the fitted covariance
+    held: tuple[str, ...] = field(default=())
+    sigma_determined: bool = True  # False when the fit had no degrees of freedom
+
+    def index(self, name: str) -> int | None:
+        return self.names.index(name) if name in self.names else None
+
+    def covariance(self) -> np.ndarray:
+        total = self.statistical.copy()
+        if self.library is not None and self.sensitivity.size:
+            total = total + self.library.covariance(self.sensitivity)
+        if self.systematic is not None:
+            total = total + self.systematic
+        return total
+
+    def difference_covariance(self) -> np.ndarray:
+        total = self.statistical.copy()
+        if self.library is not None and self.reference_sensitivity is not None:
+            total = total + self.library.covariance(self.sensitivity - self.reference_sensitivity)
+        return total
+
+    def reference_covariance(self) -> np.ndarray | None:
+        if self.library is None or self.reference_sensitivity is None:
+            return None
+        return self.library.covariance(self.reference_sensitivity)
+
+    def quantity(self, function: Callable[[np.ndarray], float]) -> Compared:
+        """`function` of the parameter vector, fitted and referenced."""
+        value = float(function(self.values))
+        gradient = _gradient(function, self.values)
+        sigma = _quadratic(gradient, self.covariance()) if self.sigma_determined else None
+        if self.reference is None:
+            return Compared(value, sigma)
+        reference = float(function(self.reference))
+        reference_covariance = self.reference_covariance()
+        reference_sigma = _quadratic(_gradient(function, self.reference), reference_covariance) if reference_covariance is not None else None
+        combined = _quadratic(gradient, self.difference_covariance())
+        z = (value - reference) / combined if self.sigma_determined and combined > 0 else None
+        return Compared(value, sigma, reference, reference_sigma, z, combined)
+
+    def parameter(self, name: str) -> Compared:
+        i = self.names.index(name)
+        return self.quantity(lambda p, i=i: p[i])
+
+
+def fitted_model(
+    fit: LinearFit,
+    library: LibraryParameters | None,
+    library_positions: np.ndarray | None = None,
+    library_jacobian: np.ndarray | None = None,
+    held_names: tuple[str, ...] = (),
+    held_columns: np.ndarray | None = None,
+    held_values: np.ndarray | None = None,
+    held_gradients: np.ndarray | None = None,
+    systematic: np.ndarray | None = None,
+) -> FittedModel:
+    """A linear fit (rows = lines) with its held terms and, when the library knows the
+    species, its model reference.
+
+    held_columns (rows x held): design columns of the held terms, whose contribution
+    held_columns @ held_values was subtracted from the data before the fit; held_gradients
+    (held x theta): d(held value)/d(theta)."""
+    n_fit = len(fit.names)
+    n_held = len(held_names)
+    n_theta = library.size if library is not None else 0
+    operator = fit.operator if fit.operator is not None else np.zeros((n_fit, 0))
+    columns = held_columns if held_columns is not None else np.zeros((operator.shape[1], 0))
+    held = held_values if held_values is not None else np.zeros(0)
+    held_grad = held_gradients if held_gradients is not None else np.zeros((n_held, n_theta))
+    values = np.concatenate([fit.values, held])
+    statistical = np.zeros((n_fit + n_held, n_fit + n_held))
+    statistical[:n_fit, :n_fit] = fit.covariance
+    sensitivity = np.vstack([-operator @ columns @ held_grad, held_grad]) if n_theta else np.zeros((n_fit + n_held, 0))
+    full_systematic = None
+    if systematic is not None:
+        full_systematic = np.zeros_like(statistical)
+        full_systematic[:n_fit, :n_fit] = systematic
+    reference = reference_sensitivity = None
+    if library is not None and library_positions is not None and library_jacobian is not None:
+        target = library_positions - columns @ held
+        reference = np.concatenate([operator @ target, held])
+        reference_sensitivity = np.vstack([operator @ (library_jacobian - columns @ held_grad), held_grad])
+    return FittedModel(
+        names=tuple(fit.names) + tuple(held_names),
+        values=values,
+        statistical=statistical,
+        library=library,
+        sensitivity=sensitivity,
+        reference=reference,
+        reference_sensitivity=reference_sensitivity,
+        systematic=full_systematic,
+        held=tuple(held_names),
+        sigma_determined=fit.dof > 0,
+    )
+
+
+# ------------------------------------------------------------------- reading the JSON form
+def _number(item: Any, *names: str) -> float | None:
+    for name in names:
+        value = item.get(name) if isinstance(item, dict) else None
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            return float(value)
+    return None
+
+
+def compared_reference(comparison: Any) -> float | None:
+    """The value a comparison's z is computed against, from its JSON form: `reference`
+    (results written before references were computed for the model fitted kept it in
+    `effective_reference` when they had one, with the handbook value in `reference`)."""
+    return _number(comparison, "effective_reference", "reference", "value")
+
+
+def compared_z(comparison: Any) -> float | None:
+    """The z that goes with `compared_reference`."""
+    if _number(comparison, "effective_reference") is not None:
+        return _number(comparison, "effective_z")
+    return _number(comparison, "z")
