@@ -30,7 +30,7 @@ from typing import Any, Callable
 import numpy as np
 
 from processing.fit import BandFit, fit_band
-from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, m_from_branch
+from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch
 from processing.lines import LineTable, fit_sigma_factor
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
@@ -124,6 +124,7 @@ class _Band:
     # the same lines' partner: m -> (separation from this line, intensity ratio partner/this)
     partner: dict[int, tuple[float, float]] = field(default_factory=dict)
     merged_with: str | None = None
+    library_D: tuple[float, float] | None = None  # the library's (D', D'') for the band fit
 
     def pull_of(self, m: np.ndarray) -> np.ndarray:
         return np.array([self.pull.get(int(k), 0.0) for k in np.atleast_1d(m)])
@@ -189,6 +190,7 @@ def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int
                 position=lines.wavenumber_cm1[inside],
                 sigma=np.zeros(int(inside.sum())),
                 weight=predicted.strength_cm_per_molecule[inside],
+                library_D=(centrifugal_constant(iso.dunham, v_upper), centrifugal_constant(iso.dunham, v_lower)),
             )
         )
     if not bands:
@@ -312,7 +314,7 @@ def _fit_band_lines(
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False, sextic=False)
+        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False, sextic=False, library_D=band.library_D)
     except (ValueError, np.linalg.LinAlgError):
         return None
 
@@ -569,6 +571,9 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> lis
         identity = _identify(fit, library)
         label, v_upper, v_lower = identity if identity else (f"unidentified-{fit.origin.value:.0f}", 1, 0)
         band = _Band(label, v_upper, v_lower, "pattern", m, lines.position_cm1[chain_index], np.zeros(m.size), np.ones(m.size))
+        if identity:
+            dunham = library.isotopologue(label).dunham
+            band.library_D = (centrifugal_constant(dunham, v_upper), centrifugal_constant(dunham, v_lower))
         found.append((band, dict(zip(chain_index.tolist(), m.tolist()))))
     return found
 
@@ -739,7 +744,7 @@ def _finish(
         fit: BandFit | None = None
         if idx.size >= 4:
             try:
-                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - pull, sigma, lines.sigma_known)
+                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - pull, sigma, lines.sigma_known, library_D=band.library_D)
             except (ValueError, np.linalg.LinAlgError):
                 fit = None
         if fit is None:

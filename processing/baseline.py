@@ -182,17 +182,22 @@ def grow_flags(flagged: np.ndarray, minimum: int = 3, fraction: float = 0.75) ->
     """Widen each run of flagged points by `fraction` of its own length (at least `minimum`
     points) on both sides, so a line's wings and first sidelobes, which stay under the flag
     threshold but are not noise, lift neither the baseline nor the noise estimate."""
-    if not flagged.any():
-        return flagged.copy()
     n = flagged.size
-    edges = np.diff(np.concatenate([[0], flagged.astype(np.int8), [0]]))
-    starts = np.flatnonzero(edges == 1)
-    stops = np.flatnonzero(edges == -1)
+    change = np.flatnonzero(flagged[1:] != flagged[:-1]) + 1
+    if n == 0 or (change.size == 0 and not flagged[0]):
+        return flagged.copy()
+    edges = np.concatenate([[0] if flagged[0] else [], change, [n] if flagged[-1] else []]).astype(np.int64)
+    starts, stops = edges[0::2], edges[1::2]
     grow = np.maximum(minimum, np.rint(fraction * (stops - starts))).astype(np.int64)
-    events = np.zeros(n + 1, dtype=np.int64)
-    np.add.at(events, np.clip(starts - grow, 0, n), 1)
-    np.add.at(events, np.clip(stops + grow, 0, n), -1)
-    return np.cumsum(events[:n]) > 0
+    first, last = np.clip(starts - grow, 0, n), np.clip(stops + grow, 0, n)
+    # grown runs may overlap: merge them (starts ascending), then paint each once
+    last = np.maximum.accumulate(last)
+    opens = np.concatenate([[True], first[1:] > last[:-1]])
+    closes = np.concatenate([opens[1:], [True]])
+    painted = np.zeros(n + 1, dtype=np.int8)
+    painted[first[opens]] = 1
+    painted[last[closes]] -= 1
+    return np.cumsum(painted[:n], dtype=np.int8) > 0
 
 
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:

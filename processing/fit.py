@@ -57,7 +57,7 @@ class BandFit:
     B_lower: Estimate
     D_upper: Estimate | None
     D_lower: Estimate | None
-    d_model: str  # "separate D", "common D" or "no D"
+    d_model: str  # "separate D", "common D", "no D", or with library values: D_DIFFERENCE_HELD, D_HELD
     n_lines: int  # lines used (after outlier rejection)
     rms: float  # rms of obs-calc over used lines, cm-1
     chi2_reduced: float
@@ -75,6 +75,7 @@ class BandFit:
     h_model: str = "no H"  # "separate H", "common H" or "no H"
     sigma: np.ndarray | None = None  # the line uncertainties the fit used (cm-1)
     linear_fit: LinearFit | None = field(default=None, repr=False, compare=False)  # for model references
+    held_D: tuple[float, float] = (0.0, 0.0)  # (D', D'') the model holds (subtracted, not fitted)
     lower_combination: CombinationDifferenceFit | None = None
     upper_combination: CombinationDifferenceFit | None = None
     notes: tuple[str, ...] = field(default=())
@@ -88,9 +89,10 @@ class BandFit:
         error of each prediction propagated from the covariance (grows outside the fitted J)."""
         branch = np.asarray(branch)
         J_lower = np.asarray(J_lower, dtype=np.int64)
-        design, names = _band_design(_x(upper_J(branch, J_lower)), _x(J_lower), self.d_model, self.h_model)
+        x_up, x_low = _x(upper_J(branch, J_lower)), _x(J_lower)
+        design, names = _band_design(x_up, x_low, self.d_model, self.h_model)
         values = np.array([self._parameter(name) for name in names])
-        positions = design @ values
+        positions = design @ values + held_centrifugal(x_up, x_low, self.held_D)
         variance = np.einsum("ij,jk,ik->i", design, self.covariance, design)
         return positions, np.sqrt(np.clip(variance, 0.0, None))
 
@@ -101,7 +103,7 @@ class BandFit:
             "B_lower": self.B_lower,
             "D_upper": self.D_upper,
             "D_lower": self.D_lower,
-            "D": self.D_upper,
+            "D": self.D_lower,
             "H_upper": self.H_upper,
             "H_lower": self.H_lower,
             "H": self.H_upper,
@@ -127,6 +129,7 @@ class BandFit:
             "D_upper": self.D_upper.to_dict() if self.D_upper else None,
             "D_lower": self.D_lower.to_dict() if self.D_lower else None,
             "d_model": self.d_model,
+            "held_D": list(self.held_D) if any(self.held_D) else None,
             "H_upper": self.H_upper.to_dict() if self.H_upper else None,
             "H_lower": self.H_lower.to_dict() if self.H_lower else None,
             "h_model": self.h_model,
@@ -169,6 +172,20 @@ def _x(J: np.ndarray) -> np.ndarray:
     return J * (J + 1.0)
 
 
+# D models that use the library's centrifugal constants (known isotopologues only): when the
+# lines cannot separate D' from D'', D' - D'' (beta_e per vibrational quantum: -7e-6 cm-1 for
+# HCl, which moves R(9) by ~0.07 cm-1) is held at the library's value rather than at zero;
+# when they cannot determine D at all, both are held (never zero).
+D_DIFFERENCE_HELD = "D'' fitted, D' - D'' from the library"
+D_HELD = "D from the library"
+
+
+def held_centrifugal(x_up: np.ndarray, x_low: np.ndarray, held_D: tuple[float, float]) -> np.ndarray:
+    """The held centrifugal terms' part of the line positions: -D' x'^2 + D'' x''^2."""
+    upper, lower = held_D
+    return -upper * x_up**2 + lower * x_low**2
+
+
 def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
     ones = np.ones_like(x_up)
     columns = [ones, x_up, -x_low]
@@ -176,7 +193,7 @@ def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str =
     if model == "separate D":
         columns += [-(x_up**2), x_low**2]
         names += ["D_upper", "D_lower"]
-    elif model == "common D":
+    elif model in ("common D", D_DIFFERENCE_HELD):
         columns += [-(x_up**2) + x_low**2]
         names += ["D"]
     if h_model == "separate H":
@@ -204,21 +221,29 @@ def _differ(fit: LinearFit, a: str, b: str) -> bool:
     return _significant(fit, a) and _significant(fit, b) and var > 0 and abs(fit.value(a) - fit.value(b)) > _threshold(a) * np.sqrt(var)
 
 
-_SIZES = {"separate D": 2, "common D": 1, "no D": 0, "separate H": 2, "common H": 1, "no H": 0}
+_SIZES = {"separate D": 2, "common D": 1, "no D": 0, D_DIFFERENCE_HELD: 1, D_HELD: 0, "separate H": 2, "common H": 1, "no H": 0}
 
 
 def _choose_band_fit(
-    x_up: np.ndarray, x_low: np.ndarray, observed: np.ndarray, sigma: np.ndarray, sigma_known: bool, sextic: bool = True
-) -> tuple[LinearFit, str, str]:
-    """(fit, D model, H model): H chosen first with separate D (unless `sextic` is False),
-    then D under that H."""
+    x_up: np.ndarray,
+    x_low: np.ndarray,
+    observed: np.ndarray,
+    sigma: np.ndarray,
+    sigma_known: bool,
+    sextic: bool = True,
+    library_D: tuple[float, float] | None = None,
+) -> tuple[LinearFit, str, str, tuple[float, float]]:
+    """(fit, D model, H model, held (D', D'')): H chosen first with separate D (unless
+    `sextic` is False), then D under that H; with `library_D`, the D' - D'' or both D held at
+    the library's values where the lines cannot determine them."""
     n = observed.size
 
-    def attempt(d_model: str, h_model: str) -> LinearFit | None:
+    def attempt(d_model: str, h_model: str, held: tuple[float, float] = (0.0, 0.0)) -> LinearFit | None:
         if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
             return None
         design, names = _band_design(x_up, x_low, d_model, h_model)
-        return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known)
+        target = observed - held_centrifugal(x_up, x_low, held)
+        return weighted_least_squares(design, target, sigma, names, sigma_known=sigma_known)
 
     h_model = "no H"
     for candidate in ("separate H", "common H") if sextic else ():
@@ -228,18 +253,22 @@ def _choose_band_fit(
         if (candidate == "separate H" and _differ(trial, "H_upper", "H_lower")) or (candidate == "common H" and _significant(trial, "H")):
             h_model = candidate
             break
-    for d_model in ("separate D", "common D"):
-        trial = attempt(d_model, h_model)
-        if trial is None:
-            continue
-        if (d_model == "separate D" and _differ(trial, "D_upper", "D_lower")) or (d_model == "common D" and _significant(trial, "D")):
-            return trial, d_model, h_model
-    if h_model != "no H":  # a sextic term without a quartic one is not a model
-        trial = attempt("common D", h_model)
+    trial = attempt("separate D", h_model)
+    if trial is not None and _differ(trial, "D_upper", "D_lower"):
+        return trial, "separate D", h_model, (0.0, 0.0)
+    if library_D is not None:
+        difference = (library_D[0] - library_D[1], 0.0)
+        trial = attempt(D_DIFFERENCE_HELD, h_model, difference)
+        if trial is not None and (_significant(trial, "D") or h_model != "no H"):
+            return trial, D_DIFFERENCE_HELD, h_model, difference
+        trial = attempt("no D", h_model, library_D)
         if trial is not None:
-            return trial, "common D", h_model
+            return trial, D_HELD, h_model, library_D
+    trial = attempt("common D", h_model)
+    if trial is not None and (_significant(trial, "D") or h_model != "no H"):  # H needs a D beside it
+        return trial, "common D", h_model, (0.0, 0.0)
     design, names = _band_design(x_up, x_low, "no D")
-    return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H"
+    return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H", (0.0, 0.0)
 
 
 def fit_band(
@@ -253,13 +282,15 @@ def fit_band(
     sigma_known: bool = True,
     cross_check: bool = True,
     sextic: bool = True,
+    library_D: tuple[float, float] | None = None,
 ) -> BandFit:
     """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
 
     `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`);
     `cross_check=False` skips the combination-difference fits (used while iterating);
     `sextic=False` leaves H out (while iterating: a cubic term extrapolates predictions to
-    unassigned J wildly when a few positions are still off)."""
+    unassigned J wildly when a few positions are still off); `library_D` = the library's
+    (D', D'') of the band, held where the lines cannot determine them (see D_DIFFERENCE_HELD)."""
     branch = np.asarray(branch)
     J_lower = np.asarray(J_lower, dtype=np.int64)
     observed = np.asarray(observed_cm1, dtype=np.float64)
@@ -268,7 +299,7 @@ def fit_band(
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
     x_low = _x(J_lower)
     x_up = _x(upper_J(branch, J_lower))
-    fit, model, h_model = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic)
+    fit, model, h_model, held_D = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic, library_D)
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
@@ -281,7 +312,13 @@ def fit_band(
             return estimate(letter), estimate(letter)
         return None, None
 
-    D_upper, D_lower = pair(model, "D")
+    if model == D_DIFFERENCE_HELD:
+        lower = estimate("D")
+        D_upper, D_lower = Estimate(lower.value + held_D[0], lower.sigma), lower
+    elif model == D_HELD:
+        D_upper, D_lower = Estimate(held_D[0], None), Estimate(held_D[1], None)
+    else:
+        D_upper, D_lower = pair(model, "D")
     H_upper, H_lower = pair(h_model, "H")
     used = fit.used
     lower_cd = upper_cd = None
@@ -307,13 +344,14 @@ def fit_band(
         J_lower=J_lower,
         branch=branch,
         observed=observed,
-        calc=fit.calc,
+        calc=fit.calc + held_centrifugal(x_up, x_low, held_D),
         used=fit.used,
         H_upper=H_upper,
         H_lower=H_lower,
         h_model=h_model,
         sigma=sigma,
         linear_fit=fit,
+        held_D=held_D,
         lower_combination=lower_cd,
         upper_combination=upper_cd,
     )

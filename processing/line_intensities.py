@@ -119,37 +119,69 @@ class IntensityResult:
         }
 
 
+# Lines closer than this many widths share their wings: their equivalent width is measured as
+# one group and shared out (an isotopologue partner 2 cm-1 away at 0.5 cm-1 resolution puts a
+# few % of its area into a window cut half-way between them, and the cut grows with J).
+GROUP_WIDTHS = 8.0
+GROUP_REACH_WIDTHS = 4.0  # a group's window extends this far beyond its outer lines
+
+
 def equivalent_widths(spectrum: Any, baseline: Any, lines: Any) -> tuple[np.ndarray, np.ndarray]:
-    """W and its standard error for every line: integral of 1 - 10^-(A - baseline) over
-    +-2.5 line widths, cut at half-way to each neighbour. The error sums the noise of the
-    points in the window with their correlation (apodized, zero-filled noise is correlated over
-    several points: independent points would understate it by ~sqrt(tau))."""
+    """W and its standard error for every line, W = integral of 1 - 10^-(A - baseline).
+
+    Lines within GROUP_WIDTHS widths of each other form a group; the group's W is integrated
+    from GROUP_REACH_WIDTHS widths below its first line to as far above its last (cut half-way
+    to the next group) and shared among its lines in proportion to their fitted profile areas
+    (lines of one band share their shape, so a share is right however much of the wings the
+    window holds). The error is the larger of the group's noise times the share and the noise
+    over the line's own +-2.5 widths, summed with the noise's correlation (apodized,
+    zero-filled noise is correlated over several points: independent points would understate
+    it by ~sqrt(tau))."""
     x = spectrum.wavenumber_cm1
-    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
     n = lines.count
-    widths = np.full(n, np.nan)
-    sigmas = np.full(n, np.nan)
     if n == 0:
-        return widths, sigmas
+        return np.full(0, np.nan), np.full(0, np.nan)
     centre = lines.position_cm1
-    half = 2.5 * np.where(np.isfinite(lines.width_cm1), lines.width_cm1, lines.typical_width_cm1)
-    left = centre - half
-    right = centre + half
-    if n > 1:
-        middle = 0.5 * (centre[1:] + centre[:-1])
+    width = np.where(np.isfinite(lines.width_cm1), lines.width_cm1, lines.typical_width_cm1)
+    area = np.where(np.isfinite(lines.area_cm1) & (lines.area_cm1 > 0), lines.area_cm1, np.maximum(lines.height, 0.0) * width)
+    joined = np.diff(centre) < GROUP_WIDTHS * np.maximum(width[1:], width[:-1])
+    group = np.concatenate([[0], np.cumsum(~joined)])
+    groups = int(group[-1]) + 1
+    first = np.flatnonzero(np.concatenate([[True], ~joined]))
+    last = np.flatnonzero(np.concatenate([~joined, [True]]))
+    left = centre[first] - GROUP_REACH_WIDTHS * width[first]
+    right = centre[last] + GROUP_REACH_WIDTHS * width[last]
+    if groups > 1:
+        middle = 0.5 * (centre[last[:-1]] + centre[first[1:]])
         left[1:] = np.maximum(left[1:], middle)
         right[:-1] = np.minimum(right[:-1], middle)
+    group_w = _integrated_depth(x, baseline.corrected, left, right)
+    total_area = np.bincount(group, weights=area, minlength=groups)
+    share = np.where(total_area[group] > 0, area / np.where(total_area[group] > 0, total_area[group], 1.0), 0.0)
+    widths = group_w[group] * share
+    # noise: the group's, shared; at least that over the line's own +-2.5 widths
     spacing = spectrum.spacing_cm1
-    # transmittance noise ~ ln10 x absorbance noise near the baseline
-    noise_t = math.log(10.0) * baseline.noise_sigma
-    cumulative = np.concatenate([[0.0], np.cumsum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x))])
+    noise_t = math.log(10.0) * baseline.noise_sigma  # transmittance noise near the baseline
+    noise = baseline.noise or white_noise(baseline.noise_sigma)
+    lo = np.searchsorted(x, left)
+    hi = np.searchsorted(x, right)
+    group_sigma = noise_t * spacing * np.sqrt(noise.sum_variance_points(np.maximum(hi - lo, 1)))
+    own = np.maximum(np.searchsorted(x, centre + 2.5 * width) - np.searchsorted(x, centre - 2.5 * width), 1)
+    own_sigma = noise_t * spacing * np.sqrt(noise.sum_variance_points(own))
+    return widths, np.maximum(group_sigma[group] * share, own_sigma)
+
+
+def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, right: np.ndarray) -> np.ndarray:
+    """Trapezoid integral of 1 - 10^-A over each [left, right] (only the points inside the
+    windows are converted)."""
     lo = np.clip(np.searchsorted(x, left), 0, x.size - 1)
     hi = np.clip(np.searchsorted(x, right), 0, x.size - 1)
-    widths = cumulative[hi] - cumulative[lo]
-    points = np.maximum(hi - lo, 1)
-    noise = baseline.noise or white_noise(baseline.noise_sigma)
-    sigmas = noise_t * spacing * np.sqrt(noise.sum_variance_points(points))
-    return widths, sigmas
+    out = np.zeros(lo.size)
+    for k, (a, b) in enumerate(zip(lo.tolist(), hi.tolist())):
+        if b > a:
+            depth = 1.0 - np.power(10.0, -np.clip(corrected[a : b + 1], -3.0, 12.0))
+            out[k] = float(np.sum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x[a : b + 1])))
+    return out
 
 
 def rotational_temperatures(lines: Any, assignment: Any, widths: np.ndarray, width_sigmas: np.ndarray) -> list[RotationalTemperature]:

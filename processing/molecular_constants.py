@@ -495,7 +495,12 @@ def band_reference(fit: Any, library: Any) -> BandReference | None:
     n = fit.observed.size
     J_up = upper_J(fit.branch, fit.J_lower)
     positions, jacobian = predicted_lines(library, isotopologue.label, np.full(n, fit.v_upper), J_up, np.full(n, fit.v_lower), fit.J_lower)
-    model = fitted_model(fit.linear_fit, library_parameters(library), positions, jacobian)
+    held = {}
+    if any(fit.held_D):
+        x_up, x_low = J_up * (J_up + 1.0), fit.J_lower * (fit.J_lower + 1.0)
+        held = dict(held_names=("D_upper (held)", "D_lower (held)"), held_columns=np.column_stack([-(x_up**2), x_low**2]),
+                    held_values=np.array(fit.held_D, dtype=np.float64))
+    model = fitted_model(fit.linear_fit, library_parameters(library), positions, jacobian, **held)
     dunham = isotopologue.dunham
     model_text = f"band model ({fit.d_model}, {fit.h_model}) fitted to the library's positions of the same {fit.n_lines} lines"
     library_values = {

@@ -34,8 +34,8 @@ CLIP_SIGMAS = 3.0
 # std of a unit Gaussian truncated to |z| <= 3 (calc: sqrt(1 - 2 * 3 * phi(3) / (2 Phi(3) - 1)))
 _TRUNCATED_STD_AT_3 = math.sqrt(1.0 - 2.0 * CLIP_SIGMAS * math.exp(-0.5 * CLIP_SIGMAS**2) / math.sqrt(2.0 * math.pi) / math.erf(CLIP_SIGMAS / math.sqrt(2.0)))
 MAX_LAG = 64  # longest lag of the measured autocorrelation, points
-_CORRELATION_SAMPLE = 1 << 16  # points of residual used to measure the autocorrelation
-_SIGMA_SAMPLE = 200_000  # points used for the clipped standard deviation
+_CORRELATION_SAMPLE = 1 << 14  # points of residual used to measure the autocorrelation (rho to ~0.01)
+_SIGMA_SAMPLE = 50_000  # points used for the clipped standard deviation (sigma to < 1%)
 # A residual smoother than this is not noise (a digitised or smoothed trace): lag-1
 # correlation above 0.97 means the points vary over > ~20 points; white or apodized FTIR noise
 # stays below ~0.9 at lag 1 even with zero fill 4 (calc for Happ-Genzel: 0.90).

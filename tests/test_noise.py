@@ -189,3 +189,27 @@ def test_lines_on_a_coarse_grid_get_the_conservative_sigma_and_a_flag() -> None:
     independent = np.maximum(1.0, lines.width_cm1[flagged] / spacing / noise.correlation_points)
     expected = lines.width_cm1[flagged] / (snr * np.sqrt(independent))
     assert np.allclose(np.maximum(expected, 0.01 * spacing), lines.position_sigma_cm1[flagged], rtol=1e-9)
+
+
+def test_line_flags_grow_with_their_own_width() -> None:
+    from processing.baseline import grow_flags
+
+    def plain(flagged: np.ndarray) -> np.ndarray:
+        grown = np.zeros_like(flagged)
+        i = 0
+        while i < flagged.size:
+            if not flagged[i]:
+                i += 1
+                continue
+            j = i
+            while j < flagged.size and flagged[j]:
+                j += 1
+            reach = max(3, int(np.rint(0.75 * (j - i))))
+            grown[max(0, i - reach) : j + reach] = True
+            i = j
+        return grown
+
+    rng = np.random.default_rng(4)
+    for _ in range(300):
+        flagged = rng.random(int(rng.integers(1, 300))) < rng.random() * 0.4
+        assert np.array_equal(grow_flags(flagged), plain(flagged))
