@@ -135,6 +135,7 @@ def estimate_baseline(
     baseline = np.full(n, overall)
     centres = np.array([0.0])
     levels = np.array([overall])
+    clipped = False
     for _ in range(iterations):
         centres, levels = _block_levels(y, free, block)
         baseline = _join(centres, levels, n, overall)
@@ -144,7 +145,9 @@ def estimate_baseline(
         new_free = ~grow_flags(~new_free) & ~spectrum.saturated
         if new_free.sum() < max(16, n // 20):
             break
-        new_sigma = max(clipped_sigma(residual[new_free], sigma), floor)
+        # from the previous sigma only when that was itself clipped (not the first guess)
+        new_sigma = max(clipped_sigma(residual[new_free], sigma if clipped else 0.0), floor)
+        clipped = True
         # settled: under 1% of points changed flag and sigma within 2%
         settled = np.count_nonzero(new_free != free) < 0.01 * n and abs(new_sigma - sigma) <= 0.02 * new_sigma
         free, sigma = new_free, new_sigma

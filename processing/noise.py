@@ -23,6 +23,7 @@ no measurable noise at all. So:
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -118,24 +119,28 @@ def quantization_step(values: np.ndarray, sample: int = 20_000) -> float | None:
 
 
 def clipped_sigma(residual: np.ndarray, start: float = 0.0) -> float:
-    """Self-consistent 3-sigma-clipped standard deviation of `residual` (corrected for the
-    Gaussian truncation). Iterated down from the larger of `start` and the standard deviation
-    of the central 99% of values: from above, the iteration cannot collapse on rounded
-    (discrete) data the way a median of absolute deviations sits on the rounding step."""
+    """Self-consistent 3-sigma-clipped standard deviation of `residual` about its clipped mean
+    (corrected for the Gaussian truncation), iterated down from `start`, or when none is given
+    from the standard deviation of the central 99% of values: from above, the iteration cannot
+    collapse on rounded (discrete) data the way a median of absolute deviations sits on the
+    rounding step."""
     r = residual
     if r.size > _SIGMA_SAMPLE:
         r = r[:: r.size // _SIGMA_SAMPLE]
     if r.size < 8:
         return float(np.std(r)) if r.size else 0.0
-    r = r - float(np.median(r))
-    low, high = np.percentile(r, [0.5, 99.5])
-    central = r[(r >= low) & (r <= high)]
-    sigma = max(start, float(np.std(central)))
+    centre = float(np.mean(r))
+    sigma = start
+    if sigma <= 0.0:
+        low, high = np.percentile(r, [0.5, 99.5])
+        central = r[(r >= low) & (r <= high)]
+        centre, sigma = float(np.mean(central)), float(np.std(central))
     if sigma == 0.0:
         return 0.0
     for _ in range(50):
-        kept = r[np.abs(r) <= CLIP_SIGMAS * sigma]
-        new = float(np.sqrt(np.mean(kept**2))) / _TRUNCATED_STD_AT_3
+        kept = r[np.abs(r - centre) <= CLIP_SIGMAS * sigma]
+        centre = float(np.mean(kept))
+        new = float(np.std(kept)) / _TRUNCATED_STD_AT_3
         if new == 0.0 or abs(new - sigma) <= 1e-4 * new:
             return new
         sigma = new
@@ -229,6 +234,7 @@ def agrees(measured_tau: float, derived_tau: float) -> bool:
     return abs(math.log(measured_tau / derived_tau)) < math.log(1.6)
 
 
+@functools.lru_cache(maxsize=64)
 def derived_correlation(apodization: str | None, resolution_cm1: float | None, spacing_cm1: float) -> _Correlation | None:
     """rho(k) and tau of interferogram noise for a stated apodization and resolution
     R = 1/L: rho(k) = integral_0^1 w(u)^2 cos(2 pi k (spacing/R) u) du / integral_0^1 w(u)^2,

@@ -5,6 +5,8 @@ decadic absorbance A = -log10(T). Readers convert at the edge and note what they
 """
 from __future__ import annotations
 
+import functools
+
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -99,9 +101,9 @@ class Spectrum:
         validated when this spectrum was made)."""
         return _copy_with_meta(self, meta)
 
-    @property
+    @functools.cached_property
     def spacing_cm1(self) -> float:
-        """Median point spacing in cm-1."""
+        """Median point spacing in cm-1 (computed once: the axis is read-only)."""
         return float(np.median(np.diff(self.wavenumber_cm1)))
 
     @property
