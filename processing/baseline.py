@@ -145,8 +145,8 @@ def estimate_baseline(
         new_free = ~grow_flags(~new_free) & ~spectrum.saturated
         if new_free.sum() < max(16, n // 20):
             break
-        # from the previous sigma only when that was itself clipped (not the first guess)
-        new_sigma = max(clipped_sigma(residual[new_free], sigma if clipped else 0.0), floor)
+        # iterated down from above: twice the first guess, then the previous clipped value
+        new_sigma = max(clipped_sigma(residual[new_free], sigma if clipped else 2.0 * sigma), floor)
         clipped = True
         # settled: under 1% of points changed flag and sigma within 2%
         settled = np.count_nonzero(new_free != free) < 0.01 * n and abs(new_sigma - sigma) <= 0.02 * new_sigma

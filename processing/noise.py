@@ -141,7 +141,7 @@ def clipped_sigma(residual: np.ndarray, start: float = 0.0) -> float:
         kept = r[np.abs(r - centre) <= CLIP_SIGMAS * sigma]
         centre = float(np.mean(kept))
         new = float(np.std(kept)) / _TRUNCATED_STD_AT_3
-        if new == 0.0 or abs(new - sigma) <= 1e-4 * new:
+        if new == 0.0 or abs(new - sigma) <= 1e-3 * new:
             return new
         sigma = new
     return sigma
