@@ -30,7 +30,7 @@ from typing import Any, Callable
 import numpy as np
 
 from processing.fit import BandFit, fit_band
-from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch
+from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
 from processing.lines import LineTable, fit_sigma_factor
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
@@ -43,6 +43,10 @@ INTERFERENT_REGIONS: tuple[tuple[float, float, str], ...] = (
     (3450.0, 4000.0, "interferent (water-vapour region)"),
 )
 MIN_BAND_LINES = 5
+# How well the library places a band's lines relative to one another once a common shift is
+# applied (main isotopologues ~0.01 cm-1 to J'' ~15, mass-scaled ones a few hundredths; calc
+# from the library's stated uncertainties): the floor of the first matching tolerance.
+LIBRARY_LINE_ACCURACY_CM1 = 0.03
 
 
 @dataclass(frozen=True)
@@ -124,7 +128,11 @@ class _Band:
     # the same lines' partner: m -> (separation from this line, intensity ratio partner/this)
     partner: dict[int, tuple[float, float]] = field(default_factory=dict)
     merged_with: str | None = None
-    library_D: tuple[float, float] | None = None  # the library's (D', D'') for the band fit
+    library_centrifugal: tuple[float, float, float, float] | None = None  # the library's (D', D'', H', H'')
+    # predicted relative intensity of every line the library knows (to J'' where it falls
+    # under 1e-7 of the strongest), on the same scale as `weight`
+    all_weights: dict[int, float] = field(default_factory=dict)
+    dropped: set[int] = field(default_factory=set)  # lines merged into a stronger partner's blend
 
     def pull_of(self, m: np.ndarray) -> np.ndarray:
         return np.array([self.pull.get(int(k), 0.0) for k in np.atleast_1d(m)])
@@ -143,15 +151,22 @@ class _Band:
         return f"{self.isotopologue} {self.v_upper}-{self.v_lower}"
 
 
-@functools.lru_cache(maxsize=256)
-def _predicted_band(library: Any, label: str, v_upper: int, v_lower: int, temperature_K: float) -> Any:
-    """Library lines with relative intensities (cached: they do not depend on the spectrum)."""
+@functools.lru_cache(maxsize=512)
+def _predicted_band(library: Any, label: str, v_upper: int, v_lower: int, temperature_K: float, min_relative: float = 1e-3) -> Any:
+    """Library lines with relative intensities down to `min_relative` of the band's strongest
+    (cached: they do not depend on the spectrum)."""
     from processing.intensities import lines_for
 
     try:
-        return lines_for(library.isotopologue(label), v_upper, v_lower, temperature_K, 1e-3)
+        return lines_for(library.isotopologue(label), v_upper, v_lower, temperature_K, min_relative)
     except ValueError:
         return None
+
+
+def library_centrifugal(dunham: Any, v_upper: int, v_lower: int) -> tuple[float, float, float, float]:
+    """The library's (D', D'', H', H'') of a band."""
+    return (centrifugal_constant(dunham, v_upper), centrifugal_constant(dunham, v_lower),
+            sextic_constant(dunham, v_upper), sextic_constant(dunham, v_lower))
 
 
 @functools.lru_cache(maxsize=1024)
@@ -180,6 +195,7 @@ def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int
         inside = (lines.wavenumber_cm1 > first - 10.0) & (lines.wavenumber_cm1 < last + 10.0)
         if not inside.any():
             continue
+        every = _predicted_band(library, iso.label, v_upper, v_lower, temperature_K, 1e-7)
         bands.append(
             _Band(
                 isotopologue=iso.label,
@@ -190,7 +206,8 @@ def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int
                 position=lines.wavenumber_cm1[inside],
                 sigma=np.zeros(int(inside.sum())),
                 weight=predicted.strength_cm_per_molecule[inside],
-                library_D=(centrifugal_constant(iso.dunham, v_upper), centrifugal_constant(iso.dunham, v_lower)),
+                library_centrifugal=library_centrifugal(iso.dunham, v_upper, v_lower),
+                all_weights=dict(zip(every.lines.m.tolist(), every.strength_cm_per_molecule.tolist())) if every is not None else {},
             )
         )
     if not bands:
@@ -198,6 +215,7 @@ def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int
     strongest = max(float(b.weight.max()) for b in bands)
     for b in bands:
         b.weight = b.weight / strongest
+        b.all_weights = {m: w / strongest for m, w in b.all_weights.items()}
     return bands
 
 
@@ -235,8 +253,10 @@ def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: fl
     return float(shifts[best]), float(scores[best] / weights.sum())
 
 
-def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, density: float, first: float, last: float) -> bool:
-    """Enough strong predicted lines inside the measured range matched, well beyond chance."""
+def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, first: float, last: float) -> bool:
+    """Enough strong predicted lines inside the measured range matched, well beyond chance.
+    The chance of a match counts the peaks that can be matched (not ringing) in the band's own
+    region: lines or lobes elsewhere in the spectrum do not change whether this band is here."""
     shifted = band.position + shift
     strong = (band.weight >= 0.05) & (shifted >= first) & (shifted <= last)
     n_expected = int(strong.sum())
@@ -244,6 +264,8 @@ def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, d
         return False
     matched = _match_count(peaks, band.position[strong] + shift, tol)
     n_matched = int(matched.sum())
+    low, high = float(shifted[strong].min()) - 1.0, float(shifted[strong].max()) + 1.0
+    density = float(np.searchsorted(peaks, high) - np.searchsorted(peaks, low)) / (high - low)
     chance = n_expected * min(1.0, 2.0 * tol * density)
     return n_matched >= MIN_BAND_LINES and n_matched >= 0.5 * n_expected and n_matched >= 3.0 * chance + 3
 
@@ -257,7 +279,11 @@ class _Claim:
     distance: float  # |obs - pred| / tol
 
 
-def _claims(peaks: np.ndarray, usable: np.ndarray, bands: list[_Band], tolerances: list[np.ndarray]) -> list[_Claim]:
+def _claims(
+    peaks: np.ndarray, usable: np.ndarray, bands: list[_Band], tolerances: list[np.ndarray], refused: set[tuple[int, int]] = frozenset()
+) -> list[_Claim]:
+    """Every (band line, measured line) pair within tolerance, except the `refused` (band,
+    line) pairs."""
     claims: list[_Claim] = []
     for bi, (band, tol) in enumerate(zip(bands, tolerances)):
         if peaks.size == 0:
@@ -266,7 +292,7 @@ def _claims(peaks: np.ndarray, usable: np.ndarray, bands: list[_Band], tolerance
         idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
         for k, (target, t) in enumerate(zip(targets, tol)):
             for j in (idx[k] - 1, idx[k]):
-                if 0 <= j < peaks.size and usable[j]:
+                if 0 <= j < peaks.size and usable[j] and (bi, int(j)) not in refused:
                     d = abs(peaks[j] - target) / t
                     if d <= 1.0:
                         claims.append(_Claim(bi, int(j), int(band.m[k]), d))
@@ -314,58 +340,73 @@ def _fit_band_lines(
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False, sextic=False, library_D=band.library_D)
+        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False, sextic=False, library_centrifugal=band.library_centrifugal)
     except (ValueError, np.linalg.LinAlgError):
         return None
 
 
 def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarray, shift: float, notes: list[str]) -> None:
-    """Isotopologue line pairs that the spectrum shows as one peak are treated as one blend:
-    the weaker partner's line is dropped and the stronger one's expected position becomes
-    the intensity-weighted blend centre (isotope shifts come from mass scaling, exact to
-    ~0.01 cm-1 for heavy-atom swaps). A pair closer than one line width is always one blend
-    (the final fit measures it as a doublet); between one and two widths it is one blend where
-    the spectrum shows a single peak across it, and two lines where it shows two."""
-    if len(bands) < 2:
+    """Lines of different bands of one molecule (isotopologue partners of the same J, or any
+    two lines that happen to fall together, e.g. 13C16O P(7) on 12C18O P(6)) that the spectrum
+    shows as one peak are treated as one blend: the weaker line is dropped and the stronger
+    one's expected position becomes the intensity-weighted blend centre (relative positions
+    come from the library, exact to ~0.01 cm-1). A pair closer than one line width is always
+    one blend (the final fit measures it as a doublet); between one and two widths it is one
+    blend where the spectrum shows a single peak across it, and two lines where it shows
+    two."""
+    if len(bands) < 2 or not width:
         return
-    ordered = sorted(bands, key=lambda b: -float(b.weight.max()))
-
-    for i, major in enumerate(ordered):
-        for minor in ordered[i + 1 :]:
-            common = np.intersect1d(major.m, minor.m)
-            if common.size == 0:
+    band_of = np.concatenate([np.full(b.m.size, i) for i, b in enumerate(bands)])
+    index_of = np.concatenate([np.arange(b.m.size) for b in bands])
+    position = np.concatenate([b.position for b in bands])
+    weight = np.concatenate([b.weight for b in bands])
+    order = np.argsort(position)
+    band_of, index_of, position, weight = band_of[order], index_of[order], position[order], weight[order]
+    dropped: dict[int, set[int]] = {}
+    merged_count: dict[tuple[int, int], int] = {}
+    for a in range(position.size - 1):
+        for b in range(a + 1, position.size):
+            separation_ab = position[b] - position[a]
+            if separation_ab >= 2.0 * width:
+                break
+            if band_of[a] == band_of[b]:
                 continue
-            index_major = {int(k): j for j, k in enumerate(major.m)}
-            index_minor = {int(k): j for j, k in enumerate(minor.m)}
-            merged = []
-            for m in common.tolist():
-                a, b = index_major[m], index_minor[m]
-                separation = float(minor.position[b] - major.position[a])
-                if width and abs(separation) >= 2.0 * width:
-                    continue
-                low = min(major.position[a], minor.position[b]) + shift - 0.5 * abs(separation)
-                high = max(major.position[a], minor.position[b]) + shift + 0.5 * abs(separation)
+            major, minor = (a, b) if weight[a] >= weight[b] else (b, a)
+            if index_of[minor] in dropped.get(int(band_of[minor]), set()) or index_of[major] in dropped.get(int(band_of[major]), set()):
+                continue
+            if separation_ab >= 1.0 * width:
+                low = position[a] + shift - 0.5 * separation_ab
+                high = position[b] + shift + 0.5 * separation_ab
                 found = int(np.searchsorted(peaks, high) - np.searchsorted(peaks, low))
-                if width and abs(separation) >= 1.0 * width and (found >= 2 or found == 0):
+                if found >= 2 or found == 0:
                     continue  # two peaks there: resolved (or partly), each measured on its own
-                w_major, w_minor = float(major.weight[a]), float(minor.weight[b])
-                major.pull[m] = major.pull.get(m, 0.0) + w_minor / (w_major + w_minor) * separation
-                major.partner[m] = (separation, w_minor / w_major)
-                merged.append(m)
-            if merged:
-                keep = ~np.isin(minor.m, merged)
-                minor.m, minor.position, minor.sigma, minor.weight = minor.m[keep], minor.position[keep], minor.sigma[keep], minor.weight[keep]
-                major.merged_with = minor.isotopologue
-                notes.append(
-                    f"{major.label}: {len(merged)} lines unresolved from {minor.isotopologue}; positions "
-                    "corrected for the predicted blend centre"
-                )
+            host, guest = bands[int(band_of[major])], bands[int(band_of[minor])]
+            m = int(host.m[index_of[major]])
+            separation = float(position[minor] - position[major])
+            w_major, w_minor = float(weight[major]), float(weight[minor])
+            host.pull[m] = host.pull.get(m, 0.0) + w_minor / (w_major + w_minor) * separation
+            host.partner[m] = (separation, w_minor / max(w_major, 1e-300))
+            dropped.setdefault(int(band_of[minor]), set()).add(int(index_of[minor]))
+            key = (int(band_of[major]), int(band_of[minor]))
+            merged_count[key] = merged_count.get(key, 0) + 1
+    for bi, indices in dropped.items():
+        band = bands[bi]
+        band.dropped |= {int(band.m[i]) for i in indices}
+        keep = ~np.isin(np.arange(band.m.size), list(indices))
+        band.m, band.position, band.sigma, band.weight = band.m[keep], band.position[keep], band.sigma[keep], band.weight[keep]
+    for (host_index, guest_index), count in merged_count.items():
+        bands[host_index].merged_with = bands[guest_index].isotopologue
+        notes.append(
+            f"{bands[host_index].label}: {count} lines unresolved from {bands[guest_index].isotopologue}; positions "
+            "corrected for the predicted blend centre"
+        )
 
 
 def _drop_undetectable(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable, threshold_sigma: float = 5.0) -> set[int]:
     """Bands whose own lines could not have been seen: fewer than MIN_BAND_LINES predicted
-    lines reach the detection threshold at the intensity scale of the molecule's strongest
-    band, or under half of those were found. Returns the band indices to drop."""
+    lines reach the detection threshold at the intensity scale the assigned lines of that
+    vibrational band show, or under half of those were found. Returns the band indices to
+    drop."""
     scale_of: dict[tuple[int, int], float] = {}
     for claim in winners.values():
         band = bands[claim.band]
@@ -379,7 +420,9 @@ def _drop_undetectable(bands: list[_Band], winners: dict[int, _Claim], lines: Li
         scales = scale_of.get((band.v_upper, band.v_lower))
         if not scales:
             continue
-        snr_per_weight = float(np.median(scales))  # type: ignore[arg-type]
+        # optically thick lines fall short of their weight, thin ones do not: the upper
+        # quartile of SNR per unit weight is the scale a thin (weak) band's lines reach
+        snr_per_weight = float(np.percentile(scales, 75))  # type: ignore[arg-type]
         detectable = int(np.sum(band.weight * snr_per_weight >= threshold_sigma))
         found = sum(1 for c in winners.values() if c.band == bi)
         if detectable < MIN_BAND_LINES or found < 0.5 * detectable:
@@ -400,27 +443,90 @@ def _tolerances(bands: list[_Band], lines: LineTable, tol0: float) -> list[np.nd
 
 
 def _extend_predictions(band: _Band, J_cap: int) -> None:
-    """After a fit, predict every line up to J'' = J_cap from the fitted constants."""
+    """After a fit, predict every line up to J'' = J_cap from the fitted constants (lines
+    merged into a stronger partner's blend stay out)."""
     assert band.fit is not None
     m = np.concatenate([np.arange(-J_cap, 0), np.arange(1, J_cap + 2)])
+    if band.dropped:
+        m = m[~np.isin(m, list(band.dropped))]
     branch, J_lower = branch_from_m(m)
     position, sigma = band.fit.predict(branch, J_lower)
     old_weight = dict(zip(band.m.tolist(), band.weight.tolist()))
     band.m = m
     band.position = position
     band.sigma = sigma
-    band.weight = np.array([old_weight.get(int(k), 1e-3) for k in m])
+    band.weight = np.array([band.all_weights.get(int(k), old_weight.get(int(k), 1e-8)) for k in m])
 
 
-def _refine(bands: list[_Band], lines: LineTable, usable: np.ndarray, tol0: float, J_caps: dict[tuple[str, int, int], int]) -> tuple[dict[int, _Claim], set[int]]:
+# A line more than this many times as tall as its band's own intensity pattern predicts (plus
+# three noise sigma) is another absorber's line or noise that happens to sit on a prediction.
+INTENSITY_OUTLIER_FACTOR = 5.0
+INTENSITY_ALLOWANCE_SIGMA = 3.0
+
+
+def _band_weight(band: _Band, m: int) -> float:
+    """Predicted relative intensity of a band line, its blended partner's included."""
+    weight = band.all_weights.get(m)
+    if weight is None:
+        index = np.flatnonzero(band.m == m)
+        weight = float(band.weight[index[0]]) if index.size else 0.0
+    partner = band.partner.get(m)
+    return weight * (1.0 + partner[1]) if partner else weight
+
+
+def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable) -> dict[int, float]:
+    """For each claimed line, the signal-to-noise its band's intensity pattern predicts: the
+    line's predicted relative intensity times the band's SNR per unit intensity for thin lines,
+    the upper quartile over the weaker half of its measured lines (optically thick lines fall
+    short of their intensity; a band's weaker lines are its thinnest)."""
+    per_band: dict[int, list[tuple[int, float]]] = {}
+    for line, claim in winners.items():
+        per_band.setdefault(claim.band, []).append((line, _band_weight(bands[claim.band], claim.m)))
+    expected: dict[int, float] = {}
+    for bi, members in per_band.items():
+        weights = np.array([w for _, w in members])
+        snr = np.array([lines.snr[line] for line, _ in members])
+        measured = np.isfinite(snr) & (weights > 0) & (snr >= 10.0)
+        if measured.sum() < 4:
+            continue
+        weaker = measured & (weights <= np.median(weights[measured]))
+        scale = float(np.percentile(snr[weaker] / weights[weaker], 75))
+        for (line, _), w in zip(members, weights):
+            expected[line] = w * scale
+    return expected
+
+
+def _intensity_outliers(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable) -> dict[int, float]:
+    """Claimed lines far taller than their band's intensity pattern allows: line -> observed
+    over expected signal-to-noise."""
+    out: dict[int, float] = {}
+    for line, expected in _expected_snr(bands, winners, lines).items():
+        observed = float(lines.snr[line])
+        if np.isfinite(observed) and observed > INTENSITY_OUTLIER_FACTOR * expected + INTENSITY_ALLOWANCE_SIGMA:
+            out[line] = observed / max(expected, 1e-3)
+    return out
+
+
+def _refine(
+    bands: list[_Band], lines: LineTable, usable: np.ndarray, tol0: float, J_caps: dict[tuple[str, int, int], int]
+) -> tuple[dict[int, _Claim], set[int], dict[int, float]]:
+    """Match, fit, predict and match again until the assignment no longer changes. Returns the
+    winning claims by line, the blended lines and the lines refused for their intensity (line ->
+    how many times taller than predicted)."""
     peaks = lines.position_cm1
     previous: dict[int, tuple[int, int]] | None = None
     winners: dict[int, _Claim] = {}
     blended: set[int] = set()
+    refused: dict[tuple[int, int], float] = {}
     members_before: dict[int, frozenset[tuple[int, int]]] = {}
     for _ in range(8):
-        claims = _claims(peaks, usable, bands, _tolerances(bands, lines, tol0))
+        claims = _claims(peaks, usable, bands, _tolerances(bands, lines, tol0), set(refused))
         winners, blended = _resolve(claims, bands)
+        if np.all(np.isfinite(lines.snr)):
+            for line, ratio in _intensity_outliers(bands, winners, lines).items():
+                refused[(winners[line].band, line)] = ratio
+                del winners[line]
+            blended &= set(winners)
         state = {line: (c.band, c.m) for line, c in winners.items()}
         if state == previous:
             break
@@ -435,7 +541,8 @@ def _refine(bands: list[_Band], lines: LineTable, usable: np.ndarray, tol0: floa
             if fit is not None and fit.n_lines >= 4:
                 band.fit = fit
                 _extend_predictions(band, J_caps.get(band.key, 40))
-    return winners, blended
+    refused_lines = {line: ratio for (_, line), ratio in refused.items() if line not in winners}
+    return winners, blended, refused_lines
 
 
 # ------------------------------------------------------------------------------ pattern route
@@ -539,6 +646,19 @@ def _identify(fit: BandFit, library: Any) -> tuple[str, int, int] | None:
     return best[1] if best else None
 
 
+def _looks_like_a_band(fit: BandFit, width_cm1: float) -> bool:
+    """A vibration-rotation band, not a comb: its lines follow the band formula to a fraction
+    of a line width (chance chains of ringing lobes or noise do not), and its spacing changes
+    across the band, B' != B'' (window fringes and other periodic baseline features keep an
+    even spacing: B' = B'' within their errors)."""
+    if width_cm1 and np.isfinite(width_cm1) and fit.rms > 0.25 * width_cm1:
+        return False
+    difference = fit.B_upper.value - fit.B_lower.value
+    i, j = fit.parameter_names.index("B_upper"), fit.parameter_names.index("B_lower")
+    variance = fit.covariance[i, i] + fit.covariance[j, j] - 2.0 * fit.covariance[i, j]
+    return variance > 0 and abs(difference) > 5.0 * float(np.sqrt(variance))
+
+
 def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> list[tuple[_Band, dict[int, int]]]:
     """Bands found by the pattern route: (band, {line index: m})."""
     found: list[tuple[_Band, dict[int, int]]] = []
@@ -568,18 +688,21 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> lis
             fit = fit_band("unidentified", 1, 0, branch, J_lower, lines.position_cm1[chain_index], lines.position_sigma_cm1[chain_index], lines.sigma_known)
         except (ValueError, np.linalg.LinAlgError):
             continue
+        if not _looks_like_a_band(fit, lines.typical_width_cm1):
+            continue
         identity = _identify(fit, library)
         label, v_upper, v_lower = identity if identity else (f"unidentified-{fit.origin.value:.0f}", 1, 0)
         band = _Band(label, v_upper, v_lower, "pattern", m, lines.position_cm1[chain_index], np.zeros(m.size), np.ones(m.size))
         if identity:
-            dunham = library.isotopologue(label).dunham
-            band.library_D = (centrifugal_constant(dunham, v_upper), centrifugal_constant(dunham, v_lower))
+            band.library_centrifugal = library_centrifugal(library.isotopologue(label).dunham, v_upper, v_lower)
         found.append((band, dict(zip(chain_index.tolist(), m.tolist()))))
     return found
 
 
 # ------------------------------------------------------------------------------- main entry
-def _likely_cause(lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]]) -> str:
+def _likely_cause(lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]], refused: dict[int, float]) -> str:
+    if i in refused:
+        return f"{refused[i]:.0f}x taller than its band's intensity pattern allows (another absorber or noise on a predicted line)"
     if lines.ringing[i]:
         return "ringing beside a strong line"
     x = lines.position_cm1[i]
@@ -629,8 +752,10 @@ def assign_lines(
     usable = ~lines.ringing & ~excluded
     claimable = ~excluded
     width = lines.typical_width_cm1 if np.isfinite(lines.typical_width_cm1) and lines.typical_width_cm1 > 0 else 0.0
-    tol0 = float(np.clip(0.5 * width, 0.15, 1.0)) if width else 0.3
-    density = lines.count / max(last_cm1 - first_cm1, 1.0)
+    # half a line width, but not below what the library's predictions are good to across a
+    # band once a common shift is found (LIBRARY_LINE_ACCURACY_CM1): wider, and at high
+    # resolution an instrument line shape's sidelobes a few hundredths away fall inside
+    tol0 = float(np.clip(0.5 * width, LIBRARY_LINE_ACCURACY_CM1, 1.0)) if width else 0.3
 
     molecules = _candidate_molecules(library, settings.species, notes)
     bands: list[_Band] = []
@@ -642,7 +767,7 @@ def assign_lines(
             if not predicted:
                 continue
             shift, _score = _best_shift(peaks[usable], predicted, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
-            present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, density, first_cm1, last_cm1)]
+            present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, first_cm1, last_cm1)]
             if not present:
                 continue
             shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
@@ -655,7 +780,7 @@ def assign_lines(
                     J_caps[band.key] = int(np.max(np.abs(band.m))) + 2
                     bands.append(band)
 
-    winners, blended = _refine(bands, lines, claimable, tol0, J_caps) if bands else ({}, set())
+    winners, blended, refused = _refine(bands, lines, claimable, tol0, J_caps) if bands else ({}, set(), {})
     if bands and np.all(np.isfinite(lines.snr)):
         dropped = _drop_undetectable(bands, winners, lines)
         if dropped:
@@ -688,7 +813,7 @@ def assign_lines(
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet)
+    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused)
     if settings.species:
         found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
         missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
@@ -715,8 +840,10 @@ def _finish(
     shifts: dict[str, float],
     notes: list[str],
     measure_doublet: DoubletMeasure | None = None,
+    refused: dict[int, float] | None = None,
 ) -> AssignmentResult:
     """Final fit per band, per-line results with confidence, likely causes for the rest."""
+    refused = refused or {}
     groups: dict[tuple[str, int, int], list[int]] = {}
     band_of: dict[tuple[str, int, int], _Band] = {}
     for line, (band, _m) in assignment.items():
@@ -734,7 +861,8 @@ def _finish(
         sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)) | (pull != 0))
         if measure_doublet is not None:
             for k, m_k in enumerate(m.tolist()):
-                if m_k in band.partner:
+                # a saturated top has no doublet shape to fit: its blend centre stands
+                if m_k in band.partner and not lines.saturated[idx[k]]:
                     separation, ratio = band.partner[m_k]
                     measured = measure_doublet(float(lines.position_cm1[idx[k]] - pull[k]), separation, ratio)
                     if measured is not None:
@@ -744,7 +872,7 @@ def _finish(
         fit: BandFit | None = None
         if idx.size >= 4:
             try:
-                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - pull, sigma, lines.sigma_known, library_D=band.library_D)
+                fit = fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - pull, sigma, lines.sigma_known, library_centrifugal=band.library_centrifugal)
             except (ValueError, np.linalg.LinAlgError):
                 fit = None
         if fit is None:
@@ -779,7 +907,7 @@ def _finish(
                 blend_pull=float(pull[k]),
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
-    causes = tuple(None if per_line[i] is not None else _likely_cause(lines, i, fitted_regions) for i in range(lines.count))
+    causes = tuple(None if per_line[i] is not None else _likely_cause(lines, i, fitted_regions, refused) for i in range(lines.count))
     species = tuple(sorted({f.isotopologue for f in fits}))
     return AssignmentResult(
         per_line=tuple(per_line),

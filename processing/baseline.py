@@ -6,6 +6,9 @@ levels are joined linearly; points more than 3 noise sigma above (lines) or belo
 emission-like artefacts) the baseline are flagged and the estimate repeated. Vectorised over
 blocks: a 1M-point spectrum costs a few tens of milliseconds.
 
+Window fringes are found in the line-free residual and drawn as part of the baseline
+(`processing.fringes`), so their crests are not taken for lines.
+
 Noise: the per-point sigma of the line-free residual itself, clipped at 3 sigma and made
 self-consistent with the line flags; its correlation and the file's rounding grid are measured
 too (`processing.noise`).
@@ -16,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from processing.fringes import FringeModel, find_fringes
 from processing.noise import NoiseEstimate, clipped_sigma, estimate_noise, lagged_sigma, quantization_step
 from processing.spectrum import Spectrum
 
@@ -42,6 +46,7 @@ class BaselineResult:
     saturated_regions: tuple[SaturatedRegion, ...]
     usable_absorbance: float
     noise: NoiseEstimate | None = None  # correlation, rounding grid, measurability
+    fringes: FringeModel | None = None  # window fringes found and taken out with the baseline
 
     def to_dict(self) -> dict[str, object]:
         noise = self.noise
@@ -52,6 +57,7 @@ class BaselineResult:
             "quantization_floor": noise.quantization_floor if noise else None,
             "noise_measurable": noise.measurable if noise else None,
             "noise_description": noise.description if noise else None,
+            "fringes": self.fringes.to_dict() if self.fringes else None,
             "offset_median": self.offset_median,
             "tilt_per_1000_cm1": self.tilt_per_1000_cm1,
             "line_free_fraction": float(self.line_free.mean()),
@@ -128,31 +134,19 @@ def estimate_baseline(
     if block_cm1 is None:
         block_cm1 = 12.0  # a few CO line spacings; wide enough that a block is mostly line-free
     block = int(min(np.clip(round(block_cm1 / spacing), 16, max(16, n // 4)), n))
-    free = ~spectrum.saturated
-    sigma = lagged_sigma(y[free]) if free.any() else 0.0
-    floor = 1e-9 * max(1.0, float(np.max(np.abs(y))))
-    overall = float(np.median(y[:: max(1, n // 100_000)]))
-    baseline = np.full(n, overall)
-    centres = np.array([0.0])
-    levels = np.array([overall])
-    clipped = False
-    for _ in range(iterations):
-        centres, levels = _block_levels(y, free, block)
-        baseline = _join(centres, levels, n, overall)
-        residual = y - baseline
-        threshold = 3.0 * max(sigma, floor)
-        new_free = (np.abs(residual) <= threshold) & ~spectrum.saturated
-        new_free = ~grow_flags(~new_free) & ~spectrum.saturated
-        if new_free.sum() < max(16, n // 20):
+    initial = lagged_sigma(y[~spectrum.saturated]) if (~spectrum.saturated).any() else 0.0
+    baseline, free, sigma, centres, levels = _iterate(y, spectrum.saturated, block, initial, iterations)
+    # window fringes: found in the line-free residual, then the baseline is drawn again
+    # through the spectrum without them (twice: better line flags give a better fringe)
+    fringes = find_fringes(x, y - baseline, free, spacing, sigma)
+    for _ in range(2):
+        if fringes is None:
             break
-        # iterated down from above: twice the first guess, then the previous clipped value
-        new_sigma = max(clipped_sigma(residual[new_free], sigma if clipped else 2.0 * sigma), floor)
-        clipped = True
-        # settled: under 1% of points changed flag and sigma within 2%
-        settled = np.count_nonzero(new_free != free) < 0.01 * n and abs(new_sigma - sigma) <= 0.02 * new_sigma
-        free, sigma = new_free, new_sigma
-        if settled:
-            break
+        without = y - fringes.profile
+        baseline, free, sigma, centres, levels = _iterate(without, spectrum.saturated, block, lagged_sigma(without[~spectrum.saturated]), iterations)
+        fringes = find_fringes(x, y - baseline, free, spacing, sigma) or fringes
+    if fringes is not None:
+        baseline = baseline + fringes.profile
     corrected = y - baseline
     good = np.isfinite(levels)
     if good.sum() >= 2:
@@ -160,7 +154,7 @@ def estimate_baseline(
         tilt = float(np.polyfit(centre_x, levels[good], 1)[0] * 1000.0)
     else:
         tilt = 0.0
-    offset = float(np.nanmedian(levels)) if np.isfinite(levels).any() else overall
+    offset = float(np.nanmedian(levels)) if np.isfinite(levels).any() else float(np.median(y))
     # the grid is seen best over every point (a noise-free baseline may hold one value only)
     step = quantization_step(original_values(spectrum, np.arange(0, n, max(1, n // 20_000))))
     floor_rounding = rounding_floor_absorbance(step, spectrum.original_y_kind, offset)
@@ -178,7 +172,41 @@ def estimate_baseline(
         saturated_regions=regions,
         usable_absorbance=usable_absorbance,
         noise=noise,
+        fringes=fringes,
     )
+
+
+def _iterate(
+    y: np.ndarray, saturated: np.ndarray, block: int, sigma: float, iterations: int
+) -> tuple[np.ndarray, np.ndarray, float, np.ndarray, np.ndarray]:
+    """The iterated line-free baseline: (baseline, line-free mask, clipped sigma, block
+    centres, block levels)."""
+    n = y.size
+    free = ~saturated
+    floor = 1e-9 * max(1.0, float(np.max(np.abs(y))))
+    overall = float(np.median(y[:: max(1, n // 100_000)]))
+    baseline = np.full(n, overall)
+    centres = np.array([0.0])
+    levels = np.array([overall])
+    clipped = False
+    for _ in range(iterations):
+        centres, levels = _block_levels(y, free, block)
+        baseline = _join(centres, levels, n, overall)
+        residual = y - baseline
+        threshold = 3.0 * max(sigma, floor)
+        new_free = (np.abs(residual) <= threshold) & ~saturated
+        new_free = ~grow_flags(~new_free) & ~saturated
+        if new_free.sum() < max(16, n // 20):
+            break
+        # iterated down from above: twice the first guess, then the previous clipped value
+        new_sigma = max(clipped_sigma(residual[new_free], sigma if clipped else 2.0 * sigma), floor)
+        clipped = True
+        # settled: under 1% of points changed flag and sigma within 2%
+        settled = np.count_nonzero(new_free != free) < 0.01 * n and abs(new_sigma - sigma) <= 0.02 * new_sigma
+        free, sigma = new_free, new_sigma
+        if settled:
+            break
+    return baseline, free, sigma, centres, levels
 
 
 def grow_flags(flagged: np.ndarray, minimum: int = 3, fraction: float = 0.75) -> np.ndarray:

@@ -285,18 +285,9 @@ def check_interferents(analysis: Any, t: CheckThresholds) -> Check:
 def _negative_lines(analysis: Any) -> int:
     if analysis.baseline is None:
         return 0
-    from processing.lines import find_peaks
+    from processing.lines import negative_features
 
-    inverted = -analysis.baseline.corrected
-    peaks, _ = find_peaks(inverted, analysis.baseline.noise_sigma, 8.0, None)
-    if peaks.size == 0:
-        return 0
-    # dips next to strong lines are ringing, not lines
-    positions = analysis.data.wavenumber_cm1[peaks]
-    strong = analysis.lines.position_cm1[analysis.lines.height > 20 * inverted[peaks].max()] if analysis.lines.count else np.zeros(0)
-    width = analysis.lines.typical_width_cm1 or 1.0
-    isolated = [p for p in positions if strong.size == 0 or np.min(np.abs(strong - p)) > 20 * width]
-    return len(isolated)
+    return int(negative_features(analysis.data, analysis.baseline, analysis.lines).size)
 
 
 def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], t: CheckThresholds) -> Check:
@@ -384,40 +375,12 @@ def check_baseline(analysis: Any, t: CheckThresholds) -> Check:
         problems.append(f"baseline at {baseline.offset_median:+.3f} A where nothing absorbs (background mismatch?)")
     if abs(baseline.tilt_per_1000_cm1) > t.baseline_tilt_warn_per_1000_cm1:
         problems.append(f"tilt {baseline.tilt_per_1000_cm1:+.3f} A per 1000 cm-1")
-    amplitude, period, contrast = fringe_amplitude(analysis)
-    if amplitude > t.fringe_amplitude_warn and contrast > FRINGE_CONTRAST:
-        problems.append(f"fringes: {amplitude:.4f} A with period {period:.2f} cm-1 (window etalon; they also inflate the noise estimate)")
+    fringes = baseline.fringes
+    if fringes is not None and fringes.amplitude > t.fringe_amplitude_warn:
+        problems.append(f"fringes: {fringes.amplitude:.4f} A with period {fringes.period_cm1:.2f} cm-1 (window etalon; taken out with the baseline before finding lines)")
     if problems:
         return Check("baseline", "warn", "; ".join(problems), baseline.offset_median)
     return Check("baseline", "pass", f"flat: offset {baseline.offset_median:+.3f} A, no fringes above {t.fringe_amplitude_warn:.4f} A", baseline.offset_median)
-
-
-# A periodic baseline component is real when its Fourier peak stands this far above the median
-# magnitude of the spectrum's Fourier transform (for white noise the largest of ~1e4 Rayleigh-
-# distributed magnitudes is ~3.6x their median: calc).
-FRINGE_CONTRAST = 8.0
-
-
-def fringe_amplitude(analysis: Any) -> tuple[float, float, float]:
-    """Largest periodic baseline component in line-free points: (amplitude in A, period in
-    cm-1, contrast = its Fourier magnitude over the median magnitude), periods 0.3-20 cm-1.
-    The contrast does not depend on the noise estimate, which fringes themselves inflate."""
-    baseline = analysis.baseline
-    residual = np.where(baseline.line_free, baseline.corrected, 0.0)
-    n = residual.size
-    if n < 64 or baseline.line_free.mean() < 0.3:
-        return 0.0, 0.0, 0.0
-    size = 1 << int(math.ceil(math.log2(n)))  # a power of two: fast whatever n is
-    spectrum = np.fft.rfft(residual - residual.mean(), n=size)
-    frequency = np.fft.rfftfreq(size, d=analysis.data.spacing_cm1)  # cycles per cm-1
-    band = (frequency > 1 / 20.0) & (frequency < 1 / 0.3)
-    if band.sum() < 8:
-        return 0.0, 0.0, 0.0
-    power = np.abs(spectrum[band])
-    k = int(np.argmax(power))
-    amplitude = 2.0 * power[k] / max(baseline.line_free.sum(), 1)
-    contrast = float(power[k] / max(np.median(power), 1e-300))
-    return float(amplitude), float(1.0 / frequency[band][k]), contrast
 
 
 def run_checks(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], thresholds: CheckThresholds) -> list[Check]:

@@ -75,7 +75,7 @@ class BandFit:
     h_model: str = "no H"  # "separate H", "common H" or "no H"
     sigma: np.ndarray | None = None  # the line uncertainties the fit used (cm-1)
     linear_fit: LinearFit | None = field(default=None, repr=False, compare=False)  # for model references
-    held_D: tuple[float, float] = (0.0, 0.0)  # (D', D'') the model holds (subtracted, not fitted)
+    held: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)  # (D', D'', H', H'') held, not fitted
     lower_combination: CombinationDifferenceFit | None = None
     upper_combination: CombinationDifferenceFit | None = None
     notes: tuple[str, ...] = field(default=())
@@ -92,7 +92,7 @@ class BandFit:
         x_up, x_low = _x(upper_J(branch, J_lower)), _x(J_lower)
         design, names = _band_design(x_up, x_low, self.d_model, self.h_model)
         values = np.array([self._parameter(name) for name in names])
-        positions = design @ values + held_centrifugal(x_up, x_low, self.held_D)
+        positions = design @ values + held_centrifugal(x_up, x_low, self.held)
         variance = np.einsum("ij,jk,ik->i", design, self.covariance, design)
         return positions, np.sqrt(np.clip(variance, 0.0, None))
 
@@ -129,7 +129,7 @@ class BandFit:
             "D_upper": self.D_upper.to_dict() if self.D_upper else None,
             "D_lower": self.D_lower.to_dict() if self.D_lower else None,
             "d_model": self.d_model,
-            "held_D": list(self.held_D) if any(self.held_D) else None,
+            "held_centrifugal": dict(zip(("D_upper", "D_lower", "H_upper", "H_lower"), self.held)) if any(self.held) else None,
             "H_upper": self.H_upper.to_dict() if self.H_upper else None,
             "H_lower": self.H_lower.to_dict() if self.H_lower else None,
             "h_model": self.h_model,
@@ -178,12 +178,18 @@ def _x(J: np.ndarray) -> np.ndarray:
 # when they cannot determine D at all, both are held (never zero).
 D_DIFFERENCE_HELD = "D'' fitted, D' - D'' from the library"
 D_HELD = "D from the library"
+# The same for the sextic term: H from the library, not zero (for CO to J'' 33 at 0.02 cm-1,
+# H x''^3 is ~0.008 cm-1; dropped, D and B absorb it and B'' moves by 13 of its sigma).
+H_DIFFERENCE_HELD = "H'' fitted, H' - H'' from the library"
+H_HELD = "H from the library"
+NOTHING_HELD = (0.0, 0.0, 0.0, 0.0)
 
 
-def held_centrifugal(x_up: np.ndarray, x_low: np.ndarray, held_D: tuple[float, float]) -> np.ndarray:
-    """The held centrifugal terms' part of the line positions: -D' x'^2 + D'' x''^2."""
-    upper, lower = held_D
-    return -upper * x_up**2 + lower * x_low**2
+def held_centrifugal(x_up: np.ndarray, x_low: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
+    """The held centrifugal terms' part of the line positions:
+    -D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3."""
+    d_upper, d_lower, h_upper, h_lower = held
+    return -d_upper * x_up**2 + d_lower * x_low**2 + h_upper * x_up**3 - h_lower * x_low**3
 
 
 def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
@@ -199,7 +205,7 @@ def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str =
     if h_model == "separate H":
         columns += [x_up**3, -(x_low**3)]
         names += ["H_upper", "H_lower"]
-    elif h_model == "common H":
+    elif h_model in ("common H", H_DIFFERENCE_HELD):
         columns += [x_up**3 - x_low**3]
         names += ["H"]
     return np.column_stack(columns), tuple(names)
@@ -221,7 +227,8 @@ def _differ(fit: LinearFit, a: str, b: str) -> bool:
     return _significant(fit, a) and _significant(fit, b) and var > 0 and abs(fit.value(a) - fit.value(b)) > _threshold(a) * np.sqrt(var)
 
 
-_SIZES = {"separate D": 2, "common D": 1, "no D": 0, D_DIFFERENCE_HELD: 1, D_HELD: 0, "separate H": 2, "common H": 1, "no H": 0}
+_SIZES = {"separate D": 2, "common D": 1, "no D": 0, D_DIFFERENCE_HELD: 1, D_HELD: 0,
+          "separate H": 2, "common H": 1, "no H": 0, H_DIFFERENCE_HELD: 1, H_HELD: 0}
 
 
 def _choose_band_fit(
@@ -231,44 +238,53 @@ def _choose_band_fit(
     sigma: np.ndarray,
     sigma_known: bool,
     sextic: bool = True,
-    library_D: tuple[float, float] | None = None,
-) -> tuple[LinearFit, str, str, tuple[float, float]]:
-    """(fit, D model, H model, held (D', D'')): H chosen first with separate D (unless
-    `sextic` is False), then D under that H; with `library_D`, the D' - D'' or both D held at
-    the library's values where the lines cannot determine them."""
+    library: tuple[float, float, float, float] | None = None,
+) -> tuple[LinearFit, str, str, tuple[float, float, float, float]]:
+    """(fit, D model, H model, held (D', D'', H', H'')): H chosen first with separate D (not
+    floated when `sextic` is False), then D under that H. With the `library`'s (D', D'', H',
+    H''), what the lines cannot determine is held at the library's values (the difference
+    between upper and lower state, or both), never at zero; without it (an unidentified band)
+    a term not determined is left out."""
     n = observed.size
 
-    def attempt(d_model: str, h_model: str, held: tuple[float, float] = (0.0, 0.0)) -> LinearFit | None:
+    def attempt(d_model: str, h_model: str, held: tuple[float, float, float, float] = NOTHING_HELD) -> LinearFit | None:
         if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
             return None
         design, names = _band_design(x_up, x_low, d_model, h_model)
         target = observed - held_centrifugal(x_up, x_low, held)
         return weighted_least_squares(design, target, sigma, names, sigma_known=sigma_known)
 
-    h_model = "no H"
-    for candidate in ("separate H", "common H") if sextic else ():
-        trial = attempt("separate D", candidate)
-        if trial is None:
-            continue
-        if (candidate == "separate H" and _differ(trial, "H_upper", "H_lower")) or (candidate == "common H" and _significant(trial, "H")):
-            h_model = candidate
-            break
-    trial = attempt("separate D", h_model)
+    h_model, h_held = "no H", (0.0, 0.0)
+    trial = attempt("separate D", "separate H") if sextic else None
+    if trial is not None and _differ(trial, "H_upper", "H_lower"):
+        h_model = "separate H"
+    elif sextic and library is not None:
+        difference = (library[2] - library[3], 0.0)
+        trial = attempt("separate D", H_DIFFERENCE_HELD, (0.0, 0.0) + difference)
+        h_model, h_held = (H_DIFFERENCE_HELD, difference) if trial is not None and _significant(trial, "H") else (H_HELD, library[2:])
+    elif library is not None:
+        h_model, h_held = H_HELD, library[2:]
+    elif sextic:
+        trial = attempt("separate D", "common H")
+        if trial is not None and _significant(trial, "H"):
+            h_model = "common H"
+    trial = attempt("separate D", h_model, (0.0, 0.0) + h_held)
     if trial is not None and _differ(trial, "D_upper", "D_lower"):
-        return trial, "separate D", h_model, (0.0, 0.0)
-    if library_D is not None:
-        difference = (library_D[0] - library_D[1], 0.0)
-        trial = attempt(D_DIFFERENCE_HELD, h_model, difference)
-        if trial is not None and (_significant(trial, "D") or h_model != "no H"):
-            return trial, D_DIFFERENCE_HELD, h_model, difference
-        trial = attempt("no D", h_model, library_D)
+        return trial, "separate D", h_model, (0.0, 0.0) + h_held
+    if library is not None:
+        held = (library[0] - library[1], 0.0) + h_held
+        trial = attempt(D_DIFFERENCE_HELD, h_model, held)
+        if trial is not None and (_significant(trial, "D") or _SIZES[h_model]):
+            return trial, D_DIFFERENCE_HELD, h_model, held
+        held = library[:2] + h_held
+        trial = attempt("no D", h_model, held)
         if trial is not None:
-            return trial, D_HELD, h_model, library_D
+            return trial, D_HELD, h_model, held
     trial = attempt("common D", h_model)
     if trial is not None and (_significant(trial, "D") or h_model != "no H"):  # H needs a D beside it
-        return trial, "common D", h_model, (0.0, 0.0)
+        return trial, "common D", h_model, NOTHING_HELD
     design, names = _band_design(x_up, x_low, "no D")
-    return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H", (0.0, 0.0)
+    return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H", NOTHING_HELD
 
 
 def fit_band(
@@ -282,15 +298,16 @@ def fit_band(
     sigma_known: bool = True,
     cross_check: bool = True,
     sextic: bool = True,
-    library_D: tuple[float, float] | None = None,
+    library_centrifugal: tuple[float, float, float, float] | None = None,
 ) -> BandFit:
     """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
 
     `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`);
     `cross_check=False` skips the combination-difference fits (used while iterating);
     `sextic=False` leaves H out (while iterating: a cubic term extrapolates predictions to
-    unassigned J wildly when a few positions are still off); `library_D` = the library's
-    (D', D'') of the band, held where the lines cannot determine them (see D_DIFFERENCE_HELD)."""
+    unassigned J wildly when a few positions are still off); `library_centrifugal` = the
+    library's (D', D'', H', H'') of the band, held where the lines cannot determine them (see
+    D_DIFFERENCE_HELD, H_DIFFERENCE_HELD)."""
     branch = np.asarray(branch)
     J_lower = np.asarray(J_lower, dtype=np.int64)
     observed = np.asarray(observed_cm1, dtype=np.float64)
@@ -299,7 +316,7 @@ def fit_band(
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
     x_low = _x(J_lower)
     x_up = _x(upper_J(branch, J_lower))
-    fit, model, h_model, held_D = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic, library_D)
+    fit, model, h_model, held = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic, library_centrifugal)
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
@@ -312,14 +329,17 @@ def fit_band(
             return estimate(letter), estimate(letter)
         return None, None
 
-    if model == D_DIFFERENCE_HELD:
-        lower = estimate("D")
-        D_upper, D_lower = Estimate(lower.value + held_D[0], lower.sigma), lower
-    elif model == D_HELD:
-        D_upper, D_lower = Estimate(held_D[0], None), Estimate(held_D[1], None)
-    else:
-        D_upper, D_lower = pair(model, "D")
-    H_upper, H_lower = pair(h_model, "H")
+    def held_pair(choice: str, letter: str, upper_held: float, lower_held: float) -> tuple[Estimate | None, Estimate | None]:
+        """(upper, lower) with the held parts added: a held difference, or both held."""
+        if choice.startswith(f"{letter}'' fitted"):
+            lower = estimate(letter)
+            return Estimate(lower.value + upper_held, lower.sigma), lower
+        if choice == f"{letter} from the library":
+            return Estimate(upper_held, None), Estimate(lower_held, None)
+        return pair(choice, letter)
+
+    D_upper, D_lower = held_pair(model, "D", held[0], held[1])
+    H_upper, H_lower = held_pair(h_model, "H", held[2], held[3])
     used = fit.used
     lower_cd = upper_cd = None
     if cross_check:
@@ -344,14 +364,14 @@ def fit_band(
         J_lower=J_lower,
         branch=branch,
         observed=observed,
-        calc=fit.calc + held_centrifugal(x_up, x_low, held_D),
+        calc=fit.calc + held_centrifugal(x_up, x_low, held),
         used=fit.used,
         H_upper=H_upper,
         H_lower=H_lower,
         h_model=h_model,
         sigma=sigma,
         linear_fit=fit,
-        held_D=held_D,
+        held=held,
         lower_combination=lower_cd,
         upper_combination=upper_cd,
     )

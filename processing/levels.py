@@ -68,6 +68,11 @@ def centrifugal_constant(dunham: DunhamCoefficients, v: int) -> float:
     return float(-sum(y * (v + 0.5) ** k for (k, l), y in dunham.items() if l == 2))
 
 
+def sextic_constant(dunham: DunhamCoefficients, v: int) -> float:
+    """H_v = sum_k Y_k3 (v+1/2)^k, cm-1."""
+    return float(sum(y * (v + 0.5) ** k for (k, l), y in dunham.items() if l == 3))
+
+
 def band_origin(dunham: DunhamCoefficients, v_upper: int, v_lower: int) -> float:
     """nu0 = G(v') - G(v''), cm-1."""
     return float(term_value(dunham, v_upper, 0) - term_value(dunham, v_lower, 0))

@@ -29,6 +29,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from processing.baseline import BaselineResult
+from processing.line_shape import (
+    LineShapeModel,
+    equivalent_width_estimates,
+    explained_by_ringing,
+    infer_line_shape,
+    predicted_ringing,
+    stated_line_shape,
+)
 from processing.noise import NoiseEstimate, white_noise
 from processing.spectrum import Spectrum
 
@@ -48,11 +56,13 @@ class LineTable:
     snr: np.ndarray  # height / noise sigma
     saturated: np.ndarray  # top beyond the usable absorbance, flat or unmeasurable
     blended: np.ndarray  # a neighbour closer than 1.5 widths shares the profile
-    ringing: np.ndarray  # weak companion of a much stronger line (possible ILS sidelobe)
+    ringing: np.ndarray  # explained by the lobes of other lines' instrument line shape
     typical_width_cm1: float = 0.0
     notes: tuple[str, ...] = field(default=())
     sigma_known: bool = True  # False for a line list: position_sigma_cm1 is only a weight
     few_points: np.ndarray | None = None  # profile drawn on < 4 points: conservative sigma
+    line_shape: LineShapeModel | None = None  # the instrument line shape the ringing flags used
+    equivalent_width_estimate: np.ndarray | None = None  # T-depth x cm-1, from the main lobe
 
     def __post_init__(self) -> None:
         if self.few_points is None:
@@ -201,6 +211,10 @@ def _gaussian(x: np.ndarray, height: np.ndarray, centre: np.ndarray, fwhm: np.nd
 
 
 MIN_PROFILE_POINTS = 4  # a 3-parameter profile fit needs positive degrees of freedom
+# Neighbours taken out of a line's window are drawn to about this fraction of their true
+# shape there (Gaussian cores for close ones, the instrument line shape for far ones): the
+# same fraction of the shift their removal causes goes into the line's position uncertainty.
+DEBLEND_MODEL_ERROR = 0.35
 
 
 def _core_weights(target: np.ndarray, half: int) -> np.ndarray:
@@ -255,13 +269,21 @@ def _fit_gaussians(
         w = np.clip(w + step[:, 2], 0.3 * fwhm, 3.0 * fwhm)
     g, jac = _jacobian(x, h, c, w)
     jac = jac * weight[:, :, None]
-    inverse = np.linalg.pinv(np.einsum("nki,nkj->nij", jac, jac))
-    if correlation is None:
-        cov = inverse
-    else:
-        # sandwich: (J'J)^-1 J' R J (J'J)^-1 for least squares on correlated noise
-        middle = np.einsum("nki,kl,nlj->nij", jac, correlation, jac)
-        cov = inverse @ middle @ inverse
+    normal = np.einsum("nki,nkj->nij", jac, jac)
+    # a degenerate window (a line on too few points, a diverged fit) gives an infinite
+    # variance, not a warning: the caller replaces it
+    degenerate = ~np.all(np.isfinite(normal), axis=(1, 2))
+    normal[degenerate] = np.eye(3)
+    with np.errstate(all="ignore"):
+        inverse = np.linalg.pinv(normal)
+        if correlation is None:
+            cov = inverse
+        else:
+            # sandwich: (J'J)^-1 J' R J (J'J)^-1 for least squares on correlated noise
+            middle = np.einsum("nki,kl,nlj->nij", np.nan_to_num(jac), correlation, np.nan_to_num(jac))
+            cov = inverse @ middle @ inverse
+    cov[degenerate] = np.inf
+    cov[~np.isfinite(cov)] = np.inf
     used = weight.sum(axis=1)
     resid = ((y - h[:, None] * g) * weight) ** 2
     rms = np.sqrt(resid.sum(axis=1) / np.maximum(used - 3, 1))
@@ -330,11 +352,22 @@ def measure_lines(
         c = np.where(bad, centre0, c)
         w = np.where(~np.isfinite(w) | bad, fwhm0, w)
         h = np.where(~np.isfinite(h) | bad, height0, h)
+    h, c, w, cov, rms, weight = _deblend_far_neighbours(
+        spectrum, baseline, x_win, y_win, half, h, c, w, cov, rms, weight, saturated_lines, noise)
+    # how far taking the neighbours out moved each centre: the neighbours' drawn shapes are
+    # good to DEBLEND_MODEL_ERROR of that, which the centre's uncertainty carries
+    lone = _fit_gaussians(x_win, y_win, _core_weights(y_win, half), h, c, w)[1]
+    deblend_shift = np.where(np.isfinite(lone), c - lone, 0.0)
+    bad = ~np.isfinite(c) | (np.abs(c - x_all[peaks]) > spacing * (half + 1))
+    c = np.where(bad, centre0, c)
+    w = np.where(~np.isfinite(w) | bad, fwhm0, w)
+    h = np.where(~np.isfinite(h) | bad, height0, h)
     used = weight.sum(axis=1)
     local_sigma = sigma * local_noise_factor(0.5 * h)
-    # the fit's own rms says more than the noise only where it has residual freedom to say it
-    scatter = np.where(used - 3 >= 3, np.maximum(local_sigma, rms), local_sigma)
-    position_sigma = np.sqrt(np.clip(cov[:, 1, 1], 0, None)) * scatter
+    # the noise, not the fit's residual rms: on a strong line that rms is the Gaussian core's
+    # misfit to the instrument line shape, symmetric about the centre and so no error in it
+    # (a line's neighbours, which are not symmetric, enter through the deblending term)
+    position_sigma = np.hypot(np.sqrt(np.clip(cov[:, 1, 1], 0, None)) * local_sigma, DEBLEND_MODEL_ERROR * deblend_shift)
     position_sigma = np.maximum(np.nan_to_num(position_sigma, nan=np.inf), 0.01 * spacing)
     conservative = conservative_position_sigma(w, h, local_sigma, spacing, noise)
     few_points = used < MIN_PROFILE_POINTS
@@ -367,7 +400,7 @@ def measure_lines(
     blended = np.zeros(c.size, dtype=bool)
     blended[:-1] |= close
     blended[1:] |= close
-    ringing = _possible_ringing(c, h, typical, spectrum.meta.apodization, spectrum.meta.resolution_cm1)
+    ringing, line_shape, equivalent = ringing_flags(spectrum, baseline, c, h, w, saturated, threshold_sigma)
     snr = snr_of(h, sigma)
     return LineTable(
         position_cm1=c,
@@ -380,9 +413,50 @@ def measure_lines(
         blended=blended,
         ringing=ringing,
         typical_width_cm1=typical,
-        notes=(f"threshold {threshold_sigma:.3g} x noise sigma {sigma:.3g}", f"typical FWHM {typical:.4f} cm-1"),
+        notes=(f"threshold {threshold_sigma:.3g} x noise sigma {sigma:.3g}", f"typical FWHM {typical:.4f} cm-1")
+        + ((f"line shape {line_shape.source}",) if line_shape else ()),
         few_points=few_points,
+        line_shape=line_shape,
+        equivalent_width_estimate=equivalent,
     )
+
+
+def _deblend_far_neighbours(
+    spectrum: Spectrum, baseline: BaselineResult, x_win: np.ndarray, y_win: np.ndarray, half: int,
+    h: np.ndarray, c: np.ndarray, w: np.ndarray, cov: np.ndarray, rms: np.ndarray, weight: np.ndarray,
+    saturated_lines: list[tuple[float, float, float, float]], noise: NoiseEstimate,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """One more profile fit of every line with its neighbours taken out as the instrument line
+    shape draws them (their wings and sidelobes, whose shape a Gaussian core does not follow:
+    a line beside a 10x stronger one 2 widths away is otherwise pulled by ~0.1 of a width).
+    Neighbours whose main lobe reaches the window are taken out as Gaussians, as before."""
+    centres = np.concatenate([c, np.array([s[0] for s in saturated_lines])]) if saturated_lines else c
+    widths = np.concatenate([w, np.array([s[3] for s in saturated_lines])]) if saturated_lines else w
+    heights = np.concatenate([h, np.array([s[2] for s in saturated_lines])]) if saturated_lines else h
+    x = spectrum.wavenumber_cm1
+    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
+    stated = stated_line_shape(spectrum.meta.apodization, spectrum.meta.resolution_cm1)
+    top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
+    model = infer_line_shape(x, depth, centres, widths, top_depth, math.log(10.0) * baseline.noise_sigma, stated)
+    if model is None or c.size < 2:
+        return h, c, w, cov, rms, weight
+    equivalent = equivalent_width_estimates(x, depth, centres, model, widths)
+    # a line much wider than the instrument's line shape (resolved: a black Doppler core at
+    # high resolution) does not ring like a narrow one: it is left as it is
+    resolved = widths > 1.3 * model.fwhm_cm1
+    far_depth, _ = predicted_ringing(centres[~resolved], equivalent[~resolved], model, x_win.ravel())
+    far = -np.log10(np.clip(1.0 - far_depth.reshape(x_win.shape), 1e-6, None))
+    target = y_win - far
+    reach = model.main_lobe_cm1 + float(np.max(np.abs(x_win - c[:, None]))) if c.size else 0.0
+    order = np.argsort(centres)
+    sorted_c = centres[order]
+    for i in range(c.size):
+        lo, hi = np.searchsorted(sorted_c, c[i] - reach), np.searchsorted(sorted_c, c[i] + reach)
+        for j in order[lo:hi]:
+            if j < c.size and j != i:
+                target[i] -= h[j] * np.exp(-FOUR_LN2 * ((x_win[i] - c[j]) / w[j]) ** 2)
+    weight = _core_weights(target, half)
+    return (*_fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1)), weight)
 
 
 def _collapse_saturated(spectrum: Spectrum, baseline: BaselineResult, peaks: np.ndarray) -> tuple[np.ndarray, list[tuple[float, float, float, float]]]:
@@ -411,33 +485,50 @@ def snr_of(height: np.ndarray, sigma: float) -> np.ndarray:
     return height / sigma if sigma > 0 else np.full(height.size, np.inf)
 
 
-def _possible_ringing(
-    position: np.ndarray, height: np.ndarray, typical_width: float, apodization: str | None, resolution: float | None
-) -> np.ndarray:
-    """Flag lines that may be sidelobes (ringing) of a stronger neighbour.
+def ringing_flags(
+    spectrum: Spectrum, baseline: BaselineResult, centres: np.ndarray, heights: np.ndarray, widths: np.ndarray,
+    saturated: np.ndarray, threshold_sigma: float,
+) -> tuple[np.ndarray, LineShapeModel | None, np.ndarray]:
+    """(flag per line, the line shape used, equivalent width per line): a line is flagged as
+    ringing when the lobes the spectrum's lines put at its position explain its depth (see
+    `processing.line_shape`). The line shape is the stated one (apodization, resolution) or
+    the window that best explains the strongest lines' profiles."""
+    flags = np.zeros(centres.size, dtype=bool)
+    x = spectrum.wavenumber_cm1
+    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
+    noise_t = math.log(10.0) * baseline.noise_sigma
+    top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
+    stated = stated_line_shape(spectrum.meta.apodization, spectrum.meta.resolution_cm1)
+    model = infer_line_shape(x, depth, centres, widths, top_depth, noise_t, stated)
+    if model is None or centres.size < 2:
+        return flags, model, np.zeros(centres.size)
+    equivalent = equivalent_width_estimates(x, depth, centres, model, widths)
+    lobes = predicted_ringing(centres, equivalent, model, centres, saturated)
+    # in transmittance the detector noise is the same everywhere
+    flags = explained_by_ringing(top_depth, lobes, np.full(centres.size, noise_t), threshold_sigma)
+    return flags, model, equivalent
 
-    Ringing lives in transmittance. Without apodization (boxcar, or unknown) the line shape is
-    sinc(2 pi L x), whose sidelobe envelope is 1/(pi 2L |d|) at distance d, with 2L = 1.207/FWHM
-    (calc). A line whose transmittance dip is under twice that envelope times the neighbour's
-    depth is flagged. Apodizing windows cut the sidelobes by an order of magnitude or more
-    (Happ-Genzel +0.7% first lobe, calc), but Doppler-black lines still ring at the percent
-    level (seen beside black HBr lines at 0.125 cm-1): the same envelope is used at half its
-    unapodized height. A flagged line may still be claimed by a refined library prediction."""
-    n = position.size
-    flag = np.zeros(n, dtype=bool)
-    if n < 2:
-        return flag
-    dip = 1.0 - np.power(10.0, -np.clip(height, 0.0, None))
-    unapodized = apodization is None or apodization.strip().lower() in ("", "boxcar", "none", "rectangular", "unknown")
-    factor = 2.0 if unapodized else 1.0
-    width = max(typical_width, 0.6 * resolution if (resolution and unapodized) else 0.0)
-    strong = np.flatnonzero(dip > 0.05)
-    for j in strong:
-        distance = np.abs(position - position[j])
-        near = (distance > 0.5 * width) & (distance < 40.0 * width) & (dip < dip[j])
-        envelope = dip[j] * width / (1.207 * np.pi * np.maximum(distance, 1e-12))
-        flag |= near & (dip < factor * envelope)
-    return flag
+
+NEGATIVE_THRESHOLD_SIGMA = 8.0
+
+
+def negative_features(spectrum: Spectrum, baseline: BaselineResult, lines: LineTable) -> np.ndarray:
+    """Positions of dips below the baseline (negative absorbance: an absorber that was in the
+    background beam, or an inverted axis) that the lines' own ringing does not explain. With
+    no line shape known, dips within 20 widths of a line 20x deeper are taken as ringing."""
+    inverted = -baseline.corrected
+    peaks, _ = find_peaks(inverted, baseline.noise_sigma, NEGATIVE_THRESHOLD_SIGMA, None)
+    if peaks.size == 0:
+        return np.zeros(0)
+    positions = spectrum.wavenumber_cm1[peaks]
+    if lines.count and lines.line_shape is not None and lines.equivalent_width_estimate is not None:
+        depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected[peaks], -3.0, 12.0))  # negative
+        lobes = predicted_ringing(lines.position_cm1, lines.equivalent_width_estimate, lines.line_shape, positions, lines.saturated)
+        noise_t = np.full(peaks.size, math.log(10.0) * baseline.noise_sigma)
+        return positions[~explained_by_ringing(depth, lobes, noise_t, NEGATIVE_THRESHOLD_SIGMA)]
+    strong = lines.position_cm1[lines.height > 20 * inverted[peaks].max()] if lines.count else np.zeros(0)
+    width = lines.typical_width_cm1 or 1.0
+    return np.array([p for p in positions if strong.size == 0 or np.min(np.abs(strong - p)) > 20 * width])
 
 
 def measure_doublet(

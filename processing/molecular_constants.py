@@ -33,7 +33,7 @@ import numpy as np
 from processing.dunham_fit import AssignedLines, TermFit, fit_terms, term_columns
 from processing.errors import UnknownSpeciesError
 from processing.estimate import Estimate
-from processing.levels import CONSTANT_TO_DUNHAM, band_origin, centrifugal_constant, rotational_constant, upper_J
+from processing.levels import CONSTANT_TO_DUNHAM, band_origin, centrifugal_constant, rotational_constant, sextic_constant, upper_J
 from processing.library_uncertainty import LibraryParameters, library_parameters, predicted_lines
 from processing.model_reference import Compared, FittedModel, fitted_model
 from processing.physical_constants import (
@@ -496,10 +496,11 @@ def band_reference(fit: Any, library: Any) -> BandReference | None:
     J_up = upper_J(fit.branch, fit.J_lower)
     positions, jacobian = predicted_lines(library, isotopologue.label, np.full(n, fit.v_upper), J_up, np.full(n, fit.v_lower), fit.J_lower)
     held = {}
-    if any(fit.held_D):
+    if any(fit.held):
         x_up, x_low = J_up * (J_up + 1.0), fit.J_lower * (fit.J_lower + 1.0)
-        held = dict(held_names=("D_upper (held)", "D_lower (held)"), held_columns=np.column_stack([-(x_up**2), x_low**2]),
-                    held_values=np.array(fit.held_D, dtype=np.float64))
+        held = dict(held_names=("D_upper (held)", "D_lower (held)", "H_upper (held)", "H_lower (held)"),
+                    held_columns=np.column_stack([-(x_up**2), x_low**2, x_up**3, -(x_low**3)]),
+                    held_values=np.array(fit.held, dtype=np.float64))
     model = fitted_model(fit.linear_fit, library_parameters(library), positions, jacobian, **held)
     dunham = isotopologue.dunham
     model_text = f"band model ({fit.d_model}, {fit.h_model}) fitted to the library's positions of the same {fit.n_lines} lines"
@@ -509,8 +510,8 @@ def band_reference(fit: Any, library: Any) -> BandReference | None:
         "B_lower": rotational_constant(dunham, fit.v_lower),
         "D_upper": centrifugal_constant(dunham, fit.v_upper),
         "D_lower": centrifugal_constant(dunham, fit.v_lower),
-        "H_upper": _sextic_constant(dunham, fit.v_upper),
-        "H_lower": _sextic_constant(dunham, fit.v_lower),
+        "H_upper": sextic_constant(dunham, fit.v_upper),
+        "H_lower": sextic_constant(dunham, fit.v_lower),
     }
     aliases = {"D_upper": "D", "D_lower": "D", "H_upper": "H", "H_lower": "H"}
     comparisons = []
@@ -523,11 +524,6 @@ def band_reference(fit: Any, library: Any) -> BandReference | None:
         if comparison is not None:
             comparisons.append(comparison)
     return BandReference(fit.isotopologue, fit.v_upper, fit.v_lower, model, tuple(comparisons))
-
-
-def _sextic_constant(dunham: Any, v: int) -> float:
-    """H_v = sum_k Y_k3 (v+1/2)^k, cm-1."""
-    return float(sum(y * (v + 0.5) ** k for (k, l), y in dunham.items() if l == 3))
 
 
 # --------------------------------------------------------------------------- mass-reduced

@@ -92,7 +92,12 @@ def test_boxcar_ringing_is_not_assigned() -> None:
     sim = _simulate((SampleGas(("HCl",), 0.1),), apodization="boxcar", seed=8)
     analysis = analyse(sim.spectrum, ProcessSettings())
     assert analysis.lines.ringing.sum() >= 10
-    assert not any(analysis.assignment.per_line[i] for i in np.flatnonzero(analysis.lines.ringing))
+    # a flagged feature may still be claimed by a refined prediction (a weak real line inside a
+    # strong one's lobe envelope); then it must be that real line, not a lobe
+    true_positions = sim.truth.lines.position_cm1
+    for i in np.flatnonzero(analysis.lines.ringing):
+        if analysis.assignment.per_line[i] is not None:
+            assert np.min(np.abs(true_positions - analysis.lines.position_cm1[i])) < 0.3 * analysis.lines.typical_width_cm1
     bands = _bands(analysis)
     truth = _truth(sim)
     for key in (("H35Cl", 1, 0), ("H37Cl", 1, 0)):

@@ -1,0 +1,228 @@
+"""The instrument line shape (ILS) of a spectrum, and the ringing its lines make.
+
+Gas lines here are far narrower than the resolution, so each line's transmittance dip is its
+equivalent width W times the ILS: depth(nu) = W ILS(nu - nu0), ILS(d) = 2 L f(d L),
+f(s) = integral_0^1 w(u) cos(2 pi s u) du for a window w over path differences 0..L.
+Beyond the main lobe the ILS rings: boxcar sidelobes reach -21.7% and +12.8% of the peak and
+fall as 1/d; apodized windows ring far less (Happ-Genzel ~0.7%, falling fast). A strong line's
+lobes appear as weak positive "lines" and as negative dips beside it. Predicting them from the
+ILS actually in the file (the stated apodization and resolution, else the window that best
+explains the strongest lines) tells them from real weak lines: a peak is a line when what is
+left after the predicted ringing is subtracted still stands above the noise.
+"""
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass
+
+import numpy as np
+
+from processing.apodization import APODIZATIONS, apodization_window, window_name
+
+STATED_MISFIT_FACTOR = 4.0  # a stated line shape yields only to one that fits this much better
+_SAMPLES = 1 << 13  # window samples over 0..1
+_PAD = 1 << 19  # FFT length: s step 1 / (_PAD / _SAMPLES) = 1/64 in units of 1/L
+# The prediction of a lobe's depth is good to about this fraction (line shapes not exactly
+# narrow, neighbours, equivalent widths from the main lobe): a peak must exceed its predicted
+# ringing by more.
+RINGING_MODEL_ERROR = 0.35
+
+
+@functools.lru_cache(maxsize=16)
+def _tabulated(window: str) -> tuple[np.ndarray, np.ndarray]:
+    """(s, f(s)) for s = 0 .. 1024 in steps of 1/64 (units of 1/L), by one FFT of the window."""
+    u = np.arange(_SAMPLES) / _SAMPLES
+    w = apodization_window(window, u)
+    w[0] *= 0.5  # trapezoid weight of the end at zero path difference (the cosine series doubles it)
+    spectrum = np.fft.rfft(w, _PAD).real * (2.0 / _SAMPLES)  # 2 integral_0^1 w cos(2 pi s u) du
+    s = np.arange(spectrum.size) * (_SAMPLES / _PAD)
+    keep = s <= 1024.0
+    return s[keep], spectrum[keep]
+
+
+@dataclass(frozen=True)
+class LineShapeModel:
+    """An FTIR instrument line shape: window and maximum optical path difference L (cm)."""
+
+    window: str
+    opd_cm: float
+    source: str  # how it was found: "stated ...", "inferred ..."
+
+    def shape(self, offset_cm1: np.ndarray) -> np.ndarray:
+        """ILS at the given offsets, unit area (1/cm-1)."""
+        s, f = _tabulated(self.window)
+        scaled = np.abs(np.asarray(offset_cm1, dtype=np.float64)) * self.opd_cm
+        return np.interp(scaled, s, f, right=0.0) * self.opd_cm
+
+    def relative(self, offset_cm1: np.ndarray) -> np.ndarray:
+        """ILS(d) / ILS(0): a lobe's depth relative to a narrow line's peak."""
+        _, f = _tabulated(self.window)
+        return self.shape(offset_cm1) / (f[0] * self.opd_cm)
+
+    @property
+    def peak_per_width(self) -> float:
+        """ILS(0), 1/cm-1: a narrow line's peak depth per unit equivalent width."""
+        return float(_tabulated(self.window)[1][0] * self.opd_cm)
+
+    @functools.cached_property
+    def fwhm_cm1(self) -> float:
+        s, f = _tabulated(self.window)
+        below = int(np.flatnonzero(f < 0.5 * f[0])[0])
+        s0, s1, f0, f1 = s[below - 1], s[below], f[below - 1], f[below]
+        return float(2.0 * (s0 + (0.5 * f[0] - f0) * (s1 - s0) / (f1 - f0)) / self.opd_cm)
+
+    @functools.cached_property
+    def main_lobe_cm1(self) -> float:
+        """Half-width of the main lobe: the first offset where the ILS falls to zero or, for
+        windows without zeros, to 1% of its peak."""
+        s, f = _tabulated(self.window)
+        low = np.flatnonzero(f <= 0.01 * f[0])
+        return float(s[low[0]] / self.opd_cm) if low.size else 2.0 * self.fwhm_cm1
+
+    def reach_cm1(self, level: float) -> float:
+        """Offset beyond which every lobe stays under `level` x the peak."""
+        s, f = _tabulated(self.window)
+        above = np.flatnonzero(np.abs(f) > level * f[0])
+        return float(s[above[-1]] / self.opd_cm) if above.size else 0.0
+
+
+def stated_line_shape(apodization: str | None, resolution_cm1: float | None) -> LineShapeModel | None:
+    """The line shape a file states (apodization and resolution R = 1/L), or None."""
+    window = window_name(apodization)
+    if window is None or not resolution_cm1 or resolution_cm1 <= 0:
+        return None
+    return LineShapeModel(window, 1.0 / resolution_cm1, f"stated: {window}, resolution {resolution_cm1:g} cm-1")
+
+
+def infer_line_shape(
+    x: np.ndarray, depth: np.ndarray, centres: np.ndarray, widths: np.ndarray, strengths: np.ndarray, noise_t: float,
+    stated: LineShapeModel | None = None,
+) -> LineShapeModel | None:
+    """The line shape that best explains the transmittance-depth profiles around the strongest
+    lines (none stronger within reach), out to 12 FWHM: each window with L set by the
+    measured width of the narrower lines (the stated resolution's convention varies between
+    vendors), every line in the window drawn with it at its measured centre. The stated shape,
+    when there is one, wins unless another explains the profiles far better (residual under
+    1 / STATED_MISFIT_FACTOR)."""
+    if centres.size < 3:
+        return stated
+    typical = float(np.percentile(widths[np.isfinite(widths)], 25)) if np.isfinite(widths).any() else 0.0
+    if not typical > 0:
+        return stated
+    reach = 12.0 * typical
+    order = np.argsort(strengths)[::-1]
+    chosen: list[int] = []
+    for i in order[:40].tolist():
+        # not within reach of a stronger line (its lobes would dominate the window)
+        others = np.abs(centres - centres[i])
+        stronger = (others > 0) & (others < reach) & (strengths > strengths[i])
+        if not stronger.any() and strengths[i] > 50 * noise_t:
+            chosen.append(i)
+        if len(chosen) == 6:
+            break
+    if len(chosen) < 2:
+        return stated
+    windows = []
+    for i in chosen:
+        lo, hi = np.searchsorted(x, centres[i] - reach), np.searchsorted(x, centres[i] + reach)
+        near = np.flatnonzero(np.abs(centres - centres[i]) < reach + 2.0 * typical)
+        windows.append((x[lo:hi], depth[lo:hi], centres[near], centres[i]))
+
+    def misfit(model: LineShapeModel) -> float:
+        """Residual of the windows' depth profiles against every line in them drawn with this
+        shape (equivalent widths by linear least squares), outside the main lobe of the
+        window's strong line, relative to its peak."""
+        total = 0.0
+        for xs, observed, near, centre in windows:
+            basis = model.shape(xs[:, None] - near[None, :])
+            widths_fit, *_ = np.linalg.lstsq(basis, observed, rcond=None)
+            outside = np.abs(xs - centre) > model.main_lobe_cm1
+            total += float(np.sum((observed - basis @ widths_fit)[outside] ** 2)) / max(float(observed.max()) ** 2, 1e-300)
+        return total
+
+    candidates = []
+    for window in APODIZATIONS:
+        width_per_opd = LineShapeModel(window, 1.0, "").fwhm_cm1
+        candidates.append(LineShapeModel(window, width_per_opd / typical, f"inferred: {window} from the strongest lines' profiles"))
+    scored = sorted((misfit(model), model.window, model) for model in candidates)
+    best_score, _, best = scored[0]
+    if stated is not None:
+        # the file's own statement stands unless it plainly cannot be right (lines with some
+        # width of their own fit a wider window a little better whatever was used)
+        if misfit(stated) <= STATED_MISFIT_FACTOR * best_score:
+            return stated
+    return best
+
+
+def equivalent_width_estimates(x: np.ndarray, depth: np.ndarray, centres: np.ndarray, model: LineShapeModel, widths: np.ndarray) -> np.ndarray:
+    """Each line's equivalent width (T-depth x cm-1) from its main lobe: the depth integrated
+    over +-1 FWHM (or the line's own width, if wider), divided by the share of a line's area the
+    ILS puts there."""
+    half = np.maximum(model.fwhm_cm1, np.nan_to_num(widths, nan=model.fwhm_cm1))
+    grid = np.linspace(-1.0, 1.0, 201)
+    out = np.zeros(centres.size)
+    for k, (centre, h) in enumerate(zip(centres.tolist(), half.tolist())):
+        lo, hi = np.searchsorted(x, centre - h), np.searchsorted(x, centre + h)
+        if hi - lo < 2:
+            continue
+        area = float(np.sum(0.5 * (depth[lo + 1 : hi] + depth[lo : hi - 1]) * np.diff(x[lo:hi])))
+        profile = model.shape(grid * h)
+        share = float(np.sum(0.5 * (profile[1:] + profile[:-1])) * (grid[1] - grid[0]) * h)
+        out[k] = area / max(share, 0.05)
+    return out
+
+
+# Lobes of a saturated line are predicted less well still: its black core is resolved or
+# nearly so, and a resolved box rings differently from a narrow line.
+RINGING_MODEL_ERROR_SATURATED = 1.0
+
+
+def predicted_ringing(
+    centres: np.ndarray, widths: np.ndarray, model: LineShapeModel, targets: np.ndarray,
+    saturated: np.ndarray | None = None, level: float = 1e-3,
+) -> tuple[np.ndarray, np.ndarray]:
+    """(depth, its uncertainty) that every line's lobes put at each target, in transmittance
+    (their main lobes left out: a line does not ring onto itself), summed over lines within
+    reach (the offset where the lobes fall under `level` of the peak). The uncertainty is
+    RINGING_MODEL_ERROR of each contribution (RINGING_MODEL_ERROR_SATURATED for saturated
+    lines)."""
+    reach = model.reach_cm1(level)
+    main = model.main_lobe_cm1
+    depth = np.zeros(targets.size)
+    error = np.zeros(targets.size)
+    if centres.size == 0 or reach <= main:
+        return depth, error
+    order = np.argsort(centres)
+    c, w = centres[order], widths[order]
+    relative_error = np.full(c.size, RINGING_MODEL_ERROR)
+    if saturated is not None:
+        relative_error[np.asarray(saturated, dtype=bool)[order]] = RINGING_MODEL_ERROR_SATURATED
+    lo = np.searchsorted(c, targets - reach)
+    hi = np.searchsorted(c, targets + reach)
+    for k in range(targets.size):
+        offsets = targets[k] - c[lo[k] : hi[k]]
+        lobes = np.abs(offsets) > main
+        if lobes.any():
+            contribution = w[lo[k] : hi[k]][lobes] * model.shape(offsets[lobes])
+            depth[k] = float(np.sum(contribution))
+            error[k] = float(np.sum(relative_error[lo[k] : hi[k]][lobes] * np.abs(contribution)))
+    return depth, error
+
+
+def explained_by_ringing(observed_depth: np.ndarray, ringing: tuple[np.ndarray, np.ndarray], noise_t: np.ndarray, threshold_sigma: float) -> np.ndarray:
+    """True where a feature of `observed_depth` is no more than the predicted ringing allows:
+    of the predicted sign and no deeper than the prediction plus its uncertainty, or (many
+    lobes summed can cancel to either sign) within that uncertainty of the prediction; both
+    with `threshold_sigma` of the noise to spare."""
+    depth, error = ringing
+    allowed = threshold_sigma * noise_t + error
+    same_sign = (np.sign(observed_depth) == np.sign(depth)) & (np.abs(observed_depth) <= np.abs(depth) + allowed)
+    return (same_sign | (np.abs(observed_depth - depth) <= allowed)) & (error > 0)
+
+
+def lobe_positions(model: LineShapeModel, count: int = 3) -> np.ndarray:
+    """Offsets of the first `count` extrema beyond the main lobe (for tests and documents)."""
+    s, f = _tabulated(model.window)
+    interior = (np.diff(np.sign(np.diff(f))) != 0).nonzero()[0] + 1
+    interior = interior[s[interior] * 1.0 > model.main_lobe_cm1 * model.opd_cm]
+    return s[interior[:count]] / model.opd_cm
