@@ -24,6 +24,7 @@ Each assignment carries a confidence in [0, 1]; lines left over get a likely cau
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
@@ -32,6 +33,7 @@ import numpy as np
 from processing.fit import BandFit, fit_band
 from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
 from processing.lines import LineTable, fit_sigma_factor
+from processing.physical_constants import C2_CM_K
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
 H_D_PARTNERS = {"HF": "DF", "DF": "HF", "HCl": "DCl", "DCl": "HCl", "HBr": "DBr", "DBr": "HBr", "HI": "DI", "DI": "HI"}
@@ -442,6 +444,22 @@ def _tolerances(bands: list[_Band], lines: LineTable, tol0: float) -> list[np.nd
     return out
 
 
+# Lines are predicted out to where the band's intensity falls to this fraction of its strongest
+# line (a strong, hot band shows lines at 1e-4 of its peak above 10 noise sigma); the intensity
+# check refuses what the spectrum cannot show.
+J_CAP_RELATIVE = 1e-5
+
+
+def _J_cap(band: _Band) -> int:
+    """Highest J'' to predict: where the band's predicted intensity stays above J_CAP_RELATIVE
+    of its strongest line (+2)."""
+    if not band.all_weights:
+        return int(np.max(np.abs(band.m))) + 2
+    strongest = max(band.all_weights.values())
+    J = [abs(m) - (1 if m > 0 else 0) for m, w in band.all_weights.items() if w >= J_CAP_RELATIVE * strongest]
+    return max(J) + 2 if J else int(np.max(np.abs(band.m))) + 2
+
+
 def _extend_predictions(band: _Band, J_cap: int) -> None:
     """After a fit, predict every line up to J'' = J_cap from the fitted constants (lines
     merged into a stronger partner's blend stay out)."""
@@ -738,11 +756,76 @@ def assign_lines(
     `measure_doublet(centre_guess, separation, ratio) -> (centre, sigma)` re-measures a line
     blended with an isotopologue partner from the spectrum itself (see
     `lines.measure_doublet`); without it (a line list) the blend centre is corrected by the
-    predicted intensity-weighted shift."""
+    predicted intensity-weighted shift.
+
+    Predicted intensities, the J range and which hot bands can show follow the rotational
+    temperature: the assignment made at `settings.temperature_K` gives one (a Boltzmann plot of
+    its strongest band's line heights); when that differs by more than TEMPERATURE_REDO the
+    assignment is made again at it (a hot cell shows high-J lines and v'' = 1, 2 bands that a
+    296 K prediction leaves out)."""
     from processing.species import load_library
 
     settings = settings or AssignSettings()
     library = library or load_library()
+    result = _assign_at(lines, first_cm1, last_cm1, settings, library, measure_doublet)
+    measured = rotational_temperature_estimate(lines, result)
+    if measured is not None and abs(measured / settings.temperature_K - 1.0) > TEMPERATURE_REDO:
+        redo = replace(settings, temperature_K=float(round(measured / 10.0) * 10.0))
+        again = _assign_at(lines, first_cm1, last_cm1, redo, library, measure_doublet)
+        result = replace(again, notes=again.notes + (
+            f"predictions made at {redo.temperature_K:.0f} K, the rotational temperature the lines show "
+            f"(first pass at {settings.temperature_K:.0f} K)",))
+    return result
+
+
+# A measured rotational temperature this far (relative) from the one predictions were made at
+# makes the assignment run again at it.
+TEMPERATURE_REDO = 0.15
+
+
+def rotational_temperature_estimate(lines: LineTable, result: AssignmentResult) -> float | None:
+    """A working estimate of the rotational temperature for predictions: a Boltzmann plot,
+    ln(h / (L nu)) against the lower state's energy, of the peak heights of the band whose
+    lines are weakest among those with at least 8 clean lines (thick lines flatten the plot:
+    the thinnest band says most; good to ~20% for choosing which lines to predict, not a
+    result)."""
+    if not result.bands or not np.all(np.isfinite(lines.snr)):
+        return None
+    rows_of: dict[tuple[str, int, int], list[tuple[float, float, float]]] = {}
+    B_of = {(b.isotopologue, b.v_upper, b.v_lower): b.B_lower.value for b in result.bands}
+    for i, assigned in enumerate(result.per_line):
+        key = None if assigned is None else (assigned.isotopologue, assigned.v_upper, assigned.v_lower)
+        if key not in B_of or lines.saturated[i] or lines.snr[i] < 10.0 or assigned.blended:
+            continue
+        J = assigned.J_lower
+        hoenl_london = J + 1 if assigned.branch == R_BRANCH else J
+        if hoenl_london <= 0:
+            continue
+        energy = B_of[key] * J * (J + 1.0)
+        rows_of.setdefault(key, []).append((energy, math.log(lines.height[i] / (hoenl_london * lines.position_cm1[i])), float(lines.height[i])))
+    usable = {key: rows for key, rows in rows_of.items() if len(rows) >= 8}
+    if not usable:
+        return None
+    thinnest = min(usable, key=lambda key: float(np.median([r[2] for r in usable[key]])))
+    energy, value, _ = np.array(usable[thinnest]).T
+    if np.ptp(energy) <= 0:
+        return None
+    slope = float(np.polyfit(energy, value, 1)[0])
+    if slope >= 0:
+        return None
+    temperature = -C2_CM_K / slope
+    return float(np.clip(temperature, 50.0, 3000.0))
+
+
+def _assign_at(
+    lines: LineTable,
+    first_cm1: float,
+    last_cm1: float,
+    settings: AssignSettings,
+    library: Any,
+    measure_doublet: DoubletMeasure | None,
+) -> AssignmentResult:
+    """One assignment with predictions at `settings.temperature_K` (see `assign_lines`)."""
     notes: list[str] = []
     peaks = lines.position_cm1
     excluded = _excluded_mask(lines, settings.excluded_positions_cm1)
@@ -777,7 +860,7 @@ def assign_lines(
             for band in riding:
                 if band.m.size:
                     band.position = band.position + shift
-                    J_caps[band.key] = int(np.max(np.abs(band.m))) + 2
+                    J_caps[band.key] = _J_cap(band)
                     bands.append(band)
 
     winners, blended, refused = _refine(bands, lines, claimable, tol0, J_caps) if bands else ({}, set(), {})
