@@ -138,7 +138,9 @@ def check_saturation(analysis: Any, intensities: Any, t: CheckThresholds) -> Che
 def check_band_lines(analysis: Any, t: CheckThresholds) -> Check:
     bands = analysis.assignment.bands
     if not bands:
-        return Check("assigned_lines", "fail", "no band could be assigned", 0.0)
+        contours = getattr(analysis, "contours", ())
+        why = f" line by line ({', '.join(c.label for c in contours)} only as unresolved contours: see resolution)" if contours else ""
+        return Check("assigned_lines", "fail", f"no band could be assigned{why}", 0.0)
     fewest = min(bands, key=lambda b: b.n_lines)
     return Check("assigned_lines", _grade(fewest.n_lines, t.band_lines_pass, t.band_lines_warn),
                  f"{len(bands)} band(s); fewest lines: {fewest.label} with {fewest.n_lines}", float(fewest.n_lines))
@@ -265,11 +267,12 @@ def calibration_fit(analysis: Any) -> dict[str, Any] | None:
     }
 
 
-def check_interferents(analysis: Any, t: CheckThresholds) -> Check:
+def check_interferents(analysis: Any, t: CheckThresholds, axis_inverted: bool = False) -> Check:
     causes = [c for c in analysis.assignment.likely_cause if c]
     co2 = sum("CO2" in c for c in causes)
     water = sum("water" in c for c in causes)
-    negative = _negative_lines(analysis)
+    # dips are the spectrum itself when its axis is inverted: no purge to blame
+    negative = 0 if axis_inverted else _negative_lines(analysis)
     problems = []
     if co2 >= t.interferent_lines_warn:
         problems.append(f"{co2} unassigned lines in the CO2 region")
@@ -288,6 +291,59 @@ def _negative_lines(analysis: Any) -> int:
     from processing.lines import negative_features
 
     return int(negative_features(analysis.data, analysis.baseline, analysis.lines).size)
+
+
+# A gas-cell spectrum's baseline where nothing absorbs sits near zero absorbance (T near 1):
+# a baseline transmittance under this fraction is no measurement of a cell (common practice).
+IMPLAUSIBLE_BASELINE_TRANSMITTANCE = 0.03
+
+
+def check_resolution(analysis: Any) -> Check:
+    """Can the resolution split the lines of the bands present? A band seen only as its P/R
+    contour cannot be measured line by line: said so with its line spacing and the resolution,
+    and B'' given from the contour fit instead."""
+    contours = getattr(analysis, "contours", ())
+    if contours:
+        first = contours[0]
+        stated = analysis.data.meta.resolution_cm1
+        resolution = f"resolution {stated:g} cm-1 stated, " if stated else ""
+        parts = [
+            f"{c.label} present only as a P/R contour: its lines are {c.line_spacing_cm1:.2f} cm-1 apart, "
+            f"{resolution}line shape {c.resolution_fwhm_cm1:.2f} cm-1 wide (FWHM): too coarse to separate them; "
+            f"B'' from a contour fit {c.B_lower.value:.3f} +- {c.B_lower.sigma or 0:.3f} cm-1"
+            for c in contours
+        ]
+        return Check("resolution", "fail", "; ".join(parts), first.line_spacing_cm1)
+    if analysis.baseline is None or not analysis.assignment.bands:
+        return Check("resolution", NOT_ASSESSED, "no band to judge the resolution against", None)
+    width = analysis.lines.typical_width_cm1
+    closest = min(2.0 * min(fit.B_lower.value, fit.B_upper.value) for fit in analysis.assignment.bands)
+    return Check("resolution", "pass", f"lines at least {closest:.2f} cm-1 apart near the band centres, line width {width:.3f} cm-1", width)
+
+
+def check_y_axis(analysis: Any) -> Check:
+    """Does the y axis hold what its label says? Absorption lines rise above a baseline near
+    zero absorbance. Values near 100 labelled absorbance are %T; a baseline near 1 with the
+    features dipping below it is transmittance written as absorbance; features dipping below a
+    baseline near 0 are an inverted sign (or an emission spectrum); a baseline of a few
+    percent transmittance where nothing absorbs is absorbance written as transmittance."""
+    if analysis.baseline is None:
+        return Check("y_axis", NOT_ASSESSED, "line list: no axis to judge", None)
+    offset = analysis.baseline.offset_median
+    kind = analysis.data.original_y_kind
+    lines = analysis.lines
+    positive = int(np.sum((lines.snr >= 8.0) & ~lines.ringing)) if lines.count else 0
+    negative = _negative_lines(analysis)
+    dips = negative >= 5 and negative > 2 * positive
+    if kind == "absorbance" and offset > 20.0:
+        return Check("y_axis", "fail", f"absorbance baseline at {offset:.1f}: looks like %T written as absorbance", offset)
+    if kind == "absorbance" and 0.7 <= offset <= 1.1 and dips:
+        return Check("y_axis", "fail", f"baseline at {offset:.2f} with {negative} features dipping below it: looks like transmittance written as absorbance", offset)
+    if kind != "absorbance" and 10.0**-offset < IMPLAUSIBLE_BASELINE_TRANSMITTANCE:
+        return Check("y_axis", "fail", f"transmittance where nothing absorbs is {100 * 10.0**-offset:.2g}%: looks like absorbance written as transmittance (or a blocked beam)", offset)
+    if dips:
+        return Check("y_axis", "fail", f"{negative} features dip below the baseline, {positive} rise above it: the y axis looks inverted (absorbance with its sign flipped, or an emission spectrum)", float(negative))
+    return Check("y_axis", "pass", f"{kind.replace('_', ' ')} as labelled: lines rise above a baseline at {offset:+.3f} A", offset)
 
 
 def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], t: CheckThresholds) -> Check:
@@ -384,14 +440,17 @@ def check_baseline(analysis: Any, t: CheckThresholds) -> Check:
 
 
 def run_checks(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], thresholds: CheckThresholds) -> list[Check]:
+    y_axis = check_y_axis(analysis)
     return [
+        y_axis,
         check_signal_to_noise(analysis, thresholds),
         check_saturation(analysis, intensities, thresholds),
         check_band_lines(analysis, thresholds),
         check_fit_rms(analysis, thresholds),
         check_calibration(analysis, library, thresholds),
-        check_interferents(analysis, thresholds),
+        check_interferents(analysis, thresholds, axis_inverted=y_axis.status == "fail"),
         check_isotopologues(analysis, library, intensities, expected, thresholds),
         check_temperature(intensities, thresholds),
         check_baseline(analysis, thresholds),
+        check_resolution(analysis),
     ]

@@ -348,7 +348,7 @@ def measure_lines(
             target -= np.where(valid[:, None], contribution, 0.0)
         weight = _core_weights(target, half)
         h, c, w, cov, rms = _fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1))
-        bad = ~np.isfinite(c) | (np.abs(c - x_all[peaks]) > spacing * (half + 1))
+        bad = _diverged(h, c, x_all[peaks], y_win, spacing * (half + 1), sigma)
         c = np.where(bad, centre0, c)
         w = np.where(~np.isfinite(w) | bad, fwhm0, w)
         h = np.where(~np.isfinite(h) | bad, height0, h)
@@ -358,7 +358,7 @@ def measure_lines(
     # good to DEBLEND_MODEL_ERROR of that, which the centre's uncertainty carries
     lone = _fit_gaussians(x_win, y_win, _core_weights(y_win, half), h, c, w)[1]
     deblend_shift = np.where(np.isfinite(lone), c - lone, 0.0)
-    bad = ~np.isfinite(c) | (np.abs(c - x_all[peaks]) > spacing * (half + 1))
+    bad = _diverged(h, c, x_all[peaks], y_win, spacing * (half + 1), sigma)
     c = np.where(bad, centre0, c)
     w = np.where(~np.isfinite(w) | bad, fwhm0, w)
     h = np.where(~np.isfinite(h) | bad, height0, h)
@@ -421,6 +421,14 @@ def measure_lines(
     )
 
 
+def _diverged(h: np.ndarray, c: np.ndarray, peak_x: np.ndarray, y_win: np.ndarray, reach: float, sigma: float) -> np.ndarray:
+    """Profile fits that ran away: centre off its peak by more than `reach`, or a height far
+    above anything in its window (a weak feature drawn as a tall, broad Gaussian would then be
+    taken out of its neighbours' windows)."""
+    too_tall = h > 1.5 * np.max(y_win, axis=1) + 5.0 * sigma
+    return ~np.isfinite(c) | ~np.isfinite(h) | (np.abs(c - peak_x) > reach) | too_tall
+
+
 def _deblend_far_neighbours(
     spectrum: Spectrum, baseline: BaselineResult, x_win: np.ndarray, y_win: np.ndarray, half: int,
     h: np.ndarray, c: np.ndarray, w: np.ndarray, cov: np.ndarray, rms: np.ndarray, weight: np.ndarray,
@@ -441,10 +449,15 @@ def _deblend_far_neighbours(
     if model is None or c.size < 2:
         return h, c, w, cov, rms, weight
     equivalent = equivalent_width_estimates(x, depth, centres, model, widths)
+    saturated = np.concatenate([np.zeros(c.size, dtype=bool), np.ones(len(saturated_lines), dtype=bool)])
+    # features that are other lines' lobes ring onto nothing and are no neighbours to take out
+    lobe = explained_by_ringing(top_depth, predicted_ringing(centres, equivalent, model, centres, saturated),
+                                np.full(centres.size, math.log(10.0) * baseline.noise_sigma), 5.0)
     # a line much wider than the instrument's line shape (resolved: a black Doppler core at
     # high resolution) does not ring like a narrow one: it is left as it is
     resolved = widths > 1.3 * model.fwhm_cm1
-    far_depth, _ = predicted_ringing(centres[~resolved], equivalent[~resolved], model, x_win.ravel())
+    sources = ~resolved & ~lobe
+    far_depth, _ = predicted_ringing(centres[sources], equivalent[sources], model, x_win.ravel())
     far = -np.log10(np.clip(1.0 - far_depth.reshape(x_win.shape), 1e-6, None))
     target = y_win - far
     reach = model.main_lobe_cm1 + float(np.max(np.abs(x_win - c[:, None]))) if c.size else 0.0
@@ -453,7 +466,7 @@ def _deblend_far_neighbours(
     for i in range(c.size):
         lo, hi = np.searchsorted(sorted_c, c[i] - reach), np.searchsorted(sorted_c, c[i] + reach)
         for j in order[lo:hi]:
-            if j < c.size and j != i:
+            if j < c.size and j != i and not lobe[j]:
                 target[i] -= h[j] * np.exp(-FOUR_LN2 * ((x_win[i] - c[j]) / w[j]) ** 2)
     weight = _core_weights(target, half)
     return (*_fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1)), weight)

@@ -138,6 +138,7 @@ class Analysis:
     intensities: Any = None  # IntensityResult | None
     checks: tuple[Any, ...] = ()  # Check
     verdict: str | None = None
+    contours: tuple[Any, ...] = ()  # BandContour: bands the resolution cannot split into lines
 
 
 def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) -> Analysis:
@@ -186,20 +187,40 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
             return measure_blended_line(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
 
     assignment = assign_lines(lines, first, last, assign_settings, library, doublet)
+    contours = unresolved_bands(data, baseline, lines, assignment, library, settings.temperature_K)
     lap("assignment and fits")
     from processing.checks import CheckThresholds, run_checks, verdict_of
     from processing.line_intensities import analyse_intensities
     from processing.molecular_constants import molecular_constants
 
     thresholds = CheckThresholds.from_mapping(settings.checks)
-    partial = Analysis(data, baseline, lines, assignment, timing)
+    partial = Analysis(data, baseline, lines, assignment, timing, contours=contours)
     constants = molecular_constants(partial, library)
     intensities = analyse_intensities(partial, library, settings.temperature_K)
     lap("constants and intensities")
-    partial = Analysis(data, baseline, lines, assignment, timing, constants, intensities)
+    partial = Analysis(data, baseline, lines, assignment, timing, constants, intensities, contours=contours)
     checks = run_checks(partial, library, intensities, settings.species, thresholds)
     lap("checks")
-    return Analysis(data, baseline, lines, assignment, timing, constants, intensities, tuple(checks), verdict_of(checks))
+    return Analysis(data, baseline, lines, assignment, timing, constants, intensities, tuple(checks), verdict_of(checks), contours)
+
+
+def unresolved_bands(data: Spectrum | LineList, baseline: Any, lines: Any, assignment: Any, library: Any, temperature_K: float) -> tuple[Any, ...]:
+    """Library bands present only as unresolved P/R contours (see `processing.contour`). The
+    instrument line shape is the one the lines showed, else the stated one, else a Happ-Genzel
+    shape as wide as the lines found (said so in its source)."""
+    if not isinstance(data, Spectrum):
+        return ()
+    from processing.contour import find_unresolved_bands
+    from processing.line_shape import LineShapeModel, stated_line_shape
+
+    shape = lines.line_shape or stated_line_shape(data.meta.apodization, data.meta.resolution_cm1)
+    if shape is None and lines.count and lines.typical_width_cm1 > 0:
+        fwhm_per_opd = LineShapeModel("happ-genzel", 1.0, "").fwhm_cm1
+        shape = LineShapeModel("happ-genzel", fwhm_per_opd / lines.typical_width_cm1, "assumed: Happ-Genzel as wide as the lines found")
+    if shape is None:
+        return ()
+    assigned = {(fit.isotopologue, fit.v_upper, fit.v_lower) for fit in assignment.bands}
+    return tuple(find_unresolved_bands(data.wavenumber_cm1, baseline.corrected, baseline.noise_sigma, shape, library, temperature_K, assigned))
 
 
 def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
@@ -255,6 +276,7 @@ def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
         extra["notes"] = extra["notes"] + list(analysis.constants.notes)
     if analysis.intensities is not None:
         extra["intensities"] = analysis.intensities.to_dict()
+    extra["contours"] = [contour.to_dict() for contour in analysis.contours]
     return RunResult(
         file=source,
         status="processed",

@@ -22,7 +22,7 @@ def _checks(name: str, **settings) -> tuple[str, dict[str, dict]]:
 def test_clean_hcl_run_passes() -> None:
     verdict, checks = _checks("0905_hcl_cell.jdx")
     assert verdict == "pass", {k: v["detail"] for k, v in checks.items() if v["status"] != "pass"}
-    assert set(checks) == {"signal_to_noise", "saturation", "assigned_lines", "fit_rms", "calibration", "interferents", "isotopologues", "temperature", "baseline"}
+    assert set(checks) == {"y_axis", "signal_to_noise", "saturation", "assigned_lines", "fit_rms", "calibration", "interferents", "isotopologues", "temperature", "baseline", "resolution"}
 
 
 def test_saturated_run_fails_on_saturation() -> None:
