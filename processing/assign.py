@@ -49,6 +49,9 @@ MIN_BAND_LINES = 5
 # applied (main isotopologues ~0.01 cm-1 to J'' ~15, mass-scaled ones a few hundredths; calc
 # from the library's stated uncertainties): the floor of the first matching tolerance.
 LIBRARY_LINE_ACCURACY_CM1 = 0.03
+# A blended partner weaker than this (relative intensity) cannot be measured beside its host:
+# the host's position is corrected by the predicted blend pull instead of a doublet fit.
+DOUBLET_MIN_RATIO = 0.1
 
 
 @dataclass(frozen=True)
@@ -258,7 +261,8 @@ def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: fl
 def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, first: float, last: float) -> bool:
     """Enough strong predicted lines inside the measured range matched, well beyond chance.
     The chance of a match counts the peaks that can be matched (not ringing) in the band's own
-    region: lines or lobes elsewhere in the spectrum do not change whether this band is here."""
+    region, other than those it matched: lines or lobes elsewhere in the spectrum do not change
+    whether this band is here."""
     shifted = band.position + shift
     strong = (band.weight >= 0.05) & (shifted >= first) & (shifted <= last)
     n_expected = int(strong.sum())
@@ -266,9 +270,10 @@ def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, f
         return False
     matched = _match_count(peaks, band.position[strong] + shift, tol)
     n_matched = int(matched.sum())
+    # the band's own lines are no chance matches: the rate counts the other peaks there
     low, high = float(shifted[strong].min()) - 1.0, float(shifted[strong].max()) + 1.0
-    density = float(np.searchsorted(peaks, high) - np.searchsorted(peaks, low)) / (high - low)
-    chance = n_expected * min(1.0, 2.0 * tol * density)
+    others = float(np.searchsorted(peaks, high) - np.searchsorted(peaks, low)) - n_matched
+    chance = n_expected * min(1.0, 2.0 * tol * max(others, 0.0) / (high - low))
     return n_matched >= MIN_BAND_LINES and n_matched >= 0.5 * n_expected and n_matched >= 3.0 * chance + 3
 
 
@@ -353,9 +358,9 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
     shows as one peak are treated as one blend: the weaker line is dropped and the stronger
     one's expected position becomes the intensity-weighted blend centre (relative positions
     come from the library, exact to ~0.01 cm-1). A pair closer than one line width is always
-    one blend (the final fit measures it as a doublet); between one and two widths it is one
-    blend where the spectrum shows a single peak across it, and two lines where it shows
-    two."""
+    one blend (the final fit measures it as a doublet); isotopologue partners of the same J
+    between one and two widths apart are one blend where the spectrum shows a single peak
+    across them, and two lines where it shows two."""
     if len(bands) < 2 or not width:
         return
     band_of = np.concatenate([np.full(b.m.size, i) for i, b in enumerate(bands)])
@@ -376,6 +381,9 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
             major, minor = (a, b) if weight[a] >= weight[b] else (b, a)
             if index_of[minor] in dropped.get(int(band_of[minor]), set()) or index_of[major] in dropped.get(int(band_of[major]), set()):
                 continue
+            same_J = bands[int(band_of[a])].m[index_of[a]] == bands[int(band_of[b])].m[index_of[b]]
+            if separation_ab >= 0.5 * width and not same_J:
+                continue  # lines of unrelated J falling near each other: only when truly on top
             if separation_ab >= 1.0 * width:
                 low = position[a] + shift - 0.5 * separation_ab
                 high = position[b] + shift + 0.5 * separation_ab
@@ -772,10 +780,20 @@ def assign_lines(
     if measured is not None and abs(measured / settings.temperature_K - 1.0) > TEMPERATURE_REDO:
         redo = replace(settings, temperature_K=float(round(measured / 10.0) * 10.0))
         again = _assign_at(lines, first_cm1, last_cm1, redo, library, measure_doublet)
-        result = replace(again, notes=again.notes + (
-            f"predictions made at {redo.temperature_K:.0f} K, the rotational temperature the lines show "
-            f"(first pass at {settings.temperature_K:.0f} K)",))
+        # the estimate is rough (thick lines bias it high): the second pass stands only if it
+        # explains more of the spectrum
+        if _explained(again, lines) > _explained(result, lines):
+            result = replace(again, notes=again.notes + (
+                f"predictions made at {redo.temperature_K:.0f} K, the rotational temperature the lines show "
+                f"(first pass at {settings.temperature_K:.0f} K)",))
     return result
+
+
+def _explained(result: AssignmentResult, lines: LineTable) -> int:
+    """Lines assigned to bands that fit them to a quarter of a line width: how much of a
+    spectrum an assignment explains."""
+    width = lines.typical_width_cm1 if np.isfinite(lines.typical_width_cm1) and lines.typical_width_cm1 > 0 else np.inf
+    return sum(fit.n_lines for fit in result.bands if fit.rms <= 0.25 * width)
 
 
 # A measured rotational temperature this far (relative) from the one predictions were made at
@@ -786,13 +804,14 @@ TEMPERATURE_REDO = 0.15
 def rotational_temperature_estimate(lines: LineTable, result: AssignmentResult) -> float | None:
     """A working estimate of the rotational temperature for predictions: a Boltzmann plot,
     ln(h / (L nu)) against the lower state's energy, of the peak heights of the band whose
-    lines are weakest among those with at least 8 clean lines (thick lines flatten the plot:
-    the thinnest band says most; good to ~20% for choosing which lines to predict, not a
-    result)."""
+    lines are weakest among those with at least 8 clean lines and a fit good to a tenth of the
+    line width (thick lines flatten the plot: the thinnest band says most; good to ~20% for
+    choosing which lines to predict, not a result)."""
     if not result.bands or not np.all(np.isfinite(lines.snr)):
         return None
     rows_of: dict[tuple[str, int, int], list[tuple[float, float, float]]] = {}
-    B_of = {(b.isotopologue, b.v_upper, b.v_lower): b.B_lower.value for b in result.bands}
+    width = lines.typical_width_cm1 if np.isfinite(lines.typical_width_cm1) and lines.typical_width_cm1 > 0 else np.inf
+    B_of = {(b.isotopologue, b.v_upper, b.v_lower): b.B_lower.value for b in result.bands if b.rms <= 0.1 * width}
     for i, assigned in enumerate(result.per_line):
         key = None if assigned is None else (assigned.isotopologue, assigned.v_upper, assigned.v_lower)
         if key not in B_of or lines.saturated[i] or lines.snr[i] < 10.0 or assigned.blended:
@@ -945,7 +964,7 @@ def _finish(
         if measure_doublet is not None:
             for k, m_k in enumerate(m.tolist()):
                 # a saturated top has no doublet shape to fit: its blend centre stands
-                if m_k in band.partner and not lines.saturated[idx[k]]:
+                if m_k in band.partner and not lines.saturated[idx[k]] and band.partner[m_k][1] >= DOUBLET_MIN_RATIO:
                     separation, ratio = band.partner[m_k]
                     measured = measure_doublet(float(lines.position_cm1[idx[k]] - pull[k]), separation, ratio)
                     if measured is not None:

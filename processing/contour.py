@@ -209,9 +209,13 @@ def find_unresolved_bands(
                 continue  # no band, or no dip between two humps
             if not (0.5 * expected < r_max - p_max < 1.6 * expected):
                 continue  # not this band's contour
+            if not noise_sigma > 0:
+                continue
             alpha_over_B = (B_lower - rotational_constant(iso.dunham, v_upper)) / B_lower
             region = (x > origin - 2.0 * expected) & (x < origin + 2.0 * expected)
             fitted_origin, B, reduced, growth = fit_contour(x[region], corrected[region], noise_sigma, origin, B_lower, alpha_over_B, temperature_K, shape)
+            if not B.value > 0:
+                continue
             # B ~ 1/T for a given contour: the assumed temperature's uncertainty enters as such
             relative = math.hypot((B.sigma or 0.0) / B.value, ROOM_TEMPERATURE_SIGMA_K / temperature_K)
             separation = r_max - p_max

@@ -215,6 +215,11 @@ MIN_PROFILE_POINTS = 4  # a 3-parameter profile fit needs positive degrees of fr
 # shape there (Gaussian cores for close ones, the instrument line shape for far ones): the
 # same fraction of the shift their removal causes goes into the line's position uncertainty.
 DEBLEND_MODEL_ERROR = 0.35
+# a line within WING_WIDTHS widths of one twice as tall stands on its wing: how far a local
+# slope under it moves its centre joins its uncertainty; beside one WING_RATIO times taller (a
+# weak isotopologue's line beside the main one's) the sloped fit's centre is taken
+WING_WIDTHS = 5.0
+WING_RATIO = 5.0
 
 
 def _core_weights(target: np.ndarray, half: int) -> np.ndarray:
@@ -245,17 +250,28 @@ def _fit_gaussians(
     fwhm: np.ndarray,
     correlation: np.ndarray | None = None,
     iterations: int = 8,
+    background: bool = False,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Batched Gauss-Newton for y ~ h exp(-4ln2 ((x-c)/w)^2) per row; returns h, c, w, the
+    """Batched Gauss-Newton for y ~ h exp(-4ln2 ((x-c)/w)^2) per row (plus a + b (x - c0)
+    with `background`: a line on the sloping wing of a stronger one); returns h, c, w, the
     per-row covariance for unit per-point noise with the points' `correlation` matrix (identity
     when None: independent points), and the residual rms."""
     h, c, w = height.copy(), centre.copy(), fwhm.copy()
     n = h.size
-    eye = np.eye(3)[None, :, :]
+    size = 5 if background else 3
+    offset, slope = np.zeros(n), np.zeros(n)
+    reference = centre[:, None]
+    eye = np.eye(size)[None, :, :]
+
+    def columns(g: np.ndarray, jac: np.ndarray) -> np.ndarray:
+        if not background:
+            return jac
+        return np.concatenate([jac, np.ones_like(g)[:, :, None], (x - reference)[:, :, None]], axis=2)
+
     for _ in range(iterations):
         g, jac = _jacobian(x, h, c, w)
-        jac = jac * weight[:, :, None]
-        r = (y - h[:, None] * g) * weight
+        jac = columns(g, jac) * weight[:, :, None]
+        r = (y - h[:, None] * g - offset[:, None] - slope[:, None] * (x - reference)) * weight
         jtj = np.einsum("nki,nkj->nij", jac, jac) + 1e-12 * eye
         jtr = np.einsum("nki,nk->ni", jac, r)
         try:
@@ -267,13 +283,15 @@ def _fit_gaussians(
         h = np.maximum(h + step[:, 0], 1e-12)
         c = c + step[:, 1]
         w = np.clip(w + step[:, 2], 0.3 * fwhm, 3.0 * fwhm)
+        if background:
+            offset, slope = offset + step[:, 3], slope + step[:, 4]
     g, jac = _jacobian(x, h, c, w)
-    jac = jac * weight[:, :, None]
+    jac = columns(g, jac) * weight[:, :, None]
     normal = np.einsum("nki,nkj->nij", jac, jac)
     # a degenerate window (a line on too few points, a diverged fit) gives an infinite
     # variance, not a warning: the caller replaces it
     degenerate = ~np.all(np.isfinite(normal), axis=(1, 2))
-    normal[degenerate] = np.eye(3)
+    normal[degenerate] = np.eye(size)
     with np.errstate(all="ignore"):
         inverse = np.linalg.pinv(normal)
         if correlation is None:
@@ -285,8 +303,8 @@ def _fit_gaussians(
     cov[degenerate] = np.inf
     cov[~np.isfinite(cov)] = np.inf
     used = weight.sum(axis=1)
-    resid = ((y - h[:, None] * g) * weight) ** 2
-    rms = np.sqrt(resid.sum(axis=1) / np.maximum(used - 3, 1))
+    resid = ((y - h[:, None] * g - offset[:, None] - slope[:, None] * (x - reference)) * weight) ** 2
+    rms = np.sqrt(resid.sum(axis=1) / np.maximum(used - size, 1))
     return h, c, w, cov, rms
 
 
@@ -352,8 +370,8 @@ def measure_lines(
         c = np.where(bad, centre0, c)
         w = np.where(~np.isfinite(w) | bad, fwhm0, w)
         h = np.where(~np.isfinite(h) | bad, height0, h)
-    h, c, w, cov, rms, weight = _deblend_far_neighbours(
-        spectrum, baseline, x_win, y_win, half, h, c, w, cov, rms, weight, saturated_lines, noise)
+    h, c, w, cov, rms, weight, wing_shift = _deblend_far_neighbours(
+        spectrum, baseline, x_win, y_win, half, h, c, w, cov, rms, weight, saturated_lines, noise, peaks)
     # how far taking the neighbours out moved each centre: the neighbours' drawn shapes are
     # good to DEBLEND_MODEL_ERROR of that, which the centre's uncertainty carries
     lone = _fit_gaussians(x_win, y_win, _core_weights(y_win, half), h, c, w)[1]
@@ -367,7 +385,7 @@ def measure_lines(
     # the noise, not the fit's residual rms: on a strong line that rms is the Gaussian core's
     # misfit to the instrument line shape, symmetric about the centre and so no error in it
     # (a line's neighbours, which are not symmetric, enter through the deblending term)
-    position_sigma = np.hypot(np.sqrt(np.clip(cov[:, 1, 1], 0, None)) * local_sigma, DEBLEND_MODEL_ERROR * deblend_shift)
+    position_sigma = np.sqrt(np.clip(cov[:, 1, 1], 0, None) * local_sigma**2 + (DEBLEND_MODEL_ERROR * deblend_shift) ** 2 + wing_shift**2)
     position_sigma = np.maximum(np.nan_to_num(position_sigma, nan=np.inf), 0.01 * spacing)
     conservative = conservative_position_sigma(w, h, local_sigma, spacing, noise)
     few_points = used < MIN_PROFILE_POINTS
@@ -432,8 +450,8 @@ def _diverged(h: np.ndarray, c: np.ndarray, peak_x: np.ndarray, y_win: np.ndarra
 def _deblend_far_neighbours(
     spectrum: Spectrum, baseline: BaselineResult, x_win: np.ndarray, y_win: np.ndarray, half: int,
     h: np.ndarray, c: np.ndarray, w: np.ndarray, cov: np.ndarray, rms: np.ndarray, weight: np.ndarray,
-    saturated_lines: list[tuple[float, float, float, float]], noise: NoiseEstimate,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    saturated_lines: list[tuple[float, float, float, float]], noise: NoiseEstimate, peaks: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """One more profile fit of every line with its neighbours taken out as the instrument line
     shape draws them (their wings and sidelobes, whose shape a Gaussian core does not follow:
     a line beside a 10x stronger one 2 widths away is otherwise pulled by ~0.1 of a width).
@@ -447,7 +465,7 @@ def _deblend_far_neighbours(
     top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
     model = infer_line_shape(x, depth, centres, widths, top_depth, math.log(10.0) * baseline.noise_sigma, stated)
     if model is None or c.size < 2:
-        return h, c, w, cov, rms, weight
+        return h, c, w, cov, rms, weight, np.zeros(c.size)
     equivalent = equivalent_width_estimates(x, depth, centres, model, widths)
     saturated = np.concatenate([np.zeros(c.size, dtype=bool), np.ones(len(saturated_lines), dtype=bool)])
     # features that are other lines' lobes ring onto nothing and are no neighbours to take out
@@ -469,7 +487,43 @@ def _deblend_far_neighbours(
             if j < c.size and j != i and not lobe[j]:
                 target[i] -= h[j] * np.exp(-FOUR_LN2 * ((x_win[i] - c[j]) / w[j]) ** 2)
     weight = _core_weights(target, half)
-    return (*_fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1)), weight)
+    h, c, w, cov, rms = _fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1))
+    wing_shift = np.zeros(c.size)
+    # a line on the wing of a much stronger one (WING_RATIO, WING_WIDTHS) stands on a slope the
+    # drawn shapes do not follow exactly (a thick line's pressure-broadened wings): refitted on
+    # a wider window with a local straight background under it
+    stronger = np.zeros(c.size, dtype=bool)
+    beside = np.zeros(c.size, dtype=bool)
+    for i in range(c.size):
+        lo, hi = np.searchsorted(sorted_c, c[i] - WING_WIDTHS * w[i]), np.searchsorted(sorted_c, c[i] + WING_WIDTHS * w[i])
+        stronger[i] = any(j != i and heights[j] > WING_RATIO * h[i] for j in order[lo:hi])
+        beside[i] = any(j != i and heights[j] > 2.0 * h[i] for j in order[lo:hi])
+    if beside.any():
+        wide = max(half + 2, int(round(1.1 * float(np.median(w)) / spectrum.spacing_cm1)))
+        pick = np.flatnonzero(beside)
+        y_wide, index = _gather(baseline.corrected, peaks[pick], wide)
+        x_wide = x[index]
+        far_wide, _ = predicted_ringing(centres[sources], equivalent[sources], model, x_wide.ravel())
+        target_wide = y_wide + np.log10(np.clip(1.0 - far_wide.reshape(x_wide.shape), 1e-6, None))
+        for row, i in enumerate(pick):
+            lo, hi = np.searchsorted(sorted_c, c[i] - reach - wide * spectrum.spacing_cm1), np.searchsorted(sorted_c, c[i] + reach + wide * spectrum.spacing_cm1)
+            for j in order[lo:hi]:
+                if j < c.size and j != i and not lobe[j] and abs(c[j] - c[i]) < model.main_lobe_cm1 + wide * spectrum.spacing_cm1:
+                    target_wide[row] -= h[j] * np.exp(-FOUR_LN2 * ((x_wide[row] - c[j]) / w[j]) ** 2)
+        near_core = (np.abs(x_wide - c[pick][:, None]) <= 1.1 * w[pick][:, None]).astype(np.float64)
+        _, cb, _, covb, _ = _fit_gaussians(x_wide, target_wide, near_core, h[pick], c[pick], w[pick],
+                                                noise.correlation_matrix(2 * wide + 1), background=True)
+        good = np.isfinite(cb) & (np.abs(cb - c[pick]) < 0.5 * w[pick]) & (near_core.sum(axis=1) >= 6)
+        # how far the slope under it moves the centre is an uncertainty of the centre; beside a
+        # much stronger line (WING_RATIO) the sloped fit's centre is taken. Height and width stay
+        # those of the core fit (the background's offset would take part of the height).
+        keep = pick[good]
+        moved = cb[good] - c[keep]
+        take = stronger[keep]
+        c[keep] = np.where(take, cb[good], c[keep])
+        cov[keep, 1, 1] = np.where(take, covb[good][:, 1, 1], cov[keep, 1, 1])
+        wing_shift[keep] = np.abs(moved)
+    return h, c, w, cov, rms, weight, wing_shift
 
 
 def _collapse_saturated(spectrum: Spectrum, baseline: BaselineResult, peaks: np.ndarray) -> tuple[np.ndarray, list[tuple[float, float, float, float]]]:
