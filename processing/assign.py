@@ -134,10 +134,22 @@ class _Band:
     partner: dict[int, tuple[float, float]] = field(default_factory=dict)
     merged_with: str | None = None
     library_centrifugal: tuple[float, float, float, float] | None = None  # the library's (D', D'', H', H'')
-    # predicted relative intensity of every line the library knows (to J'' where it falls
-    # under 1e-7 of the strongest), on the same scale as `weight`
-    all_weights: dict[int, float] = field(default_factory=dict)
+    # where the predicted relative intensity of every line the library knows (to J'' where it
+    # falls under 1e-7 of the strongest) comes from: (library, temperature, scale of `weight`)
+    weights_source: tuple[Any, float, float] | None = None
     dropped: set[int] = field(default_factory=set)  # lines merged into a stronger partner's blend
+
+    @functools.cached_property
+    def all_weights(self) -> dict[int, float]:
+        """Predicted relative intensity of every line (same scale as `weight`), computed when
+        first needed: only bands found in the spectrum ever need it."""
+        if self.weights_source is None:
+            return {}
+        library, temperature_K, scale = self.weights_source
+        every = _predicted_band(library, self.isotopologue, self.v_upper, self.v_lower, temperature_K, 1e-7)
+        if every is None:
+            return {}
+        return {int(m): float(w) / scale for m, w in zip(every.lines.m.tolist(), every.strength_cm_per_molecule.tolist())}
 
     def pull_of(self, m: np.ndarray) -> np.ndarray:
         return np.array([self.pull.get(int(k), 0.0) for k in np.atleast_1d(m)])
@@ -200,7 +212,6 @@ def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int
         inside = (lines.wavenumber_cm1 > first - 10.0) & (lines.wavenumber_cm1 < last + 10.0)
         if not inside.any():
             continue
-        every = _predicted_band(library, iso.label, v_upper, v_lower, temperature_K, 1e-7)
         bands.append(
             _Band(
                 isotopologue=iso.label,
@@ -212,7 +223,7 @@ def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int
                 sigma=np.zeros(int(inside.sum())),
                 weight=predicted.strength_cm_per_molecule[inside],
                 library_centrifugal=library_centrifugal(iso.dunham, v_upper, v_lower),
-                all_weights=dict(zip(every.lines.m.tolist(), every.strength_cm_per_molecule.tolist())) if every is not None else {},
+                weights_source=(library, temperature_K, 1.0),
             )
         )
     if not bands:
@@ -220,7 +231,7 @@ def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int
     strongest = max(float(b.weight.max()) for b in bands)
     for b in bands:
         b.weight = b.weight / strongest
-        b.all_weights = {m: w / strongest for m, w in b.all_weights.items()}
+        b.weights_source = (library, temperature_K, strongest)
     return bands
 
 

@@ -20,8 +20,8 @@ import numpy as np
 from processing.apodization import APODIZATIONS, apodization_window, window_name
 
 STATED_MISFIT_FACTOR = 4.0  # a stated line shape yields only to one that fits this much better
-_SAMPLES = 1 << 13  # window samples over 0..1
-_PAD = 1 << 19  # FFT length: s step 1 / (_PAD / _SAMPLES) = 1/64 in units of 1/L
+_SAMPLES = 1 << 12  # window samples over 0..1
+_PAD = 1 << 17  # FFT length: s step _SAMPLES / _PAD = 1/32 in units of 1/L (ILS to ~2e-3 of its peak)
 # The prediction of a lobe's depth is good to about this fraction (line shapes not exactly
 # narrow, neighbours, equivalent widths from the main lobe): a peak must exceed its predicted
 # ringing by more.
@@ -30,7 +30,7 @@ RINGING_MODEL_ERROR = 0.35
 
 @functools.lru_cache(maxsize=16)
 def _tabulated(window: str) -> tuple[np.ndarray, np.ndarray]:
-    """(s, f(s)) for s = 0 .. 1024 in steps of 1/64 (units of 1/L), by one FFT of the window."""
+    """(s, f(s)) for s = 0 .. 1024 in steps of 1/32 (units of 1/L), by one FFT of the window."""
     u = np.arange(_SAMPLES) / _SAMPLES
     w = apodization_window(window, u)
     w[0] *= 0.5  # trapezoid weight of the end at zero path difference (the cosine series doubles it)
@@ -78,6 +78,12 @@ class LineShapeModel:
         s, f = _tabulated(self.window)
         low = np.flatnonzero(f <= 0.01 * f[0])
         return float(s[low[0]] / self.opd_cm) if low.size else 2.0 * self.fwhm_cm1
+
+    def central_share(self, half_width_cm1: np.ndarray) -> np.ndarray:
+        """Share of a narrow line's area the ILS puts within +-half_width of its centre."""
+        s, f = _tabulated(self.window)
+        cumulative = np.concatenate([[0.0], np.cumsum(0.5 * (f[1:] + f[:-1]) * np.diff(s))])
+        return 2.0 * np.interp(np.asarray(half_width_cm1) * self.opd_cm, s, cumulative)
 
     def reach_cm1(self, level: float) -> float:
         """Offset beyond which every lobe stays under `level` x the peak."""
@@ -159,17 +165,11 @@ def equivalent_width_estimates(x: np.ndarray, depth: np.ndarray, centres: np.nda
     over +-1 FWHM (or the line's own width, if wider), divided by the share of a line's area the
     ILS puts there."""
     half = np.maximum(model.fwhm_cm1, np.nan_to_num(widths, nan=model.fwhm_cm1))
-    grid = np.linspace(-1.0, 1.0, 201)
-    out = np.zeros(centres.size)
-    for k, (centre, h) in enumerate(zip(centres.tolist(), half.tolist())):
-        lo, hi = np.searchsorted(x, centre - h), np.searchsorted(x, centre + h)
-        if hi - lo < 2:
-            continue
-        area = float(np.sum(0.5 * (depth[lo + 1 : hi] + depth[lo : hi - 1]) * np.diff(x[lo:hi])))
-        profile = model.shape(grid * h)
-        share = float(np.sum(0.5 * (profile[1:] + profile[:-1])) * (grid[1] - grid[0]) * h)
-        out[k] = area / max(share, 0.05)
-    return out
+    cumulative = np.concatenate([[0.0], np.cumsum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x))])
+    lo = np.clip(np.searchsorted(x, centres - half), 0, x.size - 1)
+    hi = np.clip(np.searchsorted(x, centres + half) - 1, 0, x.size - 1)
+    area = np.where(hi > lo, cumulative[hi] - cumulative[lo], 0.0)
+    return area / np.maximum(model.central_share(half), 0.05)
 
 
 # Lobes of a saturated line are predicted less well still: its black core is resolved or
@@ -199,13 +199,15 @@ def predicted_ringing(
         relative_error[np.asarray(saturated, dtype=bool)[order]] = RINGING_MODEL_ERROR_SATURATED
     lo = np.searchsorted(c, targets - reach)
     hi = np.searchsorted(c, targets + reach)
-    for k in range(targets.size):
-        offsets = targets[k] - c[lo[k] : hi[k]]
-        lobes = np.abs(offsets) > main
-        if lobes.any():
-            contribution = w[lo[k] : hi[k]][lobes] * model.shape(offsets[lobes])
-            depth[k] = float(np.sum(contribution))
-            error[k] = float(np.sum(relative_error[lo[k] : hi[k]][lobes] * np.abs(contribution)))
+    # every (target, line within reach) pair at once
+    counts = hi - lo
+    pair_target = np.repeat(np.arange(targets.size), counts)
+    pair_line = np.arange(int(counts.sum())) - np.repeat(np.cumsum(counts) - counts, counts) + np.repeat(lo, counts)
+    offsets = targets[pair_target] - c[pair_line]
+    lobes = np.abs(offsets) > main
+    contribution = np.where(lobes, w[pair_line] * model.shape(offsets), 0.0)
+    depth = np.bincount(pair_target, weights=contribution, minlength=targets.size)
+    error = np.bincount(pair_target, weights=relative_error[pair_line] * np.abs(contribution), minlength=targets.size)
     return depth, error
 
 

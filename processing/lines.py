@@ -370,8 +370,12 @@ def measure_lines(
         c = np.where(bad, centre0, c)
         w = np.where(~np.isfinite(w) | bad, fwhm0, w)
         h = np.where(~np.isfinite(h) | bad, height0, h)
+    all_c = np.concatenate([c, np.array([s[0] for s in saturated_lines])]) if saturated_lines else c
+    all_w = np.concatenate([w, np.array([s[3] for s in saturated_lines])]) if saturated_lines else w
+    all_h = np.concatenate([h, np.array([s[2] for s in saturated_lines])]) if saturated_lines else h
+    line_shape = line_shape_of(spectrum, baseline, all_c, all_w, all_h) if all_c.size >= 3 else None
     h, c, w, cov, rms, weight, wing_shift = _deblend_far_neighbours(
-        spectrum, baseline, x_win, y_win, half, h, c, w, cov, rms, weight, saturated_lines, noise, peaks)
+        spectrum, baseline, x_win, y_win, half, h, c, w, cov, rms, weight, saturated_lines, noise, peaks, line_shape)
     # how far taking the neighbours out moved each centre: the neighbours' drawn shapes are
     # good to DEBLEND_MODEL_ERROR of that, which the centre's uncertainty carries
     lone = _fit_gaussians(x_win, y_win, _core_weights(y_win, half), h, c, w)[1]
@@ -418,7 +422,7 @@ def measure_lines(
     blended = np.zeros(c.size, dtype=bool)
     blended[:-1] |= close
     blended[1:] |= close
-    ringing, line_shape, equivalent = ringing_flags(spectrum, baseline, c, h, w, saturated, threshold_sigma)
+    ringing, line_shape, equivalent = ringing_flags(spectrum, baseline, c, h, w, saturated, threshold_sigma, line_shape)
     snr = snr_of(h, sigma)
     return LineTable(
         position_cm1=c,
@@ -451,6 +455,7 @@ def _deblend_far_neighbours(
     spectrum: Spectrum, baseline: BaselineResult, x_win: np.ndarray, y_win: np.ndarray, half: int,
     h: np.ndarray, c: np.ndarray, w: np.ndarray, cov: np.ndarray, rms: np.ndarray, weight: np.ndarray,
     saturated_lines: list[tuple[float, float, float, float]], noise: NoiseEstimate, peaks: np.ndarray,
+    model: LineShapeModel | None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """One more profile fit of every line with its neighbours taken out as the instrument line
     shape draws them (their wings and sidelobes, whose shape a Gaussian core does not follow:
@@ -461,9 +466,7 @@ def _deblend_far_neighbours(
     heights = np.concatenate([h, np.array([s[2] for s in saturated_lines])]) if saturated_lines else h
     x = spectrum.wavenumber_cm1
     depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
-    stated = stated_line_shape(spectrum.meta.apodization, spectrum.meta.resolution_cm1)
     top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
-    model = infer_line_shape(x, depth, centres, widths, top_depth, math.log(10.0) * baseline.noise_sigma, stated)
     if model is None or c.size < 2:
         return h, c, w, cov, rms, weight, np.zeros(c.size)
     equivalent = equivalent_width_estimates(x, depth, centres, model, widths)
@@ -552,21 +555,29 @@ def snr_of(height: np.ndarray, sigma: float) -> np.ndarray:
     return height / sigma if sigma > 0 else np.full(height.size, np.inf)
 
 
+def line_shape_of(spectrum: Spectrum, baseline: BaselineResult, centres: np.ndarray, widths: np.ndarray, heights: np.ndarray) -> LineShapeModel | None:
+    """The instrument line shape of a spectrum: the stated one (apodization, resolution) unless
+    the strongest lines plainly show another (`processing.line_shape.infer_line_shape`)."""
+    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
+    top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
+    stated = stated_line_shape(spectrum.meta.apodization, spectrum.meta.resolution_cm1)
+    return infer_line_shape(spectrum.wavenumber_cm1, depth, centres, widths, top_depth, math.log(10.0) * baseline.noise_sigma, stated)
+
+
 def ringing_flags(
     spectrum: Spectrum, baseline: BaselineResult, centres: np.ndarray, heights: np.ndarray, widths: np.ndarray,
-    saturated: np.ndarray, threshold_sigma: float,
+    saturated: np.ndarray, threshold_sigma: float, model: LineShapeModel | None = None,
 ) -> tuple[np.ndarray, LineShapeModel | None, np.ndarray]:
     """(flag per line, the line shape used, equivalent width per line): a line is flagged as
     ringing when the lobes the spectrum's lines put at its position explain its depth (see
     `processing.line_shape`). The line shape is the stated one (apodization, resolution) or
-    the window that best explains the strongest lines' profiles."""
+    the window that best explains the strongest lines' profiles (`line_shape_of`) unless given."""
     flags = np.zeros(centres.size, dtype=bool)
     x = spectrum.wavenumber_cm1
     depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
     noise_t = math.log(10.0) * baseline.noise_sigma
     top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
-    stated = stated_line_shape(spectrum.meta.apodization, spectrum.meta.resolution_cm1)
-    model = infer_line_shape(x, depth, centres, widths, top_depth, noise_t, stated)
+    model = model or line_shape_of(spectrum, baseline, centres, widths, heights)
     if model is None or centres.size < 2:
         return flags, model, np.zeros(centres.size)
     equivalent = equivalent_width_estimates(x, depth, centres, model, widths)

