@@ -49,6 +49,7 @@ MIN_BAND_LINES = 5
 # applied (main isotopologues ~0.01 cm-1 to J'' ~15, mass-scaled ones a few hundredths; calc
 # from the library's stated uncertainties): the floor of the first matching tolerance.
 LIBRARY_LINE_ACCURACY_CM1 = 0.03
+COARSE_SHIFT_TOLERANCE = 0.15  # the calibration shift is first searched with this tolerance
 # A blended partner weaker than this (relative intensity) cannot be measured beside its host:
 # the host's position is corrected by the predicted blend pull instead of a doublet fit.
 DOUBLET_MIN_RATIO = 0.1
@@ -258,12 +259,22 @@ def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: fl
     positions, weights = positions[keep], weights[keep]
     if positions.size == 0:
         return 0.0, 0.0
-    step = tol / 2.0
-    shifts = np.arange(-max_shift, max_shift + step / 2, step)
-    targets = positions[None, :] + shifts[:, None]
-    matched = _match_count(peaks, targets.ravel(), tol).reshape(targets.shape)
-    inside = (targets >= first) & (targets <= last)
-    scores = matched @ weights - (inside & ~matched) @ weights
+    def scores_at(shifts: np.ndarray, tolerance: float) -> np.ndarray:
+        targets = positions[None, :] + shifts[:, None]
+        matched = _match_count(peaks, targets.ravel(), tolerance).reshape(targets.shape)
+        inside = (targets >= first) & (targets <= last)
+        return matched @ weights - (inside & ~matched) @ weights
+
+    if tol < COARSE_SHIFT_TOLERANCE:
+        # a coarse search first (a fine step over +-5 cm-1 is slow), then a fine one around
+        # its three best shifts
+        coarse = np.arange(-max_shift, max_shift + COARSE_SHIFT_TOLERANCE / 4, COARSE_SHIFT_TOLERANCE / 2)
+        rough = scores_at(coarse, COARSE_SHIFT_TOLERANCE)
+        centres = coarse[np.lexsort((np.abs(coarse), -rough))[:3]]
+        shifts = np.unique(np.concatenate([c + np.arange(-COARSE_SHIFT_TOLERANCE, COARSE_SHIFT_TOLERANCE + tol / 4, tol / 2) for c in centres]))
+    else:
+        shifts = np.arange(-max_shift, max_shift + tol / 4, tol / 2)
+    scores = scores_at(shifts, tol)
     # prefer the smallest shift among equal scores
     best = int(np.lexsort((np.abs(shifts), -scores))[0])
     return float(shifts[best]), float(scores[best] / weights.sum())
