@@ -12,6 +12,7 @@ from typing import Any
 
 from processing.errors import SpectrumFileError
 from processing.readers import DEFAULT_MAX_BYTES, load_bytes, parse_bytes
+from processing.regular_files import ReadPolicy
 from processing.spectrum import LineList, Spectrum
 
 SCHEMA_VERSION = 1
@@ -31,6 +32,7 @@ class ProcessSettings:
     excluded_positions_cm1: tuple[float, ...] = ()  # lines to leave out of assignment and fits
     library_file: str | None = None  # a user library file that adds or overrides species
     checks: dict[str, Any] = field(default_factory=dict)  # threshold overrides (see processing.checks)
+    read_policy: ReadPolicy | None = None  # where files may be read from (the station's folders)
 
 
 @dataclass(frozen=True)
@@ -296,7 +298,7 @@ def process_file(path: str | Path, settings: ProcessSettings | None = None) -> R
     settings = settings or ProcessSettings()
     source = str(path)
     try:
-        raw = load_bytes(source, settings.max_bytes)
+        raw = load_bytes(source, settings.max_bytes, ReadPolicy.from_dict(settings.read_policy))
     except SpectrumFileError as error:
         return RunResult(file=source, status="unreadable", error=str(error))
     try:

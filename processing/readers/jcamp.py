@@ -640,8 +640,8 @@ def parse(data: bytes, source: str) -> Spectrum | LineList:
     try:
         with np.errstate(all="ignore"):
             return _parse(data, source)
-    except SpectrumFileError:
-        raise
+    except (SpectrumFileError, MemoryError):
+        raise  # out of memory is the machine's limit, not a fault of the file or the reader
     except Exception as error:  # noqa: BLE001
         # Contract: parse() raises only SpectrumFileError. Not swallowed: the message says
         # "reader fault" and names the original type (the property test asserts it never shows).

@@ -11,13 +11,12 @@ Adding a format = one module with those four names, listed in `READERS` below.
 from __future__ import annotations
 
 import hashlib
-import threading
-import os
 from dataclasses import replace
 from pathlib import Path
 from types import ModuleType
 
 from processing.errors import SpectrumFileError
+from processing.regular_files import ReadPolicy, read_regular
 from processing.spectrum import LineList, Spectrum
 
 DEFAULT_MAX_BYTES = 256 * 1024 * 1024
@@ -32,36 +31,12 @@ def _readers() -> tuple[ModuleType, ...]:
     return (jcamp, delimited)
 
 
-def load_bytes(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES) -> bytes:
-    """The file's bytes, opened read-only; refuses empty and over-size files."""
-    source = str(path)
-    try:
-        size = os.stat(source).st_size
-        if size > max_bytes:
-            raise SpectrumFileError(
-                source, f"file is {size / 1e6:.3g} MB, over the {max_bytes / 1e6:.3g} MB limit"
-            )
-        with open(source, "rb") as handle:
-            # read(n) allocates n bytes up front: ask for the size seen (+1 to notice growth),
-            # then keep reading only if the file grew, never past the limit.
-            data = handle.read(size + 1)
-            while len(data) <= max_bytes:
-                more = handle.read(min(1 << 20, max_bytes + 1 - len(data)))
-                if not more:
-                    break
-                data += more
-    except FileNotFoundError:
-        raise SpectrumFileError(source, "no such file") from None
-    except IsADirectoryError:
-        raise SpectrumFileError(source, "is a directory, not a file") from None
-    except PermissionError:
-        raise SpectrumFileError(source, "permission denied") from None
-    except OSError as error:
-        raise SpectrumFileError(source, f"cannot be read ({error.strerror or error})") from None
-    if len(data) > max_bytes:
-        raise SpectrumFileError(source, f"file grew past the {max_bytes / 1e6:.3g} MB limit")
+def load_bytes(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES, policy: ReadPolicy | None = None) -> bytes:
+    """The bytes of a regular file (never a FIFO, device or socket; only where `policy`
+    allows), opened read-only; refuses empty and over-size files."""
+    data = read_regular(path, max_bytes, policy)
     if not data or data.isspace():
-        raise SpectrumFileError(source, "file is empty")
+        raise SpectrumFileError(str(path), "file is empty")
     return data
 
 
@@ -111,6 +86,8 @@ def parse_bytes(data: bytes, source: str = "<data>") -> Spectrum | LineList:
     return result.with_meta(meta)
 
 
-def read_any(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES) -> Spectrum | LineList:
+def read_any(
+    path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES, policy: ReadPolicy | None = None
+) -> Spectrum | LineList:
     """Read a spectrum or line-list file of any supported format (read-only)."""
-    return parse_bytes(load_bytes(path, max_bytes), str(path))
+    return parse_bytes(load_bytes(path, max_bytes, policy), str(path))

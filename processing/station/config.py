@@ -47,6 +47,7 @@ class StationConfig:
     exclude: tuple[str, ...] = ()  # in addition to DEFAULT_EXCLUDE (temporary/partial files)
     recursive: bool = False
     poll: bool = False
+    follow_links_outside: bool = False  # symbolic links from the export folder to elsewhere
     settle_seconds: float = 0.5
     max_wait_seconds: float = 30.0  # an incomplete file (JCAMP without ##END=) waits this long
     rescan_seconds: float = 5.0
@@ -115,7 +116,7 @@ def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) ->
         if not isinstance(value, list) or not all(isinstance(v, str) and v.strip() for v in value):
             raise ConfigError(source, key, "must be a list of non-empty strings")
         return tuple(v.strip() for v in value)
-    if key in ("recursive", "poll"):
+    if key in ("recursive", "poll", "follow_links_outside"):
         if not isinstance(value, bool):
             raise ConfigError(source, key, "must be true or false")
         return value
@@ -214,6 +215,10 @@ exclude = []
 
 # Look into subfolders too.
 recursive = false
+
+# Follow symbolic links that lead from the export folder to files elsewhere. Off: such links
+# are recorded as unreadable. Links into the data folder are never followed.
+follow_links_outside = false
 
 # Poll the folder instead of using file-system events (network shares are polled anyway).
 poll = false

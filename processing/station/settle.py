@@ -1,10 +1,14 @@
 """Decide when a file is finished being written: stable size and time stamp, complete content.
 
 A file is settled when its size and modification time have not changed for `settle_seconds`
-and it reads completely: a JCAMP-DX file must carry one ##END= per ##TITLE= (the exporter
-may still be writing otherwise). A file that stays incomplete past `max_wait_seconds` is given
-up as incomplete. A file deleted before it settles is reported as vanished and forgotten.
-Files are opened read-only and only read.
+and it reads completely: a JCAMP-DX file must carry one ##END= per ##TITLE=, and a text file
+must end with a finished line (a newline), since an exporter may still be writing otherwise.
+A JCAMP-DX file still incomplete after `max_wait_seconds` is given up as incomplete; a text
+file whose last line never gets its newline is taken then as it is (some writers never end
+the last line). The limit: a writer that pauses longer than `settle_seconds` exactly at the end
+of a line is indistinguishable from a finished file; give such writers a longer settle time.
+A file deleted before it settles is reported as vanished and forgotten. Only regular files
+inside the export folder are read (`regular_files`); anything else is refused with a reason.
 """
 from __future__ import annotations
 
@@ -15,7 +19,9 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 
-READ_CHUNK = 1024 * 1024
+from processing.errors import SpectrumFileError
+from processing.regular_files import ReadPolicy, check_place, read_regular
+
 _JCAMP_TITLE = re.compile(rb"^[ \t]*##[ \t]*TITLE[ \t]*=", re.IGNORECASE | re.MULTILINE)
 _JCAMP_END = re.compile(rb"^[ \t]*##[ \t]*END[ \t]*=", re.IGNORECASE | re.MULTILINE)
 
@@ -41,17 +47,30 @@ class IncompleteFile:
 
 
 @dataclass(frozen=True)
+class RefusedFile:
+    """Not read at all (not a regular file, a link out of the export folder, over the size
+    limit, unreadable): recorded as unreadable with `reason`, never handed to a worker."""
+
+    path: str
+    reason: str
+    size_bytes: int | None = None
+    mtime_ns: int | None = None
+
+
+@dataclass(frozen=True)
 class VanishedFile:
     path: str
 
 
-SettleOutcome = SettledFile | IncompleteFile | VanishedFile
+SettleOutcome = SettledFile | IncompleteFile | RefusedFile | VanishedFile
 
 
 def incomplete_reason(data: bytes) -> str | None:
     """Why the content looks still being written, or None when it looks complete."""
     head = data.lstrip(b"\xef\xbb\xbf \t\r\n")[:2]
     if head != b"##":
+        if data and not data.endswith((b"\n", b"\r", b"\n\x00", b"\r\x00")):
+            return "last line not finished (no newline at the end; still being written?)"
         return None
     titles = len(_JCAMP_TITLE.findall(data))
     ends = len(_JCAMP_END.findall(data))
@@ -62,20 +81,10 @@ def incomplete_reason(data: bytes) -> str | None:
     return None
 
 
-def read_and_hash(path: str, max_bytes: int) -> tuple[bytes, str]:
-    """The file's bytes (up to max_bytes + 1) and their sha256, opened read-only."""
-    digest = hashlib.sha256()
-    chunks: list[bytes] = []
-    total = 0
-    with open(path, "rb") as handle:
-        while total <= max_bytes:
-            chunk = handle.read(READ_CHUNK)
-            if not chunk:
-                break
-            digest.update(chunk)
-            chunks.append(chunk)
-            total += len(chunk)
-    return b"".join(chunks), digest.hexdigest()
+def taken_when_waited_out(data: bytes) -> bool:
+    """True for content taken as it is once the longest wait is over (text whose last line
+    never got its newline); False for content given up as incomplete (JCAMP-DX without END)."""
+    return data.lstrip(b"\xef\xbb\xbf \t\r\n")[:2] != b"##"
 
 
 @dataclass
@@ -87,6 +96,7 @@ class _Pending:
     incomplete_stat: tuple[int, int] | None = None  # stat when found incomplete (no re-read)
     incomplete_sha: str | None = None
     incomplete_why: str | None = None
+    take_when_waited_out: bool = False
 
 
 class Settler:
@@ -98,7 +108,9 @@ class Settler:
         max_wait_seconds: float,
         max_bytes: int,
         clock: Callable[[], float] = time.monotonic,
+        policy: ReadPolicy | None = None,
     ) -> None:
+        self.policy = policy or ReadPolicy()
         self.settle_seconds = settle_seconds
         self.max_wait_seconds = max_wait_seconds
         self.max_bytes = max_bytes
@@ -108,14 +120,13 @@ class Settler:
 
     def touch(self, path: str, stat: os.stat_result | None = None) -> bool:
         """Note that `path` may have changed; True when it is new or changed (now pending)."""
-        if stat is None:
-            try:
-                stat = os.stat(path)
-            except OSError:
-                if path in self.pending:
-                    return True  # the next tick reports it vanished
-                self.known.pop(path, None)
-                return False
+        try:
+            stat = self.change_stat(path, stat)
+        except OSError:
+            if path in self.pending:
+                return True  # the next tick reports it vanished
+            self.known.pop(path, None)
+            return False
         key = (stat.st_size, stat.st_mtime_ns)
         if path in self.pending:
             return True
@@ -125,6 +136,18 @@ class Settler:
         self.pending[path] = _Pending(stat.st_size, stat.st_mtime_ns, now, now)
         return True
 
+    def change_stat(self, path: str, found: os.stat_result | None = None) -> os.stat_result:
+        """The stat whose size and time stamp say whether `path` changed: the file's own, but
+        for a link bandwatch will not follow, the link's (so a link onto a file that changes
+        all the time, such as the ledger, is refused once, not again at every change)."""
+        found = found if found is not None else os.stat(path)
+        if os.path.realpath(path) != os.path.abspath(path):
+            try:
+                check_place(path, self.policy)
+            except SpectrumFileError:
+                return os.lstat(path)
+        return found
+
     def tick(self, hold: Callable[[str], bool] = lambda path: False) -> list[SettleOutcome]:
         """Check every pending file once; returns those that settled, vanished or gave up."""
         now = self.clock()
@@ -132,7 +155,7 @@ class Settler:
         for path in list(self.pending):
             state = self.pending[path]
             try:
-                stat = os.stat(path)
+                stat = self.change_stat(path)
             except FileNotFoundError:
                 del self.pending[path]
                 self.known.pop(path, None)
@@ -152,27 +175,33 @@ class Settler:
                 outcomes.append(outcome)
         return outcomes
 
-    def _examine(self, path: str, state: _Pending, now: float) -> SettledFile | IncompleteFile | None:
+    def _examine(self, path: str, state: _Pending, now: float) -> SettleOutcome | None:
         key = (state.size, state.mtime_ns)
         if state.incomplete_stat == key:
             why = state.incomplete_why
         else:
             try:
-                data, sha = read_and_hash(path, self.max_bytes)
-            except OSError as error:
-                return SettledFile(path, None, state.size, state.mtime_ns, error.strerror or str(error))
+                data = read_regular(path, self.max_bytes, self.policy)
+            except SpectrumFileError as error:
+                if error.problem == "no such file":
+                    return None  # vanished while opening: the next tick says so
+                return RefusedFile(path, str(error), state.size, state.mtime_ns)
             try:
-                after = os.stat(path)
+                after = self.change_stat(path)
             except OSError:
                 return None  # vanished while reading: the next tick says so
-            if (after.st_size, after.st_mtime_ns) != key or len(data) != state.size and len(data) <= self.max_bytes:
+            if (after.st_size, after.st_mtime_ns) != key or len(data) != state.size:
                 state.size, state.mtime_ns, state.stable_since = after.st_size, after.st_mtime_ns, now
                 return None  # written to while we read: wait again
+            sha = hashlib.sha256(data).hexdigest()
             why = incomplete_reason(data)
             if why is None:
                 return SettledFile(path, sha, state.size, state.mtime_ns)
             state.incomplete_stat, state.incomplete_sha, state.incomplete_why = key, sha, why
+            state.take_when_waited_out = taken_when_waited_out(data)
         if now - state.first_seen >= self.max_wait_seconds:
+            if state.take_when_waited_out:
+                return SettledFile(path, state.incomplete_sha, state.size, state.mtime_ns)
             return IncompleteFile(
                 path, state.incomplete_sha, f"{why}; gave up after {self.max_wait_seconds:g} s"
             )

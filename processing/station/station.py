@@ -25,6 +25,7 @@ from typing import IO, Any
 
 from processing.errors import ConfigError
 from processing.readers import DEFAULT_MAX_BYTES
+from processing.regular_files import ReadPolicy
 from processing.station import ledger
 from processing.station.config import StationConfig, check_folders, settings_payload
 from processing.station.events import (
@@ -43,7 +44,7 @@ from processing.station.events import (
 )
 from processing.station.pool import Job, JobOutcome, WorkerPool
 from processing.station.reports import write_reports
-from processing.station.settle import IncompleteFile, SettledFile, Settler, VanishedFile
+from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile
 from processing.station.watcher import FileFilter, start_observer
 
 LOCK_FILE = "station.lock"
@@ -77,8 +78,11 @@ class Station:
         )
         self.events: queue.Queue[StationEvent] = queue.Queue()
         self._emit_to = on_event or self.events.put
-        self.settings = settings_payload(config)
-        self.settler = Settler(config.settle_seconds, config.max_wait_seconds, DEFAULT_MAX_BYTES)
+        self.read_policy = ReadPolicy.for_station(self.export_dir, self.data_dir, config.follow_links_outside)
+        self.settings = {**settings_payload(config), "read_policy": self.read_policy}
+        self.settler = Settler(
+            config.settle_seconds, config.max_wait_seconds, DEFAULT_MAX_BYTES, policy=self.read_policy
+        )
         self.tick_seconds = max(0.01, min(0.05, config.settle_seconds / 4))
         self._touched: queue.SimpleQueue[str] = queue.SimpleQueue()
         self._wakeup = threading.Event()
@@ -318,6 +322,12 @@ class Station:
             elif isinstance(outcome, IncompleteFile):
                 record = ledger.record_run(
                     self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}"
+                )
+                self._emit(RunProcessed(record.run_id, record.version, record.path, record.status, None, (), record.error))
+            elif isinstance(outcome, RefusedFile):
+                record = ledger.record_run(
+                    self._conn(), outcome.path, None, "unreadable", error=outcome.reason,
+                    size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
                 )
                 self._emit(RunProcessed(record.run_id, record.version, record.path, record.status, None, (), record.error))
             else:

@@ -53,7 +53,9 @@ class FileFilter:
         return any(fnmatch.fnmatch(name, pattern) for pattern in self.include)
 
     def scan(self) -> Iterator[tuple[str, os.stat_result]]:
-        """Every accepted regular file now in the folder, with its stat."""
+        """Every accepted name now in the folder that is not a folder (regular files, and
+        FIFOs, devices, links that the settler then refuses with a reason), with its stat.
+        Iterative, so any depth of subfolders is fine."""
         stack = [self.root]
         while stack:
             folder = stack.pop()
@@ -67,8 +69,8 @@ class FileFilter:
                         if self.recursive and not entry.name.startswith("."):
                             stack.append(Path(entry.path))
                         continue
-                    if not entry.is_file() or not self.accepts(entry.path):
-                        continue
+                    if entry.is_dir() or not self.accepts(entry.path):
+                        continue  # a link to a folder is not walked into
                     yield entry.path, entry.stat()
                 except OSError:
                     continue  # vanished while scanning

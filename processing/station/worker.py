@@ -36,7 +36,11 @@ def make_settings(payload: dict[str, Any]) -> Any:
     known = {f.name for f in fields(ProcessSettings)}
     values: dict[str, Any] = {}
     for key, value in payload.items():
-        if key in known:
+        if key == "read_policy":
+            from processing.regular_files import ReadPolicy
+
+            values[key] = ReadPolicy.from_dict(value)
+        elif key in known:
             values[key] = _frozen(value)
     return ProcessSettings(**values)
 

@@ -1,0 +1,138 @@
+"""The export share as an adversary (or a bad day) leaves it: links onto the ledger, FIFOs,
+devices, links out of the folder. Only regular files inside the export folder are read; the
+ledger is never opened except by SQLite; nothing stops the station."""
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+from station_files import HERE, spectrum_csv, write_file
+
+from processing.station import ledger
+from processing.station.events import RunProcessed
+
+ROOT = HERE.parents[1]
+
+
+def _runs(data: Path) -> list[ledger.RunRecord]:
+    conn = ledger.open_ledger(data)
+    try:
+        return list(reversed(ledger.list_runs(conn)))
+    finally:
+        conn.close()
+
+
+def _wait_for(predicate, timeout: float) -> bool:  # type: ignore[no-untyped-def]
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if predicate():
+            return True
+        time.sleep(0.05)
+    return predicate()
+
+
+def _bandwatch(*args: str, env: dict[str, str]) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "tui", *args], capture_output=True, text=True, env=env,
+                          cwd=ROOT, timeout=60)
+
+
+def test_link_onto_the_ledger_then_sigkill_loses_no_recorded_run(tmp_path: Path) -> None:
+    """The settle step once opened and closed a link onto DATA/ledger.sqlite3, which drops the
+    station's SQLite locks; the next reader then deleted the live WAL and later runs were lost."""
+    export, data = tmp_path / "export", tmp_path / "data"
+    export.mkdir()
+    env = dict(os.environ, BANDWATCH_CONFIG=str(tmp_path / "none.toml"), PYTHONPATH=str(ROOT))
+    station = subprocess.Popen(
+        [sys.executable, "-m", "tui", "watch", str(export), "--data", str(data), "--plain",
+         "--settle", "0.1", "--workers", "1"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env, cwd=ROOT,
+    )
+    try:
+        assert _wait_for(lambda: (data / ledger.LEDGER_FILE).exists(), 20)
+        write_file(export / "first.csv", spectrum_csv(200, centre_cm1=2880.0))
+        assert _wait_for(lambda: len(_runs(data)) == 1, 20)
+        os.symlink(data / ledger.LEDGER_FILE, export / "evil.csv")
+        assert _wait_for(lambda: len(_runs(data)) == 2, 20)
+        # another process reads the ledger and closes it: with the station's locks dropped it
+        # would think itself the last user and delete the WAL the station still writes into
+        assert _bandwatch("ledger", "list", "--data", str(data), env=env).returncode == 0
+        for index in range(4):
+            write_file(export / f"later{index}.csv", spectrum_csv(200, centre_cm1=2890.0 + index))
+            assert _wait_for(lambda: len(_runs(data)) == 3 + index, 20)
+    finally:
+        station.send_signal(signal.SIGKILL)
+        out, _ = station.communicate(timeout=10)
+    recorded = [line for line in out.splitlines() if " run " in line]
+    assert len(recorded) == 6
+    listed = _bandwatch("ledger", "list", "--json", "--data", str(data), env=env)
+    names = sorted(Path(line.split('"path": "')[1].split('"')[0]).name for line in listed.stdout.splitlines())
+    assert names == sorted(["first.csv", "evil.csv"] + [f"later{i}.csv" for i in range(4)])
+    [evil] = [run for run in _runs(data) if run.name == "evil.csv"]
+    assert evil.status == "unreadable" and "data folder" in (evil.error or "")
+
+
+def test_a_fifo_in_the_export_folder_does_not_stop_the_station(make_station, folders) -> None:
+    export, data = folders
+    station, events = make_station()
+    station.start()
+    os.mkfifo(export / "pipe.csv")
+    os.symlink(export / "pipe.csv", export / "link-to-pipe.csv")
+    time.sleep(0.5)  # the FIFO is seen and settles first
+    write_file(export / "good.csv", spectrum_csv(200))
+    started = time.monotonic()
+    assert _wait_for(lambda: any(isinstance(e, RunProcessed) and e.path.endswith("good.csv") for e in events), 10)
+    assert time.monotonic() - started < 10
+    assert station.wait_idle(10)
+    by_name = {run.name: run for run in _runs(data)}
+    assert by_name["good.csv"].status == "processed"
+    for name in ("pipe.csv", "link-to-pipe.csv"):
+        assert by_name[name].status == "unreadable" and "FIFO" in (by_name[name].error or "")
+
+
+def test_links_leading_out_of_the_export_folder_are_not_followed(make_station, folders, tmp_path: Path) -> None:
+    export, data = folders
+    outside = write_file(tmp_path / "elsewhere.csv", spectrum_csv(200))
+    os.symlink("/dev/zero", export / "zero.csv")
+    os.symlink(outside, export / "outside.csv")
+    station, _ = make_station()
+    started = time.monotonic()
+    station.start()
+    assert station.wait_idle(20)
+    assert time.monotonic() - started < 10  # /dev/zero was once read up to 512 MB
+    by_name = {run.name: run for run in _runs(data)}
+    for name in ("zero.csv", "outside.csv"):
+        assert by_name[name].status == "unreadable" and "outside the export folder" in (by_name[name].error or "")
+
+
+def test_links_out_are_followed_when_configured_but_never_to_a_device_or_the_data_folder(
+    make_station, folders, tmp_path: Path
+) -> None:
+    export, data = folders
+    outside = write_file(tmp_path / "elsewhere.csv", spectrum_csv(200))
+    os.symlink("/dev/zero", export / "zero.csv")
+    os.symlink(outside, export / "outside.csv")
+    station, _ = make_station(follow_links_outside=True)
+    station.start()
+    assert station.wait_idle(20)
+    os.symlink(data / "station.lock", export / "lock.csv")
+    assert station.wait_idle(20, quiet_ticks=10)
+    by_name = {run.name: run for run in _runs(data)}
+    assert by_name["outside.csv"].status == "processed"
+    assert by_name["zero.csv"].status == "unreadable" and "character device" in (by_name["zero.csv"].error or "")
+    assert by_name["lock.csv"].status == "unreadable" and "data folder" in (by_name["lock.csv"].error or "")
+
+
+@pytest.mark.skipif(os.geteuid() != 0, reason="mknod needs root")
+def test_device_node_inside_the_export_folder_is_refused(make_station, folders) -> None:
+    export, data = folders
+    os.mknod(export / "null.csv", 0o644 | 0o020000, os.makedev(1, 3))  # /dev/null's numbers
+    station, _ = make_station()
+    station.start()
+    assert station.wait_idle(20)
+    [run] = _runs(data)
+    assert run.status == "unreadable" and "character device" in (run.error or "")
