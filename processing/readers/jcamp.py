@@ -22,6 +22,12 @@ FORMAT_NAME = "JCAMP-DX"
 EXTENSIONS: tuple[str, ...] = (".jdx", ".dx", ".jcamp", ".jcm")
 
 MAX_POINTS = 100_000_000  # NPOINTS beyond this is refused as absurd
+# Points one XYDATA section may decode to: DUP compression lets a few bytes stand for any
+# number of points, so the count is bounded by the bytes given before anything is allocated.
+# Every FTIR spectrum fits in 2**20 points (0-8000 cm-1 at 0.0078 cm-1 spacing); beyond that a
+# section must carry at least a quarter byte per point (real data take 2-12 bytes a point).
+ANY_SIZE_POINTS = 1 << 20
+POINTS_PER_BYTE = 4
 DATA_LABELS = ("XYDATA", "XYPOINTS", "PEAKTABLE", "DATATABLE", "NTUPLES")
 NOT_INFRARED = ("NMR", "MASS", "UV", "RAMAN", "CHROMATOGRAM")
 # A transmittance file whose values go above this holds percent (0-100), not a fraction (0-1):
@@ -520,7 +526,12 @@ def _factor(header: _Header, label: str, source: str) -> float:
     return value
 
 
-def _read_xydata(block: _Block, record: _Record, source: str, notes: list[str], size: int) -> Spectrum:
+def points_holdable(section_bytes: int) -> int:
+    """The most points an XYDATA section of this many bytes is allowed to decode to."""
+    return min(MAX_POINTS, max(ANY_SIZE_POINTS, POINTS_PER_BYTE * section_bytes))
+
+
+def _read_xydata(block: _Block, record: _Record, source: str, notes: list[str]) -> Spectrum:
     variables = re.sub(r"\s", "", record.value).upper()
     if variables == "(X++(Y..Y)":
         notes.append("##XYDATA= variable list lacks its closing ')'")
@@ -533,7 +544,15 @@ def _read_xydata(block: _Block, record: _Record, source: str, notes: list[str], 
     plausible = [int(s) for s in stated if s == int(s) and 1 <= s <= MAX_POINTS]
     if stated and not plausible:
         raise SpectrumFileError(source, f"##NPOINTS={stated[0]:g} is not a plausible point count", block.values("NPOINTS")[0].line)
-    limit = min(MAX_POINTS, 2 * max(plausible) + 100) if plausible else min(MAX_POINTS, 50 * size + 1000)
+    holdable = points_holdable(len(record.data))
+    if plausible and min(plausible) > holdable:
+        raise SpectrumFileError(
+            source,
+            f"##NPOINTS={min(plausible)} is more than {len(record.data)} bytes of data can hold "
+            f"(at most {holdable} points); refused before decoding",
+            block.values("NPOINTS")[0].line,
+        )
+    limit = min(holdable, 2 * max(plausible) + 100) if plausible else holdable
     try:
         decoded = decode_xydata(record.data, limit)
     except DecodeError as error:
@@ -658,5 +677,5 @@ def _parse(data: bytes, source: str) -> Spectrum | LineList:
     if record is None:  # _choose_block only returns blocks with data
         raise SpectrumFileError(source, "no data record")
     if record.label == "XYDATA":
-        return _read_xydata(block, record, source, notes, len(data))
+        return _read_xydata(block, record, source, notes)
     return _read_table(block, record, source, notes)
