@@ -23,6 +23,7 @@ Each assignment carries a confidence in [0, 1]; lines left over get a likely cau
 """
 from __future__ import annotations
 
+import bisect
 import functools
 import math
 from dataclasses import dataclass, field, replace
@@ -594,19 +595,28 @@ def _refine(
 
 
 # ------------------------------------------------------------------------------ pattern route
-def _walk(positions: np.ndarray, chain: list[int], direction: int) -> None:
+MAX_CHAIN_STEPS = 200_000  # all walks of one search together; real spectra need a few thousand
+
+
+def _walk(positions: list[float], chain: list[int], direction: int, budget: list[int]) -> None:
     """Extend `chain` in `direction` (+1 up, -1 down) while the next line sits where the
-    spacing trend puts it; one or two lines may be skipped (a gap, or the band centre)."""
+    spacing trend puts it; one or two lines may be skipped (a gap, or the band centre).
+
+    `positions` ascend; the line nearest a target is found by binary search. Each step spends
+    one unit of `budget` (a one-element list shared by all walks of a search)."""
     end = chain[-1] if direction > 0 else chain[0]
     spacing = abs(positions[chain[-1]] - positions[chain[-2]]) if direction > 0 else abs(positions[chain[1]] - positions[chain[0]])
     trend = 0.0
     misses = 0
-    while misses < 2:
+    members = set(chain)
+    while misses < 2 and budget[0] > 0:
+        budget[0] -= 1
         steps = misses + 1
         expected = sum(spacing + trend * k for k in range(1, steps + 1))
         target = positions[end] + direction * expected
-        k = int(np.argmin(np.abs(positions - target)))
-        if abs(positions[k] - target) < 0.08 * spacing * steps and k not in chain:
+        above = bisect.bisect_left(positions, target)
+        k = above if above == 0 or (above < len(positions) and positions[above] - target < target - positions[above - 1]) else above - 1
+        if abs(positions[k] - target) < 0.08 * spacing * steps and k not in members:
             new_spacing = abs(positions[k] - positions[end]) / steps
             if abs(new_spacing - spacing) > 0.15 * spacing:
                 return
@@ -614,6 +624,7 @@ def _walk(positions: np.ndarray, chain: list[int], direction: int) -> None:
             spacing = new_spacing
             end = k
             misses = 0
+            members.add(k)
             if direction > 0:
                 chain.append(k)
             else:
@@ -623,20 +634,35 @@ def _walk(positions: np.ndarray, chain: list[int], direction: int) -> None:
 
 
 def _find_chain(positions: np.ndarray, order_by_height: np.ndarray) -> list[int] | None:
-    """The longest chain of near-evenly spaced lines (a line may be skipped), as indices."""
+    """The longest chain of near-evenly spaced lines (a line may be skipped), as indices.
+
+    Bounded for any number of lines: seeds are the 40 strongest lines, each paired with the
+    lines 0.4-50 cm-1 above it (found by binary search); a pair already consecutive in a chain
+    walked before is not walked again (it would give the same chain), and all walks share
+    MAX_CHAIN_STEPS steps. A spectrum of a million points finishes in well under a second here.
+    """
+    order = np.argsort(positions, kind="stable")
+    ascending = positions[order].tolist()
+    rank = np.empty(order.size, dtype=np.intp)
+    rank[order] = np.arange(order.size)
     best: list[int] = []
+    walked: set[tuple[int, int]] = set()
+    budget = [MAX_CHAIN_STEPS]
     seeds = order_by_height[: min(40, order_by_height.size)]
-    for i in seeds:
-        for j in range(positions.size):
-            d = positions[j] - positions[i]
-            if not (0.4 < d < 50.0):
+    for seed in seeds:
+        i = int(rank[seed])
+        first = bisect.bisect_right(ascending, ascending[i] + 0.4)
+        last = bisect.bisect_left(ascending, ascending[i] + 50.0)
+        for j in range(first, last):
+            if (i, j) in walked or budget[0] <= 0:
                 continue
-            chain = [int(i), int(j)]
-            _walk(positions, chain, +1)
-            _walk(positions, chain, -1)
+            chain = [i, j]
+            _walk(ascending, chain, +1, budget)
+            _walk(ascending, chain, -1, budget)
+            walked.update(zip(chain[:-1], chain[1:]))
             if len(chain) > len(best):
                 best = chain
-    return best if len(best) >= 8 else None
+    return [int(order[k]) for k in best] if len(best) >= 8 else None
 
 
 def _number_chain(positions: np.ndarray, heights: np.ndarray) -> tuple[np.ndarray, float] | None:

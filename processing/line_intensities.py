@@ -194,8 +194,8 @@ def rotational_temperatures(lines: Any, assignment: Any, widths: np.ndarray, wid
             if lines.saturated[i] or assigned.blended or lines.ringing[i] or not assigned.used_in_fit:
                 continue
             W, sW = widths[i], width_sigmas[i]
-            if not (np.isfinite(W) and W > 10.0 * sW):
-                continue
+            if not (np.isfinite(W) and W > 10.0 * sW and W > 0 and lines.position_cm1[i] > 0):
+                continue  # (the logarithm below needs a positive width and position)
             J = assigned.J_lower
             hoenl_london = J + 1 if assigned.branch == "R" else J
             if hoenl_london <= 0:

@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import hashlib
 from dataclasses import replace
+
+import numpy as np
 from pathlib import Path
 from types import ModuleType
 
@@ -81,9 +83,36 @@ def parse_bytes(data: bytes, source: str = "<data>") -> Spectrum | LineList:
     path into the metadata."""
     text = as_utf8(data, source)
     reader = choose_reader(text, source)
-    result = reader.parse(text, source)
+    result = _positive_wavenumbers(reader.parse(text, source), source)
     meta = replace(result.meta, source_path=source, sha256=hashlib.sha256(data).hexdigest())
     return result.with_meta(meta)
+
+
+def _positive_wavenumbers(data: Spectrum | LineList, source: str) -> Spectrum | LineList:
+    """Only the part at positive wavenumbers: zero and below are not infrared light (and the
+    analysis takes logarithms of positions). Dropped points are noted; nothing left is an error."""
+    x = data.wavenumber_cm1 if isinstance(data, Spectrum) else data.position_cm1
+    if x[0] > 0:
+        return data
+    keep = x > 0
+    kept = int(np.count_nonzero(keep))
+    needed = 2 if isinstance(data, Spectrum) else 1
+    if kept < needed:
+        raise SpectrumFileError(
+            source, f"no usable wavenumbers: the x axis runs from {x[0]:.6g} to {x[-1]:.6g} cm-1 (must be above 0)"
+        )
+    note = f"{x.size - kept} points at or below 0 cm-1 left out (not a physical wavenumber)"
+    if isinstance(data, Spectrum):
+        return replace(
+            data,
+            wavenumber_cm1=data.wavenumber_cm1[keep],
+            absorbance=data.absorbance[keep],
+            saturated=data.saturated[keep],
+            meta=data.meta.with_notes(note),
+        )
+    return replace(
+        data, position_cm1=data.position_cm1[keep], intensity=data.intensity[keep], meta=data.meta.with_notes(note)
+    )
 
 
 def read_any(
