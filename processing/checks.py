@@ -58,18 +58,37 @@ class CheckThresholds:
     fringe_amplitude_warn: float = 0.003  # absorbance
 
     @classmethod
-    def from_mapping(cls, values: dict[str, Any] | None) -> CheckThresholds:
-        """Defaults overridden by a mapping (the [checks] table); unknown names are left for
-        other consumers, bad values raise ConfigError naming the key."""
-        known = {f.name for f in fields(cls)}
+    def from_mapping(cls, values: dict[str, Any] | None, source: str | None = None) -> CheckThresholds:
+        """Defaults overridden by a mapping (the [checks] table). Only these thresholds may be
+        set there; an unknown name, a value that is not a finite number >= 0, or a pass limit
+        on the wrong side of its warn limit raises ConfigError naming the key."""
+        known = [f.name for f in fields(cls)]
         chosen: dict[str, float] = {}
         for key, value in (values or {}).items():
             if key not in known:
-                continue
+                raise ConfigError(source, f"checks.{key}", f"not a check threshold (known: {', '.join(known)})")
             if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-                raise ConfigError(None, f"checks.{key}", f"must be a number, got {value!r}")
+                raise ConfigError(source, f"checks.{key}", f"must be a finite number, got {value!r}")
+            if value < 0:
+                raise ConfigError(source, f"checks.{key}", f"must not be negative, got {value!r}")
             chosen[key] = float(value)
-        return cls(**chosen)
+        thresholds = cls(**chosen)
+        for better, worse, higher_is_better in _THRESHOLD_PAIRS:
+            good, fair = getattr(thresholds, better), getattr(thresholds, worse)
+            if (good < fair) if higher_is_better else (good > fair):
+                side = "at least" if higher_is_better else "at most"
+                raise ConfigError(source, f"checks.{better}", f"must be {side} checks.{worse} ({fair:g}), got {good:g}")
+        return thresholds
+
+
+# (pass limit, warn limit, higher is better): a pass must be at least as strict as its warn
+_THRESHOLD_PAIRS = (
+    ("snr_pass", "snr_warn", True),
+    ("band_lines_pass", "band_lines_warn", True),
+    ("rms_width_pass", "rms_width_warn", False),
+    ("calibration_pass_cm1", "calibration_warn_cm1", False),
+    ("temperature_min_K", "temperature_max_K", False),
+)
 
 
 @dataclass(frozen=True)

@@ -80,7 +80,8 @@ def test_thresholds_come_from_the_settings() -> None:
 def test_bad_threshold_value_names_the_key() -> None:
     with pytest.raises(ConfigError, match="checks.snr_pass"):
         CheckThresholds.from_mapping({"snr_pass": "high"})
-    assert CheckThresholds.from_mapping({"unrelated_key": 3}).snr_pass == 30.0
+    with pytest.raises(ConfigError, match="checks.unrelated_key: not a check threshold"):
+        CheckThresholds.from_mapping({"unrelated_key": 3})
 
 
 def test_verdict_is_the_worst_check() -> None:

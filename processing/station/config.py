@@ -5,6 +5,7 @@ override the file (`StationConfig.with_overrides`). `TEMPLATE` is what `bandwatc
 """
 from __future__ import annotations
 
+import math
 import os
 import tomllib
 from dataclasses import dataclass, field, fields, replace
@@ -128,23 +129,30 @@ def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) ->
         if isinstance(value, bool) or not isinstance(value, int):
             raise ConfigError(source, key, "must be a whole number")
         return value
-    if key in ("settle_seconds", "max_wait_seconds", "rescan_seconds", "timeout_seconds"):
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise ConfigError(source, key, "must be a number of seconds")
+    if key in _SECONDS_KEYS:
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+            raise ConfigError(source, key, f"must be a finite number of seconds, got {value!r}")
         return float(value)
     if key == "checks":
         if not isinstance(value, dict):
             raise ConfigError(source, key, "must be a table of check thresholds")
-        for name, threshold in value.items():
-            if isinstance(threshold, bool) or not isinstance(threshold, (int, float, str, dict)):
-                raise ConfigError(source, f"checks.{name}", "must be a number, a string or a table")
+        from processing.checks import CheckThresholds
+
+        CheckThresholds.from_mapping(value, source)  # refuses anything but valid thresholds
         return dict(value)
     raise ConfigError(source, key, "unknown key")
+
+
+_SECONDS_KEYS = ("settle_seconds", "max_wait_seconds", "rescan_seconds", "timeout_seconds")
 
 
 def validate(config: StationConfig) -> StationConfig:
     """Range checks shared by the file and the command line."""
     source = config.source
+    for key in _SECONDS_KEYS:
+        value = getattr(config, key)
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+            raise ConfigError(source, key, f"must be a finite number of seconds, got {value!r}")
     if config.settle_seconds < 0 or config.settle_seconds > 3600:
         raise ConfigError(source, "settle_seconds", "must be between 0 and 3600 s")
     if config.max_wait_seconds < config.settle_seconds:
@@ -153,17 +161,22 @@ def validate(config: StationConfig) -> StationConfig:
         raise ConfigError(source, "rescan_seconds", "must be at least 0.1 s")
     if not 1 <= config.workers <= 64:
         raise ConfigError(source, "workers", "must be between 1 and 64")
-    if config.timeout_seconds <= 0:
-        raise ConfigError(source, "timeout_seconds", "must be more than 0 s")
+    if config.timeout_seconds <= 0 or config.timeout_seconds > 86400:
+        raise ConfigError(source, "timeout_seconds", "must be more than 0 s and at most a day")
     if config.memory_limit_mb != 0 and config.memory_limit_mb < 256:
         raise ConfigError(source, "memory_limit_mb", "must be at least 256 MB (0 = no limit)")
+    if config.checks:
+        from processing.checks import CheckThresholds
+
+        CheckThresholds.from_mapping(config.checks, source)
     if ":" not in config.process_function:
         raise ConfigError(source, "process_function", "must be 'module:function'")
     return config
 
 
 def check_folders(config: StationConfig) -> tuple[Path, Path]:
-    """The export and data folders, resolved; refuses a data folder inside the export folder."""
+    """The export and data folders, resolved; neither may contain the other (bandwatch never
+    writes into the export folder, and would read its own reports back as runs)."""
     if config.export_folder is None:
         raise ConfigError(config.source, "export_folder", "no export folder given (argument DIR or the key)")
     export = config.export_folder.expanduser().resolve()
@@ -177,20 +190,20 @@ def check_folders(config: StationConfig) -> tuple[Path, Path]:
             f"{data} is inside the export folder {export}; bandwatch never writes there, "
             "choose a data folder elsewhere",
         )
+    if data in export.parents:
+        raise ConfigError(
+            config.source,
+            "export_folder",
+            f"{export} is inside the data folder {data}; its reports would be read back as runs, "
+            "choose folders side by side",
+        )
     return export, data
 
 
 def settings_payload(config: StationConfig) -> dict[str, Any]:
-    """The analysis settings as plain data (sent to workers, stored with reprocessed runs).
-
-    The [checks] table goes through whole as "checks", and each of its keys also on its own,
-    so a threshold named like a `ProcessSettings` field (e.g. threshold_sigma) reaches it;
-    keys the analysis does not know are ignored by the worker.
-    """
-    payload: dict[str, Any] = {key: value for key, value in config.checks.items()}
-    payload["checks"] = dict(config.checks)
-    payload["species"] = list(config.species)
-    return payload
+    """The analysis settings as plain data (sent to workers): the species, and the [checks]
+    table as "checks" (check thresholds only; it sets nothing else)."""
+    return {"checks": dict(config.checks), "species": list(config.species)}
 
 
 TEMPLATE = """\
@@ -241,7 +254,9 @@ memory_limit_mb = 2048
 # Molecules or isotopologues expected in the spectra (empty = detect).
 species = []
 
-# Check thresholds, passed through to the analysis as they are.
+# Check thresholds (names and defaults in processing/checks.py, CheckThresholds), e.g.
+# calibration_pass_cm1 = 0.05. Only thresholds: finite numbers, a pass limit as strict as its
+# warn limit.
 [checks]
 """
 

@@ -102,11 +102,58 @@ def test_overrides_are_validated_and_checks_pass_through() -> None:
     assert (config.workers, config.settle_seconds) == (3, 0.5)
     with pytest.raises(ConfigError, match="workers"):
         StationConfig().with_overrides(workers=0)
-    tuned = config_from_table({"checks": {"threshold_sigma": 4.0, "max_rms_cm1": 0.01}, "species": ["HCl"]})
+    tuned = config_from_table({"checks": {"calibration_pass_cm1": 0.1, "snr_warn": 8}, "species": ["HCl"]})
     payload = settings_payload(tuned)
-    assert payload["checks"] == {"threshold_sigma": 4.0, "max_rms_cm1": 0.01}
-    assert payload["threshold_sigma"] == 4.0 and payload["species"] == ["HCl"]
+    assert payload == {"checks": {"calibration_pass_cm1": 0.1, "snr_warn": 8}, "species": ["HCl"]}
     from processing.station.pool import make_settings
 
-    settings = make_settings(payload)  # fields the analysis has are set, unknown keys ignored
-    assert settings.threshold_sigma == 4.0 and settings.species == ("HCl",)
+    settings = make_settings(payload)
+    assert settings.checks == {"calibration_pass_cm1": 0.1, "snr_warn": 8} and settings.species == ("HCl",)
+    assert settings.threshold_sigma == 5.0  # [checks] sets thresholds of checks, nothing else
+
+
+@pytest.mark.parametrize(
+    ("line", "key"),
+    [
+        ("settle_seconds = nan", "settle_seconds"),
+        ("timeout_seconds = inf", "timeout_seconds"),
+        ("max_wait_seconds = -inf", "max_wait_seconds"),
+        ("rescan_seconds = nan", "rescan_seconds"),
+        ("[checks]\nsnr_pass = nan", "checks.snr_pass"),
+        ("[checks]\ncalibration_warn_cm1 = inf", "checks.calibration_warn_cm1"),
+        ("[checks]\nsnr_warn = -3", "checks.snr_warn"),
+        ('[checks]\nsnr_pass = "high"', "checks.snr_pass"),
+        ("[checks]\nsnr_pass = 5", "checks.snr_pass"),  # below snr_warn (10): pass easier than warn
+        ("[checks]\ntemperature_min_K = 400", "checks.temperature_min_K"),  # above the maximum
+        # [checks] holds thresholds only: an analysis setting is refused, not passed on
+        ("[checks]\nthreshold_sigma = 1.0", "checks.threshold_sigma"),
+        ("[checks]\nmax_bytes = 1", "checks.max_bytes"),
+        ("[checks]\n[checks.nested]\nx = 1", "checks.nested"),
+    ],
+)
+def test_non_finite_values_and_anything_but_thresholds_in_checks_are_refused_at_start(
+    tmp_path: Path, line: str, key: str
+) -> None:
+    path = tmp_path / "station.toml"
+    path.write_text(line + "\n", encoding="utf-8")
+    with pytest.raises(ConfigError) as caught:
+        load_config(path)
+    assert caught.value.key == key and "\n" not in str(caught.value)
+
+
+def test_non_finite_times_from_the_command_line_are_refused() -> None:
+    with pytest.raises(ConfigError, match="settle_seconds"):
+        StationConfig().with_overrides(settle_seconds=float("nan"))
+    with pytest.raises(ConfigError, match="timeout_seconds"):
+        StationConfig().with_overrides(timeout_seconds=float("inf"))
+
+
+def test_an_export_folder_inside_the_data_folder_is_refused(tmp_path: Path) -> None:
+    """Reports written into the data folder would land in the export folder and come back as runs."""
+    data = tmp_path / "data"
+    (data / "reports").mkdir(parents=True)
+    with pytest.raises(ConfigError, match="inside the data folder") as caught:
+        check_folders(StationConfig(export_folder=data / "reports", data_folder=data))
+    assert caught.value.key == "export_folder"
+    with pytest.raises(ConfigError, match="inside the export folder"):  # the same folder
+        check_folders(StationConfig(export_folder=data, data_folder=data))
