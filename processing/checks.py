@@ -128,6 +128,8 @@ def check_signal_to_noise(analysis: Any, t: CheckThresholds) -> Check:
     if noise is not None and not noise.measurable:
         tallest = float(np.max(lines.height)) if lines.count else 0.0
         return Check("signal_to_noise", NOT_ASSESSED, f"not assessed, {noise.description}; tallest line {tallest:.3g} A", None)
+    if not (math.isfinite(sigma) and sigma > 0):  # a noiseless (rounded or synthetic) export
+        return Check("signal_to_noise", NOT_ASSESSED, f"no noise measured (noise sigma {sigma:.2g} A): no ratio to give", None)
     if lines.count == 0:
         return Check("signal_to_noise", "fail", f"no absorption line above 5x the noise (noise sigma {sigma:.2g} A)", 0.0)
     assigned = np.array([a is not None for a in analysis.assignment.per_line])

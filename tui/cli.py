@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import sqlite3
 import sys
 
 # subcommand -> module under tui.commands
@@ -40,24 +41,32 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     from processing.errors import BandwatchError
 
-    if getattr(args, "_run", None) is None:
-        # No command: open the interface on the configured export folder, else show help.
-        try:
-            args = _configured_watch(parser)
-        except BandwatchError as error:
-            print(f"bandwatch: {error}", file=sys.stderr)
-            return 1
-        if args is None:
-            parser.print_help()
-            return 0
-
     try:
+        if getattr(args, "_run", None) is None:
+            # No command: open the interface on the configured export folder, else show help.
+            args = _configured_watch(parser)
+            if args is None:
+                parser.print_help()
+                return 0
         return int(args._run(args) or 0)
     except BandwatchError as error:
-        print(f"bandwatch: {error}", file=sys.stderr)
-        return 1
+        return _one_line(str(error))
+    except sqlite3.Error as error:  # a ledger problem met outside the ledger's own checks
+        return _one_line(f"ledger: {error} (see `bandwatch ledger list` and the data folder)")
+    except OSError as error:  # e.g. a data folder on a full or read-only disk
+        where = f"{error.filename}: " if error.filename else ""
+        return _one_line(f"{where}{error.strerror or error}")
     except KeyboardInterrupt:
         return 130
+
+
+def _one_line(message: str) -> int:
+    """Print a problem as the one line `bandwatch: ...` (escaped: it may quote a file) and
+    return the exit status 1."""
+    from processing.safe_text import safe_text
+
+    print(f"bandwatch: {safe_text(message)}", file=sys.stderr)
+    return 1
 
 
 def _configured_watch(parser: argparse.ArgumentParser) -> argparse.Namespace | None:

@@ -5,6 +5,7 @@ from typing import Any
 
 from processing.estimate import format_value_sigma
 from processing.pipeline import RunResult
+from processing.safe_text import safe_text
 from tui.comparison_text import comparison_z, reference_value
 
 
@@ -230,10 +231,16 @@ def render_checks(result: RunResult) -> list[str]:
 
 
 def render_result(result: RunResult) -> str:
+    """The aligned tables of one run; every line made safe for a terminal (file names, titles
+    and notes come from the file)."""
+    return "\n".join(safe_text(line) for line in "\n".join(_result_lines(result)).split("\n"))
+
+
+def _result_lines(result: RunResult) -> list[str]:
     out = [f"== {result.file}"]
     if result.status != "processed" or result.spectrum is None:
         out.append(f"   {result.status}: {result.error}")
-        return "\n".join(out)
+        return out
     out += render_spectrum_summary(result)
     if result.spectrum.kind == "spectrum" or result.lines:
         out.append("")
@@ -248,4 +255,4 @@ def render_result(result: RunResult) -> str:
         out += render_checks(result)
     for note in result.extra.get("notes", []):
         out.append(f"   note: {note}")
-    return "\n".join(out)
+    return out

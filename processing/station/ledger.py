@@ -13,14 +13,20 @@ station killed mid-file leaves only a claim, which the next start redoes.
 from __future__ import annotations
 
 import json
+import os
 import sqlite3
+import stat
+import threading
 from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
+from urllib.parse import quote
 
+from processing import strict_json
 from processing.errors import BandwatchError
+from processing.safe_text import safe_text
 
 LEDGER_FILE = "ledger.sqlite3"
 RUN_STATUSES = ("processed", "unreadable", "failed")
@@ -141,19 +147,26 @@ class Claim:
     owner_pid: int | None
 
 
-def json_default(value: Any) -> Any:
-    """Numbers and arrays from numpy (or anything else) in a result become plain JSON."""
-    if hasattr(value, "tolist"):
-        return value.tolist()
-    if hasattr(value, "item"):
-        return value.item()
-    if isinstance(value, (set, frozenset, tuple)):
-        return list(value)
-    return str(value)
-
-
 def to_json(value: Any) -> str:
-    return json.dumps(value, default=json_default)
+    """Strict JSON (no NaN or Infinity: null, with the replaced places listed for a result)."""
+    if isinstance(value, dict) and "schema" in value:
+        return strict_json.dumps_result(value)
+    return strict_json.dumps(value)
+
+
+def stored_path(path: str) -> str | bytes:
+    """A path as the ledger stores it: text, or its exact bytes when the file name is not valid
+    UTF-8 (Python holds such names with surrogate escapes, which SQLite text cannot take)."""
+    try:
+        path.encode("utf-8")
+    except UnicodeEncodeError:
+        return os.fsencode(path)
+    return path
+
+
+def path_of(value: str | bytes) -> str:
+    """A stored path back as the file system's name (bytes through os.fsdecode)."""
+    return os.fsdecode(value) if isinstance(value, bytes) else value
 
 
 def now_iso() -> str:
@@ -165,20 +178,150 @@ def ledger_path(data_dir: str | Path) -> Path:
     return Path(data_dir) / LEDGER_FILE
 
 
-def open_ledger(data_dir: str | Path) -> sqlite3.Connection:
-    """Open (creating and migrating as needed) the ledger in `data_dir`; one per thread."""
+RESTORE_ADVICE = (
+    "bandwatch will not replace it: move it aside and restore a backup, or start a new ledger by "
+    "moving it away (runs recorded in it are then no longer listed)"
+)
+
+
+def open_ledger(data_dir: str | Path, *, read_only: bool = False) -> sqlite3.Connection:
+    """Open the ledger in `data_dir` (one connection per thread), creating and migrating it as
+    needed; `read_only` opens an existing ledger for reading only (a read-only folder is fine).
+
+    Every problem is one `LedgerError` line with what to do: a missing folder or ledger, one
+    that is empty, damaged, not a database, locked, on a full or read-only disk. An existing
+    ledger is never replaced, and the file is only ever opened by SQLite.
+    """
     folder = Path(data_dir)
-    folder.mkdir(parents=True, exist_ok=True)
-    conn = sqlite3.connect(ledger_path(folder), timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None)
-    conn.row_factory = sqlite3.Row
-    conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
-    mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
-    if str(mode).lower() != "wal":
-        raise LedgerError(f"{ledger_path(folder)}: cannot switch to WAL journal mode (got {mode})")
-    conn.execute("PRAGMA synchronous = NORMAL")
-    conn.execute("PRAGMA foreign_keys = ON")
-    migrate(conn)
+    path = ledger_path(folder)
+    try:
+        found = os.stat(path)  # by name: opens nothing
+    except FileNotFoundError:
+        found = None
+    except OSError as error:
+        raise LedgerError(f"{path}: cannot be reached ({error.strerror or error})") from None
+    if found is None:
+        if read_only:
+            raise LedgerError(f"{folder}: no ledger here yet (run `bandwatch watch` first, or give --data)")
+        _create(folder, path)
+    elif stat.S_ISDIR(found.st_mode):
+        raise LedgerError(f"{path} is a folder, not a ledger; move it away")
+    elif not stat.S_ISREG(found.st_mode):
+        raise LedgerError(f"{path} is not a regular file; move it away")
+    elif found.st_size == 0:
+        raise LedgerError(
+            f"{path} is empty (0 bytes): its history is gone; {RESTORE_ADVICE}"
+        )
+    try:
+        return _connect(path, read_only)
+    except sqlite3.Error as error:
+        raise ledger_problem(path, error) from None
+
+
+def ledger_problem(path: Path | str, error: BaseException) -> LedgerError:
+    """A SQLite error on the ledger as one line saying what is wrong and what to do."""
+    text = str(error)
+    lowered = text.lower()
+    if "not a database" in lowered or "malformed" in lowered or "corrupt" in lowered:
+        return LedgerError(f"{path} is damaged (SQLite: {text}); {RESTORE_ADVICE}")
+    if "locked" in lowered or "busy" in lowered:
+        return LedgerError(f"{path} is locked by another program for over {BUSY_TIMEOUT_MS / 1000:g} s ({text})")
+    if "full" in lowered:
+        return LedgerError(f"{path}: the disk is full ({text}); free some space")
+    if "readonly" in lowered or "read-only" in lowered or "unable to open" in lowered:
+        return LedgerError(f"{path}: cannot be written or opened ({text}); check the data folder's permissions and free space")
+    return LedgerError(f"{path}: {text}")
+
+
+def _connect(path: Path, read_only: bool) -> sqlite3.Connection:
+    if read_only:
+        conn = _connect_read_only(path)
+    else:
+        conn = sqlite3.connect(path, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None)
+    try:
+        conn.row_factory = sqlite3.Row
+        conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        if not read_only:
+            mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            if str(mode).lower() != "wal":
+                raise LedgerError(f"{path}: cannot switch to WAL journal mode (got {mode})")
+            conn.execute("PRAGMA synchronous = NORMAL")
+            conn.execute("PRAGMA foreign_keys = ON")
+            migrate(conn)
+        else:
+            found = schema_version(conn)
+            if found != SCHEMA_VERSION:
+                newer = "newer than this bandwatch understands; upgrade bandwatch" if found > SCHEMA_VERSION else (
+                    "older; open it once with write access (e.g. `bandwatch watch`) to bring it up to date")
+                raise LedgerError(f"{path}: ledger schema version {found} is {newer}")
+    except BaseException:
+        conn.close()
+        raise
     return conn
+
+
+def _connect_read_only(path: Path) -> sqlite3.Connection:
+    """Read-only: through the WAL when SQLite can reach it; in a read-only folder without a WAL
+    (closed cleanly) as an immutable file, which needs no shared-memory file."""
+    uri = f"file:{quote(os.fsencode(str(path.resolve())))}"
+    conn = sqlite3.connect(f"{uri}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None)
+    try:
+        conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+        return conn
+    except sqlite3.OperationalError as error:
+        conn.close()
+        wal = path.with_name(path.name + "-wal")
+        if os.access(path.parent, os.W_OK) or wal.exists():
+            raise ledger_problem(path, error) from None
+    return sqlite3.connect(f"{uri}?mode=ro&immutable=1", uri=True, isolation_level=None)
+
+
+def _create(folder: Path, path: Path) -> None:
+    """A new ledger, made whole under a temporary name and then linked into place, so a
+    ledger file never exists half made (an empty ledger file is refused, never reused)."""
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        raise LedgerError(f"{folder}: cannot make the data folder ({error.strerror or error})") from None
+    temporary = folder / f".{LEDGER_FILE}.{os.getpid()}.{threading.get_ident()}.new"
+    try:
+        conn = sqlite3.connect(temporary, isolation_level=None)
+        try:
+            conn.execute("PRAGMA journal_mode = WAL")
+            migrate(conn)
+        finally:
+            conn.close()
+        try:
+            os.link(temporary, path)
+        except FileExistsError:
+            pass  # another thread or process made it first: theirs is used
+        except OSError:
+            if not path.exists():  # a file system without hard links
+                os.rename(temporary, path)
+    except sqlite3.Error as error:
+        raise ledger_problem(path, error) from None
+    except OSError as error:
+        raise LedgerError(f"{path}: cannot be created ({error.strerror or error})") from None
+    finally:
+        for leftover in (temporary, temporary.with_name(temporary.name + "-wal"), temporary.with_name(temporary.name + "-shm")):
+            try:
+                os.unlink(leftover)
+            except FileNotFoundError:
+                pass
+            except OSError:
+                pass  # a read-only folder would have failed above
+
+
+def integrity_problem(conn: sqlite3.Connection, path: Path | str) -> str | None:
+    """None when SQLite's quick check finds the ledger sound, else a one-line description."""
+    try:
+        rows = conn.execute("PRAGMA quick_check(5)").fetchall()
+    except sqlite3.Error as error:
+        return str(ledger_problem(path, error))
+    found = [str(row[0]) for row in rows]
+    if found == ["ok"]:
+        return None
+    return f"{path} is damaged (SQLite quick_check: {'; '.join(found)[:300]}); {RESTORE_ADVICE}"
 
 
 def schema_version(conn: sqlite3.Connection) -> int:
@@ -254,7 +397,7 @@ def species_in_result(result: dict[str, Any] | None) -> tuple[str, ...]:
 
 
 def next_version(conn: sqlite3.Connection, path: str) -> int:
-    row = conn.execute("SELECT MAX(version) FROM runs WHERE path = ?", (path,)).fetchone()
+    row = conn.execute("SELECT MAX(version) FROM runs WHERE path = ?", (stored_path(path),)).fetchone()
     return int(row[0] or 0) + 1
 
 
@@ -287,6 +430,8 @@ def record_run(
         verdict = result.get("verdict")
     if species is None:
         species = species_in_result(result)
+    if error is not None:
+        error = safe_text(error)  # file names and header values are echoed in messages
     stamp = now_iso()
     with _Transaction(conn):
         version = next_version(conn, path)
@@ -295,7 +440,7 @@ def record_run(
             " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns)"
             " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (
-                path,
+                stored_path(path),
                 sha256,
                 version,
                 status,
@@ -397,7 +542,7 @@ def _event(row: sqlite3.Row) -> DecisionEvent:
 def _record(row: sqlite3.Row, decision: DecisionEvent | None, with_result: bool = True) -> RunRecord:
     return RunRecord(
         run_id=row["run_id"],
-        path=row["path"],
+        path=path_of(row["path"]),
         sha256=row["sha256"],
         version=row["version"],
         status=row["status"],
@@ -448,7 +593,7 @@ def get_run(conn: sqlite3.Connection, run_id: int) -> RunRecord | None:
 
 def latest_run_for_path(conn: sqlite3.Connection, path: str) -> RunRecord | None:
     row = conn.execute(
-        f"SELECT {_RUN_COLUMNS} FROM runs WHERE path = ? ORDER BY version DESC LIMIT 1", (path,)
+        f"SELECT {_RUN_COLUMNS} FROM runs WHERE path = ? ORDER BY version DESC LIMIT 1", (stored_path(path),)
     ).fetchone()
     if row is None:
         return None
@@ -462,7 +607,7 @@ def latest_stat_by_path(conn: sqlite3.Connection) -> dict[str, tuple[int, int]]:
         " (SELECT MAX(version) FROM runs WHERE path = r.path)"
         " AND size_bytes IS NOT NULL AND mtime_ns IS NOT NULL"
     ).fetchall()
-    return {row["path"]: (int(row["size_bytes"]), int(row["mtime_ns"])) for row in rows}
+    return {path_of(row["path"]): (int(row["size_bytes"]), int(row["mtime_ns"])) for row in rows}
 
 
 def latest_sha_by_path(conn: sqlite3.Connection) -> dict[str, str | None]:
@@ -471,7 +616,7 @@ def latest_sha_by_path(conn: sqlite3.Connection) -> dict[str, str | None]:
         "SELECT path, sha256 FROM runs AS r WHERE version ="
         " (SELECT MAX(version) FROM runs WHERE path = r.path)"
     ).fetchall()
-    return {row["path"]: row["sha256"] for row in rows}
+    return {path_of(row["path"]): row["sha256"] for row in rows}
 
 
 # ---------------------------------------------------------------- claims
@@ -483,14 +628,14 @@ def claim_file(conn: sqlite3.Connection, path: str, sha256: str | None, owner_pi
     with _Transaction(conn):
         cursor = conn.execute(
             "INSERT INTO claims (path, sha256, received_at, owner_pid) VALUES (?, ?, ?, ?)",
-            (path, sha256, stamp, owner_pid),
+            (stored_path(path), sha256, stamp, owner_pid),
         )
     return Claim(int(cursor.lastrowid or 0), path, sha256, stamp, owner_pid)
 
 
 def list_claims(conn: sqlite3.Connection) -> list[Claim]:
     rows = conn.execute("SELECT * FROM claims ORDER BY claim_id").fetchall()
-    return [Claim(r["claim_id"], r["path"], r["sha256"], r["received_at"], r["owner_pid"]) for r in rows]
+    return [Claim(r["claim_id"], path_of(r["path"]), r["sha256"], r["received_at"], r["owner_pid"]) for r in rows]
 
 
 def drop_claim(conn: sqlite3.Connection, claim_id: int) -> None:

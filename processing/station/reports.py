@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import csv
 import io
-import json
 import math
 import os
 import re
@@ -18,7 +17,8 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from processing.station.ledger import json_default
+from processing import strict_json
+from processing.safe_text import safe_text
 
 LINE_COLUMNS = (
     "position_cm1",
@@ -168,7 +168,7 @@ def summary_markdown(result: dict[str, Any], run_id: int, version: int) -> str:
             status = check.get("status") or check.get("result") or check.get("verdict") or ""
             detail = check.get("message") or check.get("detail") or ""
             out.append(f"- {name}: {str(status).replace('_', ' ')} {detail}".rstrip())
-    return "\n".join(out) + "\n"
+    return "\n".join(safe_text(line) for line in out) + "\n"  # names and titles come from files
 
 
 def _write_atomic(path: Path, text: str) -> None:
@@ -187,7 +187,7 @@ def write_reports(data_dir: str | Path, run_id: int, version: int, result: dict[
     """Write the three report files for a run; returns their folder."""
     folder = report_folder(data_dir, run_id, str(result.get("file", "")))
     folder.mkdir(parents=True, exist_ok=True)
-    _write_atomic(folder / "result.json", json.dumps(result, default=json_default) + "\n")
+    _write_atomic(folder / "result.json", strict_json.dumps_result(result) + "\n")
     _write_atomic(folder / "lines.csv", lines_csv(result))
     _write_atomic(folder / "summary.md", summary_markdown(result, run_id, version))
     return folder

@@ -1,12 +1,14 @@
 """Decide when a file is finished being written: stable size and time stamp, complete content.
 
 A file is settled when its size and modification time have not changed for `settle_seconds`
-and it reads completely: a JCAMP-DX file must carry one ##END= per ##TITLE=, and a text file
-must end with a finished line (a newline), since an exporter may still be writing otherwise.
+and it reads completely: a JCAMP-DX file must carry one ##END= per ##TITLE=, and a text
+file's last line must not look cut off (no newline at the end and either a size that is a
+multiple of 512, where buffered writers flush mid-line, or fewer fields than the line before).
 A JCAMP-DX file still incomplete after `max_wait_seconds` is given up as incomplete; a text
-file whose last line never gets its newline is taken then as it is (some writers never end
-the last line). The limit: a writer that pauses longer than `settle_seconds` exactly at the end
-of a line is indistinguishable from a finished file; give such writers a longer settle time.
+file whose last line still looks cut off then is taken as it is. The limit: a writer that
+pauses longer than `settle_seconds` just after a whole line is indistinguishable from a
+finished file (each pause gives a new version of the run); give such writers a longer
+settle time.
 A file deleted before it settles is reported as vanished and forgotten. Only regular files
 inside the export folder are read (`regular_files`); anything else is refused with a reason.
 """
@@ -23,6 +25,8 @@ from processing.errors import SpectrumFileError
 from processing.regular_files import ReadPolicy, check_place, read_regular
 
 _JCAMP_TITLE = re.compile(rb"^[ \t]*##[ \t]*TITLE[ \t]*=", re.IGNORECASE | re.MULTILINE)
+_FIELD_SPLIT = re.compile(rb"[,;\t ]+")
+WRITE_BLOCK = 512  # writers flush their buffers in multiples of this
 _JCAMP_END = re.compile(rb"^[ \t]*##[ \t]*END[ \t]*=", re.IGNORECASE | re.MULTILINE)
 
 
@@ -69,8 +73,8 @@ def incomplete_reason(data: bytes) -> str | None:
     """Why the content looks still being written, or None when it looks complete."""
     head = data.lstrip(b"\xef\xbb\xbf \t\r\n")[:2]
     if head != b"##":
-        if data and not data.endswith((b"\n", b"\r", b"\n\x00", b"\r\x00")):
-            return "last line not finished (no newline at the end; still being written?)"
+        if _last_line_unfinished(data):
+            return "last line looks cut off (still being written?)"
         return None
     titles = len(_JCAMP_TITLE.findall(data))
     ends = len(_JCAMP_END.findall(data))
@@ -79,6 +83,22 @@ def incomplete_reason(data: bytes) -> str | None:
     if ends < titles:
         return f"JCAMP-DX file has {titles} ##TITLE= blocks but only {ends} ##END= (still being written?)"
     return None
+
+
+def _last_line_unfinished(data: bytes) -> bool:
+    """True when a text file's last line looks cut off: no newline at the end and either
+    the size is a multiple of 512 (a writer flushing its buffer mid-line) or the last line has
+    fewer fields than the one before. A file simply not ending in a newline is complete."""
+    if not data or data.endswith((b"\n", b"\r", b"\n\x00", b"\r\x00")):
+        return False
+    if len(data) % WRITE_BLOCK == 0:
+        return True
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return False  # UTF-16: fields are not compared
+    lines = data[-4096:].splitlines()
+    if len(lines) < 3:
+        return False
+    return len(_FIELD_SPLIT.split(lines[-1].strip())) < len(_FIELD_SPLIT.split(lines[-2].strip()))
 
 
 def taken_when_waited_out(data: bytes) -> bool:

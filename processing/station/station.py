@@ -13,6 +13,7 @@ it, events go to `Station.events` (a queue) for the caller to drain.
 from __future__ import annotations
 
 import fcntl
+import functools
 import os
 import queue
 import sqlite3
@@ -44,10 +45,13 @@ from processing.station.events import (
 )
 from processing.station.pool import Job, JobOutcome, WorkerPool
 from processing.station.reports import write_reports
+from processing.station.retry import LEDGER_TROUBLE, Backoff, RetryQueue, describe
 from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile
-from processing.station.watcher import FileFilter, start_observer
+from processing.station.watcher import FileFilter, observer_alive, start_observer
 
 LOCK_FILE = "station.lock"
+FOLDER_CHECK_SECONDS = 1.0  # how often the loop checks that its data folder is still there
+CATCH_UP_KEY = "\0catch-up"  # the retry key of the catch-up scan (no file path starts with NUL)
 
 
 @dataclass(frozen=True)
@@ -102,16 +106,41 @@ class Station:
         self._idle_ticks = 0
         self._ticks = 0
         self._started = False
+        self._retries = RetryQueue()  # loop-thread ledger work waiting for another try
+        self._recorder_trouble_since: float | None = None  # the recorder is retrying since
+        self._not_recorded: list[str] = []  # given up at stop: redone at the next start
+        self._folder_identity: tuple[int, int] | None = None
+        self._next_folder_check = 0.0
+        self.halted: str | None = None  # why the station stopped itself (its data folder went)
 
     # ---------------------------------------------------------------- lifecycle
 
     def start(self) -> None:
-        """Take the data folder, redo runs left in progress, start workers, watch, catch up."""
+        """Take the data folder, check the ledger, redo runs left in progress, start workers,
+        watch, catch up. A data folder or ledger that cannot be used raises one clear error."""
         self._take_lock()
+        try:
+            self._open_checked_ledger()
+            self._start_threads()
+        except BaseException:
+            self._stop_threads()
+            self._release_lock()
+            raise
+
+    def _open_checked_ledger(self) -> None:
+        """Open the ledger, refuse a damaged one, and drop claims left by a stopped station."""
         conn = self._conn()
-        for claim in ledger.list_claims(conn):
-            ledger.drop_claim(conn, claim.claim_id)  # not in `runs`, so the catch-up redoes it
-            self._emit(ClaimResumed(claim.path))
+        problem = ledger.integrity_problem(conn, ledger.ledger_path(self.data_dir))
+        if problem is not None:
+            raise ledger.LedgerError(problem)
+        try:
+            for claim in ledger.list_claims(conn):
+                ledger.drop_claim(conn, claim.claim_id)  # not in `runs`, so the catch-up redoes it
+                self._emit(ClaimResumed(claim.path))
+        except sqlite3.Error as error:
+            raise ledger.ledger_problem(ledger.ledger_path(self.data_dir), error) from None
+
+    def _start_threads(self) -> None:
         self.pool = WorkerPool(
             self._on_outcome,
             workers=self.config.workers,
@@ -124,7 +153,8 @@ class Station:
         self._recorder.start()
         self.pool.start()
         self._observer, self.observer_kind = start_observer(
-            self.export_dir, self.config.recursive, self.config.poll, self._notify
+            self.export_dir, self.config.recursive, self.config.poll, self._notify,
+            on_problem=lambda message: self._emit(StationProblem(message)),
         )
         self._emit(StationStarted(str(self.export_dir), str(self.data_dir), self.observer_kind, self.config.workers))
         self._loop = threading.Thread(target=self._run_loop, name="bandwatch-station", daemon=True)
@@ -132,10 +162,31 @@ class Station:
         self._loop.start()
 
     def stop(self) -> None:
-        """Stop watching and the workers; files in progress are redone at the next start."""
+        """Stop watching and the workers; files in progress, or whose record is still being
+        retried, are named in a problem event and redone at the next start."""
         if not self._started:
             return
         self._started = False
+        self._stop_threads()
+        with self._lock:
+            for info in self._inflight.values():
+                if info.done is not None:
+                    info.done.set()  # a redo still waiting gets None
+                elif info.path not in self._not_recorded:
+                    self._not_recorded.append(info.path)
+        for path in self._retries.keys():
+            if path not in self._not_recorded and not path.startswith("\0"):
+                self._not_recorded.append(path)
+        if self._not_recorded:
+            names = ", ".join(Path(path).name for path in self._not_recorded[:5])
+            more = f" and {len(self._not_recorded) - 5} more" if len(self._not_recorded) > 5 else ""
+            self._emit(StationProblem(
+                f"{len(self._not_recorded)} file(s) not recorded ({names}{more}); they are taken again at the next start"
+            ))
+        self._emit(StationStopped())
+        self._release_lock()
+
+    def _stop_threads(self) -> None:
         self._stopping.set()
         self._wakeup.set()
         if self._observer is not None:
@@ -148,15 +199,26 @@ class Station:
         if self._recorder is not None:
             self._outcomes.put(None)  # after the outcomes already handed over
             self._recorder.join(timeout=30)
-        with self._lock:
-            for info in self._inflight.values():
-                if info.done is not None:
-                    info.done.set()  # a redo still waiting gets None
-        self._emit(StationStopped())
+
+    def _release_lock(self) -> None:
         if self._lock_handle is not None:
-            fcntl.flock(self._lock_handle, fcntl.LOCK_UN)
-            self._lock_handle.close()
+            try:
+                fcntl.flock(self._lock_handle, fcntl.LOCK_UN)
+                self._lock_handle.close()
+            except OSError:
+                pass  # the folder is gone; the lock goes with the descriptor
             self._lock_handle = None
+
+    @property
+    def not_recorded(self) -> tuple[str, ...]:
+        """Files the station could not record before it stopped (redone at the next start)."""
+        return tuple(self._not_recorded)
+
+    @property
+    def trouble_seconds(self) -> float:
+        """How long ledger work has been failing and waiting for another try (0 when none)."""
+        since = [t for t in (self._retries.oldest_failure, self._recorder_trouble_since) if t is not None]
+        return time.monotonic() - min(since) if since else 0.0
 
     def reprocess(self, run_id: int, requested: dict[str, Any], timeout: float | None = None) -> int | None:
         """Redo a run's file in the pool with changed settings; the new version's run id.
@@ -212,8 +274,15 @@ class Station:
     # ---------------------------------------------------------------- plumbing
 
     def _take_lock(self) -> None:
-        self.data_dir.mkdir(parents=True, exist_ok=True)
-        handle = open(self.data_dir / LOCK_FILE, "a+", encoding="utf-8")
+        """The data folder's lock file, held for the station's life (one station per folder)."""
+        try:
+            self.data_dir.mkdir(parents=True, exist_ok=True)
+            handle = open(self.data_dir / LOCK_FILE, "a+", encoding="utf-8")
+        except OSError as error:
+            raise ConfigError(
+                self.config.source, "data_folder",
+                f"{self.data_dir} cannot be written ({error.strerror or error}); the station keeps its ledger there",
+            ) from None
         try:
             fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
@@ -221,11 +290,67 @@ class Station:
             raise ConfigError(
                 self.config.source, "data_folder", f"another station is already running with {self.data_dir}"
             ) from None
-        handle.seek(0)
-        handle.truncate()
-        handle.write(f"{os.getpid()}\n")
-        handle.flush()
+        try:
+            handle.seek(0)
+            handle.truncate()
+            handle.write(f"{os.getpid()}\n")
+            handle.flush()
+            found = os.fstat(handle.fileno())
+        except OSError as error:
+            handle.close()
+            raise ConfigError(
+                self.config.source, "data_folder",
+                f"{self.data_dir} cannot be written ({error.strerror or error}); the station keeps its ledger there",
+            ) from None
         self._lock_handle = handle
+        self._folder_identity = (found.st_dev, found.st_ino)
+
+    def _data_folder_gone(self) -> bool:
+        """True when the lock file this station holds is no longer in the data folder (the
+        folder was deleted or replaced): writing on would go into deleted files."""
+        if self._folder_identity is None:
+            return False
+        try:
+            found = os.stat(self.data_dir / LOCK_FILE)
+        except FileNotFoundError:
+            return True
+        except OSError:
+            return False  # cannot tell now (e.g. a network hiccup); checked again soon
+        return (found.st_dev, found.st_ino) != self._folder_identity
+
+    def _halt(self, reason: str) -> None:
+        """Stop doing anything: the data folder is gone (see _data_folder_gone)."""
+        if self.halted is None:
+            self.halted = reason
+            self._emit(StationProblem(reason))
+        self._stopping.set()
+        self._wakeup.set()
+
+    def _check_data_folder(self) -> bool:
+        """False (and the station halts) when the data folder went away under the station."""
+        if self._data_folder_gone():
+            self._halt(
+                f"the data folder {self.data_dir} was deleted or replaced while the station ran; "
+                "stopping so that nothing is recorded into deleted files (start the station again)"
+            )
+            return False
+        return True
+
+    def _check_observer(self) -> None:
+        """A dead observer (a thread killed by a folder tree too deep to watch) is replaced by
+        one watching the top folder only; the rescan finds the files below."""
+        if self._observer is None or observer_alive(self._observer):
+            return
+        self._emit(StationProblem(
+            f"file events stopped (a folder tree too deep to watch?); watching the top folder only, "
+            f"files below are found by the rescan every {self.config.rescan_seconds:g} s"
+        ))
+        self._observer.stop()
+        self._observer.join(timeout=2)
+        self._observer, self.observer_kind = start_observer(
+            self.export_dir, False, self.config.poll, self._notify,
+        )
+        self.observer_kind += ", top folder only"
 
     def _conn(self) -> sqlite3.Connection:
         conn = getattr(self._local, "conn", None)
@@ -233,6 +358,25 @@ class Station:
             conn = ledger.open_ledger(self.data_dir)
             self._local.conn = conn
         return conn
+
+    def _drop_conn(self) -> None:
+        """Forget this thread's connection after a failure (the next use opens a fresh one)."""
+        conn = getattr(self._local, "conn", None)
+        self._local.conn = None
+        if conn is not None:
+            try:
+                conn.close()
+            except sqlite3.Error:
+                pass
+
+    def _ledger_failed(self, what: str, error: BaseException, backoff: Backoff) -> None:
+        """A ledger action failed for a passing reason: say so now and then, try again later."""
+        self._drop_conn()
+        if backoff.worth_saying:
+            self._emit(StationProblem(
+                f"could not {what}: {describe(error, str(ledger.ledger_path(self.data_dir)))}; "
+                f"trying again in {backoff.delay:g} s (attempt {backoff.failures})"
+            ))
 
     def _emit(self, event: StationEvent) -> None:
         try:
@@ -249,7 +393,7 @@ class Station:
 
     def _run_loop(self) -> None:
         try:
-            self._catch_up()
+            self._retries.attempt(CATCH_UP_KEY, "read the ledger for the catch-up scan", self._catch_up, self._ledger_failed)
         except Exception as error:  # reported; watching still goes on
             self._emit(StationProblem(f"catch-up scan failed: {type(error).__name__}: {error}"))
         next_rescan = time.monotonic() + self.config.rescan_seconds
@@ -257,17 +401,23 @@ class Station:
             self._wakeup.wait(self.tick_seconds)
             self._wakeup.clear()
             try:
+                if time.monotonic() >= self._next_folder_check:
+                    self._next_folder_check = time.monotonic() + FOLDER_CHECK_SECONDS
+                    if not self._check_data_folder():
+                        return
+                    self._check_observer()
                 busy = self._drain_touched()
                 if time.monotonic() >= next_rescan:
                     for path, stat in self.filter.scan():
                         self._touch(path, stat)
                     next_rescan = time.monotonic() + self.config.rescan_seconds
+                self._retries.run_due(self._ledger_failed)
                 self._settle()
             except Exception as error:  # one bad tick must not stop the station
                 self._emit(StationProblem(f"station loop: {type(error).__name__}: {error}"))
                 busy = True
             with self._lock:
-                quiet = not busy and not self.settler.pending and not self._inflight
+                quiet = not busy and not self.settler.pending and not self._inflight and not self._retries
             self._idle_ticks = self._idle_ticks + 1 if quiet else 0
             self._ticks += 1
 
@@ -314,28 +464,39 @@ class Station:
     def _settle(self) -> None:
         with self._lock:
             held = set(self._inflight_paths)
-        outcomes = self.settler.tick(hold=held.__contains__)
+        outcomes = self.settler.tick(hold=lambda path: path in held or path in self._retries)
         settled: list[SettledFile] = []
         for outcome in outcomes:
             if isinstance(outcome, VanishedFile):
                 self._emit(FileVanished(outcome.path))
-            elif isinstance(outcome, IncompleteFile):
-                record = ledger.record_run(
-                    self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}"
+            elif isinstance(outcome, (IncompleteFile, RefusedFile)):
+                self._retries.attempt(
+                    outcome.path, f"record {Path(outcome.path).name}",
+                    functools.partial(self._record_unread, outcome), self._ledger_failed,
                 )
-                self._emit(RunProcessed(record.run_id, record.version, record.path, record.status, None, (), record.error))
-            elif isinstance(outcome, RefusedFile):
-                record = ledger.record_run(
-                    self._conn(), outcome.path, None, "unreadable", error=outcome.reason,
-                    size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
-                )
-                self._emit(RunProcessed(record.run_id, record.version, record.path, record.status, None, (), record.error))
             else:
                 settled.append(outcome)
         for item in sorted(settled, key=lambda s: s.mtime_ns):  # oldest first
-            self._dispatch(item)
+            self._retries.attempt(
+                item.path, f"take {Path(item.path).name} on", functools.partial(self._dispatch, item), self._ledger_failed
+            )
+
+    def _record_unread(self, outcome: IncompleteFile | RefusedFile) -> None:
+        """Record a file the station itself refused or gave up on as unreadable."""
+        if isinstance(outcome, IncompleteFile):
+            record = ledger.record_run(
+                self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}"
+            )
+        else:
+            record = ledger.record_run(
+                self._conn(), outcome.path, None, "unreadable", error=outcome.reason,
+                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
+            )
+        self._emit(RunProcessed(record.run_id, record.version, record.path, record.status, None, (), record.error))
 
     def _dispatch(self, item: SettledFile) -> None:
+        if self._data_folder_gone():
+            raise ledger.LedgerError("the data folder is gone")  # retried; the loop halts the station
         conn = self._conn()
         latest = ledger.latest_run_for_path(conn, item.path)
         if latest is not None and item.sha256 is not None and latest.sha256 == item.sha256:
@@ -370,17 +531,42 @@ class Station:
                 self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}"))
 
     def _handle_outcome(self, outcome: JobOutcome) -> None:
+        """Record one outcome, trying again with backoff while the ledger is in trouble (locked,
+        disk full); gives up only when the station stops (the claim makes the next start redo it)."""
         with self._lock:
             info = self._inflight.get(outcome.job.job_id)
         if info is None:
             return
+        recorded = False
         try:
-            self._record_outcome(outcome, info)
+            recorded = self._until_recorded(outcome, info)
         finally:
             with self._lock:
                 self._inflight.pop(outcome.job.job_id, None)
                 self._inflight_paths.discard(info.path)
+                if not recorded and info.done is None and info.path not in self._not_recorded:
+                    self._not_recorded.append(info.path)
             self._wakeup.set()
+
+    def _until_recorded(self, outcome: JobOutcome, info: _InFlight) -> bool:
+        backoff = Backoff()
+        name = Path(info.path).name
+        while True:
+            if self._data_folder_gone():
+                self._check_data_folder()
+                return False
+            try:
+                self._record_outcome(outcome, info)
+            except LEDGER_TROUBLE as error:
+                if self._recorder_trouble_since is None:
+                    self._recorder_trouble_since = time.monotonic()
+                backoff.failed()
+                self._ledger_failed(f"record {name}", error, backoff)
+                if self._stopping.wait(backoff.delay):
+                    return False
+                continue
+            self._recorder_trouble_since = None
+            return True
 
     def _record_outcome(self, outcome: JobOutcome, info: _InFlight) -> None:
         if info.reprocess_of is not None:
@@ -413,14 +599,24 @@ class Station:
         self._report_and_announce(record, result)
 
     def _report_and_announce(self, record: Any, result: Any) -> None:
-        """Write a processed run's reports (a failure to write is a problem event, not a crash)
-        and announce the run."""
+        """Write a processed run's reports (retried while the disk is full, given up only when
+        the station stops: a problem event, never a crash) and announce the run."""
         folder = None
         if record.status == "processed":
-            try:
-                folder = str(write_reports(self.data_dir, record.run_id, record.version, result))
-            except OSError as error:
-                self._emit(StationProblem(f"report for run {record.run_id} not written: {error}"))
+            backoff = Backoff()
+            while folder is None:
+                try:
+                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result))
+                except OSError as error:
+                    backoff.failed()
+                    if backoff.worth_saying:
+                        self._emit(StationProblem(
+                            f"report for run {record.run_id} not written ({error.strerror or error}); "
+                            f"trying again in {backoff.delay:g} s"
+                        ))
+                    if self._stopping.wait(backoff.delay):
+                        self._emit(StationProblem(f"report for run {record.run_id} not written: the station stopped"))
+                        break
         self._emit(
             RunProcessed(
                 record.run_id, record.version, record.path, record.status,

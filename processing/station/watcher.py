@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import fnmatch
 import os
+import threading
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -118,8 +119,31 @@ class _Forwarder(FileSystemEventHandler):
             self.notify(os.fsdecode(dest))
 
 
-def start_observer(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None]) -> tuple[BaseObserver, str]:
-    """Start watching `root`; returns the observer and "native" or "polling"."""
+def start_observer(
+    root: Path,
+    recursive: bool,
+    poll: bool,
+    notify: Callable[[str], None],
+    on_problem: Callable[[str], None] | None = None,
+) -> tuple[BaseObserver, str]:
+    """Start watching `root`; returns the observer and "native", "polling", or, when the
+    subfolders are nested too deeply for watchdog (its walk recurses, a RecursionError past
+    ~1000 levels), the same watching the top folder only: the station's rescan, which is
+    iterative, still finds every file below."""
+    _quiet_watchdog_recursion()
+    try:
+        return _start(root, recursive, poll, notify)
+    except RecursionError:
+        if on_problem is not None:
+            on_problem(
+                f"{root}: subfolders nested too deeply for file events; only the top folder is watched "
+                "by events, files below are found by the periodic rescan"
+            )
+        observer, kind = _start(root, False, poll, notify)
+        return observer, f"{kind}, top folder only"
+
+
+def _start(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None]) -> tuple[BaseObserver, str]:
     use_polling = poll or needs_polling(root)
     observer: BaseObserver = PollingObserver(timeout=POLL_INTERVAL_SECONDS) if use_polling else Observer()
     observer.schedule(_Forwarder(notify), str(root), recursive=recursive)
@@ -134,3 +158,32 @@ def start_observer(root: Path, recursive: bool, poll: bool, notify: Callable[[st
         observer.start()
         use_polling = True
     return observer, "polling" if use_polling else "native"
+
+
+def observer_alive(observer: BaseObserver) -> bool:
+    """False when any thread of the observer died (e.g. a RecursionError while adding watches
+    for a deep folder tree moved in): its events stopped; the station then starts another."""
+    threads = [observer, *observer.emitters]
+    reader = getattr(observer, "_inotify_fd", None)  # the native observer's reading thread
+    if isinstance(reader, threading.Thread):
+        threads.append(reader)
+    return all(thread.is_alive() for thread in threads)
+
+
+_previous_hook = threading.excepthook
+
+
+def _watchdog_hook(args: threading.ExceptHookArgs) -> None:
+    """A watchdog thread dying of a RecursionError (a deep tree moved in) is not printed as a
+    traceback: the station notices the dead observer (`observer_alive`) and says so in one line."""
+    thread_module = type(args.thread).__module__ if args.thread is not None else ""
+    if args.exc_type is RecursionError and thread_module.startswith("watchdog."):
+        return
+    _previous_hook(args)
+
+
+def _quiet_watchdog_recursion() -> None:
+    global _previous_hook
+    if threading.excepthook is not _watchdog_hook:
+        _previous_hook = threading.excepthook
+        threading.excepthook = _watchdog_hook

@@ -23,6 +23,11 @@ def _names(data: Path) -> list[str]:
 class _DeafObserver:
     """An observer whose events never arrive (as on a share without notifications)."""
 
+    emitters = ()
+
+    def is_alive(self) -> bool:
+        return True
+
     def stop(self) -> None:
         pass
 
@@ -32,7 +37,7 @@ class _DeafObserver:
 
 def test_rescan_catches_files_whose_events_never_arrive(make_station, folders, monkeypatch) -> None:
     export, data = folders
-    monkeypatch.setattr(station_module, "start_observer", lambda *args: (_DeafObserver(), "native"))
+    monkeypatch.setattr(station_module, "start_observer", lambda *args, **kwargs: (_DeafObserver(), "native"))
     station, _ = make_station(rescan_seconds=0.3)
     station.start()
     assert station.wait_idle(10)

@@ -8,6 +8,8 @@ import json
 import sys
 from typing import Any
 
+from processing import strict_json
+from processing.safe_text import safe_text
 from tui.commands.watch import add_station_arguments
 
 HELP = "list, show, export runs in the ledger; accept, flag or undo a decision"
@@ -84,11 +86,10 @@ def run(args: argparse.Namespace) -> int:
 
     config = station_config(args.config, args.data)
     data_dir = config.data_folder.expanduser()
-    if args.action in ("list", "show", "export") and not (data_dir / ledger.LEDGER_FILE).exists():
-        print(f"bandwatch: {data_dir}: no ledger here yet (run `bandwatch watch` first, or give --data)",
-              file=sys.stderr)
-        return 1
-    conn = ledger.open_ledger(data_dir)
+    reading = args.action in ("list", "show", "export")
+    if not reading and not ledger.ledger_path(data_dir).exists():
+        raise ledger.LedgerError(f"{data_dir}: no ledger here yet (run `bandwatch watch` first, or give --data)")
+    conn = ledger.open_ledger(data_dir, read_only=reading)
     try:
         if args.action == "list":
             return _list(conn, args)
@@ -107,10 +108,10 @@ def _list(conn: Any, args: argparse.Namespace) -> int:
     runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False)
     if args.json:
         for record in runs:
-            sys.stdout.write(json.dumps(run_public(record)) + "\n")
+            sys.stdout.write(strict_json.dumps(run_public(record)) + "\n")
         return 0
     rows = [[str(r.run_id), f"v{r.version}", r.status, r.verdict or "-", r.decision or "-",
-             ",".join(r.species) or "-", (r.processed_at or "")[:19], r.name] for r in runs]
+             safe_text(",".join(r.species) or "-"), (r.processed_at or "")[:19], safe_text(r.name)] for r in runs]
     sys.stdout.write(_table(["run", "ver", "status", "verdict", "decision", "species", "processed", "file"], rows))
     return 0
 
@@ -135,7 +136,7 @@ def _show(conn: Any, args: argparse.Namespace) -> int:
             "result": record.result,
             "decisions": [_event_public(e) for e in history],
         }
-        sys.stdout.write(json.dumps(payload) + "\n")
+        sys.stdout.write(strict_json.dumps(payload) + "\n")
         return 0
     out = [
         f"run {record.run_id} v{record.version}  {record.path}",
@@ -155,7 +156,7 @@ def _show(conn: Any, args: argparse.Namespace) -> int:
     out.append("  decision history:" if history else "  decision history: none")
     for event in history:
         out.append(f"    {event.at[:19]}  #{event.event_id}  {event.action:<6}  {event.operator or '?'}  {event.reason}")
-    sys.stdout.write("\n".join(out) + "\n")
+    sys.stdout.write("\n".join(safe_text(line) for line in out) + "\n")  # paths, errors, reasons
     return 0
 
 
@@ -168,7 +169,7 @@ def _export(conn: Any, args: argparse.Namespace) -> int:
         events.setdefault(event.run_id, []).append(event)
     chosen = args.format or ("json" if str(args.output).lower().endswith(".json") else "csv")
     if chosen == "json":
-        text = json.dumps(
+        text = strict_json.dumps(
             {"runs": [run_public(r) | {"decisions": [_event_public(e) for e in events.get(r.run_id, [])]}
                       for r in runs]},
             indent=1,

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 
 HELP = "analyse spectrum files and print what was found (tables, or --json lines)"
@@ -20,20 +19,25 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from processing.pipeline import ProcessSettings, process_file
+    from processing import strict_json
+    from processing.pipeline import ProcessSettings, RunResult, process_file
+    from processing.safe_text import safe_text
 
     species = tuple(s.strip() for s in args.species.split(",") if s.strip())
     settings = ProcessSettings(species=species)
     any_unreadable = False
     for path in args.files:
-        result = process_file(path, settings)
+        try:
+            result = process_file(path, settings)
+        except MemoryError:  # the machine's limit, not the file's fault: a failed run
+            result = RunResult(file=path, status="failed", error=f"{path}: out of memory while analysing")
         any_unreadable |= result.status != "processed"
         if args.json:
-            sys.stdout.write(json.dumps(result.to_dict()) + "\n")
+            sys.stdout.write(strict_json.dumps_result(result.to_dict()) + "\n")
         else:
             from tui.report_text import render_result
 
             sys.stdout.write(render_result(result) + "\n")
         if result.status != "processed":
-            print(f"bandwatch: {result.error}", file=sys.stderr)
+            print(f"bandwatch: {safe_text(result.error)}", file=sys.stderr)
     return 1 if any_unreadable else 0

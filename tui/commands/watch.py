@@ -92,8 +92,15 @@ def run(args: argparse.Namespace) -> int:
     return int(app.run() or 0)
 
 
+ONCE_PATIENCE_SECONDS = 120.0  # `--once`: how long ledger trouble (a lock, a full disk) is waited out
+
+
 def run_plain(config, once: bool) -> int:  # type: ignore[no-untyped-def]
-    """Run the station, printing one line per event, until Ctrl-C (or idle with `once`)."""
+    """Run the station, printing one line per event, until Ctrl-C (or idle with `once`).
+
+    Exit status 1 when the station stopped itself (its data folder went away) and, with
+    `once`, when a run failed or a file could not be recorded (ledger trouble that lasted
+    longer than ONCE_PATIENCE_SECONDS)."""
     import signal
     import threading
 
@@ -111,16 +118,20 @@ def run_plain(config, once: bool) -> int:  # type: ignore[no-untyped-def]
     station = Station(config, on_event=on_event)
     stop = threading.Event()
     previous = signal.signal(signal.SIGTERM, lambda signum, frame: stop.set())
-    station.start()
     try:
+        station.start()
         if once:
-            station.wait_idle(timeout=float("inf"))
+            while not station.wait_idle(timeout=0.5) and station.halted is None:
+                if station.trouble_seconds > ONCE_PATIENCE_SECONDS:
+                    break  # what is left cannot be recorded now; said at stop, exit status 1
         else:
-            while not stop.wait(0.5):
+            while not stop.wait(0.5) and station.halted is None:
                 pass
     except KeyboardInterrupt:
         pass
     finally:
         station.stop()
         signal.signal(signal.SIGTERM, previous)
-    return 1 if once and failures else 0
+    if station.halted is not None:
+        return 1
+    return 1 if once and (failures or station.not_recorded) else 0
