@@ -216,6 +216,8 @@ def open_ledger(data_dir: str | Path, *, read_only: bool = False) -> sqlite3.Con
         return _connect(path, read_only)
     except sqlite3.Error as error:
         raise ledger_problem(path, error) from None
+    except LedgerError as error:
+        raise LedgerError(error if str(path) in str(error) else f"{path}: {error}") from None
 
 
 def ledger_problem(path: Path | str, error: BaseException) -> LedgerError:
