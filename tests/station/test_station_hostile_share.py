@@ -14,7 +14,7 @@ import pytest
 from station_files import HERE, spectrum_csv, write_file
 
 from processing.station import ledger
-from processing.station.events import RunProcessed
+from processing.station.events import RunProcessed, StationProblem
 
 ROOT = HERE.parents[1]
 
@@ -136,3 +136,80 @@ def test_device_node_inside_the_export_folder_is_refused(make_station, folders) 
     assert station.wait_idle(20)
     [run] = _runs(data)
     assert run.status == "unreadable" and "character device" in (run.error or "")
+
+
+def _deep_tree(top: Path, depth: int) -> Path:
+    """`depth` nested folders under `top` (made with relative steps: the full path is long);
+    returns the deepest."""
+    here = os.getcwd()
+    try:
+        os.chdir(top)
+        for _ in range(depth):
+            os.mkdir("d")
+            os.chdir("d")
+        return Path(os.getcwd())
+    finally:
+        os.chdir(here)
+
+
+def _remove_deep_tree(first: Path) -> None:
+    """Remove the nested folders d/d/d/... starting at `first`, bottom up and without recursion
+    (shutil.rmtree and pytest's clean-up recurse past Python's limit at this depth)."""
+    here = os.getcwd()
+    try:
+        os.chdir(first)
+        depth = 0
+        while os.path.isdir("d"):
+            os.chdir("d")
+            depth += 1
+        for _ in range(depth + 1):
+            for entry in list(os.scandir(".")):
+                if entry.is_dir(follow_symlinks=False):
+                    os.rmdir(entry.name)  # the child folder, emptied one step before
+                else:
+                    os.unlink(entry.name)
+            os.chdir("..")
+        os.rmdir(first.name)
+    finally:
+        os.chdir(here)
+
+
+def test_watch_recursive_starts_over_a_thousand_nested_folders(make_station, folders) -> None:
+    """watchdog walks the tree recursively (RecursionError past ~1000 levels); the station then
+    watches the top folder by events and finds the rest by its (iterative) rescan."""
+    export, data = folders
+    deepest = _deep_tree(export, 1000)
+    write_file(deepest / "deep.csv", spectrum_csv(200))
+    station, events = make_station(recursive=True, rescan_seconds=0.5)
+    station.start()
+    assert "top folder only" in station.observer_kind
+    assert station.wait_idle(30)
+    assert [run.name for run in _runs(data)] == ["deep.csv"]
+    assert any(isinstance(e, StationProblem) and "nested too deeply" in e.message for e in events)
+    station.stop()
+    _remove_deep_tree(export / "d")
+
+
+def test_a_deep_tree_moved_in_while_running_does_not_end_the_watching(make_station, folders, tmp_path: Path,
+                                                                         capfd: pytest.CaptureFixture[str]) -> None:
+    export, data = folders
+    station, events = make_station(recursive=True, rescan_seconds=0.5)
+    station.start()
+    assert station.observer_kind == "native" or station.observer_kind == "polling"
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    deepest = _deep_tree(outside, 1000)
+    write_file(deepest / "deep.csv", spectrum_csv(200))
+    os.rename(outside / "d", export / "d")
+    deadline = time.monotonic() + 10
+    while "top folder only" not in station.observer_kind and time.monotonic() < deadline:
+        time.sleep(0.05)
+    if station.observer_kind == "polling":
+        pytest.skip("the polling observer's walk is not killed by depth on this system")
+    assert "top folder only" in station.observer_kind
+    write_file(export / "top.csv", spectrum_csv(200, centre_cm1=2895.0))
+    assert station.wait_idle(30)
+    assert sorted(run.name for run in _runs(data)) == ["deep.csv", "top.csv"]
+    assert "Traceback" not in capfd.readouterr().err
+    station.stop()
+    _remove_deep_tree(export / "d")
