@@ -3,6 +3,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from processing.safe_text import safe_text
+
 
 class BandwatchError(Exception):
     """Base of every error bandwatch reports to a user as one line."""
@@ -20,7 +22,7 @@ class SpectrumFileError(BandwatchError):
         self.problem = problem
         self.line = line
         where = self.path if line is None else f"{self.path}:{line}"
-        super().__init__(f"{where}: {problem}")
+        super().__init__(safe_text(f"{where}: {problem}"))  # names and header values come from files
 
 
 class LibraryFileError(BandwatchError):
@@ -29,7 +31,7 @@ class LibraryFileError(BandwatchError):
     def __init__(self, path: str | Path, problem: str) -> None:
         self.path = str(path)
         self.problem = problem
-        super().__init__(f"{self.path}: {problem}")
+        super().__init__(safe_text(f"{self.path}: {problem}"))
 
 
 class ConfigError(BandwatchError):
@@ -39,7 +41,7 @@ class ConfigError(BandwatchError):
         self.path = str(path) if path is not None else "<settings>"
         self.key = key
         self.problem = problem
-        super().__init__(f"{self.path}: {key}: {problem}")
+        super().__init__(safe_text(f"{self.path}: {key}: {problem}"))
 
 
 class AnalysisError(BandwatchError):

@@ -63,7 +63,7 @@ class BandwatchApp(App[int]):
             keymap = self.user_keymap if self.user_keymap is not None else load_keymap()
         except ConfigError as error:
             keymap = {}
-            self.notify(str(error), title="keys file ignored", severity="error", timeout=15)
+            self.notify(_literal(str(error)), title="keys file ignored", severity="error", timeout=15)
         if keymap:
             self.set_keymap(keymap)
         self.push_screen(MainScreen())
@@ -82,7 +82,7 @@ class BandwatchApp(App[int]):
         """A station that cannot start (folder taken by another station, ...) is said, not a crash."""
         if message.worker.group == "station" and message.state == WorkerState.ERROR:
             self.station = None
-            self.notify(str(message.worker.error), title="station not running", severity="error", timeout=30)
+            self.notify(_literal(str(message.worker.error)), title="station not running", severity="error", timeout=30)
 
     def station_event(self, event: Any) -> None:
         """Called by the station from any thread: forward the event to the main screen."""
@@ -128,6 +128,15 @@ class BandwatchApp(App[int]):
         from tui.screens.run_work import export_in_thread
 
         return export_in_thread(self.data_dir, run_id)
+
+
+def _literal(text: str) -> str:
+    """A message that may quote a file name, as notification markup that shows it literally."""
+    from rich.markup import escape
+
+    from processing.safe_text import safe_text
+
+    return escape(safe_text(text))
 
 
 def _login_name() -> str:

@@ -8,6 +8,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from rich.markup import escape
 from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
@@ -16,6 +17,7 @@ from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 from textual.widgets import DataTable, Footer, Static, TabbedContent, TabPane
 
+from processing.safe_text import safe_text
 from tui.messages import (
     DecisionRecorded,
     ReportExported,
@@ -40,9 +42,10 @@ def short_error(run: Any | None) -> str | None:
     if run is None or not run.error:
         return None
     error = str(run.error)
-    if error.startswith(run.path):
-        error = error[len(run.path):].lstrip(":0123456789 ") or error
-    return error
+    path = safe_text(run.path)
+    if error.startswith(path):
+        error = error[len(path):].lstrip(":0123456789 ") or error
+    return safe_text(error)
 
 
 class MainScreen(Screen[None]):
@@ -123,7 +126,7 @@ class MainScreen(Screen[None]):
             return
         text = Text(no_wrap=True, overflow="ellipsis")
         text.append(f"run {run.run_id} ", style="bold")
-        text.append(f"{run.name} v{run.version}  ")
+        text.append(f"{safe_text(run.name)} v{run.version}  ")
         text.append_text(verdict_text(run.status, run.verdict))
         text.append("  ")
         text.append_text(decision_text(run.decision))
@@ -161,18 +164,29 @@ class MainScreen(Screen[None]):
             self.post_message(RunDetailLoaded(run))
 
     @work(thread=True, exclusive=True, group="spectrum", exit_on_error=False)
-    def load_spectrum(self, run_id: int, path: str) -> None:
+    def load_spectrum(self, run_id: int, path: str, status: str = "processed", error: str | None = None) -> None:
+        """The run's spectrum for the plot, re-read with the station's limits: only a processed
+        run's file, only a regular file and never one in the data folder, through the same
+        bounded readers (a few bytes cannot make this process allocate gigabytes)."""
         from processing.errors import SpectrumFileError
         from processing.readers import read_any
+        from processing.regular_files import ReadPolicy
         from processing.spectrum import Spectrum
 
+        if status != "processed":
+            self.post_message(SpectrumLoaded(run_id, None, None, safe_text(error or f"{status}: nothing to draw")))
+            return
+        policy = ReadPolicy(forbidden=(str(Path(self.bw.data_dir).resolve()),))
         try:
-            data = read_any(path)
-        except SpectrumFileError as error:
-            self.post_message(SpectrumLoaded(run_id, None, None, str(error)))
+            data = read_any(path, policy=policy)
+        except SpectrumFileError as problem:
+            self.post_message(SpectrumLoaded(run_id, None, None, str(problem)))
+            return
+        except MemoryError:
+            self.post_message(SpectrumLoaded(run_id, None, None, f"{safe_text(Path(path).name)} is too large to draw here"))
             return
         if not isinstance(data, Spectrum):
-            self.post_message(SpectrumLoaded(run_id, None, None, f"{Path(path).name} is a line list: no spectrum to draw"))
+            self.post_message(SpectrumLoaded(run_id, None, None, f"{safe_text(Path(path).name)} is a line list: no spectrum to draw"))
             return
         self.post_message(SpectrumLoaded(run_id, data.wavenumber_cm1, data.absorbance, None))
 
@@ -214,7 +228,7 @@ class MainScreen(Screen[None]):
         if message.worker.group == "spectrum":
             self.query_one(SpectrumPlot).show_message(f"cannot draw this run: {problem}")
         else:
-            self.notify(problem, title=f"{message.worker.group} failed", severity="error")
+            self.notify(escape(safe_text(problem)), title=f"{message.worker.group} failed", severity="error")
 
     @on(RunsLoaded)
     def show_runs(self, message: RunsLoaded) -> None:
@@ -263,7 +277,7 @@ class MainScreen(Screen[None]):
             self.view_window = plot.window  # kept for the next run: compare one region across runs
         plot.show_message(f"reading {run.name} …", loading_run_id=run.run_id)
         self.load_detail(run.run_id)
-        self.load_spectrum(run.run_id, run.path)
+        self.load_spectrum(run.run_id, run.path, run.status, run.error)
 
     def fill_details(self, run: Any | None) -> None:
         """Lines, constants and checks of `run` (None: empty panes)."""
@@ -331,7 +345,7 @@ class MainScreen(Screen[None]):
         kind = type(event).__name__
         path = getattr(event, "path", None)
         describe = getattr(event, "plain", None)
-        self.last_event = describe() if callable(describe) else kind
+        self.last_event = safe_text(describe() if callable(describe) else kind)
         if kind == "StationStarted":
             self.station_state = "station running"
         elif kind == "StationStopped":
@@ -348,9 +362,9 @@ class MainScreen(Screen[None]):
         if kind in ("FileSeen", "FileSettled", "ClaimResumed") and path:
             self.problems.pop(path, None)
         if kind == "RunFailed":
-            self.notify(self.last_event, title="run failed", severity="error")
+            self.notify(escape(self.last_event), title="run failed", severity="error")
         elif kind == "StationProblem":
-            self.notify(self.last_event, title="station", severity="warning")
+            self.notify(escape(self.last_event), title="station", severity="warning")
         if kind in ("RunProcessed", "RunFailed", "FileSeen", "FileSettled", "FileVanished", "ClaimResumed",
                     "StationProblem"):
             self.load_runs()
@@ -360,7 +374,7 @@ class MainScreen(Screen[None]):
     @on(DecisionRecorded)
     def decision_recorded(self, message: DecisionRecorded) -> None:
         if message.problem:
-            self.notify(message.problem, severity="warning")
+            self.notify(escape(safe_text(message.problem)), severity="warning")
         else:
             self.notify(f"run {message.run_id}: {message.action} recorded", timeout=2)
         self.load_runs()
@@ -368,7 +382,7 @@ class MainScreen(Screen[None]):
     @on(ReprocessFinished)
     def reprocess_finished(self, message: ReprocessFinished) -> None:
         if message.problem:
-            self.notify(message.problem, title=f"redo of run {message.run_id}", severity="error")
+            self.notify(escape(safe_text(message.problem)), title=f"redo of run {message.run_id}", severity="error")
             return
         self.notify(f"run {message.run_id} redone as run {message.new_run_id}", timeout=3)
         self.jump_to = message.new_run_id
@@ -377,9 +391,9 @@ class MainScreen(Screen[None]):
     @on(ReportExported)
     def report_exported(self, message: ReportExported) -> None:
         if message.problem:
-            self.notify(message.problem, title="export", severity="error")
+            self.notify(escape(safe_text(message.problem)), title="export", severity="error")
         else:
-            self.notify(f"report written: {message.path}", title="export", timeout=4)
+            self.notify(escape(safe_text(f"report written: {message.path}")), title="export", timeout=4)
 
     # ------------------------------------------------------------ actions
 
@@ -424,7 +438,7 @@ class MainScreen(Screen[None]):
 
         def chosen(requested: dict[str, Any] | None) -> None:
             if requested is not None:
-                self.notify(f"redoing {run.name} …", timeout=2)
+                self.notify(escape(f"redoing {safe_text(run.name)} …"), timeout=2)
                 self.reprocess_run(run.run_id, requested)
 
         self.app.push_screen(ReprocessScreen(run, excluded), chosen)

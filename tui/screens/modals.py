@@ -10,6 +10,8 @@ from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Input, Label, Select, Static
 
+from processing.safe_text import safe_text
+
 NO_SHIFT = "none"
 
 
@@ -24,7 +26,7 @@ class FlagReasonScreen(ModalScreen[str | None]):
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
-            yield Label(f"Flag {self.run_name}: why?", markup=False)
+            yield Label(f"Flag {safe_text(self.run_name)}: why?", markup=False)
             yield Input(placeholder="reason (e.g. cell leak, baseline drift)", id="reason")
             yield Static("Enter records the flag · Esc cancels", classes="hint")
 
@@ -98,7 +100,7 @@ class ReprocessScreen(ModalScreen[dict[str, Any] | None]):
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
-            yield Label(f"Redo {self.run.name} with changed settings", markup=False)
+            yield Label(f"Redo {safe_text(self.run.name)} with changed settings", markup=False)
             yield Label("species (comma separated; empty = detect)", classes="field-label")
             yield Input(value=self.species_text, id="species")
             yield Label("renumber a branch", classes="field-label")

@@ -49,7 +49,14 @@ def reprocess_in_thread(
         run = get_run(conn, run_id)
         if run is None:
             return None, f"run {run_id} is not in the ledger", not_applied
-        result = process_function(run.path, make_settings(payload))
+        from processing.regular_files import ReadPolicy
+
+        # the same limits as the station's workers: never the data folder, bounded readers
+        payload["read_policy"] = ReadPolicy(forbidden=(str(Path(data_dir).resolve()),))
+        try:
+            result = process_function(run.path, make_settings(payload))
+        except MemoryError:
+            return None, f"run {run_id}: out of memory while redoing it", not_applied
         result_dict = result.to_dict() if hasattr(result, "to_dict") else dict(result)
         stored = {**requested, "not_applied": not_applied}
         record = record_reprocessed(conn, run_id, result_dict, stored)

@@ -11,6 +11,8 @@ from typing import Any
 
 from rich.text import Text
 
+from processing.safe_text import safe_text
+
 VERDICT_LABELS: dict[str | None, tuple[str, str]] = {
     "pass": ("✔ PASS", "green"),
     "warn": ("! WARN", "yellow"),
@@ -55,8 +57,9 @@ def check_text(status: str) -> Text:
 
 
 def plain(value: Any) -> Text:
-    """Any value as literal text (no markup)."""
-    return Text("" if value is None else str(value))
+    """Any value as literal text: no markup, and control characters escaped (file names and
+    header values can hold terminal escape sequences)."""
+    return Text("" if value is None else safe_text(value))
 
 
 def number(value: float | None, decimals: int, style: str = "") -> Text:

@@ -16,6 +16,8 @@ from textual.binding import Binding
 from textual.reactive import reactive
 from textual.widget import Widget
 
+from processing.safe_text import safe_text
+
 BRAILLE_BASE = 0x2800
 # Braille dot bit for (column 0..1, row 0..3) inside one character cell (Unicode braille block).
 _DOT_BITS = np.array([[0x01, 0x02, 0x04, 0x40], [0x08, 0x10, 0x20, 0x80]], dtype=np.int32)
@@ -257,7 +259,7 @@ class SpectrumPlot(Widget, can_focus=True):
         """Clear the plot and say why (loading, unreadable file, line list only)."""
         self._x = self._y = None
         self._lines = ()
-        self._message = message
+        self._message = safe_text(message)  # may name a file
         self._loading_run_id = loading_run_id
         self.window = None
         self.refresh()
