@@ -213,3 +213,21 @@ def test_a_deep_tree_moved_in_while_running_does_not_end_the_watching(make_stati
     assert "Traceback" not in capfd.readouterr().err
     station.stop()
     _remove_deep_tree(export / "d")
+
+
+def test_a_file_name_that_is_not_utf8_is_recorded_once(make_station, folders) -> None:
+    """Such a name once raised UnicodeEncodeError at every start and was never recorded."""
+    export, data = folders
+    name = os.fsdecode(b"run-\xff\xfe-latin1-\xe9.csv")
+    write_file(export / name, spectrum_csv(200))
+    station, events = make_station()
+    station.start()
+    assert station.wait_idle(20)
+    station.stop()
+    [run] = _runs(data)
+    assert run.name == name and run.status == "processed"
+    assert os.fsencode(run.path).endswith(b"run-\xff\xfe-latin1-\xe9.csv")  # the exact bytes
+    again, _ = make_station()
+    again.start()  # the next start knows the file: not processed a second time
+    assert again.wait_idle(20)
+    assert len(_runs(data)) == 1

@@ -3,9 +3,10 @@ from __future__ import annotations
 
 import hashlib
 import os
+import time
 from pathlib import Path
 
-from processing.station.settle import IncompleteFile, SettledFile, Settler, VanishedFile, incomplete_reason
+from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile, incomplete_reason
 
 JCAMP_HEAD = "##TITLE=test\n##JCAMP-DX=4.24\n##XYDATA=(X++(Y..Y))\n2900 1 2 3\n"
 
@@ -112,3 +113,49 @@ def test_incomplete_reason_counts_blocks() -> None:
     assert incomplete_reason((linked + "##END=\n").encode()) is None
     # labels are case-insensitive and may carry spaces (JCAMP-DX 4.24 label rules)
     assert incomplete_reason(b"##title= x\n## end =\n") is None
+
+
+def test_a_csv_cut_mid_line_waits_for_its_last_line(tmp_path: Path) -> None:
+    """A buffered writer pausing longer than the settle time leaves a file cut mid-line (at a
+    multiple of 512 bytes, or with a short last row): it once became a version 'processed' on
+    partial data. Now it waits; a complete file without a final newline is taken as it is."""
+    clock = Clock()
+    settler = Settler(0.5, 30.0, 1_000_000, clock)
+    rows = "wavenumber,absorbance\n" + "".join(f"{2850 + i * 0.1:.4f},{0.01 * (i % 7):.6f}\n" for i in range(200))
+    cut = tmp_path / "cut.csv"
+    cut.write_text(rows[:1024])  # two of a writer's 512-byte blocks, ending mid-row
+    short = tmp_path / "short.csv"
+    short.write_text(rows[: rows.index("\n", 300) + 6])  # the last row holds one field so far
+    whole = tmp_path / "whole.csv"
+    whole.write_text(rows.rstrip("\n"))  # complete, no newline after the last row
+    for path in (cut, short, whole):
+        settler.touch(str(path))
+    clock.now += 1
+    [settled] = settler.tick()
+    assert isinstance(settled, SettledFile) and settled.path == str(whole)
+    assert incomplete_reason(cut.read_bytes()) == incomplete_reason(short.read_bytes()) == (
+        "last line looks cut off (still being written?)"
+    )
+    cut.write_text(rows)  # the writer goes on: the complete file is taken once
+    _bump_mtime(cut, 1)
+    clock.now += 1
+    assert settler.tick() == []  # changed: the settle time starts again
+    clock.now += 1
+    [settled] = settler.tick()
+    assert settled.path == str(cut) and settled.size_bytes == len(rows)
+    clock.now += 30  # a last line that never gets finished is taken after the longest wait
+    [taken] = settler.tick()
+    assert isinstance(taken, SettledFile) and taken.path == str(short)
+
+
+def test_settling_reads_only_regular_files(tmp_path: Path) -> None:
+    clock = Clock()
+    settler = Settler(0.1, 10.0, 1_000_000, clock)
+    fifo = tmp_path / "pipe.csv"
+    os.mkfifo(fifo)
+    settler.touch(str(fifo))
+    clock.now += 1
+    started = time.monotonic()
+    [refused] = settler.tick()
+    assert time.monotonic() - started < 1  # not blocked in open()
+    assert isinstance(refused, RefusedFile) and "FIFO" in refused.reason
