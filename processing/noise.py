@@ -192,6 +192,8 @@ def noise_correlation(residual: np.ndarray, mask: np.ndarray, sigma: float, base
         mask = mask[start : start + _CORRELATION_SAMPLE]
     use = mask & (np.abs(residual) <= CLIP_SIGMAS * sigma) if sigma > 0 else mask.copy()
     free = int(use.sum())
+    if free < 2:  # nothing line-free to measure (e.g. every point saturated)
+        return None
     r = np.where(use, residual - np.mean(residual[use]), 0.0)
     size = 1 << int(math.ceil(math.log2(2 * r.size)))
     power = np.abs(np.fft.rfft(r, size)) ** 2 / max(free, 1)  # mean over all bins = residual variance

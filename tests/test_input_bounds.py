@@ -146,3 +146,31 @@ def test_many_evenly_spaced_lines_do_not_make_the_pattern_search_slow(tmp_path: 
     code, out, err, seconds, _ = measured_process(path, "--json")
     assert code == 0 and err == ""
     assert seconds < 10
+
+
+@pytest.mark.parametrize(
+    ("seed", "yfactor", "outcome"),
+    [
+        # absorbance ~1e294: refused (it once overflowed the noise estimate's squares)
+        ("0905_hcl_cell.jdx", "1e300", "refused"),
+        # every transmittance negative: all points saturated, no line-free point for the noise
+        # (its mean of an empty slice once warned)
+        ("1040_hcl_saturated.jdx", "-1", "processed"),
+    ],
+)
+def test_absurd_y_factors_give_no_numpy_warning(tmp_path: Path, seed: str, yfactor: str, outcome: str) -> None:
+    """Both were found by fuzzing: processed or refused, but RuntimeWarnings reached stderr."""
+    import warnings
+
+    from processing.pipeline import process_file
+
+    lines = (ROOT / "sample_runs" / seed).read_text().splitlines()
+    assert any(line.startswith("##YFACTOR=") for line in lines)
+    path = tmp_path / seed
+    path.write_text("\n".join(f"##YFACTOR={yfactor}" if line.startswith("##YFACTOR=") else line for line in lines) + "\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        result = process_file(path)
+    assert ("processed" if result.status == "processed" else "refused") == outcome
+    if outcome == "refused":
+        assert "not a physical absorbance" in (result.error or "")

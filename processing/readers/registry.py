@@ -83,9 +83,32 @@ def parse_bytes(data: bytes, source: str = "<data>") -> Spectrum | LineList:
     path into the metadata."""
     text = as_utf8(data, source)
     reader = choose_reader(text, source)
-    result = _positive_wavenumbers(reader.parse(text, source), source)
+    result = _physical_values(_positive_wavenumbers(reader.parse(text, source), source), source)
     meta = replace(result.meta, source_path=source, sha256=hashlib.sha256(data).hexdigest())
     return result.with_meta(meta)
+
+
+# Beyond these the numbers are not an infrared absorbance spectrum (a wrong YFACTOR, counts
+# labelled as absorbance, an axis in the wrong unit): decadic absorbance 1e6 is a transmittance
+# of 10**-1000000, and 1e5 cm-1 is a wavelength of 100 nm (common practice).
+MAX_ABSORBANCE = 1e6
+MAX_WAVENUMBER_CM1 = 1e5
+
+
+def _physical_values(data: Spectrum | LineList, source: str) -> Spectrum | LineList:
+    """Refuse numbers no infrared spectrum holds (they also overflow the analysis)."""
+    x = data.wavenumber_cm1 if isinstance(data, Spectrum) else data.position_cm1
+    if x[-1] > MAX_WAVENUMBER_CM1:
+        raise SpectrumFileError(
+            source, f"x axis reaches {x[-1]:.6g} cm-1: not an infrared spectrum (above {MAX_WAVENUMBER_CM1:g} cm-1)"
+        )
+    if isinstance(data, Spectrum):
+        largest = float(np.max(np.abs(data.absorbance)))
+        if largest > MAX_ABSORBANCE:
+            raise SpectrumFileError(
+                source, f"absorbance values up to {largest:.3g}: not a physical absorbance (a wrong YFACTOR or YUNITS?)"
+            )
+    return data
 
 
 def _positive_wavenumbers(data: Spectrum | LineList, source: str) -> Spectrum | LineList:
