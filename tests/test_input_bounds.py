@@ -11,18 +11,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from hostile_inputs import BOMB
+
 from processing.errors import SpectrumFileError
 from processing.readers import jcamp, parse_bytes
 
 ROOT = Path(__file__).resolve().parents[1]
 
-# 180 bytes: NPOINTS 99,999,999 and one DIF/DUP line whose DUP count (s9999999) repeats the
-# first value 99,999,999 times. Unbounded, it took 39 s and 7.97 GB to be refused.
-BOMB = (
-    b"##TITLE=bomb\n##JCAMP-DX=4.24\n##DATA TYPE=INFRARED SPECTRUM\n##XUNITS=1/CM\n"
-    b"##YUNITS=ABSORBANCE\n##FIRSTX=4000\n##LASTX=400\n##NPOINTS=99999999\n"
-    b"##XYDATA=(X++(Y..Y))\n4000@s9999999\n##END=\n"
-)
 GIGABYTE_KB = 1024 * 1024
 
 

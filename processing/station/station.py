@@ -546,6 +546,8 @@ class Station:
                 self._inflight_paths.discard(info.path)
                 if not recorded and info.done is None and info.path not in self._not_recorded:
                     self._not_recorded.append(info.path)
+            if info.done is not None:
+                info.done.set()  # a redo's caller waits for its record (or the stop)
             self._wakeup.set()
 
     def _until_recorded(self, outcome: JobOutcome, info: _InFlight) -> bool:
@@ -570,11 +572,7 @@ class Station:
 
     def _record_outcome(self, outcome: JobOutcome, info: _InFlight) -> None:
         if info.reprocess_of is not None:
-            try:
-                self._record_redo(outcome, info)
-            finally:
-                assert info.done is not None
-                info.done.set()
+            self._record_redo(outcome, info)  # its waiter is released by _handle_outcome
             return
         conn = self._conn()
         if outcome.failed or outcome.result is None:

@@ -231,3 +231,24 @@ def test_a_file_name_that_is_not_utf8_is_recorded_once(make_station, folders) ->
     again.start()  # the next start knows the file: not processed a second time
     assert again.wait_idle(20)
     assert len(_runs(data)) == 1
+
+
+def test_the_180_byte_bomb_is_recorded_unreadable_in_moments_within_a_1_gb_worker(make_station, folders) -> None:
+    """Unbounded, the station's worker died of it (recorded as a reader fault) after 37 s."""
+    sys.path.insert(0, str(HERE.parent))  # tests/: shared hostile inputs
+    from hostile_inputs import BOMB
+
+    export, data = folders
+    station, _ = make_station(memory_limit_mb=1024)
+    station.start()
+    assert station.wait_idle(20)
+    started = time.monotonic()
+    (export / "bomb.jdx").write_bytes(BOMB)
+    write_file(export / "after.csv", spectrum_csv(200))
+    assert station.wait_idle(30)
+    assert time.monotonic() - started < 10
+    by_name = {run.name: run for run in _runs(data)}
+    assert by_name["bomb.jdx"].status == "unreadable"
+    assert "NPOINTS=99999999 is more than 14 bytes of data can hold" in (by_name["bomb.jdx"].error or "")
+    assert by_name["after.csv"].status == "processed"
+    assert station.pool is not None and station.pool.restarts == 0  # no worker was lost to it

@@ -4,6 +4,7 @@ and Rich/Textual markup (shown literally, never interpreted)."""
 from __future__ import annotations
 
 import resource
+import sys
 import time
 from pathlib import Path
 from typing import Any
@@ -19,14 +20,11 @@ from tui.widgets.spectrum_plot import SpectrumPlot
 
 from tui_support import hcl_result, quiet
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: shared hostile inputs
+from hostile_inputs import BOMB  # noqa: E402
+
 SIZE = (80, 24)
 ESC = "\x1b"
-# 180 bytes declaring 99,999,999 points with one DUP line (see tests/test_input_bounds.py)
-BOMB = (
-    b"##TITLE=bomb\n##JCAMP-DX=4.24\n##DATA TYPE=INFRARED SPECTRUM\n##XUNITS=1/CM\n"
-    b"##YUNITS=ABSORBANCE\n##FIRSTX=4000\n##LASTX=400\n##NPOINTS=99999999\n"
-    b"##XYDATA=(X++(Y..Y))\n4000@s9999999\n##END=\n"
-)
 
 
 def _peak_kb() -> int:
