@@ -87,6 +87,7 @@ _THRESHOLD_PAIRS = (
     ("band_lines_pass", "band_lines_warn", True),
     ("rms_width_pass", "rms_width_warn", False),
     ("calibration_pass_cm1", "calibration_warn_cm1", False),
+    ("calibration_scale_pass_ppm", "calibration_scale_warn_ppm", False),
     ("temperature_min_K", "temperature_max_K", False),
 )
 
