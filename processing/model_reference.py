@@ -17,6 +17,7 @@ z = (f(fitted) - f(reference)) / that last sigma, for any function f of the para
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
@@ -85,41 +86,65 @@ class FittedModel:
         return self.names.index(name) if name in self.names else None
 
     def covariance(self) -> np.ndarray:
-        total = self.statistical.copy()
-        if self.library is not None and self.sensitivity.size:
-            total = total + self.library.covariance(self.sensitivity)
-        if self.systematic is not None:
-            total = total + self.systematic
-        return total
+        """Covariance of the fitted values: statistical + library (through held terms) +
+        model systematics (read-only; computed once)."""
+        return self._covariances[0]
 
     def difference_covariance(self) -> np.ndarray:
-        total = self.statistical.copy()
-        if self.library is not None and self.reference_sensitivity is not None:
-            total = total + self.library.covariance(self.sensitivity - self.reference_sensitivity)
-        return total
+        """Covariance of fitted - reference (read-only; computed once)."""
+        return self._covariances[1]
 
     def reference_covariance(self) -> np.ndarray | None:
-        if self.library is None or self.reference_sensitivity is None:
-            return None
-        return self.library.covariance(self.reference_sensitivity)
+        """Covariance of the reference values (None without a library; computed once)."""
+        return self._covariances[2]
 
-    def quantity(self, function: Callable[[np.ndarray], float]) -> Compared:
-        """`function` of the parameter vector, fitted and referenced."""
+    @functools.cached_property
+    def _covariances(self) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+        # Every quantity derived from the model needs these; a frozen instance computes them
+        # once (cached_property writes the instance dict, which frozen does not guard).
+        fitted = self.statistical.copy()
+        if self.library is not None and self.sensitivity.size:
+            fitted = fitted + self.library.covariance(self.sensitivity)
+        if self.systematic is not None:
+            fitted = fitted + self.systematic
+        difference = self.statistical.copy()
+        reference = None
+        if self.library is not None and self.reference_sensitivity is not None:
+            difference = difference + self.library.covariance(self.sensitivity - self.reference_sensitivity)
+            reference = self.library.covariance(self.reference_sensitivity)
+        for matrix in (fitted, difference, reference):
+            if matrix is not None:
+                matrix.flags.writeable = False
+        return fitted, difference, reference
+
+    def quantity(self, function: Callable[[np.ndarray], float], gradient: np.ndarray | None = None) -> Compared:
+        """`function` of the parameter vector, fitted and referenced. `gradient`, when given,
+        is the function's exact (constant) gradient: a linear function needs no differences."""
         value = float(function(self.values))
-        gradient = _gradient(function, self.values)
-        sigma = _quadratic(gradient, self.covariance()) if self.sigma_determined else None
+        fitted_gradient = _gradient(function, self.values) if gradient is None else gradient
+        sigma = _quadratic(fitted_gradient, self.covariance()) if self.sigma_determined else None
         if self.reference is None:
             return Compared(value, sigma)
         reference = float(function(self.reference))
         reference_covariance = self.reference_covariance()
-        reference_sigma = _quadratic(_gradient(function, self.reference), reference_covariance) if reference_covariance is not None else None
-        combined = _quadratic(gradient, self.difference_covariance())
+        reference_sigma = None
+        if reference_covariance is not None:
+            reference_gradient = _gradient(function, self.reference) if gradient is None else gradient
+            reference_sigma = _quadratic(reference_gradient, reference_covariance)
+        combined = _quadratic(fitted_gradient, self.difference_covariance())
         z = (value - reference) / combined if self.sigma_determined and combined > 0 else None
         return Compared(value, sigma, reference, reference_sigma, z, combined)
 
     def parameter(self, name: str) -> Compared:
         i = self.names.index(name)
-        return self.quantity(lambda p, i=i: p[i])
+        unit = np.zeros(len(self.names))
+        unit[i] = 1.0
+        return self.quantity(lambda p, i=i: p[i], unit)
+
+    def linear(self, weights: np.ndarray) -> Compared:
+        """The linear combination weights @ parameters, fitted and referenced."""
+        weights = np.asarray(weights, dtype=np.float64)
+        return self.quantity(lambda p: float(weights @ p), weights)
 
 
 def fitted_model(

@@ -296,6 +296,17 @@ def _term_getter(model: FittedModel, prefix: str = "Y") -> Callable[[np.ndarray,
     return term
 
 
+def _term_weights(model: FittedModel, coefficients: dict[tuple[int, int], float], prefix: str = "Y") -> np.ndarray:
+    """Weights over the model's parameters of sum coefficient * Y_kl (terms the model lacks
+    contribute nothing, as `_term_getter` reads them)."""
+    weights = np.zeros(len(model.names))
+    for (k, l), coefficient in coefficients.items():
+        i = model.index(f"{prefix}{k}{l}")
+        if i is not None:
+            weights[i] += coefficient
+    return weights
+
+
 def _model_text(term_fit: TermFit) -> str:
     prefix = "U" if term_fit.mass_reduced else "Y"
     floated = ", ".join(prefix + f"{k}{l}" for k, l in term_fit.terms)
@@ -331,7 +342,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
     for (k, l), (name, sign) in CONSTANT_OF_TERM.items():
         if (k, l) not in floated or (k >= 1 and l == 0 and not vibration_determined):
             continue
-        compared = model.quantity(lambda p, k=k, l=l, sign=sign: sign * term(p, k, l))
+        compared = model.linear(_term_weights(model, {(k, l): sign}))
         constants[name] = Estimate(compared.value, compared.sigma)
         handbook = isotopologue.reference.get(name)
         comparison = make_comparison(name, compared, "cm-1", handbook.value if handbook else None, _source(isotopologue, name), model_text)
@@ -351,7 +362,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
     origin_comparisons: list[Comparison] = []
     for v_upper, v_lower in sorted(set(zip(lines.v_upper.tolist(), lines.v_lower.tolist()))):
         label = f"{v_upper}-{v_lower}"
-        compared = model.quantity(lambda p, a=v_upper, b=v_lower: _vibrational_term(p, term, a) - _vibrational_term(p, term, b))
+        compared = model.linear(_term_weights(model, {(k, 0): (v_upper + 0.5) ** k - (v_lower + 0.5) ** k for k in range(1, 5)}))
         band_origins[label] = Estimate(compared.value, compared.sigma)
         comparison = make_comparison(label, compared, "cm-1", band_origin(isotopologue.dunham, v_upper, v_lower), _source(isotopologue, "omega_e"), model_text)
         if comparison is not None:
@@ -359,7 +370,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
     B_v: dict[int, Estimate] = {}
     B_v_comparisons: list[Comparison] = []
     for v in levels:
-        compared = model.quantity(lambda p, v=v: sum(term(p, k, 1) * (v + 0.5) ** k for k in range(4)))
+        compared = model.linear(_term_weights(model, {(k, 1): (v + 0.5) ** k for k in range(4)}))
         B_v[v] = Estimate(compared.value, compared.sigma)
         comparison = make_comparison(f"B_{v}", compared, "cm-1", rotational_constant(isotopologue.dunham, v), _source(isotopologue, "B_e"), model_text)
         if comparison is not None:
@@ -567,7 +578,6 @@ def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Any = None) -
             effect = fit.operator @ np.where(heavy, column, 0.0) * size
             systematic += np.outer(effect, effect)
     model = _term_model(term_fit, lines, library, main, systematic)
-    term = _term_getter(model, "U")
     parameters = {}
     for i, name in enumerate(fit.names):
         compared = model.parameter(name)
@@ -596,7 +606,7 @@ def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Any = None) -
             if term_fit.index(k, l) is None or (l == 0 and not vibration_determined):
                 continue
             scale = mu ** (-(k / 2 + l))
-            compared = model.quantity(lambda p, k=k, l=l, sign=sign, scale=scale: sign * term(p, k, l) * scale)
+            compared = model.linear(_term_weights(model, {(k, l): sign * scale}, "U"))
             entry[name] = {"value": compared.value, "sigma": compared.sigma, "reference": compared.reference,
                            "reference_sigma": compared.reference_sigma, "z": compared.z}
         per_isotopologue[label] = entry
