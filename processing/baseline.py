@@ -202,9 +202,10 @@ def _iterate(
     centres = centres * stride
     baseline = _join(centres, levels, n, float(np.median(y[:: max(1, n // 100_000)])))
     residual = y - baseline
-    free = _line_free(residual, saturated, sigma, _flat_floor(y))
+    floor = _flat_floor(y)
+    free = _line_free(residual, saturated, sigma, floor)
     if free.sum() >= max(16, n // 20):
-        sigma = max(clipped_sigma(residual[free], sigma), _flat_floor(y))
+        sigma = max(clipped_sigma(residual[free], sigma), floor)
     return baseline, free, sigma, centres, levels
 
 

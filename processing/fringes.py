@@ -120,7 +120,7 @@ def find_fringes(x: np.ndarray, residual: np.ndarray, free: np.ndarray, spacing:
     edges = np.linspace(x[0], x[-1], SEGMENTS + 1)
     with_fringe = 0
     for lo, hi in zip(edges[:-1], edges[1:]):
-        inside = (x >= lo) & (x <= hi)
+        inside = slice(int(np.searchsorted(x, lo, "left")), int(np.searchsorted(x, hi, "right")))  # x ascends
         segment = _strongest_period(x[inside], residual[inside], free[inside], spacing)
         if segment is not None and abs(segment[0] - period) < 0.05 * period and segment[2] > 0.5 * FRINGE_CONTRAST:
             with_fringe += 1

@@ -25,6 +25,7 @@ import numpy as np
 from processing.estimate import Estimate
 from processing.linear_fit import weighted_least_squares
 from processing.noise import white_noise
+from processing.line_shape import transmittance_depth
 from processing.physical_constants import C2_CM_K
 
 # measured/natural isotopologue ratio (plus twice its standard error) above which lines count
@@ -179,7 +180,7 @@ def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, ri
     out = np.zeros(lo.size)
     for k, (a, b) in enumerate(zip(lo.tolist(), hi.tolist())):
         if b > a:
-            depth = 1.0 - np.power(10.0, -np.clip(corrected[a : b + 1], -3.0, 12.0))
+            depth = transmittance_depth(corrected[a : b + 1])
             out[k] = float(np.sum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x[a : b + 1])))
     return out
 

@@ -100,8 +100,13 @@ def stated_line_shape(apodization: str | None, resolution_cm1: float | None) -> 
     return LineShapeModel(window, 1.0 / resolution_cm1, f"stated: {window}, resolution {resolution_cm1:g} cm-1")
 
 
+def transmittance_depth(absorbance: np.ndarray | float) -> np.ndarray:
+    """1 - T of a (baseline-corrected, decadic) absorbance, clipped to a finite range."""
+    return 1.0 - np.power(10.0, -np.clip(absorbance, -3.0, 12.0))
+
+
 def infer_line_shape(
-    x: np.ndarray, depth: np.ndarray, centres: np.ndarray, widths: np.ndarray, strengths: np.ndarray, noise_t: float,
+    x: np.ndarray, absorbance: np.ndarray, centres: np.ndarray, widths: np.ndarray, strengths: np.ndarray, noise_t: float,
     stated: LineShapeModel | None = None,
 ) -> LineShapeModel | None:
     """The line shape that best explains the transmittance-depth profiles around the strongest
@@ -132,7 +137,7 @@ def infer_line_shape(
     for i in chosen:
         lo, hi = np.searchsorted(x, centres[i] - reach), np.searchsorted(x, centres[i] + reach)
         near = np.flatnonzero(np.abs(centres - centres[i]) < reach + 2.0 * typical)
-        windows.append((x[lo:hi], depth[lo:hi], centres[near], centres[i]))
+        windows.append((x[lo:hi], transmittance_depth(absorbance[lo:hi]), centres[near], centres[i]))
 
     def misfit(model: LineShapeModel) -> float:
         """Residual of the windows' depth profiles against every line in them drawn with this
@@ -160,15 +165,19 @@ def infer_line_shape(
     return best
 
 
-def equivalent_width_estimates(x: np.ndarray, depth: np.ndarray, centres: np.ndarray, model: LineShapeModel, widths: np.ndarray) -> np.ndarray:
-    """Each line's equivalent width (T-depth x cm-1) from its main lobe: the depth integrated
-    over +-1 FWHM (or the line's own width, if wider), divided by the share of a line's area the
-    ILS puts there."""
+def equivalent_width_estimates(x: np.ndarray, absorbance: np.ndarray, centres: np.ndarray, model: LineShapeModel, widths: np.ndarray) -> np.ndarray:
+    """Each line's equivalent width (T-depth x cm-1) from its main lobe: the depth (of the
+    baseline-corrected `absorbance`) integrated by trapezoids over +-1 FWHM (or the line's own
+    width, if wider), divided by the share of a line's area the ILS puts there. Only the points
+    inside the lines' windows are read."""
     half = np.maximum(model.fwhm_cm1, np.nan_to_num(widths, nan=model.fwhm_cm1))
-    cumulative = np.concatenate([[0.0], np.cumsum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x))])
     lo = np.clip(np.searchsorted(x, centres - half), 0, x.size - 1)
     hi = np.clip(np.searchsorted(x, centres + half) - 1, 0, x.size - 1)
-    area = np.where(hi > lo, cumulative[hi] - cumulative[lo], 0.0)
+    intervals = np.maximum(hi - lo, 0)
+    owner = np.repeat(np.arange(centres.size), intervals)
+    left = np.arange(int(intervals.sum())) - np.repeat(np.cumsum(intervals) - intervals, intervals) + np.repeat(lo, intervals)
+    depth_left, depth_right = transmittance_depth(absorbance[left]), transmittance_depth(absorbance[left + 1])
+    area = np.bincount(owner, weights=0.5 * (depth_left + depth_right) * (x[left + 1] - x[left]), minlength=centres.size)
     return area / np.maximum(model.central_share(half), 0.05)
 
 

@@ -32,6 +32,7 @@ from processing.baseline import BaselineResult
 from processing.line_shape import (
     LineShapeModel,
     equivalent_width_estimates,
+    transmittance_depth,
     explained_by_ringing,
     infer_line_shape,
     predicted_ringing,
@@ -465,11 +466,10 @@ def _deblend_far_neighbours(
     widths = np.concatenate([w, np.array([s[3] for s in saturated_lines])]) if saturated_lines else w
     heights = np.concatenate([h, np.array([s[2] for s in saturated_lines])]) if saturated_lines else h
     x = spectrum.wavenumber_cm1
-    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
-    top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
+    top_depth = transmittance_depth(np.clip(heights, 0.0, None))
     if model is None or c.size < 2:
         return h, c, w, cov, rms, weight, np.zeros(c.size)
-    equivalent = equivalent_width_estimates(x, depth, centres, model, widths)
+    equivalent = equivalent_width_estimates(x, baseline.corrected, centres, model, widths)
     saturated = np.concatenate([np.zeros(c.size, dtype=bool), np.ones(len(saturated_lines), dtype=bool)])
     # features that are other lines' lobes ring onto nothing and are no neighbours to take out
     lobe = explained_by_ringing(top_depth, predicted_ringing(centres, equivalent, model, centres, saturated),
@@ -558,10 +558,9 @@ def snr_of(height: np.ndarray, sigma: float) -> np.ndarray:
 def line_shape_of(spectrum: Spectrum, baseline: BaselineResult, centres: np.ndarray, widths: np.ndarray, heights: np.ndarray) -> LineShapeModel | None:
     """The instrument line shape of a spectrum: the stated one (apodization, resolution) unless
     the strongest lines plainly show another (`processing.line_shape.infer_line_shape`)."""
-    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
-    top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
+    top_depth = transmittance_depth(np.clip(heights, 0.0, None))
     stated = stated_line_shape(spectrum.meta.apodization, spectrum.meta.resolution_cm1)
-    return infer_line_shape(spectrum.wavenumber_cm1, depth, centres, widths, top_depth, math.log(10.0) * baseline.noise_sigma, stated)
+    return infer_line_shape(spectrum.wavenumber_cm1, baseline.corrected, centres, widths, top_depth, math.log(10.0) * baseline.noise_sigma, stated)
 
 
 def ringing_flags(
@@ -574,13 +573,12 @@ def ringing_flags(
     the window that best explains the strongest lines' profiles (`line_shape_of`) unless given."""
     flags = np.zeros(centres.size, dtype=bool)
     x = spectrum.wavenumber_cm1
-    depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected, -3.0, 12.0))
     noise_t = math.log(10.0) * baseline.noise_sigma
-    top_depth = 1.0 - np.power(10.0, -np.clip(heights, 0.0, 12.0))
+    top_depth = transmittance_depth(np.clip(heights, 0.0, None))
     model = model or line_shape_of(spectrum, baseline, centres, widths, heights)
     if model is None or centres.size < 2:
         return flags, model, np.zeros(centres.size)
-    equivalent = equivalent_width_estimates(x, depth, centres, model, widths)
+    equivalent = equivalent_width_estimates(x, baseline.corrected, centres, model, widths)
     lobes = predicted_ringing(centres, equivalent, model, centres, saturated)
     # in transmittance the detector noise is the same everywhere
     flags = explained_by_ringing(top_depth, lobes, np.full(centres.size, noise_t), threshold_sigma)
@@ -600,7 +598,7 @@ def negative_features(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
         return np.zeros(0)
     positions = spectrum.wavenumber_cm1[peaks]
     if lines.count and lines.line_shape is not None and lines.equivalent_width_estimate is not None:
-        depth = 1.0 - np.power(10.0, -np.clip(baseline.corrected[peaks], -3.0, 12.0))  # negative
+        depth = transmittance_depth(baseline.corrected[peaks])  # negative
         lobes = predicted_ringing(lines.position_cm1, lines.equivalent_width_estimate, lines.line_shape, positions, lines.saturated)
         noise_t = np.full(peaks.size, math.log(10.0) * baseline.noise_sigma)
         return positions[~explained_by_ringing(depth, lobes, noise_t, NEGATIVE_THRESHOLD_SIGMA)]
