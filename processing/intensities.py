@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from processing.physical_constants import C2_CM_K as _C2_CM_K
-from processing.levels import BandLines, DunhamCoefficients, R_BRANCH, band_lines, term_value
+from processing.levels import BandLines, DunhamCoefficients, R_BRANCH, band_lines, dunham_key, term_value
 from processing.species import Isotopologue
 
 # Second radiation constant c2 = h c / k in cm K (CODATA via scipy.constants).
@@ -52,8 +52,13 @@ def _check_temperature(temperature_K: float) -> None:
 def highest_bound_v(dunham: DunhamCoefficients) -> int:
     """Largest v for which the Dunham G(v) still increases with v (the expansion's validity
     limit, near dissociation)."""
+    return _highest_bound_v(dunham_key(dunham))
+
+
+@functools.lru_cache(maxsize=256)
+def _highest_bound_v(key: tuple) -> int:
     v = np.arange(0, _MAX_V + 1)
-    g = term_value(dunham, v, 0)
+    g = term_value(dict(key), v, 0)
     rising = np.diff(g) > 0
     if rising.all():
         return _MAX_V
@@ -63,8 +68,13 @@ def highest_bound_v(dunham: DunhamCoefficients) -> int:
 def highest_bound_J(dunham: DunhamCoefficients, v: int) -> int:
     """Largest J for which F_v(J) still increases with J (the centrifugal terms turn the Dunham
     series over beyond it)."""
+    return _highest_bound_J(dunham_key(dunham), int(v))
+
+
+@functools.lru_cache(maxsize=4096)
+def _highest_bound_J(key: tuple, v: int) -> int:
     J = np.arange(0, _MAX_J + 1)
-    e = term_value(dunham, v, J)
+    e = term_value(dict(key), v, J)
     rising = np.diff(e) > 0
     if rising.all():
         return _MAX_J
@@ -173,6 +183,7 @@ def _unnormalised(
     return hoenl_london(band) * herman_wallis_factor(band.m, herman_wallis) * population * nu * stimulated
 
 
+@functools.lru_cache(maxsize=512)
 def _band_normalisation(
     isotopologue: Isotopologue, delta_v: int, herman_wallis: tuple[float, float]
 ) -> float:

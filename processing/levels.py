@@ -48,14 +48,28 @@ def dunham_from_constants(constants: Mapping[str, float]) -> dict[tuple[int, int
 
 
 def term_value(dunham: DunhamCoefficients, v: np.ndarray | int, J: np.ndarray | int) -> np.ndarray:
-    """E(v, J) in cm-1 (relative to the potential minimum); broadcasts over v and J."""
+    """E(v, J) in cm-1 (relative to the potential minimum); broadcasts over v and J.
+
+    Summed as sum_l [J(J+1)]^l sum_k Y_kl (v+1/2)^k: for one v (the common case) the inner
+    sums are numbers and only one array operation per power of J(J+1) remains."""
     vib = np.asarray(v, dtype=np.float64) + 0.5
-    rot = np.asarray(J, dtype=np.float64)
-    rot = rot * (rot + 1.0)
-    total = np.zeros(np.broadcast(vib, rot).shape, dtype=np.float64)
+    x = np.asarray(J, dtype=np.float64)
+    x = x * (x + 1.0)
+    by_power: dict[int, np.ndarray | float] = {}
     for (k, l), y_kl in dunham.items():
-        total = total + y_kl * vib**k * rot**l
+        by_power[l] = by_power.get(l, 0.0) + y_kl * vib**k
+    total = np.zeros(np.broadcast(vib, x).shape, dtype=np.float64)
+    power: np.ndarray | float = 1.0
+    for l in range(max(by_power, default=-1) + 1):
+        if l in by_power:
+            total = total + by_power[l] * power
+        power = power * x
     return total
+
+
+def dunham_key(dunham: DunhamCoefficients) -> tuple[tuple[tuple[int, int], float], ...]:
+    """A hashable form of a set of Dunham coefficients (for caches)."""
+    return tuple(sorted(dunham.items()))
 
 
 def rotational_constant(dunham: DunhamCoefficients, v: int) -> float:

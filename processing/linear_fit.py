@@ -8,6 +8,7 @@ only nominal, C is scaled by chi2/dof itself.
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -43,9 +44,11 @@ class LinearFit:
     # other numbers (e.g. the library's own positions of the same lines)
     operator: np.ndarray | None = None
 
-    @property
+    @functools.cached_property
     def sigmas(self) -> np.ndarray:
-        return np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
+        sigmas = np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
+        sigmas.flags.writeable = False
+        return sigmas
 
     @property
     def correlation(self) -> np.ndarray:
