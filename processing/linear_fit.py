@@ -71,23 +71,41 @@ class LinearFit:
         return float(self.sigmas[self.names.index(name)])
 
 
-def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Parameters, unscaled covariance and the solution operator (parameters = operator @ y)
-    of the weighted problem, from one SVD of the column-scaled design (singular directions
-    below 1e-12 of the largest are dropped)."""
+@dataclass(frozen=True)
+class _Solution:
+    """One SVD solution of the weighted, column-scaled problem (see `_solve`)."""
+
+    params: np.ndarray
+    u: np.ndarray
+    v_inverse: np.ndarray  # V diag(1/s) (dropped directions zero)
+    inverse: np.ndarray
+    sqrt_w: np.ndarray
+    scale: np.ndarray
+
+    def operator(self) -> np.ndarray:
+        """parameters = operator @ y."""
+        return ((self.v_inverse @ self.u.T) * self.sqrt_w[None, :]) / self.scale[:, None]
+
+    def covariance(self) -> np.ndarray:
+        """Unscaled covariance (A^T W A)^-1."""
+        return (self.v_inverse @ self.v_inverse.T) / np.outer(self.scale, self.scale)
+
+
+def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
+    """The weighted problem solved from one SVD of the column-scaled design (singular
+    directions below 1e-12 of the largest are dropped); the operator and covariance are
+    formed only when asked (an outlier pass needs the parameters alone)."""
     sqrt_w = np.sqrt(weights)
     a = design * sqrt_w[:, None]
-    scale = np.linalg.norm(a, axis=0)
+    scale = np.sqrt(np.einsum("ij,ij->j", a, a))
     scale[scale == 0] = 1.0
     u, singular, vt = np.linalg.svd(a / scale, full_matrices=False)
     keep = singular > 1e-12 * singular[0] if singular.size else singular.astype(bool)
     inverse = np.zeros_like(singular)
     inverse[keep] = 1.0 / singular[keep]
-    operator = ((vt.T * inverse) @ u.T) * sqrt_w[None, :] / scale[:, None]
-    params = operator @ y
-    normal_inverse = (vt.T * inverse**2) @ vt
-    covariance = normal_inverse / np.outer(scale, scale)
-    return params, covariance, operator
+    v_inverse = vt.T * inverse
+    params = (v_inverse @ (u.T @ (sqrt_w * y))) / scale
+    return _Solution(params, u, v_inverse, inverse, sqrt_w, scale)
 
 
 def weighted_least_squares(
@@ -111,22 +129,28 @@ def weighted_least_squares(
     used = np.ones(n_rows, dtype=bool)
     weights = 1.0 / sigma**2
     max_rejections = int(0.2 * n_rows) if reject_outliers else 0
+    n_rejected = 0
     while True:
-        params, covariance, operator_used = _solve(design[used], y[used], weights[used])
+        all_rows = n_rejected == 0
+        solution = _solve(design if all_rows else design[used], y if all_rows else y[used], weights if all_rows else weights[used])
+        params = solution.params
         calc = design @ params
         residuals = y - calc
-        normalised = np.abs(residuals) / sigma
-        dof = int(used.sum()) - n_params
-        n_rejected = int((~used).sum())
+        dof = n_rows - n_rejected - n_params
         if n_rejected >= max_rejections or dof < 2:
             break
-        robust = 1.4826 * float(np.median(normalised[used]))
-        limit = 4.0 * max(1.0, robust)
+        normalised = np.abs(residuals) / sigma
+        kept = normalised[used]
+        middle = kept.size // 2
+        ordered = np.partition(kept, [middle - 1, middle] if kept.size % 2 == 0 else middle)
+        median = 0.5 * (ordered[middle - 1] + ordered[middle]) if kept.size % 2 == 0 else ordered[middle]
+        limit = 4.0 * max(1.0, 1.4826 * float(median))
         candidates = np.where(used, normalised, -np.inf)
         worst = int(np.argmax(candidates))
         if candidates[worst] <= limit:
             break
         used[worst] = False
+        n_rejected += 1
     chi2 = float(np.sum((residuals[used] / sigma[used]) ** 2))
     chi2_reduced = chi2 / dof if dof > 0 else float("nan")
     if dof <= 0:
@@ -135,12 +159,15 @@ def weighted_least_squares(
         inflation = max(1.0, chi2_reduced)
     else:
         inflation = chi2_reduced
-    operator = np.zeros((n_params, n_rows))
-    operator[:, used] = operator_used
+    if n_rejected:
+        operator = np.zeros((n_params, n_rows))
+        operator[:, used] = solution.operator()
+    else:
+        operator = solution.operator()
     return LinearFit(
         names=tuple(names),
         values=params,
-        covariance=covariance * inflation,
+        covariance=solution.covariance() * inflation,
         residuals=residuals,
         calc=calc,
         used=used,

@@ -235,6 +235,11 @@ def _core_weights(target: np.ndarray, half: int) -> np.ndarray:
     return weight
 
 
+# Gauss-Newton stops once no step moves a centre, width or height by this fraction of a width
+# (or of the height): far below any line's uncertainty.
+CONVERGED_STEP = 1e-9
+
+
 def _jacobian(x: np.ndarray, h: np.ndarray, c: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     u = (x - c[:, None]) / w[:, None]
     g = np.exp(-FOUR_LN2 * u**2)
@@ -273,10 +278,11 @@ def _fit_gaussians(
         g, jac = _jacobian(x, h, c, w)
         jac = columns(g, jac) * weight[:, :, None]
         r = (y - h[:, None] * g - offset[:, None] - slope[:, None] * (x - reference)) * weight
-        jtj = np.einsum("nki,nkj->nij", jac, jac) + 1e-12 * eye
-        jtr = np.einsum("nki,nk->ni", jac, r)
+        jac_t = jac.transpose(0, 2, 1)
+        jtj = jac_t @ jac + 1e-12 * eye
+        jtr = jac_t @ r[:, :, None]
         try:
-            step = np.linalg.solve(jtj, jtr[:, :, None])[:, :, 0]
+            step = np.linalg.solve(jtj, jtr)[:, :, 0]
         except np.linalg.LinAlgError:
             break
         # keep steps modest: centre within half a width, width and height positive
@@ -286,9 +292,12 @@ def _fit_gaussians(
         w = np.clip(w + step[:, 2], 0.3 * fwhm, 3.0 * fwhm)
         if background:
             offset, slope = offset + step[:, 3], slope + step[:, 4]
+        # converged everywhere: the last step moved no centre or width by 1e-9 of a width
+        if np.all(np.abs(step[:, 1:3]) <= CONVERGED_STEP * w[:, None]) and np.all(np.abs(step[:, 0]) <= CONVERGED_STEP * h):
+            break
     g, jac = _jacobian(x, h, c, w)
     jac = columns(g, jac) * weight[:, :, None]
-    normal = np.einsum("nki,nkj->nij", jac, jac)
+    normal = jac.transpose(0, 2, 1) @ jac
     # a degenerate window (a line on too few points, a diverged fit) gives an infinite
     # variance, not a warning: the caller replaces it
     degenerate = ~np.all(np.isfinite(normal), axis=(1, 2))
