@@ -307,4 +307,5 @@ def process_file(path: str | Path, settings: ProcessSettings | None = None) -> R
         # The bytes were read: their hash lets a ledger recognise the same bad file again.
         digest = hashlib.sha256(raw).hexdigest()
         return RunResult(file=source, status="unreadable", sha256=digest, error=str(error))
+    del raw  # a text export is several times the size of its arrays: not kept through the analysis
     return result_from_analysis(source, analyse(data, settings))
