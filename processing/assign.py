@@ -85,22 +85,6 @@ class LineAssignment:
     used_in_fit: bool
     blend_pull: float = 0.0  # shift of an unresolved blend's centre from this line (in calc)
 
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "isotopologue": self.isotopologue,
-            "v_upper": self.v_upper,
-            "v_lower": self.v_lower,
-            "branch": self.branch,
-            "J_lower": self.J_lower,
-            "m": int(m_from_branch(self.branch, self.J_lower)),
-            "calc": self.calc,
-            "residual": self.residual,
-            "confidence": self.confidence,
-            "method": self.method,
-            "blended": self.blended,
-            "used_in_fit": self.used_in_fit,
-        }
-
 
 @dataclass(frozen=True)
 class AssignmentResult:

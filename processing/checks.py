@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 
 from processing.errors import ConfigError, UnknownSpeciesError
+from processing.results import CalibrationBand, CalibrationFit, Check
 
 STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}
 NOT_ASSESSED = "not_assessed"  # the check could not be made; ignored by the verdict
@@ -90,21 +91,6 @@ _THRESHOLD_PAIRS = (
     ("calibration_scale_pass_ppm", "calibration_scale_warn_ppm", False),
     ("temperature_min_K", "temperature_max_K", False),
 )
-
-
-@dataclass(frozen=True)
-class Check:
-    name: str
-    status: str  # "pass" | "warn" | "fail" | "not_assessed"
-    detail: str
-    value: float | None = None
-    fit: dict[str, Any] | None = None  # the calibration check's offset + scale fit
-
-    def to_dict(self) -> dict[str, Any]:
-        out = {"name": self.name, "status": self.status, "detail": self.detail, "value": self.value}
-        if self.fit is not None:
-            out["fit"] = self.fit
-        return out
 
 
 def _grade(value: float, good: float, fair: float, higher_is_better: bool = True) -> str:
@@ -199,18 +185,18 @@ def check_calibration(analysis: Any, library: Any, t: CheckThresholds) -> Check:
     fit = calibration_fit(analysis)
     if fit is None:
         return Check("calibration", NOT_ASSESSED, "no library band to compare with", None)
-    offset, offset_sigma = fit["offset_cm1"], fit["offset_sigma_cm1"]
-    scale, scale_sigma = fit["scale_ppm"], fit["scale_sigma_ppm"]
+    offset, offset_sigma = fit.offset_cm1, fit.offset_sigma_cm1
+    scale, scale_sigma = fit.scale_ppm, fit.scale_sigma_ppm
     offset_status = _grade_with_noise(offset, offset_sigma, t.calibration_pass_cm1, t.calibration_warn_cm1)
     scale_status = _grade_with_noise(scale, scale_sigma, t.calibration_scale_pass_ppm, t.calibration_scale_warn_ppm)
     status = max(offset_status, scale_status, key=STATUS_ORDER.__getitem__)
-    ranked = sorted(fit["bands"], key=lambda b: -b["weight"])
-    named = ", ".join(f"{b['label']} {b['offset']:+.3f} ({100 * b['weight']:.0f}%)" for b in ranked[:4])
-    centre = fit["wavenumber_cm1"]
+    ranked = sorted(fit.bands, key=lambda b: -b.weight)
+    named = ", ".join(f"{b.label} {b.offset:+.3f} ({100 * b.weight:.0f}%)" for b in ranked[:4])
+    centre = fit.wavenumber_cm1
     offset_text = f"offset {offset:+.3f} +- {offset_sigma:.3f} cm-1 at {centre:.0f} cm-1"
     scale_text = f"scale {scale:+.0f} +- {scale_sigma:.0f} ppm"
     if scale_status != "pass":
-        lowest, highest = min(b["wavenumber_cm1"] for b in fit["bands"]), max(b["wavenumber_cm1"] for b in fit["bands"])
+        lowest, highest = min(b.wavenumber_cm1 for b in fit.bands), max(b.wavenumber_cm1 for b in fit.bands)
         at = lambda nu: offset + scale * 1e-6 * (nu - centre)  # noqa: E731
         stretch = f" (axis stretched: {at(lowest):+.2f} cm-1 at {lowest:.0f}, {at(highest):+.2f} at {highest:.0f})" if highest - lowest > 100 else ""
         reason = f"wavenumber scale error {scale_text}{stretch}; {offset_text}"
@@ -221,7 +207,7 @@ def check_calibration(analysis: Any, library: Any, t: CheckThresholds) -> Check:
     return Check("calibration", status, f"{reason}; set by {named}", offset, fit)
 
 
-def calibration_fit(analysis: Any) -> dict[str, Any] | None:
+def calibration_fit(analysis: Any) -> CalibrationFit | None:
     """Offset (at the mean wavenumber) and scale of the axis from the band references;
     None when no band has one."""
     constants = getattr(analysis, "constants", None)
@@ -275,18 +261,17 @@ def calibration_fit(analysis: Any) -> dict[str, Any] | None:
     inflation = max(1.0, chi2 / dof) if dof > 0 else 1.0
     sigmas = np.sqrt(np.clip(np.diag(normal_inverse) * inflation, 0.0, None))
     total = origin_weights.sum()
-    for band, weight in zip(per_band, origin_weights):
-        band["weight"] = float(weight / total)
-    return {
-        "offset_cm1": float(parameters[0]),
-        "offset_sigma_cm1": float(sigmas[0]),
-        "scale_ppm": float(parameters[1]),
-        "scale_sigma_ppm": float(sigmas[1]),
-        "wavenumber_cm1": centre,
-        "chi2_reduced": chi2 / dof if dof > 0 else None,
-        "model": "shown = true (1 + scale) + offset; origins, B' and B'' of every band against the reference for its model",
-        "bands": per_band,
-    }
+    return CalibrationFit(
+        offset_cm1=float(parameters[0]),
+        offset_sigma_cm1=float(sigmas[0]),
+        scale_ppm=float(parameters[1]),
+        scale_sigma_ppm=float(sigmas[1]),
+        wavenumber_cm1=centre,
+        chi2_reduced=chi2 / dof if dof > 0 else None,
+        model="shown = true (1 + scale) + offset; origins, B' and B'' of every band against the reference for its model",
+        bands=tuple(CalibrationBand(b["label"], b["offset"], b["sigma"], b["wavenumber_cm1"], float(weight / total))
+                    for b, weight in zip(per_band, origin_weights)),
+    )
 
 
 def check_interferents(analysis: Any, t: CheckThresholds, axis_inverted: bool = False) -> Check:

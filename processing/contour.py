@@ -16,7 +16,6 @@ uncertainty: for a given contour, B ~ 1 / T.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -25,51 +24,11 @@ from processing.estimate import Estimate
 from processing.levels import band_origin, rotational_constant
 from processing.line_shape import LineShapeModel
 from processing.physical_constants import C2_CM_K
+from processing.results import BandContour
 
 ROOM_TEMPERATURE_SIGMA_K = 10.0  # the assumption "room temperature" is good to about this
 MIN_CONTOUR_SNR = 10.0  # each branch maximum must stand this far above the noise
 UNRESOLVED_SPACING_FWHM = 1.2  # lines closer than this many line-shape FWHM are not split
-
-
-@dataclass(frozen=True)
-class BandContour:
-    """An unresolved band seen as its P and R branch contours."""
-
-    isotopologue: str
-    v_upper: int
-    v_lower: int
-    p_max_cm1: float
-    r_max_cm1: float
-    line_spacing_cm1: float  # 2 B'' near the band centre (library)
-    resolution_fwhm_cm1: float  # of the instrument line shape used
-    origin: Estimate
-    B_lower: Estimate  # from the contour fit
-    temperature_K: float
-    model: str
-
-    @property
-    def label(self) -> str:
-        return f"{self.isotopologue} {self.v_upper}-{self.v_lower}"
-
-    @property
-    def separation_cm1(self) -> float:
-        return self.r_max_cm1 - self.p_max_cm1
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "isotopologue": self.isotopologue,
-            "v_upper": self.v_upper,
-            "v_lower": self.v_lower,
-            "p_max_cm1": self.p_max_cm1,
-            "r_max_cm1": self.r_max_cm1,
-            "separation_cm1": self.separation_cm1,
-            "line_spacing_cm1": self.line_spacing_cm1,
-            "resolution_fwhm_cm1": self.resolution_fwhm_cm1,
-            "origin": self.origin.to_dict(),
-            "B_lower": self.B_lower.to_dict(),
-            "temperature_K": self.temperature_K,
-            "model": self.model,
-        }
 
 
 def _lines(origin: float, B_lower: float, B_upper: float, temperature_K: float) -> tuple[np.ndarray, np.ndarray]:

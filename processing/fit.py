@@ -13,36 +13,13 @@ with F(J) = B x - D x^2, fitted for B (and D when significant).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 
-from processing.estimate import Estimate, format_value_sigma
+from processing.estimate import Estimate
 from processing.levels import R_BRANCH, upper_J
 from processing.linear_fit import OUTLIER_RULE, SIGNIFICANT, SIGNIFICANT_SEXTIC, LinearFit, weighted_least_squares
-
-
-
-@dataclass(frozen=True)
-class CombinationDifferenceFit:
-    """B (and D) of one vibrational state from combination differences."""
-
-    state: str  # "lower" or "upper"
-    v: int
-    B: Estimate
-    D: Estimate | None
-    n_pairs: int
-    rms: float
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "state": self.state,
-            "v": self.v,
-            "B": self.B.to_dict(),
-            "D": self.D.to_dict() if self.D else None,
-            "n_pairs": self.n_pairs,
-            "rms": self.rms,
-        }
+from processing.results import CombinationDifferences
 
 
 @dataclass(frozen=True)
@@ -76,8 +53,8 @@ class BandFit:
     sigma: np.ndarray | None = None  # the line uncertainties the fit used (cm-1)
     linear_fit: LinearFit | None = field(default=None, repr=False, compare=False)  # for model references
     held: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)  # (D', D'', H', H'') held, not fitted
-    lower_combination: CombinationDifferenceFit | None = None
-    upper_combination: CombinationDifferenceFit | None = None
+    lower_combination: CombinationDifferences | None = None
+    upper_combination: CombinationDifferences | None = None
     notes: tuple[str, ...] = field(default=())
 
     @property
@@ -114,57 +91,6 @@ class BandFit:
     @property
     def label(self) -> str:
         return f"{self.isotopologue} {self.v_upper}-{self.v_lower}"
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "isotopologue": self.isotopologue,
-            "v_upper": self.v_upper,
-            "v_lower": self.v_lower,
-            "n_lines": self.n_lines,
-            "n_rejected": int((~self.used).sum()),
-            "rms": self.rms,
-            "origin": self.origin.to_dict(),
-            "B_upper": self.B_upper.to_dict(),
-            "B_lower": self.B_lower.to_dict(),
-            "D_upper": self.D_upper.to_dict() if self.D_upper else None,
-            "D_lower": self.D_lower.to_dict() if self.D_lower else None,
-            "d_model": self.d_model,
-            "held_centrifugal": dict(zip(("D_upper", "D_lower", "H_upper", "H_lower"), self.held)) if any(self.held) else None,
-            "H_upper": self.H_upper.to_dict() if self.H_upper else None,
-            "H_lower": self.H_lower.to_dict() if self.H_lower else None,
-            "h_model": self.h_model,
-            "chi2_reduced": None if not np.isfinite(self.chi2_reduced) else self.chi2_reduced,
-            "parameters": list(self.parameter_names),
-            "correlation": np.round(self.correlation, 6).tolist(),
-            "rejection_rule": self.rejection_rule,
-            "combination_differences": [
-                cd.to_dict() for cd in (self.lower_combination, self.upper_combination) if cd
-            ],
-            "notes": list(self.notes),
-        }
-
-    def report(self) -> str:
-        """A few lines of text: constants, fit quality, and the combination-difference check."""
-        rows = [f"{self.label}: {self.n_lines} lines, rms {self.rms:.4f} cm-1, {self.d_model}"]
-        for name, estimate in (
-            ("nu0", self.origin),
-            ("B'", self.B_upper),
-            ("B''", self.B_lower),
-            ("D'", self.D_upper),
-            ("D''", self.D_lower),
-            ("H'", self.H_upper),
-            ("H''", self.H_lower),
-        ):
-            if estimate is not None:
-                rows.append(f"  {name:4s} {format_value_sigma(estimate.value, estimate.sigma)} cm-1")
-        for cd in (self.lower_combination, self.upper_combination):
-            if cd is not None:
-                mark = "B''" if cd.state == "lower" else "B'"
-                rows.append(
-                    f"  {mark} from combination differences ({cd.n_pairs} pairs): "
-                    f"{format_value_sigma(cd.B.value, cd.B.sigma)} cm-1"
-                )
-        return "\n".join(rows)
 
 
 def _x(J: np.ndarray) -> np.ndarray:
@@ -400,7 +326,7 @@ def combination_difference_pairs(
 def fit_combination_differences(
     state: str, v: int, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray,
     sigma_known: bool = True,
-) -> CombinationDifferenceFit | None:
+) -> CombinationDifferences | None:
     """B (and D if significant) of the `state` ("lower"/"upper") level; None with < 3 pairs."""
     J, difference, diff_sigma = combination_difference_pairs(state, branch, J_lower, observed, sigma)
     if J.size < 3:
@@ -418,7 +344,7 @@ def fit_combination_differences(
         fit = weighted_least_squares(b_column[:, None], difference, diff_sigma, ("B",), sigma_known=sigma_known)
     has_d = "D" in fit.names
     sig = (lambda name: fit.sigma(name) if fit.dof > 0 else None)
-    return CombinationDifferenceFit(
+    return CombinationDifferences(
         state=state,
         v=v,
         B=Estimate(fit.value("B"), sig("B")),

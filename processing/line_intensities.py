@@ -27,6 +27,7 @@ from processing.linear_fit import weighted_least_squares
 from processing.noise import white_noise
 from processing.line_shape import transmittance_depth
 from processing.physical_constants import C2_CM_K
+from processing.results import AbundanceRatio, HydrogenFraction, RotationalTemperature
 
 # measured/natural isotopologue ratio (plus twice its standard error) above which lines count
 # as optically thin: a 10% deficit already biased the plain Boltzmann plot by 3-6 sigma (305
@@ -35,69 +36,6 @@ from processing.physical_constants import C2_CM_K
 THIN_LIMIT = 0.95
 # beyond this first-order deficit of the strongest line the correction is not trusted
 KAPPA_LIMIT = 0.3
-TEMPERATURE_MODEL = (
-    "Boltzmann plot ln(W / (L_HL nu)) = a_P|R - E''/(k T); sigma adds the shift a first-order "
-    "optical-depth term (- kappa W / W_max) makes"
-)
-
-
-@dataclass(frozen=True)
-class RotationalTemperature:
-    isotopologue: str
-    v_upper: int
-    v_lower: int
-    temperature: Estimate  # K; sigma includes the optical-depth systematic
-    n_lines: int
-    rms: float  # of ln(W/(L nu)) residuals
-    optical_depth: Estimate | None = None  # kappa: relative W deficit of the strongest line
-    uncorrected: Estimate | None = None  # the plain Boltzmann plot, statistical sigma only
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "isotopologue": self.isotopologue,
-            "v_upper": self.v_upper,
-            "v_lower": self.v_lower,
-            "temperature_K": self.temperature.to_dict(),
-            "n_lines": self.n_lines,
-            "rms": self.rms,
-            "optical_depth_deficit": self.optical_depth.to_dict() if self.optical_depth else None,
-            "statistical_temperature_K": self.uncorrected.to_dict() if self.uncorrected else None,
-            "model": TEMPERATURE_MODEL,
-        }
-
-
-@dataclass(frozen=True)
-class AbundanceRatio:
-    numerator: str
-    denominator: str
-    ratio: Estimate  # dimensionless
-    natural: float | None
-    n_pairs: int
-    basis: str
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "numerator": self.numerator,
-            "denominator": self.denominator,
-            "ratio": self.ratio.to_dict(),
-            "natural": self.natural,
-            "n_pairs": self.n_pairs,
-            "basis": self.basis,
-        }
-
-
-@dataclass(frozen=True)
-class HydrogenFraction:
-    molecule_h: str
-    molecule_d: str
-    fraction_h: Estimate  # N(H form) / (N(H form) + N(D form))
-    n_lines: int
-    basis: str
-
-    def to_dict(self) -> dict[str, Any]:
-        return {"molecule_h": self.molecule_h, "molecule_d": self.molecule_d, "hydrogen_fraction": self.fraction_h.to_dict(), "n_lines": self.n_lines, "basis": self.basis}
-
-
 @dataclass(frozen=True)
 class IntensityResult:
     equivalent_width_cm1: np.ndarray  # per line of the LineTable (nan where not measured)
@@ -108,16 +46,6 @@ class IntensityResult:
     thinness: float | None  # measured/natural ratio of the best-measured pair (1 = thin)
     hydrogen_fractions: tuple[HydrogenFraction, ...] = ()
     notes: tuple[str, ...] = field(default=())
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "rotational_temperatures": [t.to_dict() for t in self.temperatures],
-            "abundance_ratios": [r.to_dict() for r in self.ratios],
-            "optically_thin": self.optically_thin,
-            "hydrogen_fractions": [h.to_dict() for h in self.hydrogen_fractions],
-            "thin_ratio": self.thinness,
-            "notes": list(self.notes),
-        }
 
 
 # Lines closer than this many widths share their wings: their equivalent width is measured as

@@ -36,6 +36,17 @@ from processing.estimate import Estimate
 from processing.levels import CONSTANT_TO_DUNHAM, band_origin, centrifugal_constant, rotational_constant, sextic_constant, upper_J
 from processing.library_uncertainty import LibraryParameters, library_parameters, predicted_lines
 from processing.model_reference import Compared, FittedModel, fitted_model
+from processing.results import (
+    Comparison,
+    DerivedQuantity,
+    HeldTerm,
+    IsotopologueConstants,
+    MassReducedFit,
+    MassReducedMember,
+    ReferencedValue,
+    Relation,
+)
+from processing.species import Isotopologue
 from processing.physical_constants import (
     CM1_TO_EV,
     CM1_TO_KJ_PER_MOL,
@@ -56,50 +67,6 @@ BORN_OPPENHEIMER_OMEGA_CM1 = 0.1
 BORN_OPPENHEIMER_B_CM1 = 3e-4
 # a mean residual per isotopologue beyond this many standard errors is not noise
 RESIDUAL_MEAN_LIMIT = 3.0
-
-
-@dataclass(frozen=True)
-class Comparison:
-    """A fitted quantity against the reference for the model fitted.
-
-    `reference` is what the same model gives on the library's own positions of the same lines
-    (the value shown beside the fitted one); `handbook` is the library's value of the
-    constant itself (tabulated or mass-scaled); `z` = difference / `combined_sigma` (the fit's
-    statistical error and the reference's own uncertainty). The `effective_*` keys repeat
-    `reference` and `z` for readers of the older form."""
-
-    name: str
-    fitted: Estimate
-    reference: float
-    source: str
-    difference: float
-    difference_percent: float
-    z: float | None
-    effective_reference: float | None = None
-    effective_z: float | None = None
-    effective_rule: str | None = None
-    reference_sigma: float | None = None
-    combined_sigma: float | None = None
-    handbook: float | None = None
-    model: str = ""
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "name": self.name,
-            "fitted": self.fitted.to_dict(),
-            "reference": self.reference,
-            "reference_sigma": self.reference_sigma,
-            "source": self.source,
-            "difference": self.difference,
-            "difference_percent": self.difference_percent,
-            "z": self.z,
-            "combined_sigma": self.combined_sigma,
-            "handbook": self.handbook,
-            "model": self.model,
-            "effective_reference": self.effective_reference,
-            "effective_z": self.effective_z,
-            "effective_rule": self.effective_rule,
-        }
 
 
 def make_comparison(name: str, compared: Compared, unit: str, handbook: float | None, source: str, model: str) -> Comparison | None:
@@ -127,79 +94,6 @@ def make_comparison(name: str, compared: Compared, unit: str, handbook: float | 
 
 
 @dataclass(frozen=True)
-class IsotopologueConstants:
-    isotopologue: str
-    n_lines: int
-    vibrational_levels: tuple[int, ...]
-    rms_cm1: float
-    constants: dict[str, Estimate | None]  # omega_e ... H_e, r_e (angstrom): fitted only
-    band_origins: dict[str, Estimate]  # "1-0" -> nu0 from the term fit
-    B_v: dict[int, Estimate]
-    derived: dict[str, dict[str, Any]]  # k_e, zero_point_energy, morse_*: value, sigma, unit, model, reference, z
-    comparisons: tuple[Comparison, ...]
-    diagnostics: dict[str, dict[str, Any]]  # kratzer, pekeris
-    dunham: dict[str, Estimate]
-    correlation: list[list[float]]
-    notes: tuple[str, ...] = field(default=())
-    held: dict[str, dict[str, Any]] = field(default_factory=dict)  # constant -> value, sigma, source
-    origin_comparisons: tuple[Comparison, ...] = ()
-    B_v_comparisons: tuple[Comparison, ...] = ()
-    model: str = ""
-    chi2_reduced: float | None = None
-
-    def to_dict(self) -> dict[str, Any]:
-        out: dict[str, Any] = {"isotopologue": self.isotopologue}
-        for name in ("B_e", "alpha_e", "D_e", "r_e", "omega_e", "omega_e_x_e", "omega_e_y_e", "gamma_e", "beta_e", "H_e"):
-            estimate = self.constants.get(name)
-            out[name] = estimate.to_dict() if estimate is not None else None
-        out.update(
-            {
-                "n_lines": self.n_lines,
-                "vibrational_levels": list(self.vibrational_levels),
-                "rms": self.rms_cm1,
-                "chi2_reduced": self.chi2_reduced,
-                "model": self.model,
-                "held": self.held,
-                "band_origins": {k: v.to_dict() for k, v in self.band_origins.items()},
-                "band_origins_reference": {c.name: c.to_dict() for c in self.origin_comparisons},
-                "B_v": {str(v): e.to_dict() for v, e in self.B_v.items()},
-                "B_v_reference": {c.name: c.to_dict() for c in self.B_v_comparisons},
-                "derived": self.derived,
-                "reference": {c.name: c.to_dict() for c in self.comparisons},
-                "diagnostics": self.diagnostics,
-                "dunham": {k: v.to_dict() for k, v in self.dunham.items()},
-                "dunham_correlation": self.correlation,
-                "notes": list(self.notes),
-            }
-        )
-        return out
-
-
-@dataclass(frozen=True)
-class MassReducedFit:
-    molecule: str
-    isotopologues: tuple[str, ...]
-    n_lines: int
-    rms_cm1: float
-    parameters: dict[str, Estimate]  # U_kl
-    per_isotopologue: dict[str, dict[str, Any]]  # omega_e, omega_e_x_e, B_e derived; residual mean/rms
-    notes: tuple[str, ...] = field(default=())
-    held: dict[str, float] = field(default_factory=dict)
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "molecule": self.molecule,
-            "isotopologues": list(self.isotopologues),
-            "n_lines": self.n_lines,
-            "rms": self.rms_cm1,
-            "parameters": {k: v.to_dict() for k, v in self.parameters.items()},
-            "held": self.held,
-            "per_isotopologue": self.per_isotopologue,
-            "notes": list(self.notes),
-        }
-
-
-@dataclass(frozen=True)
 class BandReference:
     """A band fit's parameters against the reference for its model (see `model_reference`)."""
 
@@ -212,9 +106,6 @@ class BandReference:
     @property
     def key(self) -> tuple[str, int, int]:
         return (self.isotopologue, self.v_upper, self.v_lower)
-
-    def to_dict(self) -> dict[str, Any]:
-        return {c.name: c.to_dict() for c in self.comparisons}
 
 
 # ------------------------------------------------------------------------------ line table
@@ -380,12 +271,12 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
     diagnostics = _diagnostics(constants, isotopologue)
     dunham = {name: Estimate(float(term_fit.fit.values[i]), float(term_fit.fit.sigmas[i])) for i, name in enumerate(term_fit.names)}
     covariance = model.covariance()
-    held = {}
+    held: dict[str, HeldTerm] = {}
     for t, value in term_fit.held.items():
         name, sign = NAME_OF_TERM.get(t, (f"Y{t[0]}{t[1]}", 1.0))
         i = model.index(f"Y{t[0]}{t[1]}")
         sigma = math.sqrt(max(covariance[i, i], 0.0)) if i is not None else None
-        held[name] = {"value": sign * value, "sigma": sigma, "source": _source(isotopologue, name)}
+        held[name] = HeldTerm(sign * value, sigma, _source(isotopologue, name))
     return IsotopologueConstants(
         isotopologue=isotopologue.label,
         n_lines=int(term_fit.fit.used.sum()),
@@ -398,7 +289,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
         comparisons=tuple(comparisons),
         diagnostics=diagnostics,
         dunham=dunham,
-        correlation=np.round(term_fit.fit.correlation, 6).tolist(),
+        correlation=tuple(tuple(row) for row in np.round(term_fit.fit.correlation, 6).tolist()),
         notes=tuple(notes),
         held=held,
         origin_comparisons=tuple(origin_comparisons),
@@ -419,7 +310,7 @@ def _vibrational_term(values: np.ndarray, term: Callable[[np.ndarray, int, int],
     return sum(term(values, k, 0) * (v + 0.5) ** k for k in range(1, 5))
 
 
-def _derived(model: FittedModel, term: Callable[[np.ndarray, int, int], float], mu: float) -> dict[str, dict[str, Any]]:
+def _derived(model: FittedModel, term: Callable[[np.ndarray, int, int], float], mu: float) -> dict[str, DerivedQuantity]:
     """k_e, zero-point energy and the Morse figures, each with its model reference and z."""
 
     def omega(p: np.ndarray) -> float:
@@ -431,13 +322,12 @@ def _derived(model: FittedModel, term: Callable[[np.ndarray, int, int], float], 
     def zero_point(p: np.ndarray) -> float:
         return _vibrational_term(p, term, 0)
 
-    def entry(compared: Compared, unit: str, model_text: str, **extra: Any) -> dict[str, Any]:
-        out = {"value": compared.value, "sigma": compared.sigma, "unit": unit, "model": model_text,
-               "reference": compared.reference, "reference_sigma": compared.reference_sigma, "z": compared.z}
-        out.update(extra)
-        return out
+    def entry(compared: Compared, unit: str, model_text: str, value_eV: float | None = None,
+              value_kJ_per_mol: float | None = None) -> DerivedQuantity:
+        return DerivedQuantity(compared.value, compared.sigma, unit, model_text, compared.reference, compared.reference_sigma,
+                               compared.z, value_eV, value_kJ_per_mol)
 
-    out: dict[str, dict[str, Any]] = {}
+    out: dict[str, DerivedQuantity] = {}
     out["k_e"] = entry(model.quantity(lambda p: force_constant_n_per_m(omega(p), mu)), "N/m", "harmonic: k_e = mu (2 pi c omega_e)^2")
     out["zero_point_energy"] = entry(model.quantity(zero_point), "cm-1", "Dunham G(0) = sum_k Y_k0 / 2^k, held terms included (Y00 omitted)")
     if omega_x(model.values) > 0:
@@ -463,9 +353,9 @@ def _library_value(isotopologue: Any, name: str) -> float | None:
     return None if value is None else sign * value
 
 
-def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Any) -> dict[str, dict[str, Any]]:
+def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Isotopologue) -> dict[str, Relation]:
     """Kratzer and Pekeris relations, with fitted values where the run has them."""
-    out: dict[str, dict[str, Any]] = {}
+    out: dict[str, Relation] = {}
     B_e = constants["B_e"].value if constants.get("B_e") else None
     omega = constants["omega_e"].value if constants.get("omega_e") else _library_value(isotopologue, "omega_e")
     omega_source = "fitted" if constants.get("omega_e") else "library"
@@ -473,23 +363,13 @@ def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Any) -> di
     if B_e and omega:
         kratzer = 4 * B_e**3 / omega**2
         D_fit = constants.get("D_e")
-        out["kratzer"] = {
-            "relation": "D_e ~ 4 B_e^3 / omega_e^2",
-            "predicted_D_e": kratzer,
-            "fitted_D_e": D_fit.value if D_fit else None,
-            "ratio": (D_fit.value / kratzer) if D_fit else None,
-            "omega_e_from": omega_source,
-        }
+        out["kratzer"] = Relation("D_e ~ 4 B_e^3 / omega_e^2", "D_e", kratzer, D_fit.value if D_fit else None,
+                                  (D_fit.value / kratzer) if D_fit else None, omega_source)
     if B_e and omega and omega_x and omega_x > 0:
         pekeris = 6 * math.sqrt(omega_x * B_e**3) / omega - 6 * B_e**2 / omega
         alpha = constants.get("alpha_e")
-        out["pekeris"] = {
-            "relation": "alpha_e ~ 6 sqrt(omega_e x_e B_e^3)/omega_e - 6 B_e^2/omega_e (Morse; 5-20%)",
-            "predicted_alpha_e": pekeris,
-            "fitted_alpha_e": alpha.value if alpha else None,
-            "ratio": (alpha.value / pekeris) if alpha else None,
-            "omega_e_from": omega_source,
-        }
+        out["pekeris"] = Relation("alpha_e ~ 6 sqrt(omega_e x_e B_e^3)/omega_e - 6 B_e^2/omega_e (Morse; 5-20%)", "alpha_e",
+                                  pekeris, alpha.value if alpha else None, (alpha.value / pekeris) if alpha else None, omega_source)
     return out
 
 
@@ -583,7 +463,7 @@ def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Any = None) -
         compared = model.parameter(name)
         parameters[name] = Estimate(compared.value, compared.sigma, "cm-1 u^" + f"{int(name[1]) / 2 + int(name[2]):g}")
     vibration_determined = term_fit.index(2, 0) is not None
-    per_isotopologue: dict[str, dict[str, Any]] = {}
+    per_isotopologue: dict[str, MassReducedMember] = {}
     any_excess = []
     for label in labels:
         mine = lines.isotopologue == label
@@ -593,13 +473,7 @@ def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Any = None) -
         weights = 1.0 / lines.sigma_cm1[used] ** 2
         mean = float(np.sum(weights * residuals) / weights.sum()) if residuals.size else None
         mean_sigma = float(math.sqrt(max(1.0, fit.chi2_reduced if np.isfinite(fit.chi2_reduced) else 1.0) / weights.sum())) if residuals.size else None
-        entry: dict[str, Any] = {
-            "reduced_mass_u": mu,
-            "n_lines": int(mine.sum()),
-            "residual_mean": mean,
-            "residual_mean_sigma": mean_sigma,
-            "residual_rms": float(np.sqrt(np.mean(residuals**2))) if residuals.size else None,
-        }
+        member_constants: dict[str, ReferencedValue] = {}
         if mean is not None and mean_sigma and abs(mean) > RESIDUAL_MEAN_LIMIT * mean_sigma:
             any_excess.append(f"{label} {mean:+.4f} +- {mean_sigma:.4f} cm-1")
         for (k, l), (name, sign) in CONSTANT_OF_TERM.items():
@@ -607,9 +481,10 @@ def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Any = None) -
                 continue
             scale = mu ** (-(k / 2 + l))
             compared = model.linear(_term_weights(model, {(k, l): sign * scale}, "U"))
-            entry[name] = {"value": compared.value, "sigma": compared.sigma, "reference": compared.reference,
-                           "reference_sigma": compared.reference_sigma, "z": compared.z}
-        per_isotopologue[label] = entry
+            member_constants[name] = ReferencedValue(compared.value, compared.sigma, compared.reference, compared.reference_sigma, compared.z)
+        per_isotopologue[label] = MassReducedMember(
+            mu, int(mine.sum()), mean, mean_sigma, float(np.sqrt(np.mean(residuals**2))) if residuals.size else None, member_constants
+        )
     held = {f"U{k}{l}": value for (k, l), value in term_fit.held.items()}
     if term_fit.held:
         notes.append("held at the library's values (from " + str(main) + "): " + ", ".join(held))

@@ -8,14 +8,41 @@ from __future__ import annotations
 import hashlib
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING
 
+import numpy as np
+
+from processing.checks import CheckThresholds
 from processing.errors import SpectrumFileError
+from processing.estimate import Estimate
+from processing.levels import m_from_branch
 from processing.readers import DEFAULT_MAX_BYTES, load_bytes, parse_bytes
 from processing.regular_files import ReadPolicy
+from processing.results import (
+    Assignment,
+    Band,
+    BandContour,
+    BaselineSummary,
+    Check,
+    FringeSummary,
+    Intensities,
+    Line,
+    RunResult,
+    SaturatedRegion,
+    SpectrumSummary,
+)
 from processing.spectrum import LineList, Spectrum
 
-SCHEMA_VERSION = 1
+if TYPE_CHECKING:
+    from processing.assign import AssignmentResult, LineAssignment
+    from processing.baseline import BaselineResult
+    from processing.fit import BandFit
+    from processing.line_intensities import IntensityResult
+    from processing.lines import LineTable
+    from processing.molecular_constants import ConstantsResult
+    from processing.species import Library
+
+__all__ = ["Analysis", "ProcessSettings", "RunResult", "SpectrumSummary", "analyse", "process_file", "result_from_analysis"]
 
 
 @dataclass(frozen=True)
@@ -31,100 +58,8 @@ class ProcessSettings:
     j_offsets: tuple[tuple[str, int, int, str, int], ...] = ()
     excluded_positions_cm1: tuple[float, ...] = ()  # lines to leave out of assignment and fits
     library_file: str | None = None  # a user library file that adds or overrides species
-    checks: dict[str, Any] = field(default_factory=dict)  # threshold overrides (see processing.checks)
+    thresholds: CheckThresholds = field(default_factory=CheckThresholds)  # the run checks' limits (not analysis)
     read_policy: ReadPolicy | None = None  # where files may be read from (the station's folders)
-
-
-@dataclass(frozen=True)
-class SpectrumSummary:
-    """What was read: enough for a table row and the `spectrum` JSON object."""
-
-    points: int
-    first_cm1: float
-    last_cm1: float
-    spacing_cm1: float | None
-    y_units: str
-    resolution_cm1: float | None
-    kind: str  # "spectrum" or "line list"
-    format: str
-    title: str
-    notes: tuple[str, ...] = ()
-
-    @classmethod
-    def of(cls, data: Spectrum | LineList) -> SpectrumSummary:
-        if isinstance(data, Spectrum):
-            return cls(
-                points=data.points,
-                first_cm1=data.first_cm1,
-                last_cm1=data.last_cm1,
-                spacing_cm1=data.spacing_cm1,
-                y_units=data.original_y_kind,
-                resolution_cm1=data.meta.resolution_cm1,
-                kind="spectrum",
-                format=data.meta.format,
-                title=data.meta.title,
-                notes=data.meta.notes + (f"y conversion: {data.conversion}",),
-            )
-        return cls(
-            points=data.points,
-            first_cm1=float(data.position_cm1[0]),
-            last_cm1=float(data.position_cm1[-1]),
-            spacing_cm1=None,
-            y_units=data.y_kind,
-            resolution_cm1=data.meta.resolution_cm1,
-            kind="line list",
-            format=data.meta.format,
-            title=data.meta.title,
-            notes=data.meta.notes,
-        )
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "points": self.points,
-            "first_cm1": self.first_cm1,
-            "last_cm1": self.last_cm1,
-            "spacing_cm1": self.spacing_cm1,
-            "y_units": self.y_units,
-            "resolution_cm1": self.resolution_cm1,
-            "kind": self.kind,
-            "format": self.format,
-            "title": self.title,
-            "notes": list(self.notes),
-        }
-
-
-@dataclass(frozen=True)
-class RunResult:
-    """Everything bandwatch concluded about one file."""
-
-    file: str
-    status: str  # "processed" | "unreadable"
-    sha256: str | None = None
-    error: str | None = None
-    spectrum: SpectrumSummary | None = None
-    lines: tuple[dict[str, Any], ...] = ()
-    bands: tuple[dict[str, Any], ...] = ()
-    constants: tuple[dict[str, Any], ...] = ()
-    checks: tuple[dict[str, Any], ...] = ()
-    verdict: str | None = None
-    extra: dict[str, Any] = field(default_factory=dict)
-
-    def to_dict(self) -> dict[str, Any]:
-        """The public JSON object (`schema` 1). Keys may be added, never renamed or dropped."""
-        return {
-            "schema": SCHEMA_VERSION,
-            "file": self.file,
-            "sha256": self.sha256,
-            "status": self.status,
-            "error": self.error,
-            "spectrum": self.spectrum.to_dict() if self.spectrum else None,
-            "lines": list(self.lines),
-            "bands": list(self.bands),
-            "constants": list(self.constants),
-            "checks": list(self.checks),
-            "verdict": self.verdict,
-            **self.extra,
-        }
 
 
 @dataclass(frozen=True)
@@ -132,15 +67,15 @@ class Analysis:
     """The in-memory products of one analysis (arrays kept; `RunResult` holds the JSON view)."""
 
     data: Spectrum | LineList
-    baseline: Any  # BaselineResult | None (None for a line list)
-    lines: Any  # LineTable
-    assignment: Any  # AssignmentResult
+    baseline: BaselineResult | None  # None for a line list
+    lines: LineTable
+    assignment: AssignmentResult
     timing_ms: dict[str, float]
-    constants: Any = None  # ConstantsResult
-    intensities: Any = None  # IntensityResult | None
-    checks: tuple[Any, ...] = ()  # Check
+    constants: ConstantsResult | None = None
+    intensities: IntensityResult | None = None
+    checks: tuple[Check, ...] = ()
     verdict: str | None = None
-    contours: tuple[Any, ...] = ()  # BandContour: bands the resolution cannot split into lines
+    contours: tuple[BandContour, ...] = ()  # bands the resolution cannot split into lines
 
 
 def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) -> Analysis:
@@ -185,17 +120,17 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
     if isinstance(data, Spectrum):
         from processing.doublets import measure_blended_line
 
-        def doublet(centre: float, separation: float, ratio: float) -> Any:
+        def doublet(centre: float, separation: float, ratio: float) -> tuple[float, float] | None:
             return measure_blended_line(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
 
     assignment = assign_lines(lines, first, last, assign_settings, library, doublet)
     contours = unresolved_bands(data, baseline, lines, assignment, library, settings.temperature_K)
     lap("assignment and fits")
-    from processing.checks import CheckThresholds, run_checks, verdict_of
+    from processing.checks import run_checks, verdict_of
     from processing.line_intensities import analyse_intensities
     from processing.molecular_constants import molecular_constants
 
-    thresholds = CheckThresholds.from_mapping(settings.checks)
+    thresholds = settings.thresholds
     partial = Analysis(data, baseline, lines, assignment, timing, contours=contours)
     constants = molecular_constants(partial, library)
     intensities = analyse_intensities(partial, library, settings.temperature_K)
@@ -206,11 +141,14 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
     return Analysis(data, baseline, lines, assignment, timing, constants, intensities, tuple(checks), verdict_of(checks), contours)
 
 
-def unresolved_bands(data: Spectrum | LineList, baseline: Any, lines: Any, assignment: Any, library: Any, temperature_K: float) -> tuple[Any, ...]:
+def unresolved_bands(
+    data: Spectrum | LineList, baseline: BaselineResult | None, lines: LineTable, assignment: AssignmentResult, library: Library,
+    temperature_K: float,
+) -> tuple[BandContour, ...]:
     """Library bands present only as unresolved P/R contours (see `processing.contour`). The
     instrument line shape is the one the lines showed, else the stated one, else a Happ-Genzel
     shape as wide as the lines found (said so in its source)."""
-    if not isinstance(data, Spectrum):
+    if not isinstance(data, Spectrum) or baseline is None:
         return ()
     from processing.contour import find_unresolved_bands
     from processing.line_shape import LineShapeModel, stated_line_shape
@@ -225,7 +163,53 @@ def unresolved_bands(data: Spectrum | LineList, baseline: Any, lines: Any, assig
     return tuple(find_unresolved_bands(data.wavenumber_cm1, baseline.corrected, baseline.noise_sigma, shape, library, temperature_K, assigned))
 
 
-def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
+def spectrum_summary(data: Spectrum | LineList) -> SpectrumSummary:
+    """What was read: points, range, spacing, units, resolution, format, title, notes."""
+    if isinstance(data, Spectrum):
+        return SpectrumSummary(
+            points=data.points,
+            first_cm1=data.first_cm1,
+            last_cm1=data.last_cm1,
+            spacing_cm1=data.spacing_cm1,
+            y_units=data.original_y_kind,
+            resolution_cm1=data.meta.resolution_cm1,
+            kind="spectrum",
+            format=data.meta.format,
+            title=data.meta.title,
+            notes=data.meta.notes + (f"y conversion: {data.conversion}",),
+        )
+    return SpectrumSummary(
+        points=data.points,
+        first_cm1=float(data.position_cm1[0]),
+        last_cm1=float(data.position_cm1[-1]),
+        spacing_cm1=None,
+        y_units=data.y_kind,
+        resolution_cm1=data.meta.resolution_cm1,
+        kind="line list",
+        format=data.meta.format,
+        title=data.meta.title,
+        notes=data.meta.notes,
+    )
+
+
+def _assignment(assigned: LineAssignment) -> Assignment:
+    return Assignment(
+        isotopologue=assigned.isotopologue,
+        v_upper=assigned.v_upper,
+        v_lower=assigned.v_lower,
+        branch=assigned.branch,
+        J_lower=assigned.J_lower,
+        m=int(m_from_branch(assigned.branch, assigned.J_lower)),
+        calc=assigned.calc,
+        residual=assigned.residual,
+        confidence=assigned.confidence,
+        method=assigned.method,
+        blended=assigned.blended,
+        used_in_fit=assigned.used_in_fit,
+    )
+
+
+def _lines(analysis: Analysis) -> tuple[Line, ...]:
     lines = analysis.lines
     assignment = analysis.assignment
     records = []
@@ -236,60 +220,102 @@ def _line_records(analysis: Analysis) -> tuple[dict[str, Any], ...]:
         area = float(lines.area_cm1[i])
         snr = float(lines.snr[i])
         records.append(
-            {
-                "position": {"value": float(lines.position_cm1[i]), "sigma": float(lines.position_sigma_cm1[i])},
-                "height": float(lines.height[i]),
-                "width": width if width == width else None,
-                "area": area if area == area else None,
-                "snr": snr if snr != float("inf") else None,
-                "saturated": bool(lines.saturated[i]),
-                "blended": bool(lines.blended[i]),
-                "ringing": bool(lines.ringing[i]),
-                "few_points": bool(lines.few_points[i]),
-                "equivalent_width": float(widths[i]) if widths is not None and widths[i] == widths[i] else None,
-                "assigned": assigned.to_dict() if assigned else None,
-                "likely_cause": assignment.likely_cause[i],
-            }
+            Line(
+                position=Estimate(float(lines.position_cm1[i]), float(lines.position_sigma_cm1[i])),
+                height=float(lines.height[i]),
+                width=width if width == width else None,
+                area=area if area == area else None,
+                snr=snr if snr != float("inf") else None,
+                saturated=bool(lines.saturated[i]),
+                blended=bool(lines.blended[i]),
+                ringing=bool(lines.ringing[i]),
+                few_points=bool(lines.few_points[i]),
+                equivalent_width=float(widths[i]) if widths is not None and widths[i] == widths[i] else None,
+                assigned=_assignment(assigned) if assigned else None,
+                likely_cause=assignment.likely_cause[i],
+            )
         )
     return tuple(records)
 
 
-def _band_record(fit: Any, constants: Any) -> dict[str, Any]:
-    """A band fit's JSON with its parameters against the reference for its model."""
-    record = fit.to_dict()
+def _band(fit: BandFit, constants: ConstantsResult | None) -> Band:
+    """A band fit with its parameters against the reference for its model."""
     reference = constants.band((fit.isotopologue, fit.v_upper, fit.v_lower)) if constants is not None else None
-    record["reference"] = reference.to_dict() if reference is not None else {}
-    return record
+    return Band(
+        isotopologue=fit.isotopologue,
+        v_upper=fit.v_upper,
+        v_lower=fit.v_lower,
+        n_lines=fit.n_lines,
+        n_rejected=int((~fit.used).sum()),
+        rms=fit.rms,
+        origin=fit.origin,
+        B_upper=fit.B_upper,
+        B_lower=fit.B_lower,
+        D_upper=fit.D_upper,
+        D_lower=fit.D_lower,
+        d_model=fit.d_model,
+        held_centrifugal=dict(zip(("D_upper", "D_lower", "H_upper", "H_lower"), fit.held)) if any(fit.held) else None,
+        H_upper=fit.H_upper,
+        H_lower=fit.H_lower,
+        h_model=fit.h_model,
+        chi2_reduced=None if not np.isfinite(fit.chi2_reduced) else fit.chi2_reduced,
+        parameters=tuple(fit.parameter_names),
+        correlation=tuple(tuple(row) for row in np.round(fit.correlation, 6).tolist()),
+        rejection_rule=fit.rejection_rule,
+        combination_differences=tuple(cd for cd in (fit.lower_combination, fit.upper_combination) if cd),
+        notes=tuple(fit.notes),
+        reference={c.name: c for c in reference.comparisons} if reference is not None else {},
+    )
+
+
+def _baseline(baseline: BaselineResult) -> BaselineSummary:
+    noise = baseline.noise
+    fringes = baseline.fringes
+    return BaselineSummary(
+        noise_sigma=baseline.noise_sigma,
+        noise_correlation_points=noise.correlation_points if noise else None,
+        quantization_step=noise.quantization_step if noise else None,
+        quantization_floor=noise.quantization_floor if noise else None,
+        noise_measurable=noise.measurable if noise else None,
+        noise_description=noise.description if noise else None,
+        fringes=FringeSummary(fringes.period_cm1, fringes.amplitude, fringes.contrast) if fringes else None,
+        offset_median=baseline.offset_median,
+        tilt_per_1000_cm1=baseline.tilt_per_1000_cm1,
+        line_free_fraction=float(baseline.line_free.mean()),
+        usable_absorbance=baseline.usable_absorbance,
+        saturated_regions=tuple(SaturatedRegion(r.first_cm1, r.last_cm1, r.peak_absorbance, r.reason) for r in baseline.saturated_regions),
+    )
+
+
+def _intensities(intensities: IntensityResult) -> Intensities:
+    return Intensities(intensities.temperatures, intensities.ratios, intensities.optically_thin, intensities.thinness,
+                       intensities.hydrogen_fractions, intensities.notes)
 
 
 def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
-    """The JSON-ready RunResult of an analysis."""
+    """The RunResult of an analysis."""
     data = analysis.data
-    extra: dict[str, Any] = {
-        "species_found": list(analysis.assignment.species_found),
-        "notes": list(analysis.assignment.notes),
-        "band_shifts_cm1": analysis.assignment.band_shifts_cm1,
-        "timing_ms": {k: round(v, 3) for k, v in analysis.timing_ms.items()},
-    }
-    if analysis.baseline is not None:
-        extra["baseline"] = analysis.baseline.to_dict()
+    notes = tuple(analysis.assignment.notes)
     if analysis.constants is not None:
-        extra["mass_reduced"] = [m.to_dict() for m in analysis.constants.mass_reduced]
-        extra["notes"] = extra["notes"] + list(analysis.constants.notes)
-    if analysis.intensities is not None:
-        extra["intensities"] = analysis.intensities.to_dict()
-    extra["contours"] = [contour.to_dict() for contour in analysis.contours]
+        notes += tuple(analysis.constants.notes)
     return RunResult(
         file=source,
         status="processed",
         sha256=data.meta.sha256,
-        spectrum=SpectrumSummary.of(data),
-        lines=_line_records(analysis),
-        bands=tuple(_band_record(fit, analysis.constants) for fit in analysis.assignment.bands),
-        constants=tuple(c.to_dict() for c in analysis.constants.per_isotopologue) if analysis.constants else (),
-        checks=tuple(c.to_dict() for c in analysis.checks),
+        spectrum=spectrum_summary(data),
+        lines=_lines(analysis),
+        bands=tuple(_band(fit, analysis.constants) for fit in analysis.assignment.bands),
+        constants=tuple(analysis.constants.per_isotopologue) if analysis.constants else (),
+        checks=tuple(analysis.checks),
         verdict=analysis.verdict,
-        extra=extra,
+        species_found=tuple(analysis.assignment.species_found),
+        notes=notes,
+        band_shifts_cm1=dict(analysis.assignment.band_shifts_cm1),
+        timing_ms={k: round(v, 3) for k, v in analysis.timing_ms.items()},
+        baseline=_baseline(analysis.baseline) if analysis.baseline is not None else None,
+        mass_reduced=tuple(analysis.constants.mass_reduced) if analysis.constants is not None else None,
+        intensities=_intensities(analysis.intensities) if analysis.intensities is not None else None,
+        contours=tuple(analysis.contours),
     )
 
 
@@ -298,7 +324,7 @@ def process_file(path: str | Path, settings: ProcessSettings | None = None) -> R
     settings = settings or ProcessSettings()
     source = str(path)
     try:
-        raw = load_bytes(source, settings.max_bytes, ReadPolicy.from_dict(settings.read_policy))
+        raw = load_bytes(source, settings.max_bytes, settings.read_policy or ReadPolicy())
     except SpectrumFileError as error:
         return RunResult(file=source, status="unreadable", error=str(error))
     try:

@@ -52,5 +52,6 @@ def dumps_result(result: dict[str, Any], **options: Any) -> str:
     replaced: list[dict[str, str]] = []
     plain = to_plain(result, replaced)
     if replaced:
-        plain["non_finite"] = list(plain.get("non_finite") or []) + replaced
+        known = list(plain.get("non_finite") or [])
+        plain["non_finite"] = known + [item for item in replaced if item not in known]
     return json.dumps(plain, allow_nan=False, **options)
