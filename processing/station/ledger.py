@@ -17,7 +17,7 @@ import os
 import sqlite3
 import stat
 import threading
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
@@ -26,6 +26,7 @@ from urllib.parse import quote
 
 from processing import strict_json
 from processing.errors import BandwatchError
+from processing.results import BAND_QUANTITIES, MOLECULAR_CONSTANTS, ResultFormatError, RunResult, from_json, to_json
 from processing.safe_text import safe_text
 
 LEDGER_FILE = "ledger.sqlite3"
@@ -39,9 +40,10 @@ class LedgerError(BandwatchError):
     """A ledger that cannot be used as it stands (e.g. written by a newer bandwatch)."""
 
 
-# Each entry takes the schema from user_version == index to index + 1. Never edit an entry
-# that has shipped; add a new one.
-MIGRATIONS: tuple[str, ...] = (
+# Each entry takes the schema from user_version == index to index + 1: SQL, or a function of
+# the connection for what SQL cannot say. Never edit an entry that has shipped; add a new one.
+Migration = str | Callable[[sqlite3.Connection], None]
+MIGRATIONS: tuple[Migration, ...] = (
     # 0 -> 1: runs and decisions
     """
     CREATE TABLE runs (
@@ -92,6 +94,9 @@ MIGRATIONS: tuple[str, ...] = (
     ALTER TABLE runs ADD COLUMN size_bytes INTEGER;
     ALTER TABLE runs ADD COLUMN mtime_ns INTEGER;
     """,
+    # 3 -> 4: every fitted quantity of a run as a row, so a trend is one query (`trend`);
+    # the runs already recorded get theirs from their stored results
+    lambda conn: _add_quantities_table(conn),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -113,7 +118,7 @@ class RunRecord:
     processed_at: str | None
     species: tuple[str, ...]
     error: str | None
-    result: dict[str, Any] | None
+    result: RunResult | None
     settings: dict[str, Any] | None = None  # only for runs reprocessed with changed settings
     reprocessed_from: int | None = None
     decided_at: str | None = None
@@ -147,11 +152,6 @@ class Claim:
     owner_pid: int | None
 
 
-def to_json(value: Any) -> str:
-    """Strict JSON (no NaN or Infinity: null, with the replaced places listed for a result)."""
-    if isinstance(value, dict) and "schema" in value:
-        return strict_json.dumps_result(value)
-    return strict_json.dumps(value)
 
 
 def stored_path(path: str) -> str | bytes:
@@ -344,8 +344,12 @@ def migrate(conn: sqlite3.Connection) -> int:
     try:
         current = schema_version(conn)  # another process may have migrated meanwhile
         for version in range(current, SCHEMA_VERSION):
-            for statement in _statements(MIGRATIONS[version]):
-                conn.execute(statement)
+            step = MIGRATIONS[version]
+            if isinstance(step, str):
+                for statement in _statements(step):
+                    conn.execute(statement)
+            else:
+                step(conn)
             conn.execute(f"PRAGMA user_version = {version + 1}")
         conn.execute("COMMIT")
     except BaseException:
@@ -382,20 +386,64 @@ class _Transaction:
 # ---------------------------------------------------------------- runs
 
 
-def species_in_result(result: dict[str, Any] | None) -> tuple[str, ...]:
-    """Isotopologues the analysis found: its species_found, then labels in bands, constants, lines."""
-    if not result:
-        return ()
-    found: list[str] = [s for s in result.get("species_found") or () if isinstance(s, str) and s]
-    for key in ("bands", "constants", "lines"):
-        for item in result.get(key) or ():
-            if isinstance(item, dict):
-                if isinstance(item.get("assigned"), dict):
-                    item = item["assigned"]
-                label = item.get("isotopologue") or item.get("species")
-                if isinstance(label, str) and label and label not in found:
-                    found.append(label)
-    return tuple(dict.fromkeys(found))
+def quantity_rows(result: RunResult) -> list[tuple[str, str, str, float, float | None, str]]:
+    """(isotopologue, band, quantity, value, sigma, unit) of every fitted quantity of a run:
+    band constants with their band ("1-0"), molecular constants with band ""."""
+    rows = []
+    for band in result.bands:
+        for name in BAND_QUANTITIES:
+            estimate = band.quantity(name)
+            if estimate is not None and _finite(estimate.value):
+                rows.append((band.isotopologue, band.band, name, float(estimate.value), _sigma(estimate.sigma), estimate.unit))
+    for entry in result.constants:
+        for name in MOLECULAR_CONSTANTS:
+            estimate = entry.constants.get(name)
+            if estimate is not None and _finite(estimate.value):
+                rows.append((entry.isotopologue, "", name, float(estimate.value), _sigma(estimate.sigma), estimate.unit))
+    return rows
+
+
+def _finite(value: float) -> bool:
+    return isinstance(value, (int, float)) and value == value and abs(value) != float("inf")
+
+
+def _sigma(sigma: float | None) -> float | None:
+    return float(sigma) if sigma is not None and _finite(sigma) else None
+
+
+def _insert_quantities(conn: sqlite3.Connection, run_id: int, result: RunResult) -> None:
+    conn.executemany(
+        "INSERT INTO quantities (run_id, isotopologue, band, quantity, value, sigma, unit) VALUES (?, ?, ?, ?, ?, ?, ?)",
+        [(run_id, *row) for row in quantity_rows(result)],
+    )
+
+
+QUANTITIES_TABLE = """
+    CREATE TABLE quantities (
+        run_id       INTEGER NOT NULL REFERENCES runs (run_id),
+        isotopologue TEXT NOT NULL,
+        band         TEXT NOT NULL,
+        quantity     TEXT NOT NULL,
+        value        REAL NOT NULL,
+        sigma        REAL,
+        unit         TEXT NOT NULL
+    );
+    CREATE INDEX quantities_by_name ON quantities (isotopologue, quantity, band, run_id);
+    CREATE INDEX quantities_by_run ON quantities (run_id);
+"""
+
+
+def _add_quantities_table(conn: sqlite3.Connection) -> None:
+    """Migration 3 -> 4: the quantities table, filled from the processed runs already in the
+    ledger (a stored result that cannot be read is left out of the trends, not an error)."""
+    for statement in _statements(QUANTITIES_TABLE):
+        conn.execute(statement)
+    for row in conn.execute("SELECT run_id, result_json FROM runs WHERE status = 'processed' AND result_json IS NOT NULL").fetchall():
+        try:
+            result = from_json(row[1])
+        except ResultFormatError:
+            continue
+        _insert_quantities(conn, int(row[0]), result)
 
 
 def next_version(conn: sqlite3.Connection, path: str) -> int:
@@ -409,7 +457,8 @@ def record_run(
     sha256: str | None,
     status: str,
     *,
-    result: dict[str, Any] | None = None,
+    result: RunResult | None = None,
+    result_json: str | None = None,
     error: str | None = None,
     verdict: str | None = None,
     species: tuple[str, ...] | None = None,
@@ -423,15 +472,19 @@ def record_run(
 ) -> RunRecord:
     """Record a finished run as the next version of `path`; drops `claim_id` atomically.
 
-    `verdict` and `species` default to what `result` says. `size_bytes` and `mtime_ns` are
+    `verdict` and `species` default to what `result` says; `result_json` is its JSON text
+    when the caller already encoded it (the reports write the same bytes). Its fitted
+    quantities go into `quantities` in the same transaction. `size_bytes` and `mtime_ns` are
     the file's stat when it was read (lets a restart skip unchanged files without reading).
     """
     if status not in RUN_STATUSES:
         raise ValueError(f"run status must be one of {RUN_STATUSES}, not {status!r}")
     if verdict is None and result is not None:
-        verdict = result.get("verdict")
+        verdict = result.verdict
     if species is None:
-        species = species_in_result(result)
+        species = result.species if result is not None else ()
+    if result is not None and result_json is None:
+        result_json = to_json(result)
     if error is not None:
         error = safe_text(error)  # file names and header values are echoed in messages
     stamp = now_iso()
@@ -448,19 +501,21 @@ def record_run(
                 status,
                 verdict,
                 ",".join(species),
-                to_json(result) if result is not None else None,
+                result_json if result is not None else None,
                 error,
                 received_at or stamp,
                 processed_at or stamp,
-                to_json(settings) if settings is not None else None,
+                strict_json.dumps(settings) if settings is not None else None,
                 reprocessed_from,
                 size_bytes,
                 mtime_ns,
             ),
         )
+        run_id = int(cursor.lastrowid or 0)
+        if result is not None and status == "processed":
+            _insert_quantities(conn, run_id, result)
         if claim_id is not None:
             conn.execute("DELETE FROM claims WHERE claim_id = ?", (claim_id,))
-        run_id = int(cursor.lastrowid or 0)
     return RunRecord(  # a new run has no decision yet; no need to read it back
         run_id=run_id, path=path, sha256=sha256, version=version, status=status, verdict=verdict,
         decision=None, decision_reason=None, operator=None, received_at=received_at or stamp,
@@ -472,30 +527,33 @@ def record_run(
 def record_reprocessed(
     conn: sqlite3.Connection,
     run_id: int,
-    result: dict[str, Any] | None,
+    result: RunResult | None,
     settings: dict[str, Any],
     *,
+    result_json: str | None = None,
     status: str | None = None,
     error: str | None = None,
 ) -> RunRecord:
     """Record a run reprocessed with changed settings: a new version of the same file."""
-    original = get_run(conn, run_id)
+    original = get_run(conn, run_id, with_result=False)
     if original is None:
         raise LedgerError(f"no run {run_id} in the ledger")
     if status is None:
-        status = (result or {}).get("status") or "failed"
+        status = result.status if result is not None else "failed"
     if status not in RUN_STATUSES:
         status = "failed"
     return record_run(
         conn,
         original.path,
-        (result or {}).get("sha256") or original.sha256,
+        (result.sha256 if result is not None else None) or original.sha256,
         status,
         result=result,
-        error=error if error is not None else (result or {}).get("error"),
+        result_json=result_json,
+        error=error if error is not None else (result.error if result is not None else None),
         settings=settings,
         reprocessed_from=run_id,
     )
+
 
 
 _RUN_COLUMNS = (
@@ -556,11 +614,18 @@ def _record(row: sqlite3.Row, decision: DecisionEvent | None, with_result: bool 
         processed_at=row["processed_at"],
         species=tuple(s for s in (row["species"] or "").split(",") if s),
         error=row["error"],
-        result=json.loads(row["result_json"]) if with_result and row["result_json"] else None,
+        result=_result(row) if with_result and row["result_json"] else None,
         settings=json.loads(row["settings_json"]) if row["settings_json"] else None,
         reprocessed_from=row["reprocessed_from"],
         decided_at=decision.at if decision else None,
     )
+
+
+def _result(row: sqlite3.Row) -> RunResult:
+    try:
+        return from_json(row["result_json"])
+    except ResultFormatError as error:
+        raise LedgerError(f"run {row['run_id']}: its stored result cannot be read ({error})") from None
 
 
 def list_runs(
@@ -586,11 +651,12 @@ def list_runs(
     return [_record(row, decisions.get(row["run_id"]), with_result) for row in rows]
 
 
-def get_run(conn: sqlite3.Connection, run_id: int) -> RunRecord | None:
+def get_run(conn: sqlite3.Connection, run_id: int, *, with_result: bool = True) -> RunRecord | None:
+    """One run with its current decision (and its result, decoded, unless `with_result` is False)."""
     row = conn.execute(f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = ?", (int(run_id),)).fetchone()
     if row is None:
         return None
-    return _record(row, _current_decisions(conn, [int(run_id)]).get(int(run_id)))
+    return _record(row, _current_decisions(conn, [int(run_id)]).get(int(run_id)), with_result)
 
 
 def latest_run_for_path(conn: sqlite3.Connection, path: str) -> RunRecord | None:
@@ -698,40 +764,25 @@ def all_decisions(conn: sqlite3.Connection) -> list[DecisionEvent]:
 # ---------------------------------------------------------------- trends
 
 
-BAND_QUANTITIES = ("origin", "B_upper", "B_lower")
+@dataclass(frozen=True)
+class TrendPoint:
+    """One run's value of a quantity."""
+
+    processed_at: str
+    run_id: int
+    value: float
+    sigma: float | None
 
 
-def constant_history(
-    conn: sqlite3.Connection, isotopologue: str, quantity: str
-) -> list[tuple[str, int, float, float | None]]:
-    """(processed time, run_id, value, sigma) of one fitted quantity over processed runs.
-
-    Reads the newest version of each file only (a reprocessed file is one measurement).
-    `quantity` is a band key ("origin", "B_upper", "B_lower") or a constants key ("B_e", ...);
-    each is a {"value", "sigma"} object in the result JSON. Oldest first.
-    """
+def trend(conn: sqlite3.Connection, isotopologue: str, quantity: str, band: str = "") -> list[TrendPoint]:
+    """One fitted quantity over processed runs, oldest first, in one query: a band constant
+    of `band` ("1-0"; "origin", "B_upper", ...) or a molecular constant (band "": "B_e", ...).
+    Only the newest version of each file counts (a reprocessed file is one measurement)."""
     rows = conn.execute(
-        "SELECT run_id, processed_at, result_json FROM runs AS r WHERE status = 'processed'"
-        " AND result_json IS NOT NULL"
-        " AND version = (SELECT MAX(version) FROM runs WHERE path = r.path)"
-        " ORDER BY processed_at, run_id"
+        "SELECT r.processed_at, r.run_id, q.value, q.sigma FROM quantities AS q JOIN runs AS r ON r.run_id = q.run_id"
+        " WHERE q.isotopologue = ? AND q.quantity = ? AND q.band = ? AND r.status = 'processed'"
+        " AND r.version = (SELECT MAX(version) FROM runs WHERE path = r.path)"
+        " ORDER BY r.processed_at, r.run_id",
+        (isotopologue, quantity, band),
     ).fetchall()
-    history: list[tuple[str, int, float, float | None]] = []
-    for row in rows:
-        result = json.loads(row["result_json"])
-        for section in ("bands", "constants"):
-            for item in result.get(section) or ():
-                if not isinstance(item, dict) or item.get("isotopologue") != isotopologue:
-                    continue
-                estimate = item.get(quantity)
-                if isinstance(estimate, dict) and isinstance(estimate.get("value"), (int, float)):
-                    sigma = estimate.get("sigma")
-                    history.append(
-                        (
-                            row["processed_at"],
-                            int(row["run_id"]),
-                            float(estimate["value"]),
-                            float(sigma) if isinstance(sigma, (int, float)) else None,
-                        )
-                    )
-    return history
+    return [TrendPoint(row[0], int(row[1]), float(row[2]), None if row[3] is None else float(row[3])) for row in rows]

@@ -7,29 +7,22 @@ from pathlib import Path
 
 import pytest
 
+from processing.estimate import Estimate
+from processing.results import Band, IsotopologueConstants, RunResult
 from processing.station import ledger as lg
 
 
-def _result(verdict: str = "pass", origin: float = 2885.98, b_e: float = 10.5934) -> dict:
-    return {
-        "schema": 1,
-        "file": "x.csv",
-        "sha256": "a" * 64,
-        "status": "processed",
-        "error": None,
-        "spectrum": None,
-        "lines": [],
-        "bands": [{"isotopologue": "H35Cl", "origin": {"value": origin, "sigma": 0.002}}],
-        "constants": [{"isotopologue": "H35Cl", "B_e": {"value": b_e, "sigma": None}}],
-        "checks": [],
-        "verdict": verdict,
-    }
+def _result(verdict: str = "pass", origin: float = 2885.98, b_e: float = 10.5934, v_upper: int = 1) -> RunResult:
+    # H35Cl 1-0 origin and B_e of the right size (Huber & Herzberg 1979 via NIST WebBook, recalled)
+    band = Band("H35Cl", v_upper, 0, 12, 0.003, Estimate(origin, 0.002), Estimate(10.1365, 0.0004), Estimate(10.4398, 0.0004))
+    constants = IsotopologueConstants("H35Cl", 12, (0, 1), 0.003, {"B_e": Estimate(b_e, None)}, {}, {}, {}, (), {}, {}, ())
+    return RunResult("x.csv", "processed", "a" * 64, bands=(band,), constants=(constants,), verdict=verdict)
 
 
 def test_open_creates_wal_ledger_at_current_schema(tmp_path: Path) -> None:
     conn = lg.open_ledger(tmp_path / "data")
     assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
-    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 3
+    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 4
     assert lg.list_runs(conn) == []
 
 
@@ -109,25 +102,49 @@ def test_reprocessed_is_a_new_version_with_its_settings(tmp_path: Path) -> None:
     assert again.verdict == "warn"
 
 
-def test_constant_history_reads_bands_and_constants_oldest_first(tmp_path: Path) -> None:
+def test_trend_reads_band_and_molecular_constants_oldest_first(tmp_path: Path) -> None:
     conn = lg.open_ledger(tmp_path)
     a = lg.record_run(conn, "/exp/a.csv", "1" * 64, "processed", result=_result(origin=2885.97))
     b = lg.record_run(conn, "/exp/b.csv", "2" * 64, "processed", result=_result(origin=2885.99, b_e=10.59))
     lg.record_run(conn, "/exp/c.csv", None, "unreadable", error="bad")
-    origins = lg.constant_history(conn, "H35Cl", "origin")
-    assert [(run_id, value, sigma) for _, run_id, value, sigma in origins] == [
-        (a.run_id, 2885.97, 0.002),
-        (b.run_id, 2885.99, 0.002),
-    ]
-    assert [v for _, _, v, s in lg.constant_history(conn, "H35Cl", "B_e")] == [10.5934, 10.59]
-    assert lg.constant_history(conn, "H35Cl", "B_e")[0][3] is None
-    assert lg.constant_history(conn, "D35Cl", "origin") == []
+    overtone = lg.record_run(conn, "/exp/d.csv", "4" * 64, "processed", result=_result(origin=5667.98, v_upper=2))
+    origins = lg.trend(conn, "H35Cl", "origin", "1-0")
+    assert [(p.run_id, p.value, p.sigma) for p in origins] == [(a.run_id, 2885.97, 0.002), (b.run_id, 2885.99, 0.002)]
+    assert [(p.run_id, p.value) for p in lg.trend(conn, "H35Cl", "origin", "2-0")] == [(overtone.run_id, 5667.98)]
+    assert [p.value for p in lg.trend(conn, "H35Cl", "B_e")] == [10.5934, 10.59, 10.5934]
+    assert lg.trend(conn, "H35Cl", "B_e")[0].sigma is None
+    assert lg.trend(conn, "D35Cl", "origin", "1-0") == []
     # a newer version of a file replaces the older one in the trend
     lg.record_reprocessed(conn, a.run_id, _result(origin=2885.975), {})
-    assert [v for _, _, v, _ in lg.constant_history(conn, "H35Cl", "origin")] == [2885.99, 2885.975]
+    assert [p.value for p in lg.trend(conn, "H35Cl", "origin", "1-0")] == [2885.99, 2885.975]
 
 
-@pytest.mark.parametrize("old_version", [1, 2])
+def test_migration_fills_the_quantities_of_runs_recorded_before(tmp_path: Path) -> None:
+    from processing.results import to_json
+
+    path = tmp_path / lg.LEDGER_FILE
+    old = sqlite3.connect(path, isolation_level=None)
+    for script in lg.MIGRATIONS[:3]:
+        for statement in lg._statements(script):
+            old.execute(statement)
+    old.execute("PRAGMA user_version = 3")
+    for index, origin in enumerate((2885.97, 2885.99)):
+        old.execute(
+            "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error, received_at, processed_at)"
+            " VALUES (?, 'ab', 1, 'processed', 'pass', 'H35Cl', ?, NULL, ?, ?)",
+            (f"/exp/{index}.csv", to_json(_result(origin=origin)), f"2026-01-0{index + 1}T00:00:00Z", f"2026-01-0{index + 1}T00:00:01Z"),
+        )
+    old.execute(
+        "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error, received_at, processed_at)"
+        " VALUES ('/exp/bad.csv', 'cd', 1, 'processed', 'pass', '', '{\"schema\": 7}', NULL, '2026-01-03T00:00:00Z', NULL)"
+    )
+    old.close()
+    conn = lg.open_ledger(tmp_path)
+    assert lg.schema_version(conn) == lg.SCHEMA_VERSION
+    assert [p.value for p in lg.trend(conn, "H35Cl", "origin", "1-0")] == [2885.97, 2885.99]
+
+
+@pytest.mark.parametrize("old_version", [1, 2, 3])
 def test_migration_from_an_older_schema_keeps_runs_and_decisions(tmp_path: Path, old_version: int) -> None:
     path = tmp_path / lg.LEDGER_FILE
     old = sqlite3.connect(path, isolation_level=None)
@@ -190,10 +207,14 @@ def test_reader_connection_reads_while_a_writer_writes(tmp_path: Path) -> None:
 
 
 def test_numpy_values_in_a_result_are_stored_as_plain_json(tmp_path: Path) -> None:
+    import json
+
     import numpy as np
+    from dataclasses import replace
 
     conn = lg.open_ledger(tmp_path)
-    result = _result() | {"timing_ms": {"fit": np.float64(1.5)}, "mask": np.array([1, 0])}
+    result = replace(_result(), timing_ms={"fit": np.float64(1.5)}, species_found=("H35Cl",))
     run = lg.record_run(conn, "/exp/a.csv", "1" * 64, "processed", result=result)
-    stored = lg.get_run(conn, run.run_id).result
-    assert stored["timing_ms"] == {"fit": 1.5} and stored["mask"] == [1, 0]
+    stored = conn.execute("SELECT result_json FROM runs WHERE run_id = ?", (run.run_id,)).fetchone()[0]
+    assert json.loads(stored)["timing_ms"] == {"fit": 1.5}
+    assert lg.get_run(conn, run.run_id).result.timing_ms == {"fit": 1.5}

@@ -19,8 +19,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from processing import strict_json
-    from processing.pipeline import ProcessSettings, RunResult, process_file
+    from processing.pipeline import ProcessSettings, process_file
+    from processing.result_text import render_result
+    from processing.results import RunResult, to_json
     from processing.safe_text import safe_text
 
     species = tuple(s.strip() for s in args.species.split(",") if s.strip())
@@ -32,12 +33,7 @@ def run(args: argparse.Namespace) -> int:
         except MemoryError:  # the machine's limit, not the file's fault: a failed run
             result = RunResult(file=path, status="failed", error=f"{path}: out of memory while analysing")
         any_unreadable |= result.status != "processed"
-        if args.json:
-            sys.stdout.write(strict_json.dumps_result(result.to_dict()) + "\n")
-        else:
-            from tui.report_text import render_result
-
-            sys.stdout.write(render_result(result) + "\n")
+        sys.stdout.write((to_json(result) if args.json else render_result(result)) + "\n")
         if result.status != "processed":
             print(f"bandwatch: {safe_text(result.error)}", file=sys.stderr)
     return 1 if any_unreadable else 0

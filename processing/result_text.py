@@ -1,0 +1,479 @@
+"""Every text form of a run's result, in one place: the aligned tables of `bandwatch process`,
+the report files (summary.md, lines.csv, report.txt) and the sentences the interface shows
+beside a fitted value. All read the typed `RunResult`; `assignment_label` is the one place an
+assignment such as "H35Cl 1-0 R(3)" is written.
+
+Plain text only (no colour, no markup); text that came from a file (names, titles, notes) is
+made safe for a terminal by `safe_text` where it is printed.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from processing.estimate import Estimate, format_value_sigma
+from processing.results import MOLECULAR_CONSTANTS, Assignment, Band, Comparison, IsotopologueConstants, Line, RunResult
+from processing.safe_text import safe_text
+
+if TYPE_CHECKING:
+    from processing.station.ledger import DecisionEvent, RunRecord
+
+
+# ----------------------------------------------------------------------------- shared pieces
+def assignment_label(assigned: Assignment | None, unassigned: str = "-") -> str:
+    """e.g. "H35Cl 1-0 R(3)" (J of the lower level in brackets, trade convention);
+    `unassigned` when there is none."""
+    if assigned is None:
+        return unassigned
+    return f"{assigned.isotopologue} {assigned.v_upper}-{assigned.v_lower} {assigned.branch}({assigned.J_lower})"
+
+
+def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int] | None = None) -> str:
+    """Columns padded to their widest cell; indices in `right` right-justified."""
+    right = right or set()
+    widths = [len(h) for h in headers]
+    for row in rows:
+        widths = [max(w, len(cell)) for w, cell in zip(widths, row)]
+
+    def fmt(cells: Sequence[str]) -> str:
+        return "  ".join(
+            cell.rjust(w) if i in right else cell.ljust(w) for i, (cell, w) in enumerate(zip(cells, widths))
+        ).rstrip()
+
+    lines = [fmt(headers), fmt(["-" * w for w in widths])]
+    lines += [fmt(row) for row in rows]
+    return "\n".join(lines)
+
+
+def _q(estimate: Estimate | None) -> str:
+    if estimate is None:
+        return "-"
+    return format_value_sigma(estimate.value, estimate.sigma)
+
+
+def estimate_text(estimate: Estimate) -> str:
+    """"10.5934(6) cm-1": value(sigma) and unit."""
+    return f"{format_value_sigma(float(estimate.value), estimate.sigma)} {estimate.unit}"
+
+
+def ordered_constants(entry: IsotopologueConstants) -> list[tuple[str, Estimate]]:
+    """The fitted molecular constants in the order of the JSON object."""
+    return [(name, estimate) for name in MOLECULAR_CONSTANTS if (estimate := entry.constants.get(name)) is not None]
+
+
+def origin_comparisons(entry: IsotopologueConstants) -> dict[str, Comparison]:
+    return {c.name: c for c in entry.origin_comparisons}
+
+
+def B_v_comparisons(entry: IsotopologueConstants) -> dict[str, Comparison]:
+    return {c.name: c for c in entry.B_v_comparisons}
+
+
+def comparison_sentence(isotopologue: str, name: str, estimate: Estimate | None, comparison: Comparison | None) -> str:
+    """One sentence on a fitted quantity: its value, the reference it is compared with (the
+    same model on the library's lines), Δ/σ, the handbook value and the model."""
+    if estimate is not None and isinstance(estimate.value, (int, float)) and math.isfinite(estimate.value):
+        first = f"{isotopologue} {name}: fitted {estimate.value:.8g}"
+        if estimate.sigma is not None:
+            first += f" ± {estimate.sigma:.2g}"
+    else:
+        first = f"{isotopologue} {name}"
+    parts = [first]
+    if comparison is None:
+        return first
+    compared = comparison.compared_reference
+    if compared is not None:
+        text = f"reference {compared:.8g}"
+        if comparison.reference_sigma:
+            text += f" ± {comparison.reference_sigma:.2g}"
+        if comparison.compared_z is not None:
+            text += f": {comparison.compared_z:+.1f} σ"
+        parts.append(text)
+    handbook = comparison.handbook_value
+    if handbook is not None:
+        source = f" ({comparison.source})" if comparison.source else ""
+        parts.append(f"handbook {handbook:.8g}{source}")
+    model = comparison.model or comparison.effective_rule
+    if model:
+        parts.append(f"model: {model}")
+    return "; ".join(parts)
+
+
+# ----------------------------------------------------------------------------- process tables
+def render_spectrum_summary(result: RunResult) -> list[str]:
+    s = result.spectrum
+    assert s is not None
+    spacing = f"{s.spacing_cm1:.4f}" if s.spacing_cm1 is not None else "-"
+    resolution = f"{s.resolution_cm1:g}" if s.resolution_cm1 is not None else "not stated"
+    out = [
+        table(
+            ["kind", "points", "first cm-1", "last cm-1", "spacing cm-1", "y read as", "resolution cm-1", "format"],
+            [[s.kind, str(s.points), f"{s.first_cm1:.4f}", f"{s.last_cm1:.4f}", spacing, s.y_units, resolution, s.format]],
+            right={1, 2, 3, 4},
+        )
+    ]
+    out += [f"   note: {note}" for note in s.notes]
+    return out
+
+
+def line_flags(line: Line) -> str:
+    """s = saturated, b = blended, p = profile on too few points."""
+    return "".join(flag for flag, on in (("s", line.saturated), ("b", line.blended), ("p", line.few_points)) if on)
+
+
+def render_lines(result: RunResult) -> list[str]:
+    rows = []
+    for line in result.lines:
+        assigned = line.assigned
+        rows.append(
+            [
+                f"{line.position.value:.4f}",
+                f"{line.position.sigma:.4f}" if line.position.sigma is not None else "-",
+                f"{line.height:.4f}",
+                assignment_label(assigned),
+                f"{assigned.calc:.4f}" if assigned else "",
+                f"{assigned.residual:+.4f}" if assigned else "",
+                f"{assigned.confidence:.2f}" if assigned else "",
+                line_flags(line),
+                "" if assigned else (line.likely_cause or ""),
+            ]
+        )
+    if not rows:
+        return ["   no lines found above the detection threshold"]
+    return [
+        table(
+            ["obs cm-1", "sigma", "height", "assignment", "calc cm-1", "obs-calc", "conf", "flags", "likely cause"],
+            rows,
+            right={0, 1, 2, 4, 5, 6},
+        ),
+        "   flags: s = saturated, b = blended, p = profile on too few points (conservative sigma)",
+    ]
+
+
+BAND_SYMBOLS = (("origin", "nu0"), ("B_upper", "B'"), ("B_lower", "B''"), ("D_upper", "D'"), ("D_lower", "D''"),
+                ("H_upper", "H'"), ("H_lower", "H''"))
+
+
+def render_bands(result: RunResult) -> list[str]:
+    if not result.bands:
+        return ["   no band could be assigned"]
+    rows = [
+        [b.label, str(b.n_lines), f"{b.rms:.4f}", _q(b.origin), _q(b.B_upper), _q(b.B_lower), _q(b.D_upper), _q(b.D_lower)]
+        for b in result.bands
+    ]
+    out = [table(["band", "lines", "rms", "nu0 cm-1", "B' cm-1", "B'' cm-1", "D' cm-1", "D'' cm-1"], rows, right={1, 2, 3, 4, 5, 6, 7})]
+    sextic = [[b.label, _q(b.H_upper), _q(b.H_lower)] for b in result.bands if b.H_upper is not None]
+    if sextic:
+        out.append(table(["band", "H' cm-1", "H'' cm-1"], sextic, right={1, 2}))
+    reference_rows = []
+    for b in result.bands:
+        for key, label in BAND_SYMBOLS:
+            comparison = b.reference.get(key)
+            value = b.quantity(key)
+            if comparison is None or value is None:
+                continue
+            compared, z = comparison.compared_reference, comparison.compared_z
+            reference_rows.append([
+                b.label, label, _q(value),
+                format_value_sigma(compared, comparison.reference_sigma) if compared is not None else "-",
+                "" if z is None else f"{z:+.1f}",
+                f"{comparison.handbook:.8g}" if comparison.handbook is not None else "",
+            ])
+    if reference_rows:
+        out.append("   against the reference for each band model (the same model fitted to the library's positions of the same lines):")
+        out.append(table(["band", "constant", "fitted", "reference", "z", "library B_v/G"], reference_rows, right={2, 3, 4, 5}))
+    cd_rows = []
+    for b in result.bands:
+        for cd in b.combination_differences:
+            label = "B''" if cd.state == "lower" else "B'"
+            cd_rows.append([b.label, f"{label} (v={cd.v})", str(cd.n_pairs), _q(cd.B), _q(cd.D)])
+    if cd_rows:
+        out.append("   cross-check from combination differences (one state each):")
+        out.append(table(["band", "constant", "pairs", "B cm-1", "D cm-1"], cd_rows, right={2, 3, 4}))
+    return out
+
+
+CONSTANT_ROWS = (
+    ("omega_e", "omega_e", "cm-1"),
+    ("omega_e_x_e", "omega_e x_e", "cm-1"),
+    ("omega_e_y_e", "omega_e y_e", "cm-1"),
+    ("B_e", "B_e", "cm-1"),
+    ("alpha_e", "alpha_e", "cm-1"),
+    ("gamma_e", "gamma_e", "cm-1"),
+    ("D_e", "D_e", "cm-1"),
+    ("beta_e", "beta_e", "cm-1"),
+    ("H_e", "H_e", "cm-1"),
+    ("r_e", "r_e", "angstrom"),
+)
+
+
+def _comparison_row(isotopologue: str, label: str, estimate: Estimate, unit: str, comparison: Comparison | None) -> list[str]:
+    reference_text = difference = handbook = ""
+    z = None
+    if comparison is not None:
+        reference, z = comparison.compared_reference, comparison.compared_z
+        if reference is not None:
+            reference_text = format_value_sigma(reference, comparison.reference_sigma)
+            if reference:
+                difference = f"{100 * (estimate.value - reference) / reference:+.3f}%"
+        if comparison.handbook_value is not None:
+            handbook = f"{comparison.handbook_value:.8g}"
+    return [isotopologue, label, format_value_sigma(estimate.value, estimate.sigma), unit, reference_text, difference,
+            "" if z is None else f"{z:+.1f}", handbook]
+
+
+def render_constants(result: RunResult) -> list[str]:
+    if not result.constants:
+        return []
+    out = ["   molecular constants (one term-value fit of all lines of each isotopologue), each against the reference"
+           " for the model fitted (the same fit of the library's positions of the same lines):"]
+    rows = []
+    for entry in result.constants:
+        references = entry.reference
+        for key, label, unit in CONSTANT_ROWS:
+            estimate = entry.constants.get(key)
+            if estimate is None:
+                continue
+            rows.append(_comparison_row(entry.isotopologue, label, estimate, unit, references.get(key)))
+        origins = origin_comparisons(entry)
+        for tag, estimate in entry.band_origins.items():
+            rows.append(_comparison_row(entry.isotopologue, f"nu0 {tag}", estimate, "cm-1", origins.get(tag)))
+        rotational = B_v_comparisons(entry)
+        for v, estimate in entry.B_v.items():
+            rows.append(_comparison_row(entry.isotopologue, f"B_{v}", estimate, "cm-1", rotational.get(f"B_{v}")))
+    out.append(table(["isotopologue", "constant", "fitted", "unit", "reference", "diff", "z", "handbook"], rows, right={2, 4, 5, 6, 7}))
+    for entry in result.constants:
+        if entry.held:
+            out.append(f"   {entry.isotopologue}: held at library values: " + ", ".join(
+                f"{name} {format_value_sigma(held.value, held.sigma)}" for name, held in entry.held.items()))
+        if entry.model:
+            out.append(f"   {entry.isotopologue} model: {entry.model}")
+    derived_rows = []
+    for entry in result.constants:
+        for name, d in entry.derived.items():
+            derived_rows.append([entry.isotopologue, name, format_value_sigma(d.value, d.sigma), d.unit,
+                                 format_value_sigma(d.reference, d.reference_sigma) if d.reference is not None else "",
+                                 "" if d.z is None else f"{d.z:+.1f}", d.model])
+    if derived_rows:
+        out.append("   derived (each under the model named):")
+        out.append(table(["isotopologue", "quantity", "value", "unit", "reference", "z", "model"], derived_rows, right={2, 4, 5}))
+    for fit in result.mass_reduced or ():
+        out.append(f"   mass-reduced fit {fit.molecule} ({', '.join(fit.isotopologues)}): rms {fit.rms_cm1:.4f} cm-1")
+        mr_rows = []
+        for label, member in fit.per_isotopologue.items():
+            omega = member.constants.get("omega_e")
+            mean, mean_sigma = member.residual_mean, member.residual_mean_sigma
+            mr_rows.append([
+                label,
+                format_value_sigma(omega.value, omega.sigma) if omega else "-",
+                format_value_sigma(omega.reference, omega.reference_sigma) if omega and omega.reference is not None else "-",
+                f"{omega.z:+.1f}" if omega and omega.z is not None else "",
+                "-" if mean is None else (f"{mean:+.4f}" + (f" +- {mean_sigma:.4f}" if mean_sigma else "")),
+                "-" if member.residual_rms is None else f"{member.residual_rms:.4f}",
+            ])
+        out.append(table(["isotopologue", "omega_e cm-1", "reference", "z", "mean obs-calc", "rms"], mr_rows, right={1, 2, 3, 4, 5}))
+        out += [f"   note: {note}" for note in fit.notes]
+    return out
+
+
+def status_word(status: str) -> str:
+    """"not_assessed" -> "not assessed"."""
+    return status.replace("_", " ")
+
+
+def render_checks(result: RunResult) -> list[str]:
+    if not result.checks:
+        return []
+    rows = [[status_word(c.status).upper(), c.name, c.detail] for c in result.checks]
+    return [table(["status", "check", "reason"], rows), f"   verdict: {str(result.verdict).upper()}"]
+
+
+def render_result(result: RunResult) -> str:
+    """The aligned tables of one run; every line made safe for a terminal (file names, titles
+    and notes come from the file)."""
+    return "\n".join(safe_text(line) for line in "\n".join(_result_lines(result)).split("\n"))
+
+
+def _result_lines(result: RunResult) -> list[str]:
+    out = [f"== {result.file}"]
+    if result.status != "processed" or result.spectrum is None:
+        out.append(f"   {result.status}: {result.error}")
+        return out
+    out += render_spectrum_summary(result)
+    if result.spectrum.kind == "spectrum" or result.lines:
+        out.append("")
+        out += render_lines(result)
+        out.append("")
+        out += render_bands(result)
+        constants = render_constants(result)
+        if constants:
+            out.append("")
+            out += constants
+        out.append("")
+        out += render_checks(result)
+    for note in result.notes or ():
+        out.append(f"   note: {note}")
+    return out
+
+
+# ----------------------------------------------------------------------------- report files
+LINE_COLUMNS = (
+    "position_cm1",
+    "sigma_cm1",
+    "height",
+    "width_cm1",
+    "calc_cm1",
+    "isotopologue",
+    "branch",
+    "J_lower",
+    "assignment",
+    "obs_minus_calc_cm1",
+)
+
+
+def _cell(value: float | int | str | None) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return "" if not math.isfinite(value) else repr(value)
+    return str(value)
+
+
+def line_row(line: Line) -> dict[str, str]:
+    """One line as a lines.csv row (blank where a value is absent)."""
+    assigned = line.assigned
+    return {
+        "position_cm1": _cell(line.position.value),
+        "sigma_cm1": _cell(line.position.sigma),
+        "height": _cell(line.height),
+        "width_cm1": _cell(line.width),
+        "calc_cm1": _cell(assigned.calc) if assigned else "",
+        "isotopologue": assigned.isotopologue if assigned else "",
+        "branch": assigned.branch if assigned else "",
+        "J_lower": _cell(assigned.J_lower) if assigned else "",
+        "assignment": assignment_label(assigned, ""),
+        "obs_minus_calc_cm1": _cell(assigned.residual) if assigned else "",
+    }
+
+
+def lines_csv(result: RunResult) -> str:
+    """The result's lines as CSV with LINE_COLUMNS."""
+    buffer = io.StringIO()
+    writer = csv.DictWriter(buffer, fieldnames=list(LINE_COLUMNS), lineterminator="\n")
+    writer.writeheader()
+    writer.writerows(line_row(line) for line in result.lines)
+    return buffer.getvalue()
+
+
+def _reference_text(comparison: Comparison | None) -> str:
+    """" (reference R, z Z)": the value a constant's z is computed against (the reference for
+    the model fitted), never a number it was not compared with."""
+    if comparison is None or comparison.compared_reference is None:
+        return ""
+    z = comparison.compared_z
+    return f" (reference {comparison.compared_reference:.8g}" + (f", z {z:+.1f})" if z is not None else ")")
+
+
+def summary_markdown(result: RunResult, run_id: int, version: int) -> str:
+    """A short human summary of one run (summary.md)."""
+    out = [
+        f"# Run {run_id} v{version}: {Path(result.file).name}",
+        "",
+        f"- file: `{result.file}`",
+        f"- sha256: `{result.sha256}`",
+        f"- status: {result.status}",
+        f"- verdict: **{result.verdict or '-'}**",
+    ]
+    if result.error:
+        out.append(f"- error: {result.error}")
+    spectrum = result.spectrum
+    if spectrum is not None:
+        out.append(f"- spectrum: {spectrum.points} points, {spectrum.first_cm1} to {spectrum.last_cm1} cm-1, format {spectrum.format}")
+    out.append(f"- lines found: {len(result.lines)}")
+    if result.bands:
+        out += ["", "## Bands", "", "| isotopologue | band | origin | B_upper | B_lower | lines | rms cm-1 |",
+                "|---|---|---|---|---|---|---|"]
+        for band in result.bands:
+            out.append(
+                f"| {band.isotopologue} | {band.band} | {estimate_text(band.origin)} | {estimate_text(band.B_upper)}"
+                f" | {estimate_text(band.B_lower)} | {_cell(band.n_lines)} | {_cell(band.rms)} |"
+            )
+    if result.constants:
+        out += ["", "## Constants", ""]
+        for entry in result.constants:
+            references = entry.reference
+            values = ", ".join(
+                f"{name} = {estimate_text(estimate)}{_reference_text(references.get(name))}"
+                for name, estimate in ordered_constants(entry)
+            )
+            out.append(f"- {entry.isotopologue}: {values}")
+    if result.checks:
+        out += ["", "## Checks", ""]
+        for check in result.checks:
+            out.append(f"- {check.name}: {status_word(check.status)} {check.detail}".rstrip())
+    return "\n".join(safe_text(line) for line in out) + "\n"  # names and titles come from files
+
+
+def run_report(run: RunRecord, decisions: Sequence[DecisionEvent]) -> str:
+    """report.txt: one run with its verdict, decision trail, lines, constants and checks."""
+    result = run.result
+    out = [
+        f"bandwatch report: run {run.run_id} ({run.name}, version {run.version})",
+        f"file        {run.path}",
+        f"sha256      {run.sha256 or '-'}",
+        f"received    {run.received_at}",
+        f"processed   {run.processed_at or '-'}",
+        f"status      {run.status}",
+        f"verdict     {(run.verdict or '-').upper()}",
+        f"species     {', '.join(run.species) or '-'}",
+        f"decision    {run.decision or 'pending'}"
+        + (f" by {run.operator}" if run.operator else "")
+        + (f": {run.decision_reason}" if run.decision_reason else ""),
+    ]
+    if run.settings:
+        out.append(f"settings    {json.dumps(run.settings, sort_keys=True)}")
+    if run.error:
+        out.append(f"error       {run.error}")
+    if decisions:
+        out.append("")
+        out.append("decision trail")
+        for event in decisions:
+            out.append(f"  {event.at}  {event.action:<6} {event.operator or '-':<10} {event.reason}")
+    if result is None:
+        return "\n".join(safe_text(line) for line in out) + "\n"
+    if result.lines:
+        out.append("")
+        out.append(f"{'obs cm-1':>12} {'assignment':<20} {'calc cm-1':>12} {'obs-calc':>9}")
+        for line in sorted(result.lines, key=lambda ln: -float(ln.position.value)):
+            assigned = line.assigned
+            calc = f"{assigned.calc:.4f}" if assigned else "-"
+            residual = f"{assigned.residual:.4f}" if assigned else "-"
+            out.append(f"{line.position.value:12.4f} {assignment_label(assigned, 'unassigned'):<20} {calc:>12} {residual:>9}")
+
+    def quantities(label: str, named: Sequence[tuple[str, Estimate | None]]) -> list[str]:
+        rows = []
+        for key, estimate in named:
+            if estimate is None:
+                continue
+            sigma_text = f" ± {estimate.sigma:.2g}" if estimate.sigma is not None else ""
+            rows.append(f"  {label:<8} {key:<12} {estimate.value:.8g}{sigma_text} {estimate.unit}")
+        return rows
+
+    if result.bands:
+        out += ["", "bands"]
+        for band in result.bands:
+            out += quantities(band.isotopologue, [(key, band.quantity(key)) for key, _ in BAND_SYMBOLS])
+    if result.constants:
+        out += ["", "constants"]
+        for entry in result.constants:
+            out += quantities(entry.isotopologue, ordered_constants(entry))
+    if result.checks:
+        out += ["", "checks"]
+        for check in result.checks:
+            out.append(f"  {check.status.upper():<5} {check.name}: {check.detail}")
+    return "\n".join(safe_text(line) for line in out) + "\n"
