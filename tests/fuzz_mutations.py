@@ -10,14 +10,18 @@ encodings changed; escape sequences in headers.
 """
 from __future__ import annotations
 
+import json
 import random
 import re
 import resource
 import time
 import warnings
 from collections.abc import Iterator
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
+
+from processing.results import RunResult
 
 ROOT = Path(__file__).resolve().parents[1]
 SEED_FILES = tuple(
@@ -172,30 +176,42 @@ def mutated_files(count: int, seed: int) -> Iterator[tuple[str, bytes]]:
         yield name, data
 
 
-def process_and_measure(path: str, settings: Any = None) -> dict[str, Any]:
-    """Process one file; its result as JSON data plus `fuzz`: warnings raised, seconds, and
-    this process's peak resident memory (KB) so far. Used in the station's worker processes."""
+FUZZ_NOTE = "fuzz measurement "
+
+
+def process_and_measure(path: str, settings: Any = None) -> RunResult:
+    """Process one file; its result with one more note, FUZZ_NOTE + JSON of the warnings
+    raised, seconds and this process's peak resident memory (KB) so far (`measurement` reads
+    it back). Used in the station's worker processes too."""
     from processing.pipeline import process_file
 
     started = time.perf_counter()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = process_file(path, settings).to_dict()
-    result["fuzz"] = {
+        result = process_file(path, settings)
+    measured = {
         "warnings": [f"{w.category.__name__}: {w.message} ({Path(w.filename).name}:{w.lineno})" for w in caught],
         "seconds": time.perf_counter() - started,
         "peak_kb": int(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss),
     }
-    return result
+    return replace(result, notes=(result.notes or ()) + (FUZZ_NOTE + json.dumps(measured),))
 
 
-def verdict_of(path: str, result: dict[str, Any]) -> str:
+def measurement(result: RunResult) -> dict[str, Any]:
+    """The measurement `process_and_measure` noted ({} when none)."""
+    for note in result.notes or ():
+        if note.startswith(FUZZ_NOTE):
+            return dict(json.loads(note[len(FUZZ_NOTE):]))
+    return {}
+
+
+def verdict_of(path: str, result: RunResult) -> str:
     """'processed', 'refused' (one clean line naming the file), or what went wrong:
     'unclean refusal', 'warning'."""
-    if result.get("fuzz", {}).get("warnings"):
+    if measurement(result).get("warnings"):
         return "warning"
-    if result.get("status") == "processed":
+    if result.status == "processed":
         return "processed"
-    error = str(result.get("error") or "")
+    error = str(result.error or "")
     clean = error.startswith(path) and "\n" not in error and "\x1b" not in error and "reader fault" not in error
     return "refused" if clean else "unclean refusal"

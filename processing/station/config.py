@@ -10,9 +10,14 @@ import os
 import tomllib
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from processing.errors import ConfigError
+from processing.checks import CheckThresholds
+from processing.errors import ConfigError, LibraryFileError, UnknownSpeciesError
+
+if TYPE_CHECKING:
+    from processing.pipeline import ProcessSettings
+    from processing.regular_files import ReadPolicy
 
 DEFAULT_PROCESS_FUNCTION = "processing.pipeline:process_file"
 DEFAULT_EXCLUDE = (".*", "~*", "*~", "*.tmp", "*.part", "*.partial", "*.crdownload", "*.swp", "*.lock")
@@ -56,8 +61,8 @@ class StationConfig:
     workers: int = 2
     timeout_seconds: float = 60.0
     memory_limit_mb: int = 2048
-    species: tuple[str, ...] = ()
-    checks: dict[str, Any] = field(default_factory=dict)  # passed through to the analysis
+    species: tuple[str, ...] = ()  # expected molecules or isotopologues (analysis setting)
+    checks: CheckThresholds = field(default_factory=CheckThresholds)  # the [checks] table: run check limits only
     source: str | None = None  # the file this came from, for messages
     # "module:function" taking (path, ProcessSettings) -> RunResult; tests inject failures here
     process_function: str = DEFAULT_PROCESS_FUNCTION
@@ -136,10 +141,7 @@ def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) ->
     if key == "checks":
         if not isinstance(value, dict):
             raise ConfigError(source, key, "must be a table of check thresholds")
-        from processing.checks import CheckThresholds
-
-        CheckThresholds.from_mapping(value, source)  # refuses anything but valid thresholds
-        return dict(value)
+        return CheckThresholds.from_mapping(value, source)  # refuses anything but valid thresholds
     raise ConfigError(source, key, "unknown key")
 
 
@@ -165,10 +167,15 @@ def validate(config: StationConfig) -> StationConfig:
         raise ConfigError(source, "timeout_seconds", "must be more than 0 s and at most a day")
     if config.memory_limit_mb != 0 and config.memory_limit_mb < 256:
         raise ConfigError(source, "memory_limit_mb", "must be at least 256 MB (0 = no limit)")
-    if config.checks:
-        from processing.checks import CheckThresholds
+    if not isinstance(config.checks, CheckThresholds):
+        raise ConfigError(source, "checks", "must be a table of check thresholds")
+    if config.species:
+        from processing.species import load_library
 
-        CheckThresholds.from_mapping(config.checks, source)
+        try:
+            load_library().resolve(config.species)
+        except (UnknownSpeciesError, LibraryFileError) as error:
+            raise ConfigError(source, "species", str(error)) from None
     if ":" not in config.process_function:
         raise ConfigError(source, "process_function", "must be 'module:function'")
     return config
@@ -200,10 +207,13 @@ def check_folders(config: StationConfig) -> tuple[Path, Path]:
     return export, data
 
 
-def settings_payload(config: StationConfig) -> dict[str, Any]:
-    """The analysis settings as plain data (sent to workers): the species, and the [checks]
-    table as "checks" (check thresholds only; it sets nothing else)."""
-    return {"checks": dict(config.checks), "species": list(config.species)}
+def station_settings(config: StationConfig, read_policy: ReadPolicy | None = None) -> ProcessSettings:
+    """What the station's analyses are given: the expected species (an analysis setting), the
+    [checks] thresholds (they judge the run, they change no analysis) and where files may be
+    read from."""
+    from processing.pipeline import ProcessSettings
+
+    return ProcessSettings(species=config.species, thresholds=config.checks, read_policy=read_policy)
 
 
 TEMPLATE = """\

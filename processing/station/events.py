@@ -142,9 +142,11 @@ class RunFailed(StationEvent):
 
 @dataclass(frozen=True)
 class StationProblem(StationEvent):
-    """Something went wrong in the station itself (it carries on)."""
+    """Something went wrong in the station itself (it carries on); `paths` are the files it
+    concerns (their runs are not recorded yet)."""
 
     message: str
+    paths: tuple[str, ...] = ()
 
     def plain(self) -> str:
         return f"problem {self.message}"

@@ -20,9 +20,11 @@ from dataclasses import dataclass
 from multiprocessing.connection import Connection, wait
 from typing import Any
 
-from processing.station.worker import make_settings, resolve_function
+from processing.pipeline import ProcessSettings
+from processing.results import RunResult
+from processing.station.worker import resolve_function
 
-__all__ = ["Job", "JobOutcome", "WorkerPool", "describe_exit", "make_settings", "resolve_function"]
+__all__ = ["Job", "JobOutcome", "WorkerPool", "describe_exit", "resolve_function"]
 
 RESTART_BACKOFF_SECONDS = 1.0
 MAX_RESTART_BACKOFF_SECONDS = 30.0
@@ -34,17 +36,19 @@ class Job:
 
     job_id: int
     path: str
-    settings: dict[str, Any]
+    settings: ProcessSettings
 
 
 @dataclass(frozen=True)
 class JobOutcome:
-    """What became of a job: `result` (the public JSON object) or a failure `reason`."""
+    """What became of a job: `result` with its JSON text (encoded once, by the worker) or a
+    failure `reason`."""
 
     job: Job
-    result: dict[str, Any] | None
+    result: RunResult | None
     reason: str | None  # set when the worker crashed, hung or ran out of memory
     seconds: float
+    result_json: str | None = None
 
     @property
     def failed(self) -> bool:
@@ -270,7 +274,8 @@ class WorkerPool:
         seconds = time.monotonic() - slot.started
         if kind == "done":
             self._assign()  # keep the worker busy while this outcome is recorded
-            self._report(JobOutcome(job, payload, None, seconds))
+            result, text = payload
+            self._report(JobOutcome(job, result, None, seconds, text))
         else:
             if str(payload).startswith("out of memory"):
                 slot.retiring = True

@@ -82,10 +82,10 @@ class RetryQueue:
         return min((entry.first_failure for entry in self._entries.values()), default=None)
 
     def attempt(
-        self, key: str, what: str, action: Callable[[], None], on_failure: Callable[[str, BaseException, Backoff], None]
+        self, key: str, what: str, action: Callable[[], None], on_failure: Callable[[str, str, BaseException, Backoff], None]
     ) -> bool:
         """Run `action` now; on LEDGER_TROUBLE keep it (replacing older work for `key`) for a
-        later try and call `on_failure(what, error, backoff)`. True when it succeeded."""
+        later try and call `on_failure(key, what, error, backoff)`. True when it succeeded."""
         try:
             action()
         except LEDGER_TROUBLE as error:
@@ -95,12 +95,12 @@ class RetryQueue:
                 self._entries[key] = entry
             entry.what, entry.action = what, action
             entry.due = self.clock() + entry.backoff.failed()
-            on_failure(what, error, entry.backoff)
+            on_failure(key, what, error, entry.backoff)
             return False
         self._entries.pop(key, None)
         return True
 
-    def run_due(self, on_failure: Callable[[str, BaseException, Backoff], None]) -> int:
+    def run_due(self, on_failure: Callable[[str, str, BaseException, Backoff], None]) -> int:
         """Try every entry whose time has come; returns how many succeeded."""
         now = self.clock()
         done = 0

@@ -27,8 +27,9 @@ from typing import IO, Any
 from processing.errors import ConfigError
 from processing.readers import DEFAULT_MAX_BYTES
 from processing.regular_files import ReadPolicy
+from processing.results import RunResult
 from processing.station import ledger
-from processing.station.config import StationConfig, check_folders, settings_payload
+from processing.station.config import StationConfig, check_folders, station_settings
 from processing.station.events import (
     CatchUpFound,
     ClaimResumed,
@@ -44,6 +45,7 @@ from processing.station.events import (
     StationStopped,
 )
 from processing.station.pool import Job, JobOutcome, WorkerPool
+from processing.station.redo import RedoRequest, record_redo, redo_settings
 from processing.station.reports import write_reports
 from processing.station.retry import LEDGER_TROUBLE, Backoff, RetryQueue, describe
 from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile
@@ -63,9 +65,9 @@ class _InFlight:
     size_bytes: int | None = None
     mtime_ns: int | None = None
     reprocess_of: int | None = None  # set for a redo of a run with changed settings
-    requested: dict[str, Any] | None = None
+    requested: RedoRequest | None = None
     done: threading.Event | None = None
-    answer: dict[str, Any] | None = None  # the redo's new run id lands here
+    answer: dict[str, int] | None = None  # the redo's new run id lands here
 
 
 class Station:
@@ -83,7 +85,7 @@ class Station:
         self.events: queue.Queue[StationEvent] = queue.Queue()
         self._emit_to = on_event or self.events.put
         self.read_policy = ReadPolicy.for_station(self.export_dir, self.data_dir, config.follow_links_outside)
-        self.settings = {**settings_payload(config), "read_policy": self.read_policy}
+        self.settings = station_settings(config, self.read_policy)
         self.settler = Settler(
             config.settle_seconds, config.max_wait_seconds, DEFAULT_MAX_BYTES, policy=self.read_policy
         )
@@ -112,6 +114,7 @@ class Station:
         self._folder_identity: tuple[int, int] | None = None
         self._next_folder_check = 0.0
         self.halted: str | None = None  # why the station stopped itself (its data folder went)
+        self.consumer_failure: str | None = None  # the first exception an event consumer raised
 
     # ---------------------------------------------------------------- lifecycle
 
@@ -181,7 +184,8 @@ class Station:
             names = ", ".join(Path(path).name for path in self._not_recorded[:5])
             more = f" and {len(self._not_recorded) - 5} more" if len(self._not_recorded) > 5 else ""
             self._emit(StationProblem(
-                f"{len(self._not_recorded)} file(s) not recorded ({names}{more}); they are taken again at the next start"
+                f"{len(self._not_recorded)} file(s) not recorded ({names}{more}); they are taken again at the next start",
+                paths=tuple(self._not_recorded),
             ))
         self._emit(StationStopped())
         self._release_lock()
@@ -220,25 +224,26 @@ class Station:
         since = [t for t in (self._retries.oldest_failure, self._recorder_trouble_since) if t is not None]
         return time.monotonic() - min(since) if since else 0.0
 
-    def reprocess(self, run_id: int, requested: dict[str, Any], timeout: float | None = None) -> int | None:
-        """Redo a run's file in the pool with changed settings; the new version's run id.
+    def reprocess(self, run_id: int, request: RedoRequest, timeout: float | None = None) -> int | None:
+        """Redo a run's file in the pool: the station's settings with `request` applied (see
+        `redo`); the new version's run id.
 
         Blocks the calling thread (not the station) until recorded; None when the station
         stopped first or `timeout` passed. The request is stored with the new version.
         """
         if self.pool is None or not self._started:
             raise ledger.LedgerError("the station is not running")
-        run = ledger.get_run(self._conn(), run_id)
+        run = ledger.get_run(self._conn(), run_id, with_result=False)
         if run is None:
             raise ledger.LedgerError(f"no run {run_id} in the ledger")
         done = threading.Event()
-        answer: dict[str, Any] = {}
+        answer: dict[str, int] = {}
         with self._lock:
             self._job_ids += 1
-            job = Job(self._job_ids, run.path, {**self.settings, **requested})
+            job = Job(self._job_ids, run.path, redo_settings(self.settings, request))
             self._inflight[job.job_id] = _InFlight(
                 run.path, run.sha256, None, ledger.now_iso(),
-                reprocess_of=run_id, requested=dict(requested), done=done, answer=answer,
+                reprocess_of=run_id, requested=request, done=done, answer=answer,
             )
             self._inflight_paths.add(run.path)
         self.pool.submit(job)
@@ -369,20 +374,25 @@ class Station:
             except sqlite3.Error:
                 pass
 
-    def _ledger_failed(self, what: str, error: BaseException, backoff: Backoff) -> None:
-        """A ledger action failed for a passing reason: say so now and then, try again later."""
+    def _ledger_failed(self, key: str, what: str, error: BaseException, backoff: Backoff) -> None:
+        """A ledger action failed for a passing reason: say so now and then, try again later.
+        `key` is the file concerned (or CATCH_UP_KEY)."""
         self._drop_conn()
         if backoff.worth_saying:
             self._emit(StationProblem(
                 f"could not {what}: {describe(error, str(ledger.ledger_path(self.data_dir)))}; "
-                f"trying again in {backoff.delay:g} s (attempt {backoff.failures})"
+                f"trying again in {backoff.delay:g} s (attempt {backoff.failures})",
+                paths=() if key == CATCH_UP_KEY else (key,),
             ))
 
     def _emit(self, event: StationEvent) -> None:
+        """Hand an event to the consumer; a consumer that raises never stops the station (the
+        ledger has the runs): the first such failure is kept in `consumer_failure`."""
         try:
             self._emit_to(event)
-        except Exception:  # a broken consumer must not stop the station
-            pass
+        except Exception as error:  # a broken consumer must not stop the station
+            if self.consumer_failure is None:
+                self.consumer_failure = f"{type(error).__name__}: {error} (at {type(event).__name__})"
 
     def _notify(self, path: str) -> None:
         """From the observer thread: something happened at `path`."""
@@ -528,7 +538,7 @@ class Station:
             try:
                 self._handle_outcome(outcome)
             except Exception as error:  # reported; the claim stays and is redone at next start
-                self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}"))
+                self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}", paths=(outcome.job.path,)))
 
     def _handle_outcome(self, outcome: JobOutcome) -> None:
         """Record one outcome, trying again with backoff while the ledger is in trouble (locked,
@@ -563,7 +573,7 @@ class Station:
                 if self._recorder_trouble_since is None:
                     self._recorder_trouble_since = time.monotonic()
                 backoff.failed()
-                self._ledger_failed(f"record {name}", error, backoff)
+                self._ledger_failed(info.path, f"record {name}", error, backoff)
                 if self._stopping.wait(backoff.delay):
                     return False
                 continue
@@ -585,18 +595,16 @@ class Station:
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
         result = outcome.result
-        status = result.get("status")
-        if status not in ("processed", "unreadable"):
-            status = "failed"
+        status = result.status if result.status in ("processed", "unreadable") else "failed"
         record = ledger.record_run(
-            conn, info.path, result.get("sha256") or info.sha256, status,
-            result=result, error=result.get("error"),
+            conn, info.path, result.sha256 or info.sha256, status,
+            result=result, result_json=outcome.result_json, error=result.error,
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
         )
-        self._report_and_announce(record, result)
+        self._report_and_announce(record, result, outcome.result_json)
 
-    def _report_and_announce(self, record: Any, result: Any) -> None:
+    def _report_and_announce(self, record: ledger.RunRecord, result: RunResult, result_json: str | None) -> None:
         """Write a processed run's reports (retried while the disk is full, given up only when
         the station stops: a problem event, never a crash) and announce the run."""
         folder = None
@@ -604,7 +612,7 @@ class Station:
             backoff = Backoff()
             while folder is None:
                 try:
-                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result))
+                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json))
                 except OSError as error:
                     backoff.failed()
                     if backoff.worth_saying:
@@ -624,16 +632,14 @@ class Station:
 
     def _record_redo(self, outcome: JobOutcome, info: _InFlight) -> None:
         """A reprocessed run: a new version with the request stored beside it."""
-        assert info.reprocess_of is not None and info.answer is not None
+        assert info.reprocess_of is not None and info.answer is not None and info.requested is not None
         conn = self._conn()
-        settings = dict(info.requested or {})
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
-            record = ledger.record_reprocessed(conn, info.reprocess_of, None, settings, status="failed", error=reason)
+            record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason)
             info.answer["run_id"] = record.run_id
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
-        result = outcome.result
-        record = ledger.record_reprocessed(conn, info.reprocess_of, result, settings)
+        record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json)
         info.answer["run_id"] = record.run_id
-        self._report_and_announce(record, result)
+        self._report_and_announce(record, outcome.result, outcome.result_json)

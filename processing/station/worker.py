@@ -1,7 +1,9 @@
 """One worker process: `python -m processing.station.worker IN_FD OUT_FD FUNCTION MEMORY_MB`.
 
-Receives (job_id, path, settings) over IN_FD and answers ("done", job_id, result dict) or
-("failed", job_id, reason) over OUT_FD (multiprocessing's length-prefixed pickles). Runs under
+Receives (job_id, path, ProcessSettings) over IN_FD and answers ("done", job_id, (RunResult,
+its JSON text)) or ("failed", job_id, reason) over OUT_FD (multiprocessing's length-prefixed
+pickles). The result is encoded to JSON here, once: the station stores these bytes in the
+ledger and writes them as result.json, and spends no time of its own on them. Runs under
 an address-space limit so a memory blow-up is a MemoryError here, not a starved machine. Exits
 when the station closes the pipe or disappears. Standard output is sent to standard error, so
 nothing the analysis prints can corrupt the pipe.
@@ -15,7 +17,6 @@ import sys
 import threading
 import time
 from collections.abc import Callable
-from dataclasses import fields
 from multiprocessing.connection import Connection
 from typing import Any
 
@@ -27,29 +28,6 @@ def resolve_function(spec: str) -> Callable[..., Any]:
     if not callable(function):
         raise TypeError(f"{spec} is not callable")
     return function
-
-
-def make_settings(payload: dict[str, Any]) -> Any:
-    """ProcessSettings from plain data, passing only the fields this version of it has."""
-    from processing.pipeline import ProcessSettings
-
-    known = {f.name for f in fields(ProcessSettings)}
-    values: dict[str, Any] = {}
-    for key, value in payload.items():
-        if key == "read_policy":
-            from processing.regular_files import ReadPolicy
-
-            values[key] = ReadPolicy.from_dict(value)
-        elif key in known:
-            values[key] = _frozen(value)
-    return ProcessSettings(**values)
-
-
-def _frozen(value: Any) -> Any:
-    """JSON lists back to the tuples a frozen settings object holds (nested too)."""
-    if isinstance(value, list):
-        return tuple(_frozen(item) for item in value)
-    return value
 
 
 # Imported before the first file so its latency carries no import time; absent ones are skipped.
@@ -67,18 +45,13 @@ WARM_MODULES = (
 
 
 def warm_up() -> None:
+    """Import the analysis and parse the shipped library before the first file. A problem here
+    is raised: the worker reports itself broken and the station says why."""
     for name in WARM_MODULES:
-        try:
-            importlib.import_module(name)
-        except Exception:  # absent or broken: the first file that needs it reports it
-            continue
-    species = sys.modules.get("processing.species")
-    load_library = getattr(species, "load_library", None)
-    if callable(load_library):
-        try:
-            load_library()  # the shipped library file, parsed once per worker
-        except Exception:  # a library problem is reported by the first real file instead
-            pass
+        importlib.import_module(name)
+    from processing.species import load_library
+
+    load_library()  # the shipped library file, parsed once per worker
 
 
 def _exit_when_orphaned(parent: int) -> None:
@@ -90,6 +63,8 @@ def _exit_when_orphaned(parent: int) -> None:
 
 def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limit_mb: int) -> None:
     """The worker loop."""
+    from processing.results import RunResult, to_json
+
     try:
         function = resolve_function(function_spec)
         warm_up()
@@ -109,10 +84,12 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
             return
         if message is None:
             return
-        job_id, path, payload = message
+        job_id, path, settings = message
         try:
-            result = function(path, make_settings(payload))
-            data = result.to_dict() if hasattr(result, "to_dict") else result
+            result = function(path, settings)
+            if not isinstance(result, RunResult):
+                raise TypeError(f"{function_spec} returned {type(result).__name__}, not a RunResult")
+            data = (result, to_json(result))
         except MemoryError:
             outbox.send(("failed", job_id, f"out of memory (worker limit {memory_limit_mb} MB)"))
             return  # a fresh worker replaces this one

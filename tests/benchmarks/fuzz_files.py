@@ -22,8 +22,9 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path[:0] = [str(HERE.parent), str(HERE.parents[1])]  # fuzz_mutations, and the project
 
-from fuzz_mutations import mutated_files, verdict_of  # noqa: E402
+from fuzz_mutations import measurement, mutated_files, verdict_of  # noqa: E402
 
+from processing.pipeline import ProcessSettings  # noqa: E402
 from processing.station.pool import Job, JobOutcome, WorkerPool  # noqa: E402
 
 TIMEOUT_SECONDS = 30.0
@@ -52,7 +53,7 @@ def run(count: int, seed: int) -> int:
             path = Path(folder) / name
             path.write_bytes(data)
             names[job_id] = str(path)
-            pool.submit(Job(job_id, str(path), {}))
+            pool.submit(Job(job_id, str(path), ProcessSettings()))
         finished.wait()
         pool.stop()
     wall = time.monotonic() - started
@@ -70,13 +71,14 @@ def run(count: int, seed: int) -> int:
             examples.setdefault(kind, f"{name}: {reason}")
             counts[kind] += 1
             continue
-        result = outcome.result or {}
-        fuzz = result.get("fuzz", {})
+        result = outcome.result
+        assert result is not None
+        fuzz = measurement(result)
         seconds.append(float(fuzz.get("seconds", outcome.seconds)))
         peak_kb = max(peak_kb, int(fuzz.get("peak_kb", 0)))
         kind = verdict_of(names[job_id], result)
         if kind not in ("processed", "refused"):
-            examples.setdefault(kind, f"{name}: {result.get('error') or fuzz.get('warnings')}")
+            examples.setdefault(kind, f"{name}: {result.error or fuzz.get('warnings')}")
         counts[kind] += 1
 
     rows = [

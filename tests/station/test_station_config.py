@@ -5,6 +5,7 @@ from pathlib import Path
 
 import pytest
 
+from processing.checks import CheckThresholds
 from processing.errors import ConfigError
 from processing.station.config import (
     StationConfig,
@@ -14,7 +15,7 @@ from processing.station.config import (
     default_data_dir,
     load_config,
     render_template,
-    settings_payload,
+    station_settings,
 )
 
 
@@ -28,7 +29,7 @@ def test_template_reads_back_with_the_values_written(tmp_path: Path) -> None:
     # the documented defaults (the template repeats them)
     assert (config.settle_seconds, config.workers, config.timeout_seconds, config.memory_limit_mb) == (0.5, 2, 60.0, 2048)
     assert (config.include, config.exclude, config.recursive, config.poll) == (("*",), (), False, False)
-    assert config.checks == {} and config.species == ()
+    assert config.checks == CheckThresholds() and config.species == ()
 
 
 @pytest.mark.parametrize(
@@ -103,12 +104,9 @@ def test_overrides_are_validated_and_checks_pass_through() -> None:
     with pytest.raises(ConfigError, match="workers"):
         StationConfig().with_overrides(workers=0)
     tuned = config_from_table({"checks": {"calibration_pass_cm1": 0.1, "snr_warn": 8}, "species": ["HCl"]})
-    payload = settings_payload(tuned)
-    assert payload == {"checks": {"calibration_pass_cm1": 0.1, "snr_warn": 8}, "species": ["HCl"]}
-    from processing.station.pool import make_settings
-
-    settings = make_settings(payload)
-    assert settings.checks == {"calibration_pass_cm1": 0.1, "snr_warn": 8} and settings.species == ("HCl",)
+    settings = station_settings(tuned)
+    assert (settings.thresholds.calibration_pass_cm1, settings.thresholds.snr_warn) == (0.1, 8.0)
+    assert settings.thresholds.snr_pass == 30.0 and settings.species == ("HCl",)
     assert settings.threshold_sigma == 5.0  # [checks] sets thresholds of checks, nothing else
 
 

@@ -14,6 +14,7 @@ from pathlib import Path
 import pytest
 from station_files import HERE, spectrum_csv, write_file
 
+from processing.results import RunResult
 from processing.station import ledger
 
 ROOT = HERE.parents[1]
@@ -39,7 +40,7 @@ def _ledger_with_runs(data: Path, count: int = 40) -> Path:
     try:
         for index in range(count):
             ledger.record_run(conn, f"/export/run{index}.csv", f"{index:064x}", "processed",
-                              result={"schema": 1, "notes": ["x" * 2000]}, verdict="pass")
+                              result=RunResult(f"/export/run{index}.csv", "processed", notes=("x" * 2000,)), verdict="pass")
         conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     finally:
         conn.close()

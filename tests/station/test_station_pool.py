@@ -7,6 +7,7 @@ from pathlib import Path
 
 from station_files import spectrum_csv, write_file
 
+from processing.pipeline import ProcessSettings
 from processing.station.pool import Job, JobOutcome, WorkerPool, describe_exit
 
 
@@ -23,7 +24,7 @@ def _run_jobs(paths: list[Path], **options: object) -> dict[str, JobOutcome]:
     pool.start()
     try:
         for index, path in enumerate(paths):
-            pool.submit(Job(index, str(path), {}))
+            pool.submit(Job(index, str(path), ProcessSettings()))
         assert done.wait(30), f"only {sorted(outcomes)} finished"
     finally:
         pool.stop()
@@ -36,7 +37,7 @@ def test_crash_segfault_hang_hog_and_exception_fail_only_their_file(tmp_path: Pa
     outcomes = _run_jobs(paths, workers=2, timeout_seconds=1.5, memory_limit_mb=768)
     assert sorted(outcomes) == sorted(names)
     for name in ("good1.csv", "good2.csv", "good3.csv"):
-        assert not outcomes[name].failed and outcomes[name].result["status"] == "processed"
+        assert not outcomes[name].failed and outcomes[name].result.status == "processed"
     assert outcomes["crash.csv"].reason == "worker process exited with code 3"
     assert outcomes["segv.csv"].reason == "worker process killed by SIGSEGV"
     assert outcomes["hang.csv"].reason == "timed out after 1.5 s"
@@ -60,7 +61,7 @@ def test_workers_that_cannot_start_are_reported_and_files_stay_queued(tmp_path: 
     pool = WorkerPool(outcomes.append, workers=1, function_spec="station_hooks:misbehave", on_problem=problems.append)
     pool.start()
     try:
-        pool.submit(Job(1, str(write_file(tmp_path / "a.csv", spectrum_csv(100))), {}))
+        pool.submit(Job(1, str(write_file(tmp_path / "a.csv", spectrum_csv(100))), ProcessSettings()))
         deadline = time.monotonic() + 10
         while not problems and time.monotonic() < deadline:
             time.sleep(0.05)

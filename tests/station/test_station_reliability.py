@@ -57,7 +57,7 @@ def test_file_written_slowly_in_chunks_is_processed_once_and_complete(make_stati
     [run] = _runs(data)
     assert run.status == "processed" and run.version == 1
     assert run.sha256 == hashlib.sha256(text.encode()).hexdigest()
-    assert run.result["spectrum"]["points"] == 1000  # all rows, not a prefix
+    assert run.result.spectrum.points == 1000  # all rows, not a prefix
     assert sum(isinstance(e, RunProcessed) for e in events) == 1
 
 
@@ -148,7 +148,7 @@ def test_rewritten_file_is_a_new_version_and_an_identical_rewrite_is_not(make_st
     write_file(path, spectrum_csv(220))  # same content again (new time stamp)
     assert station.wait_idle(20)
     runs = _runs(data)
-    assert [(r.version, r.result["spectrum"]["points"]) for r in runs] == [(1, 200), (2, 220)]
+    assert [(r.version, r.result.spectrum.points) for r in runs] == [(1, 200), (2, 220)]
     assert len({r.path for r in runs}) == 1
     assert any(isinstance(e, FileUnchanged) for e in events)
 

@@ -9,12 +9,13 @@ from pathlib import Path
 from station_files import spectrum_csv, write_file
 
 from processing.pipeline import process_file
+from processing.results import RunResult, to_json
 from processing.station.reports import LINE_COLUMNS, lines_csv, report_folder, summary_markdown, write_reports
 
 
-def _result() -> dict:
+def _result() -> RunResult:
     # the shape of the pipeline's public JSON; numbers invented for the test
-    return {
+    return RunResult.from_dict({
         "schema": 1, "file": "/exp/run 7.csv", "sha256": "ab" * 32, "status": "processed", "error": None,
         "spectrum": {"points": 4096, "first_cm1": 2500.0, "last_cm1": 3200.0, "format": "delimited text"},
         "lines": [
@@ -27,9 +28,9 @@ def _result() -> dict:
                    "origin": {"value": 2885.9775, "sigma": 0.0031}, "B_upper": {"value": 10.1365, "sigma": 0.0002},
                    "B_lower": {"value": 10.4398, "sigma": 0.0002}}],
         "constants": [{"isotopologue": "H35Cl", "B_e": {"value": 10.5934, "sigma": 0.0004}}],
-        "checks": [{"name": "combination differences", "status": "pass", "message": "agree within 2 sigma"}],
+        "checks": [{"name": "combination differences", "status": "pass", "detail": "agree within 2 sigma"}],
         "verdict": "pass",
-    }
+    })
 
 
 def test_line_list_csv_has_one_row_per_line_with_assignment_and_obs_minus_calc() -> None:
@@ -52,11 +53,11 @@ def test_summary_names_file_hash_verdict_bands_constants_checks() -> None:
 def test_reports_of_a_real_run_are_written_in_the_data_folder(tmp_path: Path) -> None:
     (tmp_path / "export").mkdir()
     source = write_file(tmp_path / "export" / "sample.csv", spectrum_csv(300))
-    result = process_file(source).to_dict()
+    result = process_file(source)
     folder = write_reports(tmp_path / "data", 12, 1, result)
     assert folder == report_folder(tmp_path / "data", 12, str(source)) == tmp_path / "data" / "reports" / "12-sample"
-    assert json.loads((folder / "result.json").read_text()) == result
+    assert json.loads((folder / "result.json").read_text()) == json.loads(to_json(result))
     rows = list(csv.DictReader(io.StringIO((folder / "lines.csv").read_text())))
-    assert len(rows) == len(result["lines"]) >= 1
+    assert len(rows) == len(result.lines) >= 1
     assert "sample.csv" in (folder / "summary.md").read_text()
     assert sorted(p.name for p in (tmp_path / "export").iterdir()) == ["sample.csv"]

@@ -8,6 +8,7 @@ import pytest
 from station_files import spectrum_csv, write_file
 
 from processing.station import ledger
+from processing.station.redo import RedoRequest
 from processing.station import station as station_module
 from processing.station.events import RunProcessed
 
@@ -84,11 +85,11 @@ def test_reprocess_through_the_pool_records_a_new_version_with_its_settings(make
     assert station.wait_idle(10)
     conn = ledger.open_ledger(data)
     [first] = ledger.list_runs(conn)
-    new_run_id = station.reprocess(first.run_id, {"threshold_sigma": 8.0}, timeout=20)
+    new_run_id = station.reprocess(first.run_id, RedoRequest(threshold_sigma=8.0), timeout=20)
     assert new_run_id is not None and new_run_id != first.run_id
     again = ledger.get_run(conn, new_run_id)
     assert (again.path, again.version, again.reprocessed_from) == (first.path, 2, first.run_id)
     assert again.settings == {"threshold_sigma": 8.0} and again.status == "processed"
     assert (data / "reports" / f"{new_run_id}-a" / "result.json").exists()
     with pytest.raises(ledger.LedgerError, match="no run 999"):
-        station.reprocess(999, {})
+        station.reprocess(999, RedoRequest())
