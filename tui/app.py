@@ -1,23 +1,45 @@
 """`BandwatchApp`: the terminal interface over a data folder's ledger, optionally with a live station.
 
-Thin on purpose: it holds where things are (data folder, export folder, operator), starts and
-stops the station it is given, forwards the station's events to the main screen as messages,
-and lends the screens two pieces of thread work (redo a run, export a report).
+Thin on purpose: it holds where things are (data folder, export folder, operator, the station's
+configuration), starts and stops the station it is given, forwards the station's events to the
+main screen as messages, and lends the screens two pieces of thread work: redo a run (through
+the station, or the same redo here when none runs) and export a report. It writes nothing
+itself: the ledger and the reports are written by `processing.station`.
 """
 from __future__ import annotations
 
 import getpass
 from pathlib import Path
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Callable, Protocol
 
 from textual.app import App
-from textual.binding import Binding
 from textual.worker import Worker, WorkerState
 
+from processing.pipeline import ProcessSettings
+from processing.results import RunResult
+from processing.station.config import StationConfig
+from processing.station.events import StationEvent
+from processing.station.redo import RedoOutcome, RedoRequest
+from tui import bindings
 from tui.messages import StationEventReceived
 
-EventCallback = Callable[[Any], None]
-StationFactory = Callable[[EventCallback], Any]  # on_event -> an object with start() and stop()
+if TYPE_CHECKING:
+    from tui.screens.main_screen import MainScreen
+
+
+class StationHandle(Protocol):
+    """What the interface needs of a station (`processing.station.station.Station`)."""
+
+    def start(self) -> None: ...
+
+    def stop(self) -> None: ...
+
+    def reprocess(self, run_id: int, request: RedoRequest, timeout: float | None = None) -> int | None: ...
+
+
+EventCallback = Callable[[StationEvent], None]
+StationFactory = Callable[[EventCallback], StationHandle]  # on_event -> a station, not yet started
+ProcessFunction = Callable[[str, ProcessSettings], RunResult]
 
 
 class BandwatchApp(App[int]):
@@ -26,10 +48,7 @@ class BandwatchApp(App[int]):
     CSS_PATH = "app.tcss"
     TITLE = "bandwatch"
     ENABLE_COMMAND_PALETTE = False
-    BINDINGS = [
-        Binding("ctrl+q", "quit", "Quit", priority=True, id="app.quit"),
-        Binding("question_mark,f1", "help", "Help", id="app.help", key_display="?"),
-    ]
+    BINDINGS = bindings.APP
 
     def __init__(
         self,
@@ -38,16 +57,21 @@ class BandwatchApp(App[int]):
         *,
         station_factory: StationFactory | None = None,
         operator: str | None = None,
-        process_function: Callable[[str, Any], Any] | None = None,
+        process_function: ProcessFunction | None = None,
         run_limit: int = 500,
         exit_after_seconds: float | None = None,
         keymap: dict[str, str] | None = None,
+        config: StationConfig | None = None,
     ) -> None:
         super().__init__()
         self.data_dir = Path(data_dir)
         self.export_dir = str(export_dir) if export_dir is not None else None
+        # the station's settings: a redo without a running station uses them too
+        self.config = config or StationConfig(
+            export_folder=Path(export_dir) if export_dir is not None else None, data_folder=self.data_dir
+        )
         self.station_factory = station_factory
-        self.station: Any | None = None
+        self.station: StationHandle | None = None
         self.operator = operator if operator is not None else _login_name()
         self.process_function = process_function
         self.run_limit = run_limit
@@ -84,13 +108,16 @@ class BandwatchApp(App[int]):
             self.station = None
             self.notify(_literal(str(message.worker.error)), title="station not running", severity="error", timeout=30)
 
-    def station_event(self, event: Any) -> None:
+    def station_event(self, event: StationEvent) -> None:
         """Called by the station from any thread: forward the event to the main screen."""
+        main = self.main_screen()
+        if main is not None:
+            main.post_message(StationEventReceived(event))
+
+    def main_screen(self) -> MainScreen | None:
         from tui.screens.main_screen import MainScreen
 
-        for screen in self.screen_stack:
-            if isinstance(screen, MainScreen):
-                screen.post_message(StationEventReceived(event))
+        return next((screen for screen in self.screen_stack if isinstance(screen, MainScreen)), None)
 
     async def on_unmount(self) -> None:
         if self.station is not None:
@@ -104,30 +131,21 @@ class BandwatchApp(App[int]):
 
     # -- thread work lent to the screens (called from worker threads) ----------------
 
-    def reprocess(self, run_id: int, requested: dict[str, Any]) -> tuple[int | None, str | None]:
-        """Redo a run: through the station when it offers it, else here with the pipeline."""
-        redo = getattr(self.station, "reprocess", None)
-        if callable(redo):
-            new_run_id = redo(run_id, requested)
-            return (int(new_run_id) if new_run_id is not None else None), None
-        from tui.screens.run_work import reprocess_in_thread
+    def reprocess(self, run_id: int, request: RedoRequest) -> RedoOutcome:
+        """Redo a run: through the station when one runs, else the same redo in this thread."""
+        if self.station is not None:
+            new_run_id = self.station.reprocess(run_id, request)
+            if new_run_id is None:
+                return RedoOutcome(None, "the station stopped before the redo was recorded")
+            return RedoOutcome(int(new_run_id))
+        from processing.station.redo import redo_here
 
-        function = self.process_function
-        if function is None:
-            from processing.pipeline import process_file as function
-        new_run_id, problem, not_applied = reprocess_in_thread(self.data_dir, run_id, requested, function)
-        if not_applied and problem is None:
-            self.call_from_thread(
-                self.notify,
-                f"recorded but not yet applied by the analysis: {', '.join(not_applied)}",
-                severity="warning",
-            )
-        return new_run_id, problem
+        return redo_here(self.config, run_id, request, self.process_function)
 
     def export_report(self, run_id: int) -> tuple[str | None, str | None]:
-        from tui.screens.run_work import export_in_thread
+        from processing.station.reports import export_run_report
 
-        return export_in_thread(self.data_dir, run_id)
+        return export_run_report(self.data_dir, run_id)
 
 
 def _literal(text: str) -> str:

@@ -11,6 +11,7 @@ import tomllib
 from pathlib import Path
 
 from processing.errors import ConfigError
+from tui.bindings import binding_ids
 
 
 def keymap_path() -> Path:
@@ -25,8 +26,6 @@ def keymap_path() -> Path:
 
 def load_keymap(path: str | Path | None = None) -> dict[str, str]:
     """binding id -> keys; {} when there is no file. Raises ConfigError naming the file and id."""
-    from tui.screens.help_screen import binding_ids
-
     chosen = Path(path) if path is not None else keymap_path()
     if not chosen.exists():
         return {}

@@ -5,16 +5,17 @@ handlers on the screens own all UI state.
 """
 from __future__ import annotations
 
-from typing import Any
-
 import numpy as np
 from textual.message import Message
+
+from processing.station.events import StationEvent
+from processing.station.ledger import RunRecord, TrendPoint
 
 
 class StationEventReceived(Message):
     """Something happened in the station (file seen, settled, run processed or failed, ...)."""
 
-    def __init__(self, event: Any) -> None:
+    def __init__(self, event: StationEvent) -> None:
         super().__init__()
         self.event = event
 
@@ -22,7 +23,7 @@ class StationEventReceived(Message):
 class RunsLoaded(Message):
     """A fresh read of the ledger's run list (newest first)."""
 
-    def __init__(self, runs: list[Any]) -> None:
+    def __init__(self, runs: list[RunRecord]) -> None:
         super().__init__()
         self.runs = runs
 
@@ -30,13 +31,14 @@ class RunsLoaded(Message):
 class RunDetailLoaded(Message):
     """One run with its full result (the run list itself is read without results)."""
 
-    def __init__(self, run: Any) -> None:
+    def __init__(self, run: RunRecord) -> None:
         super().__init__()
         self.run = run
 
 
 class SpectrumLoaded(Message):
-    """The arrays of one run's file, re-read read-only for the plot."""
+    """The arrays of one run's file, re-read read-only for the plot (only the version the run
+    analysed: `problem` says so when the file changed since)."""
 
     def __init__(self, run_id: int, x: np.ndarray | None, y: np.ndarray | None, problem: str | None) -> None:
         super().__init__()
@@ -77,9 +79,9 @@ class ReportExported(Message):
 
 
 class HistoryLoaded(Message):
-    """One fitted quantity over the ledger's runs: (time, run_id, value, sigma) oldest first."""
+    """One fitted quantity over the ledger's runs, oldest first."""
 
-    def __init__(self, isotopologue: str, quantity: str, points: list[tuple[str, int, float, float | None]]) -> None:
+    def __init__(self, isotopologue: str, quantity: str, points: list[TrendPoint]) -> None:
         super().__init__()
         self.isotopologue = isotopologue
         self.quantity = quantity

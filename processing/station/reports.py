@@ -11,12 +11,13 @@ from __future__ import annotations
 import os
 import re
 import tempfile
+from dataclasses import replace
 from pathlib import Path
 
 from processing.result_text import LINE_COLUMNS, lines_csv, summary_markdown
 from processing.results import RunResult, to_json
 
-__all__ = ["LINE_COLUMNS", "lines_csv", "report_folder", "summary_markdown", "write_reports"]
+__all__ = ["LINE_COLUMNS", "export_run_report", "lines_csv", "report_folder", "summary_markdown", "write_reports"]
 
 
 
@@ -46,3 +47,29 @@ def write_reports(data_dir: str | Path, run_id: int, version: int, result: RunRe
     _write_atomic(folder / "lines.csv", lines_csv(result))
     _write_atomic(folder / "summary.md", summary_markdown(result, run_id, version))
     return folder
+
+
+def export_run_report(data_dir: str | Path, run_id: int) -> tuple[str | None, str | None]:
+    """(folder, None) after writing a run's reports under DATA/reports/ (never the export
+    folder), or (None, problem). The station's report files are written again, and report.txt
+    beside them adds the decision trail as it stands now."""
+    from processing.result_text import run_report
+    from processing.station.ledger import decision_history, get_run, open_ledger
+
+    conn = open_ledger(data_dir)
+    try:
+        run = get_run(conn, run_id)
+        if run is None:
+            return None, f"run {run_id} is not in the ledger"
+        decisions = decision_history(conn, run_id)
+    finally:
+        conn.close()
+    folder = report_folder(data_dir, run.run_id, run.path)
+    try:
+        if run.result is not None:
+            folder = write_reports(data_dir, run.run_id, run.version, replace(run.result, file=run.path))
+        folder.mkdir(parents=True, exist_ok=True)
+        _write_atomic(folder / "report.txt", run_report(run, decisions))
+    except OSError as error:
+        return None, f"{folder}: cannot write the report ({error.strerror or error})"
+    return str(folder), None

@@ -7,11 +7,13 @@ renders them, it computes nothing); they are H35Cl/H37Cl values of the right siz
 """
 from __future__ import annotations
 
+import hashlib
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from processing.results import RunResult
 from processing.station.ledger import open_ledger, record_run
 
 
@@ -55,8 +57,13 @@ def q(value: float, sigma: float | None) -> dict[str, Any]:
     return {"value": value, "sigma": sigma}
 
 
-def hcl_result(path: str, origin: float, verdict: str = "pass") -> dict[str, Any]:
-    """A result object of the public JSON shape with a few assigned and one unassigned line."""
+def hcl_result(path: str, origin: float, verdict: str = "pass", sha256: str = "0" * 64) -> RunResult:
+    """A result of the public JSON shape with a few assigned and one unassigned line."""
+    return RunResult.from_dict(hcl_result_json(path, origin, verdict, sha256))
+
+
+def hcl_result_json(path: str, origin: float, verdict: str = "pass", sha256: str = "0" * 64) -> dict[str, Any]:
+    """The JSON object of `hcl_result`."""
     lines: list[dict[str, Any]] = []
     for J in range(0, 4):  # R(J): upper J+1; P(J): upper J-1; spacing ~2B (rigid rotor, common practice)
         r_pos = origin + 2 * B_H35CL * (J + 1)
@@ -93,7 +100,7 @@ def hcl_result(path: str, origin: float, verdict: str = "pass") -> dict[str, Any
     return {
         "schema": 1,
         "file": path,
-        "sha256": "0" * 64,
+        "sha256": sha256,
         "status": "processed",
         "error": None,
         "spectrum": {"points": 2001, "first_cm1": 2700.0, "last_cm1": 3100.0, "y_units": "absorbance",
@@ -112,13 +119,16 @@ def hcl_result(path: str, origin: float, verdict: str = "pass") -> dict[str, Any
             {"isotopologue": "H35Cl", "B_e": q(10.5934, 0.0006), "alpha_e": q(0.3072, 0.0005), "D_e": None,
              "r_e": {"value": 1.27455, "sigma": 0.00004, "unit": "angstrom"}, "omega_e": None,
              "omega_e_x_e": None,
-             # the analysis' comparison object for B_e, plain numbers for the others
+             # B_e as an older result wrote it (the compared value in effective_reference, the
+             # handbook value in reference); alpha_e and r_e with a reference and no z
              "reference": {
                  "B_e": {"name": "B_e", "fitted": q(10.5934, 0.0006), "reference": 10.593416,
                          "source": "library", "difference": -0.000016, "z": -0.03,
                          "effective_reference": 10.5936, "effective_z": -0.33,
                          "effective_rule": "higher terms not determined by two levels"},
-                 "alpha_e": 0.3072, "r_e": 1.27455}}
+                 "alpha_e": {"name": "alpha_e", "fitted": q(0.3072, 0.0005), "reference": 0.3072},
+                 "r_e": {"name": "r_e", "fitted": {"value": 1.27455, "sigma": 0.00004, "unit": "angstrom"},
+                         "reference": 1.27455}}}
         ],
         "checks": [
             {"name": "saturation", "status": "pass", "detail": "no saturated points"},
@@ -152,8 +162,9 @@ def make_lab(root: Path) -> dict[str, Path]:
     for index, (origin, verdict, stamp) in enumerate(zip(origins, verdicts, RUN_TIMES)):
         path = export / f"hcl_cell_{index + 1:02d}.csv"
         write_spectrum_csv(path, origin)
+        sha256 = hashlib.sha256(path.read_bytes()).hexdigest()
         record_run(
-            conn, str(path), "0" * 64, "processed", result=hcl_result(str(path), origin, verdict),
+            conn, str(path), sha256, "processed", result=hcl_result(str(path), origin, verdict, sha256),
             received_at=stamp, processed_at=stamp,
         )
     bad = export / "empty_scan.csv"

@@ -13,6 +13,15 @@ import tempfile
 import threading
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+from processing.station.events import RunFailed, RunProcessed, StationEvent
+
+if TYPE_CHECKING:
+    from processing.instrument_replay import InstrumentReplay
+    from processing.station.config import StationConfig
+    from processing.station.station import Station
+    from tui.app import BandwatchApp, EventCallback
 
 HELP = "watch a simulated instrument write the sample runs into a temporary folder"
 
@@ -89,26 +98,26 @@ class _Countdown:
         self.finished_paths: set[str] = set()
         self.done = threading.Event()
 
-    def see(self, event: object) -> None:
-        if type(event).__name__ in ("RunProcessed", "RunFailed"):
-            self.finished_paths.add(getattr(event, "path", ""))
+    def see(self, event: StationEvent) -> None:
+        if isinstance(event, (RunProcessed, RunFailed)):
+            self.finished_paths.add(event.path)
             if len(self.finished_paths) >= self.target:
                 self.done.set()
 
 
-def _run_plain(config: object, replay: object, count: int, once: bool, exit_after: float | None) -> int:
+def _run_plain(config: StationConfig, replay: InstrumentReplay, count: int, once: bool, exit_after: float | None) -> int:
     from processing.station.events import plain_line
     from processing.station.station import Station
 
     countdown = _Countdown(count)
 
-    def on_event(event: object) -> None:
-        print(plain_line(event), flush=True)  # type: ignore[arg-type]
+    def on_event(event: StationEvent) -> None:
+        print(plain_line(event), flush=True)
         countdown.see(event)
 
-    station = Station(config, on_event=on_event)  # type: ignore[arg-type]
+    station = Station(config, on_event=on_event)
     station.start()
-    replay.start()  # type: ignore[attr-defined]
+    replay.start()
     deadline = time.monotonic() + exit_after if exit_after is not None else None
     try:
         while not countdown.done.wait(0.1):
@@ -119,7 +128,7 @@ def _run_plain(config: object, replay: object, count: int, once: bool, exit_afte
     except KeyboardInterrupt:
         pass
     finally:
-        replay.stop()  # type: ignore[attr-defined]
+        replay.stop()
         station.stop()
     if once and not countdown.done.is_set():
         print(f"demo: only {len(countdown.finished_paths)} of {count} runs finished in time", file=sys.stderr)
@@ -128,7 +137,7 @@ def _run_plain(config: object, replay: object, count: int, once: bool, exit_afte
 
 
 def _run_interface(
-    config: object, replay: object, count: int, once: bool, exit_after: float | None, operator: str | None
+    config: StationConfig, replay: InstrumentReplay, count: int, once: bool, exit_after: float | None, operator: str | None
 ) -> int:
     from processing.station.station import Station
     from tui.app import BandwatchApp
@@ -136,22 +145,23 @@ def _run_interface(
     countdown = _Countdown(count)
     stations: list[Station] = []
 
-    def make_station(on_event: object) -> Station:
-        def forward(event: object) -> None:
-            on_event(event)  # type: ignore[operator]
+    def make_station(on_event: EventCallback) -> Station:
+        def forward(event: StationEvent) -> None:
+            on_event(event)
             countdown.see(event)
 
-        station = Station(config, on_event=forward)  # type: ignore[arg-type]
+        station = Station(config, on_event=forward)
         stations.append(station)
-        replay.start()  # type: ignore[attr-defined]
+        replay.start()
         return station
 
     app = BandwatchApp(
-        config.data_folder,  # type: ignore[attr-defined]
-        config.export_folder,  # type: ignore[attr-defined]
+        config.data_folder,
+        config.export_folder,
         station_factory=make_station,
         operator=operator,
         exit_after_seconds=exit_after,
+        config=config,
     )
     if once:
         # A separate thread, so the station's threads never wait on the interface's loop.
@@ -162,22 +172,22 @@ def _run_interface(
     return 0
 
 
-def _all_handled(replay: object, station: object) -> bool:
+def _all_handled(replay: InstrumentReplay, station: Station) -> bool:
     """The instrument wrote everything and the station has nothing left pending or running."""
-    if not (replay.finished and station.wait_idle(timeout=2.0)):  # type: ignore[attr-defined]
+    if not (replay.finished and station.wait_idle(timeout=2.0)):
         return False
     time.sleep(1.5)  # past the settle time and a rescan: a last file would show up by now
-    return bool(station.idle)  # type: ignore[attr-defined]
+    return bool(station.idle)
 
 
-def _exit_when_done(app: object, countdown: _Countdown, replay: object, stations: list[object]) -> None:
+def _exit_when_done(app: BandwatchApp, countdown: _Countdown, replay: InstrumentReplay, stations: list[Station]) -> None:
     """Leave the interface shortly after the last sample run was handled (--once)."""
     while not countdown.done.wait(0.2):
         if stations and _all_handled(replay, stations[0]):
             break
     time.sleep(1.5)  # let the run list show the last run
     try:
-        app.call_from_thread(app.exit, 0)  # type: ignore[attr-defined]
+        app.call_from_thread(app.exit, 0)
     except RuntimeError:
         pass  # the interface already closed
 

@@ -4,6 +4,10 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from processing.station.config import StationConfig
 
 HELP = "watch an export folder: process each file as it lands, record runs in the ledger"
 
@@ -45,7 +49,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--operator", default=None, help="name written beside decisions")
 
 
-def build_config(args: argparse.Namespace):  # -> StationConfig (import kept inside)
+def build_config(args: argparse.Namespace) -> StationConfig:
     from processing.station.config import station_config
 
     config = station_config(args.config, args.data)
@@ -75,7 +79,7 @@ def run(args: argparse.Namespace) -> int:
         print("bandwatch: no terminal; printing events instead (--plain)", file=sys.stderr)
         return run_plain(config, once=False)
     try:
-        from tui.app import BandwatchApp
+        from tui.app import BandwatchApp, EventCallback
     except ImportError:
         print("bandwatch: the interface is not available here; printing events instead (--plain)",
               file=sys.stderr)
@@ -85,17 +89,17 @@ def run(args: argparse.Namespace) -> int:
 
     export_dir, data_dir = check_folders(config)  # one clear error before the screen opens
 
-    def make_station(on_event):  # type: ignore[no-untyped-def]
+    def make_station(on_event: EventCallback) -> Station:
         return Station(config, on_event=on_event)
 
-    app = BandwatchApp(data_dir, export_dir, station_factory=make_station, operator=config.operator or None)
+    app = BandwatchApp(data_dir, export_dir, station_factory=make_station, operator=config.operator or None, config=config)
     return int(app.run() or 0)
 
 
 ONCE_PATIENCE_SECONDS = 120.0  # `--once`: how long ledger trouble (a lock, a full disk) is waited out
 
 
-def run_plain(config, once: bool) -> int:  # type: ignore[no-untyped-def]
+def run_plain(config: StationConfig, once: bool) -> int:
     """Run the station, printing one line per event, until Ctrl-C (or idle with `once`).
 
     Exit status 1 when the station stopped itself (its data folder went away) and, with

@@ -3,10 +3,11 @@ from __future__ import annotations
 
 from rich.text import Text
 from textual.app import ComposeResult
-from textual.binding import Binding
 from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Static
+
+from tui import bindings as key_bindings
 
 PANES_TEXT = """\
 Keys can be remapped by their id (right column) in ~/.config/bandwatch/keys.toml
@@ -24,52 +25,15 @@ Panes (top to bottom)
   4 Checks      each check as PASS / WARN / FAIL with its reason
 """
 
-SECTIONS: tuple[tuple[str, tuple[str, ...]], ...] = (
-    ("Anywhere", ("app.help", "app.quit")),
-    (
-        "Runs and panes",
-        ("table.down", "table.up", "table.top", "table.bottom", "run.next", "run.previous",
-         "pane.runs", "pane.plot", "pane.lines", "pane.constants", "pane.checks"),
-    ),
-    ("Decisions and work", ("run.accept", "run.flag", "run.undo", "run.reprocess", "run.export", "run.history")),
-    ("Plot (when focused)", ("plot.zoom_in", "plot.zoom_out", "plot.pan_left", "plot.pan_right", "plot.reset", "plot.flip")),
-    ("Lines (when focused)", ("lines.exclude",)),
-)
-
 EXTRA_KEYS = (("tab / shift+tab", "move between panes"),)
-
-
-def _all_bindings() -> dict[str, Binding]:
-    from tui.app import BandwatchApp
-    from tui.screens.main_screen import MainScreen
-    from tui.widgets.run_tables import LinesTable, VERTICAL_KEYS
-    from tui.widgets.spectrum_plot import SpectrumPlot
-
-    found: dict[str, Binding] = {}
-    for group in (BandwatchApp.BINDINGS, MainScreen.BINDINGS, VERTICAL_KEYS, SpectrumPlot.BINDINGS, LinesTable.BINDINGS):
-        for binding in group:
-            if isinstance(binding, Binding) and binding.id:
-                found[binding.id] = binding
-    return found
-
-
-def binding_ids() -> set[str]:
-    """Every remappable binding id of the interface."""
-    from tui.screens.history_screen import HistoryScreen
-    from tui.screens.modals import FlagReasonScreen, ReprocessScreen
-
-    ids = set(_all_bindings())
-    for screen in (HelpScreen, HistoryScreen, FlagReasonScreen, ReprocessScreen):
-        ids.update(b.id for b in screen.BINDINGS if isinstance(b, Binding) and b.id)
-    return ids
 
 
 def help_text(keymap: dict[str, str] | None = None) -> Text:
     """The help page; `keymap` (binding id -> keys) overrides the default keys shown."""
-    bindings = _all_bindings()
+    bindings = key_bindings.by_id()
     keymap = keymap or {}
     text = Text()
-    for title, ids in SECTIONS:
+    for title, ids in key_bindings.SECTIONS:
         text.append(f"{title}\n", style="bold")
         for binding_id in ids:
             binding = bindings.get(binding_id)
@@ -91,11 +55,7 @@ def help_text(keymap: dict[str, str] | None = None) -> Text:
 class HelpScreen(ModalScreen[None]):
     """Keys and panes; any of Escape, q or ? closes it."""
 
-    BINDINGS = [
-        Binding("escape,q,question_mark", "close", "Close", id="help.close"),
-        Binding("j", "scroll('down')", "Scroll down", show=False, id="help.down"),
-        Binding("k", "scroll('up')", "Scroll up", show=False, id="help.up"),
-    ]
+    BINDINGS = key_bindings.HELP
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(classes="dialog help", id="help-body"):

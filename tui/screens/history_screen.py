@@ -1,73 +1,58 @@
 """A fitted quantity across runs (e.g. a band origin over the day, to see calibration drift)."""
 from __future__ import annotations
 
-from typing import Any
+from pathlib import Path
 
 from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
-from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 from textual.widgets import DataTable, Footer, OptionList, Static
 from textual.widgets.option_list import Option
 
+from processing.results import RunResult
+from tui import bindings
 from tui.messages import HistoryLoaded
 from tui.widgets.cells import decimals_for, number, plain
-from tui.widgets.run_tables import BAND_ROWS, CONSTANT_ROWS, VERTICAL_KEYS, clock_time
+from tui.widgets.run_tables import BAND_ROWS, CONSTANT_ROWS, clock_time
 from tui.widgets.trend_plot import TrendPlot
 
 
-def quantity_choices(result: dict[str, Any]) -> list[tuple[str, str, str]]:
+def quantity_choices(result: RunResult | None) -> list[tuple[str, str, str]]:
     """(isotopologue, quantity id, label) for every quantity the run has a value of.
 
     A band quantity's id carries its band ("origin@1-0"), so runs of another band of the same
     isotopologue (an overtone) are not mixed into its trend.
     """
+    if result is None:
+        return []
     choices: list[tuple[str, str, str]] = []
-    for band in result.get("bands") or []:
-        iso = str(band.get("isotopologue", "?"))
-        tag = f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}"
+    for band in result.bands:
         for key, label in BAND_ROWS:
-            if isinstance(band.get(key), dict) and (iso, f"{key}@{tag}") not in [(c[0], c[1]) for c in choices]:
-                choices.append((iso, f"{key}@{tag}", f"{iso} {label} {tag}"))
-    for constant in result.get("constants") or []:
-        iso = str(constant.get("isotopologue", "?"))
+            choice = (band.isotopologue, f"{key}@{band.band}", f"{band.isotopologue} {label} {band.band}")
+            if band.quantity(key) is not None and choice[:2] not in [c[:2] for c in choices]:
+                choices.append(choice)
+    for constant in result.constants:
         for key, label in CONSTANT_ROWS:
-            if isinstance(constant.get(key), dict):
-                choices.append((iso, key, f"{iso} {label}"))
+            if constant.constants.get(key) is not None:
+                choices.append((constant.isotopologue, key, f"{constant.isotopologue} {label}"))
     return choices
 
 
-def in_band(result: dict[str, Any] | None, isotopologue: str, quantity: str, tag: str, value: float) -> bool:
-    """True when the run's value of `quantity` for `isotopologue` belongs to band `tag` ("1-0")."""
-    for band in (result or {}).get("bands") or []:
-        if band.get("isotopologue") != isotopologue:
-            continue
-        if f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}" != tag:
-            continue
-        estimate = band.get(quantity)
-        if isinstance(estimate, dict) and estimate.get("value") == value:
-            return True
-    return False
-
-
 class HistoryTable(DataTable):
-    BINDINGS = VERTICAL_KEYS
+    BINDINGS = bindings.TABLE
 
 
 class HistoryScreen(Screen[None]):
     """Pick a quantity on the left; its values over the ledger's runs show as a plot and a table."""
 
-    BINDINGS = [
-        Binding("escape,q,t", "close", "Back", id="history.close"),
-        Binding("down,j", "choice(1)", "Next quantity", show=False, id="history.next"),
-        Binding("up,k", "choice(-1)", "Previous quantity", show=False, id="history.previous"),
-    ]
+    BINDINGS = bindings.HISTORY
 
-    def __init__(self, result: dict[str, Any], preferred: tuple[str, str] | None = None) -> None:
+    def __init__(self, result: RunResult | None, data_dir: Path, preferred: tuple[str, str] | None = None) -> None:
         super().__init__()
         self.choices = quantity_choices(result)
+        self.data_dir = data_dir
         self.preferred = preferred
 
     def compose(self) -> ComposeResult:
@@ -113,17 +98,13 @@ class HistoryScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, exit_on_error=False)
     def load_history(self, isotopologue: str, quantity_id: str) -> None:
-        from processing.station.ledger import constant_history, get_run, open_ledger
+        """One query: the quantity of this band (or the molecular constant) over the runs."""
+        from processing.station.ledger import open_ledger, trend
 
-        quantity, _, band_tag = quantity_id.partition("@")
-        conn = open_ledger(self.app.data_dir)  # type: ignore[attr-defined]
+        quantity, _, band = quantity_id.partition("@")
+        conn = open_ledger(self.data_dir)
         try:
-            points = constant_history(conn, isotopologue, quantity)
-            if band_tag:
-                points = [
-                    point for point in points
-                    if in_band(getattr(get_run(conn, point[1]), "result", None), isotopologue, quantity, band_tag, point[2])
-                ]
+            points = trend(conn, isotopologue, quantity, band)
         finally:
             conn.close()
         self.post_message(HistoryLoaded(isotopologue, quantity_id, points))
@@ -134,21 +115,21 @@ class HistoryScreen(Screen[None]):
         self.query_one("#history-title", Static).update(
             Text(f"{label}: {len(message.points)} run(s), oldest left/top", no_wrap=True)
         )
-        self.query_one(TrendPlot).show([p[2] for p in message.points], [p[3] for p in message.points])
+        self.query_one(TrendPlot).show([p.value for p in message.points], [p.sigma for p in message.points])
         table = self.query_one(HistoryTable)
         table.clear()
         if not message.points:
             return
-        first = message.points[0][2]
-        sigmas = [p[3] for p in message.points if p[3]]
+        first = message.points[0].value
+        sigmas = [p.sigma for p in message.points if p.sigma]
         places = decimals_for(min(sigmas) if sigmas else None, default=5)
-        for stamp, run_id, value, sigma in message.points:
+        for point in message.points:
             table.add_row(
-                plain(clock_time(stamp)),
-                Text(str(run_id), justify="right"),
-                number(value, places),
-                number(sigma, places) if sigma is not None else Text("n/d", justify="right", style="dim"),
-                number(value - first, places),
+                plain(clock_time(point.processed_at)),
+                Text(str(point.run_id), justify="right"),
+                number(point.value, places),
+                number(point.sigma, places) if point.sigma is not None else Text("n/d", justify="right", style="dim"),
+                number(point.value - first, places),
             )
 
     def action_close(self) -> None:

@@ -6,18 +6,32 @@ Ledger reads and writes, file reads and reprocessing run in thread workers that 
 from __future__ import annotations
 
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 from rich.markup import escape
 from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
-from textual.binding import Binding
 from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 from textual.widgets import DataTable, Footer, Static, TabbedContent, TabPane
 
 from processing.safe_text import safe_text
+from processing.station.events import (
+    ClaimResumed,
+    FileSeen,
+    FileSettled,
+    FileUnchanged,
+    FileVanished,
+    RunFailed,
+    RunProcessed,
+    StationProblem,
+    StationStarted,
+    StationStopped,
+)
+from processing.station.ledger import RunRecord
+from processing.station.redo import RedoRequest
+from tui import bindings
 from tui.messages import (
     DecisionRecorded,
     ReportExported,
@@ -28,16 +42,19 @@ from tui.messages import (
     StationEventReceived,
 )
 from tui.widgets.cells import decision_text, verdict_text
-from tui.widgets.run_tables import ChecksTable, ConstantsTable, LinesTable, RunList, line_key
+from tui.widgets.run_tables import ChecksTable, ConstantsTable, LinesTable, RunList
 from tui.widgets.spectrum_plot import PlotLine, SpectrumPlot
 
 if TYPE_CHECKING:
     from tui.app import BandwatchApp
 
-TABS = ("tab-plot", "tab-lines", "tab-constants", "tab-checks")
+# events that put a file among those being worked on, and those that take it off
+STARTS_WORK = (FileSeen, FileSettled, ClaimResumed)
+ENDS_WORK = (RunProcessed, RunFailed, FileVanished, FileUnchanged)
+CHANGES_RUN_LIST = (*STARTS_WORK, RunProcessed, RunFailed, FileVanished, StationProblem)
 
 
-def short_error(run: Any | None) -> str | None:
+def short_error(run: RunRecord | None) -> str | None:
     """The run's error without the file's path in front (the path is in the run list)."""
     if run is None or not run.error:
         return None
@@ -48,34 +65,28 @@ def short_error(run: Any | None) -> str | None:
     return safe_text(error)
 
 
+def file_changed_text(run: RunRecord, now: str | None) -> str:
+    """The plot's message when a run's file no longer holds the version that was analysed."""
+    return safe_text(
+        f"{run.name} has changed since run {run.run_id} analysed it (sha256 {str(now)[:12]}… now, "
+        f"{str(run.sha256)[:12]}… then): not drawn with that run's markers; redo the run (r) or wait "
+        "for the station to record the new version"
+    )
+
+
 class MainScreen(Screen[None]):
     """Runs newest first; the details of the highlighted one."""
 
-    BINDINGS = [
-        Binding("a", "accept", "Accept", id="run.accept", tooltip="Accept the run"),
-        Binding("f", "flag", "Flag", id="run.flag", tooltip="Flag the run (asks why)"),
-        Binding("u", "undo", "Undo", id="run.undo", tooltip="Undo the last decision (kept on record)"),
-        Binding("r", "reprocess", "Redo…", id="run.reprocess", tooltip="Redo the run with changed settings"),
-        Binding("e", "export", "Export", id="run.export", tooltip="Write the run's report under DATA/reports"),
-        Binding("t", "history", "Trend", id="run.history", tooltip="Trend of a fitted quantity over runs"),
-        Binding("n,ctrl+n", "next_run", "Next run", show=False, id="run.next"),
-        Binding("p,ctrl+p", "previous_run", "Previous run", show=False, id="run.previous"),
-        Binding("1", "show_tab('tab-plot')", "Plot", show=False, id="pane.plot", tooltip="Show the plot pane"),
-        Binding("2", "show_tab('tab-lines')", "Lines", show=False, id="pane.lines", tooltip="Show the lines pane"),
-        Binding("3", "show_tab('tab-constants')", "Constants", show=False, id="pane.constants", tooltip="Show the constants pane"),
-        Binding("4", "show_tab('tab-checks')", "Checks", show=False, id="pane.checks", tooltip="Show the checks pane"),
-        Binding("w", "focus_runs", "Runs", show=False, id="pane.runs", tooltip="Go to the run list"),
-    ]
+    BINDINGS = bindings.MAIN
 
     def __init__(self) -> None:
         super().__init__()
-        self.runs: dict[int, Any] = {}  # run list records, read without their results
-        self.detail: Any | None = None  # the selected run, with its result
+        self.runs: dict[int, RunRecord] = {}  # run list records, read without their results
+        self.detail: RunRecord | None = None  # the selected run, with its result
         self.jump_to: int | None = None  # a run to select once the run list holds it
         self.view_window: tuple[float, float] | None = None  # the plot's zoom, kept across runs
         self.busy_paths: list[str] = []
-        self.problems: dict[str, str] = {}
-        self.follow_hold = False  # set while a just-redone run is to stay selected  # path -> what the station said when it could not record it
+        self.problems: dict[str, str] = {}  # path -> what the station said when it could not record it
         self.selected_run_id: int | None = None
         self.excluded: dict[int, set[float]] = {}
         self.station_state = "no station"
@@ -164,17 +175,20 @@ class MainScreen(Screen[None]):
             self.post_message(RunDetailLoaded(run))
 
     @work(thread=True, exclusive=True, group="spectrum", exit_on_error=False)
-    def load_spectrum(self, run_id: int, path: str, status: str = "processed", error: str | None = None) -> None:
+    def load_spectrum(self, run: RunRecord) -> None:
         """The run's spectrum for the plot, re-read with the station's limits: only a processed
         run's file, only a regular file and never one in the data folder, through the same
-        bounded readers (a few bytes cannot make this process allocate gigabytes)."""
+        bounded readers (a few bytes cannot make this process allocate gigabytes); and only the
+        version the run analysed (its sha256): a file rewritten since is said so, never drawn
+        under the old version's markers."""
         from processing.errors import SpectrumFileError
         from processing.readers import read_any
         from processing.regular_files import ReadPolicy
         from processing.spectrum import Spectrum
 
-        if status != "processed":
-            self.post_message(SpectrumLoaded(run_id, None, None, safe_text(error or f"{status}: nothing to draw")))
+        run_id, path = run.run_id, run.path
+        if run.status != "processed":
+            self.post_message(SpectrumLoaded(run_id, None, None, safe_text(run.error or f"{run.status}: nothing to draw")))
             return
         policy = ReadPolicy(forbidden=(str(Path(self.bw.data_dir).resolve()),))
         try:
@@ -184,6 +198,9 @@ class MainScreen(Screen[None]):
             return
         except MemoryError:
             self.post_message(SpectrumLoaded(run_id, None, None, f"{safe_text(Path(path).name)} is too large to draw here"))
+            return
+        if run.sha256 is not None and data.meta.sha256 != run.sha256:
+            self.post_message(SpectrumLoaded(run_id, None, None, file_changed_text(run, data.meta.sha256)))
             return
         if not isinstance(data, Spectrum):
             self.post_message(SpectrumLoaded(run_id, None, None, f"{safe_text(Path(path).name)} is a line list: no spectrum to draw"))
@@ -207,9 +224,9 @@ class MainScreen(Screen[None]):
         self.post_message(DecisionRecorded(run_id, action, problem))
 
     @work(thread=True, group="reprocess", exit_on_error=False)
-    def reprocess_run(self, run_id: int, requested: dict[str, Any]) -> None:
-        new_run_id, problem = self.bw.reprocess(run_id, requested)
-        self.post_message(ReprocessFinished(run_id, new_run_id, problem))
+    def reprocess_run(self, run_id: int, request: RedoRequest) -> None:
+        outcome = self.bw.reprocess(run_id, request)
+        self.post_message(ReprocessFinished(run_id, outcome.run_id, outcome.problem))
 
     @work(thread=True, group="export", exit_on_error=False)
     def export_report(self, run_id: int) -> None:
@@ -277,16 +294,16 @@ class MainScreen(Screen[None]):
             self.view_window = plot.window  # kept for the next run: compare one region across runs
         plot.show_message(f"reading {run.name} …", loading_run_id=run.run_id)
         self.load_detail(run.run_id)
-        self.load_spectrum(run.run_id, run.path, run.status, run.error)
+        self.load_spectrum(run)
 
-    def fill_details(self, run: Any | None) -> None:
+    def fill_details(self, run: RunRecord | None) -> None:
         """Lines, constants and checks of `run` (None: empty panes)."""
-        result = (run.result if run else None) or {}
+        result = run.result if run is not None else None
         excluded = self.excluded.get(run.run_id, set()) if run is not None else set()
-        self.query_one(LinesTable).fill(list(result.get("lines") or []), excluded)
-        self.query_one(ConstantsTable).fill(list(result.get("bands") or []), list(result.get("constants") or []))
+        self.query_one(LinesTable).fill(result.lines if result else (), excluded)
+        self.query_one(ConstantsTable).fill(result.bands if result else (), result.constants if result else ())
         checks = self.query_one(ChecksTable)
-        checks.fill(list(result.get("checks") or []), short_error(run))
+        checks.fill(result.checks if result else (), short_error(run))
         self.query_one("#check-detail", Static).update(Text(checks.details[0] if checks.details else ""))
         constants = self.query_one(ConstantsTable)
         self.query_one("#constant-detail", Static).update(Text(constants.details[0] if constants.details else ""))
@@ -301,9 +318,9 @@ class MainScreen(Screen[None]):
 
     def plot_lines(self, run_id: int) -> list[PlotLine]:
         run = self.detail if self.detail is not None and self.detail.run_id == run_id else None
-        lines = ((run.result or {}).get("lines") or []) if run else []
+        lines = run.result.lines if run is not None and run.result is not None else ()
         excluded = self.excluded.get(run_id, set())
-        return [PlotLine.from_result_line(line, line_key(line) in excluded) for line in lines]
+        return [PlotLine.from_result_line(line, line.key in excluded) for line in lines]
 
     @on(SpectrumLoaded)
     def show_spectrum(self, message: SpectrumLoaded) -> None:
@@ -342,31 +359,27 @@ class MainScreen(Screen[None]):
     @on(StationEventReceived)
     def station_event(self, message: StationEventReceived) -> None:
         event = message.event
-        kind = type(event).__name__
-        path = getattr(event, "path", None)
-        describe = getattr(event, "plain", None)
-        self.last_event = safe_text(describe() if callable(describe) else kind)
-        if kind == "StationStarted":
+        self.last_event = safe_text(event.plain())
+        if isinstance(event, StationStarted):
             self.station_state = "station running"
-        elif kind == "StationStopped":
+        elif isinstance(event, StationStopped):
             self.station_state = "station stopped"
-        if kind in ("FileSeen", "FileSettled", "ClaimResumed") and path and path not in self.busy_paths:
-            self.busy_paths.append(path)
-        if kind in ("RunProcessed", "RunFailed", "FileVanished", "FileUnchanged") and path in self.busy_paths:
-            self.busy_paths.remove(path)
-        if kind == "StationProblem":
-            for busy in list(self.busy_paths):
-                if busy in str(getattr(event, "message", "")):
-                    self.busy_paths.remove(busy)
-                    self.problems[busy] = str(getattr(event, "message", ""))
-        if kind in ("FileSeen", "FileSettled", "ClaimResumed") and path:
-            self.problems.pop(path, None)
-        if kind == "RunFailed":
+        if isinstance(event, STARTS_WORK):
+            if event.path not in self.busy_paths:
+                self.busy_paths.append(event.path)
+            self.problems.pop(event.path, None)
+        if isinstance(event, ENDS_WORK) and event.path in self.busy_paths:
+            self.busy_paths.remove(event.path)
+        if isinstance(event, StationProblem):
+            for path in event.paths:
+                if path in self.busy_paths:
+                    self.busy_paths.remove(path)
+                    self.problems[path] = event.message
+        if isinstance(event, RunFailed):
             self.notify(escape(self.last_event), title="run failed", severity="error")
-        elif kind == "StationProblem":
+        elif isinstance(event, StationProblem):
             self.notify(escape(self.last_event), title="station", severity="warning")
-        if kind in ("RunProcessed", "RunFailed", "FileSeen", "FileSettled", "FileVanished", "ClaimResumed",
-                    "StationProblem"):
+        if isinstance(event, CHANGES_RUN_LIST):
             self.load_runs()
         else:
             self.update_title()
@@ -397,7 +410,7 @@ class MainScreen(Screen[None]):
 
     # ------------------------------------------------------------ actions
 
-    def _current_run(self) -> Any | None:
+    def _current_run(self) -> RunRecord | None:
         if self.selected_run_id is None:
             self.notify("no run selected", severity="warning", timeout=2)
             return None
@@ -436,10 +449,10 @@ class MainScreen(Screen[None]):
             run = self.detail  # with its result: the redo dialog offers the run's bands
         excluded = sorted(self.excluded.get(run.run_id, set()), reverse=True)
 
-        def chosen(requested: dict[str, Any] | None) -> None:
-            if requested is not None:
+        def chosen(request: RedoRequest | None) -> None:
+            if request is not None:
                 self.notify(escape(f"redoing {safe_text(run.name)} …"), timeout=2)
-                self.reprocess_run(run.run_id, requested)
+                self.reprocess_run(run.run_id, request)
 
         self.app.push_screen(ReprocessScreen(run, excluded), chosen)
 
@@ -455,7 +468,7 @@ class MainScreen(Screen[None]):
         preferred = None
         if self.query_one(TabbedContent).active == "tab-constants":
             preferred = self.query_one(ConstantsTable).selected_quantity()
-        self.app.push_screen(HistoryScreen((run.result if run else None) or {}, preferred))
+        self.app.push_screen(HistoryScreen(run.result if run else None, self.bw.data_dir, preferred))
 
     def action_next_run(self) -> None:
         self.query_one(RunList).action_cursor_down()

@@ -1,16 +1,16 @@
 """Small dialogs: the reason for a flag, and the changed settings for a redo."""
 from __future__ import annotations
 
-from typing import Any
-
 from textual import on
 from textual.app import ComposeResult
-from textual.binding import Binding
 from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Input, Label, Select, Static
 
 from processing.safe_text import safe_text
+from processing.station.ledger import RunRecord
+from processing.station.redo import JOffset, RedoRequest
+from tui import bindings
 
 NO_SHIFT = "none"
 
@@ -18,7 +18,7 @@ NO_SHIFT = "none"
 class FlagReasonScreen(ModalScreen[str | None]):
     """Ask why a run is flagged; Enter records, Escape cancels. An empty reason is refused."""
 
-    BINDINGS = [Binding("escape", "cancel", "Cancel", id="modal.cancel")]
+    BINDINGS = bindings.FLAG
 
     def __init__(self, run_name: str) -> None:
         super().__init__()
@@ -45,13 +45,9 @@ class FlagReasonScreen(ModalScreen[str | None]):
         self.dismiss(None)
 
 
-def band_keys(run: Any) -> list[tuple[str, int, int]]:
+def band_keys(run: RunRecord) -> list[tuple[str, int, int]]:
     """(isotopologue, v_upper, v_lower) of the run's fitted bands; 1-0 of each species otherwise."""
-    bands = [
-        (str(b.get("isotopologue")), int(b.get("v_upper", 1)), int(b.get("v_lower", 0)))
-        for b in ((run.result or {}).get("bands") or [])
-        if b.get("isotopologue")
-    ]
+    bands = [(b.isotopologue, b.v_upper, b.v_lower) for b in (run.result.bands if run.result is not None else ())]
     return bands or [(iso, 1, 0) for iso in run.species]
 
 
@@ -79,19 +75,16 @@ def parse_positions(text: str) -> list[float]:
     return values
 
 
-class ReprocessScreen(ModalScreen[dict[str, Any] | None]):
+class ReprocessScreen(ModalScreen[RedoRequest | None]):
     """Changed settings for a redo of one run: species, one branch renumbered, lines excluded.
 
-    Tab moves between fields, Enter in a text field (or ctrl+s) sends, Escape cancels. The result
-    is the requested change as plain data; the app turns it into pipeline settings.
+    Tab moves between fields, Enter in a text field (or ctrl+s) sends, Escape cancels. The
+    result is the operator's RedoRequest; the station applies it to its own settings.
     """
 
-    BINDINGS = [
-        Binding("escape", "cancel", "Cancel", id="modal.cancel"),
-        Binding("ctrl+s", "send", "Redo", id="modal.send"),
-    ]
+    BINDINGS = bindings.REDO
 
-    def __init__(self, run: Any, excluded: list[float]) -> None:
+    def __init__(self, run: RunRecord, excluded: list[float]) -> None:
         super().__init__()
         self.run = run
         self.excluded = excluded
@@ -124,12 +117,11 @@ class ReprocessScreen(ModalScreen[dict[str, Any] | None]):
             self.notify(str(error), severity="error", timeout=3)
             return
         shift_value = self.query_one("#shift", Select).value
-        offsets: list[list[Any]] = []
+        offsets: list[JOffset] = []
         if isinstance(shift_value, str) and shift_value != NO_SHIFT:
             iso, v_upper, v_lower, branch, amount = shift_value.split("|")
-            offsets.append([iso, int(v_upper), int(v_lower), branch, int(amount)])
-        # names as in processing.pipeline.ProcessSettings
-        self.dismiss({"species": species, "j_offsets": offsets, "excluded_positions_cm1": exclude})
+            offsets.append((iso, int(v_upper), int(v_lower), branch, int(amount)))
+        self.dismiss(RedoRequest(species=tuple(species), j_offsets=tuple(offsets), excluded_positions_cm1=tuple(exclude)))
 
     def action_cancel(self) -> None:
         self.dismiss(None)

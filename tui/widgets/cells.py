@@ -11,6 +11,7 @@ from typing import Any
 
 from rich.text import Text
 
+from processing.estimate import Estimate
 from processing.safe_text import safe_text
 
 VERDICT_LABELS: dict[str | None, tuple[str, str]] = {
@@ -76,20 +77,20 @@ def decimals_for(sigma: float | None, default: int = 4) -> int:
     return int(min(8, max(0, 1 - math.floor(math.log10(sigma)))))
 
 
-def quantity_cells(estimate: Any) -> tuple[Text, Text]:
-    """(value, ±sigma) cells of a {"value", "sigma"} object, at the uncertainty's precision."""
-    if not isinstance(estimate, dict) or not isinstance(estimate.get("value"), (int, float)):
+def quantity_cells(estimate: Estimate | None) -> tuple[Text, Text]:
+    """(value, ±sigma) cells of an estimate, at the uncertainty's precision."""
+    if estimate is None or not isinstance(estimate.value, (int, float)) or not math.isfinite(estimate.value):
         return Text("—", justify="right", style="dim"), Text("", justify="right")
-    sigma = estimate.get("sigma")
-    value = float(estimate["value"])
+    sigma = estimate.sigma
+    value = float(estimate.value)
     if value != 0 and abs(value) < 1e-2:
         # small quantities such as centrifugal distortion (~1e-4 cm-1) read best in e-notation
         value_cell = Text(f"{value:.4e}", justify="right")
         if isinstance(sigma, (int, float)) and math.isfinite(sigma):
             return value_cell, Text(f"±{sigma:.1e}", justify="right")
         return value_cell, Text("± n/d", justify="right", style="dim")
-    places = decimals_for(sigma, default=_default_places(estimate["value"]))
-    value_cell = number(float(estimate["value"]), places)
+    places = decimals_for(sigma, default=_default_places(value))
+    value_cell = number(value, places)
     if isinstance(sigma, (int, float)) and math.isfinite(sigma):
         return value_cell, Text(f"±{sigma:.{places}f}", justify="right")
     return value_cell, Text("± n/d", justify="right", style="dim")

@@ -1,18 +1,22 @@
 """The tables of the main screen: the run list and, for the selected run, lines, constants, checks.
 
-Each table fills itself from ledger records or the result JSON (plain dicts) and only formats:
-no physics is computed here.
+Each table fills itself from ledger records or the typed result and only formats: no physics
+is computed here.
 """
 from __future__ import annotations
 
-from typing import Any, Iterable
+from collections.abc import Iterable, Sequence
+from typing import Any
 
 from rich.text import Text
-from textual.binding import Binding
 from textual.message import Message
 from textual.widgets import DataTable
 
-from tui.comparison_text import comparison_text, comparison_z, reference_value
+from processing.estimate import Estimate
+from processing.result_text import assignment_label, comparison_sentence
+from processing.results import Band, Check, IsotopologueConstants, Line
+from processing.station.ledger import RunRecord
+from tui import bindings
 from tui.widgets.cells import (
     check_text,
     decision_text,
@@ -21,13 +25,6 @@ from tui.widgets.cells import (
     quantity_cells,
     verdict_text,
 )
-
-VERTICAL_KEYS = [
-    Binding("down,j", "cursor_down", "Down", show=False, id="table.down"),
-    Binding("up,k", "cursor_up", "Up", show=False, id="table.up"),
-    Binding("home,g", "scroll_top", "Top", show=False, id="table.top"),
-    Binding("end,G", "scroll_bottom", "Bottom", show=False, id="table.bottom"),
-]
 
 
 def clock_time(stamp: str | None) -> str:
@@ -41,7 +38,7 @@ def clock_time(stamp: str | None) -> str:
 class RunList(DataTable):
     """Runs newest first: time, file, species found, verdict, decision."""
 
-    BINDINGS = VERTICAL_KEYS
+    BINDINGS = bindings.TABLE
 
     def __init__(self, **kwargs: Any) -> None:
         super().__init__(cursor_type="row", zebra_stripes=False, **kwargs)
@@ -57,7 +54,7 @@ class RunList(DataTable):
 
     def fill(
         self,
-        runs: Iterable[Any],
+        runs: Iterable[RunRecord],
         busy: Iterable[str] = (),
         keep_run_id: int | None = None,
         problems: dict[str, str] | None = None,
@@ -105,32 +102,14 @@ class RunList(DataTable):
         return self.coordinate_to_cell_key((self.cursor_row, 0)).row_key.value
 
 
-def line_label(assigned: dict[str, Any] | None) -> str:
-    """e.g. "H35Cl 1-0 R(3)" (J of the lower level in brackets, trade convention)."""
-    if not assigned:
-        return "unassigned"
-    return (
-        f"{assigned.get('isotopologue', '?')} {assigned.get('v_upper', '?')}-{assigned.get('v_lower', '?')}"
-        f" {assigned.get('branch', '?')}({assigned.get('J_lower', '?')})"
-    )
-
-
-def line_key(line: dict[str, Any]) -> float:
-    """A line's identity for exclusion requests: its observed position in cm-1."""
-    return round(float((line.get("position") or {}).get("value", float("nan"))), 4)
-
-
 class LinesTable(DataTable):
     """Observed lines: position, assignment, calculated position, obs-calc; `x` marks exclusion."""
 
-    BINDINGS = [
-        *VERTICAL_KEYS,
-        Binding("x", "toggle_exclude", "Exclude line", id="lines.exclude"),
-    ]
+    BINDINGS = bindings.LINES
 
     def __init__(self, **kwargs: Any) -> None:
         super().__init__(cursor_type="row", **kwargs)
-        self.lines: list[dict[str, Any]] = []
+        self.lines: list[Line] = []
         self.excluded: set[float] = set()
 
     def on_mount(self) -> None:
@@ -141,34 +120,33 @@ class LinesTable(DataTable):
         self.add_column("obs-calc", key="residual", width=8)
         self.add_column("note", key="note", width=18)
 
-    def fill(self, lines: list[dict[str, Any]], excluded: set[float] | None = None) -> None:
+    def fill(self, lines: Sequence[Line], excluded: set[float] | None = None) -> None:
         self.clear()
-        self.lines = sorted(lines, key=line_key, reverse=True)
+        self.lines = sorted(lines, key=lambda line: line.key, reverse=True)
         self.excluded = set(excluded or ())
         for index, line in enumerate(self.lines):
-            position = line.get("position") or {}
-            assigned = line.get("assigned") or None
-            sigma = position.get("sigma")
+            assigned = line.assigned
+            sigma = line.position.sigma
             self.add_row(
-                number(position.get("value"), 4),
+                number(line.position.value, 4),
                 number(sigma, 4) if sigma is not None else Text("", justify="right"),
-                plain(line_label(assigned)) if assigned else Text("? unassigned", style="bold"),
-                number(assigned.get("calc"), 4) if assigned else Text("—", justify="right", style="dim"),
-                number(assigned.get("residual"), 4) if assigned else Text("—", justify="right", style="dim"),
+                plain(assignment_label(assigned)) if assigned else Text("? unassigned", style="bold"),
+                number(assigned.calc, 4) if assigned else Text("—", justify="right", style="dim"),
+                number(assigned.residual, 4) if assigned else Text("—", justify="right", style="dim"),
                 self._note(line),
                 key=str(index),
             )
 
-    def _note(self, line: dict[str, Any]) -> Text:
-        if line_key(line) in self.excluded:
+    def _note(self, line: Line) -> Text:
+        if line.key in self.excluded:
             return Text("x EXCLUDE on redo", style="bold")
-        notes = [str(line["likely_cause"])] if line.get("likely_cause") else []
-        assigned = line.get("assigned") or {}
-        if line.get("saturated"):
+        notes = [line.likely_cause] if line.likely_cause else []
+        assigned = line.assigned
+        if line.saturated:
             notes.append("saturated")
-        if line.get("blended") or assigned.get("blended"):
+        if line.blended or (assigned is not None and assigned.blended):
             notes.append("blended")
-        if assigned.get("used_in_fit") is False:
+        if assigned is not None and not assigned.used_in_fit:
             notes.append("not in fit")
         return plain(", ".join(notes))
 
@@ -176,7 +154,7 @@ class LinesTable(DataTable):
         if not self.lines:
             return
         line = self.lines[self.cursor_row]
-        key = line_key(line)
+        key = line.key
         self.excluded ^= {key}
         self.update_cell(str(self.cursor_row), "note", self._note(line))
         self.post_message(self.ExclusionsChanged(self))
@@ -212,12 +190,11 @@ BAND_ROWS: tuple[tuple[str, str], ...] = (
 )
 
 
-def reference_cell(reference: float | None, estimate: Any) -> Text:
+def reference_cell(reference: float | None, estimate: Estimate) -> Text:
     """The reference value at the fitted value's precision (so the two line up)."""
     if reference is None:
         return Text("—", justify="right", style="dim")
-    sigma = estimate.get("sigma") if isinstance(estimate, dict) else None
-    return quantity_cells({"value": reference, "sigma": sigma})[0]
+    return quantity_cells(Estimate(reference, estimate.sigma))[0]
 
 
 def z_cell(z: float | None) -> Text:
@@ -232,7 +209,7 @@ class ConstantsTable(DataTable):
     """Band constants per band and molecular constants per isotopologue, each beside the
     reference its Δ/σ is computed against (the same model on the library's own lines)."""
 
-    BINDINGS = VERTICAL_KEYS
+    BINDINGS = bindings.TABLE
 
     def __init__(self, **kwargs: Any) -> None:
         super().__init__(cursor_type="row", **kwargs)
@@ -247,38 +224,38 @@ class ConstantsTable(DataTable):
         self.add_column("reference", key="reference", width=11)
         self.add_column("Δ/σ", key="z", width=6)
 
-    def fill(self, bands: list[dict[str, Any]], constants: list[dict[str, Any]]) -> None:
+    def fill(self, bands: Sequence[Band], constants: Sequence[IsotopologueConstants]) -> None:
         self.clear()
         self.quantities = []
         self.details = []
         for band in bands:
-            iso = str(band.get("isotopologue", "?"))
-            tag = f"{band.get('v_upper', '?')}-{band.get('v_lower', '?')}"
-            references = band.get("reference") or {}
+            iso, tag = band.isotopologue, band.band
             for key, label in BAND_ROWS:
-                if band.get(key) is None:
+                estimate = band.quantity(key)
+                if estimate is None:
                     continue
-                estimate = band.get(key)
+                comparison = band.reference.get(key)
                 value, sigma = quantity_cells(estimate)
-                ref_cell = reference_cell(reference_value(references, key), estimate)
-                self._add(iso, f"{key}@{tag}", f"{label} {tag}", value, sigma, ref_cell, z_cell(comparison_z(references, key)),
-                          comparison_text(iso, key, estimate, references, f"{key} ({tag})"))
-            rms = band.get("rms")
+                ref_cell = reference_cell(comparison.compared_reference if comparison else None, estimate)
+                self._add(iso, f"{key}@{tag}", f"{label} {tag}", value, sigma, ref_cell,
+                          z_cell(comparison.compared_z if comparison else None),
+                          comparison_sentence(iso, f"{key} ({tag})", estimate, comparison))
             self._add(
-                iso, "", f"rms {tag} n={band.get('n_lines', '?')}", number(rms, 4), Text(""), Text(""),
-                Text(""), f"{iso} {tag}: {band.get('n_lines', '?')} lines in the fit, rms {rms} cm-1",
+                iso, "", f"rms {tag} n={band.n_lines}", number(band.rms, 4), Text(""), Text(""),
+                Text(""), f"{iso} {tag}: {band.n_lines} lines in the fit, rms {band.rms} cm-1",
             )
         for constant in constants:
-            iso = str(constant.get("isotopologue", "?"))
-            reference = constant.get("reference")
+            iso = constant.isotopologue
+            references = constant.reference
             for key, label in CONSTANT_ROWS:
-                if constant.get(key) is None:
+                estimate = constant.constants.get(key)
+                if estimate is None:
                     continue
-                estimate = constant.get(key)
+                comparison = references.get(key)
                 value, sigma = quantity_cells(estimate)
-                ref_cell = reference_cell(reference_value(reference, key), estimate)
-                self._add(iso, key, label, value, sigma, ref_cell, z_cell(comparison_z(reference, key)),
-                          comparison_text(iso, key, estimate, reference))
+                ref_cell = reference_cell(comparison.compared_reference if comparison else None, estimate)
+                self._add(iso, key, label, value, sigma, ref_cell, z_cell(comparison.compared_z if comparison else None),
+                          comparison_sentence(iso, key, estimate, comparison))
         if self.row_count == 0:
             self.add_row(Text("no fitted constants for this run", style="dim"), "", "", "", "", "")
 
@@ -299,7 +276,7 @@ class ConstantsTable(DataTable):
 class ChecksTable(DataTable):
     """Each check with its status as a word and the reason."""
 
-    BINDINGS = VERTICAL_KEYS
+    BINDINGS = bindings.TABLE
 
     def __init__(self, **kwargs: Any) -> None:
         super().__init__(cursor_type="row", **kwargs)
@@ -310,18 +287,14 @@ class ChecksTable(DataTable):
         self.add_column("check", key="name", width=18)
         self.add_column("reason", key="detail")
 
-    def fill(self, checks: list[dict[str, Any]], error: str | None = None) -> None:
+    def fill(self, checks: Sequence[Check], error: str | None = None) -> None:
         self.clear()
         self.details = []
         if error:
             self.details.append(f"file: {error}")
             self.add_row(check_text("fail"), plain("file"), plain(error))
         for check in checks:
-            self.details.append(f"{check.get('name', '')}: {check.get('detail', '')}")
-            self.add_row(
-                check_text(str(check.get("status", "?"))),
-                plain(check.get("name", "")),
-                plain(check.get("detail", "")),
-            )
+            self.details.append(f"{check.name}: {check.detail}")
+            self.add_row(check_text(check.status), plain(check.name), plain(check.detail))
         if self.row_count == 0:
             self.add_row(Text("", style="dim"), Text("no checks ran", style="dim"), Text(""))

@@ -8,15 +8,16 @@ positions and assignments come from the analysis result as they are.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Sequence
+from typing import Sequence
 
 import numpy as np
 from rich.text import Text
-from textual.binding import Binding
 from textual.reactive import reactive
 from textual.widget import Widget
 
+from processing.results import Line
 from processing.safe_text import safe_text
+from tui import bindings
 
 BRAILLE_BASE = 0x2800
 # Braille dot bit for (column 0..1, row 0..3) inside one character cell (Unicode braille block).
@@ -41,14 +42,13 @@ class PlotLine:
     excluded: bool = False
 
     @classmethod
-    def from_result_line(cls, line: dict[str, Any], excluded: bool = False) -> PlotLine:
-        """Build from one entry of the result JSON's `lines` list."""
-        position = line.get("position") or {}
-        assigned = line.get("assigned") or None
+    def from_result_line(cls, line: Line, excluded: bool = False) -> PlotLine:
+        """Build from one of the result's lines."""
+        assigned = line.assigned
         return cls(
-            position_cm1=float(position.get("value", float("nan"))),
-            isotopologue=assigned.get("isotopologue") if assigned else None,
-            branch=assigned.get("branch") if assigned else None,
+            position_cm1=float(line.position.value),
+            isotopologue=assigned.isotopologue if assigned else None,
+            branch=assigned.branch if assigned else None,
             excluded=excluded,
         )
 
@@ -206,17 +206,7 @@ def draw_spectrum(
 class SpectrumPlot(Widget, can_focus=True):
     """The selected run's spectrum, zoomable and pannable by keys."""
 
-    BINDINGS = [
-        Binding("plus,equals_sign,i", "zoom(0.5)", "Zoom in", id="plot.zoom_in", key_display="+"),
-        Binding("minus,o", "zoom(2.0)", "Zoom out", id="plot.zoom_out", key_display="-"),
-        Binding("left,h", "pan(-0.25)", "Pan", id="plot.pan_left", key_display="←/→",
-                tooltip="Pan left (a quarter of the view)"),
-        Binding("right,l", "pan(0.25)", "Pan right", id="plot.pan_right", show=False,
-                tooltip="Pan right (a quarter of the view)"),
-        Binding("0", "reset_view", "Whole", id="plot.reset", tooltip="Whole spectrum"),
-        Binding("x", "flip_axis", "Flip axis", id="plot.flip",
-                tooltip="Flip axis (high to low wavenumber, or low to high)"),
-    ]
+    BINDINGS = bindings.PLOT
 
     high_to_low: reactive[bool] = reactive(True)
     window: reactive[tuple[float, float] | None] = reactive(None)
