@@ -37,7 +37,6 @@ from processing.lines import LineTable, fit_sigma_factor
 from processing.physical_constants import C2_CM_K
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
-H_D_PARTNERS = {"HF": "DF", "DF": "HF", "HCl": "DCl", "DCl": "HCl", "HBr": "DBr", "DBr": "HBr", "HI": "DI", "DI": "HI"}
 # Regions where lines are most likely from atmospheric interferents (common practice).
 INTERFERENT_REGIONS: tuple[tuple[float, float, str], ...] = (
     (2280.0, 2390.0, "interferent (CO2-like band region)"),
@@ -961,7 +960,7 @@ def _candidate_molecules(library: Any, species: tuple[str, ...], notes: list[str
         return list(library.molecules())
     wanted: list[str] = []
     for iso in library.resolve(species):
-        for name in (iso.molecule, H_D_PARTNERS.get(iso.molecule)):
+        for name in (iso.molecule, library.partner(iso.molecule)):
             if name and name in library.molecules() and name not in wanted:
                 wanted.append(name)
     return wanted

@@ -283,21 +283,19 @@ def hydrogen_fractions(lines: Any, assignment: Any, library: Any, temperature_K:
     """Hydrogen fraction when H and D forms of one molecule are both assigned (e.g. HCl in a
     DCl cell). Relies on the library's absolute band strengths, which are approximate (the
     deuterated ones estimated from the hydride), so this is an estimate to ~20-30%."""
-    from processing.assign import H_D_PARTNERS
-
     known = {iso.label: iso for iso in library.isotopologues()}
-    found = {known[label].molecule: set() for label in {a.isotopologue for a in assignment.per_line if a} if label in known}
+    found: dict[str, set[str]] = {}
     for a in assignment.per_line:
         if a and a.isotopologue in known:
-            found[known[a.isotopologue].molecule].add(a.isotopologue)
+            found.setdefault(known[a.isotopologue].molecule, set()).add(a.isotopologue)
+    pairs = dict.fromkeys(pair for molecule in found if (pair := library.light_and_heavy(molecule)) is not None)
     out = []
-    for molecule_h, molecule_d in H_D_PARTNERS.items():
-        if not molecule_h.startswith("H") or molecule_h not in found or molecule_d not in found:
+    for molecule_h, molecule_d in pairs:
+        if molecule_h not in found or molecule_d not in found:
             continue
-        # compare the main heavy-atom isotopologues (e.g. H35Cl with D35Cl): same heavy isotope share
+        # compare isotopologues that differ only in the hydrogen isotope (e.g. H35Cl with D35Cl)
         main_h = max(found[molecule_h], key=lambda label: known[label].abundance)
-        heavy = [n for n in known[main_h].nuclides if n not in ("1H", "2H")]
-        main_d = [label for label in found[molecule_d] if [n for n in known[label].nuclides if n not in ("1H", "2H")] == heavy]
+        main_d = [label for label in found[molecule_d] if label == library.partner_isotopologue(main_h)]
         if not main_d:
             continue
         column_h = _column_per_line(lines, assignment, library, {main_h}, temperature_K)

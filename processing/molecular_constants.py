@@ -529,7 +529,7 @@ def molecular_constants(analysis: Any, library: Any) -> ConstantsResult:
     mass_reduced = []
     molecules: dict[str, list[str]] = {}
     for label in sorted(set(lines.isotopologue.tolist())):
-        molecules.setdefault(_element_pair(library.isotopologue(label)), []).append(label)
+        molecules.setdefault(library.family(label), []).append(label)
     for pair, labels in molecules.items():
         if len(labels) < 2:
             continue
@@ -544,8 +544,3 @@ def molecular_constants(analysis: Any, library: Any) -> ConstantsResult:
     bands = tuple(b for b in (band_reference(fit, library) for fit in analysis.assignment.bands) if b is not None)
     return ConstantsResult(tuple(per_isotopologue), tuple(mass_reduced), tuple(notes), bands)
 
-
-def _element_pair(isotopologue: Any) -> str:
-    """Molecule identity across isotopes: HCl and DCl share "H-Cl"."""
-    elements = ["H" if nuclide in ("1H", "2H") else "".join(ch for ch in nuclide if ch.isalpha()) for nuclide in isotopologue.nuclides]
-    return "-".join(elements)

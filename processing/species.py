@@ -130,14 +130,6 @@ def reduced_mass_u(mass1_u: float, mass2_u: float) -> float:
     return mass1_u * mass2_u / (mass1_u + mass2_u)
 
 
-def mass_scaled_dunham(
-    dunham: Mapping[tuple[int, int], float], mu_parent_u: float, mu_target_u: float
-) -> dict[tuple[int, int], float]:
-    """Dunham coefficients of another isotopologue: Y_kl (mu/mu')^(k/2 + l)."""
-    ratio = mu_parent_u / mu_target_u
-    return {(k, l): y * ratio ** (k / 2.0 + l) for (k, l), y in dunham.items()}
-
-
 def canonical_label(nuclides: Iterable[Nuclide]) -> str:
     """Public label: hydrogen as H/D without mass number, other nuclides as <A><symbol>."""
     parts = []
@@ -189,6 +181,50 @@ class Library:
             name = matches[0]
         members = [entry for entry in self.entries.values() if entry.molecule == name]
         return tuple(sorted(members, key=lambda entry: -entry.abundance))
+
+    # ------------------------------------------------------------ molecule questions
+    def family(self, name: str) -> str:
+        """The molecule family of a molecule or isotopologue: its elements, e.g. "H-Cl" for
+        HCl, DCl and all their isotopologues (isotopes do not change the family)."""
+        entry = self.entries.get(name) or self.molecule(name)[0]
+        return "-".join(self.nuclides[label].element for label in entry.nuclides)
+
+    def partner(self, molecule: str) -> str | None:
+        """The other molecule of the same family, for a family of exactly two (the H and D
+        forms: HCl <-> DCl); None when the molecule has no such partner (CO)."""
+        family = self.family(molecule)
+        name = self.molecule(molecule)[0].molecule
+        others = [other for other in self.molecules() if other != name and self.family(other) == family]
+        return others[0] if len(others) == 1 else None
+
+    def light_and_heavy(self, molecule: str) -> tuple[str, str] | None:
+        """(lighter form, heavier form) of a molecule and its partner, by the mass of the
+        nuclide in which they differ (HCl, DCl); None without a partner."""
+        partner = self.partner(molecule)
+        if partner is None:
+            return None
+        name = self.molecule(molecule)[0].molecule
+        return (name, partner) if self._differing_mass(name, partner) < self._differing_mass(partner, name) else (partner, name)
+
+    def _differing_mass(self, molecule: str, other: str) -> float:
+        """Mass of the nuclide of `molecule`'s main isotopologue that `other`'s lacks."""
+        mine = self.molecule(molecule)[0].nuclides
+        theirs = set(self.molecule(other)[0].nuclides)
+        return sum(self.nuclides[label].mass_u for label in mine if label not in theirs)
+
+    def partner_isotopologue(self, label: str) -> str | None:
+        """The isotopologue of the partner molecule that shares every other nuclide with
+        `label` (H35Cl -> D35Cl, D37Cl -> H37Cl): the pair whose columns compare like with
+        like. None without a partner or without such an isotopologue."""
+        entry = self.isotopologue(label)
+        partner = self.partner(entry.molecule)
+        if partner is None:
+            return None
+        kept = {n for n in entry.nuclides if any(n in other.nuclides for other in self.molecule(partner))}
+        for other in self.molecule(partner):
+            if kept and set(other.nuclides) & set(entry.nuclides) == kept:
+                return other.label
+        return None
 
     def resolve(self, names: Iterable[str]) -> tuple[Isotopologue, ...]:
         """Molecule names (all their isotopologues) or isotopologue labels -> isotopologues,

@@ -15,9 +15,8 @@ import time
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from processing.station.events import RunFailed, RunProcessed, StationEvent
-
 if TYPE_CHECKING:
+    from processing.station.events import StationEvent
     from processing.instrument_replay import InstrumentReplay
     from processing.station.config import StationConfig
     from processing.station.station import Station
@@ -99,6 +98,8 @@ class _Countdown:
         self.done = threading.Event()
 
     def see(self, event: StationEvent) -> None:
+        from processing.station.events import RunFailed, RunProcessed
+
         if isinstance(event, (RunProcessed, RunFailed)):
             self.finished_paths.add(event.path)
             if len(self.finished_paths) >= self.target:

@@ -136,6 +136,8 @@ def run_plain(config: StationConfig, once: bool) -> int:
     finally:
         station.stop()
         signal.signal(signal.SIGTERM, previous)
+    if station.consumer_failure is not None:
+        print(f"bandwatch: printing the station's events failed: {station.consumer_failure}", file=sys.stderr)
     if station.halted is not None:
         return 1
     return 1 if once and (failures or station.not_recorded) else 0
