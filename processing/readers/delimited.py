@@ -766,3 +766,34 @@ def write_csv(
         target.write(text)
     else:
         target.write(text.encode("utf-8"))  # type: ignore[arg-type]
+
+
+# ----------------------------------------------------------------------------- completeness
+WRITE_BLOCK = 512  # writers flush their buffers in multiples of this
+_FIELD_SPLIT = re.compile(rb"[,;\t ]+")
+# A text file whose last line still looks cut off after the station's longest wait is taken as
+# it is (a writer may simply not end its last line).
+TAKE_WHEN_WAITED_OUT = True
+
+
+def starts_like(head: bytes) -> bool:
+    """Delimited text is the catch-all of the text formats: any bytes no other reader claims."""
+    return True
+
+
+def incomplete_reason(data: bytes) -> str | None:
+    """Why text bytes look still being written, or None: no newline at the end and either the
+    size is a multiple of 512 (a writer flushing its buffer mid-line) or the last line has fewer
+    fields than the one before. A file simply not ending in a newline is complete."""
+    if not data or data.endswith((b"\n", b"\r", b"\n\x00", b"\r\x00")):
+        return None
+    if len(data) % WRITE_BLOCK == 0:
+        return "last line looks cut off (still being written?)"
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return None  # UTF-16: fields are not compared
+    lines = data[-4096:].splitlines()
+    if len(lines) < 3:
+        return None
+    if len(_FIELD_SPLIT.split(lines[-1].strip())) < len(_FIELD_SPLIT.split(lines[-2].strip())):
+        return "last line looks cut off (still being written?)"
+    return None

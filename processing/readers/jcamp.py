@@ -679,3 +679,28 @@ def _parse(data: bytes, source: str) -> Spectrum | LineList:
     if record.label == "XYDATA":
         return _read_xydata(block, record, source, notes)
     return _read_table(block, record, source, notes)
+
+
+# ----------------------------------------------------------------------------- completeness
+_TITLE_LABEL = re.compile(rb"^[ \t]*##[ \t]*TITLE[ \t]*=", re.IGNORECASE | re.MULTILINE)
+_END_LABEL = re.compile(rb"^[ \t]*##[ \t]*END[ \t]*=", re.IGNORECASE | re.MULTILINE)
+# A JCAMP-DX file still incomplete after the station's longest wait is unreadable (its data may
+# stop anywhere); it is never analysed as it stands.
+TAKE_WHEN_WAITED_OUT = False
+
+
+def starts_like(head: bytes) -> bool:
+    """True when the bytes begin as a JCAMP-DX file does (a labelled record, `##`), even one
+    cut off before its first full label."""
+    return head.lstrip(b"\xef\xbb\xbf \t\r\n")[:2] == b"##"
+
+
+def incomplete_reason(data: bytes) -> str | None:
+    """Why JCAMP-DX bytes are not yet a whole file (one ##END= per ##TITLE=), or None."""
+    titles = len(_TITLE_LABEL.findall(data))
+    ends = len(_END_LABEL.findall(data))
+    if ends == 0:
+        return "JCAMP-DX file has no ##END= (still being written?)"
+    if ends < titles:
+        return f"JCAMP-DX file has {titles} ##TITLE= blocks but only {ends} ##END= (still being written?)"
+    return None

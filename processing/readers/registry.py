@@ -6,12 +6,18 @@ Each reader module offers:
     identify(head: bytes) -> bool         True when the first bytes look like this format
     parse(data: bytes, source: str) -> Spectrum | LineList
                                           raises SpectrumFileError naming `source`
-Adding a format = one module with those four names, listed in `READERS` below.
+    starts_like(head: bytes) -> bool      the bytes begin as this format does (even cut short)
+    incomplete_reason(data: bytes) -> str | None
+                                          why the bytes are not yet a whole file, or None
+    TAKE_WHEN_WAITED_OUT: bool            still incomplete after the longest wait: analyse
+                                          as it stands (True) or record as unreadable
+Adding a format = one module with those names, listed in `reader_modules` below; what the formats
+are called in messages comes from their FORMAT_NAMEs.
 """
 from __future__ import annotations
 
 import hashlib
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 from pathlib import Path
@@ -26,7 +32,8 @@ HEAD_BYTES = 4096
 PARALLEL_HASH_BYTES = 1 << 20  # below 1 MB a thread costs more than it saves
 
 
-def _readers() -> tuple[ModuleType, ...]:
+def reader_modules() -> tuple[ModuleType, ...]:
+    """Every reader, most specific identifier first (importing them)."""
     from processing.readers import delimited, jcamp
 
     # Order matters: the most specific identifier first; delimited text is the catch-all.
@@ -56,7 +63,7 @@ def choose_reader(data: bytes, source: str) -> ModuleType:
     head = data[:HEAD_BYTES]
     if looks_binary(head):
         raise SpectrumFileError(source, "binary data, not a text spectrum format bandwatch reads")
-    readers = _readers()
+    readers = reader_modules()
     for reader in readers:
         if reader.identify(head):
             return reader
@@ -64,7 +71,33 @@ def choose_reader(data: bytes, source: str) -> ModuleType:
     for reader in readers:
         if suffix in reader.EXTENSIONS:
             return reader
-    raise SpectrumFileError(source, "not a recognised spectrum format (JCAMP-DX or delimited text)")
+    raise SpectrumFileError(source, f"not a recognised spectrum format ({' or '.join(r.FORMAT_NAME for r in readers)})")
+
+
+@dataclass(frozen=True)
+class Incomplete:
+    """Bytes that are not yet a whole file: why, and what to do when they stay so past the
+    longest wait (analyse them as they stand, or record the file as unreadable)."""
+
+    reason: str
+    take_when_waited_out: bool
+
+
+def incomplete(data: bytes) -> Incomplete | None:
+    """Whether `data` is a whole file, by the rules of the format it starts like (the station
+    waits for more while it is not); None when it looks complete."""
+    head = data[:HEAD_BYTES]
+    for reader in reader_modules():
+        if reader.starts_like(head):
+            why = reader.incomplete_reason(data)
+            return Incomplete(why, reader.TAKE_WHEN_WAITED_OUT) if why else None
+    return None
+
+
+def incomplete_reason(data: bytes) -> str | None:
+    """Why `data` looks still being written, or None when it looks complete."""
+    found = incomplete(data)
+    return found.reason if found is not None else None
 
 
 def as_utf8(data: bytes, source: str) -> bytes:

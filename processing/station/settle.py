@@ -1,11 +1,10 @@
 """Decide when a file is finished being written: stable size and time stamp, complete content.
 
 A file is settled when its size and modification time have not changed for `settle_seconds`
-and it reads completely: a JCAMP-DX file must carry one ##END= per ##TITLE=, and a text
-file's last line must not look cut off (no newline at the end and either a size that is a
-multiple of 512, where buffered writers flush mid-line, or fewer fields than the line before).
-A JCAMP-DX file still incomplete after `max_wait_seconds` is given up as incomplete; a text
-file whose last line still looks cut off then is taken as it is. The limit: a writer that
+and its reader says the bytes are a whole file (`processing.readers.incomplete`: a JCAMP-DX
+file carries one ##END= per ##TITLE=, a text file's last line does not look cut off). A file
+still incomplete after `max_wait_seconds` is given up as unreadable or taken as it is, as its
+reader says (JCAMP-DX: given up; text: taken). The limit: a writer that
 pauses longer than `settle_seconds` just after a whole line is indistinguishable from a
 finished file (each pause gives a new version of the run); give such writers a longer
 settle time.
@@ -16,19 +15,13 @@ from __future__ import annotations
 
 import hashlib
 import os
-import re
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
 
 from processing.errors import SpectrumFileError
+from processing.readers import incomplete
 from processing.regular_files import ReadPolicy, check_place, read_regular
-
-_JCAMP_TITLE = re.compile(rb"^[ \t]*##[ \t]*TITLE[ \t]*=", re.IGNORECASE | re.MULTILINE)
-_FIELD_SPLIT = re.compile(rb"[,;\t ]+")
-WRITE_BLOCK = 512  # writers flush their buffers in multiples of this
-_JCAMP_END = re.compile(rb"^[ \t]*##[ \t]*END[ \t]*=", re.IGNORECASE | re.MULTILINE)
-
 
 @dataclass(frozen=True)
 class SettledFile:
@@ -67,44 +60,6 @@ class VanishedFile:
 
 
 SettleOutcome = SettledFile | IncompleteFile | RefusedFile | VanishedFile
-
-
-def incomplete_reason(data: bytes) -> str | None:
-    """Why the content looks still being written, or None when it looks complete."""
-    head = data.lstrip(b"\xef\xbb\xbf \t\r\n")[:2]
-    if head != b"##":
-        if _last_line_unfinished(data):
-            return "last line looks cut off (still being written?)"
-        return None
-    titles = len(_JCAMP_TITLE.findall(data))
-    ends = len(_JCAMP_END.findall(data))
-    if ends == 0:
-        return "JCAMP-DX file has no ##END= (still being written?)"
-    if ends < titles:
-        return f"JCAMP-DX file has {titles} ##TITLE= blocks but only {ends} ##END= (still being written?)"
-    return None
-
-
-def _last_line_unfinished(data: bytes) -> bool:
-    """True when a text file's last line looks cut off: no newline at the end and either
-    the size is a multiple of 512 (a writer flushing its buffer mid-line) or the last line has
-    fewer fields than the one before. A file simply not ending in a newline is complete."""
-    if not data or data.endswith((b"\n", b"\r", b"\n\x00", b"\r\x00")):
-        return False
-    if len(data) % WRITE_BLOCK == 0:
-        return True
-    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
-        return False  # UTF-16: fields are not compared
-    lines = data[-4096:].splitlines()
-    if len(lines) < 3:
-        return False
-    return len(_FIELD_SPLIT.split(lines[-1].strip())) < len(_FIELD_SPLIT.split(lines[-2].strip()))
-
-
-def taken_when_waited_out(data: bytes) -> bool:
-    """True for content taken as it is once the longest wait is over (text whose last line
-    never got its newline); False for content given up as incomplete (JCAMP-DX without END)."""
-    return data.lstrip(b"\xef\xbb\xbf \t\r\n")[:2] != b"##"
 
 
 @dataclass
@@ -214,11 +169,12 @@ class Settler:
                 state.size, state.mtime_ns, state.stable_since = after.st_size, after.st_mtime_ns, now
                 return None  # written to while we read: wait again
             sha = hashlib.sha256(data).hexdigest()
-            why = incomplete_reason(data)
-            if why is None:
+            found = incomplete(data)
+            if found is None:
                 return SettledFile(path, sha, state.size, state.mtime_ns)
+            why = found.reason
             state.incomplete_stat, state.incomplete_sha, state.incomplete_why = key, sha, why
-            state.take_when_waited_out = taken_when_waited_out(data)
+            state.take_when_waited_out = found.take_when_waited_out
         if now - state.first_seen >= self.max_wait_seconds:
             if state.take_when_waited_out:
                 return SettledFile(path, state.incomplete_sha, state.size, state.mtime_ns)

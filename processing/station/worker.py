@@ -33,8 +33,6 @@ def resolve_function(spec: str) -> Callable[..., Any]:
 # Imported before the first file so its latency carries no import time; absent ones are skipped.
 WARM_MODULES = (
     "processing.pipeline",
-    "processing.readers.delimited",
-    "processing.readers.jcamp",
     "processing.baseline",
     "processing.lines",
     "processing.assign",
@@ -49,8 +47,10 @@ def warm_up() -> None:
     is raised: the worker reports itself broken and the station says why."""
     for name in WARM_MODULES:
         importlib.import_module(name)
+    from processing.readers.registry import reader_modules
     from processing.species import load_library
 
+    reader_modules()
     load_library()  # the shipped library file, parsed once per worker
 
 

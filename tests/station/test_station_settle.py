@@ -6,7 +6,8 @@ import os
 import time
 from pathlib import Path
 
-from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile, incomplete_reason
+from processing.readers import incomplete_reason
+from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile
 
 JCAMP_HEAD = "##TITLE=test\n##JCAMP-DX=4.24\n##XYDATA=(X++(Y..Y))\n2900 1 2 3\n"
 
