@@ -117,7 +117,6 @@ class _Band:
     pull: dict[int, float] = field(default_factory=dict)
     # the same lines' partner: m -> (separation from this line, intensity ratio partner/this)
     partner: dict[int, tuple[float, float]] = field(default_factory=dict)
-    merged_with: str | None = None
     library_centrifugal: tuple[float, float, float, float] | None = None  # the library's (D', D'', H', H'')
     # where the predicted relative intensity of every line the library knows (to J'' where it
     # falls under 1e-7 of the strongest) comes from: (library, temperature, scale of `weight`)
@@ -396,7 +395,7 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
                 found = int(np.searchsorted(peaks, high) - np.searchsorted(peaks, low))
                 if found >= 2 or found == 0:
                     continue  # two peaks there: resolved (or partly), each measured on its own
-            host, guest = bands[int(band_of[major])], bands[int(band_of[minor])]
+            host = bands[int(band_of[major])]
             m = int(host.m[index_of[major]])
             separation = float(position[minor] - position[major])
             w_major, w_minor = float(weight[major]), float(weight[minor])
@@ -411,7 +410,6 @@ def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarr
         keep = ~np.isin(np.arange(band.m.size), list(indices))
         band.m, band.position, band.sigma, band.weight = band.m[keep], band.position[keep], band.sigma[keep], band.weight[keep]
     for (host_index, guest_index), count in merged_count.items():
-        bands[host_index].merged_with = bands[guest_index].isotopologue
         notes.append(
             f"{bands[host_index].label}: {count} lines unresolved from {bands[guest_index].isotopologue}; positions "
             "corrected for the predicted blend centre"

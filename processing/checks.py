@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from processing.errors import ConfigError, UnknownSpeciesError
+from processing.errors import ConfigError
 from processing.results import CalibrationBand, CalibrationFit, Check
 
 STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}

@@ -44,9 +44,5 @@ class ConfigError(BandwatchError):
         super().__init__(safe_text(f"{self.path}: {key}: {problem}"))
 
 
-class AnalysisError(BandwatchError):
-    """The analysis cannot proceed on a readable spectrum (e.g. no usable points)."""
-
-
 class UnknownSpeciesError(BandwatchError):
     """A molecule or isotopologue name the library does not know (one-line message)."""

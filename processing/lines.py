@@ -94,7 +94,7 @@ class LineTable:
             saturated=false,
             blended=false.copy(),
             ringing=false.copy(),
-            notes=(f"line list: positions as given, uncertainties from the fit scatter",),
+            notes=("line list: positions as given, uncertainties from the fit scatter",),
             sigma_known=False,
         )
 

@@ -39,15 +39,6 @@ class Compared:
     z: float | None = None
     combined_sigma: float | None = None
 
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "value": self.value,
-            "sigma": self.sigma,
-            "reference": self.reference,
-            "reference_sigma": self.reference_sigma,
-            "z": self.z,
-            "combined_sigma": self.combined_sigma,
-        }
 
 
 def _gradient(function: Callable[[np.ndarray], float], values: np.ndarray) -> np.ndarray:

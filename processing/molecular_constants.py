@@ -25,7 +25,7 @@ isotopologue beyond their noise indicate Born-Oppenheimer breakdown.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
@@ -34,7 +34,7 @@ from processing.dunham_fit import AssignedLines, TermFit, fit_terms, term_column
 from processing.errors import UnknownSpeciesError
 from processing.estimate import Estimate
 from processing.levels import CONSTANT_TO_DUNHAM, band_origin, centrifugal_constant, rotational_constant, sextic_constant, upper_J
-from processing.library_uncertainty import LibraryParameters, library_parameters, predicted_lines
+from processing.library_uncertainty import library_parameters, predicted_lines
 from processing.model_reference import Compared, FittedModel, fitted_model
 from processing.results import (
     Comparison,

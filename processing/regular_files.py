@@ -48,21 +48,6 @@ class ReadPolicy:
     def for_station(cls, export_dir: str | Path, data_dir: str | Path, follow_links_outside: bool = False) -> ReadPolicy:
         return cls(str(Path(export_dir).resolve()), follow_links_outside, (str(Path(data_dir).resolve()),))
 
-    def to_dict(self) -> dict[str, object]:
-        return {"root": self.root, "follow_links_outside": self.follow_links_outside, "forbidden": list(self.forbidden)}
-
-    @classmethod
-    def from_dict(cls, values: dict[str, object] | ReadPolicy | None) -> ReadPolicy:
-        if values is None:
-            return cls()
-        if isinstance(values, ReadPolicy):
-            return values
-        forbidden = values.get("forbidden") or ()
-        return cls(
-            root=str(values["root"]) if values.get("root") else None,
-            follow_links_outside=bool(values.get("follow_links_outside")),
-            forbidden=tuple(str(folder) for folder in forbidden),  # type: ignore[union-attr]
-        )
 
 
 def _inside(path: str, folder: str) -> bool:

@@ -12,12 +12,12 @@ import csv
 import io
 import json
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 from processing.estimate import Estimate, format_value_sigma
-from processing.results import MOLECULAR_CONSTANTS, Assignment, Band, Comparison, IsotopologueConstants, Line, RunResult
+from processing.results import MOLECULAR_CONSTANTS, Assignment, Comparison, IsotopologueConstants, Line, RunResult
 from processing.safe_text import safe_text
 
 if TYPE_CHECKING:

@@ -7,7 +7,6 @@ import signal
 from collections import Counter
 from pathlib import Path
 
-import pytest
 
 from fuzz_mutations import mutated_files, process_and_measure, verdict_of
 

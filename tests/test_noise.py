@@ -3,7 +3,6 @@ traces with no measurable noise, and the simulator's instrument-like noise it is
 from __future__ import annotations
 
 import math
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np

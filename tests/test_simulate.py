@@ -30,7 +30,6 @@ from processing.simulate import (
     SampleGas,
     SimulationSettings,
     doppler_fwhm_cm1,
-    number_density_per_cm3,
     optical_depth_on_grid,
     simulate,
 )

@@ -22,7 +22,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import IO, Any
+from typing import IO
 
 from processing.errors import ConfigError
 from processing.readers import DEFAULT_MAX_BYTES

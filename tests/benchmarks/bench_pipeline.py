@@ -32,7 +32,6 @@ from pathlib import Path
 
 import numpy as np
 
-from processing.baseline import estimate_baseline
 from processing.instrument import Instrument
 from processing.lines import find_peaks
 from processing.pipeline import ProcessSettings, analyse

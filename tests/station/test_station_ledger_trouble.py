@@ -3,7 +3,6 @@ and records are retried with backoff until they succeed, without a restart; what
 recorded makes `watch --once` fail."""
 from __future__ import annotations
 
-import os
 import subprocess
 import sys
 import textwrap

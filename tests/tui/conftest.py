@@ -10,7 +10,6 @@ from __future__ import annotations
 import asyncio
 import inspect
 from pathlib import Path
-from typing import Any
 
 import pytest
 
