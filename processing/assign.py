@@ -27,7 +27,7 @@ import bisect
 import functools
 import math
 from dataclasses import dataclass, field, replace
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
 
@@ -35,6 +35,11 @@ from processing.fit import BandFit, fit_band
 from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
 from processing.lines import LineTable, fit_sigma_factor
 from processing.physical_constants import C2_CM_K
+
+if TYPE_CHECKING:
+    from processing.intensities import BandIntensities
+    from processing.levels import DunhamCoefficients
+    from processing.species import Isotopologue, Library
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
 # Regions where lines are most likely from atmospheric interferents (common practice).
@@ -120,7 +125,7 @@ class _Band:
     library_centrifugal: tuple[float, float, float, float] | None = None  # the library's (D', D'', H', H'')
     # where the predicted relative intensity of every line the library knows (to J'' where it
     # falls under 1e-7 of the strongest) comes from: (library, temperature, scale of `weight`)
-    weights_source: tuple[Any, float, float] | None = None
+    weights_source: tuple[Library, float, float] | None = None
     dropped: set[int] = field(default_factory=set)  # lines merged into a stronger partner's blend
 
     @functools.cached_property
@@ -153,7 +158,7 @@ class _Band:
 
 
 @functools.lru_cache(maxsize=512)
-def _predicted_band(library: Any, label: str, v_upper: int, v_lower: int, temperature_K: float, min_relative: float = 1e-3) -> Any:
+def _predicted_band(library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, min_relative: float = 1e-3) -> BandIntensities | None:
     """Library lines with relative intensities down to `min_relative` of the band's strongest
     (cached: they do not depend on the spectrum)."""
     from processing.intensities import lines_for
@@ -164,27 +169,27 @@ def _predicted_band(library: Any, label: str, v_upper: int, v_lower: int, temper
         return None
 
 
-def library_centrifugal(dunham: Any, v_upper: int, v_lower: int) -> tuple[float, float, float, float]:
+def library_centrifugal(dunham: DunhamCoefficients, v_upper: int, v_lower: int) -> tuple[float, float, float, float]:
     """The library's (D', D'', H', H'') of a band."""
     return (centrifugal_constant(dunham, v_upper), centrifugal_constant(dunham, v_lower),
             sextic_constant(dunham, v_upper), sextic_constant(dunham, v_lower))
 
 
 @functools.lru_cache(maxsize=1024)
-def _band_extent(library: Any, label: str, v_upper: int, v_lower: int) -> tuple[float, float]:
+def _band_extent(library: Library, label: str, v_upper: int, v_lower: int) -> tuple[float, float]:
     """Lowest and highest line of the band up to J'' = 40 (cached)."""
     lines = band_lines(library.isotopologue(label).dunham, v_upper, v_lower, 40)
     position = lines.wavenumber_cm1[np.isfinite(lines.wavenumber_cm1)]
     return (float(position.min()), float(position.max())) if position.size else (np.inf, -np.inf)
 
 
-def _band_may_overlap(library: Any, iso: Any, v_upper: int, v_lower: int, first: float, last: float) -> bool:
+def _band_may_overlap(library: Library, iso: Isotopologue, v_upper: int, v_lower: int, first: float, last: float) -> bool:
     """Cheap test before predicting intensities: the band's lines up to J'' = 40 reach the range."""
     low, high = _band_extent(library, iso.label, v_upper, v_lower)
     return high > first - 10.0 and low < last + 10.0
 
 
-def _library_predictions(library: Any, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> list[_Band]:
+def _library_predictions(library: Library, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> list[_Band]:
     bands: list[_Band] = []
     for iso in library.molecule(molecule):
         if not _band_may_overlap(library, iso, v_upper, v_lower, first, last):
@@ -683,7 +688,7 @@ def _number_chain(positions: np.ndarray, heights: np.ndarray) -> tuple[np.ndarra
     return m, rms
 
 
-def _identify(fit: BandFit, library: Any) -> tuple[str, int, int] | None:
+def _identify(fit: BandFit, library: Library) -> tuple[str, int, int] | None:
     """Library isotopologue and band whose origin and B'' this fitted band matches."""
     best: tuple[float, tuple[str, int, int]] | None = None
     from processing.levels import band_origin, rotational_constant
@@ -714,7 +719,7 @@ def _looks_like_a_band(fit: BandFit, width_cm1: float) -> bool:
     return variance > 0 and abs(difference) > 5.0 * float(np.sqrt(variance))
 
 
-def _pattern_bands(lines: LineTable, available: np.ndarray, library: Any) -> list[tuple[_Band, dict[int, int]]]:
+def _pattern_bands(lines: LineTable, available: np.ndarray, library: Library) -> list[tuple[_Band, dict[int, int]]]:
     """Bands found by the pattern route: (band, {line index: m})."""
     found: list[tuple[_Band, dict[int, int]]] = []
     strong = available & (lines.snr >= 10.0) & ~lines.ringing
@@ -785,7 +790,7 @@ def assign_lines(
     first_cm1: float,
     last_cm1: float,
     settings: AssignSettings | None = None,
-    library: Any = None,
+    library: Library | None = None,
     measure_doublet: DoubletMeasure | None = None,
 ) -> AssignmentResult:
     """Assign `lines` (measured in a spectrum covering first..last cm-1); see module docstring.
@@ -870,7 +875,7 @@ def _assign_at(
     first_cm1: float,
     last_cm1: float,
     settings: AssignSettings,
-    library: Any,
+    library: Library,
     measure_doublet: DoubletMeasure | None,
 ) -> AssignmentResult:
     """One assignment with predictions at `settings.temperature_K` (see `assign_lines`)."""
@@ -953,7 +958,7 @@ def _assign_at(
     return result
 
 
-def _candidate_molecules(library: Any, species: tuple[str, ...], notes: list[str]) -> list[str]:
+def _candidate_molecules(library: Library, species: tuple[str, ...], notes: list[str]) -> list[str]:
     if not species:
         return list(library.molecules())
     wanted: list[str] = []

@@ -10,12 +10,17 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, fields
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from processing.errors import ConfigError
 from processing.results import CalibrationBand, CalibrationFit, Check
+
+if TYPE_CHECKING:
+    from processing.line_intensities import IntensityResult
+    from processing.pipeline import Analysis
+    from processing.species import Library
 
 STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}
 NOT_ASSESSED = "not_assessed"  # the check could not be made; ignored by the verdict
@@ -106,7 +111,7 @@ def verdict_of(checks: list[Check]) -> str:
 
 
 # ----------------------------------------------------------------------------- the checks
-def check_signal_to_noise(analysis: Any, t: CheckThresholds) -> Check:
+def check_signal_to_noise(analysis: Analysis, t: CheckThresholds) -> Check:
     lines = analysis.lines
     if analysis.baseline is None:
         return Check("signal_to_noise", NOT_ASSESSED, "line list: no spectrum to measure noise on", None)
@@ -126,7 +131,7 @@ def check_signal_to_noise(analysis: Any, t: CheckThresholds) -> Check:
     return Check("signal_to_noise", _grade(best, t.snr_pass, t.snr_warn), f"{what} {best:.0f}x the noise (noise sigma {sigma:.2g} A)", best)
 
 
-def check_saturation(analysis: Any, intensities: Any, t: CheckThresholds) -> Check:
+def check_saturation(analysis: Analysis, intensities: IntensityResult | None, t: CheckThresholds) -> Check:
     lines = analysis.lines
     assigned = np.array([a is not None for a in analysis.assignment.per_line], dtype=bool)
     if analysis.baseline is None:
@@ -143,7 +148,7 @@ def check_saturation(analysis: Any, intensities: Any, t: CheckThresholds) -> Che
     return Check("saturation", "pass", f"no saturated line (peak absorbance {peak:.2f})", 0.0)
 
 
-def check_band_lines(analysis: Any, t: CheckThresholds) -> Check:
+def check_band_lines(analysis: Analysis, t: CheckThresholds) -> Check:
     bands = analysis.assignment.bands
     if not bands:
         contours = getattr(analysis, "contours", ())
@@ -154,7 +159,7 @@ def check_band_lines(analysis: Any, t: CheckThresholds) -> Check:
                  f"{len(bands)} band(s); fewest lines: {fewest.label} with {fewest.n_lines}", float(fewest.n_lines))
 
 
-def check_fit_rms(analysis: Any, t: CheckThresholds) -> Check:
+def check_fit_rms(analysis: Analysis, t: CheckThresholds) -> Check:
     bands = analysis.assignment.bands
     if not bands:
         return Check("fit_rms", "fail", "no band fit", None)
@@ -174,7 +179,7 @@ def _grade_with_noise(value: float, sigma: float, good: float, fair: float) -> s
     return "pass" if magnitude <= max(good, 3 * sigma) else "warn" if magnitude <= max(fair, 3 * sigma) else "fail"
 
 
-def check_calibration(analysis: Any, library: Any, t: CheckThresholds) -> Check:
+def check_calibration(analysis: Analysis, library: Library, t: CheckThresholds) -> Check:
     """Offset and scale of the wavenumber axis from every band the library knows.
 
     A feature at true nu is shown at nu (1 + s) + a. Each band fit then gives its origin
@@ -207,7 +212,7 @@ def check_calibration(analysis: Any, library: Any, t: CheckThresholds) -> Check:
     return Check("calibration", status, f"{reason}; set by {named}", offset, fit)
 
 
-def calibration_fit(analysis: Any) -> CalibrationFit | None:
+def calibration_fit(analysis: Analysis) -> CalibrationFit | None:
     """Offset (at the mean wavenumber) and scale of the axis from the band references;
     None when no band has one."""
     constants = getattr(analysis, "constants", None)
@@ -274,7 +279,7 @@ def calibration_fit(analysis: Any) -> CalibrationFit | None:
     )
 
 
-def check_interferents(analysis: Any, t: CheckThresholds, axis_inverted: bool = False) -> Check:
+def check_interferents(analysis: Analysis, t: CheckThresholds, axis_inverted: bool = False) -> Check:
     causes = [c for c in analysis.assignment.likely_cause if c]
     co2 = sum("CO2" in c for c in causes)
     water = sum("water" in c for c in causes)
@@ -292,7 +297,7 @@ def check_interferents(analysis: Any, t: CheckThresholds, axis_inverted: bool = 
     return Check("interferents", "pass", f"no interferent bands ({co2} CO2-region, {water} water-region, {negative} negative lines)", float(co2 + water + negative))
 
 
-def _negative_lines(analysis: Any) -> int:
+def _negative_lines(analysis: Analysis) -> int:
     if analysis.baseline is None:
         return 0
     from processing.lines import negative_features
@@ -305,7 +310,7 @@ def _negative_lines(analysis: Any) -> int:
 IMPLAUSIBLE_BASELINE_TRANSMITTANCE = 0.03
 
 
-def check_resolution(analysis: Any) -> Check:
+def check_resolution(analysis: Analysis) -> Check:
     """Can the resolution split the lines of the bands present? A band seen only as its P/R
     contour cannot be measured line by line: said so with its line spacing and the resolution,
     and B'' given from the contour fit instead."""
@@ -328,7 +333,7 @@ def check_resolution(analysis: Any) -> Check:
     return Check("resolution", "pass", f"lines at least {closest:.2f} cm-1 apart near the band centres, line width {width:.3f} cm-1", width)
 
 
-def check_y_axis(analysis: Any) -> Check:
+def check_y_axis(analysis: Analysis) -> Check:
     """Does the y axis hold what its label says? Absorption lines rise above a baseline near
     zero absorbance. Values near 100 labelled absorbance are %T; a baseline near 1 with the
     features dipping below it is transmittance written as absorbance; features dipping below a
@@ -353,7 +358,7 @@ def check_y_axis(analysis: Any) -> Check:
     return Check("y_axis", "pass", f"{kind.replace('_', ' ')} as labelled: lines rise above a baseline at {offset:+.3f} A", offset)
 
 
-def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], t: CheckThresholds) -> Check:
+def check_isotopologues(analysis: Analysis, library: Library, intensities: IntensityResult | None, expected: tuple[str, ...], t: CheckThresholds) -> Check:
     """Expected species present, nothing unexpected. With species named (`--species` or the
     station's configuration) a named species is never a problem: a DCl cell that holds HCl by
     design gives its hydrogen fraction as information. Without them an H form beside its D
@@ -403,7 +408,7 @@ def check_isotopologues(analysis: Any, library: Any, intensities: Any, expected:
     return Check("isotopologues", "pass", "; ".join(["found " + ", ".join(sorted(found))] + information), float(len(found)))
 
 
-def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
+def check_temperature(intensities: IntensityResult | None, t: CheckThresholds) -> Check:
     """Rotational temperature from the best Boltzmann plot, corrected to first order for
     optical depth (`line_intensities`); not assessed when the lines are too thick for that."""
     from processing.line_intensities import KAPPA_LIMIT
@@ -425,7 +430,7 @@ def check_temperature(intensities: Any, t: CheckThresholds) -> Check:
                  f"rotational temperature {T:.0f} +- {sigma:.0f} K from {best.isotopologue} {best.v_upper}-{best.v_lower} (sigma includes optical depth: strongest line ~{100 * kappa:+.0f}%)", T)
 
 
-def check_baseline(analysis: Any, t: CheckThresholds) -> Check:
+def check_baseline(analysis: Analysis, t: CheckThresholds) -> Check:
     baseline = analysis.baseline
     if baseline is None:
         return Check("baseline", NOT_ASSESSED, "line list: no baseline", None)
@@ -442,7 +447,7 @@ def check_baseline(analysis: Any, t: CheckThresholds) -> Check:
     return Check("baseline", "pass", f"flat: offset {baseline.offset_median:+.3f} A, no fringes above {t.fringe_amplitude_warn:.4f} A", baseline.offset_median)
 
 
-def run_checks(analysis: Any, library: Any, intensities: Any, expected: tuple[str, ...], thresholds: CheckThresholds) -> list[Check]:
+def run_checks(analysis: Analysis, library: Library, intensities: IntensityResult | None, expected: tuple[str, ...], thresholds: CheckThresholds) -> list[Check]:
     y_axis = check_y_axis(analysis)
     return [
         y_axis,

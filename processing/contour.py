@@ -16,7 +16,7 @@ uncertainty: for a given contour, B ~ 1 / T.
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -25,6 +25,9 @@ from processing.levels import band_origin, rotational_constant
 from processing.line_shape import LineShapeModel
 from processing.physical_constants import C2_CM_K
 from processing.results import BandContour
+
+if TYPE_CHECKING:
+    from processing.species import Library
 
 ROOM_TEMPERATURE_SIGMA_K = 10.0  # the assumption "room temperature" is good to about this
 MIN_CONTOUR_SNR = 10.0  # each branch maximum must stand this far above the noise
@@ -137,7 +140,7 @@ def unresolved(spacing_cm1: float, shape: LineShapeModel) -> bool:
 
 
 def find_unresolved_bands(
-    x: np.ndarray, corrected: np.ndarray, noise_sigma: float, shape: LineShapeModel, library: Any,
+    x: np.ndarray, corrected: np.ndarray, noise_sigma: float, shape: LineShapeModel, library: Library,
     temperature_K: float, assigned: set[tuple[str, int, int]], bands: tuple[tuple[int, int], ...] = ((1, 0), (2, 0)),
 ) -> list[BandContour]:
     """Library bands (main isotopologue of each molecule) whose lines the line shape cannot

@@ -17,7 +17,7 @@ dependence separates U10 from U20 when hydrogen and deuterium forms are both pre
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Mapping
+from collections.abc import Iterable, Mapping
 
 import numpy as np
 
@@ -116,7 +116,7 @@ def vibration_separable(lines: AssignedLines, mass_reduced: bool) -> bool:
     return len(lines.levels) >= 3 or from_mass
 
 
-def term_columns(lines: AssignedLines, terms: Any, mass_reduced: bool) -> np.ndarray:
+def term_columns(lines: AssignedLines, terms: Iterable[tuple[int, int]], mass_reduced: bool) -> np.ndarray:
     """Design columns (rows = lines) of the given (k, l) terms."""
     terms = list(terms)
     if not terms:
@@ -162,17 +162,3 @@ def fit_terms(
         if not weak:
             return TermFit(tuple(terms), fit, mass_reduced, levels, holding)
         terms.remove(weak[0])
-
-
-def propagate(function: Any, values: np.ndarray, covariance: np.ndarray) -> tuple[float, float]:
-    """Value and standard error of function(values) by linear propagation (numerical
-    Jacobian with relative steps of 1e-6)."""
-    base = float(function(values))
-    gradient = np.zeros(values.size)
-    for i in range(values.size):
-        step = 1e-6 * max(abs(values[i]), 1e-12)
-        shifted = values.copy()
-        shifted[i] += step
-        gradient[i] = (float(function(shifted)) - base) / step
-    variance = float(gradient @ covariance @ gradient)
-    return base, float(np.sqrt(max(variance, 0.0)))

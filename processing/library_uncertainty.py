@@ -12,11 +12,14 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from processing.levels import CONSTANT_TO_DUNHAM
+
+if TYPE_CHECKING:
+    from processing.species import Library
 
 
 @dataclass(frozen=True)
@@ -42,7 +45,7 @@ class LibraryParameters:
 
 
 @functools.lru_cache(maxsize=8)
-def library_parameters(library: Any) -> LibraryParameters:
+def library_parameters(library: Library) -> LibraryParameters:
     """Build the parameter set of a library (cached: a library does not change)."""
     names: list[str] = []
     sigmas: list[float] = []
@@ -95,7 +98,7 @@ def term_column(v_upper: np.ndarray, J_upper: np.ndarray, v_lower: np.ndarray, J
 
 
 def predicted_lines(
-    library: Any, label: str, v_upper: np.ndarray, J_upper: np.ndarray, v_lower: np.ndarray, J_lower: np.ndarray
+    library: Library, label: str, v_upper: np.ndarray, J_upper: np.ndarray, v_lower: np.ndarray, J_lower: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
     """The library's positions of the given lines and d(position)/d(theta) (rows per line)."""
     parameters = library_parameters(library)

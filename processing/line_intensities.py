@@ -18,7 +18,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -28,6 +28,14 @@ from processing.noise import white_noise
 from processing.line_shape import transmittance_depth
 from processing.physical_constants import C2_CM_K
 from processing.results import AbundanceRatio, HydrogenFraction, RotationalTemperature
+
+if TYPE_CHECKING:
+    from processing.assign import AssignmentResult
+    from processing.baseline import BaselineResult
+    from processing.lines import LineTable
+    from processing.pipeline import Analysis
+    from processing.species import Library
+    from processing.spectrum import Spectrum
 
 # measured/natural isotopologue ratio (plus twice its standard error) above which lines count
 # as optically thin: a 10% deficit already biased the plain Boltzmann plot by 3-6 sigma (305
@@ -55,7 +63,7 @@ GROUP_WIDTHS = 8.0
 GROUP_REACH_WIDTHS = 4.0  # a group's window extends this far beyond its outer lines
 
 
-def equivalent_widths(spectrum: Any, baseline: Any, lines: Any) -> tuple[np.ndarray, np.ndarray]:
+def equivalent_widths(spectrum: Spectrum, baseline: BaselineResult, lines: LineTable) -> tuple[np.ndarray, np.ndarray]:
     """W and its standard error for every line, W = integral of 1 - 10^-(A - baseline).
 
     Lines within GROUP_WIDTHS widths of each other form a group; the group's W is integrated
@@ -113,7 +121,7 @@ def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, ri
     return out
 
 
-def rotational_temperatures(lines: Any, assignment: Any, widths: np.ndarray, width_sigmas: np.ndarray) -> list[RotationalTemperature]:
+def rotational_temperatures(lines: LineTable, assignment: AssignmentResult, widths: np.ndarray, width_sigmas: np.ndarray) -> list[RotationalTemperature]:
     out = []
     for fit in assignment.bands:
         rows = []
@@ -168,7 +176,7 @@ def rotational_temperatures(lines: Any, assignment: Any, widths: np.ndarray, wid
     return out
 
 
-def _pairs(assignment: Any, a: str, b: str, band: tuple[int, int]) -> list[tuple[int, int]]:
+def _pairs(assignment: AssignmentResult, a: str, b: str, band: tuple[int, int]) -> list[tuple[int, int]]:
     index: dict[tuple[str, int], dict[str, int]] = {}
     for i, assigned in enumerate(assignment.per_line):
         if assigned and (assigned.v_upper, assigned.v_lower) == band and assigned.isotopologue in (a, b) and not assigned.blended:
@@ -176,7 +184,7 @@ def _pairs(assignment: Any, a: str, b: str, band: tuple[int, int]) -> list[tuple
     return [(d[a], d[b]) for d in index.values() if a in d and b in d]
 
 
-def abundance_ratios(lines: Any, assignment: Any, widths: np.ndarray, width_sigmas: np.ndarray, library: Any, temperature_K: float) -> list[AbundanceRatio]:
+def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.ndarray, width_sigmas: np.ndarray, library: Library, temperature_K: float) -> list[AbundanceRatio]:
     """Heavy-atom isotope ratios (e.g. H35Cl/H37Cl) from matched lines of one band: median of
     the fitted peak-height ratios (both isotopologues' lines have the same shape, so heights
     scale as strengths for thin lines, and a neighbour's pressure-broadened wing barely
@@ -221,7 +229,7 @@ def abundance_ratios(lines: Any, assignment: Any, widths: np.ndarray, width_sigm
     return out
 
 
-def analyse_intensities(analysis: Any, library: Any, temperature_K: float = 296.0) -> IntensityResult | None:
+def analyse_intensities(analysis: Analysis, library: Library, temperature_K: float = 296.0) -> IntensityResult | None:
     """Equivalent widths, rotational temperatures and abundance ratios (spectra only)."""
     if analysis.baseline is None:
         return None
@@ -250,7 +258,7 @@ def analyse_intensities(analysis: Any, library: Any, temperature_K: float = 296.
 
 
 @functools.lru_cache(maxsize=256)
-def band_strength_table(library: Any, label: str, v_upper: int, v_lower: int, temperature_K: float, include_abundance: bool) -> dict[tuple[str, int], float]:
+def band_strength_table(library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, include_abundance: bool) -> dict[tuple[str, int], float]:
     """Predicted strength of every line of a band up to J'' = 40, by (branch, J'') (cached:
     the library and temperature fix it)."""
     from processing.intensities import line_strengths
@@ -262,7 +270,7 @@ def band_strength_table(library: Any, label: str, v_upper: int, v_lower: int, te
     return {(str(b), int(j)): float(s) for b, j, s in zip(lines.branch, lines.J_lower, strengths)}
 
 
-def _column_per_line(lines: Any, assignment: Any, library: Any, labels: set[str], temperature_K: float) -> np.ndarray:
+def _column_per_line(lines: LineTable, assignment: AssignmentResult, library: Library, labels: set[str], temperature_K: float) -> np.ndarray:
     """height / predicted strength per molecule of the isotopologue (no abundance: a deuterated
     sample is not natural) for the clean assigned fundamental lines of `labels`: proportional
     to the isotopologue's column while lines are thin (all lines share the instrument's shape)."""
@@ -279,7 +287,7 @@ def _column_per_line(lines: Any, assignment: Any, library: Any, labels: set[str]
     return np.array(values)
 
 
-def hydrogen_fractions(lines: Any, assignment: Any, library: Any, temperature_K: float) -> list[HydrogenFraction]:
+def hydrogen_fractions(lines: LineTable, assignment: AssignmentResult, library: Library, temperature_K: float) -> list[HydrogenFraction]:
     """Hydrogen fraction when H and D forms of one molecule are both assigned (e.g. HCl in a
     DCl cell). Relies on the library's absolute band strengths, which are approximate (the
     deuterated ones estimated from the hydride), so this is an estimate to ~20-30%."""

@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Callable
 
 import numpy as np
 
@@ -190,23 +190,3 @@ def fitted_model(
 
 
 # ------------------------------------------------------------------- reading the JSON form
-def _number(item: Any, *names: str) -> float | None:
-    for name in names:
-        value = item.get(name) if isinstance(item, dict) else None
-        if isinstance(value, (int, float)) and not isinstance(value, bool):
-            return float(value)
-    return None
-
-
-def compared_reference(comparison: Any) -> float | None:
-    """The value a comparison's z is computed against, from its JSON form: `reference`
-    (results written before references were computed for the model fitted kept it in
-    `effective_reference` when they had one, with the handbook value in `reference`)."""
-    return _number(comparison, "effective_reference", "reference", "value")
-
-
-def compared_z(comparison: Any) -> float | None:
-    """The z that goes with `compared_reference`."""
-    if _number(comparison, "effective_reference") is not None:
-        return _number(comparison, "effective_z")
-    return _number(comparison, "z")

@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
 
@@ -53,6 +53,11 @@ from processing.physical_constants import (
     bond_length_angstrom,
     force_constant_n_per_m,
 )
+
+if TYPE_CHECKING:
+    from processing.fit import BandFit
+    from processing.pipeline import Analysis
+    from processing.species import Library
 
 # Dunham term -> (constant name, sign): constant = sign * Y_kl
 CONSTANT_OF_TERM: dict[tuple[int, int], tuple[str, float]] = {
@@ -109,7 +114,7 @@ class BandReference:
 
 
 # ------------------------------------------------------------------------------ line table
-def assigned_lines_from(analysis: Any, library: Any) -> AssignedLines:
+def assigned_lines_from(analysis: Analysis, library: Library) -> AssignedLines:
     """The lines each band fit used, with the positions and uncertainties it used (blend
     pulls removed, doublet-measured sigmas, saturated/blended lines widened as it widened
     them): two fits of the same lines see the same numbers."""
@@ -142,7 +147,7 @@ def assigned_lines_from(analysis: Any, library: Any) -> AssignedLines:
 
 
 # ------------------------------------------------------------------------ model references
-def _library_rows(library: Any, lines: AssignedLines) -> tuple[np.ndarray, np.ndarray]:
+def _library_rows(library: Library, lines: AssignedLines) -> tuple[np.ndarray, np.ndarray]:
     """Library positions of every line (each with its own isotopologue's constants) and their
     d/d(theta) rows."""
     parameters = library_parameters(library)
@@ -156,7 +161,7 @@ def _library_rows(library: Any, lines: AssignedLines) -> tuple[np.ndarray, np.nd
     return positions, jacobian
 
 
-def _term_model(term_fit: TermFit, lines: AssignedLines, library: Any | None, reference_label: str | None,
+def _term_model(term_fit: TermFit, lines: AssignedLines, library: Library | None, reference_label: str | None,
                 systematic: np.ndarray | None = None) -> FittedModel:
     """The term fit as a FittedModel: held terms with their library gradients, and the model
     reference on the library's positions of the same lines."""
@@ -208,7 +213,7 @@ def _model_text(term_fit: TermFit) -> str:
 
 
 # ------------------------------------------------------------------------ per isotopologue
-def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library: Any | None = None) -> IsotopologueConstants:
+def constants_for_isotopologue(lines: AssignedLines, isotopologue: Isotopologue, library: Library | None = None) -> IsotopologueConstants:
     """Fit one isotopologue's lines; derive its constants and compare each with the reference
     for the model fitted."""
     fallback = dict(isotopologue.dunham) if library is not None else {}
@@ -299,7 +304,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Any, library:
     )
 
 
-def _source(isotopologue: Any, name: str) -> str:
+def _source(isotopologue: Isotopologue, name: str) -> str:
     reference = isotopologue.reference.get(name)
     if reference is not None:
         return reference.source
@@ -341,7 +346,7 @@ def _derived(model: FittedModel, term: Callable[[np.ndarray, int, int], float], 
     return out
 
 
-def _library_value(isotopologue: Any, name: str) -> float | None:
+def _library_value(isotopologue: Isotopologue, name: str) -> float | None:
     """A library constant (or r_e from the library's B_e) for diagnostics."""
     if name == "r_e":
         B_e = isotopologue.dunham.get((0, 1))
@@ -374,7 +379,7 @@ def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Isotopolog
 
 
 # --------------------------------------------------------------------------- band fits
-def band_reference(fit: Any, library: Any) -> BandReference | None:
+def band_reference(fit: BandFit, library: Library) -> BandReference | None:
     """A band fit's origin, B, D and H against the same band model fitted to the library's
     positions of the same lines (None for a band the library does not know)."""
     if fit.linear_fit is None:
@@ -418,14 +423,14 @@ def band_reference(fit: Any, library: Any) -> BandReference | None:
 
 
 # --------------------------------------------------------------------------- mass-reduced
-def _main_label(labels: list[str], library: Any) -> str:
+def _main_label(labels: list[str], library: Library) -> str:
     """The isotopologue whose library constants stand for the molecule: a tabulated one,
     the most abundant first."""
     entries = [library.isotopologue(label) for label in labels]
     return max(entries, key=lambda e: (e.derived_from is None, e.abundance)).label
 
 
-def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Any = None) -> MassReducedFit | None:
+def mass_reduced_fit(lines: AssignedLines, molecule: str, library: Library | None = None) -> MassReducedFit | None:
     """U_kl for all isotopologues of `molecule` in `lines` (needs two or more).
 
     Terms the data cannot float are held at the library's values (mass-reduced from the main
@@ -512,7 +517,7 @@ class ConstantsResult:
         return next((b for b in self.bands if b.key == key), None)
 
 
-def molecular_constants(analysis: Any, library: Any) -> ConstantsResult:
+def molecular_constants(analysis: Analysis, library: Library) -> ConstantsResult:
     """All constants a run's assignment supports (isotopologues with >= 6 fitted lines), and
     every band fit beside its model reference."""
     lines = assigned_lines_from(analysis, library)

@@ -22,7 +22,7 @@ from __future__ import annotations
 import json
 import math
 from dataclasses import asdict, dataclass, field, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import constants as _sc
@@ -39,6 +39,9 @@ from processing.instrument import (
 from processing.interferents import Interferent, interferent_lines
 from processing.levels import band_origin, centrifugal_constant, rotational_constant
 from processing.spectrum import FileMetadata, Spectrum
+
+if TYPE_CHECKING:
+    from processing.species import Isotopologue, Library
 
 STANDARD_ATMOSPHERE_PA = _sc.atm  # 101325 Pa (scipy.constants)
 VOIGT_WINDOW_HWHM = 50.0  # each line is evaluated within +- this many Voigt HWHM (at least)
@@ -312,7 +315,7 @@ def optical_depth_on_grid(
 
 
 # ---------------------------------------------------------------------------- line lists
-def _isotopologue_shares(gas: SampleGas, library: Any) -> list[tuple[Any, float]]:
+def _isotopologue_shares(gas: SampleGas, library: Library) -> list[tuple[Isotopologue, float]]:
     """(isotopologue, share of the gas's partial pressure). A molecule name spreads the
     pressure over its isotopologues by their natural abundances (normalised within the
     molecule); an isotopologue label takes the pressure alone. Several names split it evenly."""
@@ -329,7 +332,7 @@ def _isotopologue_shares(gas: SampleGas, library: Any) -> list[tuple[Any, float]
     return result
 
 
-def build_line_table(settings: SimulationSettings, library: Any = None) -> tuple[LineTable, tuple[BandTruth, ...]]:
+def build_line_table(settings: SimulationSettings, library: Library | None = None) -> tuple[LineTable, tuple[BandTruth, ...]]:
     """All lines (sample gases and interferents) with strengths, column densities and widths."""
     from processing import intensities
     from processing.species import load_library
@@ -468,7 +471,7 @@ def add_noise(instrument: Instrument, transmittance: np.ndarray) -> np.ndarray:
     return transmittance + instrument_noise(instrument, transmittance.size, rng)
 
 
-def simulate(settings: SimulationSettings, library: Any = None, workers: int | None = None) -> SimulationResult:
+def simulate(settings: SimulationSettings, library: Library | None = None, workers: int | None = None) -> SimulationResult:
     """A synthetic spectrum with its truth record (see the module docstring for the steps)."""
     instrument = settings.instrument
     all_lines, bands = build_line_table(settings, library)

@@ -5,12 +5,16 @@ import argparse
 import csv
 import io
 import json
+import sqlite3
 import sys
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from processing import strict_json
 from processing.safe_text import safe_text
 from tui.commands.watch import add_station_arguments
+
+if TYPE_CHECKING:
+    from processing.station.ledger import DecisionEvent, RunRecord
 
 HELP = "list, show, export runs in the ledger; accept, flag or undo a decision"
 
@@ -54,7 +58,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     undo.add_argument("--operator", default=None, help="who (default: configuration, else login name)")
 
 
-def run_public(record: Any) -> dict[str, Any]:
+def run_public(record: RunRecord) -> dict[str, Any]:
     """A run as a JSON object for scripts (the result itself only with `show --json`)."""
     return {
         "run_id": record.run_id,
@@ -75,7 +79,7 @@ def run_public(record: Any) -> dict[str, Any]:
     }
 
 
-def _event_public(event: Any) -> dict[str, Any]:
+def _event_public(event: DecisionEvent) -> dict[str, Any]:
     return {"event_id": event.event_id, "run_id": event.run_id, "action": event.action,
             "reason": event.reason, "operator": event.operator, "at": event.at}
 
@@ -102,7 +106,7 @@ def run(args: argparse.Namespace) -> int:
         conn.close()
 
 
-def _list(conn: Any, args: argparse.Namespace) -> int:
+def _list(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import list_runs
 
     runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False)
@@ -122,7 +126,7 @@ def _table(headers: list[str], rows: list[list[str]]) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _show(conn: Any, args: argparse.Namespace) -> int:
+def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import decision_history, get_run
 
     record = get_run(conn, args.run_id)
@@ -133,7 +137,7 @@ def _show(conn: Any, args: argparse.Namespace) -> int:
     if args.json:
         payload = run_public(record) | {
             "settings": record.settings,
-            "result": record.result,
+            "result": record.result.to_dict() if record.result is not None else None,
             "decisions": [_event_public(e) for e in history],
         }
         sys.stdout.write(strict_json.dumps(payload) + "\n")
@@ -160,7 +164,7 @@ def _show(conn: Any, args: argparse.Namespace) -> int:
     return 0
 
 
-def _export(conn: Any, args: argparse.Namespace) -> int:
+def _export(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import all_decisions, list_runs
 
     runs = list(reversed(list_runs(conn, with_result=False)))  # oldest first in an export
@@ -213,7 +217,7 @@ def _operator(given: str | None, configured: str) -> str:
         return ""
 
 
-def _decide(conn: Any, args: argparse.Namespace, configured_operator: str) -> int:
+def _decide(conn: sqlite3.Connection, args: argparse.Namespace, configured_operator: str) -> int:
     from processing.station.ledger import LedgerError, get_run, record_decision, undo_last_decision
 
     operator = _operator(args.operator, configured_operator)
