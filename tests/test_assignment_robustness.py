@@ -133,12 +133,12 @@ def test_quirky_text_export_with_offset_and_saturation_is_assigned(tmp_path: Pat
     _write_quirky_csv(path, sim.spectrum.wavenumber_cm1, sim.spectrum.absorbance)
     result = process_file(path, ProcessSettings())
     assert result.status == "processed", result.error
-    bands = {(b["isotopologue"], b["v_upper"], b["v_lower"]): b for b in result.bands}
+    bands = {(b.isotopologue, b.v_upper, b.v_lower): b for b in result.bands}
     truth = _truth(sim)
-    assert abs(bands[("H35Cl", 1, 0)]["origin"]["value"] - truth[("H35Cl", 1, 0)].origin_cm1) < 0.03
-    assert abs(bands[("H37Cl", 1, 0)]["origin"]["value"] - truth[("H37Cl", 1, 0)].origin_cm1) < 0.03
+    assert abs(bands[("H35Cl", 1, 0)].origin.value - truth[("H35Cl", 1, 0)].origin_cm1) < 0.03
+    assert abs(bands[("H37Cl", 1, 0)].origin.value - truth[("H37Cl", 1, 0)].origin_cm1) < 0.03
     # the 0.5 absorbance offset is seen as baseline (common practice: an empty-cell offset)
-    assert result.extra["baseline"]["offset_median"] == pytest.approx(0.5, abs=0.02)
+    assert result.baseline.offset_median == pytest.approx(0.5, abs=0.02)
 
 
 def test_wrong_species_setting_still_gets_numbered_lines() -> None:

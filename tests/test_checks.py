@@ -16,7 +16,7 @@ SAMPLES = Path(__file__).resolve().parents[1] / "sample_runs"
 def _checks(name: str, **settings) -> tuple[str, dict[str, dict]]:
     result = process_file(SAMPLES / name, ProcessSettings(**settings))
     assert result.status == "processed", result.error
-    return result.verdict, {c["name"]: c for c in result.checks}
+    return result.verdict, {c.name: c.to_dict() for c in result.checks}
 
 
 def test_clean_hcl_run_passes() -> None:
@@ -73,7 +73,7 @@ def test_missing_expected_species_fails() -> None:
 
 def test_thresholds_come_from_the_settings() -> None:
     # Loosening the calibration tolerance to 0.3 cm-1 lets the serviced instrument pass it.
-    verdict, checks = _checks("1500_hcl_after_service.jdx", checks={"calibration_pass_cm1": 0.3})
+    verdict, checks = _checks("1500_hcl_after_service.jdx", thresholds=CheckThresholds.from_mapping({"calibration_pass_cm1": 0.3}))
     assert checks["calibration"]["status"] == "pass"
 
 

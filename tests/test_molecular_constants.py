@@ -77,13 +77,13 @@ def test_hcl_fundamental_and_overtone_give_handbook_constants() -> None:
     assert k["r_e"].value == pytest.approx(HCL["r_e"], abs=1.5e-4)
     assert k["r_e"].unit == "angstrom"
     # derived quantities carry their model and sensible values
-    assert c.derived["k_e"]["value"] == pytest.approx(516.3, rel=0.003)
-    assert "harmonic" in c.derived["k_e"]["model"]
+    assert c.derived["k_e"].value == pytest.approx(516.3, rel=0.003)
+    assert "harmonic" in c.derived["k_e"].model
     # zero-point energy ~ omega_e/2 - omega_e x_e/4 = 1482.3 cm-1 (calc)
-    assert c.derived["zero_point_energy"]["value"] == pytest.approx(1482.3, abs=1.0)
+    assert c.derived["zero_point_energy"].value == pytest.approx(1482.3, abs=1.0)
     # Morse: omega_e^2/(4 omega_e x_e) = 42341 cm-1 from the handbook pair (calc); the fitted
     # pair gives within 3% (omega_e x_e absorbs omega_e y_e, above)
-    assert c.derived["morse_dissociation_energy"]["value"] == pytest.approx(42341.0, rel=0.03)
+    assert c.derived["morse_dissociation_energy"].value == pytest.approx(42341.0, rel=0.03)
 
 
 def test_dcl_fundamental_gives_handbook_rotational_constants() -> None:
@@ -107,7 +107,7 @@ def test_hcl_two_level_fit_holds_gamma_at_the_library_value() -> None:
     # instead, so alpha_e is the handbook's within its sigma (which carries gamma_e's).
     analysis = _run((SampleGas(("H35Cl",), 0.005),), 2600.0, 3150.0, total=1.0)
     c = _constants(analysis, "H35Cl")
-    assert "gamma_e" in c.held and c.held["gamma_e"]["value"] == pytest.approx(0.0017, abs=1e-12)
+    assert "gamma_e" in c.held and c.held["gamma_e"].value == pytest.approx(0.0017, abs=1e-12)
     alpha = {cmp.name: cmp for cmp in c.comparisons}["alpha_e"]
     assert alpha.reference == pytest.approx(HCL["alpha_e"], abs=1e-9)
     assert alpha.handbook == pytest.approx(HCL["alpha_e"], abs=1e-9)
@@ -120,15 +120,15 @@ def test_mass_reduced_fit_of_hcl_and_dcl_gives_omega_e_from_fundamentals() -> No
     analysis = _run((SampleGas(("HCl",), 0.004), SampleGas(("DCl",), 0.004)), 1850.0, 3150.0, resolution=0.25, total=1.0)
     (fit,) = analysis.constants.mass_reduced
     assert set(fit.isotopologues) == {"H35Cl", "H37Cl", "D35Cl", "D37Cl"}
-    omega = fit.per_isotopologue["H35Cl"]["omega_e"]
+    omega = fit.per_isotopologue["H35Cl"].constants["omega_e"]
     # H&H omega_e 2990.946 (recalled): with U30 held at the library value the fundamentals of
     # H and D forms give it to 0.1 %; the model reference (the library's own lines, whose D35Cl
     # constants are tabulated separately) is the honest comparison: |z| < 3
-    assert omega["value"] == pytest.approx(HCL["omega_e"], rel=0.001)
-    assert abs(omega["z"]) < 3
+    assert omega.value == pytest.approx(HCL["omega_e"], rel=0.001)
+    assert abs(omega.z) < 3
     # residual means per isotopologue: 35/37 partners agree closely, and none stands out
     # beyond its noise on a simulation without Born-Oppenheimer breakdown terms
-    means = {label: e["residual_mean"] for label, e in fit.per_isotopologue.items()}
+    means = {label: e.residual_mean for label, e in fit.per_isotopologue.items()}
     assert abs(means["H35Cl"] - means["H37Cl"]) < 0.03
     assert not any("beyond their noise" in note for note in fit.notes)
 
@@ -166,9 +166,9 @@ def test_kratzer_and_pekeris_diagnostics() -> None:
     analysis = _run((SampleGas(("H35Cl",), 0.005),), 2600.0, 3150.0, total=1.0)
     diagnostics = _constants(analysis, "H35Cl").diagnostics
     # Kratzer D_e ~ 4 B_e^3/omega_e^2 holds to 0.2% for HCl (calc)
-    assert diagnostics["kratzer"]["ratio"] == pytest.approx(1.0, abs=0.01)
+    assert diagnostics["kratzer"].ratio == pytest.approx(1.0, abs=0.01)
     # Pekeris only good to 5-20% (calc)
-    assert 0.7 < diagnostics["pekeris"]["ratio"] < 1.3
+    assert 0.7 < diagnostics["pekeris"].ratio < 1.3
 
 
 def test_constant_names_follow_the_dunham_signs() -> None:

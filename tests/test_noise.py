@@ -141,25 +141,25 @@ def test_a_rounded_export_keeps_its_noise_and_names_the_grid(tmp_path: Path) -> 
     path = tmp_path / "export.csv"
     write_spectrum(str(path), result, "csv", "absorbance", decimals=4)
     processed = process_file(path)
-    baseline = processed.extra["baseline"]
+    baseline = processed.baseline
     truth = result.truth.noise_sigma_absorbance_at_baseline()
     rounding = 1e-4 / math.sqrt(12)
-    assert baseline["quantization_step"] == pytest.approx(1e-4)
+    assert baseline.quantization_step == pytest.approx(1e-4)
     # the noise plus the rounding's own step/sqrt(12), within 25% (the bound)
-    assert baseline["noise_sigma"] == pytest.approx(math.hypot(truth, rounding), rel=0.25)
-    assert baseline["noise_correlation_points"] > 2  # Happ-Genzel, zero fill 2: ~5
-    snr = next(c for c in processed.checks if c["name"] == "signal_to_noise")
+    assert baseline.noise_sigma == pytest.approx(math.hypot(truth, rounding), rel=0.25)
+    assert baseline.noise_correlation_points > 2  # Happ-Genzel, zero fill 2: ~5
+    snr = next(c.to_dict() for c in processed.checks if c.name == "signal_to_noise")
     assert snr["status"] == "pass" and 100 < snr["value"] < 1000  # strongest line ~0.13 A
 
 
 def test_a_digitised_trace_has_no_measurable_noise() -> None:
     result = process_file(SAMPLES / "1700_hcl_archive_trace.csv")
-    baseline = result.extra["baseline"]
-    assert baseline["noise_measurable"] is False
-    assert baseline["quantization_step"] == pytest.approx(1e-3)
+    baseline = result.baseline
+    assert baseline.noise_measurable is False
+    assert baseline.quantization_step == pytest.approx(1e-3)
     # the rounding floor, never a near-zero sigma
-    assert baseline["noise_sigma"] == pytest.approx(1e-3 / math.sqrt(12), rel=1e-6)
-    snr = next(c for c in result.checks if c["name"] == "signal_to_noise")
+    assert baseline.noise_sigma == pytest.approx(1e-3 / math.sqrt(12), rel=1e-6)
+    snr = next(c.to_dict() for c in result.checks if c.name == "signal_to_noise")
     assert snr["status"] == "not_assessed" and snr["value"] is None
     assert "no measurable noise" in snr["detail"]
 

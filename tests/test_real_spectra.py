@@ -13,7 +13,8 @@ DATA = Path(__file__).resolve().parent / "data" / "realdata"
 
 
 def _band(result, label: str) -> dict:
-    return next(b for b in result.bands if b["isotopologue"] == label and (b["v_upper"], b["v_lower"]) == (1, 0))
+    """The band's public JSON object."""
+    return next(b.to_dict() for b in result.bands if (b.isotopologue, b.v_upper, b.v_lower) == (label, 1, 0))
 
 
 @pytest.fixture(scope="module")
@@ -52,13 +53,13 @@ def test_dcl_band_constants(dcl) -> None:
 @pytest.mark.parametrize("name", ["hcl", "dcl"])
 def test_noise_is_measured_and_lines_are_band_lines(name: str, request) -> None:
     result = request.getfixturevalue(name)
-    baseline = result.extra["baseline"]
-    assert baseline["quantization_step"] == pytest.approx(1e-4)  # exported to 4 decimals
-    assert baseline["noise_measurable"]
+    baseline = result.baseline
+    assert baseline.quantization_step == pytest.approx(1e-4)  # exported to 4 decimals
+    assert baseline.noise_measurable
     # the rounding floor (1e-4/sqrt(12) = 2.9e-5) is far below the measured noise: it is noise
-    assert baseline["noise_sigma"] > 5 * 1e-4 / 12**0.5
-    assert baseline["noise_correlation_points"] > 1.5  # apodized and zero-filled: correlated
-    assigned = sum(1 for line in result.lines if line["assigned"])
+    assert baseline.noise_sigma > 5 * 1e-4 / 12**0.5
+    assert baseline.noise_correlation_points > 1.5  # apodized and zero-filled: correlated
+    assigned = sum(1 for line in result.lines if line.assigned)
     # ripple and noise no longer become "lines": at most twice the assigned lines are found
     assert len(result.lines) <= 2 * assigned, (len(result.lines), assigned)
     assert assigned >= 30

@@ -197,8 +197,8 @@ def test_born_oppenheimer_note_only_when_residuals_demand_it() -> None:
     (fit,) = analysis.constants.mass_reduced
     assert not any("beyond their noise" in note for note in fit.notes)
     # omega_e from H and D fundamentals: an effective value with the systematic named
-    omega = fit.per_isotopologue["H35Cl"]["omega_e"]
-    assert abs(omega["z"]) < 3 and omega["sigma"] > 0.1
+    omega = fit.per_isotopologue["H35Cl"].constants["omega_e"]
+    assert abs(omega.z) < 3 and omega.sigma > 0.1
     assert any("Born-Oppenheimer" in note and "effective" in note for note in fit.notes)
 
 
@@ -207,23 +207,23 @@ def test_stretched_axis_is_measured_as_a_scale() -> None:
     # 190 ppm: 0.40 cm-1 at 2090, 1.06 at 5668 [seen in real exports]; simulated here on HCl.
     analysis = _analyse([SampleGas("HCl", 0.01, ((1, 0), (2, 0)))], 2550.0, 5900.0, path=50.0, calibration_scale=1.0 + 190e-6)
     check = next(c for c in analysis.checks if c.name == "calibration")
-    assert check.fit["scale_ppm"] == pytest.approx(190.0, abs=10.0)
-    assert check.fit["scale_sigma_ppm"] < 10.0
+    assert check.fit.scale_ppm == pytest.approx(190.0, abs=10.0)
+    assert check.fit.scale_sigma_ppm < 10.0
     assert check.status in ("warn", "fail") and "scale" in check.detail and "stretched" in check.detail
     # value stays the offset at the bands' mean wavenumber: 190 ppm of it
-    assert check.value == pytest.approx(190e-6 * check.fit["wavenumber_cm1"], abs=0.02)
-    labels = [band["label"] for band in check.fit["bands"]]
+    assert check.value == pytest.approx(190e-6 * check.fit.wavenumber_cm1, abs=0.02)
+    labels = [band.label for band in check.fit.bands]
     assert set(labels) == {"H35Cl 1-0", "H37Cl 1-0", "H35Cl 2-0", "H37Cl 2-0"}
     # the detail names the bands that set it, largest weight first
-    weights = sorted(check.fit["bands"], key=lambda b: -b["weight"])
-    assert check.detail.index(weights[0]["label"]) < check.detail.index(weights[-1]["label"])
+    weights = sorted(check.fit.bands, key=lambda b: -b.weight)
+    assert check.detail.index(weights[0].label) < check.detail.index(weights[-1].label)
 
 
 def test_unstretched_axis_passes_with_small_scale() -> None:
     analysis = _analyse([SampleGas("HCl", 0.01, ((1, 0), (2, 0)))], 2550.0, 5900.0, path=50.0)
     check = next(c for c in analysis.checks if c.name == "calibration")
     assert check.status == "pass"
-    assert abs(check.fit["scale_ppm"]) < 3 * check.fit["scale_sigma_ppm"] + 1.0
+    assert abs(check.fit.scale_ppm) < 3 * check.fit.scale_sigma_ppm + 1.0
 
 
 # ------------------------------------------------------------------ expected species
