@@ -127,9 +127,17 @@ def test_overrides_are_validated_and_checks_pass_through() -> None:
         ("[checks]\nthreshold_sigma = 1.0", "checks.threshold_sigma"),
         ("[checks]\nmax_bytes = 1", "checks.max_bytes"),
         ("[checks]\n[checks.nested]\nx = 1", "checks.nested"),
+        # every other key: unknown names (a misspelling, a table) and bad values, one line each
+        ("setle_seconds = 0.5", "setle_seconds"),
+        ("[station]\nworkers = 2", "station"),
+        ('workers = "two"', "workers"),
+        ("recursive = 1", "recursive"),
+        ('include = "*.csv"\nexclude = [1]', "exclude"),
+        ("operator = 7", "operator"),
+        ('species = ["HCl", "HCx"]', "species"),  # not in the library: said at start, not per file
     ],
 )
-def test_non_finite_values_and_anything_but_thresholds_in_checks_are_refused_at_start(
+def test_unknown_keys_bad_values_and_anything_but_thresholds_in_checks_are_refused_at_start(
     tmp_path: Path, line: str, key: str
 ) -> None:
     path = tmp_path / "station.toml"
