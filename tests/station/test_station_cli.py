@@ -123,8 +123,8 @@ def test_watch_without_plain_hands_a_station_factory_to_the_app(
     seen: dict[str, object] = {}
 
     class FakeApp:
-        def __init__(self, data_dir, export_dir, *, station_factory, operator=None):  # type: ignore[no-untyped-def]
-            seen.update(data_dir=data_dir, export_dir=export_dir, operator=operator, factory=station_factory)
+        def __init__(self, data_dir, export_dir, *, station_factory, operator=None, config=None):  # type: ignore[no-untyped-def]
+            seen.update(data_dir=data_dir, export_dir=export_dir, operator=operator, factory=station_factory, config=config)
 
         def run(self) -> int:
             station = seen["factory"](lambda event: None)  # type: ignore[operator]
@@ -137,4 +137,5 @@ def test_watch_without_plain_hands_a_station_factory_to_the_app(
     from processing.station.station import Station
 
     assert (seen["data_dir"], seen["export_dir"], seen["operator"]) == (data, export, "ana")
+    assert seen["config"].operator == "ana"  # the station's settings: a redo without the station uses them
     assert isinstance(seen["station"], Station) and seen["station"].export_dir == export
