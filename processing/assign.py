@@ -774,6 +774,9 @@ def _likely_cause(lines: LineTable, i: int, first_fit_regions: list[tuple[float,
     return "unknown"
 
 
+EXCLUDED_CAUSE = "excluded by the operator"  # a line the redo request left out (never "noise")
+
+
 def _excluded_mask(lines: LineTable, excluded: tuple[float, ...]) -> np.ndarray:
     mask = np.zeros(lines.count, dtype=bool)
     for position in excluded:
@@ -949,7 +952,7 @@ def _assign_at(
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused)
+    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused, excluded)
     if settings.species:
         found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
         missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
@@ -977,9 +980,12 @@ def _finish(
     notes: list[str],
     measure_doublet: DoubletMeasure | None = None,
     refused: dict[int, float] | None = None,
+    excluded: np.ndarray | None = None,
 ) -> AssignmentResult:
-    """Final fit per band, per-line results with confidence, likely causes for the rest."""
+    """Final fit per band, per-line results with confidence, likely causes for the rest (a
+    line the operator excluded says so)."""
     refused = refused or {}
+    excluded = excluded if excluded is not None else np.zeros(lines.count, dtype=bool)
     groups: dict[tuple[str, int, int], list[int]] = {}
     band_of: dict[tuple[str, int, int], _Band] = {}
     for line, (band, _m) in assignment.items():
@@ -1043,7 +1049,10 @@ def _finish(
                 blend_pull=float(pull[k]),
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
-    causes = tuple(None if per_line[i] is not None else _likely_cause(lines, i, fitted_regions, refused) for i in range(lines.count))
+    causes = tuple(
+        None if per_line[i] is not None else EXCLUDED_CAUSE if excluded[i] else _likely_cause(lines, i, fitted_regions, refused)
+        for i in range(lines.count)
+    )
     species = tuple(sorted({f.isotopologue for f in fits}))
     return AssignmentResult(
         per_line=tuple(per_line),

@@ -12,12 +12,12 @@ import csv
 import io
 import json
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 from processing.estimate import Estimate, format_value_sigma
-from processing.results import MOLECULAR_CONSTANTS, Assignment, Comparison, IsotopologueConstants, Line, RunResult
+from processing.results import MOLECULAR_CONSTANTS, Assignment, Band, Check, Comparison, IsotopologueConstants, Line, RunResult
 from processing.safe_text import safe_text
 
 if TYPE_CHECKING:
@@ -102,6 +102,126 @@ def comparison_sentence(isotopologue: str, name: str, estimate: Estimate | None,
     if model:
         parts.append(f"model: {model}")
     return "; ".join(parts)
+
+
+# ----------------------------------------------------------------------------- reasons at a glance
+CHECK_SHORT_NAMES = {
+    "signal_to_noise": "S/N",
+    "assigned_lines": "lines per band",
+    "fit_rms": "fit rms",
+    "y_axis": "y axis",
+}
+REASON_SEPARATOR = " · "
+BRIEF_LENGTH = 40  # a brief longer than this is a sentence, not a glance
+
+
+def check_short_name(name: str) -> str:
+    """"signal_to_noise" -> "S/N": the name a check goes by in a run's one-line reasons."""
+    return CHECK_SHORT_NAMES.get(name, name.replace("_", " "))
+
+
+def _clause(detail: str) -> str:
+    """The first clause of a check's reason, at most BRIEF_LENGTH characters."""
+    first = detail.split(";", 1)[0].strip()
+    return first if len(first) <= BRIEF_LENGTH else first[: BRIEF_LENGTH - 1].rstrip() + "…"
+
+
+def check_briefs(check: Check, result: RunResult | None = None) -> list[str]:
+    """What a warn or fail check found, in a few words with its number ("calibration +0.24
+    cm-1", "fringes 0.004 A"); the baseline check can give more than one."""
+    value, detail = check.value, check.detail
+    finite = value is not None and math.isfinite(value)
+    name = check.name
+    if name == "calibration" and finite:
+        if check.fit is not None and detail.startswith("wavenumber scale"):
+            return [f"scale {check.fit.scale_ppm:+.0f} ppm"]
+        return [f"calibration {value:+.2f} cm-1" if abs(value) >= 0.1 else f"calibration {value:+.3f} cm-1"]
+    if name == "baseline" and result is not None and result.baseline is not None:
+        baseline, found = result.baseline, []
+        if "where nothing absorbs" in detail:
+            found.append(f"baseline {baseline.offset_median:+.2f} A")
+        if "tilt" in detail:
+            found.append(f"tilt {baseline.tilt_per_1000_cm1:+.2f} A/1000 cm-1")
+        if "fringes" in detail and baseline.fringes is not None:
+            found.append(f"fringes {baseline.fringes.amplitude:.3f} A")
+        if found:
+            return found
+    if name == "saturation" and finite:
+        if "optically thick" in detail:
+            return [f"optically thick (ratio {value:.2f})"]
+        return [f"{value:.0f} lines saturated"]
+    if name == "fit_rms" and finite:
+        return [f"fit rms {100 * value:.0f}% of width"]
+    if name == "signal_to_noise" and finite:
+        return ["no line above noise"] if value == 0 else [f"S/N {value:.0f}"]
+    if name == "assigned_lines" and finite:
+        return ["no band assigned"] if value == 0 else [f"{value:.0f} lines in a band"]
+    if name == "interferents" and finite:
+        return [f"interferents: {value:.0f} lines"]
+    if name == "temperature" and finite:
+        return [f"temperature {value:.0f} K"]
+    if name == "y_axis":
+        return [f"y axis: {_clause(detail.split(': ', 1)[-1])}"]
+    return [f"{check_short_name(name)}: {_clause(detail)}" if name not in detail else _clause(detail)]
+
+
+def main_reasons(result: RunResult | None, limit: int = 2) -> tuple[str, ...]:
+    """The one or two main reasons behind a run's verdict (fail before warn, in check order),
+    "+N more" when there are others, and the checks that could not be made ("n/a: ...")."""
+    if result is None:
+        return ()
+    checks = result.checks
+    severe = [c for c in checks if c.status == "fail"] + [c for c in checks if c.status == "warn"]
+    briefs = [brief for check in severe for brief in check_briefs(check, result)]
+    out = briefs[:limit]
+    if len(briefs) > limit:
+        out.append(f"+{len(briefs) - limit} more")
+    not_assessed = [check_short_name(c.name) for c in checks if c.status == "not_assessed"]
+    if not_assessed:
+        shown = ", ".join(not_assessed[:3]) + (f" +{len(not_assessed) - 3}" if len(not_assessed) > 3 else "")
+        out.append(f"n/a: {shown}")
+    return tuple(safe_text(text) for text in out)
+
+
+def reasons_line(reasons: Sequence[str]) -> str:
+    """`calibration +0.24 cm-1 · fringes 0.004 A`."""
+    return REASON_SEPARATOR.join(reasons)
+
+
+def d_model_note(band: Band) -> str | None:
+    """What the band fit did with D, when a reader could take D' and D'' as two fitted values:
+    constrained equal (one D fitted), or held at the library's values."""
+    model = band.d_model or ""
+    if model == "common D":
+        return "D' and D'' constrained equal (one common D fitted)"
+    if "from the library" in model:
+        return f"D: {model}"
+    return None
+
+
+def redo_description(settings: Mapping[str, object] | None) -> str:
+    """A redo's request in words: "species H35Cl, H37Cl; H35Cl 1-0 P branch J+1; 1 line
+    excluded by the operator (2906.8980 cm-1)"; "" for a run that is not a redo."""
+    if not settings:
+        return ""
+    parts: list[str] = []
+    species = settings.get("species")
+    if isinstance(species, list | tuple):
+        parts.append("species " + (", ".join(str(s) for s in species) if species else "detected"))
+    for offset in settings.get("j_offsets") or ():  # type: ignore[attr-defined]
+        if isinstance(offset, list | tuple) and len(offset) == 5:
+            iso, v_upper, v_lower, branch, shift = offset
+            parts.append(f"{iso} {v_upper}-{v_lower} {branch} branch J{int(shift):+d}")
+    excluded = settings.get("excluded_positions_cm1")
+    if isinstance(excluded, list | tuple) and excluded:
+        where = ", ".join(f"{float(x):.4f}" for x in excluded[:4]) + (" …" if len(excluded) > 4 else "")
+        parts.append(f"{len(excluded)} line{'s' if len(excluded) != 1 else ''} excluded by the operator ({where} cm-1)")
+    for key, label in (("threshold_sigma", "threshold {:g} sigma"), ("max_shift_cm1", "shift up to {:g} cm-1"),
+                       ("temperature_K", "predictions at {:g} K")):
+        value = settings.get(key)
+        if isinstance(value, int | float):
+            parts.append(label.format(value))
+    return safe_text("; ".join(parts) if parts else "the station's settings as they are")
 
 
 # ----------------------------------------------------------------------------- process tables
@@ -389,11 +509,14 @@ def summary_markdown(result: RunResult, run_id: int, version: int) -> str:
         f"- status: {result.status}",
         f"- verdict: **{result.verdict or '-'}**",
     ]
+    reasons = main_reasons(result)
+    if reasons:
+        out.append(f"- reasons: {reasons_line(reasons)}")
     if result.error:
         out.append(f"- error: {result.error}")
     spectrum = result.spectrum
     if spectrum is not None:
-        out.append(f"- spectrum: {spectrum.points} points, {spectrum.first_cm1} to {spectrum.last_cm1} cm-1, format {spectrum.format}")
+        out.append(f"- spectrum: {spectrum.points} points, {spectrum.first_cm1:.4f} to {spectrum.last_cm1:.4f} cm-1, format {spectrum.format}")
     out.append(f"- lines found: {len(result.lines)}")
     if result.bands:
         out += ["", "## Bands", "", "| isotopologue | band | origin | B_upper | B_lower | lines | rms cm-1 |",
@@ -401,7 +524,7 @@ def summary_markdown(result: RunResult, run_id: int, version: int) -> str:
         for band in result.bands:
             out.append(
                 f"| {band.isotopologue} | {band.band} | {estimate_text(band.origin)} | {estimate_text(band.B_upper)}"
-                f" | {estimate_text(band.B_lower)} | {_cell(band.n_lines)} | {_cell(band.rms)} |"
+                f" | {estimate_text(band.B_lower)} | {_cell(band.n_lines)} | {band.rms:.4g} |"
             )
     if result.constants:
         out += ["", "## Constants", ""]

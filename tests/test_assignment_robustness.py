@@ -250,4 +250,5 @@ def test_operator_can_shift_a_branch_numbering_and_exclude_a_line() -> None:
     assert any("shifted by +1" in note for note in shifted.assignment.notes)
     excluded = analyse(sim.spectrum, ProcessSettings(excluded_positions_cm1=(position,)))
     assert excluded.assignment.per_line[r3] is None
+    assert excluded.assignment.likely_cause[r3] == "excluded by the operator"  # not "noise"
     assert _bands(excluded)[("H35Cl", 1, 0)].n_lines == good.n_lines - 1

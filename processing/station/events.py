@@ -94,6 +94,22 @@ class FileSettled(StationEvent):
 
 
 @dataclass(frozen=True)
+class FileWaiting(StationEvent):
+    """A file that is not yet whole (no ##END= yet, a cut-off last line): the station waits
+    for the rest, at most `give_up_after_seconds`."""
+
+    path: str
+    reason: str
+    give_up_after_seconds: float
+    taken_then: bool = False
+
+    def plain(self) -> str:
+        then = "taken as it is" if self.taken_then else "recorded unreadable"
+        return (f"waiting for {_name(self.path)} to finish ({self.reason}); "
+                f"{then} after {self.give_up_after_seconds:g} s")
+
+
+@dataclass(frozen=True)
 class FileUnchanged(StationEvent):
     """A settled file the ledger already holds with the same content."""
 
@@ -116,13 +132,15 @@ class RunProcessed(StationEvent):
     species: tuple[str, ...]
     error: str | None = None
     report_folder: str | None = None
+    reasons: tuple[str, ...] = ()  # the verdict's main reasons (`result_text.main_reasons`)
 
     def plain(self) -> str:
         if self.status == "processed":
             species = ",".join(self.species) or "-"
+            reasons = f" reasons={' · '.join(self.reasons)}" if self.reasons else ""
             return (
                 f"processed run {self.run_id} v{self.version} {_name(self.path)}"
-                f" verdict={self.verdict or '-'} species={species}"
+                f" verdict={self.verdict or '-'} species={species}{reasons}"
             )
         return f"{self.status} run {self.run_id} v{self.version} {_name(self.path)} error={self.error}"
 

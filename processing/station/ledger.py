@@ -26,6 +26,7 @@ from urllib.parse import quote
 
 from processing import strict_json
 from processing.errors import BandwatchError
+from processing.result_text import main_reasons
 from processing.results import BAND_QUANTITIES, MOLECULAR_CONSTANTS, ResultFormatError, RunResult, from_json, to_json
 from processing.safe_text import safe_text
 
@@ -97,6 +98,10 @@ MIGRATIONS: tuple[Migration, ...] = (
     # 3 -> 4: every fitted quantity of a run as a row, so a trend is one query (`trend`);
     # the runs already recorded get theirs from their stored results
     lambda conn: _add_quantities_table(conn),
+    # 4 -> 5: each run's main reasons (the run list shows them without decoding results) and
+    # a change feed: every new run (and the earlier versions of its file) and every decision
+    # appends the run ids it concerns, so a reader polls one table (`changes_after`)
+    lambda conn: _add_reasons_and_changes(conn),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -122,6 +127,9 @@ class RunRecord:
     settings: dict[str, Any] | None = None  # only for runs reprocessed with changed settings
     reprocessed_from: int | None = None
     decided_at: str | None = None
+    reasons: tuple[str, ...] = ()  # the verdict's main reasons (`result_text.main_reasons`)
+    decision_event_id: int | None = None  # the decision event in effect
+    superseded_by: int | None = None  # the run id of the newest later version of the same file
 
     @property
     def name(self) -> str:
@@ -446,6 +454,48 @@ def _add_quantities_table(conn: sqlite3.Connection) -> None:
         _insert_quantities(conn, int(row[0]), result)
 
 
+CHANGES_TABLE = """
+    ALTER TABLE runs ADD COLUMN reasons_json TEXT;
+    CREATE TABLE changes (
+        change_id INTEGER PRIMARY KEY AUTOINCREMENT,
+        run_id    INTEGER NOT NULL
+    );
+    CREATE TRIGGER runs_changed AFTER INSERT ON runs
+    BEGIN INSERT INTO changes (run_id) SELECT run_id FROM runs WHERE path = NEW.path ORDER BY run_id; END;
+    CREATE TRIGGER decisions_changed AFTER INSERT ON decisions
+    BEGIN INSERT INTO changes (run_id) VALUES (NEW.run_id); END;
+"""
+
+
+def _add_reasons_and_changes(conn: sqlite3.Connection) -> None:
+    """Migration 4 -> 5: the reasons column, filled from the stored results (one that cannot
+    be read keeps none), and the change feed with its triggers."""
+    for statement in _statements(CHANGES_TABLE):
+        conn.execute(statement)
+    for row in conn.execute("SELECT run_id, result_json FROM runs WHERE result_json IS NOT NULL").fetchall():
+        try:
+            result = from_json(row[1])
+        except ResultFormatError:
+            continue
+        conn.execute("UPDATE runs SET reasons_json = ? WHERE run_id = ?", (json.dumps(list(main_reasons(result))), row[0]))
+
+
+def changes_after(conn: sqlite3.Connection, cursor: int | None) -> tuple[int, list[int]]:
+    """(new cursor, ids of the runs whose decision or versions changed since `cursor`), in
+    the order of run id. The cursor only grows; None asks for the current cursor (no ids).
+    Every writer is seen (the station, the interface, `bandwatch ledger` in another shell):
+    the ledger's own triggers append to the feed."""
+    if cursor is None:
+        row = conn.execute("SELECT MAX(change_id) FROM changes").fetchone()
+        return int(row[0] or 0), []
+    rows = conn.execute(
+        "SELECT change_id, run_id FROM changes WHERE change_id > ? ORDER BY change_id", (int(cursor),)
+    ).fetchall()
+    if not rows:
+        return int(cursor), []
+    return int(rows[-1][0]), sorted({int(row[1]) for row in rows})
+
+
 def next_version(conn: sqlite3.Connection, path: str) -> int:
     row = conn.execute("SELECT MAX(version) FROM runs WHERE path = ?", (stored_path(path),)).fetchone()
     return int(row[0] or 0) + 1
@@ -487,13 +537,14 @@ def record_run(
         result_json = to_json(result)
     if error is not None:
         error = safe_text(error)  # file names and header values are echoed in messages
+    reasons = main_reasons(result) if result is not None and status == "processed" else ()
     stamp = now_iso()
     with _Transaction(conn):
         version = next_version(conn, path)
         cursor = conn.execute(
             "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error,"
-            " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns)"
-            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns, reasons_json)"
+            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (
                 stored_path(path),
                 sha256,
@@ -509,6 +560,7 @@ def record_run(
                 reprocessed_from,
                 size_bytes,
                 mtime_ns,
+                json.dumps(list(reasons)),
             ),
         )
         run_id = int(cursor.lastrowid or 0)
@@ -520,7 +572,7 @@ def record_run(
         run_id=run_id, path=path, sha256=sha256, version=version, status=status, verdict=verdict,
         decision=None, decision_reason=None, operator=None, received_at=received_at or stamp,
         processed_at=processed_at or stamp, species=tuple(species), error=error, result=result,
-        settings=settings, reprocessed_from=reprocessed_from,
+        settings=settings, reprocessed_from=reprocessed_from, reasons=reasons,
     )
 
 
@@ -558,7 +610,9 @@ def record_reprocessed(
 
 _RUN_COLUMNS = (
     "run_id, path, sha256, version, status, verdict, species, result_json, error, received_at,"
-    " processed_at, settings_json, reprocessed_from"
+    " processed_at, settings_json, reprocessed_from, reasons_json,"
+    " (SELECT later.run_id FROM runs AS later WHERE later.path = runs.path AND later.version > runs.version"
+    " ORDER BY later.version DESC LIMIT 1) AS superseded_by"
 )
 
 
@@ -618,7 +672,20 @@ def _record(row: sqlite3.Row, decision: DecisionEvent | None, with_result: bool 
         settings=json.loads(row["settings_json"]) if row["settings_json"] else None,
         reprocessed_from=row["reprocessed_from"],
         decided_at=decision.at if decision else None,
+        reasons=_reasons(row["reasons_json"]),
+        decision_event_id=decision.event_id if decision else None,
+        superseded_by=row["superseded_by"],
     )
+
+
+def _reasons(text: str | None) -> tuple[str, ...]:
+    if not text:
+        return ()
+    try:
+        found = json.loads(text)
+    except ValueError:
+        return ()
+    return tuple(str(item) for item in found) if isinstance(found, list) else ()
 
 
 def _result(row: sqlite3.Row) -> RunResult:
@@ -731,6 +798,41 @@ def undo_last_decision(conn: sqlite3.Connection, run_id: int, operator: str) -> 
             return None
         reason = f"undo of {current.action} (event {current.event_id})"
         return _insert_event(conn, run_id, UNDO, reason, operator)
+
+
+@dataclass(frozen=True)
+class Decided:
+    """What `decide` did: the new event, or (nothing written) the other person's decision in
+    effect that the operator has not yet confirmed deciding over."""
+
+    event: DecisionEvent | None
+    over: DecisionEvent | None = None  # the decision in effect before (someone else's), if any
+
+
+def decide(
+    conn: sqlite3.Connection, run_id: int, action: str, reason: str, operator: str, *, confirmed_over: int | None = None
+) -> Decided:
+    """Accept, flag or undo a run unless another person's decision is in effect that the
+    operator has not confirmed deciding over (`confirmed_over`, its event id): then nothing is
+    written and that decision is returned (ask, then call again with its id). Both stay on
+    record: the new event names the one it decides over. Checked and written in one
+    transaction, so a decision recorded meanwhile elsewhere is never silently overridden."""
+    if action not in (*DECISION_ACTIONS, UNDO):
+        raise ValueError(f"decision must be one of {(*DECISION_ACTIONS, UNDO)}, not {action!r}")
+    with _Transaction(conn):
+        current = _current_decisions(conn, [int(run_id)]).get(int(run_id))
+        others = current is not None and current.operator != operator
+        if others and current is not None and current.event_id != confirmed_over:
+            return Decided(None, current)
+        if action == UNDO:
+            if current is None:
+                return Decided(None, None)
+            by = f" by {current.operator or 'someone'}" if others else ""
+            reason = f"undo of {current.action}{by} (event {current.event_id})"
+        elif others and current is not None:
+            over = f"over {current.action} by {current.operator or 'someone'} (event {current.event_id})"
+            reason = f"{reason} ({over})" if reason else over
+        return Decided(_insert_event(conn, run_id, action, reason, operator), current if others else None)
 
 
 def _append_event(conn: sqlite3.Connection, run_id: int, action: str, reason: str, operator: str) -> DecisionEvent:

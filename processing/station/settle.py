@@ -41,6 +41,20 @@ class IncompleteFile:
     path: str
     sha256: str | None
     reason: str
+    size_bytes: int | None = None
+    mtime_ns: int | None = None
+
+
+@dataclass(frozen=True)
+class WaitingFile:
+    """Found not yet whole (`reason`): the station waits for the rest, at most
+    `give_up_after_seconds` from when it was first seen, then takes it as it is or records it
+    unreadable (`taken_then`). Said once per wait (the file stays pending)."""
+
+    path: str
+    reason: str
+    give_up_after_seconds: float
+    taken_then: bool
 
 
 @dataclass(frozen=True)
@@ -59,7 +73,7 @@ class VanishedFile:
     path: str
 
 
-SettleOutcome = SettledFile | IncompleteFile | RefusedFile | VanishedFile
+SettleOutcome = SettledFile | IncompleteFile | RefusedFile | VanishedFile | WaitingFile
 
 
 @dataclass
@@ -143,7 +157,10 @@ class Settler:
                 continue
             if now - state.stable_since < self.settle_seconds or hold(path):
                 continue
+            said = state.incomplete_why
             outcome = self._examine(path, state, now)
+            if outcome is None and state.incomplete_why is not None and state.incomplete_why != said:
+                outcomes.append(WaitingFile(path, state.incomplete_why, self.max_wait_seconds, state.take_when_waited_out))
             if outcome is not None:
                 del self.pending[path]
                 self.known[path] = (state.size, state.mtime_ns)
@@ -179,6 +196,6 @@ class Settler:
             if state.take_when_waited_out:
                 return SettledFile(path, state.incomplete_sha, state.size, state.mtime_ns)
             return IncompleteFile(
-                path, state.incomplete_sha, f"{why}; gave up after {self.max_wait_seconds:g} s"
+                path, state.incomplete_sha, f"{why}; gave up after {self.max_wait_seconds:g} s", state.size, state.mtime_ns
             )
         return None

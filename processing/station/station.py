@@ -37,6 +37,7 @@ from processing.station.events import (
     FileSettled,
     FileUnchanged,
     FileVanished,
+    FileWaiting,
     RunFailed,
     RunProcessed,
     StationEvent,
@@ -48,7 +49,7 @@ from processing.station.pool import Job, JobOutcome, WorkerPool
 from processing.station.redo import RedoRequest, record_redo, redo_settings
 from processing.station.reports import write_reports
 from processing.station.retry import LEDGER_TROUBLE, Backoff, RetryQueue, describe
-from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile
+from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile, WaitingFile
 from processing.station.watcher import FileFilter, observer_alive, start_observer
 
 LOCK_FILE = "station.lock"
@@ -479,6 +480,8 @@ class Station:
         for outcome in outcomes:
             if isinstance(outcome, VanishedFile):
                 self._emit(FileVanished(outcome.path))
+            elif isinstance(outcome, WaitingFile):
+                self._emit(FileWaiting(outcome.path, outcome.reason, outcome.give_up_after_seconds, outcome.taken_then))
             elif isinstance(outcome, (IncompleteFile, RefusedFile)):
                 self._retries.attempt(
                     outcome.path, f"record {Path(outcome.path).name}",
@@ -492,10 +495,17 @@ class Station:
             )
 
     def _record_unread(self, outcome: IncompleteFile | RefusedFile) -> None:
-        """Record a file the station itself refused or gave up on as unreadable."""
+        """Record a file the station itself refused or gave up on as unreadable; a file given up
+        on whose content the ledger already holds (the same incomplete export, seen again at a
+        restart) is not recorded again."""
         if isinstance(outcome, IncompleteFile):
+            latest = ledger.latest_run_for_path(self._conn(), outcome.path)
+            if latest is not None and outcome.sha256 is not None and latest.sha256 == outcome.sha256:
+                self._emit(FileUnchanged(outcome.path, latest.run_id))
+                return
             record = ledger.record_run(
-                self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}"
+                self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}",
+                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
             )
         else:
             record = ledger.record_run(
@@ -626,7 +636,7 @@ class Station:
         self._emit(
             RunProcessed(
                 record.run_id, record.version, record.path, record.status,
-                record.verdict, record.species, record.error, folder,
+                record.verdict, record.species, record.error, folder, record.reasons,
             )
         )
 

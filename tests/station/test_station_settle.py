@@ -7,7 +7,7 @@ import time
 from pathlib import Path
 
 from processing.readers import incomplete_reason
-from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile
+from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile, WaitingFile
 
 JCAMP_HEAD = "##TITLE=test\n##JCAMP-DX=4.24\n##XYDATA=(X++(Y..Y))\n2900 1 2 3\n"
 
@@ -79,11 +79,15 @@ def test_jcamp_without_end_waits_then_is_given_up(tmp_path: Path) -> None:
     path.write_text(JCAMP_HEAD)
     settler.touch(str(path))
     clock.now += 1
-    assert settler.tick() == []  # stable but no ##END=: still being written
-    clock.now += 4.1
+    [waiting] = settler.tick()  # stable but no ##END=: still being written, said once
+    assert waiting == WaitingFile(str(path), "JCAMP-DX file has no ##END= (still being written?)", 5.0, False)
+    clock.now += 1
+    assert settler.tick() == []  # the wait goes on without saying it again
+    clock.now += 3.1
     [given_up] = settler.tick()
     assert isinstance(given_up, IncompleteFile)
     assert "no ##END=" in given_up.reason and "5 s" in given_up.reason
+    assert (given_up.size_bytes, given_up.mtime_ns) == (path.stat().st_size, path.stat().st_mtime_ns)
 
 
 def test_jcamp_completed_later_settles(tmp_path: Path) -> None:
@@ -93,7 +97,7 @@ def test_jcamp_completed_later_settles(tmp_path: Path) -> None:
     path.write_text(JCAMP_HEAD)
     settler.touch(str(path))
     clock.now += 1
-    assert settler.tick() == []
+    assert [type(outcome) for outcome in settler.tick()] == [WaitingFile]
     with open(path, "a") as handle:
         handle.write("##END=\n")
     _bump_mtime(path, 1)
@@ -132,8 +136,12 @@ def test_a_csv_cut_mid_line_waits_for_its_last_line(tmp_path: Path) -> None:
     for path in (cut, short, whole):
         settler.touch(str(path))
     clock.now += 1
-    [settled] = settler.tick()
-    assert isinstance(settled, SettledFile) and settled.path == str(whole)
+    outcomes = settler.tick()
+    [settled] = [o for o in outcomes if isinstance(o, SettledFile)]
+    assert settled.path == str(whole)
+    waiting = [o for o in outcomes if not isinstance(o, SettledFile)]
+    assert sorted(w.path for w in waiting) == [str(cut), str(short)]
+    assert all(isinstance(w, WaitingFile) and w.taken_then for w in waiting)
     assert incomplete_reason(cut.read_bytes()) == incomplete_reason(short.read_bytes()) == (
         "last line looks cut off (still being written?)"
     )
