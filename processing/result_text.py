@@ -188,6 +188,24 @@ def reasons_line(reasons: Sequence[str]) -> str:
     return REASON_SEPARATOR.join(reasons)
 
 
+def molecules_text(labels: Sequence[str]) -> str:
+    """Isotopologues as their molecules, in order ("H35Cl, H37Cl, D35Cl" -> "HCl,DCl"): a short
+    column; a label the library does not know ("unidentified-2885") stays as it is."""
+    from processing.errors import BandwatchError
+    from processing.species import load_library
+
+    library = load_library()
+    names: list[str] = []
+    for label in labels:
+        try:
+            name = library.isotopologue(label).molecule
+        except BandwatchError:
+            name = label
+        if name not in names:
+            names.append(name)
+    return safe_text(",".join(names))
+
+
 def d_model_note(band: Band) -> str | None:
     """What the band fit did with D, when a reader could take D' and D'' as two fitted values:
     constrained equal (one D fitted), or held at the library's values."""

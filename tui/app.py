@@ -9,6 +9,8 @@ itself: the ledger and the reports are written by `processing.station`.
 from __future__ import annotations
 
 import getpass
+import os
+from collections.abc import Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING, Callable, Protocol
 
@@ -62,8 +64,18 @@ class BandwatchApp(App[int]):
         exit_after_seconds: float | None = None,
         keymap: dict[str, str] | None = None,
         config: StationConfig | None = None,
+        monochrome: bool | None = None,
     ) -> None:
-        super().__init__()
+        self.monochrome = monochrome_terminal() if monochrome is None else monochrome
+        # Without colour the terminal's own foreground and background are used throughout
+        # (never Textual's greyscale conversion, which leaves grey text on grey); the styles
+        # that still tell things apart (bold, reverse, underline) are in app.tcss (:nocolor).
+        super().__init__(ansi_color=True if self.monochrome else None)
+        if self.monochrome and not self.no_color:
+            from textual.filter import NoColor
+
+            self.no_color = True
+            self._filters.append(NoColor())  # Textual does this itself only for NO_COLOR
         self.data_dir = Path(data_dir)
         self.export_dir = str(export_dir) if export_dir is not None else None
         # the station's settings: a redo without a running station uses them too
@@ -146,6 +158,16 @@ class BandwatchApp(App[int]):
         from processing.station.reports import export_run_report
 
         return export_run_report(self.data_dir, run_id)
+
+
+def monochrome_terminal(environ: Mapping[str, str] | None = None) -> bool:
+    """True when colour is not wanted or not there: NO_COLOR set (no-color.org), or a
+    monochrome terminal type (`xterm-mono`, `vt100-m`: the terminfo names' convention)."""
+    environ = os.environ if environ is None else environ
+    if "NO_COLOR" in environ:
+        return True
+    term = environ.get("TERM", "")
+    return term.endswith(("-mono", "-m"))
 
 
 def _literal(text: str) -> str:

@@ -33,11 +33,21 @@ MAIN = [
     Binding("3", "show_tab('tab-constants')", "Constants", show=False, id="pane.constants", tooltip="Show the constants pane"),
     Binding("4", "show_tab('tab-checks')", "Checks", show=False, id="pane.checks", tooltip="Show the checks pane"),
     Binding("w", "focus_runs", "Runs", show=False, id="pane.runs", tooltip="Go to the run list"),
+    Binding("tab", "cycle_panes(1)", "Next pane", show=False, id="pane.next",
+            tooltip="Next pane: run list, plot, lines, constants, checks"),
+    Binding("shift+tab", "cycle_panes(-1)", "Previous pane", show=False, id="pane.previous",
+            tooltip="Previous pane"),
 ]
 
 LINES = [
     *TABLE,
-    Binding("x", "toggle_exclude", "Exclude line", id="lines.exclude"),
+    Binding("x", "toggle_exclude", "Exclude line", id="lines.exclude",
+            tooltip="Exclude or include the line in the next redo"),
+    Binding("z", "zoom_here", "Zoom to line", id="lines.zoom", tooltip="Show this line in the plot, zoomed on it"),
+]
+
+CONSTANTS = [
+    Binding("z", "zoom_here", "Zoom to band", id="constants.zoom", tooltip="Show this row's band in the plot"),
 ]
 
 PLOT = [
@@ -48,6 +58,7 @@ PLOT = [
     Binding("right,l", "pan(0.25)", "Pan right", id="plot.pan_right", show=False,
             tooltip="Pan right (a quarter of the view)"),
     Binding("0", "reset_view", "Whole", id="plot.reset", tooltip="Whole spectrum"),
+    Binding("b", "next_band", "Band", id="plot.band", tooltip="Zoom to the next band of the run (in turn)"),
     Binding("x", "flip_axis", "Flip axis", id="plot.flip",
             tooltip="Flip axis (high to low wavenumber, or low to high)"),
 ]
@@ -66,6 +77,11 @@ HISTORY = [
 
 FLAG = [Binding("escape", "cancel", "Cancel", id="modal.cancel")]
 
+CONFIRM = [
+    Binding("y", "answer(True)", "Yes", id="confirm.yes"),
+    Binding("n,escape", "answer(False)", "No", id="confirm.no"),
+]
+
 REDO = [
     Binding("escape", "cancel", "Cancel", id="modal.cancel"),
     Binding("ctrl+s", "send", "Redo", id="modal.send"),
@@ -77,18 +93,20 @@ SECTIONS: tuple[tuple[str, tuple[str, ...]], ...] = (
     (
         "Runs and panes",
         ("table.down", "table.up", "table.top", "table.bottom", "run.next", "run.previous",
-         "pane.runs", "pane.plot", "pane.lines", "pane.constants", "pane.checks"),
+         "pane.runs", "pane.plot", "pane.lines", "pane.constants", "pane.checks", "pane.next", "pane.previous"),
     ),
     ("Decisions and work", ("run.accept", "run.flag", "run.undo", "run.reprocess", "run.export", "run.history")),
-    ("Plot (when focused)", ("plot.zoom_in", "plot.zoom_out", "plot.pan_left", "plot.pan_right", "plot.reset", "plot.flip")),
-    ("Lines (when focused)", ("lines.exclude",)),
+    ("Plot (when focused)", ("plot.zoom_in", "plot.zoom_out", "plot.pan_left", "plot.pan_right", "plot.reset",
+                             "plot.band", "plot.flip")),
+    ("Lines (when focused)", ("lines.exclude", "lines.zoom")),
+    ("Constants (when focused)", ("constants.zoom",)),
 )
 
 
 def by_id() -> dict[str, Binding]:
     """Every binding by its id (the first of a shared id, e.g. modal.cancel)."""
     found: dict[str, Binding] = {}
-    for group in (APP, MAIN, TABLE, LINES, PLOT, HELP, HISTORY, FLAG, REDO):
+    for group in (APP, MAIN, TABLE, LINES, CONSTANTS, PLOT, HELP, HISTORY, FLAG, CONFIRM, REDO):
         for binding in group:
             if binding.id:
                 found.setdefault(binding.id, binding)

@@ -9,7 +9,7 @@ import numpy as np
 from textual.message import Message
 
 from processing.station.events import StationEvent
-from processing.station.ledger import RunRecord, TrendPoint
+from processing.station.ledger import DecisionEvent, RunRecord, TrendPoint
 
 
 class StationEventReceived(Message):
@@ -51,11 +51,12 @@ class SpectrumLoaded(Message):
 class DecisionRecorded(Message):
     """An accept, flag or undo was appended to the ledger (or refused, with the reason)."""
 
-    def __init__(self, run_id: int, action: str, problem: str | None = None) -> None:
+    def __init__(self, run_id: int, action: str, problem: str | None = None, over: DecisionEvent | None = None) -> None:
         super().__init__()
         self.run_id = run_id
         self.action = action
         self.problem = problem
+        self.over = over  # another person's decision this one was confirmed over (both on record)
 
 
 class ReprocessFinished(Message):
@@ -86,3 +87,26 @@ class HistoryLoaded(Message):
         self.isotopologue = isotopologue
         self.quantity = quantity
         self.points = points
+
+
+class LedgerChanged(Message):
+    """The ledger's change feed moved to `cursor`: `run_ids` changed (a decision, a new
+    version) since the last read; `first` is the read that only learns where the feed stands."""
+
+    def __init__(self, cursor: int, run_ids: list[int], first: bool = False) -> None:
+        super().__init__()
+        self.cursor = cursor
+        self.run_ids = run_ids
+        self.first = first
+
+
+class DecisionConflict(Message):
+    """Nothing was recorded: another person's decision (`over`) is in effect on the run; the
+    operator is asked before deciding over it."""
+
+    def __init__(self, run_id: int, action: str, reason: str, over: DecisionEvent) -> None:
+        super().__init__()
+        self.run_id = run_id
+        self.action = action
+        self.reason = reason
+        self.over = over

@@ -874,17 +874,25 @@ class TrendPoint:
     run_id: int
     value: float
     sigma: float | None
+    verdict: str | None = None  # the run's verdict: a failed run's value is drawn apart
+    decision: str | None = None  # "accept" | "flag" | None: a flagged run's value is drawn apart
 
 
 def trend(conn: sqlite3.Connection, isotopologue: str, quantity: str, band: str = "") -> list[TrendPoint]:
     """One fitted quantity over processed runs, oldest first, in one query: a band constant
     of `band` ("1-0"; "origin", "B_upper", ...) or a molecular constant (band "": "B_e", ...).
-    Only the newest version of each file counts (a reprocessed file is one measurement)."""
+    Only the newest version of each file counts (a reprocessed file is one measurement).
+    Each point carries its run's verdict and current decision."""
     rows = conn.execute(
-        "SELECT r.processed_at, r.run_id, q.value, q.sigma FROM quantities AS q JOIN runs AS r ON r.run_id = q.run_id"
+        "SELECT r.processed_at, r.run_id, q.value, q.sigma, r.verdict FROM quantities AS q JOIN runs AS r ON r.run_id = q.run_id"
         " WHERE q.isotopologue = ? AND q.quantity = ? AND q.band = ? AND r.status = 'processed'"
         " AND r.version = (SELECT MAX(version) FROM runs WHERE path = r.path)"
         " ORDER BY r.processed_at, r.run_id",
         (isotopologue, quantity, band),
     ).fetchall()
-    return [TrendPoint(row[0], int(row[1]), float(row[2]), None if row[3] is None else float(row[3])) for row in rows]
+    decisions = _current_decisions(conn, [int(row[1]) for row in rows])
+    return [
+        TrendPoint(row[0], int(row[1]), float(row[2]), None if row[3] is None else float(row[3]), row[4],
+                   decisions[int(row[1])].action if int(row[1]) in decisions else None)
+        for row in rows
+    ]

@@ -46,7 +46,7 @@ async def test_run_list_is_newest_first_with_verdict_words(lab: dict[str, Path])
         names = [cell(table, row, "file") for row in range(table.row_count)]
         assert names == ["empty_scan.csv", "hcl_cell_03.csv", "hcl_cell_02.csv", "hcl_cell_01.csv"]
         # status in words and symbols, not colour alone
-        assert [cell(table, row, "verdict") for row in range(4)] == ["✘ UNREAD", "✔ PASS", "! WARN", "✔ PASS"]
+        assert [cell(table, row, "verdict") for row in range(4)] == ["✘ UNREADABLE", "✔ PASS", "! WARN", "✔ PASS"]
         assert cell(table, 1, "decision") == "pending"
 
 
@@ -135,8 +135,10 @@ async def test_reprocess_with_changed_settings_records_a_new_version(lab: dict[s
         assert isinstance(app.screen, ReprocessScreen)
         await pilot.press("ctrl+u", *"H35Cl, H37Cl")  # replace the species field
         await pilot.press("tab")  # to the branch renumbering choice
-        await pilot.press("enter", "down", "enter")  # first option after "no J renumbering"
-        await pilot.press("ctrl+s")
+        await pilot.press("space", "down", "enter")  # first option after "no J renumbering"
+        await pilot.pause()
+        assert isinstance(app.screen, ReprocessScreen)  # picking an option does not send
+        await pilot.press("enter")  # Enter on the closed drop-down redoes, as the dialog says
         await settle(app, pilot)
         assert isinstance(app.screen, MainScreen)
         new_id = app.screen.selected_run_id
@@ -193,7 +195,7 @@ async def test_station_events_show_a_busy_row_then_the_new_run(lab: dict[str, Pa
         await settle(app, pilot)
         table = screen.query_one(RunList)
         assert cell(table, 0, "file") == "hcl_cell_04.csv"
-        assert cell(table, 0, "verdict") == "… BUSY"
+        assert cell(table, 0, "verdict") == "… WORKING"
         screen.post_message(
             StationEventReceived(RunProcessed(9, 1, new_file, "unreadable", None, (), error="empty"))
         )
@@ -210,7 +212,7 @@ async def test_help_lists_the_keys_and_closes(lab: dict[str, Path]) -> None:
         await pilot.pause()
         assert isinstance(app.screen, HelpScreen)
         text = str(app.screen.query_one("#help-text").render())
-        for expected in ("Accept", "Flag", "Undo", "ctrl+q", "Exclude line", "Flip axis"):
+        for expected in ("Accept", "Flag", "Undo", "ctrl+q", "Exclude or include", "Flip axis", "{ }  fourth"):
             assert expected in text
         await pilot.press("escape")
         await pilot.pause()
@@ -314,6 +316,12 @@ async def test_plot_zooms_pans_and_flips_by_keys(lab: dict[str, Path]) -> None:
         await pilot.press("1")
         plot = app.screen.query_one(SpectrumPlot)
         assert plot.has_focus
+        # a run is first shown at its own band: its assigned lines with a margin, not the
+        # whole 2700-3100 cm-1 file (the fixture's lines: 2885.98 - 6B'' ... 2885.98 + 8B'')
+        lowest, highest = 2885.98 - 6 * 10.44 - 0.002, 2885.98 + 8 * 10.44 + 0.003
+        low, high = plot.window
+        assert low < lowest and highest < high and high - low < 1.3 * (highest - lowest), plot.window
+        await pilot.press("0")
         assert plot.window == (2700.0, 3100.0), plot._message  # the fixture's whole range
         await pilot.press("plus")
         assert plot.window == (2800.0, 3000.0)  # half the width about the centre

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 
 from tui.widgets.spectrum_plot import BRAILLE_BASE, GUTTER, PlotLine, braille_rows, draw_spectrum
-from tui.widgets.trend_plot import draw_trend
+from tui.widgets.trend_plot import TrendRun, draw_trend
 
 
 def test_braille_dots_follow_the_unicode_layout() -> None:
@@ -71,9 +71,37 @@ def test_zoomed_window_hides_lines_outside_it() -> None:
 
 
 def test_trend_draws_one_bar_per_run_with_its_sigma() -> None:
-    rows = [t.plain for t in draw_trend([1.0, 2.0, 3.0], [0.1, 0.1, None], 30, 4)]
+    runs = [TrendRun(1.0, 0.1), TrendRun(2.0, 0.1), TrendRun(3.0, None)]
+    rows = [t.plain for t in draw_trend(runs, 30, 6)]
+    plot = rows[:-2]  # then the marker row and the time row
     # the axis spans the lowest value minus its sigma to the highest plus its (absent) sigma
-    assert rows[0].startswith("3.00│") and rows[-1].startswith("0.90│")
-    # the newest value (highest) is drawn in the last column, top row
-    assert rows[0].rstrip()[-1] != chr(BRAILLE_BASE)
-    assert rows[-1].split("│")[1][0] != chr(BRAILLE_BASE)  # the oldest (lowest) bottom-left
+    assert plot[0].startswith("3.00│") and plot[-1].startswith("0.90│")
+    # the newest value (highest) is drawn in the last columns, top row
+    assert plot[0].rstrip().rstrip(chr(BRAILLE_BASE))[-1] != "│"
+    assert plot[-1].split("│")[1][0] != chr(BRAILLE_BASE)  # the oldest (lowest) bottom-left
+
+
+def test_trend_has_a_reference_line_times_and_tells_flagged_and_failed_runs_apart() -> None:
+    runs = [
+        TrendRun(2885.980, 0.001, "2026-03-05T09:15:00.000Z"),
+        TrendRun(2885.984, 0.001, "2026-03-05T10:40:00.000Z", flagged=True),
+        TrendRun(2885.991, 0.001, "2026-03-05T12:05:00.000Z", failed=True),
+    ]
+    rows = [t.plain for t in draw_trend(runs, 40, 8, reference=2885.9750)]
+    plot, marks, times = rows[:-2], rows[-2], rows[-1]
+    # the reference (below every run) widens the axis down to it and is drawn as a dotted
+    # line: every other cell of its row lit where no run is
+    assert plot[-1].startswith("2885.9750│")
+    dotted = plot[-1].split("│")[1]
+    assert sum(cell != chr(BRAILLE_BASE) for cell in dotted[4::2]) >= len(dotted[4::2]) - 2
+    # the flagged run marked F, the failed one ✘, under their bars
+    assert marks.split() == ["F", "✘"]
+    # local times of the first, middle and last runs (TZ is the test machine's: the labels
+    # are what processing.local_time makes of the stamps)
+    from processing.local_time import clock
+
+    for stamp in ("2026-03-05T09:15:00.000Z", "2026-03-05T10:40:00.000Z", "2026-03-05T12:05:00.000Z"):
+        assert clock(stamp)[:5] in times
+    # a good run is a bar two dots wide (both dot columns of its cell), a flagged one one dot
+    first = plot[-2].split("│")[1]
+    assert ord(first[0]) - BRAILLE_BASE & 0x38 and ord(first[0]) - BRAILLE_BASE & 0x07

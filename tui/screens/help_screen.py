@@ -1,5 +1,11 @@
-"""The help screen: every key of the app, from the live bindings (so remapped keys show)."""
+"""The help screen: every key of the app, from the live bindings (so remapped keys show).
+
+Laid out for 72 characters (an 80-column terminal with the dialog's border and scrollbar):
+descriptions wrap, nothing is cut.
+"""
 from __future__ import annotations
+
+import textwrap
 
 from rich.text import Text
 from textual.app import ComposeResult
@@ -9,23 +15,44 @@ from textual.widgets import Static
 
 from tui import bindings as key_bindings
 
+HELP_WIDTH = 72
+KEYS_WIDTH, WHAT_WIDTH = 16, 36
+
 PANES_TEXT = """\
-Keys can be remapped by their id (right column) in ~/.config/bandwatch/keys.toml
-(or the file named by $BANDWATCH_KEYS), e.g.  "run.accept" = "y"
+Keys can be remapped by their id (right column) in
+~/.config/bandwatch/keys.toml (or the file named by $BANDWATCH_KEYS),
+e.g.  "run.accept" = "y"
 
 Panes (top to bottom)
-  run list      newest first: time (UTC), file, version, species found, verdict, decision
-  summary       the highlighted run: verdict, decision, who decided and why
-  1 Plot        the spectrum; markers above it: P R = first isotopologue's P and R lines,
-                p r = second, < > = third, ? = unassigned, x = marked for exclusion;
-                the zoom is kept when moving to another run (0 shows everything)
-  2 Lines       observed position, assignment, calculated position, obs-calc; x marks a line
-                to leave out of the next redo
-  3 Constants   band and molecular constants with uncertainties beside reference values
-  4 Checks      each check as PASS / WARN / FAIL with its reason
-"""
+  title         the export folder, the station, what it is doing now
+  run list      newest first: local time (zone in the header), file,
+                version, molecules found, verdict (reasons on a wide
+                terminal), decision; ▸ marks the selected run
+  summary       the selected run: verdict and its main reasons, the
+                decision with who and why, what a redo changed
+  1 Plot        the spectrum; marker rows above it, one per
+                isotopologue (most lines first):
+                  P R  first isotopologue's P and R branch lines
+                  p r  second    < >  third    { }  fourth (and on)
+                  ?    unassigned line    x  marked for exclusion
+                  s    (row "sat") a saturated, flat-topped line
+                a new run is shown at its own bands; the zoom of
+                the run before is kept when it holds this run's
+                lines (0 shows everything, b steps through bands)
+  2 Lines       position, ±, height, S/N, assignment, calc,
+                obs-calc, confidence, flags (s saturated, b blended,
+                p profile on few points), note; the line under the
+                table says everything about the highlighted line
+  3 Constants   band and molecular constants beside the reference
+                for the model fitted, Δ/σ (! beyond 3); D'=D'' when
+                the fit constrained them equal
+  4 Checks      each check as pass / WARN / FAIL / n/a with its
+                whole reason
 
-EXTRA_KEYS = (("tab / shift+tab", "move between panes"),)
+Statuses: ✔ PASS, ! WARN, ✘ FAIL (the verdict), ✘ UNREADABLE,
+✘ FAILED (the analysis stopped), … WORKING, … WAITING (the file is
+not whole yet: the station waits for the rest of it).
+"""
 
 
 def help_text(keymap: dict[str, str] | None = None) -> Text:
@@ -41,12 +68,11 @@ def help_text(keymap: dict[str, str] | None = None) -> Text:
                 continue
             keys = keymap.get(binding_id, binding.key)
             keys = keys.replace("question_mark", "?").replace("equals_sign", "=").replace(",", " / ")
-            what = binding.tooltip or binding.description
-            text.append(f"  {keys:<18} {what[:38]:<39}")
+            what = textwrap.wrap(binding.tooltip or binding.description, WHAT_WIDTH) or [""]
+            text.append(f"  {keys:<{KEYS_WIDTH}} {what[0]:<{WHAT_WIDTH}} ")
             text.append(f"{binding_id}\n", style="dim")
-        if title == "Runs and panes":
-            for keys, what in EXTRA_KEYS:
-                text.append(f"  {keys:<18} {what}\n")
+            for more in what[1:]:
+                text.append(f"  {'':<{KEYS_WIDTH}} {more}\n")
     text.append("\n")
     text.append(PANES_TEXT)
     return text

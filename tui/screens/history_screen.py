@@ -11,12 +11,44 @@ from textual.screen import Screen
 from textual.widgets import DataTable, Footer, OptionList, Static
 from textual.widgets.option_list import Option
 
+from processing.local_time import zone_name
 from processing.results import RunResult
+from processing.station.ledger import TrendPoint
 from tui import bindings
 from tui.messages import HistoryLoaded
 from tui.widgets.cells import decimals_for, number, plain
 from tui.widgets.run_tables import BAND_ROWS, CONSTANT_ROWS, clock_time
-from tui.widgets.trend_plot import TrendPlot
+from tui.widgets.trend_plot import TrendPlot, TrendRun
+
+
+def quantity_reference(result: RunResult | None, isotopologue: str, quantity_id: str) -> float | None:
+    """The reference line of a trend: the library's value of the quantity (the handbook's),
+    else the reference this run's value was compared with."""
+    if result is None:
+        return None
+    quantity, _, band_tag = quantity_id.partition("@")
+    comparison = None
+    if band_tag:
+        band = next((b for b in result.bands if b.isotopologue == isotopologue and b.band == band_tag), None)
+        comparison = band.reference.get(quantity) if band is not None else None
+    else:
+        entry = next((c for c in result.constants if c.isotopologue == isotopologue), None)
+        comparison = entry.reference.get(quantity) if entry is not None else None
+    if comparison is None:
+        return None
+    return comparison.handbook_value if comparison.handbook_value is not None else comparison.compared_reference
+
+
+def point_state(point: TrendPoint) -> Text:
+    """The run's decision and verdict as words: "FLAGGED", "✘ FAIL", "accepted", ""."""
+    parts = []
+    if point.decision == "flag":
+        parts.append("FLAGGED")
+    elif point.decision == "accept":
+        parts.append("accepted")
+    if point.verdict == "fail":
+        parts.append("✘ FAIL")
+    return Text(" ".join(parts), style="bold" if point.decision == "flag" or point.verdict == "fail" else "")
 
 
 def quantity_choices(result: RunResult | None) -> list[tuple[str, str, str]]:
@@ -52,6 +84,7 @@ class HistoryScreen(Screen[None]):
     def __init__(self, result: RunResult | None, data_dir: Path, preferred: tuple[str, str] | None = None) -> None:
         super().__init__()
         self.choices = quantity_choices(result)
+        self.result = result
         self.data_dir = data_dir
         self.preferred = preferred
 
@@ -66,11 +99,12 @@ class HistoryScreen(Screen[None]):
 
     def on_mount(self) -> None:
         table = self.query_one(HistoryTable)
-        table.add_column("time UTC", key="time", width=8)
+        table.add_column(f"time {zone_name()}", key="time", width=8)
         table.add_column("run", key="run", width=4)
         table.add_column("value", key="value", width=12)
         table.add_column("±", key="sigma", width=9)
         table.add_column("Δ first", key="delta", width=10)
+        table.add_column("state", key="state", width=16)
         options = self.query_one(OptionList)
         options.focus()
         if not self.choices:
@@ -112,10 +146,15 @@ class HistoryScreen(Screen[None]):
     @on(HistoryLoaded)
     def show_history(self, message: HistoryLoaded) -> None:
         label = next((c[2] for c in self.choices if (c[0], c[1]) == (message.isotopologue, message.quantity)), "")
+        reference = quantity_reference(self.result, message.isotopologue, message.quantity)
+        said = f"; reference {reference:.8g} (dotted)" if reference is not None else ""
         self.query_one("#history-title", Static).update(
-            Text(f"{label}: {len(message.points)} run(s), oldest left/top", no_wrap=True)
+            Text(f"{label}: {len(message.points)} run(s), oldest left/top{said}; F flagged, ✘ failed")
         )
-        self.query_one(TrendPlot).show([p.value for p in message.points], [p.sigma for p in message.points])
+        self.query_one(TrendPlot).show(
+            [TrendRun(p.value, p.sigma, p.processed_at, p.decision == "flag", p.verdict == "fail") for p in message.points],
+            reference,
+        )
         table = self.query_one(HistoryTable)
         table.clear()
         if not message.points:
@@ -130,6 +169,7 @@ class HistoryScreen(Screen[None]):
                 number(point.value, places),
                 number(point.sigma, places) if point.sigma is not None else Text("n/d", justify="right", style="dim"),
                 number(point.value - first, places),
+                point_state(point),
             )
 
     def action_close(self) -> None:

@@ -16,6 +16,7 @@ from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 from textual.widgets import DataTable, Footer, Static, TabbedContent, TabPane
 
+from processing.result_text import molecules_text, reasons_line, redo_description
 from processing.safe_text import safe_text
 from processing.station.events import (
     ClaimResumed,
@@ -23,17 +24,20 @@ from processing.station.events import (
     FileSettled,
     FileUnchanged,
     FileVanished,
+    FileWaiting,
     RunFailed,
     RunProcessed,
     StationProblem,
     StationStarted,
     StationStopped,
 )
-from processing.station.ledger import RunRecord
+from processing.station.ledger import DecisionEvent, RunRecord
 from processing.station.redo import RedoRequest
 from tui import bindings
 from tui.messages import (
+    DecisionConflict,
     DecisionRecorded,
+    LedgerChanged,
     ReportExported,
     ReprocessFinished,
     RunDetailLoaded,
@@ -42,27 +46,49 @@ from tui.messages import (
     StationEventReceived,
 )
 from tui.widgets.cells import decision_text, verdict_text
-from tui.widgets.run_tables import ChecksTable, ConstantsTable, LinesTable, RunList
-from tui.widgets.spectrum_plot import PlotLine, SpectrumPlot
+from tui.widgets.run_tables import ChecksTable, ConstantsTable, LinesTable, RunList, ZoomRequested, short_reason
+from tui.widgets.spectrum_plot import PlotLine, SpectrumPlot, choose_window
 
 if TYPE_CHECKING:
     from tui.app import BandwatchApp
 
 # events that put a file among those being worked on, and those that take it off
-STARTS_WORK = (FileSeen, FileSettled, ClaimResumed)
+STARTS_WORK = (FileSeen, FileSettled, ClaimResumed, FileWaiting)
 ENDS_WORK = (RunProcessed, RunFailed, FileVanished, FileUnchanged)
-CHANGES_RUN_LIST = (*STARTS_WORK, RunProcessed, RunFailed, FileVanished, StationProblem)
+CHANGES_RUN_LIST = (*STARTS_WORK, RunProcessed, RunFailed, FileVanished, FileUnchanged, StationProblem)
+LEDGER_POLL_SECONDS = 0.5  # decisions made elsewhere (another operator, the command line) show within a second
+PANES = ("runs", "tab-plot", "tab-lines", "tab-constants", "tab-checks")  # the order `tab` goes through
 
 
 def short_error(run: RunRecord | None) -> str | None:
     """The run's error without the file's path in front (the path is in the run list)."""
     if run is None or not run.error:
         return None
-    error = str(run.error)
-    path = safe_text(run.path)
-    if error.startswith(path):
-        error = error[len(path):].lstrip(":0123456789 ") or error
-    return safe_text(error)
+    return short_reason(run)
+
+
+def decision_words(event: DecisionEvent) -> str:
+    """"flagged by alice at 10:42:07: cell leak"."""
+    from processing.local_time import clock
+
+    done = {"accept": "accepted", "flag": "flagged", "undo": "undone"}.get(event.action, event.action)
+    reason = f": {event.reason}" if event.reason else ""
+    return safe_text(f"{done} by {event.operator or 'someone'} at {clock(event.at)}{reason}")
+
+
+def band_regions(run: RunRecord | None) -> dict[str, tuple[float, float]]:
+    """(lowest, highest) assigned line of each band of the run, by "ISO v'-v''"."""
+    regions: dict[str, tuple[float, float]] = {}
+    result = run.result if run is not None else None
+    for line in result.lines if result is not None else ():
+        assigned = line.assigned
+        if assigned is None:
+            continue
+        key = f"{assigned.isotopologue} {assigned.v_upper}-{assigned.v_lower}"
+        x = float(line.position.value)
+        low, high = regions.get(key, (x, x))
+        regions[key] = (min(low, x), max(high, x))
+    return regions
 
 
 def file_changed_text(run: RunRecord, now: str | None) -> str:
@@ -78,6 +104,8 @@ class MainScreen(Screen[None]):
     """Runs newest first; the details of the highlighted one."""
 
     BINDINGS = bindings.MAIN
+    # a short terminal (under 20 rows) gives the panes below the run list what room it has
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (20, "-tall")]
 
     def __init__(self) -> None:
         super().__init__()
@@ -86,6 +114,9 @@ class MainScreen(Screen[None]):
         self.jump_to: int | None = None  # a run to select once the run list holds it
         self.view_window: tuple[float, float] | None = None  # the plot's zoom, kept across runs
         self.busy_paths: list[str] = []
+        self.waiting: dict[str, str] = {}  # path -> why the station waits for the rest of it
+        self.ledger_cursor: int | None = None  # the ledger's change feed, read up to here
+        self.spectrum_waiting: SpectrumLoaded | None = None  # read before the run's lines arrived
         self.problems: dict[str, str] = {}  # path -> what the station said when it could not record it
         self.selected_run_id: int | None = None
         self.excluded: dict[int, set[float]] = {}
@@ -105,18 +136,19 @@ class MainScreen(Screen[None]):
                 yield SpectrumPlot(id="plot")
             with TabPane("2 Lines", id="tab-lines"):
                 yield LinesTable(id="lines")
+                yield Static(id="line-detail", classes="detail-line")
             with TabPane("3 Constants", id="tab-constants"):
                 yield ConstantsTable(id="constants")
                 yield Static(id="constant-detail", classes="detail-line")
             with TabPane("4 Checks", id="tab-checks"):
                 yield ChecksTable(id="checks")
-                yield Static(id="check-detail", classes="detail-line")
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.update_title()
         self.query_one(RunList).focus()
         self.load_runs()
+        self.set_interval(LEDGER_POLL_SECONDS, self.poll_ledger, name="ledger poll")
 
     # ------------------------------------------------------------ title and summary
 
@@ -127,27 +159,49 @@ class MainScreen(Screen[None]):
             parts.append(f"working on {len(self.busy_paths)}")
         if self.last_event:
             parts.append(self.last_event)
-        self.query_one("#title-bar", Static).update(Text("  ·  ".join(parts), no_wrap=True, overflow="ellipsis"))
+        self.query_one("#title-bar", Static).update(Text("  ·  ".join(safe_text(p) for p in parts)))
 
     def update_summary(self) -> None:
+        """The selected run in full, wrapped (never cut): verdict with its main reasons, the
+        decision with who and why, what a redo changed, a newer version that replaced it."""
         summary = self.query_one("#run-summary", Static)
         run = self.runs.get(self.selected_run_id) if self.selected_run_id is not None else None
         if run is None:
             summary.update(Text("no run selected", style="dim"))
             return
-        text = Text(no_wrap=True, overflow="ellipsis")
+        text = Text()
         text.append(f"run {run.run_id} ", style="bold")
-        text.append(f"{safe_text(run.name)} v{run.version}  ")
-        text.append_text(verdict_text(run.status, run.verdict))
+        text.append(f"{safe_text(run.name)} v{run.version}")
+        if run.species:
+            text.append(f" ({safe_text(', '.join(run.species))})")
         text.append("  ")
-        text.append_text(decision_text(run.decision))
+        text.append_text(verdict_text(run.status, run.verdict))
+        why = reasons_line(run.reasons) if run.status == "processed" else short_reason(run)
+        if why:
+            text.append(f" {safe_text(why)}")
+        text.append("  ·  ")
+        text.append_text(decision_text(run.decision, run.superseded_by is not None))
         if run.decision:
             who = f" by {run.operator}" if run.operator else ""
             reason = f": {run.decision_reason}" if run.decision_reason else ""
-            text.append(f"{who}{reason}")
-        if run.settings:
-            text.append("  (redone with changed settings)", style="italic")
+            text.append(safe_text(f"{who}{reason}"))
+        if run.reprocessed_from is not None:
+            text.append(safe_text(f"  ·  redo of run {run.reprocessed_from}: {redo_description(run.settings)}"), style="italic")
+        if run.superseded_by is not None:
+            newer = self.runs.get(run.superseded_by)
+            version = f" (v{newer.version})" if newer is not None else ""
+            text.append(f"  ·  replaced by run {run.superseded_by}{version}", style="italic")
         summary.update(text)
+
+    def summary_for_file(self, key: str) -> Text:
+        """The summary of a row the ledger does not hold yet (a file in progress or in trouble)."""
+        state, _, path = key.partition(":")
+        name = safe_text(path.rsplit("/", 1)[-1])
+        if state == "problem":
+            return Text(f"{name}: not recorded: {safe_text(self.problems.get(path, ''))}")
+        if state == "waiting":
+            return Text(f"{name}: waiting for the file to finish: {safe_text(self.waiting.get(path, ''))}")
+        return Text(f"{name}: being analysed")
 
     # ------------------------------------------------------------ workers (no widgets touched)
 
@@ -161,6 +215,19 @@ class MainScreen(Screen[None]):
         finally:
             conn.close()
         self.post_message(RunsLoaded(runs))
+
+    @work(thread=True, exclusive=True, group="ledger-poll", exit_on_error=False)
+    def poll_ledger(self) -> None:
+        """Read the ledger's change feed: decisions and new versions from any source (the
+        station, another operator's interface, `bandwatch ledger` in a shell)."""
+        from processing.station.ledger import changes_after, open_ledger
+
+        conn = open_ledger(self.bw.data_dir)
+        try:
+            cursor, changed = changes_after(conn, self.ledger_cursor)
+        finally:
+            conn.close()
+        self.post_message(LedgerChanged(cursor, changed, first=self.ledger_cursor is None))
 
     @work(thread=True, exclusive=True, group="detail", exit_on_error=False)
     def load_detail(self, run_id: int) -> None:
@@ -208,20 +275,21 @@ class MainScreen(Screen[None]):
         self.post_message(SpectrumLoaded(run_id, data.wavenumber_cm1, data.absorbance, None))
 
     @work(thread=True, group="ledger-write", exit_on_error=False)
-    def write_decision(self, run_id: int, action: str, reason: str) -> None:
-        from processing.station.ledger import open_ledger, record_decision, undo_last_decision
+    def write_decision(self, run_id: int, action: str, reason: str, confirmed_over: int | None = None) -> None:
+        """Accept, flag or undo; over another person's decision only once confirmed (the
+        ledger checks the decision in effect now, not the one this screen last read)."""
+        from processing.station.ledger import decide, open_ledger
 
         conn = open_ledger(self.bw.data_dir)
         try:
-            if action == "undo":
-                event = undo_last_decision(conn, run_id, self.bw.operator)
-                problem = None if event is not None else "nothing to undo for this run"
-            else:
-                record_decision(conn, run_id, action, reason, self.bw.operator)
-                problem = None
+            decided = decide(conn, run_id, action, reason, self.bw.operator, confirmed_over=confirmed_over)
         finally:
             conn.close()
-        self.post_message(DecisionRecorded(run_id, action, problem))
+        if decided.event is None and decided.over is not None:
+            self.post_message(DecisionConflict(run_id, action, reason, decided.over))
+            return
+        problem = None if decided.event is not None else "nothing to undo for this run"
+        self.post_message(DecisionRecorded(run_id, action, problem, decided.over))
 
     @work(thread=True, group="reprocess", exit_on_error=False)
     def reprocess_run(self, run_id: int, request: RedoRequest) -> None:
@@ -244,6 +312,9 @@ class MainScreen(Screen[None]):
         problem = f"{type(error).__name__}: {error}"
         if message.worker.group == "spectrum":
             self.query_one(SpectrumPlot).show_message(f"cannot draw this run: {problem}")
+        elif message.worker.group == "detail" and self.spectrum_waiting is not None:
+            self.draw_spectrum(self.spectrum_waiting)  # without its lines, rather than not at all
+            self.notify(escape(safe_text(problem)), title="detail failed", severity="error")
         else:
             self.notify(escape(safe_text(problem)), title=f"{message.worker.group} failed", severity="error")
 
@@ -259,8 +330,8 @@ class MainScreen(Screen[None]):
         if self.jump_to is not None and self.jump_to in self.runs:
             keep, self.jump_to = self.jump_to, None
         recorded = {run.path for run in message.runs}
-        self.busy_paths = [path for path in self.busy_paths if path not in recorded]
-        table.fill(message.runs, self.busy_paths, keep_run_id=keep, problems=self.problems)
+        self.busy_paths = [path for path in self.busy_paths if path not in recorded or path in self.waiting]
+        table.fill(message.runs, self.busy_paths, keep_run_id=keep, problems=self.problems, waiting=self.waiting)
         if keep is None or keep not in self.runs:
             self.select_run(table.selected_run_id())
         elif keep != self.selected_run_id:
@@ -269,6 +340,16 @@ class MainScreen(Screen[None]):
             self.update_summary()
         self.update_title()
 
+    @on(LedgerChanged)
+    def ledger_changed(self, message: LedgerChanged) -> None:
+        """Runs changed elsewhere: the list again, and the selected run's detail if it changed."""
+        self.ledger_cursor = message.cursor
+        if message.first or not message.run_ids:
+            return
+        self.load_runs()
+        if self.selected_run_id in message.run_ids:
+            self.load_detail(self.selected_run_id)
+
     @on(DataTable.RowHighlighted, "#runs")
     def run_highlighted(self, message: DataTable.RowHighlighted) -> None:
         table = self.query_one(RunList)
@@ -276,13 +357,14 @@ class MainScreen(Screen[None]):
         if run_id != self.selected_run_id:
             self.select_run(run_id)
         key = table.selected_key() or ""
-        if run_id is None and key.startswith("problem:"):
-            self.query_one("#run-summary", Static).update(Text(self.problems.get(key[8:], ""), no_wrap=True))
+        if run_id is None and ":" in key:
+            self.query_one("#run-summary", Static).update(self.summary_for_file(key))
 
     def select_run(self, run_id: int | None) -> None:
         """Show the run's summary at once; its result and its file are read by workers."""
         self.selected_run_id = run_id
         self.detail = None
+        self.spectrum_waiting = None
         run = self.runs.get(run_id) if run_id is not None else None
         self.update_summary()
         self.fill_details(None)
@@ -292,6 +374,7 @@ class MainScreen(Screen[None]):
             return
         if plot.window is not None:
             self.view_window = plot.window  # kept for the next run: compare one region across runs
+        plot.caption = f"run {run.run_id} {safe_text(run.name)}"
         plot.show_message(f"reading {run.name} …", loading_run_id=run.run_id)
         self.load_detail(run.run_id)
         self.load_spectrum(run)
@@ -300,21 +383,30 @@ class MainScreen(Screen[None]):
         """Lines, constants and checks of `run` (None: empty panes)."""
         result = run.result if run is not None else None
         excluded = self.excluded.get(run.run_id, set()) if run is not None else set()
-        self.query_one(LinesTable).fill(result.lines if result else (), excluded)
-        self.query_one(ConstantsTable).fill(result.bands if result else (), result.constants if result else ())
-        checks = self.query_one(ChecksTable)
-        checks.fill(result.checks if result else (), short_error(run))
-        self.query_one("#check-detail", Static).update(Text(checks.details[0] if checks.details else ""))
+        by_operator = (run.settings or {}).get("excluded_positions_cm1") or () if run is not None else ()
+        lines = self.query_one(LinesTable)
+        lines.fill(result.lines if result else (), excluded, by_operator)
+        self.query_one("#line-detail", Static).update(Text(lines.detail(lines.cursor_row)))
         constants = self.query_one(ConstantsTable)
+        constants.fill(result.bands if result else (), result.constants if result else (), band_regions(run))
         self.query_one("#constant-detail", Static).update(Text(constants.details[0] if constants.details else ""))
+        self.query_one(ChecksTable).fill(result.checks if result else (), short_error(run))
 
     @on(RunDetailLoaded)
     def show_detail(self, message: RunDetailLoaded) -> None:
         if message.run.run_id != self.selected_run_id:
             return
         self.detail = message.run
+        if message.run.run_id in self.runs:  # the freshest record (a decision made meanwhile)
+            self.runs[message.run.run_id] = message.run
+            self.update_summary()
         self.fill_details(message.run)
-        self.query_one(SpectrumPlot).set_lines(self.plot_lines(message.run.run_id))
+        plot = self.query_one(SpectrumPlot)
+        plot.set_lines(self.plot_lines(message.run.run_id))
+        plot.bands = [(label, low, high) for label, (low, high) in band_regions(message.run).items()]
+        waiting = self.spectrum_waiting
+        if waiting is not None and waiting.run_id == message.run.run_id:
+            self.draw_spectrum(waiting)
 
     def plot_lines(self, run_id: int) -> list[PlotLine]:
         run = self.detail if self.detail is not None and self.detail.run_id == run_id else None
@@ -330,17 +422,32 @@ class MainScreen(Screen[None]):
         if message.x is None or message.y is None:
             plot.show_message(message.problem or "no spectrum")
             return
-        previous = self.view_window
-        full = (float(message.x[0]), float(message.x[-1]))
-        keep = previous if previous and full[0] <= previous[0] < previous[1] <= full[1] else None
-        plot.show(message.x, message.y, self.plot_lines(message.run_id), keep)
+        if self.detail is None or self.detail.run_id != message.run_id:
+            self.spectrum_waiting = message  # drawn when the run's lines are here (its view follows them)
+            return
+        self.draw_spectrum(message)
 
-    @on(DataTable.RowHighlighted, "#checks")
-    def check_highlighted(self, message: DataTable.RowHighlighted) -> None:
-        """The highlighted check's whole reason, wrapped (the table cell may be cut off)."""
-        table = self.query_one(ChecksTable)
-        detail = table.details[message.cursor_row] if message.cursor_row < len(table.details) else ""
-        self.query_one("#check-detail", Static).update(Text(detail))
+    def draw_spectrum(self, message: SpectrumLoaded) -> None:
+        """Draw a run's spectrum with its lines, at the view `choose_window` picks."""
+        self.spectrum_waiting = None
+        assert message.x is not None and message.y is not None
+        plot = self.query_one(SpectrumPlot)
+        full = (float(message.x[0]), float(message.x[-1]))
+        lines = self.plot_lines(message.run_id)
+        window, why = choose_window(full, self.view_window, lines)
+        plot.show(message.x, message.y, lines, window)
+        plot.view_reason = why
+
+    @on(DataTable.RowHighlighted, "#lines")
+    def line_highlighted(self, message: DataTable.RowHighlighted) -> None:
+        """The highlighted line in full (the columns left out at 80 columns too)."""
+        self.query_one("#line-detail", Static).update(Text(self.query_one(LinesTable).detail(message.cursor_row)))
+
+    @on(ZoomRequested)
+    def zoom_requested(self, message: ZoomRequested) -> None:
+        """`z` on a line or a band: the plot, zoomed there."""
+        self.action_show_tab("tab-plot")
+        self.query_one(SpectrumPlot).zoom_to(message.centre_cm1, message.span_cm1)
 
     @on(DataTable.RowHighlighted, "#constants")
     def constant_highlighted(self, message: DataTable.RowHighlighted) -> None:
@@ -368,6 +475,11 @@ class MainScreen(Screen[None]):
             if event.path not in self.busy_paths:
                 self.busy_paths.append(event.path)
             self.problems.pop(event.path, None)
+        if isinstance(event, FileWaiting):
+            then = "taken as it is" if event.taken_then else "recorded unreadable"
+            self.waiting[event.path] = f"{event.reason}; {then} after {event.give_up_after_seconds:g} s"
+        elif isinstance(event, (FileSettled, *ENDS_WORK)):
+            self.waiting.pop(event.path, None)
         if isinstance(event, ENDS_WORK) and event.path in self.busy_paths:
             self.busy_paths.remove(event.path)
         if isinstance(event, StationProblem):
@@ -388,16 +500,44 @@ class MainScreen(Screen[None]):
     def decision_recorded(self, message: DecisionRecorded) -> None:
         if message.problem:
             self.notify(escape(safe_text(message.problem)), severity="warning")
+        elif message.over is not None:
+            self.notify(escape(f"run {message.run_id}: {message.action} recorded; {decision_words(message.over)} "
+                               "stays on record too"), timeout=4)
         else:
             self.notify(f"run {message.run_id}: {message.action} recorded", timeout=2)
         self.load_runs()
+        if message.run_id == self.selected_run_id:
+            self.load_detail(message.run_id)
+
+    @on(DecisionConflict)
+    def decision_conflict(self, message: DecisionConflict) -> None:
+        """Someone else decided this run: say who, what and when, and ask before deciding over it."""
+        from tui.screens.modals import ConfirmScreen
+
+        run = self.runs.get(message.run_id)
+        name = safe_text(run.name) if run is not None else f"run {message.run_id}"
+        verb = {"accept": "Accept", "flag": "Flag", "undo": "Undo"}.get(message.action, message.action)
+        question = (f"Run {message.run_id} ({name}) was {decision_words(message.over)}.\n"
+                    f"{verb} it anyway? Both decisions stay on record.")
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self.write_decision(message.run_id, message.action, message.reason, confirmed_over=message.over.event_id)
+            else:
+                self.notify(f"run {message.run_id}: nothing recorded", timeout=2)
+
+        self.load_runs()  # the list shows the other decision at once
+        self.app.push_screen(ConfirmScreen(question), answered)
 
     @on(ReprocessFinished)
     def reprocess_finished(self, message: ReprocessFinished) -> None:
         if message.problem:
             self.notify(escape(safe_text(message.problem)), title=f"redo of run {message.run_id}", severity="error")
             return
-        self.notify(f"run {message.run_id} redone as run {message.new_run_id}", timeout=3)
+        old = self.runs.get(message.run_id)
+        name = safe_text(old.name) if old is not None else "the file"
+        self.notify(escape(f"run {message.run_id} redone: a new version of {name} is run {message.new_run_id} "
+                           f"(run {message.run_id} is kept, marked replaced)"), timeout=4)
         self.jump_to = message.new_run_id
         self.load_runs()
 
@@ -481,6 +621,19 @@ class MainScreen(Screen[None]):
         pane = self.query_one(f"#{tab}", TabPane)
         target = pane.query("SpectrumPlot, DataTable").first()
         target.focus()
+
+    def action_cycle_panes(self, step: int) -> None:
+        """`tab`: run list, plot, lines, constants, checks, and round again (shift+tab back)."""
+        if self.query_one(RunList).has_focus:
+            current = 0
+        else:
+            active = self.query_one(TabbedContent).active
+            current = PANES.index(active) if active in PANES else 0
+        following = PANES[(current + step) % len(PANES)]
+        if following == "runs":
+            self.action_focus_runs()
+        else:
+            self.action_show_tab(following)
 
     def action_focus_runs(self) -> None:
         self.query_one(RunList).focus()

@@ -1,8 +1,10 @@
 """Small dialogs: the reason for a flag, and the changed settings for a redo."""
 from __future__ import annotations
 
+from rich.text import Text
 from textual import on
 from textual.app import ComposeResult
+from textual.binding import Binding
 from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Input, Label, Select, Static
@@ -13,6 +15,34 @@ from processing.station.redo import JOffset, RedoRequest
 from tui import bindings
 
 NO_SHIFT = "none"
+
+
+class ConfirmScreen(ModalScreen[bool]):
+    """A yes/no question: `y` answers yes; `n` or Escape no."""
+
+    BINDINGS = bindings.CONFIRM
+
+    def __init__(self, question: str) -> None:
+        super().__init__()
+        self.question = question
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Static(Text(self.question), id="question")
+            yield Static("y records it · n or Esc leaves things as they are", classes="hint")
+
+    def action_answer(self, yes: bool) -> None:
+        self.dismiss(yes)
+
+
+class RenumberSelect(Select[str]):
+    """The renumber drop-down: Enter redoes, as everywhere in the dialog; space or the arrow
+    keys open the list (and Enter picks from it)."""
+
+    BINDINGS = [
+        Binding("enter", "screen.send", "Redo", show=False),
+        Binding("down,space,up", "show_overlay", "Show list", show=False),
+    ]
 
 
 class FlagReasonScreen(ModalScreen[str | None]):
@@ -96,10 +126,12 @@ class ReprocessScreen(ModalScreen[RedoRequest | None]):
             yield Label(f"Redo {safe_text(self.run.name)} with changed settings", markup=False)
             yield Label("species (comma separated; empty = detect)", classes="field-label")
             yield Input(value=self.species_text, id="species")
-            yield Label("renumber a branch", classes="field-label")
-            yield Select(shift_options(band_keys(self.run)), value=NO_SHIFT, allow_blank=False, id="shift")
+            yield Label("renumber a branch (space opens the list)", classes="field-label")
+            yield RenumberSelect(shift_options(band_keys(self.run)), value=NO_SHIFT, allow_blank=False, id="shift")
             yield Label("exclude lines at cm-1 (marked with x in Lines)", classes="field-label")
             yield Input(value=", ".join(f"{p:.4f}" for p in self.excluded), id="exclude")
+            yield Static(Text("The redo is a new version of the run, with what you changed on record; this run "
+                              "is kept, marked replaced."), classes="hint")
             yield Static("Enter or ctrl+s redoes · Tab next field · Esc cancels", classes="hint")
 
     def on_mount(self) -> None:

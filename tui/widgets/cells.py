@@ -19,15 +19,19 @@ VERDICT_LABELS: dict[str | None, tuple[str, str]] = {
     "warn": ("! WARN", "yellow"),
     "fail": ("✘ FAIL", "bold red"),
 }
+# The run statuses in the words the command line uses (`unreadable`, `failed`), and the two
+# states of a file the station is still on: being analysed, or waiting for the rest of it.
 STATUS_LABELS: dict[str, tuple[str, str]] = {
-    "unreadable": ("✘ UNREAD", "bold red"),
-    "failed": ("✘ ERROR", "bold red"),
-    "busy": ("… BUSY", "cyan"),
+    "unreadable": ("✘ UNREADABLE", "bold red"),
+    "failed": ("✘ FAILED", "bold red"),
+    "busy": ("… WORKING", "cyan"),
+    "waiting": ("… WAITING", "cyan"),
     "problem": ("✘ PROBLEM", "bold red"),
 }
 DECISION_LABELS: dict[str | None, tuple[str, str]] = {
     "accept": ("accepted", "green"),
     "flag": ("FLAGGED", "bold yellow"),
+    "replaced": ("replaced", "dim italic"),  # no decision, and a newer version of the file exists
     None: ("pending", "dim"),
 }
 CHECK_LABELS: dict[str, tuple[str, str]] = {
@@ -47,7 +51,10 @@ def verdict_text(status: str, verdict: str | None) -> Text:
     return Text(label, style=style)
 
 
-def decision_text(decision: str | None) -> Text:
+def decision_text(decision: str | None, superseded: bool = False) -> Text:
+    """The decision as a word; an undecided run that a newer version replaced says "replaced"."""
+    if decision is None and superseded:
+        decision = "replaced"
     label, style = DECISION_LABELS.get(decision, (str(decision), ""))
     return Text(label, style=style)
 

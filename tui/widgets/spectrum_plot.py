@@ -11,6 +11,7 @@ from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
+from rich.markup import escape
 from rich.text import Text
 from textual.reactive import reactive
 from textual.widget import Widget
@@ -28,6 +29,8 @@ _DOT_BITS = np.array([[0x01, 0x02, 0x04, 0x40], [0x08, 0x10, 0x20, 0x80]], dtype
 BRANCH_MARKERS: tuple[tuple[str, str], ...] = (("P", "R"), ("p", "r"), ("<", ">"), ("{", "}"))
 UNASSIGNED_MARKER = "?"
 EXCLUDED_MARKER = "x"
+SATURATED_MARKER = "s"  # on a row of its own under the isotopologues: the line's top is flat (saturated)
+MIN_WIDTH, MIN_HEIGHT = 10, 3  # the least room the plot draws in
 MARKER_STYLES: tuple[str, ...] = ("bold cyan", "bold magenta", "bold yellow", "bold green")
 GUTTER = 7  # characters left of the plot: y tick labels, isotopologue names on marker rows
 
@@ -40,6 +43,7 @@ class PlotLine:
     isotopologue: str | None = None
     branch: str | None = None  # "P" | "R" | None
     excluded: bool = False
+    saturated: bool = False
 
     @classmethod
     def from_result_line(cls, line: Line, excluded: bool = False) -> PlotLine:
@@ -50,7 +54,36 @@ class PlotLine:
             isotopologue=assigned.isotopologue if assigned else None,
             branch=assigned.branch if assigned else None,
             excluded=excluded,
+            saturated=line.saturated,
         )
+
+
+def lines_region(lines: Sequence[PlotLine]) -> tuple[float, float] | None:
+    """(lowest, highest) assigned line, or None when no line is assigned."""
+    positions = [line.position_cm1 for line in lines if line.isotopologue]
+    return (min(positions), max(positions)) if positions else None
+
+
+def choose_window(
+    full: tuple[float, float], previous: tuple[float, float] | None, lines: Sequence[PlotLine]
+) -> tuple[tuple[float, float], str]:
+    """The view of a newly shown run, and why: the zoom kept from the run shown before when
+    it holds most of this run's assigned lines (to compare one region across runs); else this
+    run's own bands (their lines with a margin); else the whole spectrum."""
+    low, high = full
+    assigned = [line.position_cm1 for line in lines if line.isotopologue]
+    if previous is not None and low <= previous[0] < previous[1] <= high:
+        inside = sum(1 for x in assigned if previous[0] <= x <= previous[1])
+        if assigned and inside * 2 >= len(assigned):
+            return previous, "zoom kept"
+    region = lines_region(lines)
+    if region is None:
+        return full, "whole spectrum"
+    margin = max(0.08 * (region[1] - region[0]), 5.0)
+    window = (max(low, region[0] - margin), min(high, region[1] + margin))
+    if window[1] - window[0] >= 0.9 * (high - low):
+        return full, "whole spectrum"
+    return window, "this run's bands"
 
 
 def braille_rows(columns_low: np.ndarray, columns_high: np.ndarray, dot_rows: int) -> list[str]:
@@ -104,7 +137,8 @@ def draw_spectrum(
     visible = [ln for ln in lines if low <= ln.position_cm1 <= high]
     shown_isos = [iso for iso in isotopologues if any(ln.isotopologue == iso for ln in visible)]
     has_unassigned = any(ln.isotopologue is None for ln in visible)
-    marker_rows = len(shown_isos) + (1 if has_unassigned else 0)
+    has_saturated = any(ln.saturated for ln in visible)
+    marker_rows = len(shown_isos) + (1 if has_unassigned else 0) + (1 if has_saturated else 0)
     plot_rows = max(1, height - marker_rows - 1)
 
     def to_column(position: np.ndarray | float, columns: int) -> np.ndarray:
@@ -115,10 +149,21 @@ def draw_spectrum(
 
     out: list[Text] = []
     # Marker rows.
+    saturated_row = marker_rows - 1 if has_saturated else None
     for row_index in range(marker_rows):
         iso = shown_isos[row_index] if row_index < len(shown_isos) else None
         cells = [" "] * plot_width
         styles: list[str | None] = [None] * plot_width
+        if row_index == saturated_row:
+            for line in visible:
+                if line.saturated:
+                    col = int(to_column(line.position_cm1, plot_width))
+                    cells[col], styles[col] = SATURATED_MARKER, "bold"
+            text = Text("sat".ljust(GUTTER), style="dim")
+            for char, style in zip(cells, styles):
+                text.append(char, style=style or "")
+            out.append(text)
+            continue
         for line in visible:
             if line.isotopologue != iso:
                 continue
@@ -218,6 +263,10 @@ class SpectrumPlot(Widget, can_focus=True):
         self._lines: tuple[PlotLine, ...] = ()
         self._message = "no run selected"
         self._loading_run_id: int | None = None
+        self.caption = ""  # which run is drawn, said on the status line
+        self.view_reason = ""  # why the view is what it is when the run was shown ("zoom kept", ...)
+        self.bands: list[tuple[str, float, float]] = []  # (label, low, high) of the run's bands
+        self._band_index = -1
 
     @property
     def full_range(self) -> tuple[float, float] | None:
@@ -237,6 +286,7 @@ class SpectrumPlot(Widget, can_focus=True):
         self._y = np.asarray(y, dtype=float)
         self._loading_run_id = None
         self._lines = tuple(lines)
+        self._band_index = -1
         self.window = window or self.full_range
         self.refresh()
 
@@ -260,17 +310,45 @@ class SpectrumPlot(Widget, can_focus=True):
 
     def render(self) -> Text:
         width, height = self.content_size.width, self.content_size.height
-        if self._x is None or self._y is None or self.window is None or width < 10 or height < 3:
+        if self._x is None or self._y is None or self.window is None:
             return Text(self._message, style="dim")
+        if width < MIN_WIDTH or height < MIN_HEIGHT:
+            return Text(f"too small to draw here ({width}x{height}; needs {MIN_WIDTH}x{MIN_HEIGHT}): "
+                        "enlarge the terminal", style="dim")
         rows = draw_spectrum(self._x, self._y, self._lines, self.window, width, height - 1, self.high_to_low)
         low, high = self.window
         full = self.full_range or self.window
         zoom = (full[1] - full[0]) / max(high - low, 1e-12)
         direction = "high→low" if self.high_to_low else "low→high"
-        status = Text(
-            f"{low:.1f}–{high:.1f} cm-1  {direction}  zoom ×{zoom:.3g}  absorbance"[:width], style="dim"
-        )
-        return Text("\n").join([*rows, status])
+        pieces = [self.caption, f"{low:.1f}–{high:.1f} cm-1", direction, f"zoom ×{zoom:.3g}",
+                  "zoom kept from the run before" if self.view_reason == "zoom kept" else "", "absorbance"]
+        shown = ""
+        for piece in pieces:  # whole pieces only, as many as the width holds
+            if piece and len(shown) + len(piece) + 2 <= width:
+                shown = f"{shown}  {piece}" if shown else piece
+        return Text("\n").join([*rows, Text(shown, style="dim")])
+
+    def zoom_to(self, centre_cm1: float, span_cm1: float) -> None:
+        """Show `span_cm1` about `centre_cm1` (a line, a band), within the spectrum."""
+        full = self.full_range
+        if full is None:
+            return
+        half = min(max(span_cm1 / 2, 0.05), (full[1] - full[0]) / 2)
+        self.window = self._clamped(centre_cm1 - half, centre_cm1 + half)
+
+    def action_next_band(self) -> None:
+        """Zoom to the run's next band (in turn), the whole spectrum after the last."""
+        if not self.bands or self.full_range is None:
+            return
+        self._band_index += 1
+        if self._band_index >= len(self.bands):
+            self._band_index = -1
+            self.window = self.full_range
+            self.notify("whole spectrum", timeout=1.5)
+            return
+        label, low, high = self.bands[self._band_index]
+        self.zoom_to((low + high) / 2, (high - low) * 1.1 + 2.0)
+        self.notify(escape(safe_text(label)), timeout=1.5)
 
     def action_zoom(self, factor: float) -> None:
         full = self.full_range
@@ -293,6 +371,7 @@ class SpectrumPlot(Widget, can_focus=True):
 
     def action_reset_view(self) -> None:
         self.window = self.full_range
+        self.view_reason = ""
 
     def action_flip_axis(self) -> None:
         self.high_to_low = not self.high_to_low
