@@ -16,7 +16,7 @@ from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 from textual.widgets import DataTable, Footer, Static, TabbedContent, TabPane
 
-from processing.result_text import molecules_text, reasons_line, redo_description
+from processing.result_text import reasons_line, redo_description
 from processing.safe_text import safe_text
 from processing.station.events import (
     ClaimResumed,

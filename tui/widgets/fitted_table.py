@@ -87,6 +87,8 @@ class FittedTable(DataTable):
 
     def on_resize(self, event: events.Resize) -> None:
         self._lay_out(event.size.width)
+        if self.row_count:  # a shorter table (the line under it grew): keep the cursor in view
+            self.call_after_refresh(self.move_cursor, row=self.cursor_row, animate=False)
 
     def _lay_out(self, width: int) -> None:
         wanted = self.columns_for(width)

@@ -324,7 +324,6 @@ def z_cell(z: float | None) -> Text:
 
 def band_rows(band: Band) -> list[tuple[str, str]]:
     """The band's rows (key, label): D' and D'' as one row when the fit constrained them equal."""
-    note = d_model_note(band)
     rows = []
     for key, label in BAND_ROWS:
         if key == "D_lower" and band.d_model == "common D":
