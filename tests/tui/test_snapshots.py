@@ -6,6 +6,8 @@ Update after an intended change of the layout: `python -m pytest tests/tui/test_
 from __future__ import annotations
 
 import shutil
+import time
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any, Callable
 
@@ -30,11 +32,29 @@ pytestmark = pytest.mark.skipif(
 SNAPSHOT_ROOT = Path("/tmp/bandwatch-snapshot-lab")
 
 
+@pytest.fixture(autouse=True)
+def utc_clock(monkeypatch: pytest.MonkeyPatch) -> Iterator[None]:
+    """Times are drawn in the local zone: UTC here, so the screens are the same everywhere."""
+    monkeypatch.setenv("TZ", "UTC")
+    time.tzset()
+    yield
+    monkeypatch.undo()
+    time.tzset()
+
+
 @pytest.fixture
 def snapshot_app() -> BandwatchApp:
     shutil.rmtree(SNAPSHOT_ROOT, ignore_errors=True)
     lab = make_lab(SNAPSHOT_ROOT)
-    return BandwatchApp(lab["data"], lab["export"], operator="tester")
+    return BandwatchApp(lab["data"], lab["export"], operator="tester", monochrome=False)
+
+
+@pytest.fixture
+def monochrome_app() -> BandwatchApp:
+    """As a terminal without colour shows it (NO_COLOR, TERM=xterm-mono)."""
+    shutil.rmtree(SNAPSHOT_ROOT, ignore_errors=True)
+    lab = make_lab(SNAPSHOT_ROOT)
+    return BandwatchApp(lab["data"], lab["export"], operator="tester", monochrome=True)
 
 
 def keys(*pressed: str, selected: int | None = None) -> Callable[[Any], Any]:
@@ -89,3 +109,27 @@ def test_flag_dialog_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> Non
 
 def test_redo_dialog_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
     assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("j", "r"))
+
+
+def test_main_screen_without_colour_80x24(snap_compare: Any, monochrome_app: BandwatchApp) -> None:
+    assert snap_compare(monochrome_app, terminal_size=(80, 24), run_before=keys("j", selected=3))
+
+
+def test_checks_without_colour_80x24(snap_compare: Any, monochrome_app: BandwatchApp) -> None:
+    assert snap_compare(monochrome_app, terminal_size=(80, 24), run_before=keys("j", "j", "4", selected=2))
+
+
+def test_lines_pane_120x40(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(120, 40), run_before=keys("j", "j", "2", selected=2))
+
+
+def test_main_screen_60x20(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(60, 20), run_before=keys("j", selected=3))
+
+
+def test_trend_screen_120x40(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(120, 40), run_before=keys("j", "t"))
+
+
+def test_help_screen_scrolled_80x24(snap_compare: Any, snapshot_app: BandwatchApp) -> None:
+    assert snap_compare(snapshot_app, terminal_size=(80, 24), run_before=keys("question_mark", *["j"] * 30))

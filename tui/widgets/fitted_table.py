@@ -31,6 +31,7 @@ class Column:
     min_width: int | None = None
     drop: int = 0
     grow: bool = False
+    fit_content: bool = False  # no wider than its widest cell (file names): room for the others
 
 
 def fit_columns(columns: Sequence[Column], available: int) -> list[tuple[Column, int]]:
@@ -77,7 +78,14 @@ class FittedTable(DataTable):
         self.layout_widths: list[tuple[Column, int]] = []
 
     def columns_for(self, width: int) -> list[tuple[Column, int]]:
-        return fit_columns(self.COLUMNS, max(10, width - SCROLLBAR))
+        columns = [self._fitted(column) if column.fit_content else column for column in self.COLUMNS]
+        return fit_columns(columns, max(10, width - SCROLLBAR))
+
+    def _fitted(self, column: Column) -> Column:
+        """`column` no wider than its widest cell (or label), never under its least width."""
+        widest = max([len(column.label)] + [cells[column.key].cell_len for _, cells in self.row_cells if column.key in cells])
+        width = max(min(column.width, widest), column.min_width or 0)
+        return Column(column.key, column.label, width, min(column.min_width or width, width), column.drop, column.grow)
 
     def shown(self, key: str) -> bool:
         return any(column.key == key for column, _ in self.layout_widths)
@@ -107,10 +115,11 @@ class FittedTable(DataTable):
         """Replace the rows: (row key, cells by column key); cells of hidden columns are kept
         for when the table is wider."""
         self.row_cells = rows
-        if not self.layout_widths:
-            self._lay_out(self.size.width or 80)
-        self.clear()
-        self._add_rows()
+        before = self.layout_widths
+        self._lay_out(self.size.width or 80)
+        if self.layout_widths is before:  # the same layout: only the rows are new
+            self.clear()
+            self._add_rows()
 
     def _add_rows(self) -> None:
         for key, cells in self.row_cells:

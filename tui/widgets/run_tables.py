@@ -50,7 +50,7 @@ class RunList(FittedTable):
     BINDINGS = bindings.TABLE
     COLUMNS = (
         Column("time", "time", 9, drop=3),
-        Column("file", "file", 26, min_width=12),
+        Column("file", "file", 26, min_width=12, fit_content=True),
         Column("version", "v", 2, drop=5),
         Column("species", "species", 9, min_width=7, drop=4),
         Column("verdict", "verdict", 12),
