@@ -56,7 +56,8 @@ def test_reports_and_ledger_of_the_station_are_strict_json(tmp_path: Path, monke
     export, data = tmp_path / "export", tmp_path / "data"
     export.mkdir()
     noiseless_csv(export / "exact.csv")
-    assert main(["watch", str(export), "--data", str(data), "--once", "--plain", "--settle", "0.05", "--workers", "1"]) == 0
+    # 0, or 3 when a run's verdict is FAIL (not station trouble, which is 1)
+    assert main(["watch", str(export), "--data", str(data), "--once", "--plain", "--settle", "0.05", "--workers", "1"]) in (0, 3)
     capsys.readouterr()
     [report] = list((data / "reports").glob("*/result.json"))
     strict_loads(report.read_text())

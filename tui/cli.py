@@ -27,6 +27,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Turn gas-phase FTIR spectra of diatomic molecules into assigned lines, "
         "fitted constants and a run verdict.",
     )
+    parser.add_argument("--version", action="version", version=f"bandwatch {installed_version()}")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, module_name in COMMANDS.items():
         module = importlib.import_module(f"tui.commands.{module_name}")
@@ -36,6 +37,26 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def installed_version() -> str:
+    """The installed package's version (pyproject.toml), or "unknown" when run from a tree
+    that was never installed."""
+    import importlib.metadata
+
+    try:
+        return importlib.metadata.version("bandwatch")
+    except importlib.metadata.PackageNotFoundError:
+        return "unknown (not installed)"
+
+
+NO_FOLDER_HINT = (
+    "No export folder is configured yet. To set up this station:\n"
+    "  bandwatch init --export /path/to/ftir-export   # writes {path}\n"
+    "then `bandwatch` opens the interface on that folder. Or watch a folder now:\n"
+    "  bandwatch watch /path/to/ftir-export\n"
+    "Try it first on simulated data: bandwatch demo"
+)
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -43,11 +64,21 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         if getattr(args, "_run", None) is None:
-            # No command: open the interface on the configured export folder, else show help.
-            args = _configured_watch(parser)
-            if args is None:
+            # No command: open the interface on the configured export folder, else show help
+            # and how to configure one.
+            from processing.station.config import default_config_path, station_config
+
+            configured = station_config(None).export_folder is not None
+            watch = _configured_watch(parser) if configured else None
+            if watch is None:
                 parser.print_help()
+                print()
+                if not configured:
+                    print(NO_FOLDER_HINT.format(path=default_config_path()))
+                else:
+                    print("bandwatch: no terminal here for the interface; `bandwatch watch --plain` prints events")
                 return 0
+            args = watch
         return int(args._run(args) or 0)
     except BandwatchError as error:
         return _one_line(str(error))
@@ -72,10 +103,6 @@ def _one_line(message: str) -> int:
 def _configured_watch(parser: argparse.ArgumentParser) -> argparse.Namespace | None:
     """`bandwatch watch` arguments when a configuration names an export folder and a terminal is there."""
     if not (sys.stdin.isatty() and sys.stdout.isatty()):
-        return None
-    from processing.station.config import station_config
-
-    if station_config(None).export_folder is None:
         return None
     return parser.parse_args(["watch"])
 

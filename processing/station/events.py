@@ -7,6 +7,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from processing.local_time import local_iso
 from processing.safe_text import safe_text
 from processing.station.ledger import now_iso
 
@@ -171,6 +172,7 @@ class StationProblem(StationEvent):
 
 
 def plain_line(event: StationEvent) -> str:
-    """`2026-12-02T14:03:11 processed run 12 v1 sample.csv verdict=pass species=H35Cl`; one
-    line whatever a file name holds (control characters escaped, see `safe_text`)."""
-    return f"{event.at[:19]} {safe_text(event.plain())}"
+    """`2026-12-02T15:03:11+01:00 processed run 12 v1 sample.csv verdict=pass species=H35Cl`:
+    the local time (TZ honoured) with its offset from UTC; one line whatever a file name holds
+    (control characters escaped, see `safe_text`)."""
+    return f"{local_iso(event.at)} {safe_text(event.plain())}"

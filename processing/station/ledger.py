@@ -896,3 +896,26 @@ def trend(conn: sqlite3.Connection, isotopologue: str, quantity: str, band: str 
                    decisions[int(row[1])].action if int(row[1]) in decisions else None)
         for row in rows
     ]
+
+
+def band_quantities(
+    conn: sqlite3.Connection, run_ids: list[int], quantities: tuple[str, ...] = ("origin", "B_upper", "B_lower")
+) -> dict[int, list[tuple[str, str, str, float, float | None]]]:
+    """run_id -> (isotopologue, band, quantity, value, sigma) of its bands' fitted `quantities`,
+    in one query (the day export's band origins and B values)."""
+    if not run_ids:
+        return {}
+    found: dict[int, list[tuple[str, str, str, float, float | None]]] = {}
+    for start in range(0, len(run_ids), 500):  # SQLite's limit on bound parameters
+        chunk = run_ids[start:start + 500]
+        marks = ",".join("?" * len(chunk))
+        names = ",".join("?" * len(quantities))
+        rows = conn.execute(
+            f"SELECT run_id, isotopologue, band, quantity, value, sigma FROM quantities"
+            f" WHERE run_id IN ({marks}) AND band != '' AND quantity IN ({names}) ORDER BY rowid",
+            [*chunk, *quantities],
+        ).fetchall()
+        for row in rows:
+            found.setdefault(int(row[0]), []).append(
+                (row[1], row[2], row[3], float(row[4]), None if row[5] is None else float(row[5])))
+    return found

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import os
 import re
-import tempfile
+import secrets
 from dataclasses import replace
 from pathlib import Path
 
@@ -26,11 +26,18 @@ def report_folder(data_dir: str | Path, run_id: int, path: str) -> Path:
     return Path(data_dir) / "reports" / f"{run_id}-{stem}"
 
 
-def _write_atomic(path: Path, text: str) -> None:
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=".", suffix=".tmp")
+REPORT_MODE = 0o666  # before the umask: 0644 under the usual 022, so others in the lab can read the reports
+
+
+def _write_atomic(path: Path, text: str | bytes) -> None:
+    """Write under a temporary name in the same folder, then rename over `path`. The file is
+    created with REPORT_MODE through the umask, as any file a program writes (a temporary
+    file's private 0600 would keep the rest of the lab out)."""
+    temporary = path.parent / f".{path.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp"
+    handle = os.open(temporary, os.O_WRONLY | os.O_CREAT | os.O_EXCL, REPORT_MODE)
     try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="") as stream:
-            stream.write(text)
+        with os.fdopen(handle, "wb") as stream:
+            stream.write(text.encode("utf-8") if isinstance(text, str) else text)
         os.replace(temporary, path)
     except BaseException:
         if os.path.exists(temporary):

@@ -12,7 +12,7 @@ from station_files import spectrum_csv, write_file
 
 from tui.cli import main
 
-PLAIN_LINE = re.compile(r"^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d \S")
+PLAIN_LINE = re.compile(r"^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d[+-]\d\d:\d\d \S")  # local time with its offset
 
 
 @pytest.fixture()
@@ -30,7 +30,7 @@ def _processed_folder(isolated: Path, capsys: pytest.CaptureFixture[str]) -> tup
     write_file(export / "bad.csv", "nothing here\n", mtime=1_000_001)
     code = main(["watch", str(export), "--data", str(data), "--once", "--plain", "--settle", "0.05", "--workers", "1"])
     out = capsys.readouterr().out
-    assert code == 0
+    assert code == 3  # all recorded, but bad.csv is unreadable (and a.csv, one line, fails its checks)
     return export, data, out
 
 
@@ -38,7 +38,8 @@ def test_watch_plain_prints_one_line_per_event(isolated: Path, capsys: pytest.Ca
     _, _, out = _processed_folder(isolated, capsys)
     lines = out.splitlines()
     assert lines and all(PLAIN_LINE.match(line) for line in lines)
-    assert any(re.search(r" processed run 1 v1 a\.csv verdict=\S+ species=\S+$", line) for line in lines)
+    # the verdict, then its main reasons (this one-line spectrum leaves checks not assessed)
+    assert any(re.search(r" processed run 1 v1 a\.csv verdict=\S+ species=\S+ reasons=.*n/a: ", line) for line in lines)
     assert any(re.search(r" unreadable run 2 v1 bad\.csv error=.*bad\.csv", line) for line in lines)
     assert lines[-1].endswith(" stopped")
 
@@ -54,7 +55,10 @@ def test_ledger_list_json_show_decide_export(isolated: Path, capsys: pytest.Capt
         assert key in rows[0]
 
     assert main(["ledger", "flag", "1", "--reason", "baseline tilt", "--operator", "ana", "--data", str(data)]) == 0
-    assert main(["ledger", "accept", "1", "--operator", "ben", "--data", str(data)]) == 0
+    # over ana's flag: refused without a terminal to ask on, recorded with --yes (both kept)
+    assert main(["ledger", "accept", "1", "--operator", "ben", "--data", str(data)]) == 1
+    assert "run 1 was flagged by ana" in capsys.readouterr().err
+    assert main(["ledger", "accept", "1", "--operator", "ben", "--yes", "--data", str(data)]) == 0
     assert main(["ledger", "undo", "1", "--operator", "ben", "--data", str(data)]) == 0
     assert "now flag" in capsys.readouterr().out.splitlines()[-1]
     assert main(["ledger", "list", "--json", "--data", str(data)]) == 0
@@ -63,14 +67,16 @@ def test_ledger_list_json_show_decide_export(isolated: Path, capsys: pytest.Capt
 
     assert main(["ledger", "show", "1", "--data", str(data)]) == 0
     shown = capsys.readouterr().out
-    assert "decision   flag (baseline tilt) by ana" in shown
+    assert "decision   flag by ana: baseline tilt" in shown and "()" not in shown
     assert [line.split()[2] for line in shown.splitlines() if re.match(r"\s+\d{4}-", line)] == ["flag", "accept", "undo"]
 
     target = isolated / "export.csv"
     assert main(["ledger", "export", str(target), "--data", str(data)]) == 0
     table = list(csv.DictReader(io.StringIO(target.read_text())))
     assert [row["run_id"] for row in table] == ["1", "2"]
-    assert table[0]["decision"] == "flag" and table[0]["decision_history"].count(" by ") == 3
+    history = table[0]["decision_history"]
+    assert table[0]["decision"] == "flag" and history.count("; ") == 2  # three events
+    assert "accept by ben: over flag by ana (event 1)" in history  # both on record
     assert main(["ledger", "export", "--format", "json", "--data", str(data)]) == 0
     exported = json.loads(capsys.readouterr().out)
     assert [e["action"] for e in exported["runs"][0]["decisions"]] == ["flag", "accept", "undo"]
@@ -94,7 +100,7 @@ def test_init_writes_a_configuration_watch_accepts(isolated: Path, capsys: pytes
     assert main(["init", str(target)]) == 1
     assert "already exists" in capsys.readouterr().err
     write_file(export / "a.csv", spectrum_csv(150))
-    assert main(["watch", "--config", str(target), "--once", "--plain"]) == 0
+    assert main(["watch", "--config", str(target), "--once", "--plain"]) in (0, 3)  # 3: verdict FAIL
     assert " processed run 1 v1 a.csv " in capsys.readouterr().out
     assert main(["ledger", "list", "--config", str(target)]) == 0  # data folder from the file
     assert "a.csv" in capsys.readouterr().out

@@ -8,12 +8,14 @@ with --plain (or without a terminal) the station's events are printed one per li
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 import tempfile
 import threading
 import time
+from collections.abc import Callable
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from processing.station.events import StationEvent
@@ -73,6 +75,7 @@ def run(args: argparse.Namespace) -> int:
               file=sys.stderr)
         once = True
     print(f"demo: export folder {export}\ndemo: data folder   {data}", file=sys.stderr if not plain else sys.stdout)
+    previous = _on_hangup(_interrupt)  # a closed terminal (SIGHUP) or a kill (SIGTERM) still cleans up
     try:
         if plain:
             code = _run_plain(config, replay, len(sources), once, args.exit_after)
@@ -83,10 +86,29 @@ def run(args: argparse.Namespace) -> int:
         return code
     finally:
         replay.stop()
+        _restore(previous)
         if args.keep:
             print(f"demo: kept {root}", file=sys.stderr)
         else:
             shutil.rmtree(root, ignore_errors=True)
+
+
+HANGUP_SIGNALS = (signal.SIGHUP, signal.SIGTERM)
+
+
+def _interrupt(signum: int, frame: object) -> None:
+    """As Ctrl-C: the demo's `finally` stops the station and removes its temporary folders."""
+    raise KeyboardInterrupt
+
+
+def _on_hangup(handler: Callable[[int, object], None]) -> dict[int, Any]:
+    """Install `handler` for SIGHUP and SIGTERM; the handlers they had before."""
+    return {number: signal.signal(number, handler) for number in HANGUP_SIGNALS}
+
+
+def _restore(previous: dict[int, Any]) -> None:
+    for number, handler in previous.items():
+        signal.signal(number, handler)
 
 
 class _Countdown:
@@ -167,7 +189,13 @@ def _run_interface(
     if once:
         # A separate thread, so the station's threads never wait on the interface's loop.
         threading.Thread(target=_exit_when_done, args=(app, countdown, replay, stations), daemon=True).start()
-    app.run()
+    # A closed terminal: leave the interface as `ctrl+q` does (the station stops on the way out).
+    _on_hangup(lambda signum, frame: app.exit(1))
+    try:
+        app.run()
+    finally:
+        for station in stations:
+            station.stop()  # already stopped when the interface closed normally
     if once and not countdown.done.is_set():
         return 1
     return 0

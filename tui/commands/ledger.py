@@ -16,7 +16,19 @@ from tui.commands.watch import add_station_arguments
 if TYPE_CHECKING:
     from processing.station.ledger import DecisionEvent, RunRecord
 
-HELP = "list, show, export runs in the ledger; accept, flag or undo a decision"
+HELP = "list, show, export runs in the ledger (also a day's runs for the lab's records); accept, flag or undo a decision"
+EXPORT_FORMATS = {".csv": "csv", ".json": "json"}
+
+
+def positive_int(text: str) -> int:
+    """An argparse type: a whole number of at least 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
+    return value
 
 CSV_COLUMNS = (
     "run_id", "path", "sha256", "version", "status", "verdict", "decision", "decision_reason",
@@ -30,7 +42,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     listing = actions.add_parser("list", help="runs, newest first")
     add_station_arguments(listing)
     listing.add_argument("--json", action="store_true", help="one JSON object per run, one per line")
-    listing.add_argument("--limit", type=int, default=None, help="at most this many runs")
+    listing.add_argument("--limit", type=positive_int, default=None, help="at most this many runs (1 or more)")
     listing.add_argument("--latest", action="store_true", help="only the newest version of each file")
 
     show = actions.add_parser("show", help="one run and its decision history")
@@ -43,19 +55,32 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     export.add_argument("output", nargs="?", default="-", metavar="PATH",
                         help="file to write (default: standard output)")
     export.add_argument("--format", choices=("csv", "json"), default=None,
-                        help="default: json for a .json PATH, else csv")
+                        help="default: from PATH's extension (.csv or .json; another is refused); csv on standard output")
 
-    for name, text in (("accept", "accept a run"), ("flag", "flag a run for a second look")):
+    day = actions.add_parser("day", help="a day's runs for the lab's records: one row per run with file, time, "
+                             "verdict, main reasons, decision, band origins and B values with sigmas")
+    add_station_arguments(day)
+    day.add_argument("day", nargs="?", default=None, metavar="DATE",
+                     help="YYYY-MM-DD in the local zone (TZ honoured; default: today)")
+    day.add_argument("-o", "--output", default="-", metavar="PATH", help="file to write (default: standard output)")
+    day.add_argument("--format", choices=("csv", "json"), default=None,
+                     help="default: from PATH's extension (.csv or .json), csv on standard output")
+
+    for name, text in (("accept", "accept a run"), ("flag", "flag a run for a second look (needs --reason)")):
         decide = actions.add_parser(name, help=text)
         add_station_arguments(decide)
         decide.add_argument("run_id", type=int, metavar="RUN")
-        decide.add_argument("--reason", default="", help="why (recorded with the decision)")
+        decide.add_argument("--reason", default="", help="why (recorded with the decision; required for a flag)")
         decide.add_argument("--operator", default=None, help="who (default: configuration, else login name)")
+        decide.add_argument("--yes", action="store_true",
+                            help="decide over another person's decision without asking (both stay on record)")
 
     undo = actions.add_parser("undo", help="revert a run's latest decision (recorded as a new event)")
     add_station_arguments(undo)
     undo.add_argument("run_id", type=int, metavar="RUN")
     undo.add_argument("--operator", default=None, help="who (default: configuration, else login name)")
+    undo.add_argument("--yes", action="store_true",
+                      help="undo another person's decision without asking (both stay on record)")
 
 
 def run_public(record: RunRecord) -> dict[str, Any]:
@@ -76,6 +101,8 @@ def run_public(record: RunRecord) -> dict[str, Any]:
         "species": list(record.species),
         "error": record.error,
         "reprocessed_from": record.reprocessed_from,
+        "reasons": list(record.reasons),
+        "superseded_by": record.superseded_by,
     }
 
 
@@ -90,7 +117,15 @@ def run(args: argparse.Namespace) -> int:
 
     config = station_config(args.config, args.data)
     data_dir = config.data_folder.expanduser()
-    reading = args.action in ("list", "show", "export")
+    if args.action == "flag" and not args.reason.strip():
+        print("bandwatch: ledger flag needs a reason: --reason TEXT (why the run needs a second look)", file=sys.stderr)
+        return 2
+    if args.action in ("export", "day"):
+        problem = _format_problem(args)
+        if problem:
+            print(f"bandwatch: {problem}", file=sys.stderr)
+            return 2
+    reading = args.action in ("list", "show", "export", "day")
     if not reading and not ledger.ledger_path(data_dir).exists():
         raise ledger.LedgerError(f"{data_dir}: no ledger here yet (run `bandwatch watch` first, or give --data)")
     conn = ledger.open_ledger(data_dir, read_only=reading)
@@ -101,6 +136,8 @@ def run(args: argparse.Namespace) -> int:
             return _show(conn, args)
         if args.action == "export":
             return _export(conn, args)
+        if args.action == "day":
+            return _day(conn, args)
         return _decide(conn, args, config.operator)
     finally:
         conn.close()
@@ -109,21 +146,51 @@ def run(args: argparse.Namespace) -> int:
 def _list(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import list_runs
 
+    from processing.local_time import local_iso
+    from processing.result_text import fitted_table, reasons_line
+    from tui.commands.process import table_width
+
     runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False)
     if args.json:
         for record in runs:
             sys.stdout.write(strict_json.dumps(run_public(record)) + "\n")
         return 0
-    rows = [[str(r.run_id), f"v{r.version}", r.status, r.verdict or "-", r.decision or "-",
-             safe_text(",".join(r.species) or "-"), (r.processed_at or "")[:19], safe_text(r.name)] for r in runs]
-    sys.stdout.write(_table(["run", "ver", "status", "verdict", "decision", "species", "processed", "file"], rows))
+    rows = [[str(r.run_id), f"v{r.version}", r.status, r.verdict or "-", _decision_word(r),
+             safe_text(",".join(r.species) or "-"), local_iso(r.processed_at), safe_text(r.name),
+             safe_text(reasons_line(r.reasons) if r.status == "processed" else (r.error or ""))] for r in runs]
+    headers = ["run", "ver", "status", "verdict", "decision", "species", "processed", "file", "reasons"]
+    sys.stdout.write(fitted_table(headers, rows, width=table_width()) + "\n")
     return 0
 
 
-def _table(headers: list[str], rows: list[list[str]]) -> str:
-    widths = [max([len(h)] + [len(row[i]) for row in rows]) for i, h in enumerate(headers)]
-    lines = ["  ".join(cell.ljust(w) for cell, w in zip(line, widths)).rstrip() for line in [headers] + rows]
-    return "\n".join(lines) + "\n"
+def _decision_word(record: RunRecord) -> str:
+    """The decision; "replaced" for an undecided run a newer version of the file replaced."""
+    if record.decision:
+        return record.decision
+    return "replaced" if record.superseded_by is not None else "-"
+
+
+def _format_problem(args: argparse.Namespace) -> str | None:
+    """Why an export's PATH cannot be written as asked (an extension that is neither .csv nor
+    .json, without --format), or None."""
+    from pathlib import Path
+
+    output = args.output
+    if output == "-" or args.format is not None:
+        return None
+    extension = Path(output).suffix.lower()
+    if extension not in EXPORT_FORMATS:
+        return (f"{output}: bandwatch writes .csv or .json, not {extension or 'a file without an extension'}; "
+                "name the file .csv or .json, or give --format csv|json")
+    return None
+
+
+def _export_format(args: argparse.Namespace) -> str:
+    from pathlib import Path
+
+    if args.format is not None:
+        return str(args.format)
+    return EXPORT_FORMATS.get(Path(args.output).suffix.lower(), "csv")
 
 
 def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
@@ -142,24 +209,40 @@ def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
         }
         sys.stdout.write(strict_json.dumps(payload) + "\n")
         return 0
+    from processing.local_time import local_iso
+    from processing.result_text import reasons_line, redo_description, status_word
+
+    decision = _decision_word(record)
+    if record.decision:
+        decision += f" by {record.operator or '?'}" + (f": {record.decision_reason}" if record.decision_reason else "")
+    verdict = (record.verdict or "-").upper()
+    if record.reasons:
+        verdict += f"  ({reasons_line(record.reasons)})"
     out = [
         f"run {record.run_id} v{record.version}  {record.path}",
         f"  sha256     {record.sha256 or '-'}",
         f"  status     {record.status}",
-        f"  verdict    {record.verdict or '-'}",
+        f"  verdict    {verdict}",
         f"  species    {', '.join(record.species) or '-'}",
-        f"  received   {record.received_at}",
-        f"  processed  {record.processed_at or '-'}",
-        f"  decision   {record.decision or '-'}"
-        + (f" ({record.decision_reason}) by {record.operator or '?'}" if record.decision else ""),
+        f"  received   {local_iso(record.received_at)}",
+        f"  processed  {local_iso(record.processed_at)}",
+        f"  decision   {decision}",
     ]
     if record.error:
         out.append(f"  error      {record.error}")
     if record.reprocessed_from is not None:
-        out.append(f"  reprocessed from run {record.reprocessed_from} with {json.dumps(record.settings)}")
+        out.append(f"  redo of run {record.reprocessed_from}: {redo_description(record.settings)}")
+        out.append(f"             (settings {json.dumps(record.settings, sort_keys=True)})")
+    if record.superseded_by is not None:
+        out.append(f"  replaced by run {record.superseded_by} (a newer version of the file)")
+    checks = record.result.checks if record.result is not None else ()
+    if checks:
+        out.append("  checks:")
+        for check in checks:
+            out.append(f"    {status_word(check.status).upper():<12} {check.name}: {check.detail}")
     out.append("  decision history:" if history else "  decision history: none")
     for event in history:
-        out.append(f"    {event.at[:19]}  #{event.event_id}  {event.action:<6}  {event.operator or '?'}  {event.reason}")
+        out.append(f"    {local_iso(event.at)}  #{event.event_id}  {event.action:<6}  {event.operator or '?'}  {event.reason}")
     sys.stdout.write("\n".join(safe_text(line) for line in out) + "\n")  # paths, errors, reasons
     return 0
 
@@ -171,7 +254,7 @@ def _export(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     events: dict[int, list[Any]] = {}
     for event in all_decisions(conn):
         events.setdefault(event.run_id, []).append(event)
-    chosen = args.format or ("json" if str(args.output).lower().endswith(".json") else "csv")
+    chosen = _export_format(args)
     if chosen == "json":
         text = strict_json.dumps(
             {"runs": [run_public(r) | {"decisions": [_event_public(e) for e in events.get(r.run_id, [])]}
@@ -200,7 +283,37 @@ def _export(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
         except OSError as error:
             print(f"bandwatch: {args.output}: cannot write ({error.strerror or error})", file=sys.stderr)
             return 1
-        print(f"wrote {len(runs)} runs to {args.output}", file=sys.stderr)
+        print(f"wrote {len(runs)} runs as {chosen.upper()} to {args.output}", file=sys.stderr)
+    return 0
+
+
+def _day(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+    """One row per run received on the local day (the newest version of each file)."""
+    from datetime import date
+
+    from processing.station.day_export import day_csv, day_json, day_rows, runs_of_day
+    from processing.station.ledger import band_quantities, list_runs
+
+    day = args.day or date.today().isoformat()
+    try:
+        date.fromisoformat(day)
+    except ValueError:
+        print(f"bandwatch: {day!r} is not a date (YYYY-MM-DD)", file=sys.stderr)
+        return 2
+    runs = runs_of_day(list_runs(conn, latest_only=True, with_result=False), day)
+    rows = day_rows(runs, band_quantities(conn, [run.run_id for run in runs]))
+    chosen = _export_format(args)
+    text = day_json(day, rows) if chosen == "json" else day_csv(rows)
+    if args.output == "-":
+        sys.stdout.write(text)
+        return 0
+    try:
+        with open(args.output, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+    except OSError as error:
+        print(f"bandwatch: {args.output}: cannot write ({error.strerror or error})", file=sys.stderr)
+        return 1
+    print(f"wrote {len(rows)} runs of {day} as {chosen.upper()} to {args.output}", file=sys.stderr)
     return 0
 
 
@@ -218,24 +331,47 @@ def _operator(given: str | None, configured: str) -> str:
 
 
 def _decide(conn: sqlite3.Connection, args: argparse.Namespace, configured_operator: str) -> int:
-    from processing.station.ledger import LedgerError, get_run, record_decision, undo_last_decision
+    """Accept, flag or undo. Over another person's decision only when confirmed: --yes, or
+    `y` at the question on a terminal; without a terminal it is refused, saying why."""
+    from processing.local_time import local_iso
+    from processing.station.ledger import LedgerError, decide, get_run
 
     operator = _operator(args.operator, configured_operator)
-    if get_run(conn, args.run_id) is None:
+    if get_run(conn, args.run_id, with_result=False) is None:
         print(f"bandwatch: run {args.run_id} is not in the ledger", file=sys.stderr)
         return 1
+    reason = getattr(args, "reason", "")
     try:
-        if args.action == "undo":
-            event = undo_last_decision(conn, args.run_id, operator)
-            if event is None:
-                print(f"bandwatch: run {args.run_id} has no decision to undo", file=sys.stderr)
+        decided = decide(conn, args.run_id, args.action, reason, operator)
+        if decided.event is None and decided.over is not None:
+            other = decided.over
+            said = (f"run {args.run_id} was {other.action}ged" if other.action == "flag" else
+                    f"run {args.run_id} was {other.action}ed") + (
+                f" by {other.operator or 'someone'} at {local_iso(other.at)}" + (f": {other.reason}" if other.reason else ""))
+            if not (args.yes or _confirmed(f"{safe_text(said)}\n{args.action} it anyway? Both stay on record. [y/N] ")):
+                print(f"bandwatch: {safe_text(said)}; nothing recorded (give --yes to {args.action} it anyway; "
+                      "both decisions stay on record)", file=sys.stderr)
                 return 1
-        else:
-            event = record_decision(conn, args.run_id, args.action, args.reason, operator)
+            decided = decide(conn, args.run_id, args.action, reason, operator, confirmed_over=other.event_id)
+        event = decided.event
+        if event is None:
+            print(f"bandwatch: run {args.run_id} has no decision to undo", file=sys.stderr)
+            return 1
     except LedgerError as error:
         print(f"bandwatch: {error}", file=sys.stderr)
         return 1
-    current = get_run(conn, args.run_id)
+    current = get_run(conn, args.run_id, with_result=False)
     state = current.decision if current and current.decision else "no decision"
-    print(f"run {args.run_id}: {event.action} recorded (event {event.event_id}); now {state}")
+    print(safe_text(f"run {args.run_id}: {event.action} recorded (event {event.event_id}); now {state}"))
     return 0
+
+
+def _confirmed(question: str) -> bool:
+    """Ask on the terminal; False without one (a script decides with --yes)."""
+    if not (sys.stdin.isatty() and sys.stderr.isatty()):
+        return False
+    print(question, end="", file=sys.stderr, flush=True)
+    try:
+        return input().strip().lower() in ("y", "yes")
+    except EOFError:
+        return False

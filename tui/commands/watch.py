@@ -97,25 +97,30 @@ def run(args: argparse.Namespace) -> int:
 
 
 ONCE_PATIENCE_SECONDS = 120.0  # `--once`: how long ledger trouble (a lock, a full disk) is waited out
+EXIT_RUN_FAILED = 3  # `--once`: every file recorded, but a run's verdict is FAIL or its file unreadable
 
 
 def run_plain(config: StationConfig, once: bool) -> int:
     """Run the station, printing one line per event, until Ctrl-C (or idle with `once`).
 
     Exit status 1 when the station stopped itself (its data folder went away) and, with
-    `once`, when a run failed or a file could not be recorded (ledger trouble that lasted
-    longer than ONCE_PATIENCE_SECONDS)."""
+    `once`, when an analysis stopped (crashed, hung, ran out of memory) or a file could not be
+    recorded (ledger trouble that lasted longer than ONCE_PATIENCE_SECONDS); with `once`,
+    EXIT_RUN_FAILED when all was recorded but a run's verdict is FAIL or its file unreadable."""
     import signal
     import threading
 
-    from processing.station.events import RunFailed, StationEvent, plain_line
+    from processing.station.events import RunFailed, RunProcessed, StationEvent, plain_line
     from processing.station.station import Station
 
     failures = 0
+    failed_runs = 0
 
     def on_event(event: StationEvent) -> None:
-        nonlocal failures
-        failures += isinstance(event, RunFailed)
+        nonlocal failures, failed_runs
+        # a process function may also return a "failed" result, announced as RunProcessed
+        failures += isinstance(event, RunFailed) or (isinstance(event, RunProcessed) and event.status == "failed")
+        failed_runs += isinstance(event, RunProcessed) and (event.status == "unreadable" or event.verdict == "fail")
         sys.stdout.write(plain_line(event) + "\n")
         sys.stdout.flush()
 
@@ -140,4 +145,6 @@ def run_plain(config: StationConfig, once: bool) -> int:
         print(f"bandwatch: printing the station's events failed: {station.consumer_failure}", file=sys.stderr)
     if station.halted is not None:
         return 1
-    return 1 if once and (failures or station.not_recorded) else 0
+    if once and (failures or station.not_recorded):
+        return 1
+    return EXIT_RUN_FAILED if once and failed_runs else 0
