@@ -154,10 +154,22 @@ class BandwatchApp(App[int]):
 
         return redo_here(self.config, run_id, request, self.process_function)
 
-    def export_report(self, run_id: int) -> tuple[str | None, str | None]:
-        from processing.station.reports import export_run_report
+    def export_report(self, run_id: int) -> tuple[str | None, str | None, str | None]:
+        """Write the run's report files and its figure beside them: (folder, problem, what
+        became of the figure: its path, or why it was not drawn)."""
+        from processing.errors import BandwatchError
+        from processing.station.reports import FIGURE_NAME, export_run_report, write_run_figure
 
-        return export_run_report(self.data_dir, run_id)
+        folder, problem = export_run_report(self.data_dir, run_id)
+        if folder is None:
+            return folder, problem, None
+        try:
+            figure = str(write_run_figure(self.data_dir, run_id, Path(folder) / FIGURE_NAME, self.export_dir))
+        except BandwatchError as error:
+            figure = f"figure not drawn: {error}"
+        except OSError as error:
+            figure = f"figure not written: {error.strerror or error}"
+        return folder, problem, figure
 
 
 def monochrome_terminal(environ: Mapping[str, str] | None = None) -> bool:

@@ -72,11 +72,12 @@ class ReprocessFinished(Message):
 class ReportExported(Message):
     """A run's report was written to `path` (or could not be, with the reason)."""
 
-    def __init__(self, run_id: int, path: str | None, problem: str | None = None) -> None:
+    def __init__(self, run_id: int, path: str | None, problem: str | None = None, figure: str | None = None) -> None:
         super().__init__()
         self.run_id = run_id
         self.path = path
         self.problem = problem
+        self.figure = figure  # the figure's path, or why it was not drawn
 
 
 class HistoryLoaded(Message):

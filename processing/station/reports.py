@@ -4,6 +4,8 @@ DATA/reports/<run_id>-<file stem>/ holds
     result.json   the public result object, as `bandwatch process --json` prints it
     lines.csv     one row per line found (position, sigma, height, width, assignment, obs-calc)
     summary.md    file, sha256, verdict, bands with their constants, checks
+    report.txt    (written on request: `e`, `bandwatch report`) the run with its decision trail
+    figure.svg    (on request, with the figures extra) spectrum with assignments, residuals, trend
 Written atomically (temporary file in the same folder, then rename); never in the export folder.
 """
 from __future__ import annotations
@@ -17,7 +19,9 @@ from pathlib import Path
 from processing.result_text import LINE_COLUMNS, lines_csv, summary_markdown
 from processing.results import RunResult, to_json
 
-__all__ = ["LINE_COLUMNS", "export_run_report", "lines_csv", "report_folder", "summary_markdown", "write_reports"]
+__all__ = ["LINE_COLUMNS", "export_run_report", "lines_csv", "report_folder", "summary_markdown", "write_reports",
+           "write_run_figure"]
+FIGURE_NAME = "figure.svg"  # beside report.txt when `e` writes a run's report (with the figures extra)
 
 
 
@@ -80,3 +84,46 @@ def export_run_report(data_dir: str | Path, run_id: int) -> tuple[str | None, st
     except OSError as error:
         return None, f"{folder}: cannot write the report ({error.strerror or error})"
     return str(folder), None
+
+
+def write_run_figure(data_dir: str | Path, run_id: int, target: str | Path,
+                     export_folder: str | Path | None = None) -> Path:
+    """Write run `run_id`'s figure (`processing.figures`) to `target` (.svg or .png): its
+    spectrum as analysed with the assignment markers, the residuals of each band, and its
+    main band's origin over the ledger's runs. Never into the export folder (the run's file's
+    folder, or `export_folder`). Raises BandwatchError (FiguresUnavailable without matplotlib)."""
+    from processing.errors import BandwatchError
+    from processing.figures import FigureInput, TrendValue, figure_format, figure_title, write_figure
+    from processing.station.ledger import get_run, open_ledger, trend
+    from processing.station.run_spectrum import read_run_spectrum
+
+    figure_format(target)  # a wrong extension is said before anything is read
+    conn = open_ledger(data_dir)
+    try:
+        run = get_run(conn, run_id)
+        if run is None:
+            raise BandwatchError(f"run {run_id} is not in the ledger")
+        folders = [Path(run.path).resolve().parent] + ([Path(export_folder).resolve()] if export_folder else [])
+        where = Path(target).resolve()
+        if any(where == folder or folder in where.parents for folder in folders):
+            raise BandwatchError(f"{target}: inside the export folder {folders[-1]}; bandwatch never writes there")
+        result = run.result
+        if result is None:
+            raise BandwatchError(f"run {run_id} ({run.name}) is {run.status}: no result to draw")
+        points, reference, label = [], None, ""
+        main = max(result.bands, key=lambda band: band.n_lines, default=None)
+        if main is not None:
+            label = f"{main.isotopologue} {main.band} origin / cm-1"
+            comparison = main.reference.get("origin")
+            reference = comparison.handbook_value if comparison is not None else None
+            points = [TrendValue(p.processed_at, p.value, p.sigma, p.decision == "flag", p.verdict == "fail",
+                                 p.run_id == run_id)
+                      for p in trend(conn, main.isotopologue, "origin", main.band)]
+    finally:
+        conn.close()
+    spectrum = read_run_spectrum(run, data_dir)
+    return write_figure(target, FigureInput(
+        title=figure_title(run.run_id, run.version, run.name, result), result=result,
+        x=spectrum.x, y=spectrum.y, spectrum_note=spectrum.problem,
+        trend_label=label, trend=points, trend_reference=reference,
+    ))

@@ -261,6 +261,8 @@ async def test_export_writes_the_report_outside_the_export_folder(lab: dict[str,
     assert len(reports) == 1
     text = reports[0].read_text(encoding="utf-8")
     assert "hcl_cell_03.csv" in text and "accept" in text and "H35Cl 1-0 R(3)" in text
+    figure = reports[0].with_name("figure.svg").read_text(encoding="utf-8")  # the figure beside it
+    assert "hcl_cell_03.csv" in figure and ">R(3)<" in figure
     assert sorted(p.name for p in lab["export"].iterdir()) == [
         "empty_scan.csv", "hcl_cell_01.csv", "hcl_cell_02.csv", "hcl_cell_03.csv"
     ]

@@ -5,7 +5,6 @@ Ledger reads and writes, file reads and reprocessing run in thread workers that 
 """
 from __future__ import annotations
 
-from pathlib import Path
 from typing import TYPE_CHECKING
 
 from rich.markup import escape
@@ -89,15 +88,6 @@ def band_regions(run: RunRecord | None) -> dict[str, tuple[float, float]]:
         low, high = regions.get(key, (x, x))
         regions[key] = (min(low, x), max(high, x))
     return regions
-
-
-def file_changed_text(run: RunRecord, now: str | None) -> str:
-    """The plot's message when a run's file no longer holds the version that was analysed."""
-    return safe_text(
-        f"{run.name} has changed since run {run.run_id} analysed it (sha256 {str(now)[:12]}… now, "
-        f"{str(run.sha256)[:12]}… then): not drawn with that run's markers; redo the run (r) or wait "
-        "for the station to record the new version"
-    )
 
 
 class MainScreen(Screen[None]):
@@ -243,36 +233,12 @@ class MainScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, group="spectrum", exit_on_error=False)
     def load_spectrum(self, run: RunRecord) -> None:
-        """The run's spectrum for the plot, re-read with the station's limits: only a processed
-        run's file, only a regular file and never one in the data folder, through the same
-        bounded readers (a few bytes cannot make this process allocate gigabytes); and only the
-        version the run analysed (its sha256): a file rewritten since is said so, never drawn
-        under the old version's markers."""
-        from processing.errors import SpectrumFileError
-        from processing.readers import read_any
-        from processing.regular_files import ReadPolicy
-        from processing.spectrum import Spectrum
+        """The run's spectrum for the plot: only the version the run analysed
+        (`processing.station.run_spectrum`)."""
+        from processing.station.run_spectrum import read_run_spectrum
 
-        run_id, path = run.run_id, run.path
-        if run.status != "processed":
-            self.post_message(SpectrumLoaded(run_id, None, None, safe_text(run.error or f"{run.status}: nothing to draw")))
-            return
-        policy = ReadPolicy(forbidden=(str(Path(self.bw.data_dir).resolve()),))
-        try:
-            data = read_any(path, policy=policy)
-        except SpectrumFileError as problem:
-            self.post_message(SpectrumLoaded(run_id, None, None, str(problem)))
-            return
-        except MemoryError:
-            self.post_message(SpectrumLoaded(run_id, None, None, f"{safe_text(Path(path).name)} is too large to draw here"))
-            return
-        if run.sha256 is not None and data.meta.sha256 != run.sha256:
-            self.post_message(SpectrumLoaded(run_id, None, None, file_changed_text(run, data.meta.sha256)))
-            return
-        if not isinstance(data, Spectrum):
-            self.post_message(SpectrumLoaded(run_id, None, None, f"{safe_text(Path(path).name)} is a line list: no spectrum to draw"))
-            return
-        self.post_message(SpectrumLoaded(run_id, data.wavenumber_cm1, data.absorbance, None))
+        found = read_run_spectrum(run, self.bw.data_dir)
+        self.post_message(SpectrumLoaded(run.run_id, found.x, found.y, found.problem))
 
     @work(thread=True, group="ledger-write", exit_on_error=False)
     def write_decision(self, run_id: int, action: str, reason: str, confirmed_over: int | None = None) -> None:
@@ -298,8 +264,8 @@ class MainScreen(Screen[None]):
 
     @work(thread=True, group="export", exit_on_error=False)
     def export_report(self, run_id: int) -> None:
-        path, problem = self.bw.export_report(run_id)
-        self.post_message(ReportExported(run_id, path, problem))
+        path, problem, figure = self.bw.export_report(run_id)
+        self.post_message(ReportExported(run_id, path, problem, figure))
 
     # ------------------------------------------------------------ message handlers
 
@@ -547,6 +513,8 @@ class MainScreen(Screen[None]):
             self.notify(escape(safe_text(message.problem)), title="export", severity="error")
         else:
             self.notify(escape(safe_text(f"report written: {message.path}")), title="export", timeout=4)
+            if message.figure is not None and message.figure.startswith("figure not"):
+                self.notify(escape(safe_text(message.figure)), title="export", severity="warning", timeout=8)
 
     # ------------------------------------------------------------ actions
 
