@@ -17,7 +17,7 @@ import numpy as np
 
 from processing.errors import BandwatchError
 from processing.local_time import local
-from processing.result_text import assignment_label, main_reasons, reasons_line
+from processing.result_text import assignment_label, branch_label, main_reasons, reasons_line
 from processing.results import RunResult
 
 FIGURE_FORMATS = (".svg", ".png")
@@ -130,7 +130,7 @@ def _spectrum(axes, data: FigureInput) -> None:  # type: ignore[no-untyped-def]
         for line in mine:
             assigned = line.assigned
             assert assigned is not None
-            axes.annotate(f"{assigned.branch}({assigned.J_lower})", (float(line.position.value), marks_at),
+            axes.annotate(branch_label(assigned), (float(line.position.value), marks_at),
                           xytext=(0, 4 + 22 * (index % 2)), textcoords="offset points",
                           rotation=90, fontsize=5.5, ha="center", va="bottom", color=colour)
     unassigned = [float(line.position.value) for line in lines if line.assigned is None]

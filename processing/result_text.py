@@ -32,7 +32,12 @@ def assignment_label(assigned: Assignment | None, unassigned: str = "-") -> str:
     `unassigned` when there is none."""
     if assigned is None:
         return unassigned
-    return f"{assigned.isotopologue} {assigned.v_upper}-{assigned.v_lower} {assigned.branch}({assigned.J_lower})"
+    return f"{assigned.isotopologue} {assigned.v_upper}-{assigned.v_lower} {branch_label(assigned)}"
+
+
+def branch_label(assigned: Assignment) -> str:
+    """"R(3)": the branch and J'' of an assignment (a figure's marker beside its band's name)."""
+    return f"{assigned.branch}({assigned.J_lower})"
 
 
 # The width the process tables are fitted to (None: as wide as they are); set by

@@ -446,12 +446,18 @@ def _add_quantities_table(conn: sqlite3.Connection) -> None:
     ledger (a stored result that cannot be read is left out of the trends, not an error)."""
     for statement in _statements(QUANTITIES_TABLE):
         conn.execute(statement)
-    for row in conn.execute("SELECT run_id, result_json FROM runs WHERE status = 'processed' AND result_json IS NOT NULL").fetchall():
+    for run_id, result in _stored_results(conn, "status = 'processed' AND result_json IS NOT NULL"):
+        _insert_quantities(conn, run_id, result)
+
+
+def _stored_results(conn: sqlite3.Connection, where: str) -> Iterable[tuple[int, RunResult]]:
+    """(run_id, result) of the recorded runs matching `where` (a migration's SQL condition);
+    a stored result that cannot be read is left out, not an error."""
+    for row in conn.execute(f"SELECT run_id, result_json FROM runs WHERE {where}").fetchall():
         try:
-            result = from_json(row[1])
+            yield int(row[0]), from_json(row[1])
         except ResultFormatError:
             continue
-        _insert_quantities(conn, int(row[0]), result)
 
 
 CHANGES_TABLE = """
@@ -472,12 +478,8 @@ def _add_reasons_and_changes(conn: sqlite3.Connection) -> None:
     be read keeps none), and the change feed with its triggers."""
     for statement in _statements(CHANGES_TABLE):
         conn.execute(statement)
-    for row in conn.execute("SELECT run_id, result_json FROM runs WHERE result_json IS NOT NULL").fetchall():
-        try:
-            result = from_json(row[1])
-        except ResultFormatError:
-            continue
-        conn.execute("UPDATE runs SET reasons_json = ? WHERE run_id = ?", (json.dumps(list(main_reasons(result))), row[0]))
+    for run_id, result in _stored_results(conn, "result_json IS NOT NULL"):
+        conn.execute("UPDATE runs SET reasons_json = ? WHERE run_id = ?", (json.dumps(list(main_reasons(result))), run_id))
 
 
 def changes_after(conn: sqlite3.Connection, cursor: int | None) -> tuple[int, list[int]]:

@@ -22,7 +22,7 @@ def _result(verdict: str = "pass", origin: float = 2885.98, b_e: float = 10.5934
 def test_open_creates_wal_ledger_at_current_schema(tmp_path: Path) -> None:
     conn = lg.open_ledger(tmp_path / "data")
     assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
-    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 4
+    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 5
     assert lg.list_runs(conn) == []
 
 
@@ -128,11 +128,17 @@ def test_migration_fills_the_quantities_of_runs_recorded_before(tmp_path: Path) 
         for statement in lg._statements(script):
             old.execute(statement)
     old.execute("PRAGMA user_version = 3")
+    from dataclasses import replace
+
+    from processing.results import Check
+
+    shifted = Check("calibration", "warn", "wavenumber calibration offset: offset +0.240 +- 0.005 cm-1", 0.24)
     for index, origin in enumerate((2885.97, 2885.99)):
         old.execute(
             "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error, received_at, processed_at)"
             " VALUES (?, 'ab', 1, 'processed', 'pass', 'H35Cl', ?, NULL, ?, ?)",
-            (f"/exp/{index}.csv", to_json(_result(origin=origin)), f"2026-01-0{index + 1}T00:00:00Z", f"2026-01-0{index + 1}T00:00:01Z"),
+            (f"/exp/{index}.csv", to_json(replace(_result(origin=origin), checks=(shifted,))),
+             f"2026-01-0{index + 1}T00:00:00Z", f"2026-01-0{index + 1}T00:00:01Z"),
         )
     old.execute(
         "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error, received_at, processed_at)"
@@ -142,6 +148,13 @@ def test_migration_fills_the_quantities_of_runs_recorded_before(tmp_path: Path) 
     conn = lg.open_ledger(tmp_path)
     assert lg.schema_version(conn) == lg.SCHEMA_VERSION
     assert [p.value for p in lg.trend(conn, "H35Cl", "origin", "1-0")] == [2885.97, 2885.99]
+    # the runs recorded before get their main reasons (migration 4 -> 5); the change feed
+    # starts empty and sees what is recorded from now on
+    assert lg.get_run(conn, 1).reasons == ("calibration +0.24 cm-1",)  # type: ignore[union-attr]
+    cursor, changed = lg.changes_after(conn, None)
+    assert (cursor, changed) == (0, [])
+    lg.record_decision(conn, 2, "flag", "check", "ana")
+    assert lg.changes_after(conn, cursor)[1] == [2]
 
 
 @pytest.mark.parametrize("old_version", [1, 2, 3])

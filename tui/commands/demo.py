@@ -15,7 +15,8 @@ import threading
 import time
 from collections.abc import Callable
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from types import FrameType
+from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
     from processing.station.events import StationEvent
@@ -96,17 +97,20 @@ def run(args: argparse.Namespace) -> int:
 HANGUP_SIGNALS = (signal.SIGHUP, signal.SIGTERM)
 
 
-def _interrupt(signum: int, frame: object) -> None:
+SignalHandler = Callable[[int, FrameType | None], object] | int | None  # what signal.signal takes and gives
+
+
+def _interrupt(signum: int, frame: FrameType | None) -> None:
     """As Ctrl-C: the demo's `finally` stops the station and removes its temporary folders."""
     raise KeyboardInterrupt
 
 
-def _on_hangup(handler: Callable[[int, object], None]) -> dict[int, Any]:
+def _on_hangup(handler: Callable[[int, FrameType | None], object]) -> dict[int, SignalHandler]:
     """Install `handler` for SIGHUP and SIGTERM; the handlers they had before."""
     return {number: signal.signal(number, handler) for number in HANGUP_SIGNALS}
 
 
-def _restore(previous: dict[int, Any]) -> None:
+def _restore(previous: dict[int, SignalHandler]) -> None:
     for number, handler in previous.items():
         signal.signal(number, handler)
 

@@ -274,16 +274,21 @@ def _export(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
             )
             writer.writerow({key: "" if row.get(key) is None else row[key] for key in CSV_COLUMNS})
         text = buffer.getvalue()
-    if args.output == "-":
+    return _write_output(args.output, text, f"{len(runs)} runs as {chosen.upper()}")
+
+
+def _write_output(output: str, text: str, what: str) -> int:
+    """`text` to standard output ("-") or to the file `output`, saying what was written there."""
+    if output == "-":
         sys.stdout.write(text)
-    else:
-        try:
-            with open(args.output, "w", encoding="utf-8", newline="") as handle:
-                handle.write(text)
-        except OSError as error:
-            print(f"bandwatch: {args.output}: cannot write ({error.strerror or error})", file=sys.stderr)
-            return 1
-        print(f"wrote {len(runs)} runs as {chosen.upper()} to {args.output}", file=sys.stderr)
+        return 0
+    try:
+        with open(output, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+    except OSError as error:
+        print(f"bandwatch: {output}: cannot write ({error.strerror or error})", file=sys.stderr)
+        return 1
+    print(f"wrote {what} to {output}", file=sys.stderr)
     return 0
 
 
@@ -304,17 +309,7 @@ def _day(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     rows = day_rows(runs, band_quantities(conn, [run.run_id for run in runs]))
     chosen = _export_format(args)
     text = day_json(day, rows) if chosen == "json" else day_csv(rows)
-    if args.output == "-":
-        sys.stdout.write(text)
-        return 0
-    try:
-        with open(args.output, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
-    except OSError as error:
-        print(f"bandwatch: {args.output}: cannot write ({error.strerror or error})", file=sys.stderr)
-        return 1
-    print(f"wrote {len(rows)} runs of {day} as {chosen.upper()} to {args.output}", file=sys.stderr)
-    return 0
+    return _write_output(args.output, text, f"{len(rows)} runs of {day} as {chosen.upper()}")
 
 
 def _operator(given: str | None, configured: str) -> str:

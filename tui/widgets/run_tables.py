@@ -10,6 +10,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
 from rich.text import Text
+from textual.coordinate import Coordinate
 from textual.message import Message
 
 from processing.estimate import Estimate
@@ -122,7 +123,7 @@ class RunList(FittedTable):
                 self.set_cell(row_key, "time", Text(sign + cells["time"].plain[1:], style=cells["time"].style))
         self.marked = key
 
-    def watch_cursor_coordinate(self, old: Any, new: Any) -> None:
+    def watch_cursor_coordinate(self, old: Coordinate, new: Coordinate) -> None:
         super().watch_cursor_coordinate(old, new)
         self.mark_selected()
 
