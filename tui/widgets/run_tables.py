@@ -161,12 +161,12 @@ class LinesTable(FittedTable):
         Column("sigma", "±", 6, drop=4),
         Column("height", "height", 6, drop=6),
         Column("snr", "S/N", 5, drop=5),
-        Column("assignment", "assignment", 15, min_width=13),
+        Column("assignment", "assignment", 17, min_width=16),
         Column("calc", "calc cm-1", 10, drop=7),
         Column("residual", "obs-calc", 8),
         Column("confidence", "conf", 4, drop=3),
         Column("flags", "flags", 5, drop=2),
-        Column("note", "note", 18, min_width=10, drop=1, grow=True),
+        Column("note", "note", 18, min_width=16, drop=1, grow=True),
     )
 
     def __init__(self, **kwargs: Any) -> None:
