@@ -619,6 +619,9 @@ def adopt_unnamed_runs(conn: Connection, instrument: str) -> int:
     (a station does this with its own ledger file at start); how many runs it took."""
     if not instrument:
         return 0
+    unnamed = "SELECT (SELECT count(*) FROM runs WHERE instrument = '') + (SELECT count(*) FROM claims WHERE instrument = '')"
+    if not conn.execute(unnamed).fetchone()[0]:
+        return 0  # nothing to adopt: no write (a station may start while another program holds the lock)
     with _Transaction(conn):
         found = conn.execute("SELECT count(*) FROM runs WHERE instrument = ''").fetchone()[0]
         if found:
