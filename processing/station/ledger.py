@@ -271,6 +271,32 @@ def open_ledger(data_dir: str | Path, *, read_only: bool = False) -> Connection:
         raise LedgerError(error if str(path) in str(error) else f"{path}: {error}") from None
 
 
+def found_schema_version(where: str | Path) -> int:
+    """The schema version a ledger has now, without changing it (0: none yet)."""
+    if is_server_url(where):
+        conn = ledger_postgres.connect(str(where))
+        try:
+            return ledger_postgres.schema_version(conn)
+        finally:
+            conn.close()
+    path = ledger_path(where)
+    if not path.exists():
+        return 0
+    conn = open_ledger_file_as_is(path)
+    try:
+        return schema_version(conn)
+    finally:
+        conn.close()
+
+
+def open_ledger_file_as_is(path: Path) -> sqlite3.Connection:
+    """A read-only connection to a ledger file at whatever schema it has (no check, no migration)."""
+    try:
+        return _connect_read_only(path)
+    except sqlite3.Error as error:
+        raise ledger_problem(path, error) from None
+
+
 def open_server_ledger(url: str, *, read_only: bool = False, migrate_schema: bool = True) -> PostgresConnection:
     """The ledger on a PostgreSQL server. Its schema version is checked first: a newer one is
     refused in one line; an older one is brought forward when this role may (and `read_only`
