@@ -99,8 +99,9 @@ class PgServer:
         shutil.rmtree(self.base, ignore_errors=True)
 
 
-def start_server() -> PgServer:
-    """Make and start a new server; ServerUnavailable with the reason when it cannot be done."""
+def start_server(*, durable: bool = False) -> PgServer:
+    """Make and start a new server; ServerUnavailable with the reason when it cannot be done.
+    `durable` keeps the server's own defaults (fsync on): for benchmarks against the file."""
     try:
         import psycopg  # noqa: F401
     except ImportError:
@@ -133,13 +134,12 @@ def start_server() -> PgServer:
         with open(server.data / "postgresql.conf", "a", encoding="utf-8") as conf:
             conf.write(
                 f"\nport = {server.port}\nlisten_addresses = '127.0.0.1'\n"
-                f"unix_socket_directories = '{server.socket_dir}'\n"
-                # fsync off: a test server need not survive the machine crashing; commits stay
-                # synchronous (an acknowledged commit survives the server being killed, which
-                # the outage test does)
-                "fsync = off\nfull_page_writes = off\nmax_connections = 200\n"
-                "shared_buffers = 64MB\n"
+                f"unix_socket_directories = '{server.socket_dir}'\nmax_connections = 200\nshared_buffers = 64MB\n"
             )
+            if not durable:
+                # a test server need not survive the machine crashing; commits stay synchronous
+                # (an acknowledged commit survives the server being killed: the outage test)
+                conf.write("fsync = off\nfull_page_writes = off\n")
         server.start()
     except subprocess.CalledProcessError as error:
         shutil.rmtree(base, ignore_errors=True)

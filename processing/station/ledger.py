@@ -37,13 +37,14 @@ from processing.station import ledger_postgres
 from processing.station.ledger_errors import LedgerError as LedgerError  # re-exported: callers import it from here
 from processing.station.ledger_errors import LedgerRefused as LedgerRefused
 from processing.station.ledger_errors import LedgerUnavailable as LedgerUnavailable
-from processing.station.ledger_postgres import is_server_url, shown_url
+from processing.station.ledger_postgres import SqlParams, SqlValue, is_server_url, shown_url
 
 if TYPE_CHECKING:
     from processing.station.ledger_postgres import PostgresConnection
 
 # a ledger connection: the SQLite file's, or the server's (which takes the same SQL)
 Connection = Union[sqlite3.Connection, "PostgresConnection"]
+LedgerRow = Union[sqlite3.Row, "ledger_postgres.Row"]  # answers by column name and by position
 
 LEDGER_FILE = "ledger.sqlite3"
 RUN_STATUSES = ("processed", "unreadable", "failed")
@@ -508,7 +509,7 @@ class _Transaction:
         self.conn.execute("COMMIT" if exc_type is None else "ROLLBACK")
 
 
-def _insert_returning(conn: Connection, sql: str, params: tuple[Any, ...], key: str) -> int:
+def _insert_returning(conn: Connection, sql: str, params: SqlParams, key: str) -> int:
     """Run an INSERT and return the new row's `key` (SQLite: lastrowid; server: RETURNING)."""
     if dialect(conn) == "sqlite":
         return int(conn.execute(sql, params).lastrowid or 0)  # type: ignore[union-attr]
@@ -595,7 +596,6 @@ RUNS_TABLE_V5 = """
         status           TEXT NOT NULL,
         verdict          TEXT,
         species          TEXT NOT NULL DEFAULT '',
-        result_json      TEXT,
         error            TEXT,
         received_at      TEXT NOT NULL,
         processed_at     TEXT,
@@ -605,6 +605,7 @@ RUNS_TABLE_V5 = """
         mtime_ns         INTEGER,
         instrument       TEXT NOT NULL DEFAULT '',
         record_key       TEXT,
+        result_json      TEXT,  -- last: a listing reads the columns before it, never its overflow pages
         UNIQUE (instrument, path, version)
     );
 """
@@ -788,6 +789,46 @@ _RUN_COLUMNS_LISTED = (
 _RUN_COLUMNS = _RUN_COLUMNS_LISTED + ", result_json"
 
 
+def _tuples(conn: Connection, sql: str, params: SqlParams) -> list[tuple[SqlValue, ...]]:
+    """Rows as plain tuples: long listings skip building a named row for each."""
+    if dialect(conn) == "postgresql":
+        return conn.fetch_tuples(sql, params)  # type: ignore[union-attr]
+    cursor = conn.cursor()  # type: ignore[union-attr]
+    cursor.row_factory = None
+    return cursor.execute(sql, params).fetchall()
+
+
+def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, server: bool) -> RunRecord:
+    """A RunRecord from a row of `_RUN_COLUMNS_LISTED` (+ result_json), by position."""
+    (run_id, path, sha256, version, status, verdict, species, error, received_at, processed_at,
+     settings_json, reprocessed_from, instrument) = values[:13]
+    if isinstance(path, bytes) or (server and path.startswith(SERVER_BYTES_PATH)):
+        path = path_of(path, _SERVER if server else None)
+    return RunRecord(
+        run_id, path, sha256, version, status, verdict,
+        decision.action if decision else None, decision.reason if decision else None,
+        decision.operator if decision else None, received_at, processed_at,
+        tuple(species.split(",")) if species else (), error,
+        _result_text(run_id, values[13]) if len(values) > 13 and values[13] else None,
+        json.loads(settings_json) if settings_json else None, reprocessed_from,
+        decision.at if decision else None, instrument or "",
+    )
+
+
+class _ServerMark:
+    dialect = "postgresql"
+
+
+_SERVER: Any = _ServerMark()  # stands for "a server connection" where only the dialect matters
+
+
+def _result_text(run_id: int, text: str) -> RunResult:
+    try:
+        return from_json(text)
+    except ResultFormatError as error:
+        raise LedgerError(f"run {run_id}: its stored result cannot be read ({error})") from None
+
+
 def _current_decisions(conn: Connection, run_ids: list[int] | None) -> dict[int, DecisionEvent]:
     """run_id -> the decision event currently in effect (runs with none are absent)."""
     if run_ids is None:
@@ -814,7 +855,7 @@ def _apply(stack: list[DecisionEvent], event: DecisionEvent) -> None:
         stack.append(event)
 
 
-def _event(row: Any) -> DecisionEvent:
+def _event(row: LedgerRow) -> DecisionEvent:
     return DecisionEvent(
         event_id=int(row["event_id"]),
         run_id=int(row["run_id"]),
@@ -825,7 +866,7 @@ def _event(row: Any) -> DecisionEvent:
     )
 
 
-def _record(row: Any, decision: DecisionEvent | None, with_result: bool = True, conn: Connection | None = None) -> RunRecord:
+def _record(row: LedgerRow, decision: DecisionEvent | None, with_result: bool = True, conn: Connection | None = None) -> RunRecord:
     return RunRecord(
         run_id=int(row["run_id"]),
         path=path_of(row["path"], conn),
@@ -848,7 +889,7 @@ def _record(row: Any, decision: DecisionEvent | None, with_result: bool = True, 
     )
 
 
-def _result(row: Any) -> RunResult:
+def _result(row: LedgerRow) -> RunResult:
     try:
         return from_json(row["result_json"])
     except ResultFormatError as error:
@@ -881,9 +922,10 @@ def list_runs(
     if limit is not None:
         sql += " LIMIT ?"
         params.append(int(limit))
-    rows = conn.execute(sql, tuple(params)).fetchall()
-    decisions = _current_decisions(conn, [int(row["run_id"]) for row in rows] if limit or instrument is not None else None)
-    return [_record(row, decisions.get(int(row["run_id"])), with_result, conn) for row in rows]
+    rows = _tuples(conn, sql, tuple(params))
+    decisions = _current_decisions(conn, [row[0] for row in rows] if limit or instrument is not None else None)
+    server = dialect(conn) == "postgresql"
+    return [_listed(row, decisions.get(row[0]), server) for row in rows]
 
 
 def instruments(conn: Connection) -> list[str]:

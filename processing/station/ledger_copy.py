@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from processing.station import ledger
-from processing.station.ledger import Connection, LedgerError, _insert_returning, _Transaction, dialect, path_of, stored_path
+from processing.station.ledger import Connection, LedgerError, LedgerRow, _insert_returning, _Transaction, dialect, path_of, stored_path
 from processing.station.ledger_postgres import is_server_url, password_in_url
 
 RUN_COLUMNS = (
@@ -100,7 +100,7 @@ def copy_ledger(source: str | Path, target: str | Path, instrument: str) -> Copy
     return CopyReport(source_name, target_name, len(runs), len(decisions), len(quantities), kept_ids)
 
 
-def _row(row: Any, columns: tuple[str, ...]) -> dict[str, Any]:
+def _row(row: LedgerRow, columns: tuple[str, ...]) -> dict[str, Any]:
     return {name: row[index] for index, name in enumerate(columns)}
 
 

@@ -32,6 +32,9 @@ CONNECT_TIMEOUT_SECONDS = 5
 # derived from a fixed name, so other programs' advisory locks do not collide with it)
 WRITE_LOCK = int.from_bytes(hashlib.sha256(b"bandwatch ledger writer").digest()[:8], "big") >> 1
 MIGRATION_LOCK = WRITE_LOCK - 1
+# what goes into and comes out of a ledger statement
+SqlValue = str | bytes | int | float | None
+SqlParams = Sequence[SqlValue]
 DRIVER_ADVICE = "the PostgreSQL driver is not installed: pip install 'bandwatch[facility]' (psycopg 3)"
 
 
@@ -80,7 +83,7 @@ class Row(tuple):  # type: ignore[type-arg]
     __slots__ = ()
     names: dict[str, int] = {}
 
-    def __getitem__(self, key: Any) -> Any:  # type: ignore[override]
+    def __getitem__(self, key: int | str | slice) -> SqlValue:  # type: ignore[override]
         if isinstance(key, str):
             return tuple.__getitem__(self, self.names[key])
         return tuple.__getitem__(self, key)
@@ -89,7 +92,7 @@ class Row(tuple):  # type: ignore[type-arg]
         return list(self.names)
 
 
-def _row_factory(cursor: Any) -> Callable[[Sequence[Any]], Row]:
+def _row_factory(cursor: psycopg.Cursor[Row]) -> Callable[[Sequence[SqlValue]], Row]:
     description = cursor.description or ()
     names = {column.name: index for index, column in enumerate(description)}
     row_class = type("Row", (Row,), {"__slots__": (), "names": names})
@@ -99,7 +102,7 @@ def _row_factory(cursor: Any) -> Callable[[Sequence[Any]], Row]:
 class Cursor:
     """What `ledger` reads from a statement: rows, and the first column of RETURNING."""
 
-    def __init__(self, raw: Any) -> None:
+    def __init__(self, raw: psycopg.Cursor[Row]) -> None:
         self._raw = raw
 
     def fetchone(self) -> Row | None:
@@ -122,12 +125,12 @@ class PostgresConnection:
 
     dialect = "postgresql"
 
-    def __init__(self, raw: psycopg.Connection[Any], url: str) -> None:
+    def __init__(self, raw: psycopg.Connection[tuple[SqlValue, ...]], url: str) -> None:
         self.raw = raw
         self.url = url
         self.where = shown_url(url)
 
-    def execute(self, sql: str, params: Sequence[Any] = ()) -> Cursor:
+    def execute(self, sql: str, params: SqlParams = ()) -> Cursor:
         statement = sql.strip()
         if statement.upper() == "BEGIN IMMEDIATE":
             self._run("BEGIN", ())
@@ -136,7 +139,16 @@ class PostgresConnection:
             return _EMPTY  # the connection broke: nothing is left to roll back
         return self._run(sql, params)
 
-    def executemany(self, sql: str, rows: Sequence[Sequence[Any]]) -> None:
+    def fetch_tuples(self, sql: str, params: SqlParams = ()) -> list[tuple[SqlValue, ...]]:
+        """Rows as plain tuples (no names): the fast path for long listings."""
+        try:
+            with self.raw.cursor() as cursor:
+                cursor.execute(translate(sql) if params else sql, tuple(params) if params else None)
+                return cursor.fetchall()
+        except _driver_errors() as error:
+            raise problem(self.where, error) from None
+
+    def executemany(self, sql: str, rows: Sequence[SqlParams]) -> None:
         rows = list(rows)
         if not rows:
             return
@@ -146,7 +158,7 @@ class PostgresConnection:
         except _driver_errors() as error:
             raise problem(self.where, error) from None
 
-    def _run(self, sql: str, params: Sequence[Any]) -> Cursor:
+    def _run(self, sql: str, params: SqlParams) -> Cursor:
         try:
             cursor = self.raw.cursor(row_factory=_row_factory)
             if params:

@@ -7,6 +7,7 @@ import csv
 import io
 import json
 import sys
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from processing import strict_json
@@ -135,7 +136,7 @@ def _list(conn: Connection, args: argparse.Namespace) -> int:
 
     runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False, instrument=args.instrument)
     if args.json:
-        sys.stdout.write("".join(strict_json.dumps(run_public(record)) + "\n" for record in runs))
+        sys.stdout.write("".join(strict_json.dumps_flat(run_public(record)) + "\n" for record in runs))
         return 0
     rows = [[str(r.run_id), f"v{r.version}", r.status, r.verdict or "-", r.decision or "-",
              safe_text(",".join(r.species) or "-"), (r.processed_at or "")[:19], safe_text(r.name)] for r in runs]
@@ -281,7 +282,7 @@ def _copy(args: argparse.Namespace) -> int:
     return 0
 
 
-def _migrate(where: Any) -> int:
+def _migrate(where: str | Path) -> int:
     from processing.station import ledger
 
     before = ledger.found_schema_version(where)
