@@ -140,12 +140,12 @@ def fill(conn: ledger.Connection, runs: int) -> None:
     conn.execute("COMMIT")
 
 
-def median_seconds(function, repeats: int = 5) -> float:  # type: ignore[no-untyped-def]
+def median_seconds(function, repeats: int = 5, clock=time.perf_counter) -> float:  # type: ignore[no-untyped-def]
     times = []
     for _ in range(repeats):
-        start = time.perf_counter()
+        start = clock()
         function()
-        times.append(time.perf_counter() - start)
+        times.append(clock() - start)
     return statistics.median(times)
 
 
@@ -160,6 +160,7 @@ def listing(work: Path, url: str) -> bool:
         runs = ledger.list_runs(conn, with_result=False)
         assert len(runs) == LISTED_RUNS and sum(r.decision == "accept" for r in runs) == LISTED_RUNS // 10
         call = median_seconds(lambda: ledger.list_runs(conn, with_result=False))
+        cpu = median_seconds(lambda: ledger.list_runs(conn, with_result=False), clock=time.process_time)
         conn.close()
         option = ["--data", where] if kind == "file" else ["--ledger", where]
         env = dict(os.environ, BANDWATCH_CONFIG=str(work / "none.toml"))
@@ -167,7 +168,7 @@ def listing(work: Path, url: str) -> bool:
         table = median_seconds(lambda: subprocess.run(command, check=True, stdout=subprocess.DEVNULL, env=env))
         lines = median_seconds(lambda: subprocess.run([*command, "--json"], check=True, stdout=subprocess.DEVNULL, env=env))
         empty = median_seconds(lambda: subprocess.run([*command, "--limit", "0"], check=True, stdout=subprocess.DEVNULL, env=env))
-        print(f"  list_runs {call * 1e3:.0f} ms; `bandwatch ledger list` {table * 1e3:.0f} ms (table), "
+        print(f"  list_runs {call * 1e3:.0f} ms ({cpu * 1e3:.0f} ms of this process's CPU); `bandwatch ledger list` {table * 1e3:.0f} ms (table), "
               f"{lines * 1e3:.0f} ms (--json); the same command listing nothing {empty * 1e3:.0f} ms (start-up)")
         met = call < TARGET_LIST_SECONDS
         print(f"  target list_runs < {TARGET_LIST_SECONDS:g} s: {'met' if met else 'NOT met'}; whole command "
