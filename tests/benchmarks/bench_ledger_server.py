@@ -22,18 +22,18 @@ import statistics
 import subprocess
 import sys
 import tempfile
-import threading
 import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # tests/: the throwaway server (pg_server.py)
+sys.path.insert(0, str(HERE))
 
+from bench_station import Arrivals  # noqa: E402
 from pg_server import ServerUnavailable, start_server  # noqa: E402
 
 from processing.station import ledger  # noqa: E402
 from processing.station.config import StationConfig  # noqa: E402
-from processing.station.events import RunProcessed, StationEvent  # noqa: E402
 from processing.station.station import Station  # noqa: E402
 
 TRIALS = 25
@@ -50,22 +50,6 @@ def load() -> str:
 def p95(values: list[float]) -> float:
     ordered = sorted(values)
     return ordered[min(len(ordered) - 1, round(0.95 * (len(ordered) - 1)))]
-
-
-class Arrivals:
-    def __init__(self) -> None:
-        self.times: dict[str, float] = {}
-        self.changed = threading.Condition()
-
-    def __call__(self, event: StationEvent) -> None:
-        if isinstance(event, RunProcessed):
-            with self.changed:
-                self.times[Path(event.path).name] = time.perf_counter()
-                self.changed.notify_all()
-
-    def wait_for(self, name: str, timeout: float) -> bool:
-        with self.changed:
-            return self.changed.wait_for(lambda: name in self.times, timeout)
 
 
 def saved_to_ledger(work: Path, url: str, trials: int) -> bool:
@@ -92,7 +76,7 @@ def saved_to_ledger(work: Path, url: str, trials: int) -> bool:
         for kind in stations:  # one warm-up file each (first imports in the worker)
             _, arrivals, export = stations[kind]
             (export / "warm.csv").write_bytes(data)
-            arrivals.wait_for("warm.csv", 60)
+            arrivals.wait_for({"warm.csv"}, 60)
         print(f"saved -> ledger, {trials} files each, alternately; {load()}")
         for trial in range(trials):
             for kind in (("file", "server") if trial % 2 == 0 else ("server", "file")):
@@ -101,7 +85,7 @@ def saved_to_ledger(work: Path, url: str, trials: int) -> bool:
                 with open(export / name, "wb") as handle:
                     handle.write(data)
                 closed = time.perf_counter()
-                if not arrivals.wait_for(name, 60):
+                if not arrivals.wait_for({name}, 60):
                     print(f"  {kind}: {name} not in the ledger within 60 s")
                     return False
                 latencies[kind].append(arrivals.times[name] - closed)
