@@ -408,7 +408,13 @@ class Station:
             self._emit(StationProblem(f"catch-up scan failed: {type(error).__name__}: {error}"))
         next_rescan = time.monotonic() + self.config.rescan_seconds
         while not self._stopping.is_set():
-            self._wakeup.wait(self.tick_seconds)
+            # wake at the next tick, or sooner when a pending file's settle time ends then (a
+            # file is taken when it has settled, not up to a tick later)
+            due = self.settler.next_due()
+            remaining = None if due is None else due - time.monotonic()
+            # (a file already due but held or incomplete waits for the next tick, no spinning)
+            wait = self.tick_seconds if remaining is None or remaining <= 0 else min(self.tick_seconds, remaining)
+            self._wakeup.wait(wait)
             self._wakeup.clear()
             try:
                 if time.monotonic() >= self._next_folder_check:
@@ -602,9 +608,11 @@ class Station:
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
         )
-        self._report_and_announce(record, result, outcome.result_json)
+        self._report_and_announce(record, result, outcome.result_json, outcome.lines_csv)
 
-    def _report_and_announce(self, record: ledger.RunRecord, result: RunResult, result_json: str | None) -> None:
+    def _report_and_announce(
+        self, record: ledger.RunRecord, result: RunResult, result_json: str | None, lines_csv_text: str | None = None,
+    ) -> None:
         """Write a processed run's reports (retried while the disk is full, given up only when
         the station stops: a problem event, never a crash) and announce the run."""
         folder = None
@@ -612,7 +620,7 @@ class Station:
             backoff = Backoff()
             while folder is None:
                 try:
-                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json))
+                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json, lines_csv_text))
                 except OSError as error:
                     backoff.failed()
                     if backoff.worth_saying:
@@ -642,4 +650,4 @@ class Station:
             return
         record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json)
         info.answer["run_id"] = record.run_id
-        self._report_and_announce(record, outcome.result, outcome.result_json)
+        self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv)
