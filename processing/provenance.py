@@ -52,8 +52,13 @@ def package_version() -> str:
 
 @functools.lru_cache(maxsize=1)
 def analysis_code_hash() -> str:
-    """sha256 over the analysis code's file names and bytes (sorted, so the order is fixed)."""
-    root = Path(__file__).resolve().parent
+    """The hash of this installation's analysis code (computed once per process)."""
+    return code_hash(Path(__file__).resolve().parent)
+
+
+def code_hash(root: Path) -> str:
+    """sha256 over the file names and bytes of the modules under `root` (a `processing`
+    folder) except the orchestration subpackages; sorted, so the order is fixed."""
     digest = hashlib.sha256()
     for path in sorted(root.rglob("*.py")):
         relative = path.relative_to(root)

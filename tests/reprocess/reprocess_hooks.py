@@ -13,3 +13,17 @@ def crash_on_name(path: str, settings: ProcessSettings) -> RunResult:
     if "crash" in Path(path).name:
         os._exit(3)
     return process_file(path, settings)
+
+
+def pretend_another_analysis() -> None:
+    """Run on a cluster worker: it now says it runs another analysis version."""
+    from processing.reprocess import cluster
+
+    cluster.analysis_version = lambda: "0.0.0+another"
+
+
+def back_to_this_analysis() -> None:
+    from processing.provenance import analysis_version
+    from processing.reprocess import cluster
+
+    cluster.analysis_version = analysis_version

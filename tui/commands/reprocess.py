@@ -199,6 +199,13 @@ def progress_line(progress: Progress) -> str:
     )
 
 
+def bar_text(progress: Progress) -> str:
+    """Beside the bar: done/total, rate, time left, skipped and failed files (words, not colours)."""
+    total = "?" if progress.total is None else str(progress.total)
+    return (f"{progress.done}/{total} {progress.rate:.1f} files/s left {_duration(progress.eta_seconds)} "
+            f"skip {progress.skipped} fail {progress.failed}")
+
+
 class _Display:
     """A progress bar on a terminal (rich), else a line every `every` files."""
 
@@ -212,15 +219,11 @@ class _Display:
         self._last_draw = 0.0
         if not plain:
             from rich.console import Console
-            from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+            from rich.progress import BarColumn, Progress, TextColumn
 
-            self._bar = Progress(
-                TextColumn("reprocess"), BarColumn(), MofNCompleteColumn(),
-                TextColumn("{task.fields[rate]}"), TextColumn("left"), TimeRemainingColumn(), TimeElapsedColumn(),
-                TextColumn("{task.fields[counts]}"),
-                console=Console(file=out), transient=False,
-            )
-            self._task = self._bar.add_task("reprocess", total=None, rate="", counts="")
+            # fits 80 columns with a million files: bar, done/total, rate, time left, skipped, failed
+            self._bar = Progress(BarColumn(bar_width=12), TextColumn("{task.fields[line]}"), console=Console(file=out))
+            self._task = self._bar.add_task("reprocess", total=None, line="counting files ...")
             self._bar.start()
 
     def progress(self, progress: Progress) -> None:
@@ -229,11 +232,7 @@ class _Display:
             if now - self._last_draw < 0.1 and progress.done != progress.total:
                 return
             self._last_draw = now
-            self._bar.update(
-                self._task, completed=progress.done, total=progress.total,
-                rate=f"{progress.rate:.1f} files/s",
-                counts=f"analysed {progress.analysed}  skipped {progress.skipped}  ✘ failed {progress.failed}",
-            )
+            self._bar.update(self._task, completed=progress.done, total=progress.total, line=bar_text(progress))
             return
         if progress.done >= self._next_line:
             self.out.write(progress_line(progress) + "\n")
