@@ -60,6 +60,18 @@ def test_plain_progress_is_one_line_per_n_files_and_the_summary_names_verdict_ch
     assert re.search(r"^ +H35Cl +1-0 +origin +5 +[+-]", out, re.MULTILINE)  # the what-changed table
     assert set(versions_by_path(data).values()) == {2}
 
+    assert main(["ledger", "list", "--json", "--data", str(data), "--limit", "1"]) == 0
+    newest = json.loads(capsys.readouterr().out)
+    assert newest["version"] == 2 and 1 <= newest["reprocessed_from"] <= 5
+    assert newest["analysis_version"] and newest["library_hash"] and newest["settings_hash"]
+    assert main(["ledger", "show", str(newest["reprocessed_from"]), "--json", "--data", str(data)]) == 0
+    old = json.loads(capsys.readouterr().out)
+    assert old["path"] == newest["path"] and old["version"] == 1 and old["settings_hash"] != newest["settings_hash"]
+    assert main(["ledger", "show", str(newest["run_id"]), "--data", str(data)]) == 0
+    shown = capsys.readouterr().out
+    assert f"reprocessed from run {newest['reprocessed_from']} with today's analysis (bandwatch reprocess)" in shown
+    assert f"made with  analysis {newest['analysis_version']}, library {newest['library_hash']}" in shown
+
 
 def test_the_progress_bar_shows_done_total_rate_time_left_and_failures_in_80_columns() -> None:
     out = io.StringIO()  # rich draws it 80 columns wide, as on a small terminal

@@ -24,6 +24,7 @@ from processing.reprocess.summary import Progress, ReprocessSummary
 from processing.station import ledger
 from tui.cli import main
 
+pytestmark = pytest.mark.slow
 FILES = 300
 PROCESS = "processing.pipeline:process_file"
 TIMING = re.compile(r'"timing_ms": \{[^{}]*\}, ')  # how long each stage took: never the same twice

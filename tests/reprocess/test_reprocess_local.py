@@ -11,6 +11,7 @@ import threading
 from dataclasses import replace
 from pathlib import Path
 
+import pytest
 from conftest import stored_results, versions_by_path, write_archive
 
 from processing.checks import CheckThresholds
@@ -46,6 +47,7 @@ def _resolved(paths: list[Path]) -> set[str]:
     return {str(path.resolve()) for path in paths}
 
 
+@pytest.mark.slow
 def test_500_files_interrupted_by_sigint_resume_once_each_and_a_third_run_skips_all(isolated: Path) -> None:
     archive, data = isolated / "archive", isolated / "data"
     files = write_archive(archive, 500)
