@@ -116,6 +116,8 @@ class ReprocessJob:
         finally:
             counting_done.set()
         interrupted = self.stop.is_set()
+        if not interrupted and stopped is None:
+            self.tally.total = self.tally.selected  # every candidate was seen: the count is known
         shifts: list[QuantityShift] = []
         if self.conn is not None and self.backend is not None:
             shifts = quantity_shifts(self.conn, self.provenance)
