@@ -269,10 +269,10 @@ def write_summary(out: IO[str], summary: ReprocessSummary) -> None:
         if would > len(summary.would_analyse):
             w(f"  ... and {would - len(summary.would_analyse)} more\n")
         return
-    w(f"reprocess ({summary.mode}): {summary.selected} files selected in {_duration(summary.seconds)}: "
-      f"{summary.recorded} new versions recorded, {summary.skipped + summary.unchanged} skipped (unchanged), "
-      f"{summary.failed} failed, {summary.not_recorded} not recorded\n")
-    w(f"  made with analysis {made.analysis_version}, library {made.library_hash}, settings {made.settings_hash}\n")
+    not_recorded = f", {summary.not_recorded} not recorded" if summary.not_recorded else ""
+    w(f"reprocess ({summary.mode}): {summary.selected} files in {_duration(summary.seconds)}: {summary.recorded} recorded, "
+      f"{summary.skipped + summary.unchanged} skipped, {summary.failed} failed{not_recorded}\n")
+    w(f"  made with analysis {made.analysis_version}\n  library {made.library_hash}, settings {made.settings_hash}\n")
     _counts(out, "by verdict", summary.by_outcome)
     _counts(out, "why analysed", summary.reasons)
     if summary.verdict_changes:
@@ -298,17 +298,23 @@ def write_summary(out: IO[str], summary: ReprocessSummary) -> None:
 def write_changes(out: IO[str], summary: ReprocessSummary) -> None:
     """The 'what changed' table: per quantity, new - old across the reprocessed archive."""
     if not summary.quantity_shifts:
-        out.write("  what changed: no fitted quantity to compare (no file reprocessed from an earlier version)\n")
+        out.write("  what changed: nothing to compare yet (no earlier version was reprocessed)\n")
         return
-    out.write("  what changed (new - old, every file reprocessed with this analysis; median and quartiles):\n")
-    rows = [("isotopologue", "band", "quantity", "n", "median", "lower quartile", "upper quartile", "unit")]
+    out.write("  what changed, new - old over the files reprocessed with this analysis\n"
+              "  (median and quartiles; one clean shift = a correction, a spread = a change):\n")
+    rows = [("species", "band", "quantity", "n", "median", "25%", "75%", "unit")]
     for shift in summary.quantity_shifts:
-        rows.append((shift.isotopologue, shift.band or "-", shift.quantity, str(shift.count), f"{shift.median:+.3g}",
-                     f"{shift.lower_quartile:+.3g}", f"{shift.upper_quartile:+.3g}", shift.unit))
+        rows.append((shift.isotopologue, shift.band or "-", shift.quantity, str(shift.count), _shift(shift.median),
+                     _shift(shift.lower_quartile), _shift(shift.upper_quartile), shift.unit))
     widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
-    for row in rows:
-        out.write("    " + "  ".join(cell.rjust(width) if 3 <= i <= 6 else cell.ljust(width)
+    for row in rows:  # at most 80 columns with a million files
+        out.write("  " + "  ".join(cell.rjust(width) if 3 <= i <= 6 else cell.ljust(width)
                                      for i, (cell, width) in enumerate(zip(row, widths))).rstrip() + "\n")
+
+
+def _shift(value: float) -> str:
+    """A difference in 3 significant digits with its sign; none at all is 0."""
+    return "0" if value == 0 else f"{value:+.3g}"
 
 
 def _counts(out: IO[str], title: str, counts: dict[str, int]) -> None:
