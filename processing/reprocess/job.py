@@ -139,6 +139,7 @@ class ReprocessJob:
             tasks, exhausted = self._plan_chunk(source)
             room = EXAMPLES_WOULD_ANALYSE - len(self.tally.would_analyse)
             self.tally.would_analyse.extend(task.path for task in tasks[:max(0, room)])
+            self.tally.planned += len(tasks)
             self.on_progress(self.tally.progress())
             if exhausted:
                 return
@@ -161,13 +162,13 @@ class ReprocessJob:
                     ready.extend(tasks)
                     continue
                 batch: list[Task] = []
-                while ready and len(inflight) + len(batch) < capacity:
+                while ready and len(inflight) < capacity:
                     task = ready.popleft()
-                    if task.path in inflight_paths or any(task.path == other.path for other in batch):
+                    if task.path in inflight_paths:
                         self.tally.skipped += 1  # named twice (a folder and a glob): once is enough
+                        self.tally.reasons[task.reason] -= 1
                         continue
                     batch.append(task)
-                for task in batch:
                     inflight[task.seq] = task
                     inflight_paths.add(task.path)
                 if batch:

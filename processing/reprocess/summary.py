@@ -76,6 +76,7 @@ class Tally:
     unchanged: int = 0  # analysed, found identical to a version made the same way: not recorded
     failed: int = 0
     not_recorded: int = 0
+    planned: int = 0  # a dry run's files that would be analysed
     by_outcome: Counter[str] = field(default_factory=Counter)
     reasons: Counter[str] = field(default_factory=Counter)
     verdict_changes: Counter[str] = field(default_factory=Counter)
@@ -87,7 +88,7 @@ class Tally:
 
     @property
     def done(self) -> int:
-        return self.recorded + self.skipped + self.unchanged + self.not_recorded
+        return self.recorded + self.skipped + self.unchanged + self.not_recorded + self.planned
 
     def progress(self) -> Progress:
         return Progress(self.done, self.total, self.analysed, self.skipped + self.unchanged,

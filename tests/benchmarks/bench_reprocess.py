@@ -143,6 +143,10 @@ def memory(work: Path, files: int, real: bool) -> None:
     slope = (last[1] - half[1]) / max(1, last[0] - half[0]) * 1000
     print(f"  {files / seconds:.1f} files/s; second half: {slope:+.2f} MB per 1000 files "
           f"(from {half[1]:.1f} MB at {half[0]} to {last[1]:.1f} MB at {last[0]}); load {load()}")
+    # The gauge's sensitivity: what holding the file list alone would have cost.
+    before = rss_mb()
+    listed = list(PathSelection((str(archive),)).candidates())
+    print(f"  for scale: the {len(listed)} candidates held as a list would add {rss_mb() - before:.1f} MB")
 
 
 def main() -> int:

@@ -92,6 +92,7 @@ def test_a_file_named_twice_is_recorded_once(isolated: Path) -> None:
     summary = reprocess(data, archive, files[1], archive / "*.csv", files[2])
     assert summary.recorded == 6 and summary.selected == 6 + 1 + 6 + 1
     assert summary.skipped + summary.unchanged == 8
+    assert sum(summary.reasons.values()) == summary.analysed == 6 + summary.unchanged  # read again, found the same
     assert set(versions_by_path(data).values()) == {1}
 
 
