@@ -146,3 +146,10 @@ def test_the_command_line_takes_the_cluster_address_and_reports_in_json(
     code = main(["reprocess", str(archive), "--data", str(tmp_path / "data"), "--config", str(config), "--cluster", "--json"])
     assert code == 0
     assert json.loads(capsys.readouterr().out)["skipped"] == 8
+
+
+def test_a_scheduler_that_cannot_be_reached_is_one_clear_error() -> None:
+    from processing.reprocess.cluster import ClusterUnavailable, connect
+
+    with pytest.raises(ClusterUnavailable, match=r"cannot reach the Dask scheduler at tcp://127\.0\.0\.1:9 "):
+        connect("tcp://127.0.0.1:9", timeout_seconds=1.0)  # the discard port: nothing listens here
