@@ -95,16 +95,19 @@ def test_a_worker_killed_mid_run_loses_no_file_and_records_none_twice(
     client: distributed.Client, archive: Path, local_results: dict[str, str], tmp_path: Path,
 ) -> None:
     pids = client.run(os.getpid)
-    victim = sorted(pids.values())[0]
+    address, victim = sorted(pids.items())[0]
     killed: list[int] = []
+    held: list[str] = []
 
     def kill_once(progress: Progress) -> None:
         if progress.done >= FILES // 3 and not killed:
+            held.extend(client.processing(workers=[address]).get(address, ()))
             os.kill(victim, signal.SIGKILL)  # the worker and the tasks it holds are gone
             killed.append(victim)
 
     summary = _run(tmp_path / "data", archive, _on_cluster(client), on_progress=kill_once)
     assert killed, "the run ended before a third of it"
+    assert held, "the killed worker held no task: nothing had to be run elsewhere"
     assert (summary.recorded, summary.failed, summary.not_recorded) == (FILES, 0, 0)
     counts = versions_by_path(tmp_path / "data")
     assert len(counts) == FILES and set(counts.values()) == {1}
