@@ -53,8 +53,11 @@ def test_plain_progress_is_one_line_per_n_files_and_the_summary_names_verdict_ch
 
     config = isolated / "station.toml"
     config.write_text("[checks]\ncalibration_pass_cm1 = 0.5\ncalibration_warn_cm1 = 1.0\n", encoding="utf-8")
-    assert main(["reprocess", str(archive), "--data", str(data), "--config", str(config), "--plain"]) == 0
+    assert main(["reprocess", str(archive), "--data", str(data), "--config", str(config), "--plain", "--reports"]) == 0
     out = capsys.readouterr().out
+    reports = sorted((data / "reports").iterdir())  # --reports: the new versions' report files
+    assert len(reports) == 5 and all(int(folder.name.split("-")[0]) > 5 for folder in reports)
+    assert all((folder / "result.json").is_file() and (folder / "summary.md").is_file() for folder in reports)
     assert "  why analysed: settings changed 5" in out
     assert "  verdict changed (5 runs): warn -> pass 5" in out
     assert re.search(r"run \d+ -> \d+  warn -> pass  .*run-0000\d\.csv", out)
@@ -98,6 +101,7 @@ def test_refusals_are_one_line(isolated: Path, capsys: pytest.CaptureFixture[str
         (["reprocess", str(isolated / "nowhere"), "--data", data], "nowhere: no such file or folder"),
         (["reprocess", "--ledger-runs", "verdict=great", "--data", data], "verdict=great is not one of"),
         (["reprocess", str(archive), "--data", data, "--cluster"], "--cluster without an address needs [cluster]"),
+        (["reprocess", "--data", data, "--cluster", str(archive)], "put folders and files before --cluster"),
     ]
     for argv, says in cases:
         assert main(argv) == 1

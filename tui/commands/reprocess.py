@@ -47,19 +47,21 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from processing.errors import ConfigError
     from processing.regular_files import ReadPolicy
     from processing.reprocess.job import JobOptions, ReprocessJob, reprocess_lock
-    from processing.reprocess.selection import LedgerSelection, PathSelection, parse_query
+    from processing.reprocess.selection import LedgerSelection, PathSelection, SelectionError, parse_query
     from processing.station import ledger
     from processing.station.config import station_config, station_settings
 
+    if args.cluster and "://" not in args.cluster:
+        raise SelectionError(f"--cluster takes a scheduler address such as tcp://host:8786, not {args.cluster!r} "
+                             "(put folders and files before --cluster)")
     if not args.paths and args.ledger_runs is None:
-        raise ConfigError(None, "reprocess", "name folders, globs or files, or --ledger-runs QUERY (e.g. `all`)")
+        raise SelectionError("reprocess: name folders, globs or files, or --ledger-runs QUERY (e.g. `all`)")
     if args.workers is not None and not 1 <= args.workers <= 256:
-        raise ConfigError(None, "--workers", "must be between 1 and 256")
+        raise SelectionError("--workers must be between 1 and 256")
     if args.every < 1:
-        raise ConfigError(None, "--every", "must be at least 1")
+        raise SelectionError("--every must be at least 1")
     config = station_config(args.config, args.data).with_overrides(timeout_seconds=args.timeout, memory_limit_mb=args.memory_mb)
     data_dir = Path(config.data_folder).expanduser().resolve()
     settings = station_settings(config, ReadPolicy(forbidden=(str(data_dir),)))
