@@ -1,13 +1,14 @@
-"""Shared helpers for the reprocess tests: an isolated configuration, ledgers read back."""
+"""Fixtures for the reprocess tests (helpers are in reprocess_support.py)."""
 from __future__ import annotations
 
-import sqlite3
-from collections import Counter
+import sys
 from pathlib import Path
 
 import pytest
 
-from archive_files import write_archive  # noqa: F401  (re-exported for the tests)
+HERE = Path(__file__).resolve().parent
+if str(HERE) not in sys.path:  # archive_files, reprocess_hooks: also in the pool's processes
+    sys.path.insert(0, str(HERE))
 
 
 @pytest.fixture()
@@ -16,24 +17,3 @@ def isolated(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     monkeypatch.setenv("BANDWATCH_CONFIG", str(tmp_path / "no-config.toml"))
     monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "xdg"))
     return tmp_path
-
-
-def versions_by_path(data: Path) -> Counter[str]:
-    """How many versions the ledger in `data` holds of each path."""
-    conn = sqlite3.connect(data / "ledger.sqlite3")
-    try:
-        return Counter(str(row[0]) for row in conn.execute("SELECT path FROM runs"))
-    finally:
-        conn.close()
-
-
-def stored_results(data: Path) -> dict[str, str]:
-    """path -> the stored result JSON of its newest version."""
-    conn = sqlite3.connect(data / "ledger.sqlite3")
-    try:
-        rows = conn.execute(
-            "SELECT path, result_json FROM runs AS r WHERE version = (SELECT MAX(version) FROM runs WHERE path = r.path)"
-        ).fetchall()
-    finally:
-        conn.close()
-    return {str(path): text for path, text in rows}

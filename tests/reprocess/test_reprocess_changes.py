@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
-from conftest import write_archive
+from reprocess_support import write_archive
 from test_reprocess_local import reprocess
 
 from processing.pipeline import ProcessSettings

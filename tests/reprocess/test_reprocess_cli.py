@@ -9,7 +9,7 @@ import sys
 from pathlib import Path
 
 import pytest
-from conftest import versions_by_path, write_archive
+from reprocess_support import versions_by_path, write_archive
 
 from processing.errors import ConfigError
 from processing.reprocess.summary import Progress

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import distributed  # the test extra installs dask[distributed]: these tests always run
 import pytest
-from conftest import stored_results, versions_by_path, write_archive
+from reprocess_support import stored_results, versions_by_path, write_archive
 
 from processing.pipeline import ProcessSettings
 from processing.reprocess.cluster import ClusterBackend

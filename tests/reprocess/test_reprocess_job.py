@@ -6,7 +6,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 import pytest
-from conftest import versions_by_path, write_archive
+from reprocess_support import versions_by_path, write_archive
 
 from processing.pipeline import ProcessSettings, process_file
 from processing.reprocess import plan

@@ -12,7 +12,7 @@ from dataclasses import replace
 from pathlib import Path
 
 import pytest
-from conftest import stored_results, versions_by_path, write_archive
+from reprocess_support import stored_results, versions_by_path, write_archive
 
 from processing.checks import CheckThresholds
 from processing.pipeline import ProcessSettings
