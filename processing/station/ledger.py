@@ -26,6 +26,7 @@ from urllib.parse import quote
 
 from processing import strict_json
 from processing.errors import BandwatchError
+from processing.provenance import Provenance
 from processing.results import BAND_QUANTITIES, MOLECULAR_CONSTANTS, ResultFormatError, RunResult, from_json, to_json
 from processing.safe_text import safe_text
 
@@ -97,6 +98,13 @@ MIGRATIONS: tuple[Migration, ...] = (
     # 3 -> 4: every fitted quantity of a run as a row, so a trend is one query (`trend`);
     # the runs already recorded get theirs from their stored results
     lambda conn: _add_quantities_table(conn),
+    # 4 -> 5: what each version was made with (`processing.provenance`): `bandwatch reprocess`
+    # skips files whose newest version has today's analysis, library and settings
+    """
+    ALTER TABLE runs ADD COLUMN analysis_version TEXT;
+    ALTER TABLE runs ADD COLUMN library_hash TEXT;
+    ALTER TABLE runs ADD COLUMN settings_hash TEXT;
+    """,
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -122,6 +130,7 @@ class RunRecord:
     settings: dict[str, Any] | None = None  # only for runs reprocessed with changed settings
     reprocessed_from: int | None = None
     decided_at: str | None = None
+    provenance: Provenance | None = None  # what this version was made with (None: recorded before bandwatch kept it)
 
     @property
     def name(self) -> str:
@@ -469,13 +478,15 @@ def record_run(
     reprocessed_from: int | None = None,
     size_bytes: int | None = None,
     mtime_ns: int | None = None,
+    provenance: Provenance | None = None,
 ) -> RunRecord:
     """Record a finished run as the next version of `path`; drops `claim_id` atomically.
 
     `verdict` and `species` default to what `result` says; `result_json` is its JSON text
     when the caller already encoded it (the reports write the same bytes). Its fitted
     quantities go into `quantities` in the same transaction. `size_bytes` and `mtime_ns` are
-    the file's stat when it was read (lets a restart skip unchanged files without reading).
+    the file's stat when it was read (lets a restart skip unchanged files without reading);
+    `provenance` what the result was made with (analysis version, library and settings hashes).
     """
     if status not in RUN_STATUSES:
         raise ValueError(f"run status must be one of {RUN_STATUSES}, not {status!r}")
@@ -492,8 +503,9 @@ def record_run(
         version = next_version(conn, path)
         cursor = conn.execute(
             "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error,"
-            " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns)"
-            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns,"
+            " analysis_version, library_hash, settings_hash)"
+            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (
                 stored_path(path),
                 sha256,
@@ -509,6 +521,9 @@ def record_run(
                 reprocessed_from,
                 size_bytes,
                 mtime_ns,
+                provenance.analysis_version if provenance is not None else None,
+                provenance.library_hash if provenance is not None else None,
+                provenance.settings_hash if provenance is not None else None,
             ),
         )
         run_id = int(cursor.lastrowid or 0)
@@ -520,7 +535,7 @@ def record_run(
         run_id=run_id, path=path, sha256=sha256, version=version, status=status, verdict=verdict,
         decision=None, decision_reason=None, operator=None, received_at=received_at or stamp,
         processed_at=processed_at or stamp, species=tuple(species), error=error, result=result,
-        settings=settings, reprocessed_from=reprocessed_from,
+        settings=settings, reprocessed_from=reprocessed_from, provenance=provenance,
     )
 
 
@@ -533,6 +548,7 @@ def record_reprocessed(
     result_json: str | None = None,
     status: str | None = None,
     error: str | None = None,
+    provenance: Provenance | None = None,
 ) -> RunRecord:
     """Record a run reprocessed with changed settings: a new version of the same file."""
     original = get_run(conn, run_id, with_result=False)
@@ -552,13 +568,14 @@ def record_reprocessed(
         error=error if error is not None else (result.error if result is not None else None),
         settings=settings,
         reprocessed_from=run_id,
+        provenance=provenance,
     )
 
 
 
 _RUN_COLUMNS = (
     "run_id, path, sha256, version, status, verdict, species, result_json, error, received_at,"
-    " processed_at, settings_json, reprocessed_from"
+    " processed_at, settings_json, reprocessed_from, analysis_version, library_hash, settings_hash"
 )
 
 
@@ -618,7 +635,14 @@ def _record(row: sqlite3.Row, decision: DecisionEvent | None, with_result: bool 
         settings=json.loads(row["settings_json"]) if row["settings_json"] else None,
         reprocessed_from=row["reprocessed_from"],
         decided_at=decision.at if decision else None,
+        provenance=_provenance(row),
     )
+
+
+def _provenance(row: sqlite3.Row) -> Provenance | None:
+    if row["analysis_version"] is None:
+        return None
+    return Provenance(row["analysis_version"], row["library_hash"] or "", row["settings_hash"] or "")
 
 
 def _result(row: sqlite3.Row) -> RunResult:
@@ -786,3 +810,135 @@ def trend(conn: sqlite3.Connection, isotopologue: str, quantity: str, band: str 
         (isotopologue, quantity, band),
     ).fetchall()
     return [TrendPoint(row[0], int(row[1]), float(row[2]), None if row[3] is None else float(row[3])) for row in rows]
+
+
+# ---------------------------------------------------------------- reprocess (`bandwatch reprocess`)
+
+
+@dataclass(frozen=True)
+class LatestVersion:
+    """A file's newest version: what `bandwatch reprocess` needs to decide whether to analyse it
+    again and to record the next version (no result, no decision)."""
+
+    run_id: int
+    path: str
+    sha256: str | None
+    status: str
+    verdict: str | None
+    received_at: str
+    size_bytes: int | None
+    mtime_ns: int | None
+    provenance: Provenance | None
+    request_json: str | None = None  # the operator's redo request this version was made with
+
+
+@dataclass(frozen=True)
+class RunQuery:
+    """Which files of the ledger: every condition given must hold for the file's newest version."""
+
+    received_from: str | None = None  # received_at >= this (ISO 8601 text, UTC)
+    received_before: str | None = None  # received_at < this
+    verdicts: tuple[str, ...] = ()
+    statuses: tuple[str, ...] = ()
+    path_glob: str | None = None  # SQLite GLOB on the stored path
+    species: tuple[str, ...] = ()  # isotopologue labels: any of them among the run's species
+    instrument: str | None = None  # only on a ledger that records instruments
+
+
+_LATEST_COLUMNS = (
+    "run_id, path, sha256, status, verdict, received_at, size_bytes, mtime_ns, analysis_version, library_hash,"
+    " settings_hash, settings_json"
+)
+_NEWEST = "version = (SELECT MAX(later.version) FROM runs AS later WHERE later.path = runs.path)"
+
+
+def _latest(row: sqlite3.Row) -> LatestVersion:
+    return LatestVersion(
+        int(row["run_id"]), path_of(row["path"]), row["sha256"], row["status"], row["verdict"], row["received_at"],
+        row["size_bytes"], row["mtime_ns"], _provenance(row), row["settings_json"],
+    )
+
+
+def latest_versions(conn: sqlite3.Connection, paths: Iterable[str]) -> dict[str, LatestVersion]:
+    """path -> its newest version, for those of `paths` the ledger holds (one query per 500)."""
+    stored = [stored_path(path) for path in paths]
+    found: dict[str, LatestVersion] = {}
+    for start in range(0, len(stored), 500):
+        part = stored[start:start + 500]
+        rows = conn.execute(
+            f"SELECT {_LATEST_COLUMNS} FROM runs WHERE path IN ({','.join('?' * len(part))}) AND {_NEWEST}", part
+        ).fetchall()
+        for row in rows:
+            latest = _latest(row)
+            found[latest.path] = latest
+    return found
+
+
+def _query_sql(conn: sqlite3.Connection, query: RunQuery) -> tuple[str, list[Any]]:
+    terms = [_NEWEST]
+    params: list[Any] = []
+    if query.received_from is not None:
+        terms.append("received_at >= ?")
+        params.append(query.received_from)
+    if query.received_before is not None:
+        terms.append("received_at < ?")
+        params.append(query.received_before)
+    for column, values in (("verdict", query.verdicts), ("status", query.statuses)):
+        if values:
+            terms.append(f"{column} IN ({','.join('?' * len(values))})")
+            params.extend(values)
+    if query.path_glob is not None:
+        terms.append("CAST(path AS TEXT) GLOB ?")
+        params.append(query.path_glob)
+    if query.species:
+        terms.append("(" + " OR ".join("(',' || species || ',') LIKE ?" for _ in query.species) + ")")
+        params.extend(f"%,{label},%" for label in query.species)
+    if query.instrument is not None:
+        columns = {row[1] for row in conn.execute("PRAGMA table_info(runs)")}
+        if "instrument" not in columns:
+            raise LedgerError("this ledger records no instruments: leave out instrument=")
+        terms.append("instrument = ?")
+        params.append(query.instrument)
+    return " AND ".join(terms), params
+
+
+def latest_matching(
+    conn: sqlite3.Connection, query: RunQuery, after: str | bytes | None = None, limit: int = 1000
+) -> list[LatestVersion]:
+    """The newest versions of files matching `query`, in stored-path order, the first `limit`
+    after the stored path `after` (pages: pass `stored_path(last.path)` of the page before)."""
+    where, params = _query_sql(conn, query)
+    if after is not None:
+        where += " AND path > ?"
+        params.append(after)
+    rows = conn.execute(
+        f"SELECT {_LATEST_COLUMNS} FROM runs WHERE {where} ORDER BY path LIMIT ?", [*params, int(limit)]
+    ).fetchall()
+    return [_latest(row) for row in rows]
+
+
+def count_matching(conn: sqlite3.Connection, query: RunQuery) -> int:
+    where, params = _query_sql(conn, query)
+    return int(conn.execute(f"SELECT COUNT(*) FROM runs WHERE {where}", params).fetchone()[0])
+
+
+def quantity_changes(conn: sqlite3.Connection, provenance: Provenance) -> Iterable[tuple[str, str, str, str, float]]:
+    """(isotopologue, band, quantity, unit, new - old) of every fitted quantity found both in a
+    file's newest version made with today's analysis and library (`provenance`; its settings,
+    or an operator's redo request carried over) by a reprocess, and in the version it was
+    reprocessed from with the same redo request; ordered by isotopologue, band and quantity,
+    streamed (never all in memory)."""
+    cursor = conn.execute(
+        "SELECT n.isotopologue, n.band, n.quantity, n.unit, n.value - o.value FROM runs"
+        " JOIN runs AS old ON old.run_id = runs.reprocessed_from"
+        " JOIN quantities AS n ON n.run_id = runs.run_id"
+        " JOIN quantities AS o ON o.run_id = old.run_id AND o.isotopologue = n.isotopologue"
+        " AND o.band = n.band AND o.quantity = n.quantity"
+        " WHERE runs.analysis_version = ? AND runs.library_hash = ?"
+        " AND (runs.settings_json IS NOT NULL OR runs.settings_hash = ?)"
+        f" AND runs.settings_json IS old.settings_json AND runs.{_NEWEST}"
+        " ORDER BY n.isotopologue, n.band, n.quantity",
+        (provenance.analysis_version, provenance.library_hash, provenance.settings_hash),
+    )
+    for row in cursor:
+        yield (row[0], row[1], row[2], row[3], float(row[4]))

@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import IO
 
 from processing.errors import ConfigError
+from processing.provenance import Provenance, current_provenance
 from processing.readers import DEFAULT_MAX_BYTES
 from processing.regular_files import ReadPolicy
 from processing.results import RunResult
@@ -68,6 +69,7 @@ class _InFlight:
     requested: RedoRequest | None = None
     done: threading.Event | None = None
     answer: dict[str, int] | None = None  # the redo's new run id lands here
+    provenance: Provenance | None = None  # a redo's (its settings differ from the station's)
 
 
 class Station:
@@ -86,6 +88,7 @@ class Station:
         self._emit_to = on_event or self.events.put
         self.read_policy = ReadPolicy.for_station(self.export_dir, self.data_dir, config.follow_links_outside)
         self.settings = station_settings(config, self.read_policy)
+        self.provenance = current_provenance(self.settings)  # recorded with every version
         self.settler = Settler(
             config.settle_seconds, config.max_wait_seconds, DEFAULT_MAX_BYTES, policy=self.read_policy
         )
@@ -240,10 +243,12 @@ class Station:
         answer: dict[str, int] = {}
         with self._lock:
             self._job_ids += 1
-            job = Job(self._job_ids, run.path, redo_settings(self.settings, request))
+            settings = redo_settings(self.settings, request)
+            job = Job(self._job_ids, run.path, settings)
             self._inflight[job.job_id] = _InFlight(
                 run.path, run.sha256, None, ledger.now_iso(),
                 reprocess_of=run_id, requested=request, done=done, answer=answer,
+                provenance=current_provenance(settings),
             )
             self._inflight_paths.add(run.path)
         self.pool.submit(job)
@@ -501,12 +506,13 @@ class Station:
         """Record a file the station itself refused or gave up on as unreadable."""
         if isinstance(outcome, IncompleteFile):
             record = ledger.record_run(
-                self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}"
+                self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}",
+                provenance=self.provenance,
             )
         else:
             record = ledger.record_run(
                 self._conn(), outcome.path, None, "unreadable", error=outcome.reason,
-                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
+                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns, provenance=self.provenance,
             )
         self._emit(RunProcessed(record.run_id, record.version, record.path, record.status, None, (), record.error))
 
@@ -596,7 +602,7 @@ class Station:
             record = ledger.record_run(
                 conn, info.path, info.sha256, "failed", error=reason,
                 received_at=info.received_at, claim_id=info.claim_id,
-                size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
+                size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
@@ -606,7 +612,7 @@ class Station:
             conn, info.path, result.sha256 or info.sha256, status,
             result=result, result_json=outcome.result_json, error=result.error,
             received_at=info.received_at, claim_id=info.claim_id,
-            size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
+            size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
         self._report_and_announce(record, result, outcome.result_json, outcome.lines_csv)
 
@@ -644,10 +650,10 @@ class Station:
         conn = self._conn()
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
-            record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason)
+            record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason, provenance=info.provenance)
             info.answer["run_id"] = record.run_id
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
-        record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json)
+        record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json, provenance=info.provenance)
         info.answer["run_id"] = record.run_id
         self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv)

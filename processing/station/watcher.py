@@ -78,25 +78,35 @@ class FileFilter:
     def scan(self) -> Iterator[tuple[str, os.stat_result]]:
         """Every accepted name now in the folder that is not a folder (regular files, and
         FIFOs, devices, links that the settler then refuses with a reason), with its stat.
-        Iterative, so any depth of subfolders is fine."""
+        Iterative, so any depth of subfolders is fine; streamed, so a folder of a million
+        files is never held as a list (one folder is open at a time: subfolders wait on a stack
+        of names)."""
         stack = [self.root]
         while stack:
             folder = stack.pop()
             try:
-                entries = list(os.scandir(folder))
+                entries = os.scandir(folder)
             except OSError:
                 continue
-            for entry in entries:
-                try:
-                    if entry.is_dir(follow_symlinks=False):
-                        if self.recursive and not entry.name.startswith("."):
-                            stack.append(Path(entry.path))
-                        continue
-                    if entry.is_dir() or not self.accepts(entry.path):
-                        continue  # a link to a folder is not walked into
-                    yield entry.path, entry.stat()
-                except OSError:
-                    continue  # vanished while scanning
+            with entries:
+                while True:
+                    try:
+                        entry = next(entries)
+                    except StopIteration:
+                        break
+                    except OSError:
+                        break  # the folder went away while it was read
+                    try:
+                        if entry.is_dir(follow_symlinks=False):
+                            if self.recursive and not entry.name.startswith("."):
+                                stack.append(Path(entry.path))
+                            continue
+                        if entry.is_dir() or not self.accepts(entry.path):
+                            continue  # a link to a folder is not walked into
+                        found = entry.stat()
+                    except OSError:
+                        continue  # vanished while scanning
+                    yield entry.path, found
 
 
 def filesystem_type(path: str | Path) -> str:

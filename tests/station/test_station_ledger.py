@@ -22,7 +22,7 @@ def _result(verdict: str = "pass", origin: float = 2885.98, b_e: float = 10.5934
 def test_open_creates_wal_ledger_at_current_schema(tmp_path: Path) -> None:
     conn = lg.open_ledger(tmp_path / "data")
     assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
-    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 4
+    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 5
     assert lg.list_runs(conn) == []
 
 
