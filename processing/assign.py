@@ -39,16 +39,9 @@ from processing.physical_constants import C2_CM_K
 if TYPE_CHECKING:
     from processing.intensities import BandIntensities
     from processing.levels import DunhamCoefficients
-    from processing.species import Isotopologue, Library
+    from processing.species import InterferentRegion, Isotopologue, Library
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
-# Regions where lines are most likely from atmospheric interferents (common practice).
-INTERFERENT_REGIONS: tuple[tuple[float, float, str], ...] = (
-    (2280.0, 2390.0, "interferent (CO2-like band region)"),
-    (640.0, 700.0, "interferent (CO2-like bend region)"),
-    (1300.0, 2000.0, "interferent (water-vapour region)"),
-    (3450.0, 4000.0, "interferent (water-vapour region)"),
-)
 MIN_BAND_LINES = 5
 # How well the library places a band's lines relative to one another once a common shift is
 # applied (main isotopologues ~0.01 cm-1 to J'' ~15, mass-scaled ones a few hundredths; calc
@@ -760,15 +753,19 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Library) ->
 
 
 # ------------------------------------------------------------------------------- main entry
-def _likely_cause(lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]], refused: dict[int, float]) -> str:
+def _likely_cause(
+    lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]], refused: dict[int, float],
+    interferent_regions: tuple[InterferentRegion, ...] = (),
+) -> str:
     if i in refused:
         return f"{refused[i]:.0f}x taller than its band's intensity pattern allows (another absorber or noise on a predicted line)"
     if lines.ringing[i]:
         return "ringing beside a strong line"
     x = lines.position_cm1[i]
-    for low, high, cause in INTERFERENT_REGIONS:
-        if low <= x <= high and not any(a <= x <= b for a, b in first_fit_regions):
-            return cause
+    # where atmospheric absorbers left in the beam put their lines (the library's regions)
+    region = next((r for r in interferent_regions if r.holds(x)), None)
+    if region is not None and not any(a <= x <= b for a, b in first_fit_regions):
+        return f"interferent ({region.description})"
     if lines.snr[i] < 8.0:
         return "noise"
     return "unknown"
@@ -949,7 +946,7 @@ def _assign_at(
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused)
+    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused, library.interferent_regions)
     if settings.species:
         found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
         missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
@@ -977,6 +974,7 @@ def _finish(
     notes: list[str],
     measure_doublet: DoubletMeasure | None = None,
     refused: dict[int, float] | None = None,
+    interferent_regions: tuple[InterferentRegion, ...] = (),
 ) -> AssignmentResult:
     """Final fit per band, per-line results with confidence, likely causes for the rest."""
     refused = refused or {}
@@ -1043,7 +1041,10 @@ def _finish(
                 blend_pull=float(pull[k]),
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
-    causes = tuple(None if per_line[i] is not None else _likely_cause(lines, i, fitted_regions, refused) for i in range(lines.count))
+    causes = tuple(
+        None if per_line[i] is not None else _likely_cause(lines, i, fitted_regions, refused, interferent_regions)
+        for i in range(lines.count)
+    )
     species = tuple(sorted({f.isotopologue for f in fits}))
     return AssignmentResult(
         per_line=tuple(per_line),

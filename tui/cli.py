@@ -17,6 +17,7 @@ COMMANDS: dict[str, str] = {
     "demo": "demo",
     "watch": "watch",
     "ledger": "ledger",
+    "reprocess": "reprocess",
     "init": "init",
 }
 

@@ -71,6 +71,7 @@ class StationConfig:
     checks: CheckThresholds = field(default_factory=CheckThresholds)  # the [checks] table: run check limits only
     instrument: str = field(default_factory=default_instrument)  # [station] instrument: runs are keyed by it
     ledger_url: str | None = None  # [ledger] url: a PostgreSQL server instead of the data folder's file
+    cluster_address: str | None = None  # the [cluster] table's address: Dask scheduler for `bandwatch reprocess`
     source: str | None = None  # the file this came from, for messages
     # "module:function" taking (path, ProcessSettings) -> RunResult; tests inject failures here
     process_function: str = DEFAULT_PROCESS_FUNCTION
@@ -91,9 +92,12 @@ class StationConfig:
         return self.ledger_url if self.ledger_url else self.data_folder.expanduser()
 
 
-# keys given in tables of their own: [station] instrument, [ledger] url
+# keys given in tables of their own: [station] instrument, [ledger] url ([cluster] address: below)
 _TABLES = {"station": {"instrument": "instrument"}, "ledger": {"url": "ledger_url"}}
-_KEYS = {f.name for f in fields(StationConfig)} - {"source", "process_function", "instrument", "ledger_url"} | set(_TABLES)
+_KEYS = (
+    {f.name for f in fields(StationConfig)} - {"source", "process_function", "instrument", "ledger_url", "cluster_address"}
+) | set(_TABLES) | {"cluster"}
+CLUSTER_KEYS = ("address",)
 
 
 def load_config(path: str | Path | None = None, *, required: bool = False) -> StationConfig:
@@ -122,6 +126,9 @@ def config_from_table(table: dict[str, Any], source: str | None = None, base_dir
     for key, value in table.items():
         if key in _TABLES:
             values.update(_table_values(source, key, value))
+            continue
+        if key == "cluster":
+            values["cluster_address"] = _cluster_address(source, value)
             continue
         values[key] = _convert(source, key, value, base_dir)
     return validate(replace(StationConfig(source=source), **values))
@@ -177,6 +184,21 @@ def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) ->
             raise ConfigError(source, key, "must be a table of check thresholds")
         return CheckThresholds.from_mapping(value, source)  # refuses anything but valid thresholds
     raise ConfigError(source, key, "unknown key")
+
+
+def _cluster_address(source: str | None, value: Any) -> str | None:
+    """The [cluster] table: `address` of a Dask scheduler, e.g. "tcp://scheduler:8786"."""
+    if not isinstance(value, dict):
+        raise ConfigError(source, "cluster", "must be a table ([cluster] with address = \"tcp://host:8786\")")
+    for key in value:
+        if key not in CLUSTER_KEYS:
+            raise ConfigError(source, f"cluster.{key}", f"unknown key (known: {', '.join(CLUSTER_KEYS)})")
+    address = value.get("address")
+    if address is None:
+        return None
+    if not isinstance(address, str) or "://" not in address.strip():
+        raise ConfigError(source, "cluster.address", f"must be a scheduler address such as \"tcp://host:8786\", got {address!r}")
+    return address.strip()
 
 
 _SECONDS_KEYS = ("settle_seconds", "max_wait_seconds", "rescan_seconds", "timeout_seconds")
@@ -335,6 +357,11 @@ species = []
 # The ledger is ledger.sqlite3 in the data folder unless a PostgreSQL server is named here
 # (pip install 'bandwatch[facility]'). Never put the password here: PGPASSWORD or ~/.pgpass.
 # url = "postgresql://bandwatch_station@ledger-host/bandwatch"
+
+# `bandwatch reprocess --cluster` without an address uses this Dask scheduler (needs
+# pip install 'bandwatch[cluster]'); uncomment both lines:
+# [cluster]
+# address = "tcp://scheduler:8786"
 
 # Check thresholds (names and defaults in processing/checks.py, CheckThresholds), e.g.
 # calibration_pass_cm1 = 0.05. Only thresholds: finite numbers, a pass limit as strict as its

@@ -31,6 +31,7 @@ from typing import TYPE_CHECKING, Any, Union
 from urllib.parse import quote, unquote_to_bytes
 
 from processing import strict_json
+from processing.provenance import Provenance
 from processing.results import BAND_QUANTITIES, MOLECULAR_CONSTANTS, ResultFormatError, RunResult, from_json, to_json
 from processing.safe_text import safe_text
 from processing.station import ledger_postgres
@@ -110,7 +111,14 @@ MIGRATIONS: tuple[Migration, ...] = (
     # 3 -> 4: every fitted quantity of a run as a row, so a trend is one query (`trend`);
     # the runs already recorded get theirs from their stored results
     lambda conn: _add_quantities_table(conn),
-    # 4 -> 5: instruments (runs keyed by instrument + path), idempotent record keys (a spooled
+    # 4 -> 5: what each version was made with (`processing.provenance`): `bandwatch reprocess`
+    # skips files whose newest version has today's analysis, library and settings
+    """
+    ALTER TABLE runs ADD COLUMN analysis_version TEXT;
+    ALTER TABLE runs ADD COLUMN library_hash TEXT;
+    ALTER TABLE runs ADD COLUMN settings_hash TEXT;
+    """,
+    # 5 -> 6: instruments (runs keyed by instrument + path), idempotent record keys (a spooled
     # outcome replayed twice is one run) and the change journal the interfaces poll
     lambda conn: _add_instruments_and_changes(conn),
 )
@@ -122,6 +130,7 @@ SERVER_MIGRATIONS: tuple[ledger_postgres.PgMigration, ...] = (
     ledger_postgres.CLAIMS,
     ledger_postgres.FILE_STAT,
     lambda conn: _add_quantities_table(conn),
+    ledger_postgres.PROVENANCE,
     ledger_postgres.INSTRUMENTS_AND_CHANGES,
 )
 
@@ -148,6 +157,7 @@ class RunRecord:
     reprocessed_from: int | None = None
     decided_at: str | None = None
     instrument: str = ""  # the station's instrument name ("" for runs recorded before instruments)
+    provenance: Provenance | None = None  # what this version was made with (None: recorded before bandwatch kept it)
 
     @property
     def name(self) -> str:
@@ -584,12 +594,12 @@ def _add_quantities_table(conn: Connection) -> None:
         _insert_quantities(conn, int(row[0]), result)
 
 
-_RUN_COLUMNS_V4 = (
+_RUN_COLUMNS_V5 = (
     "run_id, path, sha256, version, status, verdict, species, result_json, error, received_at,"
-    " processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns"
+    " processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns, analysis_version, library_hash, settings_hash"
 )
-RUNS_TABLE_V5 = """
-    CREATE TABLE runs_v5 (
+RUNS_TABLE_V6 = """
+    CREATE TABLE runs_v6 (
         run_id           INTEGER PRIMARY KEY AUTOINCREMENT,
         path             TEXT NOT NULL,
         sha256           TEXT,
@@ -604,6 +614,9 @@ RUNS_TABLE_V5 = """
         reprocessed_from INTEGER REFERENCES runs (run_id),
         size_bytes       INTEGER,
         mtime_ns         INTEGER,
+        analysis_version TEXT,
+        library_hash     TEXT,
+        settings_hash    TEXT,
         instrument       TEXT NOT NULL DEFAULT '',
         record_key       TEXT,
         result_json      TEXT,  -- last: a listing reads the columns before it, never its overflow pages
@@ -628,16 +641,16 @@ INSTRUMENTS_AND_CHANGES = """
 
 
 def _add_instruments_and_changes(conn: sqlite3.Connection) -> None:
-    """Migration 4 -> 5 on the file: `runs` rebuilt with `instrument` and `record_key` and the
+    """Migration 5 -> 6 on the file: `runs` rebuilt with `instrument` and `record_key` and the
     key (instrument, path, version) (SQLite cannot change a table's UNIQUE in place; `migrate`
-    turns foreign keys off meanwhile), claims get `instrument`, and the change journal starts.
-    Runs already recorded keep instrument "" until their station adopts them
-    (`adopt_unnamed_runs`)."""
-    for statement in _statements(RUNS_TABLE_V5):
+    turns foreign keys off meanwhile), every column of version 5 carried over (provenance
+    included), claims get `instrument`, and the change journal starts. Runs already recorded
+    keep instrument "" until their station adopts them (`adopt_unnamed_runs`)."""
+    for statement in _statements(RUNS_TABLE_V6):
         conn.execute(statement)
-    conn.execute(f"INSERT INTO runs_v5 ({_RUN_COLUMNS_V4}) SELECT {_RUN_COLUMNS_V4} FROM runs")
+    conn.execute(f"INSERT INTO runs_v6 ({_RUN_COLUMNS_V5}) SELECT {_RUN_COLUMNS_V5} FROM runs")
     conn.execute("DROP TABLE runs")
-    conn.execute("ALTER TABLE runs_v5 RENAME TO runs")
+    conn.execute("ALTER TABLE runs_v6 RENAME TO runs")
     for statement in _statements(INSTRUMENTS_AND_CHANGES):
         conn.execute(statement)
 
@@ -685,6 +698,7 @@ def record_run(
     mtime_ns: int | None = None,
     instrument: str = "",
     record_key: str | None = None,
+    provenance: Provenance | None = None,
 ) -> RunRecord:
     """Record a finished run as the next version of `path` on `instrument`; drops `claim_id`
     atomically.
@@ -692,7 +706,8 @@ def record_run(
     `verdict` and `species` default to what `result` says; `result_json` is its JSON text
     when the caller already encoded it (the reports write the same bytes). Its fitted
     quantities go into `quantities` in the same transaction. `size_bytes` and `mtime_ns` are
-    the file's stat when it was read (lets a restart skip unchanged files without reading).
+    the file's stat when it was read (lets a restart skip unchanged files without reading);
+    `provenance` what the result was made with (analysis version, library and settings hashes).
     `record_key` makes the record idempotent: a run already recorded under that key is
     returned as it is, nothing is written (a spooled outcome replayed after a lost answer).
     """
@@ -716,8 +731,9 @@ def record_run(
         run_id = _insert_returning(
             conn,
             "INSERT INTO runs (path, sha256, version, status, verdict, species, result_json, error,"
-            " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns, instrument, record_key)"
-            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            " received_at, processed_at, settings_json, reprocessed_from, size_bytes, mtime_ns, instrument, record_key,"
+            " analysis_version, library_hash, settings_hash)"
+            " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (
                 stored_path(path, conn),
                 sha256,
@@ -735,6 +751,9 @@ def record_run(
                 mtime_ns,
                 instrument,
                 record_key,
+                provenance.analysis_version if provenance is not None else None,
+                provenance.library_hash if provenance is not None else None,
+                provenance.settings_hash if provenance is not None else None,
             ),
             "run_id",
         )
@@ -746,7 +765,7 @@ def record_run(
         run_id=run_id, path=path, sha256=sha256, version=version, status=status, verdict=verdict,
         decision=None, decision_reason=None, operator=None, received_at=received_at or stamp,
         processed_at=processed_at or stamp, species=tuple(species), error=error, result=result,
-        settings=settings, reprocessed_from=reprocessed_from, instrument=instrument,
+        settings=settings, reprocessed_from=reprocessed_from, instrument=instrument, provenance=provenance,
     )
 
 
@@ -759,6 +778,7 @@ def record_reprocessed(
     result_json: str | None = None,
     status: str | None = None,
     error: str | None = None,
+    provenance: Provenance | None = None,
 ) -> RunRecord:
     """Record a run reprocessed with changed settings: a new version of the same file (on the
     same instrument)."""
@@ -780,12 +800,13 @@ def record_reprocessed(
         settings=settings,
         reprocessed_from=run_id,
         instrument=original.instrument,
+        provenance=provenance,
     )
 
 
 _RUN_COLUMNS_LISTED = (
     "run_id, path, sha256, version, status, verdict, species, error, received_at,"
-    " processed_at, settings_json, reprocessed_from, instrument"
+    " processed_at, settings_json, reprocessed_from, instrument, analysis_version, library_hash, settings_hash"
 )
 _RUN_COLUMNS = _RUN_COLUMNS_LISTED + ", result_json"
 
@@ -810,7 +831,7 @@ def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, server
     record is as frozen and compares equal as any other): `bandwatch ledger list` builds
     100,000 of them, and the generated __init__ was a third of its time."""
     (run_id, path, sha256, version, status, verdict, species, error, received_at, processed_at,
-     settings_json, reprocessed_from, instrument) = values[:13]
+     settings_json, reprocessed_from, instrument, analysis_version, library_hash, settings_hash) = values[:16]
     if isinstance(path, bytes) or (server and path.startswith(SERVER_BYTES_PATH)):  # type: ignore[union-attr]
         path = path_of(path, _SERVER if server else None)  # type: ignore[arg-type]
     record = _new_object(RunRecord)
@@ -819,9 +840,10 @@ def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, server
         decision.action if decision else None, decision.reason if decision else None,
         decision.operator if decision else None, received_at, processed_at,
         tuple(species.split(",")) if species else (), error,  # type: ignore[union-attr]
-        _result_text(run_id, values[13]) if len(values) > 13 and values[13] else None,  # type: ignore[arg-type]
+        _result_text(run_id, values[16]) if len(values) > 16 and values[16] else None,  # type: ignore[arg-type]
         json.loads(settings_json) if settings_json else None, reprocessed_from,  # type: ignore[arg-type]
         decision.at if decision else None, instrument or "",
+        None if analysis_version is None else Provenance(analysis_version, library_hash or "", settings_hash or ""),  # type: ignore[arg-type]
     )))
     return record
 
@@ -897,7 +919,14 @@ def _record(row: LedgerRow, decision: DecisionEvent | None, with_result: bool = 
         reprocessed_from=None if row["reprocessed_from"] is None else int(row["reprocessed_from"]),
         decided_at=decision.at if decision else None,
         instrument=row["instrument"] or "",
+        provenance=_provenance(row),
     )
+
+
+def _provenance(row: LedgerRow) -> Provenance | None:
+    if row["analysis_version"] is None:
+        return None
+    return Provenance(row["analysis_version"], row["library_hash"] or "", row["settings_hash"] or "")
 
 
 def _result(row: LedgerRow) -> RunResult:
@@ -1133,3 +1162,198 @@ def trend(
         TrendPoint(row[0], int(row[1]), float(row[2]), None if row[3] is None else float(row[3]), row[4] or "")
         for row in rows
     ]
+
+
+# ---------------------------------------------------------------- reprocess (`bandwatch reprocess`)
+
+
+@dataclass(frozen=True)
+class LatestVersion:
+    """A file's newest version on its instrument: what `bandwatch reprocess` needs to decide
+    whether to analyse it again and to record the next version (no result, no decision)."""
+
+    run_id: int
+    path: str
+    sha256: str | None
+    status: str
+    verdict: str | None
+    received_at: str
+    size_bytes: int | None
+    mtime_ns: int | None
+    provenance: Provenance | None
+    request_json: str | None = None  # the operator's redo request this version was made with
+    instrument: str = ""
+
+
+@dataclass(frozen=True)
+class RunQuery:
+    """Which files of the ledger: every condition given must hold for the file's newest version."""
+
+    received_from: str | None = None  # received_at >= this (ISO 8601 text, UTC)
+    received_before: str | None = None  # received_at < this
+    verdicts: tuple[str, ...] = ()
+    statuses: tuple[str, ...] = ()
+    path_glob: str | None = None  # a glob on the path (`*`, `?`, `[...]`; `*` crosses folders)
+    species: tuple[str, ...] = ()  # isotopologue labels: any of them among the run's species
+    instrument: str | None = None  # only this instrument's files
+
+
+_LATEST_COLUMNS = (
+    "run_id, path, sha256, status, verdict, received_at, size_bytes, mtime_ns, analysis_version, library_hash,"
+    " settings_hash, settings_json, instrument"
+)
+# a run is its file's newest version on its instrument
+_NEWEST = (
+    "version = (SELECT MAX(later.version) FROM runs AS later"
+    " WHERE later.instrument = runs.instrument AND later.path = runs.path)"
+)
+LATEST_BATCH = 500  # paths asked per query
+
+
+def _latest(row: LedgerRow, conn: Connection) -> LatestVersion:
+    return LatestVersion(
+        int(row["run_id"]), path_of(row["path"], conn), row["sha256"], row["status"], row["verdict"],
+        row["received_at"], row["size_bytes"], row["mtime_ns"], _provenance(row), row["settings_json"],
+        row["instrument"] or "",
+    )
+
+
+def latest_versions(conn: Connection, paths: Iterable[str], instrument: str = "") -> dict[str, LatestVersion]:
+    """path -> its newest version on `instrument`, for those of `paths` the ledger holds (one
+    query per `LATEST_BATCH` paths)."""
+    stored = [stored_path(path, conn) for path in paths]
+    found: dict[str, LatestVersion] = {}
+    for start in range(0, len(stored), LATEST_BATCH):
+        part = stored[start:start + LATEST_BATCH]
+        rows = conn.execute(
+            f"SELECT {_LATEST_COLUMNS} FROM runs WHERE instrument = ? AND path IN ({','.join('?' * len(part))})"
+            f" AND {_NEWEST}",
+            (instrument, *part),
+        ).fetchall()
+        for row in rows:
+            latest = _latest(row, conn)
+            found[latest.path] = latest
+    return found
+
+
+def glob_regex(pattern: str) -> str | None:
+    """A path glob as an anchored POSIX regular expression with SQLite GLOB's meaning: `*` any
+    text (folders included), `?` one character, `[abc]`, `[a-z]`, `[^abc]` one of (or none of)
+    a set; everything else literal, case kept; None for a `[` never closed (GLOB then matches
+    nothing). The server has no GLOB; it matches with `~`."""
+    out = ["^"]
+    index = 0
+    while index < len(pattern):
+        char = pattern[index]
+        if char == "*":
+            out.append(".*")
+        elif char == "?":
+            out.append(".")
+        elif char == "[":
+            end = index + 1
+            if end < len(pattern) and pattern[end] == "^":
+                end += 1
+            if end < len(pattern) and pattern[end] == "]":
+                end += 1  # a ] first in the set is one of its members
+            end = pattern.find("]", end)
+            if end < 0:
+                return None
+            members = pattern[index + 1:end]
+            negated = members.startswith("^")
+            if negated:
+                members = members[1:]
+            escaped = members.replace("\\", "\\\\")  # a ] first stays first: a member, as in GLOB
+            out.append(f"[{'^' if negated else ''}{escaped}]")
+            index = end
+        else:
+            out.append("\\" + char if not char.isalnum() and char not in "/_ " else char)
+        index += 1
+    out.append("$")
+    return "".join(out)
+
+
+def _query_sql(conn: Connection, query: RunQuery) -> tuple[str, list[SqlValue]]:
+    terms = [_NEWEST]
+    params: list[SqlValue] = []
+    if query.received_from is not None:
+        terms.append("received_at >= ?")
+        params.append(query.received_from)
+    if query.received_before is not None:
+        terms.append("received_at < ?")
+        params.append(query.received_before)
+    for column, values in (("verdict", query.verdicts), ("status", query.statuses)):
+        if values:
+            terms.append(f"{column} IN ({','.join('?' * len(values))})")
+            params.extend(values)
+    if query.path_glob is not None:
+        if dialect(conn) == "postgresql":
+            # a name that is not UTF-8 is stored as SERVER_BYTES_PATH + %-escapes: its folders still match
+            regex = glob_regex(query.path_glob)
+            if regex is None:
+                terms.append("1 = 0")
+            else:
+                terms.append("regexp_replace(path, ?, '') ~ ?")
+                params.extend(("^" + SERVER_BYTES_PATH, regex))
+        else:
+            terms.append("CAST(path AS TEXT) GLOB ?")
+            params.append(query.path_glob)
+    if query.species:
+        terms.append("(" + " OR ".join("(',' || species || ',') LIKE ?" for _ in query.species) + ")")
+        params.extend(f"%,{label},%" for label in query.species)
+    if query.instrument is not None:
+        terms.append("instrument = ?")
+        params.append(query.instrument)
+    return " AND ".join(terms), params
+
+
+def latest_matching(
+    conn: Connection, query: RunQuery, after: LatestVersion | None = None, limit: int = 1000
+) -> list[LatestVersion]:
+    """The newest versions of files matching `query`, ordered by instrument and stored path (on
+    the file a name that is not UTF-8, stored as bytes, comes after every text path), the first
+    `limit` after `after` (pages: pass the last of the page before)."""
+    where, params = _query_sql(conn, query)
+    if after is not None:
+        where += " AND (instrument > ? OR (instrument = ? AND path > ?))"
+        params.extend((after.instrument, after.instrument, stored_path(after.path, conn)))
+    rows = conn.execute(
+        f"SELECT {_LATEST_COLUMNS} FROM runs WHERE {where} ORDER BY instrument, path LIMIT ?", (*params, int(limit))
+    ).fetchall()
+    return [_latest(row, conn) for row in rows]
+
+
+def count_matching(conn: Connection, query: RunQuery) -> int:
+    """How many files `latest_matching` pages through for `query`."""
+    where, params = _query_sql(conn, query)
+    row = conn.execute(f"SELECT COUNT(*) FROM runs WHERE {where}", tuple(params)).fetchone()
+    return int(row[0]) if row else 0
+
+
+def quantity_changes(conn: Connection, provenance: Provenance) -> Iterable[tuple[str, str, str, str, float]]:
+    """(isotopologue, band, quantity, unit, new - old) of every fitted quantity found both in a
+    file's newest version made with today's analysis and library (`provenance`; its settings,
+    or an operator's redo request carried over) by a reprocess, and in the version it was
+    reprocessed from with the same redo request; ordered by isotopologue, band and quantity
+    (byte order on both backends), streamed (never all in memory)."""
+    server = dialect(conn) == "postgresql"
+    same_request = "IS NOT DISTINCT FROM" if server else "IS"  # equal, or both NULL
+    order = ', '.join(f'n.{column} COLLATE "C"' if server else f"n.{column}" for column in ("isotopologue", "band", "quantity"))
+    sql = (
+        "SELECT n.isotopologue, n.band, n.quantity, n.unit, n.value - o.value FROM runs"
+        " JOIN runs AS old ON old.run_id = runs.reprocessed_from"
+        " JOIN quantities AS n ON n.run_id = runs.run_id"
+        " JOIN quantities AS o ON o.run_id = old.run_id AND o.isotopologue = n.isotopologue"
+        " AND o.band = n.band AND o.quantity = n.quantity"
+        " WHERE runs.analysis_version = ? AND runs.library_hash = ?"
+        " AND (runs.settings_json IS NOT NULL OR runs.settings_hash = ?)"
+        f" AND runs.settings_json {same_request} old.settings_json AND runs.{_NEWEST}"
+        f" ORDER BY {order}"
+    )
+    params = (provenance.analysis_version, provenance.library_hash, provenance.settings_hash)
+    rows: Iterable[tuple[SqlValue, ...]]
+    if server:
+        rows = conn.stream(sql, params)  # type: ignore[union-attr]
+    else:
+        rows = conn.execute(sql, params)
+    for row in rows:
+        yield (str(row[0]), str(row[1]), str(row[2]), str(row[3]), float(row[4]))  # type: ignore[arg-type]

@@ -148,6 +148,15 @@ class PostgresConnection:
         except _driver_errors() as error:
             raise problem(self.where, error) from None
 
+    def stream(self, sql: str, params: SqlParams = ()) -> Iterator[tuple[SqlValue, ...]]:
+        """Rows as plain tuples, one at a time as the server sends them (a long answer is never
+        all in memory; the connection runs nothing else until the last row is read)."""
+        try:
+            with self.raw.cursor() as cursor:
+                yield from cursor.stream(translate(sql) if params else sql, tuple(params) if params else None)
+        except _driver_errors() as error:
+            raise problem(self.where, error) from None
+
     def executemany(self, sql: str, rows: Sequence[SqlParams]) -> None:
         rows = list(rows)
         if not rows:
@@ -315,7 +324,13 @@ QUANTITIES_TABLE = """
     CREATE INDEX quantities_by_name ON quantities (isotopologue, quantity, band, run_id);
     CREATE INDEX quantities_by_run ON quantities (run_id);
 """
-# 4 -> 5: instruments (runs keyed by instrument + path), idempotent record keys (a spooled
+# 4 -> 5: what each version was made with (`processing.provenance`)
+PROVENANCE = """
+    ALTER TABLE runs ADD COLUMN analysis_version TEXT;
+    ALTER TABLE runs ADD COLUMN library_hash TEXT;
+    ALTER TABLE runs ADD COLUMN settings_hash TEXT;
+"""
+# 5 -> 6: instruments (runs keyed by instrument + path), idempotent record keys (a spooled
 # outcome replayed twice is one run), and the change journal every interface polls (its
 # trigger takes the writer lock, so change ids grow in commit order, and announces each one)
 INSTRUMENTS_AND_CHANGES = f"""

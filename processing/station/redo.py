@@ -17,6 +17,7 @@ from typing import Any
 
 from processing.errors import ConfigError
 from processing.pipeline import ProcessSettings, process_file
+from processing.provenance import Provenance, current_provenance
 from processing.regular_files import ReadPolicy
 from processing.results import RunResult, to_json
 from processing.station import ledger
@@ -111,12 +112,16 @@ def redo_settings(base: ProcessSettings, request: RedoRequest) -> ProcessSetting
 def record_redo(
     conn: ledger.Connection, run_id: int, request: RedoRequest,
     result: RunResult | None, result_json: str | None = None, failure: str | None = None,
+    provenance: Provenance | None = None,
 ) -> ledger.RunRecord:
-    """The redo's outcome as a new version of the run, with the request beside it (ledger only;
-    the caller writes the reports: the station retries them while its disk is full)."""
+    """The redo's outcome as a new version of the run, with the request beside it and what it
+    was made with (ledger only; the caller writes the reports: the station retries them while
+    its disk is full)."""
     if result is None:
-        return ledger.record_reprocessed(conn, run_id, None, request.to_dict(), status="failed", error=failure or "no result")
-    return ledger.record_reprocessed(conn, run_id, result, request.to_dict(), result_json=result_json)
+        return ledger.record_reprocessed(
+            conn, run_id, None, request.to_dict(), status="failed", error=failure or "no result", provenance=provenance
+        )
+    return ledger.record_reprocessed(conn, run_id, result, request.to_dict(), result_json=result_json, provenance=provenance)
 
 
 @dataclass(frozen=True)
@@ -148,7 +153,7 @@ def redo_here(
         except MemoryError:
             return RedoOutcome(None, f"run {run_id}: out of memory while redoing it")
         text = to_json(result)
-        record = record_redo(conn, run_id, request, result, text)
+        record = record_redo(conn, run_id, request, result, text, provenance=current_provenance(settings))
         if record.status == "processed":
             try:
                 write_reports(data_dir, record.run_id, record.version, result, text)

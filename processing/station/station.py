@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import IO
 
 from processing.errors import ConfigError
+from processing.provenance import Provenance, current_provenance
 from processing.readers import DEFAULT_MAX_BYTES
 from processing.regular_files import ReadPolicy
 from processing.results import RunResult
@@ -69,6 +70,7 @@ class _InFlight:
     requested: RedoRequest | None = None
     done: threading.Event | None = None
     answer: dict[str, int] | None = None  # the redo's new run id lands here
+    provenance: Provenance | None = None  # a redo's (its settings differ from the station's)
 
 
 class Station:
@@ -87,6 +89,7 @@ class Station:
         self._emit_to = on_event or self.events.put
         self.read_policy = ReadPolicy.for_station(self.export_dir, self.data_dir, config.follow_links_outside)
         self.settings = station_settings(config, self.read_policy)
+        self.provenance = current_provenance(self.settings)  # recorded with every version
         self.settler = Settler(
             config.settle_seconds, config.max_wait_seconds, DEFAULT_MAX_BYTES, policy=self.read_policy
         )
@@ -245,10 +248,12 @@ class Station:
         answer: dict[str, int] = {}
         with self._lock:
             self._job_ids += 1
-            job = Job(self._job_ids, run.path, redo_settings(self.settings, request))
+            settings = redo_settings(self.settings, request)
+            job = Job(self._job_ids, run.path, settings)
             self._inflight[job.job_id] = _InFlight(
                 run.path, run.sha256, None, ledger.now_iso(),
                 reprocess_of=run_id, requested=request, done=done, answer=answer,
+                provenance=current_provenance(settings),
             )
             self._inflight_paths.add(run.path)
         self.pool.submit(job)
@@ -403,7 +408,13 @@ class Station:
             self._emit(StationProblem(f"catch-up scan failed: {type(error).__name__}: {error}"))
         next_rescan = time.monotonic() + self.config.rescan_seconds
         while not self._stopping.is_set():
-            self._wakeup.wait(self.tick_seconds)
+            # wake at the next tick, or sooner when a pending file's settle time ends then (a
+            # file is taken when it has settled, not up to a tick later)
+            due = self.settler.next_due()
+            remaining = None if due is None else due - time.monotonic()
+            # (a file already due but held or incomplete waits for the next tick, no spinning)
+            wait = self.tick_seconds if remaining is None or remaining <= 0 else min(self.tick_seconds, remaining)
+            self._wakeup.wait(wait)
             self._wakeup.clear()
             try:
                 if time.monotonic() >= self._next_folder_check:
@@ -491,11 +502,14 @@ class Station:
     def _record_unread(self, outcome: IncompleteFile | RefusedFile) -> None:
         """Record a file the station itself refused or gave up on as unreadable."""
         if isinstance(outcome, IncompleteFile):
-            record = self.store.record(outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}")
+            record = self.store.record(
+                outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}",
+                provenance=self.provenance,
+            )
         else:
             record = self.store.record(
                 outcome.path, None, "unreadable", error=outcome.reason,
-                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
+                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns, provenance=self.provenance,
             )
         if record is None:
             return  # kept in the spool: announced when the server has it
@@ -585,7 +599,7 @@ class Station:
             record = self.store.record(
                 info.path, info.sha256, "failed", error=reason,
                 received_at=info.received_at, claim_id=info.claim_id,
-                size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
+                size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
             if record is not None:
                 self._emit(RunFailed(record.run_id, record.version, record.path, reason))
@@ -596,12 +610,14 @@ class Station:
             info.path, result.sha256 or info.sha256, status,
             result=result, result_json=outcome.result_json, error=result.error,
             received_at=info.received_at, claim_id=info.claim_id,
-            size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
+            size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
         if record is not None:
-            self._report_and_announce(record, result, outcome.result_json)
+            self._report_and_announce(record, result, outcome.result_json, outcome.lines_csv)
 
-    def _report_and_announce(self, record: ledger.RunRecord, result: RunResult | None, result_json: str | None) -> None:
+    def _report_and_announce(
+        self, record: ledger.RunRecord, result: RunResult | None, result_json: str | None, lines_csv_text: str | None = None,
+    ) -> None:
         """Write a processed run's reports (retried while the disk is full, given up only when
         the station stops: a problem event, never a crash) and announce the run (a failed run
         without a result, as recorded from the spool, is announced as failed)."""
@@ -613,7 +629,7 @@ class Station:
             backoff = Backoff()
             while folder is None:
                 try:
-                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json))
+                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json, lines_csv_text))
                 except OSError as error:
                     backoff.failed()
                     if backoff.worth_saying:
@@ -637,10 +653,10 @@ class Station:
         conn = self._conn()
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
-            record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason)
+            record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason, provenance=info.provenance)
             info.answer["run_id"] = record.run_id
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
-        record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json)
+        record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json, provenance=info.provenance)
         info.answer["run_id"] = record.run_id
-        self._report_and_announce(record, outcome.result, outcome.result_json)
+        self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv)

@@ -20,6 +20,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+from processing.provenance import Provenance
 from processing.results import ResultFormatError, RunResult, from_json
 from processing.station import ledger
 from processing.station.events import (
@@ -234,6 +235,8 @@ class ServerLedger(FileLedger):
             result_json = to_json(result)
         fields = dict(fields, sha256=sha256, status=status)
         fields.setdefault("processed_at", ledger.now_iso())
+        if isinstance(fields.get("provenance"), Provenance):
+            fields["provenance"] = fields["provenance"].to_dict()  # the spool keeps fields as JSON
         key = uuid.uuid4().hex
         spool = self.spool()
         if self._offline_since is None and self._waiting == 0:
@@ -327,6 +330,9 @@ def _record_fields(fields: dict[str, Any]) -> dict[str, Any]:
     chosen = {key: fields[key] for key in _RECORD_FIELDS if key in fields}
     if "species" in fields and fields["species"] is not None:
         chosen["species"] = tuple(fields["species"])
+    made_with = fields.get("provenance")
+    if made_with is not None:
+        chosen["provenance"] = Provenance(**made_with)
     return chosen
 
 

@@ -242,8 +242,8 @@ def test_the_password_comes_from_the_environment_or_the_password_file(
         server.admin("DROP ROLE tester")  # type: ignore[attr-defined]
 
 
-def test_sqlite_migration_to_5_keeps_ids_growing(tmp_path: Path) -> None:
-    """The file's 4 -> 5 rebuild of `runs` keeps AUTOINCREMENT's memory of deleted top ids."""
+def test_sqlite_migration_to_6_keeps_ids_growing(tmp_path: Path) -> None:
+    """The file's 5 -> 6 rebuild of `runs` keeps AUTOINCREMENT's memory of deleted top ids."""
     conn = lg.open_ledger(tmp_path)
     for index in range(3):
         lg.record_run(conn, f"/exp/{index}.csv", None, "unreadable", error="bad")

@@ -11,6 +11,7 @@ from pathlib import Path
 import pytest
 
 from processing.estimate import Estimate
+from processing.provenance import Provenance
 from processing.results import Band, IsotopologueConstants, RunResult
 from processing.station import ledger as lg
 from processing.station import ledger_postgres
@@ -59,7 +60,7 @@ def test_sqlite_file_is_a_wal_ledger(tmp_path: Path) -> None:
 
 def test_open_creates_a_ledger_at_current_schema(ledger_at: str | Path) -> None:
     conn = lg.open_ledger(ledger_at)
-    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 5
+    assert lg.schema_version(conn) == lg.SCHEMA_VERSION == 6
     assert len(lg.SERVER_MIGRATIONS) == len(lg.MIGRATIONS)
     assert lg.list_runs(conn) == [] and lg.change_cursor(conn) == 0
     conn.close()
@@ -184,7 +185,7 @@ def test_migration_fills_the_quantities_of_runs_recorded_before(ledger_at: str |
     assert [p.value for p in lg.trend(conn, "H35Cl", "origin", "1-0")] == [2885.97, 2885.99]
 
 
-@pytest.mark.parametrize("old_version", [1, 2, 3, 4])
+@pytest.mark.parametrize("old_version", [1, 2, 3, 4, 5])
 def test_migration_from_an_older_schema_keeps_runs_and_decisions(ledger_at: str | Path, old_version: int) -> None:
     old = create_at_version(ledger_at, old_version)
     old.execute(
@@ -214,6 +215,24 @@ def test_migration_from_an_older_schema_keeps_runs_and_decisions(ledger_at: str 
     assert lg.adopt_unnamed_runs(conn, "ftir-1") == 2
     assert {r.instrument for r in lg.list_runs(conn)} == {"ftir-1"}
     assert lg.latest_sha_by_path(conn, "ftir-1") == {"/exp/a.csv": "cd"}
+
+
+def test_migration_to_instruments_keeps_what_each_version_was_made_with(ledger_at: str | Path) -> None:
+    """5 -> 6 rebuilds `runs` on the file (a new key): the provenance columns of 4 -> 5 come along."""
+    old = create_at_version(ledger_at, 5)
+    old.execute(
+        "INSERT INTO runs (path, sha256, version, status, verdict, species, received_at, processed_at,"
+        " size_bytes, mtime_ns, analysis_version, library_hash, settings_hash) VALUES ('/exp/a.csv', 'ab', 1,"
+        " 'processed', 'pass', 'H35Cl', '2026-01-01T00:00:00Z', '2026-01-01T00:00:01Z', 10, 5, '0.1.0+abc', 'lib', 'set')"
+    )
+    old.close()
+    conn = lg.open_ledger(ledger_at)
+    assert lg.schema_version(conn) == lg.SCHEMA_VERSION
+    run = lg.get_run(conn, 1)
+    assert run.provenance == Provenance("0.1.0+abc", "lib", "set") and run.instrument == ""
+    assert lg.latest_stat_by_path(conn) == {"/exp/a.csv": (10, 5)}
+    [latest] = lg.latest_versions(conn, ["/exp/a.csv"]).values()
+    assert latest.provenance == run.provenance and (latest.size_bytes, latest.mtime_ns) == (10, 5)
 
 
 def test_ledger_from_a_newer_bandwatch_is_refused(ledger_at: str | Path) -> None:

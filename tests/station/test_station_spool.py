@@ -8,6 +8,7 @@ from pathlib import Path
 
 import pytest
 
+from processing.provenance import Provenance
 from processing.results import RunResult
 from processing.station import ledger as lg
 from processing.station import station_ledger
@@ -41,7 +42,10 @@ def test_an_answer_lost_after_the_commit_is_replayed_into_the_same_run(
     monkeypatch.setattr(station_ledger.ledger, "record_run", commit_then_lose_the_answer)
     try:
         claim = store.claim("/e/a.csv", "ab" * 32)
-        assert store.record("/e/a.csv", "ab" * 32, "processed", result=_result("a.csv"), claim_id=claim.claim_id) is None
+        made = Provenance("0.1.0+test", "lib-hash", "settings-hash")
+        assert store.record(
+            "/e/a.csv", "ab" * 32, "processed", result=_result("a.csv"), claim_id=claim.claim_id, provenance=made,
+        ) is None
         assert any(isinstance(e, RunSpooled) for e in events) and any(isinstance(e, LedgerOffline) for e in events)
         deadline = time.monotonic() + 10
         while time.monotonic() < deadline and not any(isinstance(e, LedgerOnline) for e in events):
@@ -51,6 +55,7 @@ def test_an_answer_lost_after_the_commit_is_replayed_into_the_same_run(
     conn = lg.open_ledger(pg_url, read_only=True)
     runs = lg.list_runs(conn, with_result=False)
     assert [(r.path, r.version, r.instrument) for r in runs] == [("/e/a.csv", 1, "ftir-1")]  # one run, not two
+    assert runs[0].provenance == made  # what it was made with came through the spool
     assert announced == [runs[0].run_id]  # announced once, when the replay settled it
     spool = Spool(tmp_path)
     assert spool.waiting() == 0 and spool.claims() == []

@@ -97,6 +97,9 @@ def run_public(record: RunRecord) -> dict[str, Any]:
         "error": record.error,
         "reprocessed_from": record.reprocessed_from,
         "instrument": record.instrument,
+        "analysis_version": record.provenance.analysis_version if record.provenance else None,
+        "library_hash": record.provenance.library_hash if record.provenance else None,
+        "settings_hash": record.provenance.settings_hash if record.provenance else None,
     }
 
 
@@ -186,7 +189,11 @@ def _show(conn: Connection, args: argparse.Namespace) -> int:
     if record.error:
         out.append(f"  error      {record.error}")
     if record.reprocessed_from is not None:
-        out.append(f"  reprocessed from run {record.reprocessed_from} with {json.dumps(record.settings)}")
+        changed = f"with {json.dumps(record.settings)}" if record.settings is not None else "with today's analysis (bandwatch reprocess)"
+        out.append(f"  reprocessed from run {record.reprocessed_from} {changed}")
+    if record.provenance is not None:
+        made = record.provenance
+        out.append(f"  made with  analysis {made.analysis_version}, library {made.library_hash}, settings {made.settings_hash}")
     out.append("  decision history:" if history else "  decision history: none")
     for event in history:
         out.append(f"    {event.at[:19]}  #{event.event_id}  {event.action:<6}  {event.operator or '?'}  {event.reason}")
