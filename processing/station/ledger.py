@@ -54,6 +54,15 @@ UNDO = "undo"
 BUSY_TIMEOUT_MS = 10_000
 
 
+# 4 -> 5: what each version was made with (`processing.provenance`): `bandwatch reprocess`
+# skips files whose newest version has today's analysis, library and settings (the same SQL on
+# the file and on a server)
+PROVENANCE_COLUMNS = """
+    ALTER TABLE runs ADD COLUMN analysis_version TEXT;
+    ALTER TABLE runs ADD COLUMN library_hash TEXT;
+    ALTER TABLE runs ADD COLUMN settings_hash TEXT;
+"""
+
 # Each entry takes the schema from user_version == index to index + 1: SQL, or a function of
 # the connection for what SQL cannot say. Never edit an entry that has shipped; add a new one.
 Migration = str | Callable[[sqlite3.Connection], None]
@@ -111,13 +120,8 @@ MIGRATIONS: tuple[Migration, ...] = (
     # 3 -> 4: every fitted quantity of a run as a row, so a trend is one query (`trend`);
     # the runs already recorded get theirs from their stored results
     lambda conn: _add_quantities_table(conn),
-    # 4 -> 5: what each version was made with (`processing.provenance`): `bandwatch reprocess`
-    # skips files whose newest version has today's analysis, library and settings
-    """
-    ALTER TABLE runs ADD COLUMN analysis_version TEXT;
-    ALTER TABLE runs ADD COLUMN library_hash TEXT;
-    ALTER TABLE runs ADD COLUMN settings_hash TEXT;
-    """,
+    # 4 -> 5: what each version was made with
+    PROVENANCE_COLUMNS,
     # 5 -> 6: instruments (runs keyed by instrument + path), idempotent record keys (a spooled
     # outcome replayed twice is one run) and the change journal the interfaces poll
     lambda conn: _add_instruments_and_changes(conn),
@@ -130,7 +134,7 @@ SERVER_MIGRATIONS: tuple[ledger_postgres.PgMigration, ...] = (
     ledger_postgres.CLAIMS,
     ledger_postgres.FILE_STAT,
     lambda conn: _add_quantities_table(conn),
-    ledger_postgres.PROVENANCE,
+    PROVENANCE_COLUMNS,
     ledger_postgres.INSTRUMENTS_AND_CHANGES,
 )
 

@@ -1,7 +1,7 @@
 """`bandwatch ledger copy`: one ledger's whole history into another (a station's file into the
 facility's server, typically), without loss.
 
-Runs (every version, with result, settings, file stat), decisions (the whole append-only
+Runs (every version, with result, settings, file stat, what it was made with), decisions (the whole append-only
 trail, in order) and fitted quantities are copied as they are, in one transaction on the
 target: all or nothing. Into an empty ledger the run and event ids are kept (listings before
 and after are identical); into one that already holds runs they are renumbered (a redo's link
@@ -22,6 +22,7 @@ from processing.station.ledger_postgres import is_server_url, password_in_url
 RUN_COLUMNS = (
     "run_id", "path", "sha256", "version", "status", "verdict", "species", "result_json", "error", "received_at",
     "processed_at", "settings_json", "reprocessed_from", "size_bytes", "mtime_ns", "instrument", "record_key",
+    "analysis_version", "library_hash", "settings_hash",
 )
 DECISION_COLUMNS = ("event_id", "run_id", "action", "reason", "operator", "at")
 QUANTITY_COLUMNS = ("run_id", "isotopologue", "band", "quantity", "value", "sigma", "unit")

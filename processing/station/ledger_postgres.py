@@ -324,12 +324,7 @@ QUANTITIES_TABLE = """
     CREATE INDEX quantities_by_name ON quantities (isotopologue, quantity, band, run_id);
     CREATE INDEX quantities_by_run ON quantities (run_id);
 """
-# 4 -> 5: what each version was made with (`processing.provenance`)
-PROVENANCE = """
-    ALTER TABLE runs ADD COLUMN analysis_version TEXT;
-    ALTER TABLE runs ADD COLUMN library_hash TEXT;
-    ALTER TABLE runs ADD COLUMN settings_hash TEXT;
-"""
+# (4 -> 5, the provenance columns, is the same SQL as the file's: `ledger.PROVENANCE_COLUMNS`)
 # 5 -> 6: instruments (runs keyed by instrument + path), idempotent record keys (a spooled
 # outcome replayed twice is one run), and the change journal every interface polls (its
 # trigger takes the writer lock, so change ids grow in commit order, and announces each one)

@@ -10,6 +10,7 @@ from urllib.parse import urlsplit
 import pytest
 
 from processing.estimate import Estimate
+from processing.provenance import Provenance
 from processing.results import Band, IsotopologueConstants, RunResult
 from processing.station import ledger as lg
 
@@ -36,15 +37,17 @@ def _fill(conn: lg.Connection, runs: int, instrument: str = "") -> None:
         if index % 10 == 9:
             lg.record_run(conn, path, None, "unreadable", error=f"{path}: file is empty", instrument=instrument)
             continue
+        made = Provenance(f"0.1.0+{index % 3}", "library", "settings") if index % 4 else None
         record = lg.record_run(conn, path, f"{index:064x}", "processed", result=_result(index), instrument=instrument,
-                               size_bytes=1000 + index, mtime_ns=index * 10**9)
+                               size_bytes=1000 + index, mtime_ns=index * 10**9, provenance=made)
         if index % 7 == 0:
             lg.record_decision(conn, record.run_id, "accept", "lines look right", "ana")
         if index % 13 == 0:
             lg.record_decision(conn, record.run_id, "flag", "baseline drifts", "ben")
             lg.undo_last_decision(conn, record.run_id, "ben")
         if index % 50 == 0:
-            lg.record_reprocessed(conn, record.run_id, _result(index + 1), {"species": ["H35Cl"]})
+            lg.record_reprocessed(conn, record.run_id, _result(index + 1), {"species": ["H35Cl"]},
+                                  provenance=Provenance("0.1.0+redo", "library", "requested"))
 
 
 def _listing(capsys: pytest.CaptureFixture[str], *where: str) -> list[dict[str, object]]:
@@ -78,6 +81,7 @@ def test_copy_of_a_thousand_runs_gives_identical_listings(
     before = _listing(capsys, "--data", str(source))
     before_export = _export(capsys, "--data", str(source))
     assert len(before) == 1020 and len({r["path"] for r in before}) == 1000  # 1000 files, 20 redone
+    assert {r["analysis_version"] for r in before} == {None, "0.1.0+0", "0.1.0+1", "0.1.0+2", "0.1.0+redo"}
 
     assert main(["ledger", "copy", "--from", f"sqlite:{source / lg.LEDGER_FILE}", "--to", target_arg]) == 0
     said = capsys.readouterr().out
