@@ -779,7 +779,9 @@ def _excluded_mask(lines: LineTable, excluded: tuple[float, ...]) -> np.ndarray:
     return mask
 
 
-DoubletMeasure = Callable[[float, float, float], "tuple[float, float] | None"]
+# (centre guesses, separations, thin-line ratios) of one band's lines with unresolved partners
+# -> (centre, standard error) or None for each
+DoubletMeasure = Callable[[np.ndarray, np.ndarray, np.ndarray], "list[tuple[float, float] | None]"]
 
 
 def assign_lines(
@@ -792,7 +794,7 @@ def assign_lines(
 ) -> AssignmentResult:
     """Assign `lines` (measured in a spectrum covering first..last cm-1); see module docstring.
 
-    `measure_doublet(centre_guess, separation, ratio) -> (centre, sigma)` re-measures a line
+    `measure_doublet(centre_guesses, separations, ratios) -> [(centre, sigma) or None]` re-measures a band's lines
     blended with an isotopologue partner from the spectrum itself (see
     `lines.measure_doublet`); without it (a line list) the blend centre is corrected by the
     predicted intensity-weighted shift.
@@ -994,11 +996,14 @@ def _finish(
         pull = band.pull_of(m)
         sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)) | (pull != 0))
         if measure_doublet is not None:
-            for k, m_k in enumerate(m.tolist()):
-                # a saturated top has no doublet shape to fit: its blend centre stands
-                if m_k in band.partner and not lines.saturated[idx[k]] and band.partner[m_k][1] >= DOUBLET_MIN_RATIO:
-                    separation, ratio = band.partner[m_k]
-                    measured = measure_doublet(float(lines.position_cm1[idx[k]] - pull[k]), separation, ratio)
+            # a saturated top has no doublet shape to fit: its blend centre stands
+            pairs = [k for k, m_k in enumerate(m.tolist())
+                     if m_k in band.partner and not lines.saturated[idx[k]] and band.partner[m_k][1] >= DOUBLET_MIN_RATIO]
+            if pairs:
+                guesses = np.array([float(lines.position_cm1[idx[k]] - pull[k]) for k in pairs])
+                separations = np.array([band.partner[int(m[k])][0] for k in pairs])
+                ratios = np.array([band.partner[int(m[k])][1] for k in pairs])
+                for k, measured in zip(pairs, measure_doublet(guesses, separations, ratios)):
                     if measured is not None:
                         # the feature sits `pull` from the line: measured from the doublet fit
                         pull[k] = float(lines.position_cm1[idx[k]] - measured[0])

@@ -25,8 +25,11 @@ def _reduced_mass(heavy: float) -> float:
 
 
 def test_a_library_mass_change_shows_as_one_clean_shift_and_r_e_moves_as_mu_and_b_e_say(tmp_path: Path) -> None:
+    # 1 cm-1: the 35Cl and 37Cl lines are resolved, so the measured positions do not depend on
+    # the library (at 4 cm-1 each line is measured beside its modelled partner, whose position
+    # follows the masses: the origin would move with the noise of each file's ratio model)
     archive, data = tmp_path / "archive", tmp_path / "data"
-    write_archive(archive, 12)
+    write_archive(archive, 12, resolution_cm1=1.0)
     first = reprocess(data, archive)
     assert first.recorded == 12 and first.quantity_shifts == ()  # nothing to compare yet
 
@@ -38,18 +41,19 @@ def test_a_library_mass_change_shows_as_one_clean_shift_and_r_e_moves_as_mu_and_
     assert summary.reasons == {plan.LIBRARY_CHANGED: 12} and summary.recorded == 12
 
     shifts = {(s.isotopologue, s.band, s.quantity): s for s in summary.quantity_shifts}
-    origin = shifts[("H35Cl", "1-0", "origin")]
     r_e = shifts[("H35Cl", "", "r_e")]
-    b_e = shifts[("H35Cl", "", "B_e")]
-    for shift in (origin, r_e, b_e):
-        assert shift.count == 12
-        assert shift.median != 0.0
-        # one clean shift: the quartiles sit within 0.1% of the median's size around it
-        assert shift.upper_quartile - shift.lower_quartile < 1e-3 * abs(shift.median)
-        assert shift.lower_quartile <= shift.median <= shift.upper_quartile
-    assert r_e.unit == "angstrom" and origin.unit == "cm-1"
+    assert r_e.count == 12 and r_e.unit == "angstrom"
+    assert r_e.median != 0.0
+    # one clean shift: the quartiles sit within 0.1% of the median's size around it
+    assert r_e.upper_quartile - r_e.lower_quartile < 1e-3 * abs(r_e.median)
+    assert r_e.lower_quartile <= r_e.median <= r_e.upper_quartile
+    # the measured band is the library's business only through the comparison: unmoved
+    origin = shifts.get(("H35Cl", "1-0", "origin"))
+    assert origin is None or max(abs(origin.smallest), abs(origin.largest)) < 1e-6
+    b_e = shifts.get(("H35Cl", "", "B_e"))
+    b_e_shift = b_e.median if b_e is not None else 0.0
     # r_e = sqrt(h / (8 pi^2 c mu B_e)): to first order dr/r = -(dmu/mu + dB_e/B_e) / 2 (common practice)
     relative_mu = _reduced_mass(CHANGED_35CL) / _reduced_mass(MASS_35CL) - 1
-    predicted = -0.5 * R_E_ANGSTROM * (relative_mu + b_e.median / B_E_CM1)
+    predicted = -0.5 * R_E_ANGSTROM * (relative_mu + b_e_shift / B_E_CM1)
     # the runs' own r_e and B_e differ from the handbook's by < 0.5%: so may the prediction
     assert math.isclose(r_e.median, predicted, rel_tol=5e-3), (r_e.median, predicted)

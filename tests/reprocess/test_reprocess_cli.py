@@ -43,7 +43,10 @@ def test_plain_progress_is_one_line_per_n_files_and_the_summary_names_verdict_ch
 ) -> None:
     archive, data = isolated / "archive", isolated / "data"
     write_archive(archive, 5)
-    assert main(["reprocess", str(archive), "--data", str(data), "--plain", "--every", "2", "--workers", "1"]) == 0
+    # thresholds under which every file warns (its signal-to-noise, hundreds, is under the pass mark)
+    strict = isolated / "strict.toml"
+    strict.write_text("[checks]\nsnr_pass = 1e9\nsnr_warn = 10.0\n", encoding="utf-8")
+    assert main(["reprocess", str(archive), "--data", str(data), "--config", str(strict), "--plain", "--every", "2", "--workers", "1"]) == 0
     lines = capsys.readouterr().out.splitlines()
     progress = [line for line in lines if line.startswith("reprocess: ")]
     assert [re.match(r"reprocess: (\d+)/(\d+|\?) files", line).group(1) for line in progress] == ["2", "4"]
