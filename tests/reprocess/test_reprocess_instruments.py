@@ -21,7 +21,9 @@ from processing.reprocess.summary import ReprocessSummary
 from processing.station import ledger
 from tui.cli import main
 
-# looser calibration limits than the defaults: the simulated runs' offset then passes (a settings change)
+# a signal-to-noise pass mark no file reaches (theirs is hundreds): every run warns; then other
+# limits (a settings change) under which they pass
+STRICT = ProcessSettings(thresholds=CheckThresholds(snr_pass=1e9, snr_warn=10.0))
 LOOSE = ProcessSettings(thresholds=CheckThresholds(calibration_pass_cm1=0.5, calibration_warn_cm1=1.0))
 
 
@@ -39,11 +41,11 @@ def _reprocess(where: str | Path, data: Path, candidates: object, settings: Proc
 def test_a_reprocess_on_either_backend_keeps_each_file_on_its_instrument(ledger_at: str | Path, tmp_path: Path) -> None:
     archive, data = tmp_path / "archive", tmp_path / "reprocess-data"
     files = write_archive(archive, 3)
-    first = _reprocess(ledger_at, data, PathSelection((str(archive),), instrument="ftir-a").candidates(), ProcessSettings())
+    first = _reprocess(ledger_at, data, PathSelection((str(archive),), instrument="ftir-a").candidates(), STRICT)
     assert first.recorded == 3 and first.reasons == {plan.NEW: 3} and first.by_outcome == {"warn": 3}
 
     # the same files for another instrument are other files: new there, and ftir-a's stay as they are
-    other = _reprocess(ledger_at, data, PathSelection((str(archive),), instrument="ftir-b").candidates(), ProcessSettings())
+    other = _reprocess(ledger_at, data, PathSelection((str(archive),), instrument="ftir-b").candidates(), STRICT)
     assert other.recorded == 3 and other.reasons == {plan.NEW: 3}
 
     # ftir-a's runs found in the ledger, analysed with changed settings: new versions on ftir-a
@@ -60,7 +62,7 @@ def test_a_reprocess_on_either_backend_keeps_each_file_on_its_instrument(ledger_
         on_a = ledger.latest_versions(conn, paths, "ftir-a")
         on_b = ledger.latest_versions(conn, paths, "ftir-b")
         assert {latest.provenance for latest in on_a.values()} == {current_provenance(LOOSE)}
-        assert {latest.provenance for latest in on_b.values()} == {current_provenance(ProcessSettings())}
+        assert {latest.provenance for latest in on_b.values()} == {current_provenance(STRICT)}
         assert sorted((r.instrument, r.version) for r in ledger.list_runs(conn, with_result=False)) == (
             [("ftir-a", 1)] * 3 + [("ftir-a", 2)] * 3 + [("ftir-b", 1)] * 3
         )
@@ -70,7 +72,7 @@ def test_a_reprocess_on_either_backend_keeps_each_file_on_its_instrument(ledger_
     # and then they stand: nothing analysed again on either instrument
     again = _reprocess(ledger_at, data, LedgerSelection(parse_query("all")).candidates, LOOSE)
     assert (again.selected, again.skipped, again.analysed) == (6, 3, 3)
-    assert again.reasons == {plan.SETTINGS_CHANGED: 3}  # ftir-b's were made with the default settings
+    assert again.reasons == {plan.SETTINGS_CHANGED: 3}  # ftir-b's were made with the strict settings
 
 
 def test_a_file_named_for_two_instruments_in_one_chunk_is_planned_for_each(tmp_path: Path) -> None:
