@@ -62,9 +62,12 @@ class BandwatchApp(App[int]):
         exit_after_seconds: float | None = None,
         keymap: dict[str, str] | None = None,
         config: StationConfig | None = None,
+        ledger_location: str | Path | None = None,
     ) -> None:
         super().__init__()
         self.data_dir = Path(data_dir)
+        # the ledger: a server's URL, or the data folder (its ledger.sqlite3)
+        self.ledger_location: str | Path = ledger_location if ledger_location is not None else self.data_dir
         self.export_dir = str(export_dir) if export_dir is not None else None
         # the station's settings: a redo without a running station uses them too
         self.config = config or StationConfig(

@@ -23,9 +23,10 @@ class StationEventReceived(Message):
 class RunsLoaded(Message):
     """A fresh read of the ledger's run list (newest first)."""
 
-    def __init__(self, runs: list[RunRecord]) -> None:
+    def __init__(self, runs: list[RunRecord], instruments: tuple[str, ...] = ()) -> None:
         super().__init__()
         self.runs = runs
+        self.instruments = instruments  # every instrument with runs in the ledger
 
 
 class RunDetailLoaded(Message):

@@ -8,7 +8,6 @@ Streamed from the ledger one quantity at a time, so memory is one quantity's dif
 """
 from __future__ import annotations
 
-import sqlite3
 from array import array
 from dataclasses import dataclass
 from itertools import groupby
@@ -42,7 +41,7 @@ class QuantityShift:
         }
 
 
-def quantity_shifts(conn: sqlite3.Connection, provenance: Provenance) -> list[QuantityShift]:
+def quantity_shifts(conn: ledger.Connection, provenance: Provenance) -> list[QuantityShift]:
     """One `QuantityShift` per (isotopologue, band, quantity) that today's reprocess changed or
     kept, in that order."""
     shifts: list[QuantityShift] = []

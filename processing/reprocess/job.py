@@ -52,6 +52,7 @@ class JobOptions:
     settings: ProcessSettings
     write_reports: bool = False
     chunk_files: int = CHUNK_FILES
+    ledger_location: str | Path | None = None  # for messages: a server URL, or None for the data folder's file
 
 
 @contextmanager
@@ -74,7 +75,7 @@ class ReprocessJob:
 
     def __init__(
         self,
-        conn: sqlite3.Connection | None,
+        conn: ledger.Connection | None,
         options: JobOptions,
         backend: Backend | None,
         *,
@@ -95,8 +96,8 @@ class ReprocessJob:
     def provenance(self) -> Provenance:
         return self.planner.provenance
 
-    def _latest_of(self, paths: list[str]) -> dict[str, ledger.LatestVersion]:
-        return ledger.latest_versions(self.conn, paths) if self.conn is not None else {}
+    def _latest_of(self, instrument: str, paths: list[str]) -> dict[str, ledger.LatestVersion]:
+        return ledger.latest_versions(self.conn, paths, instrument) if self.conn is not None else {}
 
     # ---------------------------------------------------------------- the loop
 
@@ -147,7 +148,7 @@ class ReprocessJob:
     def _run(self, source: Iterator[Candidate], backend: Backend) -> str | None:
         ready: deque[Task] = deque()
         inflight: dict[int, Task] = {}
-        inflight_paths: set[str] = set()
+        inflight_files: set[tuple[str, str]] = set()  # (instrument, path)
         exhausted = False
         while not self.stop.is_set():
             broken = backend.broken
@@ -164,13 +165,13 @@ class ReprocessJob:
                 batch: list[Task] = []
                 while ready and len(inflight) < capacity:
                     task = ready.popleft()
-                    if task.path in inflight_paths:
+                    if task.key in inflight_files:
                         self.tally.skipped += 1  # named twice (a folder and a glob): once is enough
                         self.tally.reasons[task.reason] -= 1
                         continue
                     batch.append(task)
                     inflight[task.seq] = task
-                    inflight_paths.add(task.path)
+                    inflight_files.add(task.key)
                 if batch:
                     backend.submit(batch)
             if not inflight and not ready and exhausted:
@@ -180,7 +181,7 @@ class ReprocessJob:
                     task = inflight.pop(outcome.seq, None)
                     if task is None:
                         continue
-                    inflight_paths.discard(task.path)
+                    inflight_files.discard(task.key)
                     self._record(task, outcome)
             except ReprocessError as error:
                 return str(error)
@@ -234,7 +235,8 @@ class ReprocessJob:
         else:
             status = result.status if result.status in ("processed", "unreadable") else "failed"
             sha, error = result.sha256, result.error
-        now = ledger.latest_versions(self.conn, [task.path]).get(task.path) or task.previous
+        instrument = task.candidate.instrument
+        now = ledger.latest_versions(self.conn, [task.path], instrument).get(task.path) or task.previous
         if (
             now is not None and status != "failed" and now.status == status and now.sha256 == sha
             and now.provenance == task.provenance
@@ -252,6 +254,7 @@ class ReprocessJob:
             reprocessed_from=now.run_id if now is not None and same_file else None,
             size_bytes=task.candidate.size_bytes, mtime_ns=task.candidate.mtime_ns,
             provenance=task.provenance,
+            instrument=instrument,
         )
         previous = (now.run_id, now.status, now.verdict) if now is not None else None
         self.tally.note_recorded(task.path, record.status, record.verdict, record.run_id, previous)
@@ -273,7 +276,7 @@ class ReprocessJob:
             except LEDGER_TROUBLE as error:
                 backoff.failed()
                 if backoff.worth_saying:
-                    where = str(ledger.ledger_path(self.options.data_dir))
+                    where = ledger.describe_ledger(self.options.ledger_location or self.options.data_dir)
                     self.on_problem(f"could not {what}: {describe(error, where)}; trying again in {backoff.delay:g} s")
                 if self.stop.wait(backoff.delay):
                     raise _Stopped from None

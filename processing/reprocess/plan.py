@@ -1,6 +1,6 @@
 """Whether a file needs today's analysis, and with which settings.
 
-A file is skipped when its newest version in the ledger was made with today's analysis
+A file is skipped when its newest version in the ledger (on its instrument) was made with today's analysis
 version, library and settings, did not fail, and the file's size and time stamp are those that
 version recorded. Anything else is analysed again, with the reason kept for the summary.
 A version made by an operator's redo (species changed, lines left out, ...) keeps that request:
@@ -44,6 +44,11 @@ class Task:
     def path(self) -> str:
         return self.candidate.path
 
+    @property
+    def key(self) -> tuple[str, str]:
+        """(instrument, path): the file as the ledger keys it."""
+        return (self.candidate.instrument, self.candidate.path)
+
 
 def why_analyse(candidate: Candidate, latest: LatestVersion | None, provenance: Provenance) -> str | None:
     """The reason to analyse `candidate` again, or None to skip it."""
@@ -69,7 +74,11 @@ def why_analyse(candidate: Candidate, latest: LatestVersion | None, provenance: 
 class Planner:
     """Turns candidates into tasks and skips, a chunk at a time (one ledger query per chunk)."""
 
-    def __init__(self, settings: ProcessSettings, latest_of: Callable[[list[str]], dict[str, LatestVersion]]) -> None:
+    def __init__(
+        self, settings: ProcessSettings, latest_of: Callable[[str, list[str]], dict[str, LatestVersion]]
+    ) -> None:
+        """`latest_of(instrument, paths)`: path -> newest version on that instrument, for those
+        the ledger holds."""
         self.settings = settings
         self.provenance = current_provenance(settings)
         self._latest_of = latest_of
@@ -79,11 +88,16 @@ class Planner:
     def plan(self, chunk: Iterable[Candidate]) -> tuple[list[Task], list[tuple[Candidate, LatestVersion]]]:
         """(tasks to run, skipped files with the version that stands) for one chunk."""
         candidates = list(chunk)
-        latest = self._latest_of([candidate.path for candidate in candidates])
+        paths_by_instrument: dict[str, list[str]] = {}
+        for candidate in candidates:
+            paths_by_instrument.setdefault(candidate.instrument, []).append(candidate.path)
+        latest = {
+            instrument: self._latest_of(instrument, paths) for instrument, paths in paths_by_instrument.items()
+        }
         tasks: list[Task] = []
         skipped: list[tuple[Candidate, LatestVersion]] = []
         for candidate in candidates:
-            previous = latest.get(candidate.path)
+            previous = latest[candidate.instrument].get(candidate.path)
             settings, provenance, request = self._settings_for(previous)
             reason = why_analyse(candidate, previous, provenance)
             if reason is None:

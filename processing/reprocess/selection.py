@@ -4,7 +4,9 @@ Everything is streamed: a folder is walked one entry at a time (`FileFilter.scan
 folders are found with `glob.iglob` and each is walked the same way, the ledger is read a page
 of paths at a time. Nothing holds the whole list, so an archive of a million files costs the
 memory of one page. Paths are absolute with resolved folders (file names kept as they are),
-as the station records them, so a reprocessed file is the same run as the station's.
+as the station records them, so a reprocessed file is the same run as the station's. Each
+candidate names its instrument (runs are keyed by instrument + path): files named on the
+command line are this station's instrument's, runs found in the ledger keep their own.
 """
 from __future__ import annotations
 
@@ -12,7 +14,6 @@ import fnmatch
 import glob
 import os
 import re
-import sqlite3
 from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import date, datetime, timedelta, timezone
@@ -31,11 +32,13 @@ class SelectionError(BandwatchError):
 
 @dataclass(frozen=True)
 class Candidate:
-    """A file to consider: its path and, when the file could be looked at, its size and time stamp."""
+    """A file to consider: its path, when the file could be looked at its size and time stamp,
+    and the instrument whose file it is."""
 
     path: str
     size_bytes: int | None = None
     mtime_ns: int | None = None
+    instrument: str = ""
 
 
 @dataclass(frozen=True)
@@ -45,6 +48,7 @@ class PathSelection:
     arguments: tuple[str, ...]
     include: tuple[str, ...] = ("*",)
     exclude: tuple[str, ...] = ()
+    instrument: str = ""  # the instrument these files are recorded under
 
     def check(self) -> None:
         """One clear error for an argument that names nothing (before any work starts)."""
@@ -61,7 +65,7 @@ class PathSelection:
             elif os.path.isdir(argument):
                 yield from self._walk(Path(argument).resolve(), recursive=True, include=self.include)
             else:
-                yield _file_candidate(argument)
+                yield _file_candidate(argument, self.instrument)
 
     def count(self) -> int:
         return sum(1 for _ in self.candidates())
@@ -69,7 +73,7 @@ class PathSelection:
     def _walk(self, root: Path, recursive: bool, include: tuple[str, ...]) -> Iterator[Candidate]:
         walker = FileFilter(root=root, include=include, exclude=self.exclude, recursive=recursive)
         for path, found in walker.scan():
-            yield Candidate(path, found.st_size, found.st_mtime_ns)
+            yield Candidate(path, found.st_size, found.st_mtime_ns, self.instrument)
 
     def _glob(self, pattern: str) -> Iterator[Candidate]:
         """A glob: its folder part through `glob.iglob` (folders only, `**` for any depth), its
@@ -88,25 +92,26 @@ class PathSelection:
                     yield candidate
 
 
-def _file_candidate(argument: str) -> Candidate:
+def _file_candidate(argument: str, instrument: str) -> Candidate:
     """A file named as such: its folder resolved, its own name kept (a link stays a link, and
     the analysis then reads it under the read rules)."""
     path = str(Path(argument).parent.resolve() / Path(argument).name)
     try:
         found = os.stat(path)
     except OSError:
-        return Candidate(path)
-    return Candidate(path, found.st_size, found.st_mtime_ns)
+        return Candidate(path, instrument=instrument)
+    return Candidate(path, found.st_size, found.st_mtime_ns, instrument)
 
 
 @dataclass(frozen=True)
 class LedgerSelection:
-    """The files of runs already in the ledger that match a query (their newest versions)."""
+    """The files of runs already in the ledger that match a query (their newest versions), each
+    on the instrument that recorded it."""
 
     query: ledger.RunQuery
 
-    def candidates(self, conn: sqlite3.Connection) -> Iterator[Candidate]:
-        after: str | bytes | None = None
+    def candidates(self, conn: ledger.Connection) -> Iterator[Candidate]:
+        after: ledger.LatestVersion | None = None
         while True:
             page = ledger.latest_matching(conn, self.query, after, LEDGER_PAGE)
             if not page:
@@ -114,13 +119,13 @@ class LedgerSelection:
             for latest in page:
                 try:
                     found = os.stat(latest.path)
-                except OSError:
-                    yield Candidate(latest.path)  # gone or unreachable: the analysis says which
+                except OSError:  # gone or unreachable: the analysis says which
+                    yield Candidate(latest.path, instrument=latest.instrument)
                     continue
-                yield Candidate(latest.path, found.st_size, found.st_mtime_ns)
-            after = ledger.stored_path(page[-1].path)
+                yield Candidate(latest.path, found.st_size, found.st_mtime_ns, latest.instrument)
+            after = page[-1]
 
-    def count(self, conn: sqlite3.Connection) -> int:
+    def count(self, conn: ledger.Connection) -> int:
         return ledger.count_matching(conn, self.query)
 
 

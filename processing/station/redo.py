@@ -10,7 +10,6 @@ which runs the same analysis in the calling thread and records it the same way.
 from __future__ import annotations
 
 import math
-import sqlite3
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, fields, replace
 from pathlib import Path
@@ -111,7 +110,7 @@ def redo_settings(base: ProcessSettings, request: RedoRequest) -> ProcessSetting
 
 
 def record_redo(
-    conn: sqlite3.Connection, run_id: int, request: RedoRequest,
+    conn: ledger.Connection, run_id: int, request: RedoRequest,
     result: RunResult | None, result_json: str | None = None, failure: str | None = None,
     provenance: Provenance | None = None,
 ) -> ledger.RunRecord:
@@ -139,11 +138,13 @@ def redo_here(
     """Redo a run in this thread (no station running): the station's settings from `config`,
     the request applied, recorded and reported as the station does."""
     data_dir = Path(config.data_folder).expanduser()
-    conn = ledger.open_ledger(data_dir)
+    conn = ledger.open_ledger(config.ledger_location)
     try:
         run = ledger.get_run(conn, run_id, with_result=False)
         if run is None:
             return RedoOutcome(None, f"run {run_id} is not in the ledger")
+        if not_here := other_instrument(run, config.instrument):
+            return RedoOutcome(None, not_here)
         policy = _read_policy(config, data_dir)
         settings = redo_settings(station_settings(config, policy), request)
         function = process_function or process_file
@@ -161,6 +162,13 @@ def redo_here(
         return RedoOutcome(record.run_id)
     finally:
         conn.close()
+
+
+def other_instrument(run: ledger.RunRecord, instrument: str) -> str | None:
+    """Why a run cannot be redone on this instrument (its file is on another), or None."""
+    if run.instrument and run.instrument != instrument:
+        return f"run {run.run_id} was measured on {run.instrument}; redo it at that instrument's station"
+    return None
 
 
 def _read_policy(config: StationConfig, data_dir: Path) -> ReadPolicy:

@@ -77,13 +77,20 @@ def test_the_station_records_what_each_run_was_made_with(tmp_path: Path) -> None
 
 def test_a_ledger_from_before_migrates_and_its_runs_are_analysed_again(tmp_path: Path) -> None:
     data = tmp_path / "data"
-    conn = ledger.open_ledger(data)
-    ledger.record_run(conn, "/archive/a.csv", "abc", "processed", verdict="pass", size_bytes=10, mtime_ns=5)
-    conn.execute("ALTER TABLE runs DROP COLUMN analysis_version")  # as schema 4 had it
-    conn.execute("ALTER TABLE runs DROP COLUMN library_hash")
-    conn.execute("ALTER TABLE runs DROP COLUMN settings_hash")
-    conn.execute("PRAGMA user_version = 4")
-    conn.close()
+    data.mkdir()
+    old = sqlite3.connect(ledger.ledger_path(data), isolation_level=None)  # schema 4, as bandwatch made it then
+    for step in ledger.MIGRATIONS[:4]:
+        if isinstance(step, str):
+            for statement in ledger._statements(step):
+                old.execute(statement)
+        else:
+            step(old)
+    old.execute(
+        "INSERT INTO runs (path, sha256, version, status, verdict, received_at, size_bytes, mtime_ns)"
+        " VALUES ('/archive/a.csv', 'abc', 1, 'processed', 'pass', '2024-01-01T00:00:00.000Z', 10, 5)"
+    )
+    old.execute("PRAGMA user_version = 4")
+    old.close()
     conn = ledger.open_ledger(data)
     try:
         assert ledger.schema_version(conn) == ledger.SCHEMA_VERSION

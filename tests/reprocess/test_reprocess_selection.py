@@ -104,28 +104,51 @@ def test_ledger_queries_parse_into_conditions_and_refuse_what_they_cannot_mean()
             parse_query(bad)
 
 
-def test_ledger_selection_pages_through_the_newest_versions_that_match(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    conn = ledger.open_ledger(tmp_path / "data")
+def test_ledger_selection_pages_through_the_newest_versions_that_match(
+    ledger_at: str | Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """On both backends: runs are keyed by instrument + path, so the same file name on two
+    instruments is two candidates, each with its instrument, and a page boundary between them
+    loses neither; a name that is not UTF-8 is paged once and matched by a folder glob."""
+    archive = tmp_path / "archive"
+    odd = os.fsdecode(bytes(archive) + b"/r\xe9sum\xe9.csv")  # Latin-1 bytes: not UTF-8
+    conn = ledger.open_ledger(ledger_at)
     try:
         for index in range(7):
-            path = str(tmp_path / "archive" / f"r{index}.csv")
             verdict = "fail" if index % 2 else "pass"
-            ledger.record_run(conn, path, f"sha{index}", "processed", verdict=verdict, species=("H35Cl",),
-                              received_at=f"2024-0{1 + index}-15T10:00:00.000Z")
+            ledger.record_run(conn, str(archive / f"r{index}.csv"), f"sha{index}", "processed", verdict=verdict,
+                              species=("H35Cl",), received_at=f"2024-0{1 + index}-15T10:00:00.000Z", instrument="ftir-a")
         # a newer version decides what the file is now: r0 fails now
-        ledger.record_run(conn, str(tmp_path / "archive" / "r0.csv"), "sha0", "processed", verdict="fail",
-                          received_at="2024-01-15T10:00:00.000Z")
-        ledger.record_run(conn, str(tmp_path / "elsewhere.csv"), "x", "unreadable", error="test")
-        monkeypatch.setattr(selection, "LEDGER_PAGE", 2)
+        ledger.record_run(conn, str(archive / "r0.csv"), "sha0", "processed", verdict="fail",
+                          received_at="2024-01-15T10:00:00.000Z", instrument="ftir-a")
+        ledger.record_run(conn, str(tmp_path / "elsewhere.csv"), "x", "unreadable", error="test", instrument="ftir-a")
+        ledger.record_run(conn, odd, "y", "processed", verdict="fail", received_at="2024-02-01T00:00:00.000Z",
+                          instrument="ftir-a")
+        ledger.record_run(conn, str(archive / "r1.csv"), "other", "processed", verdict="fail", species=("D35Cl",),
+                          received_at="2024-02-15T10:00:00.000Z", instrument="ftir-b")
+        monkeypatch.setattr(selection, "LEDGER_PAGE", 1)  # every candidate ends a page
         failing = LedgerSelection(parse_query("verdict=fail"))
-        names = [Path(c.path).name for c in failing.candidates(conn)]
-        assert names == ["r0.csv", "r1.csv", "r3.csv", "r5.csv"] and failing.count(conn) == 4
-        spring = LedgerSelection(parse_query(f"from=2024-03-01 to=2024-05-31 path={tmp_path}/archive/*"))
+        found = [(c.instrument, Path(c.path).name) for c in failing.candidates(conn)]
+        assert found == [("ftir-a", "r0.csv"), ("ftir-a", "r1.csv"), ("ftir-a", "r3.csv"), ("ftir-a", "r5.csv"),
+                         ("ftir-a", Path(odd).name), ("ftir-b", "r1.csv")]
+        assert failing.count(conn) == 6
+        monkeypatch.setattr(selection, "LEDGER_PAGE", 2)
+        spring = LedgerSelection(parse_query(f"from=2024-03-01 to=2024-05-31 path={archive}/*"))
         assert [Path(c.path).name for c in spring.candidates(conn)] == ["r2.csv", "r3.csv", "r4.csv"]
         assert all(c.size_bytes is None for c in spring.candidates(conn))  # not on disk: the analysis says so
+        # the glob on both backends: `*` crosses folders, `?` is one character, [..] one of a set
+        assert LedgerSelection(parse_query(f"path={archive}/*")).count(conn) == 9
+        assert LedgerSelection(parse_query(f"path={tmp_path}*")).count(conn) == 10
+        assert LedgerSelection(parse_query(f"path={archive}/r?.csv")).count(conn) == 8
+        assert LedgerSelection(parse_query(f"path={archive}/r[13].csv")).count(conn) == 3
+        assert LedgerSelection(parse_query(f"path={archive}/r[^13].csv")).count(conn) == 5
+        assert LedgerSelection(parse_query(f"path={archive}/R?.csv")).count(conn) == 0  # case kept
+        assert LedgerSelection(parse_query(f"path={archive}/r.*")).count(conn) == 0  # a dot is a dot
         assert LedgerSelection(parse_query("species=HCl")).count(conn) == 6  # r0's newest version found none
-        assert LedgerSelection(parse_query("all")).count(conn) == 8
-        with pytest.raises(ledger.LedgerError, match="records no instruments"):
-            LedgerSelection(parse_query("instrument=ftir-2")).count(conn)
+        assert LedgerSelection(parse_query("species=DCl")).count(conn) == 1
+        assert LedgerSelection(parse_query("all")).count(conn) == 10
+        only_b = LedgerSelection(parse_query("instrument=ftir-b"))
+        assert [(c.instrument, c.path) for c in only_b.candidates(conn)] == [("ftir-b", str(archive / "r1.csv"))]
+        assert LedgerSelection(parse_query("instrument=ftir-c")).count(conn) == 0
     finally:
         conn.close()

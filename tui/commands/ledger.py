@@ -1,12 +1,13 @@
-"""`bandwatch ledger list|show|export|accept|flag|undo`: the station's ledger, for people and scripts."""
+"""`bandwatch ledger list|show|export|accept|flag|undo|copy|migrate`: the station's ledger (the
+data folder's file or a PostgreSQL server), for people and scripts."""
 from __future__ import annotations
 
 import argparse
 import csv
 import io
 import json
-import sqlite3
 import sys
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from processing import strict_json
@@ -14,13 +15,14 @@ from processing.safe_text import safe_text
 from tui.commands.watch import add_station_arguments
 
 if TYPE_CHECKING:
-    from processing.station.ledger import DecisionEvent, RunRecord
+    from processing.station.ledger import Connection, DecisionEvent, RunRecord
 
-HELP = "list, show, export runs in the ledger; accept, flag or undo a decision"
+HELP = "list, show, export runs in the ledger; accept, flag or undo a decision; copy a ledger to a server"
 
 CSV_COLUMNS = (
     "run_id", "path", "sha256", "version", "status", "verdict", "decision", "decision_reason",
     "operator", "decided_at", "received_at", "processed_at", "species", "error", "decision_history",
+    "instrument",
 )
 
 
@@ -32,6 +34,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     listing.add_argument("--json", action="store_true", help="one JSON object per run, one per line")
     listing.add_argument("--limit", type=int, default=None, help="at most this many runs")
     listing.add_argument("--latest", action="store_true", help="only the newest version of each file")
+    listing.add_argument("--instrument", default=None, metavar="NAME", help="only this instrument's runs")
 
     show = actions.add_parser("show", help="one run and its decision history")
     add_station_arguments(show)
@@ -57,6 +60,23 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     undo.add_argument("run_id", type=int, metavar="RUN")
     undo.add_argument("--operator", default=None, help="who (default: configuration, else login name)")
 
+    copy = actions.add_parser(
+        "copy", help="copy a ledger's whole history (runs, versions, decisions, results, quantities) into another",
+        description="Copy every run, version, decision, result and fitted quantity of one ledger into another "
+        "(e.g. a station's file into the facility's server), in one transaction, and check the counts.",
+    )
+    copy.add_argument("--from", dest="source", required=True, metavar="LEDGER",
+                      help="sqlite:PATH (a data folder or its ledger.sqlite3) or postgresql://...")
+    copy.add_argument("--to", dest="target", required=True, metavar="LEDGER",
+                      help="postgresql://USER@HOST/DATABASE (or sqlite:PATH)")
+    copy.add_argument("--instrument", default=None, metavar="NAME",
+                      help="instrument of runs recorded before instruments existed (default: the "
+                      "configuration's [station] instrument, else the host name)")
+    copy.add_argument("--config", default=None, metavar="FILE", help="station configuration (for the instrument)")
+
+    migrate = actions.add_parser("migrate", help="bring the ledger's schema up to date (a server: as its owner)")
+    add_station_arguments(migrate)
+
 
 def run_public(record: RunRecord) -> dict[str, Any]:
     """A run as a JSON object for scripts (the result itself only with `show --json`)."""
@@ -76,6 +96,7 @@ def run_public(record: RunRecord) -> dict[str, Any]:
         "species": list(record.species),
         "error": record.error,
         "reprocessed_from": record.reprocessed_from,
+        "instrument": record.instrument,
         "analysis_version": record.provenance.analysis_version if record.provenance else None,
         "library_hash": record.provenance.library_hash if record.provenance else None,
         "settings_hash": record.provenance.settings_hash if record.provenance else None,
@@ -91,12 +112,16 @@ def run(args: argparse.Namespace) -> int:
     from processing.station import ledger
     from processing.station.config import station_config
 
-    config = station_config(args.config, args.data)
-    data_dir = config.data_folder.expanduser()
+    if args.action == "copy":
+        return _copy(args)
+    config = station_config(args.config, args.data, args.ledger)
+    where = config.ledger_location
+    if args.action == "migrate":
+        return _migrate(where)
     reading = args.action in ("list", "show", "export")
-    if not reading and not ledger.ledger_path(data_dir).exists():
-        raise ledger.LedgerError(f"{data_dir}: no ledger here yet (run `bandwatch watch` first, or give --data)")
-    conn = ledger.open_ledger(data_dir, read_only=reading)
+    if not reading and not ledger.is_server_url(where) and not ledger.ledger_path(where).exists():
+        raise ledger.LedgerError(f"{where}: no ledger here yet (run `bandwatch watch` first, or give --data)")
+    conn = ledger.open_ledger(where, read_only=reading)
     try:
         if args.action == "list":
             return _list(conn, args)
@@ -109,17 +134,21 @@ def run(args: argparse.Namespace) -> int:
         conn.close()
 
 
-def _list(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+def _list(conn: Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import list_runs
 
-    runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False)
+    runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False, instrument=args.instrument)
     if args.json:
-        for record in runs:
-            sys.stdout.write(strict_json.dumps(run_public(record)) + "\n")
+        sys.stdout.write("".join(strict_json.dumps_flat(run_public(record)) + "\n" for record in runs))
         return 0
     rows = [[str(r.run_id), f"v{r.version}", r.status, r.verdict or "-", r.decision or "-",
              safe_text(",".join(r.species) or "-"), (r.processed_at or "")[:19], safe_text(r.name)] for r in runs]
-    sys.stdout.write(_table(["run", "ver", "status", "verdict", "decision", "species", "processed", "file"], rows))
+    headers = ["run", "ver", "status", "verdict", "decision", "species", "processed", "file"]
+    if any(r.instrument for r in runs):  # runs of one or several instruments: say whose
+        headers.insert(1, "instrument")
+        for row, record in zip(rows, runs):
+            row.insert(1, safe_text(record.instrument or "-"))
+    sys.stdout.write(_table(headers, rows))
     return 0
 
 
@@ -129,7 +158,7 @@ def _table(headers: list[str], rows: list[list[str]]) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+def _show(conn: Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import decision_history, get_run
 
     record = get_run(conn, args.run_id)
@@ -147,6 +176,7 @@ def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
         return 0
     out = [
         f"run {record.run_id} v{record.version}  {record.path}",
+        f"  instrument {record.instrument or '-'}",
         f"  sha256     {record.sha256 or '-'}",
         f"  status     {record.status}",
         f"  verdict    {record.verdict or '-'}",
@@ -171,7 +201,7 @@ def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     return 0
 
 
-def _export(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+def _export(conn: Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import all_decisions, list_runs
 
     runs = list(reversed(list_runs(conn, with_result=False)))  # oldest first in an export
@@ -224,7 +254,7 @@ def _operator(given: str | None, configured: str) -> str:
         return ""
 
 
-def _decide(conn: sqlite3.Connection, args: argparse.Namespace, configured_operator: str) -> int:
+def _decide(conn: Connection, args: argparse.Namespace, configured_operator: str) -> int:
     from processing.station.ledger import LedgerError, get_run, record_decision, undo_last_decision
 
     operator = _operator(args.operator, configured_operator)
@@ -245,4 +275,29 @@ def _decide(conn: sqlite3.Connection, args: argparse.Namespace, configured_opera
     current = get_run(conn, args.run_id)
     state = current.decision if current and current.decision else "no decision"
     print(f"run {args.run_id}: {event.action} recorded (event {event.event_id}); now {state}")
+    return 0
+
+
+def _copy(args: argparse.Namespace) -> int:
+    from processing.station.config import load_config
+    from processing.station.ledger_copy import copy_ledger, ledger_argument
+
+    instrument = args.instrument or load_config(args.config).instrument
+    source, target = ledger_argument(args.source, "--from"), ledger_argument(args.target, "--to")
+    report = copy_ledger(source, target, instrument)
+    print(report.summary())
+    return 0
+
+
+def _migrate(where: str | Path) -> int:
+    from processing.station import ledger
+
+    before = ledger.found_schema_version(where)
+    conn = ledger.open_ledger(where)
+    try:
+        after = ledger.schema_version(conn)
+    finally:
+        conn.close()
+    state = "already up to date" if before == after else f"brought up from version {before}"
+    print(f"ledger {ledger.describe_ledger(where)}: schema version {after} ({state})")
     return 0

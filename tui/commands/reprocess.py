@@ -62,10 +62,14 @@ def run(args: argparse.Namespace) -> int:
         raise SelectionError("--workers must be between 1 and 256")
     if args.every < 1:
         raise SelectionError("--every must be at least 1")
-    config = station_config(args.config, args.data).with_overrides(timeout_seconds=args.timeout, memory_limit_mb=args.memory_mb)
+    config = station_config(args.config, args.data, args.ledger).with_overrides(timeout_seconds=args.timeout, memory_limit_mb=args.memory_mb)
     data_dir = Path(config.data_folder).expanduser().resolve()
+    where = config.ledger_url or data_dir  # the station's ledger: a server, or the data folder's file
     settings = station_settings(config, ReadPolicy(forbidden=(str(data_dir),)))
-    paths = PathSelection(tuple(args.paths), config.include, config.excluded_patterns) if args.paths else None
+    paths = (
+        PathSelection(tuple(args.paths), config.include, config.excluded_patterns, config.instrument)
+        if args.paths else None
+    )
     if paths is not None:
         paths.check()
     query = parse_query(args.ledger_runs) if args.ledger_runs is not None else None
@@ -74,9 +78,13 @@ def run(args: argparse.Namespace) -> int:
     out = sys.stderr if args.json else sys.stdout
     display = _Display(out, plain=args.plain or not out.isatty(), every=args.every)
     if args.dry_run:
-        conn = _read_only_ledger(data_dir, needed=query is not None)
+        conn = _read_only_ledger(where, needed=query is not None)
     else:
-        conn = ledger.open_ledger(data_dir)
+        conn = ledger.open_ledger(where)
+        if not ledger.is_server_url(where):
+            # as the station does with its file: runs from before instruments are this instrument's
+            # (else the files named here would be recorded again under a second key)
+            ledger.adopt_unnamed_runs(conn, config.instrument)
     try:
         def candidates() -> Any:
             if paths is not None:
@@ -92,14 +100,14 @@ def run(args: argparse.Namespace) -> int:
                     if done.is_set():
                         return total
             if query is not None:
-                counter = ledger.open_ledger(data_dir, read_only=True)
+                counter = ledger.open_ledger(where, read_only=True)
                 try:
                     total += LedgerSelection(query).count(counter)
                 finally:
                     counter.close()
             return total
 
-        options = JobOptions(data_dir, settings, write_reports=args.reports)
+        options = JobOptions(data_dir, settings, write_reports=args.reports, ledger_location=where)
         with _stopping_on_signals(stop):
             if args.dry_run:
                 job = ReprocessJob(conn, options, None, stop=stop, on_progress=display.progress, on_problem=display.problem)
@@ -129,13 +137,13 @@ def run(args: argparse.Namespace) -> int:
     return 0 if summary.complete else 1
 
 
-def _read_only_ledger(data_dir: Path, needed: bool) -> Any:
-    """A dry run reads the ledger if there is one (none: every file is new)."""
+def _read_only_ledger(where: str | Path, needed: bool) -> Any:
+    """A dry run reads the ledger if there is one (no file yet: every file is new)."""
     from processing.station import ledger
 
-    if not ledger.ledger_path(data_dir).exists() and not needed:
+    if not ledger.is_server_url(where) and not ledger.ledger_path(where).exists() and not needed:
         return None
-    return ledger.open_ledger(data_dir, read_only=True)
+    return ledger.open_ledger(where, read_only=True)
 
 
 def _backend(args: argparse.Namespace, config: StationConfig) -> Backend:

@@ -1,4 +1,5 @@
-"""A fitted quantity across runs (e.g. a band origin over the day, to see calibration drift)."""
+"""A fitted quantity across runs (e.g. a band origin over the day, to see calibration drift), of
+every instrument in the ledger (each run's instrument in the table) or of one (`I` cycles)."""
 from __future__ import annotations
 
 from pathlib import Path
@@ -12,6 +13,7 @@ from textual.widgets import DataTable, Footer, OptionList, Static
 from textual.widgets.option_list import Option
 
 from processing.results import RunResult
+from processing.safe_text import safe_text
 from tui import bindings
 from tui.messages import HistoryLoaded
 from tui.widgets.cells import decimals_for, number, plain
@@ -49,11 +51,14 @@ class HistoryScreen(Screen[None]):
 
     BINDINGS = bindings.HISTORY
 
-    def __init__(self, result: RunResult | None, data_dir: Path, preferred: tuple[str, str] | None = None) -> None:
+    def __init__(self, result: RunResult | None, ledger_location: str | Path, preferred: tuple[str, str] | None = None) -> None:
         super().__init__()
         self.choices = quantity_choices(result)
-        self.data_dir = data_dir
+        self.ledger_location = ledger_location  # a server's URL or the data folder
         self.preferred = preferred
+        self.loaded: HistoryLoaded | None = None  # the quantity's values on every instrument
+        self.instrument_filter: str | None = None  # one instrument's values only (None: all)
+        self.with_instrument = False
 
     def compose(self) -> ComposeResult:
         yield Static("Trend of one fitted quantity across runs (newest file versions)", id="history-title")
@@ -64,13 +69,18 @@ class HistoryScreen(Screen[None]):
                 yield HistoryTable(id="history-table", cursor_type="row")
         yield Footer(compact=True)
 
-    def on_mount(self) -> None:
-        table = self.query_one(HistoryTable)
+    def _add_columns(self, table: DataTable) -> None:
         table.add_column("time UTC", key="time", width=8)
+        if self.with_instrument:
+            table.add_column("instrument", key="instrument", width=10)
         table.add_column("run", key="run", width=4)
         table.add_column("value", key="value", width=12)
         table.add_column("±", key="sigma", width=9)
         table.add_column("Δ first", key="delta", width=10)
+
+    def on_mount(self) -> None:
+        table = self.query_one(HistoryTable)
+        self._add_columns(table)
         options = self.query_one(OptionList)
         options.focus()
         if not self.choices:
@@ -102,7 +112,7 @@ class HistoryScreen(Screen[None]):
         from processing.station.ledger import open_ledger, trend
 
         quantity, _, band = quantity_id.partition("@")
-        conn = open_ledger(self.data_dir)
+        conn = open_ledger(self.ledger_location)
         try:
             points = trend(conn, isotopologue, quantity, band)
         finally:
@@ -111,26 +121,61 @@ class HistoryScreen(Screen[None]):
 
     @on(HistoryLoaded)
     def show_history(self, message: HistoryLoaded) -> None:
-        label = next((c[2] for c in self.choices if (c[0], c[1]) == (message.isotopologue, message.quantity)), "")
-        self.query_one("#history-title", Static).update(
-            Text(f"{label}: {len(message.points)} run(s), oldest left/top", no_wrap=True)
-        )
-        self.query_one(TrendPlot).show([p.value for p in message.points], [p.sigma for p in message.points])
-        table = self.query_one(HistoryTable)
-        table.clear()
-        if not message.points:
+        self.loaded = message
+        self.show_points()
+
+    def instruments(self) -> list[str]:
+        """The instruments with values of the loaded quantity, by name."""
+        return sorted({p.instrument for p in self.loaded.points}) if self.loaded is not None else []
+
+    def show_points(self) -> None:
+        """The loaded values of the chosen instrument (or of all), as the plot and the table;
+        the instrument column when values of several instruments are there."""
+        message = self.loaded
+        if message is None:
             return
-        first = message.points[0].value
-        sigmas = [p.sigma for p in message.points if p.sigma]
+        names = self.instruments()
+        points = [p for p in message.points if self.instrument_filter in (None, p.instrument)]
+        label = next((c[2] for c in self.choices if (c[0], c[1]) == (message.isotopologue, message.quantity)), "")
+        which = ""
+        if self.instrument_filter is not None:
+            which = f" on {self.instrument_filter}"
+        elif len(names) > 1:
+            which = f" on {len(names)} instruments (I: one at a time)"
+        self.query_one("#history-title", Static).update(
+            Text(safe_text(f"{label}: {len(points)} run(s){which}, oldest left/top"), no_wrap=True, overflow="ellipsis")
+        )
+        self.query_one(TrendPlot).show([p.value for p in points], [p.sigma for p in points])
+        table = self.query_one(HistoryTable)
+        with_instrument = len(names) > 1 and self.instrument_filter is None
+        if with_instrument != self.with_instrument:
+            self.with_instrument = with_instrument
+            table.clear(columns=True)
+            self._add_columns(table)
+        table.clear()
+        if not points:
+            return
+        first = points[0].value
+        sigmas = [p.sigma for p in points if p.sigma]
         places = decimals_for(min(sigmas) if sigmas else None, default=5)
-        for point in message.points:
-            table.add_row(
+        for point in points:
+            cells = [
                 plain(clock_time(point.processed_at)),
                 Text(str(point.run_id), justify="right"),
                 number(point.value, places),
                 number(point.sigma, places) if point.sigma is not None else Text("n/d", justify="right", style="dim"),
                 number(point.value - first, places),
-            )
+            ]
+            if self.with_instrument:
+                cells.insert(1, plain(point.instrument or "-"))
+            table.add_row(*cells)
+
+    def action_cycle_instrument(self) -> None:
+        """Show one instrument's values, then the next, ..., then all again."""
+        choices: list[str | None] = [None, *self.instruments()]
+        position = choices.index(self.instrument_filter) if self.instrument_filter in choices else 0
+        self.instrument_filter = choices[(position + 1) % len(choices)]
+        self.show_points()
 
     def action_close(self) -> None:
         self.dismiss(None)

@@ -17,14 +17,18 @@ from textual.worker import Worker, WorkerState
 from textual.widgets import DataTable, Footer, Static, TabbedContent, TabPane
 
 from processing.safe_text import safe_text
+from processing.station.ledger_postgres import is_server_url
 from processing.station.events import (
     ClaimResumed,
     FileSeen,
+    LedgerOffline,
+    LedgerOnline,
     FileSettled,
     FileUnchanged,
     FileVanished,
     RunFailed,
     RunProcessed,
+    RunSpooled,
     StationProblem,
     StationStarted,
     StationStopped,
@@ -50,8 +54,8 @@ if TYPE_CHECKING:
 
 # events that put a file among those being worked on, and those that take it off
 STARTS_WORK = (FileSeen, FileSettled, ClaimResumed)
-ENDS_WORK = (RunProcessed, RunFailed, FileVanished, FileUnchanged)
-CHANGES_RUN_LIST = (*STARTS_WORK, RunProcessed, RunFailed, FileVanished, StationProblem)
+ENDS_WORK = (RunProcessed, RunFailed, FileVanished, FileUnchanged, RunSpooled)
+CHANGES_RUN_LIST = (*STARTS_WORK, RunProcessed, RunFailed, FileVanished, StationProblem, RunSpooled, LedgerOnline)
 
 
 def short_error(run: RunRecord | None) -> str | None:
@@ -91,6 +95,9 @@ class MainScreen(Screen[None]):
         self.excluded: dict[int, set[float]] = {}
         self.station_state = "no station"
         self.last_event = ""
+        self.ledger_state = ""  # "ledger offline (N spooled)" while the ledger server is away
+        self.instrument_filter: str | None = None  # show one instrument's runs (None: all)
+        self.instruments: tuple[str, ...] = ()  # every instrument with runs in the ledger
 
     @property
     def bw(self) -> BandwatchApp:
@@ -123,6 +130,10 @@ class MainScreen(Screen[None]):
     def update_title(self) -> None:
         folder = self.bw.export_dir or "(no folder watched)"
         parts = [f"bandwatch  {folder}", self.station_state]
+        if self.ledger_state:
+            parts.append(self.ledger_state)
+        if self.instrument_filter is not None:
+            parts.append(f"instrument {safe_text(self.instrument_filter)} only")
         if self.busy_paths:
             parts.append(f"working on {len(self.busy_paths)}")
         if self.last_event:
@@ -153,20 +164,21 @@ class MainScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, group="runs", exit_on_error=False)
     def load_runs(self) -> None:
-        from processing.station.ledger import list_runs, open_ledger
+        from processing.station.ledger import instruments, list_runs, open_ledger
 
-        conn = open_ledger(self.bw.data_dir)
+        conn = open_ledger(self.bw.ledger_location)
         try:
-            runs = list_runs(conn, limit=self.bw.run_limit, with_result=False)
+            runs = list_runs(conn, limit=self.bw.run_limit, with_result=False, instrument=self.instrument_filter)
+            names = tuple(instruments(conn))
         finally:
             conn.close()
-        self.post_message(RunsLoaded(runs))
+        self.post_message(RunsLoaded(runs, names))
 
     @work(thread=True, exclusive=True, group="detail", exit_on_error=False)
     def load_detail(self, run_id: int) -> None:
         from processing.station.ledger import get_run, open_ledger
 
-        conn = open_ledger(self.bw.data_dir)
+        conn = open_ledger(self.bw.ledger_location)
         try:
             run = get_run(conn, run_id)
         finally:
@@ -211,7 +223,7 @@ class MainScreen(Screen[None]):
     def write_decision(self, run_id: int, action: str, reason: str) -> None:
         from processing.station.ledger import open_ledger, record_decision, undo_last_decision
 
-        conn = open_ledger(self.bw.data_dir)
+        conn = open_ledger(self.bw.ledger_location)
         try:
             if action == "undo":
                 event = undo_last_decision(conn, run_id, self.bw.operator)
@@ -260,6 +272,9 @@ class MainScreen(Screen[None]):
             keep, self.jump_to = self.jump_to, None
         recorded = {run.path for run in message.runs}
         self.busy_paths = [path for path in self.busy_paths if path not in recorded]
+        self.instruments = message.instruments
+        # the instrument column when runs of several instruments (or a shared server) are listed
+        table.show_instruments(len(message.instruments) > 1 or is_server_url(self.bw.ledger_location))
         table.fill(message.runs, self.busy_paths, keep_run_id=keep, problems=self.problems)
         if keep is None or keep not in self.runs:
             self.select_run(table.selected_run_id())
@@ -364,6 +379,12 @@ class MainScreen(Screen[None]):
             self.station_state = "station running"
         elif isinstance(event, StationStopped):
             self.station_state = "station stopped"
+        elif isinstance(event, LedgerOffline):
+            self.ledger_state = "ledger offline"
+        elif isinstance(event, RunSpooled):
+            self.ledger_state = f"ledger offline ({event.waiting} spooled)"
+        elif isinstance(event, LedgerOnline):
+            self.ledger_state = ""
         if isinstance(event, STARTS_WORK):
             if event.path not in self.busy_paths:
                 self.busy_paths.append(event.path)
@@ -377,6 +398,8 @@ class MainScreen(Screen[None]):
                     self.problems[path] = event.message
         if isinstance(event, RunFailed):
             self.notify(escape(self.last_event), title="run failed", severity="error")
+        elif isinstance(event, LedgerOffline):
+            self.notify(escape(self.last_event), title="ledger offline", severity="warning", timeout=10)
         elif isinstance(event, StationProblem):
             self.notify(escape(self.last_event), title="station", severity="warning")
         if isinstance(event, CHANGES_RUN_LIST):
@@ -468,7 +491,17 @@ class MainScreen(Screen[None]):
         preferred = None
         if self.query_one(TabbedContent).active == "tab-constants":
             preferred = self.query_one(ConstantsTable).selected_quantity()
-        self.app.push_screen(HistoryScreen(run.result if run else None, self.bw.data_dir, preferred))
+        self.app.push_screen(HistoryScreen(run.result if run else None, self.bw.ledger_location, preferred))
+
+    def action_cycle_instrument(self) -> None:
+        """Show one instrument's runs, then the next, ..., then all again."""
+        choices: list[str | None] = [None, *self.instruments]
+        position = choices.index(self.instrument_filter) if self.instrument_filter in choices else 0
+        self.instrument_filter = choices[(position + 1) % len(choices)]
+        shown = "all instruments" if self.instrument_filter is None else f"instrument {self.instrument_filter} only"
+        self.notify(escape(safe_text(f"showing {shown}")), timeout=2)
+        self.update_title()
+        self.load_runs()
 
     def action_next_run(self) -> None:
         self.query_one(RunList).action_cursor_down()

@@ -36,21 +36,42 @@ def clock_time(stamp: str | None) -> str:
 
 
 class RunList(DataTable):
-    """Runs newest first: time, file, species found, verdict, decision."""
+    """Runs newest first: time, (instrument,) file, species found, verdict, decision."""
 
     BINDINGS = bindings.TABLE
 
     def __init__(self, **kwargs: Any) -> None:
         super().__init__(cursor_type="row", zebra_stripes=False, **kwargs)
         self.run_ids: list[int] = []
+        self.with_instrument = False
 
     def on_mount(self) -> None:
+        self._add_columns()
+
+    def _add_columns(self) -> None:
+        """The columns; with instruments the file column gives up the room (80 columns fit)."""
         self.add_column("time UTC", key="time", width=8)
-        self.add_column("file", key="file", width=26)
+        if self.with_instrument:
+            self.add_column("instrument", key="instrument", width=10)
+        self.add_column("file", key="file", width=16 if self.with_instrument else 26)
         self.add_column("v", key="version", width=2)
         self.add_column("species", key="species", width=12)
         self.add_column("verdict", key="verdict", width=8)
         self.add_column("decision", key="decision", width=8)
+
+    def show_instruments(self, shown: bool) -> None:
+        """Add or take away the instrument column (before `fill`)."""
+        if shown != self.with_instrument:
+            self.with_instrument = shown
+            self.clear(columns=True)
+            self._add_columns()
+
+    def _row(self, *cells: Text, instrument: str = "") -> list[Text]:
+        """A row's cells, with the instrument's cell when the column is shown."""
+        row = list(cells)
+        if self.with_instrument:
+            row.insert(1, plain(instrument) if instrument else Text(""))
+        return row
 
     def fill(
         self,
@@ -64,24 +85,27 @@ class RunList(DataTable):
         self.run_ids = []
         for path in problems or {}:
             self.add_row(
-                Text("now", style="dim"), plain(path.rsplit("/", 1)[-1]), Text(""), Text(""),
-                verdict_text("problem", None), Text(""), key=f"problem:{path}",
+                *self._row(Text("now", style="dim"), plain(path.rsplit("/", 1)[-1]), Text(""), Text(""),
+                           verdict_text("problem", None), Text("")), key=f"problem:{path}",
             )
         for path in busy:
             name = path.rsplit("/", 1)[-1]
             self.add_row(
-                Text("now", style="dim"), plain(name), Text(""), Text(""),
-                verdict_text("busy", None), Text(""), key=f"busy:{path}",
+                *self._row(Text("now", style="dim"), plain(name), Text(""), Text(""),
+                           verdict_text("busy", None), Text("")), key=f"busy:{path}",
             )
         for run in runs:
             self.run_ids.append(run.run_id)
             self.add_row(
-                plain(clock_time(run.received_at)),
-                plain(run.name),
-                Text(str(run.version), justify="right"),
-                plain(",".join(run.species) or "—"),
-                verdict_text(run.status, run.verdict),
-                decision_text(run.decision),
+                *self._row(
+                    plain(clock_time(run.received_at)),
+                    plain(run.name),
+                    Text(str(run.version), justify="right"),
+                    plain(",".join(run.species) or "—"),
+                    verdict_text(run.status, run.verdict),
+                    decision_text(run.decision),
+                    instrument=run.instrument,
+                ),
                 key=str(run.run_id),
             )
         if keep_run_id is not None and str(keep_run_id) in self.rows:
