@@ -39,16 +39,9 @@ from processing.physical_constants import C2_CM_K
 if TYPE_CHECKING:
     from processing.intensities import BandIntensities
     from processing.levels import DunhamCoefficients
-    from processing.species import Isotopologue, Library
+    from processing.species import InterferentRegion, Isotopologue, Library
 
 CANDIDATE_BANDS: tuple[tuple[int, int], ...] = ((1, 0), (2, 0), (3, 0), (2, 1))
-# Regions where lines are most likely from atmospheric interferents (common practice).
-INTERFERENT_REGIONS: tuple[tuple[float, float, str], ...] = (
-    (2280.0, 2390.0, "interferent (CO2-like band region)"),
-    (640.0, 700.0, "interferent (CO2-like bend region)"),
-    (1300.0, 2000.0, "interferent (water-vapour region)"),
-    (3450.0, 4000.0, "interferent (water-vapour region)"),
-)
 MIN_BAND_LINES = 5
 # How well the library places a band's lines relative to one another once a common shift is
 # applied (main isotopologues ~0.01 cm-1 to J'' ~15, mass-scaled ones a few hundredths; calc
@@ -760,15 +753,19 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Library) ->
 
 
 # ------------------------------------------------------------------------------- main entry
-def _likely_cause(lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]], refused: dict[int, float]) -> str:
+def _likely_cause(
+    lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]], refused: dict[int, float],
+    interferent_regions: tuple[InterferentRegion, ...] = (),
+) -> str:
     if i in refused:
         return f"{refused[i]:.0f}x taller than its band's intensity pattern allows (another absorber or noise on a predicted line)"
     if lines.ringing[i]:
         return "ringing beside a strong line"
     x = lines.position_cm1[i]
-    for low, high, cause in INTERFERENT_REGIONS:
-        if low <= x <= high and not any(a <= x <= b for a, b in first_fit_regions):
-            return cause
+    # where atmospheric absorbers left in the beam put their lines (the library's regions)
+    region = next((r for r in interferent_regions if r.holds(x)), None)
+    if region is not None and not any(a <= x <= b for a, b in first_fit_regions):
+        return f"interferent ({region.description})"
     if lines.snr[i] < 8.0:
         return "noise"
     return "unknown"
@@ -785,7 +782,9 @@ def _excluded_mask(lines: LineTable, excluded: tuple[float, ...]) -> np.ndarray:
     return mask
 
 
-DoubletMeasure = Callable[[float, float, float], "tuple[float, float] | None"]
+# (centre guesses, separations, thin-line ratios) of one band's lines with unresolved partners
+# -> (centre, standard error) or None for each
+DoubletMeasure = Callable[[np.ndarray, np.ndarray, np.ndarray], "list[tuple[float, float] | None]"]
 
 
 def assign_lines(
@@ -798,7 +797,7 @@ def assign_lines(
 ) -> AssignmentResult:
     """Assign `lines` (measured in a spectrum covering first..last cm-1); see module docstring.
 
-    `measure_doublet(centre_guess, separation, ratio) -> (centre, sigma)` re-measures a line
+    `measure_doublet(centre_guesses, separations, ratios) -> [(centre, sigma) or None]` re-measures a band's lines
     blended with an isotopologue partner from the spectrum itself (see
     `lines.measure_doublet`); without it (a line list) the blend centre is corrected by the
     predicted intensity-weighted shift.
@@ -952,7 +951,7 @@ def _assign_at(
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused, excluded)
+    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused, library.interferent_regions, excluded)
     if settings.species:
         found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
         missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
@@ -980,6 +979,7 @@ def _finish(
     notes: list[str],
     measure_doublet: DoubletMeasure | None = None,
     refused: dict[int, float] | None = None,
+    interferent_regions: tuple[InterferentRegion, ...] = (),
     excluded: np.ndarray | None = None,
 ) -> AssignmentResult:
     """Final fit per band, per-line results with confidence, likely causes for the rest (a
@@ -1002,11 +1002,14 @@ def _finish(
         pull = band.pull_of(m)
         sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)) | (pull != 0))
         if measure_doublet is not None:
-            for k, m_k in enumerate(m.tolist()):
-                # a saturated top has no doublet shape to fit: its blend centre stands
-                if m_k in band.partner and not lines.saturated[idx[k]] and band.partner[m_k][1] >= DOUBLET_MIN_RATIO:
-                    separation, ratio = band.partner[m_k]
-                    measured = measure_doublet(float(lines.position_cm1[idx[k]] - pull[k]), separation, ratio)
+            # a saturated top has no doublet shape to fit: its blend centre stands
+            pairs = [k for k, m_k in enumerate(m.tolist())
+                     if m_k in band.partner and not lines.saturated[idx[k]] and band.partner[m_k][1] >= DOUBLET_MIN_RATIO]
+            if pairs:
+                guesses = np.array([float(lines.position_cm1[idx[k]] - pull[k]) for k in pairs])
+                separations = np.array([band.partner[int(m[k])][0] for k in pairs])
+                ratios = np.array([band.partner[int(m[k])][1] for k in pairs])
+                for k, measured in zip(pairs, measure_doublet(guesses, separations, ratios)):
                     if measured is not None:
                         # the feature sits `pull` from the line: measured from the doublet fit
                         pull[k] = float(lines.position_cm1[idx[k]] - measured[0])
@@ -1050,7 +1053,8 @@ def _finish(
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
     causes = tuple(
-        None if per_line[i] is not None else EXCLUDED_CAUSE if excluded[i] else _likely_cause(lines, i, fitted_regions, refused)
+        None if per_line[i] is not None
+        else EXCLUDED_CAUSE if excluded[i] else _likely_cause(lines, i, fitted_regions, refused, interferent_regions)
         for i in range(lines.count)
     )
     species = tuple(sorted({f.isotopologue for f in fits}))

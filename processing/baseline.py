@@ -48,26 +48,6 @@ class BaselineResult:
     noise: NoiseEstimate | None = None  # correlation, rounding grid, measurability
     fringes: FringeModel | None = None  # window fringes found and taken out with the baseline
 
-    def to_dict(self) -> dict[str, object]:
-        noise = self.noise
-        return {
-            "noise_sigma": self.noise_sigma,
-            "noise_correlation_points": noise.correlation_points if noise else None,
-            "quantization_step": noise.quantization_step if noise else None,
-            "quantization_floor": noise.quantization_floor if noise else None,
-            "noise_measurable": noise.measurable if noise else None,
-            "noise_description": noise.description if noise else None,
-            "fringes": self.fringes.to_dict() if self.fringes else None,
-            "offset_median": self.offset_median,
-            "tilt_per_1000_cm1": self.tilt_per_1000_cm1,
-            "line_free_fraction": float(self.line_free.mean()),
-            "usable_absorbance": self.usable_absorbance,
-            "saturated_regions": [
-                {"first_cm1": r.first_cm1, "last_cm1": r.last_cm1, "peak_absorbance": r.peak_absorbance, "reason": r.reason}
-                for r in self.saturated_regions
-            ],
-        }
-
 
 def original_values(spectrum: Spectrum, index: np.ndarray) -> np.ndarray:
     """The y values at `index` as the file held them (absorbance, T or %T), for spotting a

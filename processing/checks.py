@@ -279,22 +279,25 @@ def calibration_fit(analysis: Analysis) -> CalibrationFit | None:
     )
 
 
-def check_interferents(analysis: Analysis, t: CheckThresholds, axis_inverted: bool = False) -> Check:
-    causes = [c for c in analysis.assignment.likely_cause if c]
-    co2 = sum("CO2" in c for c in causes)
-    water = sum("water" in c for c in causes)
+def check_interferents(analysis: Analysis, library: Library, t: CheckThresholds, axis_inverted: bool = False) -> Check:
+    """Unassigned lines the assignment put down to an atmospheric absorber (the library's
+    interferent regions), counted per absorber, and dips below the baseline."""
+    per_absorber = {region.absorber: 0 for region in library.interferent_regions}
+    for position, cause in zip(analysis.lines.position_cm1.tolist(), analysis.assignment.likely_cause):
+        region = library.interferent_region(position) if cause and cause.startswith("interferent") else None
+        if region is not None:
+            per_absorber[region.absorber] += 1
     # dips are the spectrum itself when its axis is inverted: no purge to blame
     negative = 0 if axis_inverted else _negative_lines(analysis)
-    problems = []
-    if co2 >= t.interferent_lines_warn:
-        problems.append(f"{co2} unassigned lines in the CO2 region")
-    if water >= t.interferent_lines_warn:
-        problems.append(f"{water} unassigned lines in water-vapour regions")
+    problems = [f"{count} unassigned lines in {absorber} regions" for absorber, count in per_absorber.items()
+                if count >= t.interferent_lines_warn]
     if negative >= t.negative_lines_warn:
         problems.append(f"{negative} negative lines (background taken with a different purge)")
+    total = float(sum(per_absorber.values()) + negative)
     if problems:
-        return Check("interferents", "warn", "; ".join(problems) + ": check the purge", float(co2 + water + negative))
-    return Check("interferents", "pass", f"no interferent bands ({co2} CO2-region, {water} water-region, {negative} negative lines)", float(co2 + water + negative))
+        return Check("interferents", "warn", "; ".join(problems) + ": check the purge", total)
+    counts = ", ".join(f"{count} {absorber}-region" for absorber, count in per_absorber.items())
+    return Check("interferents", "pass", f"no interferent bands ({counts + ', ' if counts else ''}{negative} negative lines)", total)
 
 
 def _negative_lines(analysis: Analysis) -> int:
@@ -456,7 +459,7 @@ def run_checks(analysis: Analysis, library: Library, intensities: IntensityResul
         check_band_lines(analysis, thresholds),
         check_fit_rms(analysis, thresholds),
         check_calibration(analysis, library, thresholds),
-        check_interferents(analysis, thresholds, axis_inverted=y_axis.status == "fail"),
+        check_interferents(analysis, library, thresholds, axis_inverted=y_axis.status == "fail"),
         check_isotopologues(analysis, library, intensities, expected, thresholds),
         check_temperature(intensities, thresholds),
         check_baseline(analysis, thresholds),

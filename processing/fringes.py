@@ -34,9 +34,6 @@ class FringeModel:
     contrast: float  # Fourier magnitude over the median magnitude
     profile: np.ndarray  # the fitted fringe at every point (absorbance)
 
-    def to_dict(self) -> dict[str, float]:
-        return {"period_cm1": self.period_cm1, "amplitude": self.amplitude, "contrast": self.contrast}
-
 
 # Periods down to PERIOD_RANGE_CM1[0] need only bins of a third of that: the search runs on the
 # residual averaged into bins of SEARCH_BIN_CM1 (a 0.3 cm-1 sinusoid keeps sinc(1/3) = 83% of

@@ -13,6 +13,7 @@ left after the predicted ringing is subtracted still stands above the noise.
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,6 +21,7 @@ import numpy as np
 from processing.apodization import APODIZATIONS, apodization_window, window_name
 
 STATED_MISFIT_FACTOR = 4.0  # a stated line shape yields only to one that fits this much better
+STATED_WIDTH_TOLERANCE = 1.25  # measured lines this much wider (or narrower) than stated: another convention
 _SAMPLES = 1 << 12  # window samples over 0..1
 _PAD = 1 << 17  # FFT length: s step _SAMPLES / _PAD = 1/32 in units of 1/L (ILS to ~2e-3 of its peak)
 # The prediction of a lobe's depth is good to about this fraction (line shapes not exactly
@@ -157,12 +159,23 @@ def infer_line_shape(
         candidates.append(LineShapeModel(window, width_per_opd / typical, f"inferred: {window} from the strongest lines' profiles"))
     scored = sorted((misfit(model), model.window, model) for model in candidates)
     best_score, _, best = scored[0]
-    if stated is not None:
-        # the file's own statement stands unless it plainly cannot be right (lines with some
-        # width of their own fit a wider window a little better whatever was used)
-        if misfit(stated) <= STATED_MISFIT_FACTOR * best_score:
-            return stated
-    return best
+    if stated is None:
+        return best
+    # the file's own statement stands unless it plainly cannot be right (lines with some
+    # width of their own fit a wider window a little better whatever was used)
+    if misfit(stated) <= STATED_MISFIT_FACTOR * best_score:
+        return stated
+    same_window_score = next(score for score, window, _ in scored if window == stated.window)
+    if same_window_score > STATED_MISFIT_FACTOR * best_score:
+        return best  # another window altogether: the apodization is not what the file says
+    if abs(math.log(typical / stated.fwhm_cm1)) > math.log(STATED_WIDTH_TOLERANCE):
+        # lines plainly wider (their own width: pressure, Doppler) or narrower (a resolution
+        # stated in another convention) than stated: the shape that best describes them
+        return best
+    # the stated window at about the stated width, merely fitting worse than a wider one: the
+    # profiles hold unresolved partners (an isotopologue doublet under one peak), which widen
+    # them; the instrument is as stated
+    return stated
 
 
 def equivalent_width_estimates(x: np.ndarray, absorbance: np.ndarray, centres: np.ndarray, model: LineShapeModel, widths: np.ndarray) -> np.ndarray:

@@ -24,6 +24,7 @@ independent noise samples across its FWHM, and is marked `few_points`.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -63,6 +64,7 @@ class LineTable:
     sigma_known: bool = True  # False for a line list: position_sigma_cm1 is only a weight
     few_points: np.ndarray | None = None  # profile drawn on < 4 points: conservative sigma
     line_shape: LineShapeModel | None = None  # the instrument line shape the ringing flags used
+    spacing_cm1: float = 0.0  # the spectrum's point spacing (0 for a line list)
     equivalent_width_estimate: np.ndarray | None = None  # T-depth x cm-1, from the main lobe
 
     def __post_init__(self) -> None:
@@ -450,7 +452,21 @@ def measure_lines(
         few_points=few_points,
         line_shape=line_shape,
         equivalent_width_estimate=equivalent,
+        spacing_cm1=spacing,
     )
+
+
+def line_profile(lines: LineTable) -> Callable[[np.ndarray], np.ndarray] | None:
+    """A narrow line's measured profile relative to its peak, as a function of the offset
+    (cm-1): the instrument line shape when it sets the width (its FWHM at least half the
+    lines' typical width), else a Gaussian of that width; None without widths (a line list)."""
+    width = lines.typical_width_cm1
+    if not width > 0 or not np.isfinite(width):
+        return None
+    model = lines.line_shape
+    if model is not None and model.fwhm_cm1 >= 0.5 * width:
+        return model.relative
+    return lambda offset: np.exp(-FOUR_LN2 * (np.asarray(offset) / width) ** 2)
 
 
 def _diverged(h: np.ndarray, c: np.ndarray, peak_x: np.ndarray, y_win: np.ndarray, reach: float, sigma: float) -> np.ndarray:

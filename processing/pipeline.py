@@ -118,10 +118,13 @@ def analyse(data: Spectrum | LineList, settings: ProcessSettings | None = None) 
     )
     doublet = None
     if isinstance(data, Spectrum):
-        from processing.doublets import measure_blended_line
+        from processing.doublets import measure_blended_lines
+        from processing.lines import line_profile
 
-        def doublet(centre: float, separation: float, ratio: float) -> tuple[float, float] | None:
-            return measure_blended_line(data, baseline, lines.typical_width_cm1, centre, separation, ratio)
+        profile = line_profile(lines)
+
+        def doublet(centres: np.ndarray, separations: np.ndarray, ratios: np.ndarray) -> list[tuple[float, float] | None]:
+            return measure_blended_lines(data, baseline, lines.typical_width_cm1, centres, separations, ratios, profile)
 
     assignment = assign_lines(lines, first, last, assign_settings, library, doublet)
     contours = unresolved_bands(data, baseline, lines, assignment, library, settings.temperature_K)

@@ -667,6 +667,9 @@ def run_report(run: RunRecord, decisions: Sequence[DecisionEvent]) -> str:
     ]
     if run.settings:
         out.append(f"settings    {json.dumps(run.settings, sort_keys=True)}")
+    if run.provenance is not None:
+        made = run.provenance
+        out.append(f"made with   analysis {made.analysis_version}, library {made.library_hash}, settings {made.settings_hash}")
     if run.error:
         out.append(f"error       {run.error}")
     if decisions:

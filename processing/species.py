@@ -141,6 +141,21 @@ def canonical_label(nuclides: Iterable[Nuclide]) -> str:
     return "".join(parts)
 
 
+@dataclass(frozen=True)
+class InterferentRegion:
+    """A stretch of the spectrum where unassigned lines most likely belong to an atmospheric
+    absorber left in the beam (a poor purge), not to the sample."""
+
+    name: str
+    first_cm1: float
+    last_cm1: float
+    absorber: str  # how the check names it: "CO2", "water-vapour"
+    description: str  # the likely cause given to such a line
+
+    def holds(self, wavenumber_cm1: float) -> bool:
+        return self.first_cm1 <= wavenumber_cm1 <= self.last_cm1
+
+
 # ---------------------------------------------------------------------------- library
 @dataclass(frozen=True)
 class Library:
@@ -149,6 +164,11 @@ class Library:
     nuclides: dict[str, Nuclide] = field(repr=False)
     entries: dict[str, Isotopologue] = field(repr=False)
     sources: tuple[str, ...] = field(default=())
+    interferent_regions: tuple[InterferentRegion, ...] = field(default=(), repr=False)
+
+    def interferent_region(self, wavenumber_cm1: float) -> InterferentRegion | None:
+        """The first interferent region holding a wavenumber, or None."""
+        return next((region for region in self.interferent_regions if region.holds(wavenumber_cm1)), None)
 
     def __hash__(self) -> int:
         return hash(tuple(self.entries))
@@ -287,14 +307,15 @@ def _shipped_library() -> Library:
     _check_top_level(raw, path)
     origin = {
         (section, name): path
-        for section in ("nuclides", "molecules", "isotopologues")
+        for section in _NAMED_SECTIONS
         for name in raw.get(section, {})
     }
     return _build(raw, origin, (str(path),))
 
 
 # ---------------------------------------------------------------------------- parsing
-_SECTIONS = ("meta", "nuclides", "molecules", "isotopologues")
+_SECTIONS = ("meta", "nuclides", "molecules", "isotopologues", "interferent_regions")
+_NAMED_SECTIONS = ("nuclides", "molecules", "isotopologues", "interferent_regions")
 
 
 def _read_toml(path: Path) -> dict[str, Any]:
@@ -329,10 +350,10 @@ def _merge(
     merged = copy.deepcopy(base)
     origin = {
         (section, name): base_path
-        for section in ("nuclides", "molecules", "isotopologues")
+        for section in _NAMED_SECTIONS
         for name in base.get(section, {})
     }
-    for section in ("nuclides", "molecules", "isotopologues"):
+    for section in _NAMED_SECTIONS:
         for name, entry in user.get(section, {}).items():
             target = merged.setdefault(section, {}).setdefault(name, {})
             for key, value in entry.items():
@@ -551,7 +572,23 @@ def _build(
             overtone_ratio=item["per_molecule"]["overtone_ratio"],
             broadening_hwhm_cm1_per_atm=item["per_molecule"]["broadening_hwhm_cm1_per_atm"],
         )
-    return Library(nuclides=nuclides, entries=entries, sources=sources)
+    regions = tuple(
+        _parse_interferent_region(origin[("interferent_regions", name)], name, entry)
+        for name, entry in raw.get("interferent_regions", {}).items()
+    )
+    return Library(nuclides=nuclides, entries=entries, sources=sources, interferent_regions=regions)
+
+
+def _parse_interferent_region(path: Path, name: str, entry: Mapping[str, Any]) -> InterferentRegion:
+    where = f"interferent_regions.{name}"
+    _reject_unknown_keys(path, where, entry, {"first_cm1", "last_cm1", "absorber", "description"})
+    first = _number(path, f"{where}.first_cm1", _require(path, where, entry, "first_cm1"))
+    last = _number(path, f"{where}.last_cm1", _require(path, where, entry, "last_cm1"))
+    if not 0 < first < last:
+        raise LibraryFileError(path, f"{where}: need 0 < first_cm1 < last_cm1, got {first!r} and {last!r}")
+    absorber = _text(path, f"{where}.absorber", _require(path, where, entry, "absorber"))
+    description = _text(path, f"{where}.description", _require(path, where, entry, "description"))
+    return InterferentRegion(name, first, last, absorber, description)
 
 
 def _scale_exponent(name: str) -> float:

@@ -46,6 +46,13 @@ def dumps(value: Any, **options: Any) -> str:
     return json.dumps(to_plain(value), allow_nan=False, **options)
 
 
+def dumps_flat(value: dict[str, Any]) -> str:
+    """Strict JSON text of a flat object whose values are only str, int, bool, None or lists
+    of those (a ledger listing's row): the same text as `dumps`, without walking the value
+    first (a listing of 100,000 runs writes 100,000 of them)."""
+    return json.dumps(value, allow_nan=False)
+
+
 def dumps_result(result: dict[str, Any], **options: Any) -> str:
     """A run's JSON object; values that were NaN or infinite are null and listed in
     `non_finite` (where, and what they were), so a reader knows why they are missing."""

@@ -372,3 +372,27 @@ def test_average_atomic_weight_is_rejected(tmp_path) -> None:
 def test_missing_user_file(tmp_path) -> None:
     with pytest.raises(LibraryFileError, match="file not found"):
         load_library(tmp_path / "absent.toml")
+
+
+def test_interferent_regions_come_from_the_library_file_and_a_user_file_adds_one(tmp_path) -> None:
+    from processing.species import load_library
+
+    shipped = load_library()
+    # CO2 asymmetric stretch near 2349 cm-1 and the water bend near 1595 cm-1 (common practice)
+    assert shipped.interferent_region(2349.0).absorber == "CO2"
+    assert shipped.interferent_region(1595.0).absorber == "water-vapour"
+    assert shipped.interferent_region(2886.0) is None  # the HCl fundamental is no interferent region
+    user = tmp_path / "extra.toml"
+    user.write_text('[interferent_regions.methane]\nfirst_cm1 = 2900.0\nlast_cm1 = 3100.0\n'
+                    'absorber = "methane"\ndescription = "methane-like stretch region"\n')
+    extended = load_library(user)
+    assert extended.interferent_region(3020.0).description == "methane-like stretch region"
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[interferent_regions.backwards]\nfirst_cm1 = 3100.0\nlast_cm1 = 2900.0\n'
+                   'absorber = "x"\ndescription = "y"\n')
+    import pytest
+
+    from processing.species import LibraryFileError
+
+    with pytest.raises(LibraryFileError, match="interferent_regions.backwards"):
+        load_library(bad)

@@ -74,3 +74,15 @@ def test_reports_and_ledger_of_the_station_are_strict_json(tmp_path: Path, monke
     conn.close()
     result = strict_loads(stored)
     assert isinstance(result, dict) and {"at": "checks[0].value", "was": "inf"} not in (result.get("non_finite") or [])
+
+
+
+def test_a_flat_listing_row_is_written_as_dumps_writes_it() -> None:
+    from processing import strict_json as sj
+
+    rows = [
+        {"run_id": 1, "path": "/e/a}{b.csv", "species": ["H35Cl", "H37Cl"], "decision": None, "ok": True},
+        {"run_id": 2, "path": "/e/\u00e9t\u00e9 \u202e\n.csv", "species": [], "error": "x: {\"y\": 1}, [2]", "ok": False},
+        {"run_id": 3, "path": "\udcff", "species": ["}{"], "instrument": ""},
+    ]
+    assert [sj.dumps_flat(row) for row in rows] == [sj.dumps(row) for row in rows]

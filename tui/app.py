@@ -65,6 +65,7 @@ class BandwatchApp(App[int]):
         keymap: dict[str, str] | None = None,
         config: StationConfig | None = None,
         monochrome: bool | None = None,
+        ledger_location: str | Path | None = None,
     ) -> None:
         self.monochrome = monochrome_terminal() if monochrome is None else monochrome
         # Without colour the terminal's own foreground and background are used throughout
@@ -77,6 +78,8 @@ class BandwatchApp(App[int]):
             self.no_color = True
             self._filters.append(NoColor())  # Textual does this itself only for NO_COLOR
         self.data_dir = Path(data_dir)
+        # the ledger: a server's URL, or the data folder (its ledger.sqlite3)
+        self.ledger_location: str | Path = ledger_location if ledger_location is not None else self.data_dir
         self.export_dir = str(export_dir) if export_dir is not None else None
         # the station's settings: a redo without a running station uses them too
         self.config = config or StationConfig(

@@ -27,6 +27,8 @@ MAIN = [
     Binding("e", "export", "Export", id="run.export",
             tooltip="Write the run's report and figure (SVG) under DATA/reports"),
     Binding("t", "history", "Trend", id="run.history", tooltip="Trend of a fitted quantity over runs"),
+    Binding("I", "cycle_instrument", "Instrument", show=False, id="run.instrument",
+            tooltip="Show one instrument's runs, the next, ..., then all again"),
     Binding("n,ctrl+n", "next_run", "Next run", show=False, id="run.next"),
     Binding("p,ctrl+p", "previous_run", "Previous run", show=False, id="run.previous"),
     Binding("1", "show_tab('tab-plot')", "Plot", show=False, id="pane.plot", tooltip="Show the plot pane"),
@@ -74,6 +76,8 @@ HISTORY = [
     Binding("escape,q,t", "close", "Back", id="history.close"),
     Binding("down,j", "choice(1)", "Next quantity", show=False, id="history.next"),
     Binding("up,k", "choice(-1)", "Previous quantity", show=False, id="history.previous"),
+    Binding("I", "cycle_instrument", "Instrument", show=False, id="history.instrument",
+            tooltip="Show one instrument's values, the next, ..., then all again"),
 ]
 
 FLAG = [Binding("escape", "cancel", "Cancel", id="modal.cancel")]

@@ -18,6 +18,7 @@ COMMANDS: dict[str, str] = {
     "watch": "watch",
     "ledger": "ledger",
     "report": "report",
+    "reprocess": "reprocess",
     "init": "init",
 }
 

@@ -23,9 +23,10 @@ class StationEventReceived(Message):
 class RunsLoaded(Message):
     """A fresh read of the ledger's run list (newest first)."""
 
-    def __init__(self, runs: list[RunRecord]) -> None:
+    def __init__(self, runs: list[RunRecord], instruments: tuple[str, ...] = ()) -> None:
         super().__init__()
         self.runs = runs
+        self.instruments = instruments  # every instrument with runs in the ledger
 
 
 class RunDetailLoaded(Message):
@@ -92,7 +93,8 @@ class HistoryLoaded(Message):
 
 class LedgerChanged(Message):
     """The ledger's change feed moved to `cursor`: `run_ids` changed (a decision, a new
-    version) since the last read; `first` is the read that only learns where the feed stands."""
+    version) since the last read; `first` is the feed's start, which only learns where the
+    journal stands (a feed started again after trouble is not `first`: the list is read again)."""
 
     def __init__(self, cursor: int, run_ids: list[int], first: bool = False) -> None:
         super().__init__()

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import math
 import os
+import socket
 import tomllib
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
@@ -37,6 +38,11 @@ def default_config_path() -> Path:
     return config_home() / "station.toml"
 
 
+def default_instrument() -> str:
+    """The instrument name when none is configured: this computer's host name."""
+    return socket.gethostname() or "instrument"
+
+
 def default_data_dir() -> Path:
     """$XDG_DATA_HOME/bandwatch, else ~/.local/share/bandwatch."""
     base = os.environ.get("XDG_DATA_HOME") or str(Path.home() / ".local" / "share")
@@ -63,6 +69,9 @@ class StationConfig:
     memory_limit_mb: int = 2048
     species: tuple[str, ...] = ()  # expected molecules or isotopologues (analysis setting)
     checks: CheckThresholds = field(default_factory=CheckThresholds)  # the [checks] table: run check limits only
+    instrument: str = field(default_factory=default_instrument)  # [station] instrument: runs are keyed by it
+    ledger_url: str | None = None  # [ledger] url: a PostgreSQL server instead of the data folder's file
+    cluster_address: str | None = None  # the [cluster] table's address: Dask scheduler for `bandwatch reprocess`
     source: str | None = None  # the file this came from, for messages
     # "module:function" taking (path, ProcessSettings) -> RunResult; tests inject failures here
     process_function: str = DEFAULT_PROCESS_FUNCTION
@@ -76,8 +85,19 @@ class StationConfig:
     def excluded_patterns(self) -> tuple[str, ...]:
         return DEFAULT_EXCLUDE + self.exclude
 
+    @property
+    def ledger_location(self) -> str | Path:
+        """Where the ledger is: the server's URL when one is configured, else the data folder
+        (whose ledger.sqlite3 is the ledger)."""
+        return self.ledger_url if self.ledger_url else self.data_folder.expanduser()
 
-_KEYS = {f.name for f in fields(StationConfig)} - {"source", "process_function"}
+
+# keys given in tables of their own: [station] instrument, [ledger] url ([cluster] address: below)
+_TABLES = {"station": {"instrument": "instrument"}, "ledger": {"url": "ledger_url"}}
+_KEYS = (
+    {f.name for f in fields(StationConfig)} - {"source", "process_function", "instrument", "ledger_url", "cluster_address"}
+) | set(_TABLES) | {"cluster"}
+CLUSTER_KEYS = ("address",)
 
 
 def load_config(path: str | Path | None = None, *, required: bool = False) -> StationConfig:
@@ -104,8 +124,29 @@ def config_from_table(table: dict[str, Any], source: str | None = None, base_dir
             raise ConfigError(source, key, f"unknown key (known: {', '.join(sorted(_KEYS))})")
     values: dict[str, Any] = {}
     for key, value in table.items():
+        if key in _TABLES:
+            values.update(_table_values(source, key, value))
+            continue
+        if key == "cluster":
+            values["cluster_address"] = _cluster_address(source, value)
+            continue
         values[key] = _convert(source, key, value, base_dir)
     return validate(replace(StationConfig(source=source), **values))
+
+
+def _table_values(source: str | None, name: str, table: Any) -> dict[str, Any]:
+    """The keys of [station] or [ledger], each under its field's name (checked in `validate`)."""
+    known = _TABLES[name]
+    if not isinstance(table, dict):
+        raise ConfigError(source, name, f"must be a table ([{name}])")
+    values: dict[str, Any] = {}
+    for key, value in table.items():
+        if key not in known:
+            raise ConfigError(source, f"{name}.{key}", f"unknown key (known in [{name}]: {', '.join(sorted(known))})")
+        if not isinstance(value, str):
+            raise ConfigError(source, f"{name}.{key}", "must be a string")
+        values[known[key]] = value.strip()
+    return values
 
 
 def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) -> Any:
@@ -145,6 +186,21 @@ def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) ->
     raise ConfigError(source, key, "unknown key")
 
 
+def _cluster_address(source: str | None, value: Any) -> str | None:
+    """The [cluster] table: `address` of a Dask scheduler, e.g. "tcp://scheduler:8786"."""
+    if not isinstance(value, dict):
+        raise ConfigError(source, "cluster", "must be a table ([cluster] with address = \"tcp://host:8786\")")
+    for key in value:
+        if key not in CLUSTER_KEYS:
+            raise ConfigError(source, f"cluster.{key}", f"unknown key (known: {', '.join(CLUSTER_KEYS)})")
+    address = value.get("address")
+    if address is None:
+        return None
+    if not isinstance(address, str) or "://" not in address.strip():
+        raise ConfigError(source, "cluster.address", f"must be a scheduler address such as \"tcp://host:8786\", got {address!r}")
+    return address.strip()
+
+
 _SECONDS_KEYS = ("settle_seconds", "max_wait_seconds", "rescan_seconds", "timeout_seconds")
 
 
@@ -178,7 +234,35 @@ def validate(config: StationConfig) -> StationConfig:
             raise ConfigError(source, "species", str(error)) from None
     if ":" not in config.process_function:
         raise ConfigError(source, "process_function", "must be 'module:function'")
+    problem = instrument_problem(config.instrument)
+    if problem:
+        raise ConfigError(source, "station.instrument", problem)
+    if config.ledger_url is not None:
+        problem = ledger_url_problem(config.ledger_url)
+        if problem:
+            raise ConfigError(source, "ledger.url", problem)
     return config
+
+
+def instrument_problem(name: object) -> str | None:
+    """Why `name` cannot be an instrument name, or None: a short printable name."""
+    if not isinstance(name, str) or not name.strip():
+        return "must be a non-empty name (default: the host name)"
+    if len(name) > 64 or any(ord(c) < 32 or ord(c) == 127 for c in name):
+        return "must be at most 64 printable characters"
+    return None
+
+
+def ledger_url_problem(url: str) -> str | None:
+    """Why `url` cannot name the ledger server, or None. A password in it is refused: the
+    configuration and the command line are seen by others (PGPASSWORD or ~/.pgpass instead)."""
+    from processing.station.ledger_postgres import is_server_url, password_in_url
+
+    if not is_server_url(url):
+        return "must be a postgresql://USER@HOST[:PORT]/DATABASE URL"
+    if password_in_url(url):
+        return "holds a password; give it in PGPASSWORD or the password file ~/.pgpass (PGPASSFILE) instead"
+    return None
 
 
 def check_folders(config: StationConfig) -> tuple[Path, Path]:
@@ -264,6 +348,21 @@ memory_limit_mb = 2048
 # Molecules or isotopologues expected in the spectra (empty = detect).
 species = []
 
+[station]
+# This instrument's name: runs are kept by instrument + file, so several stations can share one
+# ledger server. Default: the host name.
+# instrument = "ftir-1"
+
+[ledger]
+# The ledger is ledger.sqlite3 in the data folder unless a PostgreSQL server is named here
+# (pip install 'bandwatch[facility]'). Never put the password here: PGPASSWORD or ~/.pgpass.
+# url = "postgresql://bandwatch_station@ledger-host/bandwatch"
+
+# `bandwatch reprocess --cluster` without an address uses this Dask scheduler (needs
+# pip install 'bandwatch[cluster]'); uncomment both lines:
+# [cluster]
+# address = "tcp://scheduler:8786"
+
 # Check thresholds (names and defaults in processing/checks.py, CheckThresholds), e.g.
 # calibration_pass_cm1 = 0.05. Only thresholds: finite numbers, a pass limit as strict as its
 # warn limit.
@@ -283,9 +382,15 @@ def _toml_escape(text: str) -> str:
     return text.replace("\\", "\\\\").replace('"', '\\"')
 
 
-def station_config(config_path: str | None, data_dir: str | None = None) -> StationConfig:
-    """The configuration a station command uses: --config FILE (or the default file), then --data."""
+def station_config(config_path: str | None, data_dir: str | None = None, ledger_url: str | None = None) -> StationConfig:
+    """The configuration a station command uses: --config FILE (or the default file), then
+    --data and --ledger."""
     config = load_config(config_path)
     if data_dir:
         config = config.with_overrides(data_folder=Path(data_dir).expanduser())
+    if ledger_url:
+        problem = ledger_url_problem(ledger_url)
+        if problem:
+            raise ConfigError("--ledger", "url", problem)
+        config = config.with_overrides(ledger_url=ledger_url)
     return config

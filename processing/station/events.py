@@ -171,6 +171,41 @@ class StationProblem(StationEvent):
         return f"problem {self.message}"
 
 
+@dataclass(frozen=True)
+class RunSpooled(StationEvent):
+    """An outcome kept in the local spool because the ledger server is unreachable; it is
+    recorded (and announced as processed or failed) when the server answers again."""
+
+    path: str
+    status: str
+    waiting: int  # outcomes in the spool, this one included
+
+    def plain(self) -> str:
+        return f"spooled {_name(self.path)} status={self.status} (ledger offline; {self.waiting} waiting)"
+
+
+@dataclass(frozen=True)
+class LedgerOffline(StationEvent):
+    """The ledger server cannot be reached: the station goes on, keeping outcomes in its spool."""
+
+    ledger: str  # the server, without a password
+    reason: str
+
+    def plain(self) -> str:
+        return f"ledger offline: {self.reason}; the station goes on and keeps outcomes in its local spool"
+
+
+@dataclass(frozen=True)
+class LedgerOnline(StationEvent):
+    """The ledger server answers again; the spooled outcomes have been recorded."""
+
+    ledger: str
+    replayed: int
+
+    def plain(self) -> str:
+        return f"ledger online: {self.ledger} ({self.replayed} spooled outcome(s) recorded)"
+
+
 def plain_line(event: StationEvent) -> str:
     """`2026-12-02T15:03:11+01:00 processed run 12 v1 sample.csv verdict=pass species=H35Cl`:
     the local time (TZ honoured) with its offset from UTC; one line whatever a file name holds

@@ -49,6 +49,7 @@ class JobOutcome:
     reason: str | None  # set when the worker crashed, hung or ran out of memory
     seconds: float
     result_json: str | None = None
+    lines_csv: str | None = None  # the lines.csv text, made by the worker too
 
     @property
     def failed(self) -> bool:
@@ -274,8 +275,8 @@ class WorkerPool:
         seconds = time.monotonic() - slot.started
         if kind == "done":
             self._assign()  # keep the worker busy while this outcome is recorded
-            result, text = payload
-            self._report(JobOutcome(job, result, None, seconds, text))
+            result, text, lines_text = payload
+            self._report(JobOutcome(job, result, None, seconds, text, lines_text))
         else:
             if str(payload).startswith("out of memory"):
                 slot.retiring = True

@@ -10,7 +10,6 @@ which runs the same analysis in the calling thread and records it the same way.
 from __future__ import annotations
 
 import math
-import sqlite3
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, fields, replace
 from pathlib import Path
@@ -18,6 +17,7 @@ from typing import Any
 
 from processing.errors import ConfigError
 from processing.pipeline import ProcessSettings, process_file
+from processing.provenance import Provenance, current_provenance
 from processing.regular_files import ReadPolicy
 from processing.results import RunResult, to_json
 from processing.station import ledger
@@ -110,14 +110,18 @@ def redo_settings(base: ProcessSettings, request: RedoRequest) -> ProcessSetting
 
 
 def record_redo(
-    conn: sqlite3.Connection, run_id: int, request: RedoRequest,
+    conn: ledger.Connection, run_id: int, request: RedoRequest,
     result: RunResult | None, result_json: str | None = None, failure: str | None = None,
+    provenance: Provenance | None = None,
 ) -> ledger.RunRecord:
-    """The redo's outcome as a new version of the run, with the request beside it (ledger only;
-    the caller writes the reports: the station retries them while its disk is full)."""
+    """The redo's outcome as a new version of the run, with the request beside it and what it
+    was made with (ledger only; the caller writes the reports: the station retries them while
+    its disk is full)."""
     if result is None:
-        return ledger.record_reprocessed(conn, run_id, None, request.to_dict(), status="failed", error=failure or "no result")
-    return ledger.record_reprocessed(conn, run_id, result, request.to_dict(), result_json=result_json)
+        return ledger.record_reprocessed(
+            conn, run_id, None, request.to_dict(), status="failed", error=failure or "no result", provenance=provenance
+        )
+    return ledger.record_reprocessed(conn, run_id, result, request.to_dict(), result_json=result_json, provenance=provenance)
 
 
 @dataclass(frozen=True)
@@ -134,11 +138,13 @@ def redo_here(
     """Redo a run in this thread (no station running): the station's settings from `config`,
     the request applied, recorded and reported as the station does."""
     data_dir = Path(config.data_folder).expanduser()
-    conn = ledger.open_ledger(data_dir)
+    conn = ledger.open_ledger(config.ledger_location)
     try:
         run = ledger.get_run(conn, run_id, with_result=False)
         if run is None:
             return RedoOutcome(None, f"run {run_id} is not in the ledger")
+        if not_here := other_instrument(run, config.instrument):
+            return RedoOutcome(None, not_here)
         policy = _read_policy(config, data_dir)
         settings = redo_settings(station_settings(config, policy), request)
         function = process_function or process_file
@@ -147,7 +153,7 @@ def redo_here(
         except MemoryError:
             return RedoOutcome(None, f"run {run_id}: out of memory while redoing it")
         text = to_json(result)
-        record = record_redo(conn, run_id, request, result, text)
+        record = record_redo(conn, run_id, request, result, text, provenance=current_provenance(settings))
         if record.status == "processed":
             try:
                 write_reports(data_dir, record.run_id, record.version, result, text)
@@ -156,6 +162,13 @@ def redo_here(
         return RedoOutcome(record.run_id)
     finally:
         conn.close()
+
+
+def other_instrument(run: ledger.RunRecord, instrument: str) -> str | None:
+    """Why a run cannot be redone on this instrument (its file is on another), or None."""
+    if run.instrument and run.instrument != instrument:
+        return f"run {run.run_id} was measured on {run.instrument}; redo it at that instrument's station"
+    return None
 
 
 def _read_policy(config: StationConfig, data_dir: Path) -> ReadPolicy:

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+from stat import S_ISLNK
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -106,6 +107,7 @@ class Settler:
         self.clock = clock
         self.pending: dict[str, _Pending] = {}
         self.known: dict[str, tuple[int, int]] = {}  # path -> (size, mtime_ns) last settled
+        self._linked_folders: dict[str, bool] = {}
 
     def touch(self, path: str, stat: os.stat_result | None = None) -> bool:
         """Note that `path` may have changed; True when it is new or changed (now pending)."""
@@ -129,13 +131,30 @@ class Settler:
         """The stat whose size and time stamp say whether `path` changed: the file's own, but
         for a link bandwatch will not follow, the link's (so a link onto a file that changes
         all the time, such as the ledger, is refused once, not again at every change)."""
-        found = found if found is not None else os.stat(path)
-        if os.path.realpath(path) != os.path.abspath(path):
+        own = os.lstat(path)  # one system call for a plain file in a plain folder (the usual case)
+        if S_ISLNK(own.st_mode) or self._folder_is_linked(os.path.dirname(path)):
             try:
                 check_place(path, self.policy)
             except SpectrumFileError:
-                return os.lstat(path)
-        return found
+                return own
+            return found if found is not None else os.stat(path)
+        return found if found is not None else own
+
+    def _folder_is_linked(self, folder: str) -> bool:
+        """Whether a folder's path goes through a link (resolved once per folder: a folder
+        swapped for a link later is still refused when its files are opened)."""
+        linked = self._linked_folders.get(folder)
+        if linked is None:
+            linked = os.path.realpath(folder) != os.path.abspath(folder)
+            self._linked_folders[folder] = linked
+        return linked
+
+    def next_due(self) -> float | None:
+        """The clock time at which the next pending file will have been still for the settle
+        time (None with nothing pending)."""
+        if not self.pending:
+            return None
+        return min(state.stable_since for state in self.pending.values()) + self.settle_seconds
 
     def tick(self, hold: Callable[[str], bool] = lambda path: False) -> list[SettleOutcome]:
         """Check every pending file once; returns those that settled, vanished or gave up."""

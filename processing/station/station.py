@@ -7,7 +7,9 @@
 
 Threads: the watchdog observer (only forwards paths), the station loop (settling, rescans,
 claims, submitting), the pool supervisor (feeds and watches the workers), the recorder (writes
-outcomes to the ledger and the reports). Each opens its own ledger connection. `on_event` is called from those threads with small `events` dataclasses; without
+outcomes to the ledger and the reports), and with a ledger server the replayer (records what
+the local spool kept while the server was away). Each opens its own ledger connection; the
+ledger is the data folder's file or a server (`station_ledger`). `on_event` is called from those threads with small `events` dataclasses; without
 it, events go to `Station.events` (a queue) for the caller to drain.
 """
 from __future__ import annotations
@@ -16,7 +18,6 @@ import fcntl
 import functools
 import os
 import queue
-import sqlite3
 import threading
 import time
 from collections.abc import Callable
@@ -25,6 +26,7 @@ from pathlib import Path
 from typing import IO
 
 from processing.errors import ConfigError
+from processing.provenance import Provenance, current_provenance
 from processing.readers import DEFAULT_MAX_BYTES
 from processing.regular_files import ReadPolicy
 from processing.results import RunResult
@@ -32,7 +34,6 @@ from processing.station import ledger
 from processing.station.config import StationConfig, check_folders, station_settings
 from processing.station.events import (
     CatchUpFound,
-    ClaimResumed,
     FileSeen,
     FileSettled,
     FileUnchanged,
@@ -46,10 +47,11 @@ from processing.station.events import (
     StationStopped,
 )
 from processing.station.pool import Job, JobOutcome, WorkerPool
-from processing.station.redo import RedoRequest, record_redo, redo_settings
+from processing.station.redo import RedoRequest, other_instrument, record_redo, redo_settings
 from processing.station.reports import write_reports
 from processing.station.retry import LEDGER_TROUBLE, Backoff, RetryQueue, describe
 from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile, WaitingFile
+from processing.station.station_ledger import station_ledger
 from processing.station.watcher import FileFilter, observer_alive, start_observer
 
 LOCK_FILE = "station.lock"
@@ -69,6 +71,7 @@ class _InFlight:
     requested: RedoRequest | None = None
     done: threading.Event | None = None
     answer: dict[str, int] | None = None  # the redo's new run id lands here
+    provenance: Provenance | None = None  # a redo's (its settings differ from the station's)
 
 
 class Station:
@@ -87,6 +90,7 @@ class Station:
         self._emit_to = on_event or self.events.put
         self.read_policy = ReadPolicy.for_station(self.export_dir, self.data_dir, config.follow_links_outside)
         self.settings = station_settings(config, self.read_policy)
+        self.provenance = current_provenance(self.settings)  # recorded with every version
         self.settler = Settler(
             config.settle_seconds, config.max_wait_seconds, DEFAULT_MAX_BYTES, policy=self.read_policy
         )
@@ -98,7 +102,7 @@ class Station:
         self._inflight: dict[int, _InFlight] = {}
         self._inflight_paths: set[str] = set()
         self._job_ids = 0
-        self._local = threading.local()
+        self.store = station_ledger(config.ledger_location, self.data_dir, config.instrument, self._emit)
         self._lock_handle: IO[str] | None = None
         self._observer = None
         self._loop: threading.Thread | None = None
@@ -132,17 +136,9 @@ class Station:
             raise
 
     def _open_checked_ledger(self) -> None:
-        """Open the ledger, refuse a damaged one, and drop claims left by a stopped station."""
-        conn = self._conn()
-        problem = ledger.integrity_problem(conn, ledger.ledger_path(self.data_dir))
-        if problem is not None:
-            raise ledger.LedgerError(problem)
-        try:
-            for claim in ledger.list_claims(conn):
-                ledger.drop_claim(conn, claim.claim_id)  # not in `runs`, so the catch-up redoes it
-                self._emit(ClaimResumed(claim.path))
-        except sqlite3.Error as error:
-            raise ledger.ledger_problem(ledger.ledger_path(self.data_dir), error) from None
+        """Open the ledger, refuse a damaged one, and drop claims left by a stopped station
+        (not in `runs`, so the catch-up redoes them)."""
+        self.store.open()
 
     def _start_threads(self) -> None:
         self.pool = WorkerPool(
@@ -155,6 +151,7 @@ class Station:
         )
         self._recorder = threading.Thread(target=self._run_recorder, name="bandwatch-recorder", daemon=True)
         self._recorder.start()
+        self.store.start(self._report_and_announce)
         self.pool.start()
         self._observer, self.observer_kind = start_observer(
             self.export_dir, self.config.recursive, self.config.poll, self._notify,
@@ -204,6 +201,7 @@ class Station:
         if self._recorder is not None:
             self._outcomes.put(None)  # after the outcomes already handed over
             self._recorder.join(timeout=30)
+        self.store.stop()
 
     def _release_lock(self) -> None:
         if self._lock_handle is not None:
@@ -221,9 +219,17 @@ class Station:
 
     @property
     def trouble_seconds(self) -> float:
-        """How long ledger work has been failing and waiting for another try (0 when none)."""
-        since = [t for t in (self._retries.oldest_failure, self._recorder_trouble_since) if t is not None]
+        """How long ledger work has been failing and waiting for another try, or the ledger
+        server has been away (0 when none)."""
+        since = [
+            t for t in (self._retries.oldest_failure, self._recorder_trouble_since, self.store.offline_since) if t is not None
+        ]
         return time.monotonic() - min(since) if since else 0.0
+
+    @property
+    def spooled(self) -> int:
+        """Outcomes kept in the local spool for a ledger server that is away (0 with a file)."""
+        return self.store.waiting
 
     def reprocess(self, run_id: int, request: RedoRequest, timeout: float | None = None) -> int | None:
         """Redo a run's file in the pool: the station's settings with `request` applied (see
@@ -234,17 +240,21 @@ class Station:
         """
         if self.pool is None or not self._started:
             raise ledger.LedgerError("the station is not running")
-        run = ledger.get_run(self._conn(), run_id, with_result=False)
+        run = ledger.get_run(self.store.conn(), run_id, with_result=False)
         if run is None:
             raise ledger.LedgerError(f"no run {run_id} in the ledger")
+        if not_here := other_instrument(run, self.config.instrument):
+            raise ledger.LedgerError(not_here)
         done = threading.Event()
         answer: dict[str, int] = {}
         with self._lock:
             self._job_ids += 1
-            job = Job(self._job_ids, run.path, redo_settings(self.settings, request))
+            settings = redo_settings(self.settings, request)
+            job = Job(self._job_ids, run.path, settings)
             self._inflight[job.job_id] = _InFlight(
                 run.path, run.sha256, None, ledger.now_iso(),
                 reprocess_of=run_id, requested=request, done=done, answer=answer,
+                provenance=current_provenance(settings),
             )
             self._inflight_paths.add(run.path)
         self.pool.submit(job)
@@ -358,22 +368,12 @@ class Station:
         )
         self.observer_kind += ", top folder only"
 
-    def _conn(self) -> sqlite3.Connection:
-        conn = getattr(self._local, "conn", None)
-        if conn is None:
-            conn = ledger.open_ledger(self.data_dir)
-            self._local.conn = conn
-        return conn
+    def _conn(self) -> ledger.Connection:
+        return self.store.conn()
 
     def _drop_conn(self) -> None:
         """Forget this thread's connection after a failure (the next use opens a fresh one)."""
-        conn = getattr(self._local, "conn", None)
-        self._local.conn = None
-        if conn is not None:
-            try:
-                conn.close()
-            except sqlite3.Error:
-                pass
+        self.store.drop_conn()
 
     def _ledger_failed(self, key: str, what: str, error: BaseException, backoff: Backoff) -> None:
         """A ledger action failed for a passing reason: say so now and then, try again later.
@@ -381,7 +381,7 @@ class Station:
         self._drop_conn()
         if backoff.worth_saying:
             self._emit(StationProblem(
-                f"could not {what}: {describe(error, str(ledger.ledger_path(self.data_dir)))}; "
+                f"could not {what}: {describe(error, self.store.where)}; "
                 f"trying again in {backoff.delay:g} s (attempt {backoff.failures})",
                 paths=() if key == CATCH_UP_KEY else (key,),
             ))
@@ -409,7 +409,13 @@ class Station:
             self._emit(StationProblem(f"catch-up scan failed: {type(error).__name__}: {error}"))
         next_rescan = time.monotonic() + self.config.rescan_seconds
         while not self._stopping.is_set():
-            self._wakeup.wait(self.tick_seconds)
+            # wake at the next tick, or sooner when a pending file's settle time ends then (a
+            # file is taken when it has settled, not up to a tick later)
+            due = self.settler.next_due()
+            remaining = None if due is None else due - time.monotonic()
+            # (a file already due but held or incomplete waits for the next tick, no spinning)
+            wait = self.tick_seconds if remaining is None or remaining <= 0 else min(self.tick_seconds, remaining)
+            self._wakeup.wait(wait)
             self._wakeup.clear()
             try:
                 if time.monotonic() >= self._next_folder_check:
@@ -428,7 +434,10 @@ class Station:
                 self._emit(StationProblem(f"station loop: {type(error).__name__}: {error}"))
                 busy = True
             with self._lock:
-                quiet = not busy and not self.settler.pending and not self._inflight and not self._retries
+                quiet = (
+                    not busy and not self.settler.pending and not self._inflight and not self._retries
+                    and not self.store.waiting
+                )
             self._idle_ticks = self._idle_ticks + 1 if quiet else 0
             self._ticks += 1
 
@@ -438,9 +447,8 @@ class Station:
         A file whose size and time stamp match its newest run is done (not even read); any
         other is read, and one whose content (sha256) matches its newest run is skipped then.
         """
-        conn = self._conn()
-        seen = ledger.latest_sha_by_path(conn)
-        self.settler.known.update(ledger.latest_stat_by_path(conn))
+        seen, stats = self.store.known()
+        self.settler.known.update(stats)
         found = sorted(self.filter.scan(), key=lambda item: item[1].st_mtime_ns)
         new = sum(1 for path, _ in found if path not in seen)
         if new:
@@ -499,30 +507,31 @@ class Station:
         on whose content the ledger already holds (the same incomplete export, seen again at a
         restart) is not recorded again."""
         if isinstance(outcome, IncompleteFile):
-            latest = ledger.latest_run_for_path(self._conn(), outcome.path)
-            if latest is not None and outcome.sha256 is not None and latest.sha256 == outcome.sha256:
-                self._emit(FileUnchanged(outcome.path, latest.run_id))
+            latest = self.store.latest(outcome.path)
+            if latest is not None and outcome.sha256 is not None and latest[1] == outcome.sha256:
+                self._emit(FileUnchanged(outcome.path, latest[0]))
                 return
-            record = ledger.record_run(
-                self._conn(), outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}",
-                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
+            record = self.store.record(
+                outcome.path, outcome.sha256, "unreadable", error=f"{outcome.path}: {outcome.reason}",
+                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns, provenance=self.provenance,
             )
         else:
-            record = ledger.record_run(
-                self._conn(), outcome.path, None, "unreadable", error=outcome.reason,
-                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns,
+            record = self.store.record(
+                outcome.path, None, "unreadable", error=outcome.reason,
+                size_bytes=outcome.size_bytes, mtime_ns=outcome.mtime_ns, provenance=self.provenance,
             )
+        if record is None:
+            return  # kept in the spool: announced when the server has it
         self._emit(RunProcessed(record.run_id, record.version, record.path, record.status, None, (), record.error))
 
     def _dispatch(self, item: SettledFile) -> None:
         if self._data_folder_gone():
             raise ledger.LedgerError("the data folder is gone")  # retried; the loop halts the station
-        conn = self._conn()
-        latest = ledger.latest_run_for_path(conn, item.path)
-        if latest is not None and item.sha256 is not None and latest.sha256 == item.sha256:
-            self._emit(FileUnchanged(item.path, latest.run_id))
+        latest = self.store.latest(item.path)
+        if latest is not None and item.sha256 is not None and latest[1] == item.sha256:
+            self._emit(FileUnchanged(item.path, latest[0]))
             return
-        claim = ledger.claim_file(conn, item.path, item.sha256, os.getpid())
+        claim = self.store.claim(item.path, item.sha256)
         self._emit(FileSettled(item.path, item.sha256, item.size_bytes))
         assert self.pool is not None
         with self._lock:
@@ -594,35 +603,42 @@ class Station:
         if info.reprocess_of is not None:
             self._record_redo(outcome, info)  # its waiter is released by _handle_outcome
             return
-        conn = self._conn()
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
-            record = ledger.record_run(
-                conn, info.path, info.sha256, "failed", error=reason,
+            record = self.store.record(
+                info.path, info.sha256, "failed", error=reason,
                 received_at=info.received_at, claim_id=info.claim_id,
-                size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
+                size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
-            self._emit(RunFailed(record.run_id, record.version, record.path, reason))
+            if record is not None:
+                self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
         result = outcome.result
         status = result.status if result.status in ("processed", "unreadable") else "failed"
-        record = ledger.record_run(
-            conn, info.path, result.sha256 or info.sha256, status,
+        record = self.store.record(
+            info.path, result.sha256 or info.sha256, status,
             result=result, result_json=outcome.result_json, error=result.error,
             received_at=info.received_at, claim_id=info.claim_id,
-            size_bytes=info.size_bytes, mtime_ns=info.mtime_ns,
+            size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
-        self._report_and_announce(record, result, outcome.result_json)
+        if record is not None:
+            self._report_and_announce(record, result, outcome.result_json, outcome.lines_csv)
 
-    def _report_and_announce(self, record: ledger.RunRecord, result: RunResult, result_json: str | None) -> None:
+    def _report_and_announce(
+        self, record: ledger.RunRecord, result: RunResult | None, result_json: str | None, lines_csv_text: str | None = None,
+    ) -> None:
         """Write a processed run's reports (retried while the disk is full, given up only when
-        the station stops: a problem event, never a crash) and announce the run."""
+        the station stops: a problem event, never a crash) and announce the run (a failed run
+        without a result, as recorded from the spool, is announced as failed)."""
+        if result is None:
+            self._emit(RunFailed(record.run_id, record.version, record.path, record.error or "no result"))
+            return
         folder = None
         if record.status == "processed":
             backoff = Backoff()
             while folder is None:
                 try:
-                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json))
+                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json, lines_csv_text))
                 except OSError as error:
                     backoff.failed()
                     if backoff.worth_saying:
@@ -646,10 +662,10 @@ class Station:
         conn = self._conn()
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
-            record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason)
+            record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason, provenance=info.provenance)
             info.answer["run_id"] = record.run_id
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
-        record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json)
+        record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json, provenance=info.provenance)
         info.answer["run_id"] = record.run_id
-        self._report_and_announce(record, outcome.result, outcome.result_json)
+        self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv)

@@ -8,7 +8,9 @@ is asked for; a periodic rescan (in the station) catches anything events missed.
 from __future__ import annotations
 
 import fnmatch
+import functools
 import os
+import re
 import threading
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -27,6 +29,15 @@ NETWORK_FS_TYPES = frozenset(
 POLL_INTERVAL_SECONDS = 1.0
 
 
+def _name_pattern(patterns: tuple[str, ...]) -> re.Pattern[str] | None:
+    """One compiled expression for a set of shell patterns (as fnmatch reads them on this
+    system: case folded where the system folds case), or None for no patterns."""
+    if not patterns:
+        return None
+    flags = re.IGNORECASE if os.path.normcase("A") == "a" else 0
+    return re.compile("|".join(f"(?:{fnmatch.translate(p)})" for p in patterns), flags)
+
+
 @dataclass(frozen=True)
 class FileFilter:
     """Include/exclude shell patterns on file names, recursion, hidden folders skipped."""
@@ -38,43 +49,64 @@ class FileFilter:
 
     def accepts(self, path: str | Path) -> bool:
         """True for a path under root that names a file we should take (by name only)."""
-        candidate = Path(path)
-        try:
-            relative = candidate.relative_to(self.root)
-        except ValueError:
+        text = os.fspath(path)
+        root = self._root_prefix
+        if not text.startswith(root):
             return False
-        parts = relative.parts
-        if not parts or (len(parts) > 1 and not self.recursive):
+        parts = text[len(root):].split(os.sep)
+        if not parts[-1] or (len(parts) > 1 and not self.recursive):
             return False
         if any(part.startswith(".") for part in parts[:-1]):
             return False
         name = parts[-1]
-        if any(fnmatch.fnmatch(name, pattern) for pattern in self.exclude):
+        if self._excluded is not None and self._excluded.match(name):
             return False
-        return any(fnmatch.fnmatch(name, pattern) for pattern in self.include)
+        return self._included is not None and self._included.match(name) is not None
+
+    @functools.cached_property
+    def _root_prefix(self) -> str:
+        return os.path.join(os.fspath(self.root), "")
+
+    @functools.cached_property
+    def _included(self) -> re.Pattern[str] | None:
+        return _name_pattern(self.include)
+
+    @functools.cached_property
+    def _excluded(self) -> re.Pattern[str] | None:
+        return _name_pattern(self.exclude)
 
     def scan(self) -> Iterator[tuple[str, os.stat_result]]:
         """Every accepted name now in the folder that is not a folder (regular files, and
         FIFOs, devices, links that the settler then refuses with a reason), with its stat.
-        Iterative, so any depth of subfolders is fine."""
+        Iterative, so any depth of subfolders is fine; streamed, so a folder of a million
+        files is never held as a list (one folder is open at a time: subfolders wait on a stack
+        of names)."""
         stack = [self.root]
         while stack:
             folder = stack.pop()
             try:
-                entries = list(os.scandir(folder))
+                entries = os.scandir(folder)
             except OSError:
                 continue
-            for entry in entries:
-                try:
-                    if entry.is_dir(follow_symlinks=False):
-                        if self.recursive and not entry.name.startswith("."):
-                            stack.append(Path(entry.path))
-                        continue
-                    if entry.is_dir() or not self.accepts(entry.path):
-                        continue  # a link to a folder is not walked into
-                    yield entry.path, entry.stat()
-                except OSError:
-                    continue  # vanished while scanning
+            with entries:
+                while True:
+                    try:
+                        entry = next(entries)
+                    except StopIteration:
+                        break
+                    except OSError:
+                        break  # the folder went away while it was read
+                    try:
+                        if entry.is_dir(follow_symlinks=False):
+                            if self.recursive and not entry.name.startswith("."):
+                                stack.append(Path(entry.path))
+                            continue
+                        if entry.is_dir() or not self.accepts(entry.path):
+                            continue  # a link to a folder is not walked into
+                        found = entry.stat()
+                    except OSError:
+                        continue  # vanished while scanning
+                    yield entry.path, found
 
 
 def filesystem_type(path: str | Path) -> str:

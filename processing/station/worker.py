@@ -1,9 +1,10 @@
 """One worker process: `python -m processing.station.worker IN_FD OUT_FD FUNCTION MEMORY_MB`.
 
 Receives (job_id, path, ProcessSettings) over IN_FD and answers ("done", job_id, (RunResult,
-its JSON text)) or ("failed", job_id, reason) over OUT_FD (multiprocessing's length-prefixed
-pickles). The result is encoded to JSON here, once: the station stores these bytes in the
-ledger and writes them as result.json, and spends no time of its own on them. Runs under
+its JSON text, its lines.csv text)) or ("failed", job_id, reason) over OUT_FD
+(multiprocessing's length-prefixed pickles). The result is encoded here, once: the station
+stores the JSON in the ledger and writes it as result.json, writes lines.csv as it comes, and
+spends no time of its own on either (it is one process for all workers). Runs under
 an address-space limit so a memory blow-up is a MemoryError here, not a starved machine. Exits
 when the station closes the pipe or disappears. Standard output is sent to standard error, so
 nothing the analysis prints can corrupt the pipe.
@@ -63,6 +64,7 @@ def _exit_when_orphaned(parent: int) -> None:
 
 def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limit_mb: int) -> None:
     """The worker loop."""
+    from processing.result_text import lines_csv
     from processing.results import RunResult, to_json
 
     try:
@@ -89,7 +91,7 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
             result = function(path, settings)
             if not isinstance(result, RunResult):
                 raise TypeError(f"{function_spec} returned {type(result).__name__}, not a RunResult")
-            data = (result, to_json(result))
+            data = (result, to_json(result), lines_csv(result))
         except MemoryError:
             outbox.send(("failed", job_id, f"out of memory (worker limit {memory_limit_mb} MB)"))
             return  # a fresh worker replaces this one

@@ -41,3 +41,4 @@ def make_station(folders: tuple[Path, Path]) -> Iterator[Callable[..., tuple[Sta
     yield build
     for station in started:
         station.stop()
+

@@ -129,8 +129,9 @@ def test_watch_without_plain_hands_a_station_factory_to_the_app(
     seen: dict[str, object] = {}
 
     class FakeApp:
-        def __init__(self, data_dir, export_dir, *, station_factory, operator=None, config=None):  # type: ignore[no-untyped-def]
-            seen.update(data_dir=data_dir, export_dir=export_dir, operator=operator, factory=station_factory, config=config)
+        def __init__(self, data_dir, export_dir, *, station_factory, operator=None, config=None, ledger_location=None):  # type: ignore[no-untyped-def]
+            seen.update(data_dir=data_dir, export_dir=export_dir, operator=operator, factory=station_factory, config=config,
+                        ledger_location=ledger_location)
 
         def run(self) -> int:
             station = seen["factory"](lambda event: None)  # type: ignore[operator]
@@ -144,4 +145,5 @@ def test_watch_without_plain_hands_a_station_factory_to_the_app(
 
     assert (seen["data_dir"], seen["export_dir"], seen["operator"]) == (data, export, "ana")
     assert seen["config"].operator == "ana"  # the station's settings: a redo without the station uses them
+    assert seen["ledger_location"] == data  # the data folder's file: no server configured
     assert isinstance(seen["station"], Station) and seen["station"].export_dir == export

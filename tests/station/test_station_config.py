@@ -129,7 +129,14 @@ def test_overrides_are_validated_and_checks_pass_through() -> None:
         ("[checks]\n[checks.nested]\nx = 1", "checks.nested"),
         # every other key: unknown names (a misspelling, a table) and bad values, one line each
         ("setle_seconds = 0.5", "setle_seconds"),
-        ("[station]\nworkers = 2", "station"),
+        ("[station]\nworkers = 2", "station.workers"),  # [station] holds the instrument's name only
+        ('station = "ftir-1"', "station"),
+        ('[station]\ninstrument = ""', "station.instrument"),
+        ('[station]\ninstrument = "ftir\\u001b[2J"', "station.instrument"),  # no control characters
+        ('[ledger]\nurl = "mysql://db/bandwatch"', "ledger.url"),
+        ('[ledger]\nurl = "postgresql://station:s3cret@db/bandwatch"', "ledger.url"),  # never a password
+        ('[ledger]\nurl = "postgresql://station@db/bandwatch?password=s3cret"', "ledger.url"),
+        ('[ledger]\nhost = "db"', "ledger.host"),
         ('workers = "two"', "workers"),
         ("recursive = 1", "recursive"),
         ('include = "*.csv"\nexclude = [1]', "exclude"),
@@ -163,3 +170,30 @@ def test_an_export_folder_inside_the_data_folder_is_refused(tmp_path: Path) -> N
     assert caught.value.key == "export_folder"
     with pytest.raises(ConfigError, match="inside the export folder"):  # the same folder
         check_folders(StationConfig(export_folder=data, data_folder=data))
+
+
+def test_instrument_and_ledger_server_read_back(tmp_path: Path) -> None:
+    import socket
+
+    path = tmp_path / "station.toml"
+    path.write_text(render_template(str(tmp_path / "exp"), str(tmp_path / "data"), "ana"), encoding="utf-8")
+    plain = load_config(path)
+    # the defaults: the host name, and the data folder's SQLite file
+    assert plain.instrument == socket.gethostname() and plain.ledger_url is None
+    assert plain.ledger_location == tmp_path / "data"
+    text = path.read_text(encoding="utf-8").replace('# instrument = "ftir-1"', 'instrument = "ftir-2"')
+    text = text.replace('# url = "postgresql://', 'url = "postgresql://')
+    path.write_text(text, encoding="utf-8")
+    configured = load_config(path)
+    assert configured.instrument == "ftir-2"
+    assert configured.ledger_location == configured.ledger_url == "postgresql://bandwatch_station@ledger-host/bandwatch"
+
+
+def test_a_password_on_the_command_line_is_refused_without_repeating_it(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from processing.station.config import station_config
+
+    monkeypatch.setenv("BANDWATCH_CONFIG", str(tmp_path / "none.toml"))
+    with pytest.raises(ConfigError) as caught:
+        station_config(None, None, "postgresql://station:s3cret@db/bw")
+    assert "s3cret" not in str(caught.value) and "PGPASSWORD" in str(caught.value)
+    assert station_config(None, None, "postgresql://station@db/bw").ledger_url == "postgresql://station@db/bw"

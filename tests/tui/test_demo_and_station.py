@@ -13,6 +13,8 @@ from processing.station.station import Station
 from tui.app import BandwatchApp
 from tui.widgets.run_tables import RunList
 
+from tui_support import quiet
+
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_runs"
 TWO_RUNS = ("0905_hcl_cell.jdx", "1150_empty_cell_export.csv")
 
@@ -63,7 +65,7 @@ async def test_station_events_reach_the_run_list(tmp_path: Path) -> None:
         deadline = time.monotonic() + 60
         while time.monotonic() < deadline and not table.run_ids:
             await asyncio.sleep(0.2)  # the station works in its own threads and processes
-        await app.workers.wait_for_complete()
+        await quiet(pilot)
         await pilot.pause()
         assert len(table.run_ids) == 1
         assert str(table.get_cell_at((0, table.get_column_index("file")))) == TWO_RUNS[0]

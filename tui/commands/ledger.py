@@ -1,12 +1,13 @@
-"""`bandwatch ledger list|show|export|accept|flag|undo`: the station's ledger, for people and scripts."""
+"""`bandwatch ledger list|show|export|day|accept|flag|undo|copy|migrate`: the station's ledger (the
+data folder's file or a PostgreSQL server), for people and scripts."""
 from __future__ import annotations
 
 import argparse
 import csv
 import io
 import json
-import sqlite3
 import sys
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from processing import strict_json
@@ -14,9 +15,10 @@ from processing.safe_text import safe_text
 from tui.commands.watch import add_station_arguments
 
 if TYPE_CHECKING:
-    from processing.station.ledger import DecisionEvent, RunRecord
+    from processing.station.ledger import Connection, DecisionEvent, RunRecord
 
-HELP = "list, show, export runs in the ledger (also a day's runs for the lab's records); accept, flag or undo a decision"
+HELP = ("list, show, export runs in the ledger (also a day's runs for the lab's records); accept, flag or undo "
+        "a decision; copy a ledger to a server")
 EXPORT_FORMATS = {".csv": "csv", ".json": "json"}
 
 
@@ -33,6 +35,7 @@ def positive_int(text: str) -> int:
 CSV_COLUMNS = (
     "run_id", "path", "sha256", "version", "status", "verdict", "decision", "decision_reason",
     "operator", "decided_at", "received_at", "processed_at", "species", "error", "decision_history",
+    "instrument",
 )
 
 
@@ -44,6 +47,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     listing.add_argument("--json", action="store_true", help="one JSON object per run, one per line")
     listing.add_argument("--limit", type=positive_int, default=None, help="at most this many runs (1 or more)")
     listing.add_argument("--latest", action="store_true", help="only the newest version of each file")
+    listing.add_argument("--instrument", default=None, metavar="NAME", help="only this instrument's runs")
 
     show = actions.add_parser("show", help="one run and its decision history")
     add_station_arguments(show)
@@ -82,6 +86,23 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     undo.add_argument("--yes", action="store_true",
                       help="undo another person's decision without asking (both stay on record)")
 
+    copy = actions.add_parser(
+        "copy", help="copy a ledger's whole history (runs, versions, decisions, results, quantities) into another",
+        description="Copy every run, version, decision, result and fitted quantity of one ledger into another "
+        "(e.g. a station's file into the facility's server), in one transaction, and check the counts.",
+    )
+    copy.add_argument("--from", dest="source", required=True, metavar="LEDGER",
+                      help="sqlite:PATH (a data folder or its ledger.sqlite3) or postgresql://...")
+    copy.add_argument("--to", dest="target", required=True, metavar="LEDGER",
+                      help="postgresql://USER@HOST/DATABASE (or sqlite:PATH)")
+    copy.add_argument("--instrument", default=None, metavar="NAME",
+                      help="instrument of runs recorded before instruments existed (default: the "
+                      "configuration's [station] instrument, else the host name)")
+    copy.add_argument("--config", default=None, metavar="FILE", help="station configuration (for the instrument)")
+
+    migrate = actions.add_parser("migrate", help="bring the ledger's schema up to date (a server: as its owner)")
+    add_station_arguments(migrate)
+
 
 def run_public(record: RunRecord) -> dict[str, Any]:
     """A run as a JSON object for scripts (the result itself only with `show --json`)."""
@@ -103,6 +124,10 @@ def run_public(record: RunRecord) -> dict[str, Any]:
         "reprocessed_from": record.reprocessed_from,
         "reasons": list(record.reasons),
         "superseded_by": record.superseded_by,
+        "instrument": record.instrument,
+        "analysis_version": record.provenance.analysis_version if record.provenance else None,
+        "library_hash": record.provenance.library_hash if record.provenance else None,
+        "settings_hash": record.provenance.settings_hash if record.provenance else None,
     }
 
 
@@ -115,8 +140,12 @@ def run(args: argparse.Namespace) -> int:
     from processing.station import ledger
     from processing.station.config import station_config
 
-    config = station_config(args.config, args.data)
-    data_dir = config.data_folder.expanduser()
+    if args.action == "copy":
+        return _copy(args)
+    config = station_config(args.config, args.data, args.ledger)
+    where = config.ledger_location
+    if args.action == "migrate":
+        return _migrate(where)
     if args.action == "flag" and not args.reason.strip():
         print("bandwatch: ledger flag needs a reason: --reason TEXT (why the run needs a second look)", file=sys.stderr)
         return 2
@@ -126,9 +155,9 @@ def run(args: argparse.Namespace) -> int:
             print(f"bandwatch: {problem}", file=sys.stderr)
             return 2
     reading = args.action in ("list", "show", "export", "day")
-    if not reading and not ledger.ledger_path(data_dir).exists():
-        raise ledger.LedgerError(f"{data_dir}: no ledger here yet (run `bandwatch watch` first, or give --data)")
-    conn = ledger.open_ledger(data_dir, read_only=reading)
+    if not reading and not ledger.is_server_url(where) and not ledger.ledger_path(where).exists():
+        raise ledger.LedgerError(f"{where}: no ledger here yet (run `bandwatch watch` first, or give --data)")
+    conn = ledger.open_ledger(where, read_only=reading)
     try:
         if args.action == "list":
             return _list(conn, args)
@@ -143,22 +172,25 @@ def run(args: argparse.Namespace) -> int:
         conn.close()
 
 
-def _list(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+def _list(conn: Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import list_runs
 
     from processing.local_time import local_iso
     from processing.result_text import fitted_table, reasons_line
     from tui.commands.process import table_width
 
-    runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False)
+    runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False, instrument=args.instrument)
     if args.json:
-        for record in runs:
-            sys.stdout.write(strict_json.dumps(run_public(record)) + "\n")
+        sys.stdout.write("".join(strict_json.dumps_flat(run_public(record)) + "\n" for record in runs))
         return 0
     rows = [[str(r.run_id), f"v{r.version}", r.status, r.verdict or "-", _decision_word(r),
              safe_text(",".join(r.species) or "-"), local_iso(r.processed_at), safe_text(r.name),
              safe_text(reasons_line(r.reasons) if r.status == "processed" else (r.error or ""))] for r in runs]
     headers = ["run", "ver", "status", "verdict", "decision", "species", "processed", "file", "reasons"]
+    if any(r.instrument for r in runs):  # runs of one or several instruments: say whose
+        headers.insert(1, "instrument")
+        for row, record in zip(rows, runs):
+            row.insert(1, safe_text(record.instrument or "-"))
     sys.stdout.write(fitted_table(headers, rows, width=table_width()) + "\n")
     return 0
 
@@ -193,7 +225,7 @@ def _export_format(args: argparse.Namespace) -> str:
     return EXPORT_FORMATS.get(Path(args.output).suffix.lower(), "csv")
 
 
-def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+def _show(conn: Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import decision_history, get_run
 
     record = get_run(conn, args.run_id)
@@ -220,6 +252,7 @@ def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
         verdict += f"  ({reasons_line(record.reasons)})"
     out = [
         f"run {record.run_id} v{record.version}  {record.path}",
+        f"  instrument {record.instrument or '-'}",
         f"  sha256     {record.sha256 or '-'}",
         f"  status     {record.status}",
         f"  verdict    {verdict}",
@@ -231,10 +264,16 @@ def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     if record.error:
         out.append(f"  error      {record.error}")
     if record.reprocessed_from is not None:
-        out.append(f"  redo of run {record.reprocessed_from}: {redo_description(record.settings)}")
-        out.append(f"             (settings {json.dumps(record.settings, sort_keys=True)})")
+        if record.settings is not None:
+            out.append(f"  redo of run {record.reprocessed_from}: {redo_description(record.settings)}")
+            out.append(f"             (settings {json.dumps(record.settings, sort_keys=True)})")
+        else:
+            out.append(f"  reprocessed from run {record.reprocessed_from} with today's analysis (bandwatch reprocess)")
     if record.superseded_by is not None:
         out.append(f"  replaced by run {record.superseded_by} (a newer version of the file)")
+    if record.provenance is not None:
+        made = record.provenance
+        out.append(f"  made with  analysis {made.analysis_version}, library {made.library_hash}, settings {made.settings_hash}")
     checks = record.result.checks if record.result is not None else ()
     if checks:
         out.append("  checks:")
@@ -247,7 +286,7 @@ def _show(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
     return 0
 
 
-def _export(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+def _export(conn: Connection, args: argparse.Namespace) -> int:
     from processing.station.ledger import all_decisions, list_runs
 
     runs = list(reversed(list_runs(conn, with_result=False)))  # oldest first in an export
@@ -292,7 +331,7 @@ def _write_output(output: str, text: str, what: str) -> int:
     return 0
 
 
-def _day(conn: sqlite3.Connection, args: argparse.Namespace) -> int:
+def _day(conn: Connection, args: argparse.Namespace) -> int:
     """One row per run received on the local day (the newest version of each file)."""
     from datetime import date
 
@@ -325,7 +364,7 @@ def _operator(given: str | None, configured: str) -> str:
         return ""
 
 
-def _decide(conn: sqlite3.Connection, args: argparse.Namespace, configured_operator: str) -> int:
+def _decide(conn: Connection, args: argparse.Namespace, configured_operator: str) -> int:
     """Accept, flag or undo. Over another person's decision only when confirmed: --yes, or
     `y` at the question on a terminal; without a terminal it is refused, saying why."""
     from processing.local_time import local_iso
@@ -370,3 +409,28 @@ def _confirmed(question: str) -> bool:
         return input().strip().lower() in ("y", "yes")
     except EOFError:
         return False
+
+
+def _copy(args: argparse.Namespace) -> int:
+    from processing.station.config import load_config
+    from processing.station.ledger_copy import copy_ledger, ledger_argument
+
+    instrument = args.instrument or load_config(args.config).instrument
+    source, target = ledger_argument(args.source, "--from"), ledger_argument(args.target, "--to")
+    report = copy_ledger(source, target, instrument)
+    print(report.summary())
+    return 0
+
+
+def _migrate(where: str | Path) -> int:
+    from processing.station import ledger
+
+    before = ledger.found_schema_version(where)
+    conn = ledger.open_ledger(where)
+    try:
+        after = ledger.schema_version(conn)
+    finally:
+        conn.close()
+    state = "already up to date" if before == after else f"brought up from version {before}"
+    print(f"ledger {ledger.describe_ledger(where)}: schema version {after} ({state})")
+    return 0

@@ -13,12 +13,16 @@ HELP = "watch an export folder: process each file as it lands, record runs in th
 
 
 def add_station_arguments(parser: argparse.ArgumentParser) -> None:
-    """--config and --data, shared by every station command."""
+    """--config, --data and --ledger, shared by every station command."""
     parser.add_argument("--config", default=None, metavar="FILE",
                         help="station configuration (default: $BANDWATCH_CONFIG or ~/.config/bandwatch/station.toml)")
     parser.add_argument("--data", default=None, metavar="DIR",
                         help="data folder with the ledger and reports (default: the configuration's, "
                         "else $XDG_DATA_HOME/bandwatch or ~/.local/share/bandwatch)")
+    parser.add_argument("--ledger", default=None, metavar="URL",
+                        help="a PostgreSQL ledger server (postgresql://USER@HOST/DATABASE) instead of the data "
+                        "folder's ledger file; the password comes from PGPASSWORD or ~/.pgpass (default: the "
+                        "configuration's [ledger] url)")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -47,12 +51,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--species", default=None,
                         help="comma-separated molecules or isotopologues expected (default: detect)")
     parser.add_argument("--operator", default=None, help="name written beside decisions")
+    parser.add_argument("--instrument", default=None, metavar="NAME",
+                        help="this instrument's name; runs are kept by instrument and file (default: the "
+                        "configuration's [station] instrument, else the host name)")
 
 
 def build_config(args: argparse.Namespace) -> StationConfig:
     from processing.station.config import station_config
 
-    config = station_config(args.config, args.data)
+    config = station_config(args.config, args.data, args.ledger)
     species = None
     if args.species is not None:
         species = tuple(s.strip() for s in args.species.split(",") if s.strip())
@@ -68,6 +75,7 @@ def build_config(args: argparse.Namespace) -> StationConfig:
         memory_limit_mb=args.memory_mb,
         species=species,
         operator=args.operator,
+        instrument=args.instrument,
     )
 
 
@@ -92,7 +100,10 @@ def run(args: argparse.Namespace) -> int:
     def make_station(on_event: EventCallback) -> Station:
         return Station(config, on_event=on_event)
 
-    app = BandwatchApp(data_dir, export_dir, station_factory=make_station, operator=config.operator or None, config=config)
+    app = BandwatchApp(
+        data_dir, export_dir, station_factory=make_station, operator=config.operator or None, config=config,
+        ledger_location=config.ledger_location,
+    )
     return int(app.run() or 0)
 
 
@@ -145,6 +156,6 @@ def run_plain(config: StationConfig, once: bool) -> int:
         print(f"bandwatch: printing the station's events failed: {station.consumer_failure}", file=sys.stderr)
     if station.halted is not None:
         return 1
-    if once and (failures or station.not_recorded):
+    if once and (failures or station.not_recorded or station.spooled):
         return 1
     return EXIT_RUN_FAILED if once and failed_runs else 0

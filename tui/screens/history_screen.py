@@ -1,4 +1,5 @@
-"""A fitted quantity across runs (e.g. a band origin over the day, to see calibration drift)."""
+"""A fitted quantity across runs (e.g. a band origin over the day, to see calibration drift), of
+every instrument in the ledger (each run's instrument in the table) or of one (`I` cycles)."""
 from __future__ import annotations
 
 from pathlib import Path
@@ -13,6 +14,7 @@ from textual.widgets.option_list import Option
 
 from processing.local_time import zone_name
 from processing.results import RunResult
+from processing.safe_text import safe_text
 from processing.station.ledger import TrendPoint
 from tui import bindings
 from tui.messages import HistoryLoaded
@@ -81,12 +83,15 @@ class HistoryScreen(Screen[None]):
 
     BINDINGS = bindings.HISTORY
 
-    def __init__(self, result: RunResult | None, data_dir: Path, preferred: tuple[str, str] | None = None) -> None:
+    def __init__(self, result: RunResult | None, ledger_location: str | Path, preferred: tuple[str, str] | None = None) -> None:
         super().__init__()
         self.choices = quantity_choices(result)
         self.result = result
-        self.data_dir = data_dir
+        self.ledger_location = ledger_location  # a server's URL or the data folder
         self.preferred = preferred
+        self.loaded: HistoryLoaded | None = None  # the quantity's values on every instrument
+        self.instrument_filter: str | None = None  # one instrument's values only (None: all)
+        self.with_instrument = False
 
     def compose(self) -> ComposeResult:
         yield Static("Trend of one fitted quantity across runs (newest file versions)", id="history-title")
@@ -97,14 +102,19 @@ class HistoryScreen(Screen[None]):
                 yield HistoryTable(id="history-table", cursor_type="row")
         yield Footer(compact=True)
 
-    def on_mount(self) -> None:
-        table = self.query_one(HistoryTable)
+    def _add_columns(self, table: DataTable) -> None:
         table.add_column(f"time {zone_name()}", key="time", width=8)
+        if self.with_instrument:
+            table.add_column("instrument", key="instrument", width=10)
         table.add_column("run", key="run", width=4)
         table.add_column("value", key="value", width=12)
         table.add_column("±", key="sigma", width=9)
         table.add_column("Δ first", key="delta", width=10)
         table.add_column("state", key="state", width=16)
+
+    def on_mount(self) -> None:
+        table = self.query_one(HistoryTable)
+        self._add_columns(table)
         options = self.query_one(OptionList)
         options.focus()
         if not self.choices:
@@ -136,7 +146,7 @@ class HistoryScreen(Screen[None]):
         from processing.station.ledger import open_ledger, trend
 
         quantity, _, band = quantity_id.partition("@")
-        conn = open_ledger(self.data_dir)
+        conn = open_ledger(self.ledger_location)
         try:
             points = trend(conn, isotopologue, quantity, band)
         finally:
@@ -145,32 +155,67 @@ class HistoryScreen(Screen[None]):
 
     @on(HistoryLoaded)
     def show_history(self, message: HistoryLoaded) -> None:
+        self.loaded = message
+        self.show_points()
+
+    def instruments(self) -> list[str]:
+        """The instruments with values of the loaded quantity, by name."""
+        return sorted({p.instrument for p in self.loaded.points}) if self.loaded is not None else []
+
+    def show_points(self) -> None:
+        """The loaded values of the chosen instrument (or of all), as the plot and the table;
+        the instrument column when values of several instruments are there."""
+        message = self.loaded
+        if message is None:
+            return
+        names = self.instruments()
+        points = [p for p in message.points if self.instrument_filter in (None, p.instrument)]
         label = next((c[2] for c in self.choices if (c[0], c[1]) == (message.isotopologue, message.quantity)), "")
+        which = ""
+        if self.instrument_filter is not None:
+            which = f" on {self.instrument_filter}"
+        elif len(names) > 1:
+            which = f" on {len(names)} instruments (I: one at a time)"
         reference = quantity_reference(self.result, message.isotopologue, message.quantity)
         said = f"; reference {reference:.8g} (dotted)" if reference is not None else ""
         self.query_one("#history-title", Static).update(
-            Text(f"{label}: {len(message.points)} run(s), oldest left/top{said}; F flagged, ✘ failed")
+            Text(safe_text(f"{label}: {len(points)} run(s){which}, oldest left/top{said}; F flagged, ✘ failed"))
         )
         self.query_one(TrendPlot).show(
-            [TrendRun(p.value, p.sigma, p.processed_at, p.decision == "flag", p.verdict == "fail") for p in message.points],
+            [TrendRun(p.value, p.sigma, p.processed_at, p.decision == "flag", p.verdict == "fail") for p in points],
             reference,
         )
         table = self.query_one(HistoryTable)
+        with_instrument = len(names) > 1 and self.instrument_filter is None
+        if with_instrument != self.with_instrument:
+            self.with_instrument = with_instrument
+            table.clear(columns=True)
+            self._add_columns(table)
         table.clear()
-        if not message.points:
+        if not points:
             return
-        first = message.points[0].value
-        sigmas = [p.sigma for p in message.points if p.sigma]
+        first = points[0].value
+        sigmas = [p.sigma for p in points if p.sigma]
         places = decimals_for(min(sigmas) if sigmas else None, default=5)
-        for point in message.points:
-            table.add_row(
+        for point in points:
+            cells = [
                 plain(clock_time(point.processed_at)),
                 Text(str(point.run_id), justify="right"),
                 number(point.value, places),
                 number(point.sigma, places) if point.sigma is not None else Text("n/d", justify="right", style="dim"),
                 number(point.value - first, places),
                 point_state(point),
-            )
+            ]
+            if self.with_instrument:
+                cells.insert(1, plain(point.instrument or "-"))
+            table.add_row(*cells)
+
+    def action_cycle_instrument(self) -> None:
+        """Show one instrument's values, then the next, ..., then all again."""
+        choices: list[str | None] = [None, *self.instruments()]
+        position = choices.index(self.instrument_filter) if self.instrument_filter in choices else 0
+        self.instrument_filter = choices[(position + 1) % len(choices)]
+        self.show_points()
 
     def action_close(self) -> None:
         self.dismiss(None)

@@ -5,6 +5,7 @@ Ledger reads and writes, file reads and reprocessing run in thread workers that 
 """
 from __future__ import annotations
 
+import time
 from typing import TYPE_CHECKING
 
 from rich.markup import escape
@@ -12,20 +13,24 @@ from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
 from textual.screen import Screen
-from textual.worker import Worker, WorkerState
+from textual.worker import Worker, WorkerState, get_current_worker
 from textual.widgets import DataTable, Footer, Static, TabbedContent, TabPane
 
 from processing.result_text import reasons_line, redo_description
 from processing.safe_text import safe_text
+from processing.station.ledger_postgres import is_server_url
 from processing.station.events import (
     ClaimResumed,
     FileSeen,
+    LedgerOffline,
+    LedgerOnline,
     FileSettled,
     FileUnchanged,
     FileVanished,
     FileWaiting,
     RunFailed,
     RunProcessed,
+    RunSpooled,
     StationProblem,
     StationStarted,
     StationStopped,
@@ -53,8 +58,10 @@ if TYPE_CHECKING:
 
 # events that put a file among those being worked on, and those that take it off
 STARTS_WORK = (FileSeen, FileSettled, ClaimResumed, FileWaiting)
-ENDS_WORK = (RunProcessed, RunFailed, FileVanished, FileUnchanged)
-CHANGES_RUN_LIST = (*STARTS_WORK, RunProcessed, RunFailed, FileVanished, FileUnchanged, StationProblem)
+ENDS_WORK = (RunProcessed, RunFailed, FileVanished, FileUnchanged, RunSpooled)
+CHANGES_RUN_LIST = (
+    *STARTS_WORK, RunProcessed, RunFailed, FileVanished, FileUnchanged, StationProblem, RunSpooled, LedgerOnline,
+)
 LEDGER_POLL_SECONDS = 0.5  # decisions made elsewhere (another operator, the command line) show within a second
 PANES = ("runs", "tab-plot", "tab-lines", "tab-constants", "tab-checks")  # the order `tab` goes through
 
@@ -112,6 +119,9 @@ class MainScreen(Screen[None]):
         self.excluded: dict[int, set[float]] = {}
         self.station_state = "no station"
         self.last_event = ""
+        self.ledger_state = ""  # "ledger offline (N spooled)" while the ledger server is away
+        self.instrument_filter: str | None = None  # show one instrument's runs (None: all)
+        self.instruments: tuple[str, ...] = ()  # every instrument with runs in the ledger
 
     @property
     def bw(self) -> BandwatchApp:
@@ -138,13 +148,17 @@ class MainScreen(Screen[None]):
         self.update_title()
         self.query_one(RunList).focus()
         self.load_runs()
-        self.set_interval(LEDGER_POLL_SECONDS, self.poll_ledger, name="ledger poll")
+        self.follow_ledger()
 
     # ------------------------------------------------------------ title and summary
 
     def update_title(self) -> None:
         folder = self.bw.export_dir or "(no folder watched)"
         parts = [f"bandwatch  {folder}", self.station_state]
+        if self.ledger_state:
+            parts.append(self.ledger_state)
+        if self.instrument_filter is not None:
+            parts.append(f"instrument {safe_text(self.instrument_filter)} only")
         if self.busy_paths:
             parts.append(f"working on {len(self.busy_paths)}")
         if self.last_event:
@@ -197,33 +211,58 @@ class MainScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, group="runs", exit_on_error=False)
     def load_runs(self) -> None:
-        from processing.station.ledger import list_runs, open_ledger
+        from processing.station.ledger import instruments, list_runs, open_ledger
 
-        conn = open_ledger(self.bw.data_dir)
+        conn = open_ledger(self.bw.ledger_location)
         try:
-            runs = list_runs(conn, limit=self.bw.run_limit, with_result=False)
+            runs = list_runs(conn, limit=self.bw.run_limit, with_result=False, instrument=self.instrument_filter)
+            names = tuple(instruments(conn))
         finally:
             conn.close()
-        self.post_message(RunsLoaded(runs))
+        self.post_message(RunsLoaded(runs, names))
 
-    @work(thread=True, exclusive=True, group="ledger-poll", exit_on_error=False)
-    def poll_ledger(self) -> None:
-        """Read the ledger's change feed: decisions and new versions from any source (the
-        station, another operator's interface, `bandwatch ledger` in a shell)."""
-        from processing.station.ledger import changes_after, open_ledger
+    @work(thread=True, exclusive=True, group="ledger-feed", exit_on_error=False)
+    def follow_ledger(self) -> None:
+        """Follow the ledger's change journal (`change_feed.ChangeFeed`) for as long as the
+        screen is there: decisions and new versions from any source (the station, another
+        operator's interface, `bandwatch ledger` in a shell). The file is polled every
+        LEDGER_POLL_SECONDS; a server's announcement wakes the feed at once. A ledger not
+        there yet (the run list's first read makes the file) or a server away is tried again;
+        a feed started again says so (`first` False, no run ids), so the list is read again."""
+        from processing.station.change_feed import ChangeFeed
+        from processing.station.ledger import LedgerError
 
-        conn = open_ledger(self.bw.data_dir)
+        worker = get_current_worker()
+        feed: ChangeFeed | None = None
+        started_before = False
         try:
-            cursor, changed = changes_after(conn, self.ledger_cursor)
+            while not worker.is_cancelled:
+                if feed is None:
+                    try:
+                        feed = ChangeFeed(self.bw.ledger_location, poll_seconds=LEDGER_POLL_SECONDS)
+                    except LedgerError:
+                        time.sleep(LEDGER_POLL_SECONDS)
+                        continue
+                    self.post_message(LedgerChanged(feed.cursor, [], first=not started_before))
+                    started_before = True
+                    continue
+                try:
+                    changed = feed.wait(LEDGER_POLL_SECONDS)
+                except LedgerError:
+                    feed.close()
+                    feed = None
+                    continue
+                if changed:
+                    self.post_message(LedgerChanged(feed.cursor, changed))
         finally:
-            conn.close()
-        self.post_message(LedgerChanged(cursor, changed, first=self.ledger_cursor is None))
+            if feed is not None:
+                feed.close()
 
     @work(thread=True, exclusive=True, group="detail", exit_on_error=False)
     def load_detail(self, run_id: int) -> None:
         from processing.station.ledger import get_run, open_ledger
 
-        conn = open_ledger(self.bw.data_dir)
+        conn = open_ledger(self.bw.ledger_location)
         try:
             run = get_run(conn, run_id)
         finally:
@@ -246,7 +285,7 @@ class MainScreen(Screen[None]):
         ledger checks the decision in effect now, not the one this screen last read)."""
         from processing.station.ledger import decide, open_ledger
 
-        conn = open_ledger(self.bw.data_dir)
+        conn = open_ledger(self.bw.ledger_location)
         try:
             decided = decide(conn, run_id, action, reason, self.bw.operator, confirmed_over=confirmed_over)
         finally:
@@ -297,6 +336,9 @@ class MainScreen(Screen[None]):
             keep, self.jump_to = self.jump_to, None
         recorded = {run.path for run in message.runs}
         self.busy_paths = [path for path in self.busy_paths if path not in recorded or path in self.waiting]
+        self.instruments = message.instruments
+        # the instrument column when runs of several instruments (or a shared server) are listed
+        table.show_instruments(len(message.instruments) > 1 or is_server_url(self.bw.ledger_location))
         table.fill(message.runs, self.busy_paths, keep_run_id=keep, problems=self.problems, waiting=self.waiting)
         if keep is None or keep not in self.runs:
             self.select_run(table.selected_run_id())
@@ -310,7 +352,7 @@ class MainScreen(Screen[None]):
     def ledger_changed(self, message: LedgerChanged) -> None:
         """Runs changed elsewhere: the list again, and the selected run's detail if it changed."""
         self.ledger_cursor = message.cursor
-        if message.first or not message.run_ids:
+        if message.first:
             return
         self.load_runs()
         if self.selected_run_id in message.run_ids:
@@ -437,6 +479,12 @@ class MainScreen(Screen[None]):
             self.station_state = "station running"
         elif isinstance(event, StationStopped):
             self.station_state = "station stopped"
+        elif isinstance(event, LedgerOffline):
+            self.ledger_state = "ledger offline"
+        elif isinstance(event, RunSpooled):
+            self.ledger_state = f"ledger offline ({event.waiting} spooled)"
+        elif isinstance(event, LedgerOnline):
+            self.ledger_state = ""
         if isinstance(event, STARTS_WORK):
             if event.path not in self.busy_paths:
                 self.busy_paths.append(event.path)
@@ -455,6 +503,8 @@ class MainScreen(Screen[None]):
                     self.problems[path] = event.message
         if isinstance(event, RunFailed):
             self.notify(escape(self.last_event), title="run failed", severity="error")
+        elif isinstance(event, LedgerOffline):
+            self.notify(escape(self.last_event), title="ledger offline", severity="warning", timeout=10)
         elif isinstance(event, StationProblem):
             self.notify(escape(self.last_event), title="station", severity="warning")
         if isinstance(event, CHANGES_RUN_LIST):
@@ -576,7 +626,17 @@ class MainScreen(Screen[None]):
         preferred = None
         if self.query_one(TabbedContent).active == "tab-constants":
             preferred = self.query_one(ConstantsTable).selected_quantity()
-        self.app.push_screen(HistoryScreen(run.result if run else None, self.bw.data_dir, preferred))
+        self.app.push_screen(HistoryScreen(run.result if run else None, self.bw.ledger_location, preferred))
+
+    def action_cycle_instrument(self) -> None:
+        """Show one instrument's runs, then the next, ..., then all again."""
+        choices: list[str | None] = [None, *self.instruments]
+        position = choices.index(self.instrument_filter) if self.instrument_filter in choices else 0
+        self.instrument_filter = choices[(position + 1) % len(choices)]
+        shown = "all instruments" if self.instrument_filter is None else f"instrument {self.instrument_filter} only"
+        self.notify(escape(safe_text(f"showing {shown}")), timeout=2)
+        self.update_title()
+        self.load_runs()
 
     def action_next_run(self) -> None:
         self.query_one(RunList).action_cursor_down()

@@ -45,8 +45,13 @@ def clock_time(stamp: str | None) -> str:
     return clock(stamp)
 
 
+# whose run, when several instruments share the list (never left out before the decision)
+INSTRUMENT_COLUMN = Column("instrument", "instrument", 10, min_width=6, drop=1, fit_content=True)
+
+
 class RunList(FittedTable):
-    """Runs newest first: time, file, version, molecules found, verdict, decision, reasons."""
+    """Runs newest first: time, (instrument,) file, version, molecules found, verdict,
+    decision, reasons."""
 
     BINDINGS = bindings.TABLE
     COLUMNS = (
@@ -63,10 +68,26 @@ class RunList(FittedTable):
         super().__init__(zebra_stripes=False, **kwargs)
         self.run_ids: list[int] = []
         self.marked: str | None = None
-        self.COLUMNS = tuple(
-            Column(c.key, f"time {zone_name()}", c.width, c.min_width, c.drop, c.grow) if c.key == "time" else c
-            for c in type(self).COLUMNS
-        )
+        self.with_instrument = False
+        self.COLUMNS = self._columns()
+
+    def _columns(self) -> tuple[Column, ...]:
+        """The columns: the time's heading names the local zone; the instrument column only
+        when runs of several instruments (or a shared server) are listed."""
+        columns = []
+        for column in type(self).COLUMNS:
+            if column.key == "time":
+                column = Column(column.key, f"time {zone_name()}", column.width, column.min_width, column.drop, column.grow)
+            columns.append(column)
+            if column.key == "time" and self.with_instrument:
+                columns.append(INSTRUMENT_COLUMN)
+        return tuple(columns)
+
+    def show_instruments(self, shown: bool) -> None:
+        """Add or take away the instrument column (it appears with the next `fill`)."""
+        if shown != self.with_instrument:
+            self.with_instrument = shown
+            self.COLUMNS = self._columns()
 
     def fill(
         self,
@@ -90,6 +111,7 @@ class RunList(FittedTable):
             self.run_ids.append(run.run_id)
             rows.append((str(run.run_id), {
                 "time": Text(" " + clock_time(run.received_at)),
+                "instrument": plain(run.instrument) if run.instrument else Text(""),
                 "file": plain(run.name),
                 "version": Text(str(run.version), justify="right"),
                 "species": plain(molecules_text(run.species) or "—"),
