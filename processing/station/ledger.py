@@ -683,32 +683,12 @@ def _add_instruments_and_changes(conn: sqlite3.Connection) -> None:
 
 
 _RUN_COLUMNS_V6 = _RUN_COLUMNS_V5 + ", instrument, record_key"
-RUNS_TABLE_V7 = """
-    CREATE TABLE runs_v7 (
-        run_id           INTEGER PRIMARY KEY AUTOINCREMENT,
-        path             TEXT NOT NULL,
-        sha256           TEXT,
-        version          INTEGER NOT NULL,
-        status           TEXT NOT NULL,
-        verdict          TEXT,
-        species          TEXT NOT NULL DEFAULT '',
-        error            TEXT,
-        received_at      TEXT NOT NULL,
-        processed_at     TEXT,
-        settings_json    TEXT,
-        reprocessed_from INTEGER REFERENCES runs (run_id),
-        size_bytes       INTEGER,
-        mtime_ns         INTEGER,
-        analysis_version TEXT,
-        library_hash     TEXT,
-        settings_hash    TEXT,
-        instrument       TEXT NOT NULL DEFAULT '',
-        record_key       TEXT,
-        reasons_json     TEXT,
-        result_json      TEXT,  -- last: a listing reads the columns before it, never its overflow pages
-        UNIQUE (instrument, path, version)
-    );
-"""
+# version 7's `runs`: version 6's with `reasons_json` before the stored result (derived from
+# the shipped 5 -> 6 text, which never changes)
+RUNS_TABLE_V7 = RUNS_TABLE_V6.replace("runs_v6", "runs_v7").replace(
+    "        result_json      TEXT,", "        reasons_json     TEXT,\n        result_json      TEXT,"
+)
+assert RUNS_TABLE_V7.count("reasons_json") == 1
 # what a rebuilt `runs` needs again: its indexes and the change journal's trigger (as in 5 -> 6)
 RUNS_INDEXES_V7 = """
     CREATE INDEX runs_by_path ON runs (instrument, path, version);
