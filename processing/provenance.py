@@ -19,7 +19,6 @@ import functools
 import hashlib
 import json
 from dataclasses import dataclass, fields
-from importlib import metadata
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -44,6 +43,8 @@ class Provenance:
 
 
 def package_version() -> str:
+    from importlib import metadata  # here, not at the top: 20 ms that `bandwatch process` never needs
+
     try:
         return metadata.version("bandwatch")
     except metadata.PackageNotFoundError:  # run from a source tree that was never installed

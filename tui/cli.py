@@ -29,7 +29,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Turn gas-phase FTIR spectra of diatomic molecules into assigned lines, "
         "fitted constants and a run verdict.",
     )
-    parser.add_argument("--version", action="version", version=f"bandwatch {installed_version()}")
+    parser.add_argument("--version", action=_VersionAction, nargs=0, help="show the installed version and exit")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, module_name in COMMANDS.items():
         module = importlib.import_module(f"tui.commands.{module_name}")
@@ -37,6 +37,16 @@ def build_parser() -> argparse.ArgumentParser:
         module.add_arguments(sub)
         sub.set_defaults(_run=module.run)
     return parser
+
+
+class _VersionAction(argparse.Action):
+    """`--version`, looked up only when asked (importlib.metadata costs every other command
+    ~20 ms of start-up)."""
+
+    def __call__(self, parser: argparse.ArgumentParser, namespace: argparse.Namespace, values: object,
+                 option_string: str | None = None) -> None:
+        print(f"bandwatch {installed_version()}")
+        parser.exit()
 
 
 def installed_version() -> str:
