@@ -123,8 +123,17 @@ class FittedTable(DataTable):
 
     def _add_rows(self) -> None:
         for key, cells in self.row_cells:
-            self.add_row(*[cells.get(column.key, Text("")) for column, _ in self.layout_widths],
+            self.add_row(*[self._shown_text(cells.get(column.key, Text("")), width) for column, width in self.layout_widths],
                          key=key, height=self.ROW_HEIGHT)
+
+    def _shown_text(self, text: Text, width: int) -> Text:
+        """A one-line cell too long for its column ends in "…" (a name cut silently could be
+        taken for another file's)."""
+        if self.ROW_HEIGHT != 1 or text.cell_len <= width:
+            return text
+        shortened = text.copy()
+        shortened.truncate(width, overflow="ellipsis")
+        return shortened
 
     def set_cell(self, row_key: str, column_key: str, value: Text) -> None:
         """Change one cell (kept for a later layout too)."""
@@ -132,4 +141,5 @@ class FittedTable(DataTable):
             if key == row_key:
                 cells[column_key] = value
         if self.shown(column_key) and row_key in self.rows:
-            self.update_cell(row_key, column_key, value)
+            width = next(width for column, width in self.layout_widths if column.key == column_key)
+            self.update_cell(row_key, column_key, self._shown_text(value, width))
