@@ -18,6 +18,7 @@ station killed mid-file leaves only a claim, which the next start redoes.
 """
 from __future__ import annotations
 
+import functools
 import json
 import os
 import sqlite3
@@ -876,11 +877,13 @@ def record_reprocessed(
     )
 
 
-_RUN_COLUMNS_LISTED = (
+_RUN_COLUMNS_OWN = (
     "run_id, path, sha256, version, status, verdict, species, error, received_at,"
     " processed_at, settings_json, reprocessed_from, instrument, analysis_version, library_hash, settings_hash,"
-    " reasons_json,"
-    " (SELECT later.run_id FROM runs AS later WHERE later.instrument = runs.instrument AND later.path = runs.path"
+    " reasons_json"
+)
+_RUN_COLUMNS_LISTED = _RUN_COLUMNS_OWN + (
+    ", (SELECT later.run_id FROM runs AS later WHERE later.instrument = runs.instrument AND later.path = runs.path"
     " AND later.version > runs.version ORDER BY later.version DESC LIMIT 1) AS superseded_by"
 )
 _RUN_COLUMNS = _RUN_COLUMNS_LISTED + ", result_json"
@@ -899,32 +902,47 @@ _RECORD_FIELDS = tuple(field.name for field in fields(RunRecord))
 _new_object = object.__new__
 
 
-def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, server: bool) -> RunRecord:
+def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, server: bool, replaced_by: int | None = None) -> RunRecord:
     """A RunRecord from a row of `_RUN_COLUMNS_LISTED` (+ result_json), by position.
 
-    Filled field by field without the dataclass's __init__ (every field, in its order; the
-    record is as frozen and compares equal as any other): `bandwatch ledger list` builds
-    100,000 of them, and the generated __init__ was a third of its time."""
+    Filled through its __dict__ without the dataclass's __init__ (every field; the record is
+    as frozen and compares equal as any other, `test_listed_records_equal_built_ones`):
+    `bandwatch ledger list` builds 100,000 of them, and the generated __init__ was a third of
+    its time. Species, settings and reasons texts repeat from run to run: decoded once each."""
     (run_id, path, sha256, version, status, verdict, species, error, received_at, processed_at,
      settings_json, reprocessed_from, instrument, analysis_version, library_hash, settings_hash,
      reasons_json, superseded_by) = values[:18]
     if isinstance(path, bytes) or (server and path.startswith(SERVER_BYTES_PATH)):  # type: ignore[union-attr]
         path = path_of(path, _SERVER if server else None)  # type: ignore[arg-type]
     record = _new_object(RunRecord)
-    record.__dict__.update(zip(_RECORD_FIELDS, (
-        run_id, path, sha256, version, status, verdict,
-        decision.action if decision else None, decision.reason if decision else None,
-        decision.operator if decision else None, received_at, processed_at,
-        tuple(species.split(",")) if species else (), error,  # type: ignore[union-attr]
-        _result_text(run_id, values[18]) if len(values) > 18 and values[18] else None,  # type: ignore[arg-type]
-        json.loads(settings_json) if settings_json else None, reprocessed_from,  # type: ignore[arg-type]
-        decision.at if decision else None, instrument or "",
-        None if analysis_version is None else Provenance(analysis_version, library_hash or "", settings_hash or ""),  # type: ignore[arg-type]
-        () if reasons_json in (None, "[]") else _reasons(reasons_json),  # type: ignore[arg-type]
-        decision.event_id if decision else None,
-        None if superseded_by is None else int(superseded_by),  # type: ignore[arg-type]
-    ), strict=True))
+    record.__dict__.update(
+        run_id=run_id, path=path, sha256=sha256, version=version, status=status, verdict=verdict,
+        decision=None, decision_reason=None, operator=None,
+        received_at=received_at, processed_at=processed_at,
+        species=_species(species) if species else (),  # type: ignore[arg-type]
+        error=error,
+        result=_result_text(run_id, values[18]) if len(values) > 18 and values[18] else None,  # type: ignore[arg-type]
+        settings=json.loads(settings_json) if settings_json else None,  # type: ignore[arg-type]
+        reprocessed_from=reprocessed_from, decided_at=None, instrument=instrument or "",
+        provenance=None if analysis_version is None else _made_with(analysis_version, library_hash or "", settings_hash or ""),  # type: ignore[arg-type]
+        reasons=() if reasons_json is None else _reasons(reasons_json),  # type: ignore[arg-type]
+        decision_event_id=None,
+        superseded_by=replaced_by if superseded_by is None else int(superseded_by),  # type: ignore[arg-type]
+    )
+    if decision is not None:
+        record.__dict__.update(decision=decision.action, decision_reason=decision.reason, operator=decision.operator,
+                               decided_at=decision.at, decision_event_id=decision.event_id)
     return record
+
+
+@functools.lru_cache(maxsize=256)
+def _species(text: str) -> tuple[str, ...]:
+    return tuple(text.split(","))
+
+
+@functools.lru_cache(maxsize=256)
+def _made_with(analysis_version: str, library_hash: str, settings_hash: str) -> Provenance:
+    return Provenance(analysis_version, library_hash, settings_hash)
 
 
 class _ServerMark:
@@ -1011,6 +1029,7 @@ def _provenance(row: LedgerRow) -> Provenance | None:
     return Provenance(row["analysis_version"], row["library_hash"] or "", row["settings_hash"] or "")
 
 
+@functools.lru_cache(maxsize=4096)
 def _reasons(text: str | None) -> tuple[str, ...]:
     """The stored main reasons (a JSON list of text); none when absent or unreadable."""
     if not text:
@@ -1050,15 +1069,40 @@ def list_runs(
             " AND later.path = runs.path)"
         )
     where = f" WHERE {' AND '.join(conditions)}" if conditions else ""
-    columns = _RUN_COLUMNS if with_result else _RUN_COLUMNS_LISTED
-    sql = f"SELECT {columns} FROM runs{where} ORDER BY run_id DESC"
+    # Without a limit the rows hold every version of their files (or, latest_only, none is
+    # replaced): the newer version is found among them, not by a query per row.
+    every_version = limit is None
+    columns = f"{_RUN_COLUMNS_OWN}, NULL AS superseded_by" if every_version else _RUN_COLUMNS_LISTED
+    sql = f"SELECT {columns}{', result_json' if with_result else ''} FROM runs{where} ORDER BY run_id DESC"
     if limit is not None:
         sql += " LIMIT ?"
         params.append(int(limit))
     rows = _tuples(conn, sql, tuple(params))
     decisions = _current_decisions(conn, [row[0] for row in rows] if limit or instrument is not None else None)
     server = dialect(conn) == "postgresql"
-    return [_listed(row, decisions.get(row[0]), server) for row in rows]
+    replaced = _replaced_by(rows) if every_version and not latest_only else {}
+    if not replaced:
+        return [_listed(row, decisions.get(row[0]), server) for row in rows]
+    return [_listed(row, decisions.get(row[0]), server, replaced.get(row[0])) for row in rows]
+
+
+def _replaced_by(rows: list[tuple[SqlValue, ...]]) -> dict[int, int]:
+    """run_id -> the run id of its file's newest version, for every row that is not that
+    version (rows of `_RUN_COLUMNS_OWN`: run_id 0, path 1, version 3, instrument 12)."""
+    newest: dict[tuple[SqlValue, SqlValue], tuple[int, int]] = {}
+    for row in rows:
+        key = (row[12], row[1])
+        found = newest.get(key)
+        if found is None or row[3] > found[0]:  # type: ignore[operator]
+            newest[key] = (row[3], row[0])  # type: ignore[assignment]
+    if len(newest) == len(rows):
+        return {}  # one version of every file: nothing replaced
+    replaced = {}
+    for row in rows:
+        version, run_id = newest[(row[12], row[1])]
+        if row[3] != version:
+            replaced[int(row[0])] = int(run_id)  # type: ignore[arg-type]
+    return replaced
 
 
 def instruments(conn: Connection) -> list[str]:

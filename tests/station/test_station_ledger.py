@@ -354,3 +354,36 @@ def test_numpy_values_in_a_result_are_stored_as_plain_json(ledger_at: str | Path
     stored = conn.execute("SELECT result_json FROM runs WHERE run_id = ?", (run.run_id,)).fetchone()[0]
     assert json.loads(stored)["timing_ms"] == {"fit": 1.5}
     assert lg.get_run(conn, run.run_id).result.timing_ms == {"fit": 1.5}
+
+
+def test_listed_records_equal_the_ones_read_one_by_one(ledger_at: str | Path) -> None:
+    """A listing builds its records field by field (speed); each must equal the record
+    `get_run` builds for the same run: decisions, provenance, reasons, settings and which
+    newer version replaces it, with and without a limit (two ways of finding that version)."""
+    from dataclasses import fields, replace
+
+    from processing.results import Check
+
+    conn = lg.open_ledger(ledger_at)
+    shifted = Check("calibration", "warn", "wavenumber calibration offset: offset +0.240 +- 0.005 cm-1", 0.24)
+    made_with = Provenance("0.1.0+abc", "lib", "set")
+    first = lg.record_run(conn, "/exp/a.csv", "1" * 64, "processed", result=replace(_result(), checks=(shifted,)),
+                          instrument="ftir-1", provenance=made_with)
+    lg.record_run(conn, "/exp/b.csv", "2" * 64, "unreadable", error="empty", instrument="ftir-1")
+    redo = lg.record_reprocessed(conn, first.run_id, _result(), {"species": ["H35Cl"]})
+    newest = lg.record_run(conn, "/exp/a.csv", "3" * 64, "processed", result=_result(), instrument="ftir-1")
+    lg.record_run(conn, "/exp/a.csv", "4" * 64, "processed", result=_result(), instrument="ftir-2")
+    lg.record_decision(conn, first.run_id, "flag", "odd", "ana")
+    lg.record_decision(conn, newest.run_id, "accept", "", "bo")
+    names = [field.name for field in fields(lg.RunRecord)]
+    for listing in (lg.list_runs(conn, with_result=False), lg.list_runs(conn, 10, with_result=False),
+                    lg.list_runs(conn, with_result=False, instrument="ftir-1")):
+        for record in listing:
+            assert list(record.__dict__) == names or sorted(record.__dict__) == sorted(names)
+            assert record == lg.get_run(conn, record.run_id, with_result=False), record.run_id
+    by_id = {r.run_id: r for r in lg.list_runs(conn, with_result=False)}
+    assert by_id[first.run_id].superseded_by == by_id[redo.run_id].superseded_by == newest.run_id
+    assert by_id[newest.run_id].superseded_by is None  # the same path on another instrument is another file
+    assert by_id[first.run_id].reasons == ("calibration +0.24 cm-1",) and by_id[first.run_id].provenance == made_with
+    assert (by_id[first.run_id].decision, by_id[newest.run_id].operator) == ("flag", "bo")
+    assert [r.superseded_by for r in lg.list_runs(conn, latest_only=True, with_result=False)] == [None, None, None]
