@@ -55,8 +55,8 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int]
     columns, each repeating the first column, so no cell is ever cut or broken mid-word."""
     right = right or set()
     widths = [len(h) for h in headers]
-    for row in rows:
-        widths = [max(w, len(cell)) for w, cell in zip(widths, row)]
+    for index, column in zip(range(len(widths)), zip(*rows)):  # column by column: 100,000 rows in a few ms
+        widths[index] = max(widths[index], max(map(len, column)))
     limit = _TABLE_WIDTH.get()
     if limit is None or _total(widths) <= limit:
         return _block(headers, rows, right, widths)
@@ -117,8 +117,16 @@ def _block(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int
         return lines
 
     lines = fmt(headers) + fmt(["-" * w for w in widths])
+    # A row whose cells all fit is one line: one format call. A longer cell makes the line
+    # longer than the widths add up to, and that row goes through `fmt` (wrapping).
+    template = GAP.join(("{:>%d}" if i in right else "{:<%d}") % w for i, w in enumerate(widths))
+    one_line = _total(widths)
     for row in rows:
-        lines += fmt(row)
+        line = template.format(*row)
+        if len(line) == one_line:
+            lines.append(line.rstrip())
+        else:
+            lines += fmt(row)
     return "\n".join(lines)
 
 

@@ -35,5 +35,7 @@ def safe_text(text: object) -> str:
     """`text` as one line of printable characters: control and invisible direction characters
     escaped (`\\x1b`, `\\n`, `\\u202e`), undecodable bytes as `\\xff`."""
     value = text if isinstance(text, str) else str(text)
+    if value.isascii() and value.isprintable():  # nothing to escape (the usual case: fast)
+        return value
     return _UNSAFE.sub(_escape, value)
 
