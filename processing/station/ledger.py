@@ -25,7 +25,7 @@ import sqlite3
 import stat
 import threading
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Union
@@ -898,28 +898,27 @@ def _tuples(conn: Connection, sql: str, params: SqlParams) -> list[tuple[SqlValu
     return cursor.execute(sql, params).fetchall()
 
 
-_RECORD_FIELDS = tuple(field.name for field in fields(RunRecord))
 _new_object = object.__new__
 
 
-def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, server: bool, replaced_by: int | None = None) -> RunRecord:
+def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, conn: Connection, replaced_by: int | None = None) -> RunRecord:
     """A RunRecord from a row of `_RUN_COLUMNS_LISTED` (+ result_json), by position.
 
     Filled through its __dict__ without the dataclass's __init__ (every field; the record is
-    as frozen and compares equal as any other, `test_listed_records_equal_built_ones`):
+    as frozen and compares equal as any other, `test_listed_records_equal_the_ones_read_one_by_one`):
     `bandwatch ledger list` builds 100,000 of them, and the generated __init__ was a third of
     its time. Species, settings and reasons texts repeat from run to run: decoded once each."""
     (run_id, path, sha256, version, status, verdict, species, error, received_at, processed_at,
      settings_json, reprocessed_from, instrument, analysis_version, library_hash, settings_hash,
      reasons_json, superseded_by) = values[:18]
-    if isinstance(path, bytes) or (server and path.startswith(SERVER_BYTES_PATH)):  # type: ignore[union-attr]
-        path = path_of(path, _SERVER if server else None)  # type: ignore[arg-type]
+    if isinstance(path, bytes) or path.startswith(SERVER_BYTES_PATH):  # type: ignore[union-attr]
+        path = path_of(path, conn)  # type: ignore[arg-type]
     record = _new_object(RunRecord)
     record.__dict__.update(
         run_id=run_id, path=path, sha256=sha256, version=version, status=status, verdict=verdict,
         decision=None, decision_reason=None, operator=None,
         received_at=received_at, processed_at=processed_at,
-        species=_species(species) if species else (),  # type: ignore[arg-type]
+        species=_species(species or ""),  # type: ignore[arg-type]
         error=error,
         result=_result_text(run_id, values[18]) if len(values) > 18 and values[18] else None,  # type: ignore[arg-type]
         settings=json.loads(settings_json) if settings_json else None,  # type: ignore[arg-type]
@@ -937,19 +936,13 @@ def _listed(values: tuple[SqlValue, ...], decision: DecisionEvent | None, server
 
 @functools.lru_cache(maxsize=256)
 def _species(text: str) -> tuple[str, ...]:
-    return tuple(text.split(","))
+    """The stored species ("H35Cl,H37Cl") as a tuple; the texts repeat, so each is split once."""
+    return tuple(label for label in text.split(",") if label)
 
 
 @functools.lru_cache(maxsize=256)
 def _made_with(analysis_version: str, library_hash: str, settings_hash: str) -> Provenance:
     return Provenance(analysis_version, library_hash, settings_hash)
-
-
-class _ServerMark:
-    dialect = "postgresql"
-
-
-_SERVER: Any = _ServerMark()  # stands for "a server connection" where only the dialect matters
 
 
 def _result_text(run_id: int, text: str) -> RunResult:
@@ -1009,7 +1002,7 @@ def _record(row: LedgerRow, decision: DecisionEvent | None, with_result: bool = 
         operator=decision.operator if decision else None,
         received_at=row["received_at"],
         processed_at=row["processed_at"],
-        species=tuple(s for s in (row["species"] or "").split(",") if s),
+        species=_species(row["species"] or ""),
         error=row["error"],
         result=_result(row) if with_result and row["result_json"] else None,
         settings=json.loads(row["settings_json"]) if row["settings_json"] else None,
@@ -1026,7 +1019,7 @@ def _record(row: LedgerRow, decision: DecisionEvent | None, with_result: bool = 
 def _provenance(row: LedgerRow) -> Provenance | None:
     if row["analysis_version"] is None:
         return None
-    return Provenance(row["analysis_version"], row["library_hash"] or "", row["settings_hash"] or "")
+    return _made_with(row["analysis_version"], row["library_hash"] or "", row["settings_hash"] or "")
 
 
 @functools.lru_cache(maxsize=4096)
@@ -1042,10 +1035,14 @@ def _reasons(text: str | None) -> tuple[str, ...]:
 
 
 def _result(row: LedgerRow) -> RunResult:
-    try:
-        return from_json(row["result_json"])
-    except ResultFormatError as error:
-        raise LedgerError(f"run {row['run_id']}: its stored result cannot be read ({error})") from None
+    return _result_text(int(row["run_id"]), row["result_json"])
+
+
+# a run is its file's newest version on its instrument
+_NEWEST = (
+    "version = (SELECT MAX(later.version) FROM runs AS later"
+    " WHERE later.instrument = runs.instrument AND later.path = runs.path)"
+)
 
 
 def list_runs(
@@ -1064,10 +1061,7 @@ def list_runs(
         conditions.append("instrument = ?")
         params.append(instrument)
     if latest_only:
-        conditions.append(
-            "version = (SELECT MAX(version) FROM runs AS later WHERE later.instrument = runs.instrument"
-            " AND later.path = runs.path)"
-        )
+        conditions.append(_NEWEST)
     where = f" WHERE {' AND '.join(conditions)}" if conditions else ""
     # Without a limit the rows hold every version of their files (or, latest_only, none is
     # replaced): the newer version is found among them, not by a query per row.
@@ -1079,11 +1073,8 @@ def list_runs(
         params.append(int(limit))
     rows = _tuples(conn, sql, tuple(params))
     decisions = _current_decisions(conn, [row[0] for row in rows] if limit or instrument is not None else None)
-    server = dialect(conn) == "postgresql"
     replaced = _replaced_by(rows) if every_version and not latest_only else {}
-    if not replaced:
-        return [_listed(row, decisions.get(row[0]), server) for row in rows]
-    return [_listed(row, decisions.get(row[0]), server, replaced.get(row[0])) for row in rows]
+    return [_listed(row, decisions.get(row[0]), conn, replaced.get(row[0])) for row in rows]
 
 
 def _replaced_by(rows: list[tuple[SqlValue, ...]]) -> dict[int, int]:
@@ -1133,8 +1124,7 @@ def latest_run_for_path(conn: Connection, path: str, instrument: str = "") -> Ru
 def latest_stat_by_path(conn: Connection, instrument: str = "") -> dict[str, tuple[int, int]]:
     """path -> (size_bytes, mtime_ns) of its newest version on `instrument`, where recorded."""
     rows = conn.execute(
-        "SELECT path, size_bytes, mtime_ns FROM runs AS r WHERE instrument = ? AND version ="
-        " (SELECT MAX(version) FROM runs WHERE instrument = r.instrument AND path = r.path)"
+        f"SELECT path, size_bytes, mtime_ns FROM runs WHERE instrument = ? AND {_NEWEST}"
         " AND size_bytes IS NOT NULL AND mtime_ns IS NOT NULL",
         (instrument,),
     ).fetchall()
@@ -1144,8 +1134,7 @@ def latest_stat_by_path(conn: Connection, instrument: str = "") -> dict[str, tup
 def latest_sha_by_path(conn: Connection, instrument: str = "") -> dict[str, str | None]:
     """path -> sha256 of its newest version on `instrument`: what the station already has."""
     rows = conn.execute(
-        "SELECT path, sha256 FROM runs AS r WHERE instrument = ? AND version ="
-        " (SELECT MAX(version) FROM runs WHERE instrument = r.instrument AND path = r.path)",
+        f"SELECT path, sha256 FROM runs WHERE instrument = ? AND {_NEWEST}",
         (instrument,),
     ).fetchall()
     return {path_of(row["path"], conn): row["sha256"] for row in rows}
@@ -1414,11 +1403,6 @@ class RunQuery:
 _LATEST_COLUMNS = (
     "run_id, path, sha256, status, verdict, received_at, size_bytes, mtime_ns, analysis_version, library_hash,"
     " settings_hash, settings_json, instrument"
-)
-# a run is its file's newest version on its instrument
-_NEWEST = (
-    "version = (SELECT MAX(later.version) FROM runs AS later"
-    " WHERE later.instrument = runs.instrument AND later.path = runs.path)"
 )
 LATEST_BATCH = 500  # paths asked per query
 
