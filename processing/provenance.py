@@ -42,7 +42,10 @@ class Provenance:
         return {"analysis_version": self.analysis_version, "library_hash": self.library_hash, "settings_hash": self.settings_hash}
 
 
+@functools.lru_cache(maxsize=1)
 def package_version() -> str:
+    """The installed package's version ("0+unknown" in a source tree never installed); looked
+    up once per process."""
     from importlib import metadata  # here, not at the top: 20 ms that `bandwatch process` never needs
 
     try:

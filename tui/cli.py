@@ -52,12 +52,10 @@ class _VersionAction(argparse.Action):
 def installed_version() -> str:
     """The installed package's version (pyproject.toml), or "unknown" when run from a tree
     that was never installed."""
-    import importlib.metadata
+    from processing.provenance import package_version
 
-    try:
-        return importlib.metadata.version("bandwatch")
-    except importlib.metadata.PackageNotFoundError:
-        return "unknown (not installed)"
+    found = package_version()
+    return "unknown (not installed)" if found == "0+unknown" else found
 
 
 NO_FOLDER_HINT = (

@@ -92,13 +92,12 @@ class HistoryLoaded(Message):
 
 
 class LedgerChanged(Message):
-    """The ledger's change feed moved to `cursor`: `run_ids` changed (a decision, a new
-    version) since the last read; `first` is the feed's start, which only learns where the
-    journal stands (a feed started again after trouble is not `first`: the list is read again)."""
+    """The ledger's change feed moved on: `run_ids` changed (a decision, a new version) since
+    the last read; `first` is the feed's start, which only learns where the journal stands (a
+    feed started again after trouble is not `first`: the list is read again)."""
 
-    def __init__(self, cursor: int, run_ids: list[int], first: bool = False) -> None:
+    def __init__(self, run_ids: list[int], first: bool = False) -> None:
         super().__init__()
-        self.cursor = cursor
         self.run_ids = run_ids
         self.first = first
 

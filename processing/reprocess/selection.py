@@ -14,6 +14,7 @@ import fnmatch
 import glob
 import os
 import re
+import threading
 from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import date, datetime, timedelta, timezone
@@ -67,8 +68,14 @@ class PathSelection:
             else:
                 yield _file_candidate(argument, self.instrument)
 
-    def count(self) -> int:
-        return sum(1 for _ in self.candidates())
+    def count(self, done: threading.Event | None = None) -> int:
+        """How many files `candidates` gives; when `done` is set meanwhile, the count so far."""
+        total = 0
+        for _ in self.candidates():
+            total += 1
+            if done is not None and done.is_set():
+                break
+        return total
 
     def _walk(self, root: Path, recursive: bool, include: tuple[str, ...]) -> Iterator[Candidate]:
         walker = FileFilter(root=root, include=include, exclude=self.exclude, recursive=recursive)

@@ -176,9 +176,7 @@ def _convert(source: str | None, key: str, value: Any, base_dir: Path | None) ->
             raise ConfigError(source, key, "must be a whole number")
         return value
     if key in _SECONDS_KEYS:
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            raise ConfigError(source, key, f"must be a finite number of seconds, got {value!r}")
-        return float(value)
+        return _seconds(source, key, value)
     if key == "checks":
         if not isinstance(value, dict):
             raise ConfigError(source, key, "must be a table of check thresholds")
@@ -204,13 +202,18 @@ def _cluster_address(source: str | None, value: Any) -> str | None:
 _SECONDS_KEYS = ("settle_seconds", "max_wait_seconds", "rescan_seconds", "timeout_seconds")
 
 
+def _seconds(source: str | None, key: str, value: Any) -> float:
+    """A number of seconds from the file or the command line; anything else is one error line."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise ConfigError(source, key, f"must be a finite number of seconds, got {value!r}")
+    return float(value)
+
+
 def validate(config: StationConfig) -> StationConfig:
     """Range checks shared by the file and the command line."""
     source = config.source
     for key in _SECONDS_KEYS:
-        value = getattr(config, key)
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            raise ConfigError(source, key, f"must be a finite number of seconds, got {value!r}")
+        _seconds(source, key, getattr(config, key))
     if config.settle_seconds < 0 or config.settle_seconds > 3600:
         raise ConfigError(source, "settle_seconds", "must be between 0 and 3600 s")
     if config.max_wait_seconds < config.settle_seconds:

@@ -63,7 +63,7 @@ def copy_ledger(source: str | Path, target: str | Path, instrument: str) -> Copy
     source_name, target_name = ledger.describe_ledger(source), ledger.describe_ledger(target)
     if not is_server_url(source) and not ledger.ledger_path(source).exists():
         raise LedgerError(f"{source_name}: no ledger there to copy")
-    if ledger.describe_ledger(source) == ledger.describe_ledger(target):
+    if source_name == target_name:
         raise LedgerError(f"{source_name}: copying a ledger into itself")
     src = ledger.open_ledger(source, read_only=True)
     try:

@@ -225,9 +225,7 @@ def problem(where: str, error: BaseException) -> LedgerError:
         return LedgerRefused(f"ledger {where}: {text}")
     if isinstance(error, (errors.UndefinedTable, errors.InvalidCatalogName)):
         return LedgerError(f"ledger {where}: {text} (not a bandwatch ledger, or not migrated: `bandwatch ledger migrate`)")
-    if isinstance(error, (psycopg.OperationalError, psycopg.InterfaceError)) and not isinstance(
-        error, (errors.InsufficientPrivilege,)
-    ):
+    if isinstance(error, (psycopg.OperationalError, psycopg.InterfaceError)):
         if "password authentication failed" in text or "no password supplied" in text:
             return LedgerRefused(
                 f"ledger {where}: {text} (give the password in PGPASSWORD or the password file ~/.pgpass, never in the URL)"
@@ -399,11 +397,6 @@ def migrate(conn: PostgresConnection, target: int, migrations: Sequence[PgMigrat
         conn.execute("ROLLBACK")
         raise
     return found
-
-
-def path_lock_key(text: str) -> int:
-    """A signed 64-bit advisory-lock key for a text (instrument and path, say)."""
-    return int.from_bytes(hashlib.sha256(text.encode("utf-8", "surrogateescape")).digest()[:8], "big", signed=True)
 
 
 class ChangeListener:

@@ -39,11 +39,6 @@ class RedoRequest:
     max_shift_cm1: float | None = None
     temperature_K: float | None = None
 
-    def applied_to(self, settings: ProcessSettings) -> ProcessSettings:
-        """`settings` with the requested changes."""
-        changes = {f.name: getattr(self, f.name) for f in fields(self) if getattr(self, f.name) is not None}
-        return replace(settings, **changes)
-
     def to_dict(self) -> dict[str, Any]:
         """The request as stored with the new run (`settings`): the fields asked for."""
         out: dict[str, Any] = {}
@@ -105,8 +100,9 @@ def _offset(item: Any) -> JOffset:
 
 
 def redo_settings(base: ProcessSettings, request: RedoRequest) -> ProcessSettings:
-    """The settings of a redo: the station's, changed as requested."""
-    return request.applied_to(base)
+    """The settings of a redo: the station's, changed as requested (the fields asked for)."""
+    changes = {f.name: getattr(request, f.name) for f in fields(request) if getattr(request, f.name) is not None}
+    return replace(base, **changes)
 
 
 def record_redo(

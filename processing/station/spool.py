@@ -127,7 +127,7 @@ class Spool:
             )
             if claim_id is not None:
                 self.conn.execute("DELETE FROM claims WHERE claim_id = ?", (claim_id,))
-            self._remember(path, fields.get("sha256"), fields.get("size_bytes"), fields.get("mtime_ns"), None)
+            self.remember(path, fields.get("sha256"), fields.get("size_bytes"), fields.get("mtime_ns"), None)
             self.conn.execute("COMMIT")
         except BaseException:
             self.conn.execute("ROLLBACK")
@@ -150,7 +150,7 @@ class Spool:
         try:
             self.conn.execute("DELETE FROM outcomes WHERE seq = ?", (outcome.seq,))
             fields = outcome.fields
-            self._remember(outcome.path, fields.get("sha256"), fields.get("size_bytes"), fields.get("mtime_ns"), run_id)
+            self.remember(outcome.path, fields.get("sha256"), fields.get("size_bytes"), fields.get("mtime_ns"), run_id)
             self.conn.execute("COMMIT")
         except BaseException:
             self.conn.execute("ROLLBACK")
@@ -159,9 +159,7 @@ class Spool:
     # -------------------------------------------------------------- what this instrument has
 
     def remember(self, path: str, sha256: str | None, size_bytes: int | None, mtime_ns: int | None, run_id: int | None) -> None:
-        self._remember(path, sha256, size_bytes, mtime_ns, run_id)
-
-    def _remember(self, path: str, sha256: str | None, size_bytes: int | None, mtime_ns: int | None, run_id: int | None) -> None:
+        """What this instrument has of `path` (the caller holds the transaction, or none is needed)."""
         self.conn.execute(
             "INSERT INTO known (path, sha256, size_bytes, mtime_ns, run_id) VALUES (?, ?, ?, ?, ?)"
             " ON CONFLICT (path) DO UPDATE SET sha256 = excluded.sha256, size_bytes = excluded.size_bytes,"
@@ -179,7 +177,7 @@ class Spool:
                 if path in waiting:
                     continue
                 size, mtime = stat_by_path.get(path, (None, None))
-                self._remember(path, sha, size, mtime, None)
+                self.remember(path, sha, size, mtime, None)
             self.conn.execute("COMMIT")
         except BaseException:
             self.conn.execute("ROLLBACK")

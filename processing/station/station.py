@@ -128,17 +128,12 @@ class Station:
         watch, catch up. A data folder or ledger that cannot be used raises one clear error."""
         self._take_lock()
         try:
-            self._open_checked_ledger()
+            self.store.open()  # refuses a damaged ledger; drops claims a stopped station left
             self._start_threads()
         except BaseException:
             self._stop_threads()
             self._release_lock()
             raise
-
-    def _open_checked_ledger(self) -> None:
-        """Open the ledger, refuse a damaged one, and drop claims left by a stopped station
-        (not in `runs`, so the catch-up redoes them)."""
-        self.store.open()
 
     def _start_threads(self) -> None:
         self.pool = WorkerPool(
@@ -368,17 +363,10 @@ class Station:
         )
         self.observer_kind += ", top folder only"
 
-    def _conn(self) -> ledger.Connection:
-        return self.store.conn()
-
-    def _drop_conn(self) -> None:
-        """Forget this thread's connection after a failure (the next use opens a fresh one)."""
-        self.store.drop_conn()
-
     def _ledger_failed(self, key: str, what: str, error: BaseException, backoff: Backoff) -> None:
         """A ledger action failed for a passing reason: say so now and then, try again later.
         `key` is the file concerned (or CATCH_UP_KEY)."""
-        self._drop_conn()
+        self.store.drop_conn()  # the next use opens a fresh connection
         if backoff.worth_saying:
             self._emit(StationProblem(
                 f"could not {what}: {describe(error, self.store.where)}; "
@@ -659,7 +647,7 @@ class Station:
     def _record_redo(self, outcome: JobOutcome, info: _InFlight) -> None:
         """A reprocessed run: a new version with the request stored beside it."""
         assert info.reprocess_of is not None and info.answer is not None and info.requested is not None
-        conn = self._conn()
+        conn = self.store.conn()
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
             record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason, provenance=info.provenance)

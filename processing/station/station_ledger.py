@@ -32,7 +32,7 @@ from processing.station.events import (
     StationProblem,
 )
 from processing.station.ledger import Claim, LedgerError, LedgerUnavailable, RunRecord
-from processing.station.spool import Spool, SpooledOutcome
+from processing.station.spool import Spool, SpooledOutcome, spool_path
 
 Emit = Callable[[StationEvent], None]
 # the station's announcement of a run recorded from the spool: (record, result, result JSON)
@@ -199,7 +199,7 @@ class ServerLedger(FileLedger):
             self._replayer.join(timeout=30)
         if self._waiting:
             self.emit(StationProblem(
-                f"{self._waiting} outcome(s) wait in the local spool ({self.spool().path}); "
+                f"{self._waiting} outcome(s) wait in the local spool ({spool_path(self.data_dir)}); "
                 "they are recorded when the ledger server answers (the next start tries again)"
             ))
 

@@ -23,18 +23,18 @@ async def quiet(pilot: Any) -> None:
     Workers start other workers through messages (runs -> detail and spectrum), so a fixed
     number of pauses is not enough on a loaded machine.
     """
-    from tui.screens.main_screen import MainScreen
+    from tui.screens.main_screen import LEDGER_FEED_GROUP, MainScreen
     from tui.widgets.run_tables import RunList
     from tui.widgets.spectrum_plot import SpectrumPlot
 
     app = pilot.app
     for _ in range(1000):
         # the ledger feed follows the ledger for as long as the screen is there: never "complete"
-        finite = [worker for worker in app.workers if worker.group != "ledger-feed"]
+        finite = [worker for worker in app.workers if worker.group != LEDGER_FEED_GROUP]
         if finite:  # (an empty list would mean "every worker" to Textual)
             await app.workers.wait_for_complete(finite)
         await pilot.pause(0.01)
-        if any(worker.is_running for worker in app.workers if worker.group != "ledger-feed"):
+        if any(worker.is_running for worker in app.workers if worker.group != LEDGER_FEED_GROUP):
             continue
         main = next((s for s in app.screen_stack if isinstance(s, MainScreen)), None)
         if main is None or not main.runs:

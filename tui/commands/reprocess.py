@@ -93,12 +93,9 @@ def run(args: argparse.Namespace) -> int:
                 yield from LedgerSelection(query).candidates(conn)
 
         def count(done: threading.Event) -> int:
-            total = 0
-            if paths is not None:
-                for _ in paths.candidates():
-                    total += 1
-                    if done.is_set():
-                        return total
+            total = paths.count(done) if paths is not None else 0
+            if paths is not None and done.is_set():
+                return total
             if query is not None:
                 counter = ledger.open_ledger(where, read_only=True)
                 try:

@@ -12,14 +12,14 @@ from textual.screen import Screen
 from textual.widgets import DataTable, Footer, OptionList, Static
 from textual.widgets.option_list import Option
 
-from processing.local_time import zone_name
+from processing.local_time import clock, zone_name
 from processing.results import RunResult
 from processing.safe_text import safe_text
 from processing.station.ledger import TrendPoint
 from tui import bindings
 from tui.messages import HistoryLoaded
 from tui.widgets.cells import decimals_for, number, plain
-from tui.widgets.run_tables import BAND_ROWS, CONSTANT_ROWS, clock_time
+from tui.widgets.run_tables import BAND_ROWS, CONSTANT_ROWS
 from tui.widgets.trend_plot import TrendPlot, TrendRun
 
 
@@ -199,7 +199,7 @@ class HistoryScreen(Screen[None]):
         places = decimals_for(min(sigmas) if sigmas else None, default=5)
         for point in points:
             cells = [
-                plain(clock_time(point.processed_at)),
+                plain(clock(point.processed_at)),
                 Text(str(point.run_id), justify="right"),
                 number(point.value, places),
                 number(point.sigma, places) if point.sigma is not None else Text("n/d", justify="right", style="dim"),

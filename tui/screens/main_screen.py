@@ -63,14 +63,8 @@ CHANGES_RUN_LIST = (
     *STARTS_WORK, RunProcessed, RunFailed, FileVanished, FileUnchanged, StationProblem, RunSpooled, LedgerOnline,
 )
 LEDGER_POLL_SECONDS = 0.5  # decisions made elsewhere (another operator, the command line) show within a second
+LEDGER_FEED_GROUP = "ledger-feed"  # the worker that follows the ledger for as long as the screen is there
 PANES = ("runs", "tab-plot", "tab-lines", "tab-constants", "tab-checks")  # the order `tab` goes through
-
-
-def short_error(run: RunRecord | None) -> str | None:
-    """The run's error without the file's path in front (the path is in the run list)."""
-    if run is None or not run.error:
-        return None
-    return short_reason(run)
 
 
 def decision_words(event: DecisionEvent) -> str:
@@ -112,7 +106,6 @@ class MainScreen(Screen[None]):
         self.view_window: tuple[float, float] | None = None  # the plot's zoom, kept across runs
         self.busy_paths: list[str] = []
         self.waiting: dict[str, str] = {}  # path -> why the station waits for the rest of it
-        self.ledger_cursor: int | None = None  # the ledger's change feed, read up to here
         self.spectrum_waiting: SpectrumLoaded | None = None  # read before the run's lines arrived
         self.problems: dict[str, str] = {}  # path -> what the station said when it could not record it
         self.selected_run_id: int | None = None
@@ -221,7 +214,7 @@ class MainScreen(Screen[None]):
             conn.close()
         self.post_message(RunsLoaded(runs, names))
 
-    @work(thread=True, exclusive=True, group="ledger-feed", exit_on_error=False)
+    @work(thread=True, exclusive=True, group=LEDGER_FEED_GROUP, exit_on_error=False)
     def follow_ledger(self) -> None:
         """Follow the ledger's change journal (`change_feed.ChangeFeed`) for as long as the
         screen is there: decisions and new versions from any source (the station, another
@@ -243,7 +236,7 @@ class MainScreen(Screen[None]):
                     except LedgerError:
                         time.sleep(LEDGER_POLL_SECONDS)
                         continue
-                    self.post_message(LedgerChanged(feed.cursor, [], first=not started_before))
+                    self.post_message(LedgerChanged([], first=not started_before))
                     started_before = True
                     continue
                 try:
@@ -253,7 +246,7 @@ class MainScreen(Screen[None]):
                     feed = None
                     continue
                 if changed:
-                    self.post_message(LedgerChanged(feed.cursor, changed))
+                    self.post_message(LedgerChanged(changed))
         finally:
             if feed is not None:
                 feed.close()
@@ -351,7 +344,6 @@ class MainScreen(Screen[None]):
     @on(LedgerChanged)
     def ledger_changed(self, message: LedgerChanged) -> None:
         """Runs changed elsewhere: the list again, and the selected run's detail if it changed."""
-        self.ledger_cursor = message.cursor
         if message.first:
             return
         self.load_runs()
@@ -387,8 +379,9 @@ class MainScreen(Screen[None]):
         self.load_detail(run.run_id)
         self.load_spectrum(run)
 
-    def fill_details(self, run: RunRecord | None) -> None:
-        """Lines, constants and checks of `run` (None: empty panes)."""
+    def fill_details(self, run: RunRecord | None, regions: dict[str, tuple[float, float]] | None = None) -> None:
+        """Lines, constants and checks of `run` (None: empty panes); `regions`: its
+        `band_regions`, when the caller has them."""
         result = run.result if run is not None else None
         excluded = self.excluded.get(run.run_id, set()) if run is not None else set()
         by_operator = (run.settings or {}).get("excluded_positions_cm1") or () if run is not None else ()
@@ -396,9 +389,10 @@ class MainScreen(Screen[None]):
         lines.fill(result.lines if result else (), excluded, by_operator)
         self.query_one("#line-detail", Static).update(Text(lines.detail(lines.cursor_row)))
         constants = self.query_one(ConstantsTable)
-        constants.fill(result.bands if result else (), result.constants if result else (), band_regions(run))
+        constants.fill(result.bands if result else (), result.constants if result else (),
+                       band_regions(run) if regions is None else regions)
         self.query_one("#constant-detail", Static).update(Text(constants.details[0] if constants.details else ""))
-        self.query_one(ChecksTable).fill(result.checks if result else (), short_error(run))
+        self.query_one(ChecksTable).fill(result.checks if result else (), short_reason(run) if run is not None else None)
 
     @on(RunDetailLoaded)
     def show_detail(self, message: RunDetailLoaded) -> None:
@@ -408,10 +402,11 @@ class MainScreen(Screen[None]):
         if message.run.run_id in self.runs:  # the freshest record (a decision made meanwhile)
             self.runs[message.run.run_id] = message.run
             self.update_summary()
-        self.fill_details(message.run)
+        regions = band_regions(message.run)
+        self.fill_details(message.run, regions)
         plot = self.query_one(SpectrumPlot)
         plot.set_lines(self.plot_lines(message.run.run_id))
-        plot.bands = [(label, low, high) for label, (low, high) in band_regions(message.run).items()]
+        plot.bands = [(label, low, high) for label, (low, high) in regions.items()]
         waiting = self.spectrum_waiting
         if waiting is not None and waiting.run_id == message.run.run_id:
             self.draw_spectrum(waiting)

@@ -36,13 +36,9 @@ from tui.widgets.cells import (
     verdict_text,
 )
 from tui.widgets.fitted_table import Column, FittedTable
+from tui.widgets.spectrum_plot import band_view
 
 SELECTED_MARK = "▸"  # the selected run, marked by a sign as well as by the cursor's colour
-
-
-def clock_time(stamp: str | None) -> str:
-    """HH:MM:SS in the local zone (`TZ` honoured) from an ISO 8601 stamp as stored (UTC)."""
-    return clock(stamp)
 
 
 # whose run, when several instruments share the list (never left out before the decision)
@@ -110,7 +106,7 @@ class RunList(FittedTable):
         for run in runs:
             self.run_ids.append(run.run_id)
             rows.append((str(run.run_id), {
-                "time": Text(" " + clock_time(run.received_at)),
+                "time": Text(" " + clock(run.received_at)),
                 "instrument": plain(run.instrument) if run.instrument else Text(""),
                 "file": plain(run.name),
                 "version": Text(str(run.version), justify="right"),
@@ -440,8 +436,7 @@ class ConstantsTable(FittedTable):
         if self.regions and self.cursor_row < len(self.regions):
             region = self.regions[self.cursor_row]
             if region is not None:
-                low, high = region
-                self.post_message(ZoomRequested((low + high) / 2, (high - low) * 1.1 + 2.0))
+                self.post_message(ZoomRequested(*band_view(*region)))
 
 
 class ChecksTable(FittedTable):
@@ -455,20 +450,11 @@ class ChecksTable(FittedTable):
         Column("detail", "reason", 30, min_width=20, grow=True),
     )
 
-    def __init__(self, **kwargs: Any) -> None:
-        super().__init__(**kwargs)
-        self.details: list[str] = []
-        self._checks: tuple[Sequence[Check], str | None] = ((), None)
-
     def fill(self, checks: Sequence[Check], error: str | None = None) -> None:
-        self._checks = (checks, error)
-        self.details = []
         rows: list[tuple[str, dict[str, Text]]] = []
         if error:
-            self.details.append(f"file: {error}")
             rows.append(("file", {"status": check_text("fail"), "name": plain("file"), "detail": plain(error)}))
         for check in checks:
-            self.details.append(f"{check.name}: {check.detail}")
             rows.append((str(len(rows)), {"status": check_text(check.status), "name": plain(check.name),
                                           "detail": plain(check.detail)}))
         if not rows:

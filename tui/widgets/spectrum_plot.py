@@ -248,6 +248,11 @@ def draw_spectrum(
     return out[:height] if height > 0 else out
 
 
+def band_view(low: float, high: float) -> tuple[float, float]:
+    """(centre, span) in cm-1 that shows a band's lines from `low` to `high` with a margin."""
+    return (low + high) / 2, (high - low) * 1.1 + 2.0
+
+
 class SpectrumPlot(Widget, can_focus=True):
     """The selected run's spectrum, zoomable and pannable by keys."""
 
@@ -347,7 +352,7 @@ class SpectrumPlot(Widget, can_focus=True):
             self.notify("whole spectrum", timeout=1.5)
             return
         label, low, high = self.bands[self._band_index]
-        self.zoom_to((low + high) / 2, (high - low) * 1.1 + 2.0)
+        self.zoom_to(*band_view(low, high))
         self.notify(escape(safe_text(label)), timeout=1.5)
 
     def action_zoom(self, factor: float) -> None:
