@@ -755,7 +755,7 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Library) ->
 # ------------------------------------------------------------------------------- main entry
 def _likely_cause(
     lines: LineTable, i: int, first_fit_regions: list[tuple[float, float]], refused: dict[int, float],
-    interferent_regions: tuple[InterferentRegion, ...] = (),
+    interferent_region: Callable[[float], InterferentRegion | None] | None = None,
 ) -> str:
     if i in refused:
         return f"{refused[i]:.0f}x taller than its band's intensity pattern allows (another absorber or noise on a predicted line)"
@@ -763,7 +763,7 @@ def _likely_cause(
         return "ringing beside a strong line"
     x = lines.position_cm1[i]
     # where atmospheric absorbers left in the beam put their lines (the library's regions)
-    region = next((r for r in interferent_regions if r.holds(x)), None)
+    region = interferent_region(x) if interferent_region is not None else None
     if region is not None and not any(a <= x <= b for a, b in first_fit_regions):
         return f"interferent ({region.description})"
     if lines.snr[i] < 8.0:
@@ -951,7 +951,7 @@ def _assign_at(
                         del assignment[line]
         notes.append(f"{iso} {v_upper}-{v_lower} {branch_name} branch: J'' shifted by {offset:+d} on request")
 
-    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused, library.interferent_regions, excluded)
+    result = _finish(lines, assignment, blended, shifts, notes, measure_doublet, refused, library.interferent_region, excluded)
     if settings.species:
         found_molecules = {library.isotopologue(label).molecule for label in result.species_found if label in {i.label for i in library.isotopologues()}}
         missing = sorted({iso.molecule for iso in library.resolve(settings.species)} - found_molecules)
@@ -979,7 +979,7 @@ def _finish(
     notes: list[str],
     measure_doublet: DoubletMeasure | None = None,
     refused: dict[int, float] | None = None,
-    interferent_regions: tuple[InterferentRegion, ...] = (),
+    interferent_region: Callable[[float], InterferentRegion | None] | None = None,
     excluded: np.ndarray | None = None,
 ) -> AssignmentResult:
     """Final fit per band, per-line results with confidence, likely causes for the rest (a
@@ -1054,7 +1054,7 @@ def _finish(
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
     causes = tuple(
         None if per_line[i] is not None
-        else EXCLUDED_CAUSE if excluded[i] else _likely_cause(lines, i, fitted_regions, refused, interferent_regions)
+        else EXCLUDED_CAUSE if excluded[i] else _likely_cause(lines, i, fitted_regions, refused, interferent_region)
         for i in range(lines.count)
     )
     species = tuple(sorted({f.isotopologue for f in fits}))

@@ -15,24 +15,18 @@ too (`processing.noise`).
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from processing.fringes import FringeModel, find_fringes
 from processing.noise import NoiseEstimate, clipped_sigma, estimate_noise, lagged_sigma, quantization_step
+from processing.results import SaturatedRegion  # reason: "transmittance <= 0", "above usable absorbance", "flat top"
 from processing.spectrum import Spectrum
 
 # Absorbance above which a line top is no longer usable for intensities: T < ~3% (common practice).
 DEFAULT_USABLE_ABSORBANCE = 1.5
-
-
-@dataclass(frozen=True)
-class SaturatedRegion:
-    first_cm1: float
-    last_cm1: float
-    peak_absorbance: float
-    reason: str  # "transmittance <= 0", "above usable absorbance", "flat top"
 
 
 @dataclass(frozen=True)
@@ -47,6 +41,11 @@ class BaselineResult:
     usable_absorbance: float
     noise: NoiseEstimate | None = None  # correlation, rounding grid, measurability
     fringes: FringeModel | None = None  # window fringes found and taken out with the baseline
+
+    @property
+    def noise_transmittance(self) -> float:
+        """The per-point noise as transmittance depth near the baseline (ln 10 x sigma_A)."""
+        return math.log(10.0) * self.noise_sigma
 
 
 def original_values(spectrum: Spectrum, index: np.ndarray) -> np.ndarray:

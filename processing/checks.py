@@ -151,7 +151,7 @@ def check_saturation(analysis: Analysis, intensities: IntensityResult | None, t:
 def check_band_lines(analysis: Analysis, t: CheckThresholds) -> Check:
     bands = analysis.assignment.bands
     if not bands:
-        contours = getattr(analysis, "contours", ())
+        contours = analysis.contours
         why = f" line by line ({', '.join(c.label for c in contours)} only as unresolved contours: see resolution)" if contours else ""
         return Check("assigned_lines", "fail", f"no band could be assigned{why}", 0.0)
     fewest = min(bands, key=lambda b: b.n_lines)
@@ -279,7 +279,9 @@ def calibration_fit(analysis: Analysis) -> CalibrationFit | None:
     )
 
 
-def check_interferents(analysis: Analysis, library: Library, t: CheckThresholds, axis_inverted: bool = False) -> Check:
+def check_interferents(
+    analysis: Analysis, library: Library, t: CheckThresholds, axis_inverted: bool = False, negative_lines: int | None = None
+) -> Check:
     """Unassigned lines the assignment put down to an atmospheric absorber (the library's
     interferent regions), counted per absorber, and dips below the baseline."""
     per_absorber = {region.absorber: 0 for region in library.interferent_regions}
@@ -288,7 +290,7 @@ def check_interferents(analysis: Analysis, library: Library, t: CheckThresholds,
         if region is not None:
             per_absorber[region.absorber] += 1
     # dips are the spectrum itself when its axis is inverted: no purge to blame
-    negative = 0 if axis_inverted else _negative_lines(analysis)
+    negative = 0 if axis_inverted else (_negative_lines(analysis) if negative_lines is None else negative_lines)
     problems = [f"{count} unassigned lines in {absorber} regions" for absorber, count in per_absorber.items()
                 if count >= t.interferent_lines_warn]
     if negative >= t.negative_lines_warn:
@@ -317,7 +319,7 @@ def check_resolution(analysis: Analysis) -> Check:
     """Can the resolution split the lines of the bands present? A band seen only as its P/R
     contour cannot be measured line by line: said so with its line spacing and the resolution,
     and B'' given from the contour fit instead."""
-    contours = getattr(analysis, "contours", ())
+    contours = analysis.contours
     if contours:
         first = contours[0]
         stated = analysis.data.meta.resolution_cm1
@@ -336,7 +338,7 @@ def check_resolution(analysis: Analysis) -> Check:
     return Check("resolution", "pass", f"lines at least {closest:.2f} cm-1 apart near the band centres, line width {width:.3f} cm-1", width)
 
 
-def check_y_axis(analysis: Analysis) -> Check:
+def check_y_axis(analysis: Analysis, negative_lines: int | None = None) -> Check:
     """Does the y axis hold what its label says? Absorption lines rise above a baseline near
     zero absorbance. Values near 100 labelled absorbance are %T; a baseline near 1 with the
     features dipping below it is transmittance written as absorbance; features dipping below a
@@ -348,7 +350,7 @@ def check_y_axis(analysis: Analysis) -> Check:
     kind = analysis.data.original_y_kind
     lines = analysis.lines
     positive = int(np.sum((lines.snr >= 8.0) & ~lines.ringing)) if lines.count else 0
-    negative = _negative_lines(analysis)
+    negative = _negative_lines(analysis) if negative_lines is None else negative_lines
     dips = negative >= 5 and negative > 2 * positive
     if kind == "absorbance" and offset > 20.0:
         return Check("y_axis", "fail", f"absorbance baseline at {offset:.1f}: looks like %T written as absorbance", offset)
@@ -451,7 +453,8 @@ def check_baseline(analysis: Analysis, t: CheckThresholds) -> Check:
 
 
 def run_checks(analysis: Analysis, library: Library, intensities: IntensityResult | None, expected: tuple[str, ...], thresholds: CheckThresholds) -> list[Check]:
-    y_axis = check_y_axis(analysis)
+    negative = _negative_lines(analysis)  # one scan for dips below the baseline, two checks
+    y_axis = check_y_axis(analysis, negative)
     return [
         y_axis,
         check_signal_to_noise(analysis, thresholds),
@@ -459,7 +462,7 @@ def run_checks(analysis: Analysis, library: Library, intensities: IntensityResul
         check_band_lines(analysis, thresholds),
         check_fit_rms(analysis, thresholds),
         check_calibration(analysis, library, thresholds),
-        check_interferents(analysis, library, thresholds, axis_inverted=y_axis.status == "fail"),
+        check_interferents(analysis, library, thresholds, axis_inverted=y_axis.status == "fail", negative_lines=negative),
         check_isotopologues(analysis, library, intensities, expected, thresholds),
         check_temperature(intensities, thresholds),
         check_baseline(analysis, thresholds),

@@ -30,10 +30,11 @@ from processing.noise import NoiseEstimate, white_noise
 
 def blend_centre(
     wavenumber_cm1: np.ndarray, absorbance: np.ndarray, noise_sigma: float, width_cm1: float,
-    centre_guess: float, separation_cm1: float, ratio: float,
+    centre_guess: float, separation_cm1: float, ratio: float, spacing_cm1: float,
 ) -> tuple[float, float] | None:
     """(c, standard error) of the line at c from the centroid of the doublet's upper profile
-    (points above 20% of its top); None when the window holds too few points."""
+    (points above 20% of its top), the error at least 1% of the point spacing; None when the
+    window holds too few points."""
     low = min(centre_guess, centre_guess + separation_cm1) - width_cm1
     high = max(centre_guess, centre_guess + separation_cm1) + width_cm1
     lo, hi = np.searchsorted(wavenumber_cm1, low), np.searchsorted(wavenumber_cm1, high)
@@ -49,7 +50,7 @@ def blend_centre(
     share = ratio / (1.0 + ratio)
     # noise on each point moves the centroid by (x - centroid) sigma / total
     sigma = math.sqrt(float(np.sum((x - centroid) ** 2))) * noise_sigma / total
-    return centroid - share * separation_cm1, max(sigma, 0.01 * float(np.median(np.diff(wavenumber_cm1))))
+    return centroid - share * separation_cm1, max(sigma, 0.01 * spacing_cm1)
 
 
 @dataclass(frozen=True)
@@ -218,4 +219,5 @@ def measure_blended_line(spectrum, baseline, width_cm1: float, centre_guess: flo
     measured = measure_doublet(spectrum, baseline, width_cm1, centre_guess, separation_cm1, ratio)
     if measured is not None and abs(measured[0] - centre_guess) < 0.5 * abs(separation_cm1):
         return measured
-    return blend_centre(spectrum.wavenumber_cm1, baseline.corrected, baseline.noise_sigma, width_cm1, centre_guess, separation_cm1, ratio)
+    return blend_centre(spectrum.wavenumber_cm1, baseline.corrected, baseline.noise_sigma, width_cm1, centre_guess,
+                        separation_cm1, ratio, spectrum.spacing_cm1)

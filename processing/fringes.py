@@ -54,7 +54,7 @@ def _binned(residual: np.ndarray, free: np.ndarray, spacing: float) -> tuple[np.
     return np.where(filled, sums / np.maximum(counts, 1), 0.0), filled, spacing * factor
 
 
-def _strongest_period(x: np.ndarray, residual: np.ndarray, free: np.ndarray, spacing: float) -> tuple[float, float, float] | None:
+def _strongest_period(residual: np.ndarray, free: np.ndarray, spacing: float) -> tuple[float, float, float] | None:
     """(period, amplitude, contrast) of the largest periodic component of the free residual."""
     residual, free, spacing = _binned(residual, free, spacing)
     n = residual.size
@@ -107,7 +107,7 @@ def find_fringes(x: np.ndarray, residual: np.ndarray, free: np.ndarray, spacing:
     """The fringe in a baseline-corrected spectrum's line-free residual, or None (see module
     docstring). Its amplitude must also exceed the noise's share (3 sigma / sqrt(points per
     period), the size of a chance sinusoid at that period)."""
-    found = _strongest_period(x, residual, free, spacing)
+    found = _strongest_period(residual, free, spacing)
     if found is None:
         return None
     period, amplitude, contrast = found
@@ -118,7 +118,7 @@ def find_fringes(x: np.ndarray, residual: np.ndarray, free: np.ndarray, spacing:
     with_fringe = 0
     for lo, hi in zip(edges[:-1], edges[1:]):
         inside = slice(int(np.searchsorted(x, lo, "left")), int(np.searchsorted(x, hi, "right")))  # x ascends
-        segment = _strongest_period(x[inside], residual[inside], free[inside], spacing)
+        segment = _strongest_period(residual[inside], free[inside], spacing)
         if segment is not None and abs(segment[0] - period) < 0.05 * period and segment[2] > 0.5 * FRINGE_CONTRAST:
             with_fringe += 1
     if with_fringe < SEGMENTS_WITH_FRINGE:

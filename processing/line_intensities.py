@@ -98,7 +98,7 @@ def equivalent_widths(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
     widths = group_w[group] * share
     # noise: the group's, shared; at least that over the line's own +-2.5 widths
     spacing = spectrum.spacing_cm1
-    noise_t = math.log(10.0) * baseline.noise_sigma  # transmittance noise near the baseline
+    noise_t = baseline.noise_transmittance  # transmittance noise near the baseline
     noise = baseline.noise or white_noise(baseline.noise_sigma)
     lo = np.searchsorted(x, left)
     hi = np.searchsorted(x, right)

@@ -61,11 +61,6 @@ class LineShapeModel:
         _, f = _tabulated(self.window)
         return self.shape(offset_cm1) / (f[0] * self.opd_cm)
 
-    @property
-    def peak_per_width(self) -> float:
-        """ILS(0), 1/cm-1: a narrow line's peak depth per unit equivalent width."""
-        return float(_tabulated(self.window)[1][0] * self.opd_cm)
-
     @functools.cached_property
     def fwhm_cm1(self) -> float:
         s, f = _tabulated(self.window)

@@ -78,7 +78,6 @@ class _Solution:
     params: np.ndarray
     u: np.ndarray
     v_inverse: np.ndarray  # V diag(1/s) (dropped directions zero)
-    inverse: np.ndarray
     sqrt_w: np.ndarray
     scale: np.ndarray
 
@@ -105,7 +104,7 @@ def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
     inverse[keep] = 1.0 / singular[keep]
     v_inverse = vt.T * inverse
     params = (v_inverse @ (u.T @ (sqrt_w * y))) / scale
-    return _Solution(params, u, v_inverse, inverse, sqrt_w, scale)
+    return _Solution(params, u, v_inverse, sqrt_w, scale)
 
 
 def weighted_least_squares(

@@ -64,7 +64,6 @@ class LineTable:
     sigma_known: bool = True  # False for a line list: position_sigma_cm1 is only a weight
     few_points: np.ndarray | None = None  # profile drawn on < 4 points: conservative sigma
     line_shape: LineShapeModel | None = None  # the instrument line shape the ringing flags used
-    spacing_cm1: float = 0.0  # the spectrum's point spacing (0 for a line list)
     equivalent_width_estimate: np.ndarray | None = None  # T-depth x cm-1, from the main lobe
 
     def __post_init__(self) -> None:
@@ -387,7 +386,8 @@ def measure_lines(
     all_h = np.concatenate([h, np.array([s[2] for s in saturated_lines])]) if saturated_lines else h
     line_shape = line_shape_of(spectrum, baseline, all_c, all_w, all_h) if all_c.size >= 3 else None
     h, c, w, cov, rms, weight, wing_shift = _deblend_far_neighbours(
-        spectrum, baseline, x_win, y_win, half, h, c, w, cov, rms, weight, saturated_lines, noise, peaks, line_shape)
+        spectrum, baseline, x_win, y_win, half, h, c, w, cov, rms, weight, saturated_lines, noise, peaks, line_shape,
+        all_c, all_w, all_h)
     # how far taking the neighbours out moved each centre: the neighbours' drawn shapes are
     # good to DEBLEND_MODEL_ERROR of that, which the centre's uncertainty carries
     lone = _fit_gaussians(x_win, y_win, _core_weights(y_win, half), h, c, w)[1]
@@ -452,7 +452,6 @@ def measure_lines(
         few_points=few_points,
         line_shape=line_shape,
         equivalent_width_estimate=equivalent,
-        spacing_cm1=spacing,
     )
 
 
@@ -481,24 +480,22 @@ def _deblend_far_neighbours(
     spectrum: Spectrum, baseline: BaselineResult, x_win: np.ndarray, y_win: np.ndarray, half: int,
     h: np.ndarray, c: np.ndarray, w: np.ndarray, cov: np.ndarray, rms: np.ndarray, weight: np.ndarray,
     saturated_lines: list[tuple[float, float, float, float]], noise: NoiseEstimate, peaks: np.ndarray,
-    model: LineShapeModel | None,
+    model: LineShapeModel | None, centres: np.ndarray, widths: np.ndarray, heights: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """One more profile fit of every line with its neighbours taken out as the instrument line
     shape draws them (their wings and sidelobes, whose shape a Gaussian core does not follow:
     a line beside a 10x stronger one 2 widths away is otherwise pulled by ~0.1 of a width).
-    Neighbours whose main lobe reaches the window are taken out as Gaussians, as before."""
-    centres = np.concatenate([c, np.array([s[0] for s in saturated_lines])]) if saturated_lines else c
-    widths = np.concatenate([w, np.array([s[3] for s in saturated_lines])]) if saturated_lines else w
-    heights = np.concatenate([h, np.array([s[2] for s in saturated_lines])]) if saturated_lines else h
-    x = spectrum.wavenumber_cm1
-    top_depth = transmittance_depth(np.clip(heights, 0.0, None))
+    Neighbours whose main lobe reaches the window are taken out as Gaussians, as before.
+    `centres`, `widths`, `heights`: the fitted lines followed by the saturated ones."""
     if model is None or c.size < 2:
         return h, c, w, cov, rms, weight, np.zeros(c.size)
+    x = spectrum.wavenumber_cm1
+    top_depth = transmittance_depth(np.clip(heights, 0.0, None))
     equivalent = equivalent_width_estimates(x, baseline.corrected, centres, model, widths)
     saturated = np.concatenate([np.zeros(c.size, dtype=bool), np.ones(len(saturated_lines), dtype=bool)])
     # features that are other lines' lobes ring onto nothing and are no neighbours to take out
     lobe = explained_by_ringing(top_depth, predicted_ringing(centres, equivalent, model, centres, saturated),
-                                np.full(centres.size, math.log(10.0) * baseline.noise_sigma), 5.0)
+                                np.full(centres.size, baseline.noise_transmittance), 5.0)
     # a line much wider than the instrument's line shape (resolved: a black Doppler core at
     # high resolution) does not ring like a narrow one: it is left as it is
     resolved = widths > 1.3 * model.fwhm_cm1
@@ -585,7 +582,7 @@ def line_shape_of(spectrum: Spectrum, baseline: BaselineResult, centres: np.ndar
     the strongest lines plainly show another (`processing.line_shape.infer_line_shape`)."""
     top_depth = transmittance_depth(np.clip(heights, 0.0, None))
     stated = stated_line_shape(spectrum.meta.apodization, spectrum.meta.resolution_cm1)
-    return infer_line_shape(spectrum.wavenumber_cm1, baseline.corrected, centres, widths, top_depth, math.log(10.0) * baseline.noise_sigma, stated)
+    return infer_line_shape(spectrum.wavenumber_cm1, baseline.corrected, centres, widths, top_depth, baseline.noise_transmittance, stated)
 
 
 def ringing_flags(
@@ -598,7 +595,7 @@ def ringing_flags(
     the window that best explains the strongest lines' profiles (`line_shape_of`) unless given."""
     flags = np.zeros(centres.size, dtype=bool)
     x = spectrum.wavenumber_cm1
-    noise_t = math.log(10.0) * baseline.noise_sigma
+    noise_t = baseline.noise_transmittance
     top_depth = transmittance_depth(np.clip(heights, 0.0, None))
     model = model or line_shape_of(spectrum, baseline, centres, widths, heights)
     if model is None or centres.size < 2:
@@ -625,7 +622,7 @@ def negative_features(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
     if lines.count and lines.line_shape is not None and lines.equivalent_width_estimate is not None:
         depth = transmittance_depth(baseline.corrected[peaks])  # negative
         lobes = predicted_ringing(lines.position_cm1, lines.equivalent_width_estimate, lines.line_shape, positions, lines.saturated)
-        noise_t = np.full(peaks.size, math.log(10.0) * baseline.noise_sigma)
+        noise_t = np.full(peaks.size, baseline.noise_transmittance)
         return positions[~explained_by_ringing(depth, lobes, noise_t, NEGATIVE_THRESHOLD_SIGMA)]
     strong = lines.position_cm1[lines.height > 20 * inverted[peaks].max()] if lines.count else np.zeros(0)
     width = lines.typical_width_cm1 or 1.0

@@ -28,7 +28,6 @@ from processing.results import (
     Intensities,
     Line,
     RunResult,
-    SaturatedRegion,
     SpectrumSummary,
 )
 from processing.spectrum import LineList, Spectrum
@@ -286,7 +285,7 @@ def _baseline(baseline: BaselineResult) -> BaselineSummary:
         tilt_per_1000_cm1=baseline.tilt_per_1000_cm1,
         line_free_fraction=float(baseline.line_free.mean()),
         usable_absorbance=baseline.usable_absorbance,
-        saturated_regions=tuple(SaturatedRegion(r.first_cm1, r.last_cm1, r.peak_absorbance, r.reason) for r in baseline.saturated_regions),
+        saturated_regions=baseline.saturated_regions,
     )
 
 
