@@ -163,11 +163,12 @@ class BandwatchApp(App[int]):
         from processing.errors import BandwatchError
         from processing.station.reports import FIGURE_NAME, export_run_report, write_run_figure
 
-        folder, problem = export_run_report(self.data_dir, run_id)
+        folder, problem = export_run_report(self.data_dir, run_id, self.ledger_location)
         if folder is None:
             return folder, problem, None
         try:
-            figure = str(write_run_figure(self.data_dir, run_id, Path(folder) / FIGURE_NAME, self.export_dir))
+            figure = str(write_run_figure(self.data_dir, run_id, Path(folder) / FIGURE_NAME, self.export_dir,
+                                          self.ledger_location))
         except BandwatchError as error:
             figure = f"figure not drawn: {error}"
         except OSError as error:

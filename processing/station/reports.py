@@ -64,14 +64,16 @@ def write_reports(
     return folder
 
 
-def export_run_report(data_dir: str | Path, run_id: int) -> tuple[str | None, str | None]:
+def export_run_report(data_dir: str | Path, run_id: int,
+                      ledger_at: str | Path | None = None) -> tuple[str | None, str | None]:
     """(folder, None) after writing a run's reports under DATA/reports/ (never the export
     folder), or (None, problem). The station's report files are written again, and report.txt
-    beside them adds the decision trail as it stands now."""
+    beside them adds the decision trail as it stands now. `ledger_at`: where the ledger is (a
+    server's URL), when not in `data_dir`."""
     from processing.result_text import run_report
     from processing.station.ledger import decision_history, get_run, open_ledger
 
-    conn = open_ledger(data_dir)
+    conn = open_ledger(data_dir if ledger_at is None else ledger_at)
     try:
         run = get_run(conn, run_id)
         if run is None:
@@ -91,18 +93,19 @@ def export_run_report(data_dir: str | Path, run_id: int) -> tuple[str | None, st
 
 
 def write_run_figure(data_dir: str | Path, run_id: int, target: str | Path,
-                     export_folder: str | Path | None = None) -> Path:
+                     export_folder: str | Path | None = None, ledger_at: str | Path | None = None) -> Path:
     """Write run `run_id`'s figure (`processing.figures`) to `target` (.svg or .png): its
     spectrum as analysed with the assignment markers, the residuals of each band, and its
-    main band's origin over the ledger's runs. Never into the export folder (the run's file's
-    folder, or `export_folder`). Raises BandwatchError (FiguresUnavailable without matplotlib)."""
+    main band's origin over the ledger's runs (`ledger_at`, else the one in `data_dir`).
+    Never into the export folder (the run's file's folder, or `export_folder`). Raises
+    BandwatchError (FiguresUnavailable without matplotlib)."""
     from processing.errors import BandwatchError
     from processing.figures import FigureInput, TrendValue, figure_format, figure_title, write_figure
     from processing.station.ledger import get_run, open_ledger, trend
     from processing.station.run_spectrum import read_run_spectrum
 
     figure_format(target)  # a wrong extension is said before anything is read
-    conn = open_ledger(data_dir)
+    conn = open_ledger(data_dir if ledger_at is None else ledger_at)
     try:
         run = get_run(conn, run_id)
         if run is None:

@@ -6,6 +6,8 @@ import io
 import json
 from pathlib import Path
 
+import pytest
+
 from station_files import spectrum_csv, write_file
 
 from processing.pipeline import process_file
@@ -61,3 +63,23 @@ def test_reports_of_a_real_run_are_written_in_the_data_folder(tmp_path: Path) ->
     assert len(rows) == len(result.lines) >= 1
     assert "sample.csv" in (folder / "summary.md").read_text()
     assert sorted(p.name for p in (tmp_path / "export").iterdir()) == ["sample.csv"]
+
+
+def test_report_reads_the_run_from_the_ledger_where_the_station_keeps_it(
+    tmp_path: Path, ledger_at: str | Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """`bandwatch report RUN --ledger URL`: the run comes from that ledger (a server), the files
+    go to the data folder; on the file the data folder's ledger is used."""
+    from processing.station import ledger
+    from tui.cli import main
+
+    monkeypatch.setenv("BANDWATCH_CONFIG", str(tmp_path / "none.toml"))
+    data = tmp_path / "data"
+    conn = ledger.open_ledger(ledger_at)
+    run = ledger.record_run(conn, "/exp/run 7.csv", "ab" * 32, "processed", result=_result(), instrument="ftir-1")
+    conn.close()
+    where = [] if isinstance(ledger_at, Path) else ["--ledger", str(ledger_at)]
+    assert main(["report", str(run.run_id), "--data", str(data), *where]) == 0
+    folder = report_folder(data, run.run_id, "/exp/run 7.csv")
+    assert capsys.readouterr().out.strip() == f"report written: {folder}"
+    assert "H35Cl" in (folder / "report.txt").read_text() and (folder / "lines.csv").exists()

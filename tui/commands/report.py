@@ -23,11 +23,11 @@ def run(args: argparse.Namespace) -> int:
     from processing.station.config import station_config
     from processing.station.reports import export_run_report, write_run_figure
 
-    config = station_config(args.config, args.data)
+    config = station_config(args.config, args.data, args.ledger)
     data_dir = config.data_folder.expanduser()
     if args.figure is not None:
         figure_format(args.figure)  # a wrong extension is refused before anything is written
-    folder, problem = export_run_report(data_dir, args.run_id)
+    folder, problem = export_run_report(data_dir, args.run_id, config.ledger_location)
     if problem:
         print(f"bandwatch: {problem}", file=sys.stderr)
         return 1
@@ -35,7 +35,7 @@ def run(args: argparse.Namespace) -> int:
     if args.figure is None:
         return 0
     try:
-        written = write_run_figure(data_dir, args.run_id, args.figure, config.export_folder)
+        written = write_run_figure(data_dir, args.run_id, args.figure, config.export_folder, config.ledger_location)
     except BandwatchError as error:
         print(f"bandwatch: figure not written: {error}", file=sys.stderr)
         return 1
