@@ -6,6 +6,9 @@ time: `10:15:00` under a header naming the zone, or `2026-03-05T10:15:00+01:00`.
 """
 from __future__ import annotations
 
+import re
+import time
+from collections.abc import Iterable
 from datetime import datetime, timezone
 
 
@@ -37,6 +40,75 @@ def local_iso(stamp: str | None) -> str:
     """`2026-03-05T10:15:00+01:00`: local time with its offset from UTC; "-" when none."""
     found = local(stamp)
     return found.isoformat(timespec="seconds") if found is not None else "-"
+
+
+# the parts of a stamp as the ledger writes it (UTC to the second or finer, `Z` or `+00:00`)
+_HOUR = re.compile(r"\d{4}-\d\d-\d\dT\d\d")
+_MINUTE_SECOND = re.compile(r":[0-5]\d:[0-5]\d")
+_FRACTION_ZONE = re.compile(r"(?:\.\d+)?(?:Z|\+00:00)")
+
+
+def local_iso_all(stamps: Iterable[str | None]) -> list[str]:
+    """`local_iso` of each stamp (a listing's 100,000 in a fraction of the time).
+
+    A zone's offset from UTC changes at most once in an hour, on a whole minute: it is looked
+    up once for each UTC hour the stamps fall in, at the hour's first and last second, and a
+    stamp of an hour with one offset is shifted as text. An hour with a change, an offset
+    with seconds, and a stamp in another form go through `local_iso` one by one. The parts of
+    the stamps repeat (hours, minutes and seconds, fractions): each is checked once."""
+    hours: dict[str, tuple[str, str, int, str] | None] = {}
+    checked: dict[str, bool] = {}
+    found = []
+    hour, shift = "", None
+    for stamp in stamps:
+        if stamp is None:
+            found.append("-")
+            continue
+        if not stamp.startswith(hour) or len(hour) != 13:  # the stamps come in order: mostly the same hour
+            hour = stamp[:13]
+            shift = hours[hour] if hour in hours else hours.setdefault(hour, _hour_shift(hour))
+        middle, tail = stamp[13:19], stamp[19:]
+        good = checked.get(middle)
+        if good is None:
+            good = checked[middle] = bool(_MINUTE_SECOND.fullmatch(middle))
+        fine = checked.get(tail)
+        if fine is None:
+            fine = checked[tail] = bool(_FRACTION_ZONE.fullmatch(tail))
+        if shift is None or not (good and fine):
+            found.append(local_iso(stamp))
+        elif not shift[2]:
+            found.append(shift[0] + middle + shift[3])
+        else:
+            this_hour, next_hour, minutes, offset = shift
+            minute = int(stamp[14:16]) + minutes
+            found.append(f"{this_hour}:{minute:02d}{stamp[16:19]}{offset}" if minute < 60
+                         else f"{next_hour}:{minute - 60:02d}{stamp[16:19]}{offset}")
+    return found
+
+
+def _hour_shift(hour: str) -> tuple[str, str, int, str] | None:
+    """For the UTC hour `YYYY-MM-DDTHH`: the local hour its minute 0 falls in and the next
+    (`YYYY-MM-DDTHH`), the minutes to add, and the offset text (`+01:00`); None when the
+    offset changes within the hour or is not whole minutes, or `hour` is not an hour."""
+    if not _HOUR.fullmatch(hour):
+        return None
+    try:
+        start = datetime.fromisoformat(hour + ":00:00+00:00").timestamp()
+    except ValueError:
+        return None
+    first, last = time.localtime(start), time.localtime(start + 3599)
+    offset = first.tm_gmtoff
+    if offset != last.tm_gmtoff or offset % 60:
+        return None
+    minutes = (offset // 60) % 60
+    this_hour = time.gmtime(start + offset - minutes * 60)  # local time is UTC + offset, all the hour
+    next_hour = time.gmtime(start + offset - minutes * 60 + 3600)
+    sign, size = ("-", -offset) if offset < 0 else ("+", offset)
+    return (_hour_text(this_hour), _hour_text(next_hour), minutes, f"{sign}{size // 3600:02d}:{size // 60 % 60:02d}")
+
+
+def _hour_text(moment: time.struct_time) -> str:
+    return time.strftime("%Y-%m-%dT%H", moment)
 
 
 def zone_name(stamp: str | None = None) -> str:

@@ -13,7 +13,6 @@ import io
 import json
 import math
 import textwrap
-from contextvars import ContextVar
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -21,6 +20,11 @@ from typing import TYPE_CHECKING
 from processing.estimate import Estimate, format_value_sigma
 from processing.results import MOLECULAR_CONSTANTS, Assignment, Band, Check, Comparison, IsotopologueConstants, Line, RunResult
 from processing.safe_text import safe_text
+from processing.text_table import GAP as GAP  # re-exported, as are the table functions
+from processing.text_table import REASON_SEPARATOR as REASON_SEPARATOR
+from processing.text_table import fitted_table as fitted_table
+from processing.text_table import reasons_line as reasons_line
+from processing.text_table import table, tables_fitted_to
 
 if TYPE_CHECKING:
     from processing.station.ledger import DecisionEvent, RunRecord
@@ -38,96 +42,6 @@ def assignment_label(assigned: Assignment | None, unassigned: str = "-") -> str:
 def branch_label(assigned: Assignment) -> str:
     """"R(3)": the branch and J'' of an assignment (a figure's marker beside its band's name)."""
     return f"{assigned.branch}({assigned.J_lower})"
-
-
-# The width the process tables are fitted to (None: as wide as they are); set by
-# `render_result(..., width=)` for the tables it writes.
-_TABLE_WIDTH: ContextVar[int | None] = ContextVar("table_width", default=None)
-GAP = "  "
-WRAP_AT_LEAST = 12  # a text column is wrapped no narrower than this
-
-
-def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int] | None = None) -> str:
-    """Columns padded to their widest cell; indices in `right` right-justified.
-
-    Fitted to the width `render_result` was given: text columns (left-justified, wider than
-    WRAP_AT_LEAST) are wrapped between words; a table still too wide is split into blocks of
-    columns, each repeating the first column, so no cell is ever cut or broken mid-word."""
-    right = right or set()
-    widths = [len(h) for h in headers]
-    for index, column in zip(range(len(widths)), zip(*rows)):  # column by column: 100,000 rows in a few ms
-        widths[index] = max(widths[index], max(map(len, column)))
-    limit = _TABLE_WIDTH.get()
-    if limit is None or _total(widths) <= limit:
-        return _block(headers, rows, right, widths)
-    last = len(headers) - 1
-    natural_last = widths[last]
-    if last > 0 and last not in right and widths[last] > WRAP_AT_LEAST:  # prose: a cause, a reason, a model
-        widths[last] = max(WRAP_AT_LEAST, len(headers[last]), widths[last] - (_total(widths) - limit))
-    if _total(widths) <= limit:
-        return _block(headers, rows, right, widths)
-    # each block repeats the leading column(s) that name a row: one, or two when one is not unique
-    keys = [0] if len({row[0] for row in rows}) == len(rows) or len(headers) < 3 else [0, 1]
-    blocks, current = [], list(keys)
-    for i in range(len(keys), len(headers)):
-        if _total([widths[j] for j in current + [i]]) > limit and len(current) > len(keys):
-            blocks.append(current)
-            current = list(keys)
-        current.append(i)
-    blocks.append(current)
-    if last in blocks[-1]:  # the prose column gets what its block leaves over
-        others = _total([widths[j] for j in blocks[-1] if j != last]) + len(GAP)
-        widths[last] = max(widths[last], min(natural_last, limit - others))
-    out = []
-    for number, block in enumerate(blocks):
-        # a block of the columns that did not fit lists only the rows with something in them
-        kept = [row for row in rows if number == 0 or any(row[j] for j in block[len(keys):])]
-        if kept or number == 0:
-            out.append(_block([headers[j] for j in block], [[row[j] for j in block] for row in kept],
-                              {k for k, j in enumerate(block) if j in right}, [widths[j] for j in block]))
-    return "\n\n".join(out)
-
-
-def fitted_table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int] | None = None,
-                 width: int | None = None) -> str:
-    """`table` fitted to `width` (a terminal's; None: as wide as it is)."""
-    token = _TABLE_WIDTH.set(width)
-    try:
-        return table(headers, rows, right)
-    finally:
-        _TABLE_WIDTH.reset(token)
-
-
-def _total(widths: Sequence[int]) -> int:
-    return sum(widths) + len(GAP) * (len(widths) - 1)
-
-
-def _block(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int], widths: Sequence[int]) -> str:
-    """One table at these column widths; a cell longer than its column wraps onto more lines."""
-
-    def fmt(cells: Sequence[str]) -> list[str]:
-        pieces = [textwrap.wrap(cell, w, break_on_hyphens=False) or [""] if len(cell) > w else [cell]
-                  for cell, w in zip(cells, widths)]
-        lines = []
-        for depth in range(max(len(p) for p in pieces)):
-            parts = [p[depth] if depth < len(p) else "" for p in pieces]
-            lines.append(GAP.join(
-                part.rjust(w) if i in right else part.ljust(w) for i, (part, w) in enumerate(zip(parts, widths))
-            ).rstrip())
-        return lines
-
-    lines = fmt(headers) + fmt(["-" * w for w in widths])
-    # A row whose cells all fit is one line: one format call. A longer cell makes the line
-    # longer than the widths add up to, and that row goes through `fmt` (wrapping).
-    template = GAP.join(("{:>%d}" if i in right else "{:<%d}") % w for i, w in enumerate(widths))
-    one_line = _total(widths)
-    for row in rows:
-        line = template.format(*row)
-        if len(line) == one_line:
-            lines.append(line.rstrip())
-        else:
-            lines += fmt(row)
-    return "\n".join(lines)
 
 
 def _q(estimate: Estimate | None) -> str:
@@ -191,7 +105,6 @@ CHECK_SHORT_NAMES = {
     "fit_rms": "fit rms",
     "y_axis": "y axis",
 }
-REASON_SEPARATOR = " · "
 BRIEF_LENGTH = 40  # a brief longer than this is a sentence, not a glance
 
 
@@ -261,11 +174,6 @@ def main_reasons(result: RunResult | None, limit: int = 2) -> tuple[str, ...]:
         shown = ", ".join(not_assessed[:3]) + (f" +{len(not_assessed) - 3}" if len(not_assessed) > 3 else "")
         out.append(f"n/a: {shown}")
     return tuple(safe_text(text) for text in out)
-
-
-def reasons_line(reasons: Sequence[str]) -> str:
-    """`calibration +0.24 cm-1 · fringes 0.004 A`."""
-    return REASON_SEPARATOR.join(reasons)
 
 
 def molecules_text(labels: Sequence[str]) -> str:
@@ -517,11 +425,8 @@ def render_result(result: RunResult, width: int | None = None) -> str:
     """The aligned tables of one run; every line made safe for a terminal (file names, titles
     and notes come from the file). With `width` (a terminal's), tables are fitted to it (see
     `table`) and sentences wrapped between words."""
-    token = _TABLE_WIDTH.set(width)
-    try:
+    with tables_fitted_to(width):
         lines = [safe_text(line) for line in "\n".join(_result_lines(result)).split("\n")]
-    finally:
-        _TABLE_WIDTH.reset(token)
     if width is None:
         return "\n".join(lines)
     out = []

@@ -10,6 +10,7 @@ plain characters. It is used wherever such text is printed, logged or stored as 
 from __future__ import annotations
 
 import re
+from collections.abc import Iterable
 
 # Control characters, separators that end a line, bidirectional controls and the lone
 # surrogates Python uses for undecodable bytes (os.fsdecode's surrogateescape).
@@ -39,3 +40,13 @@ def safe_text(text: object) -> str:
         return value
     return _UNSAFE.sub(_escape, value)
 
+
+
+def safe_column(texts: Iterable[str]) -> list[str]:
+    """`safe_text` of every cell of a column; a column with nothing to escape (the usual case)
+    is checked at once, not cell by cell (a listing of 100,000 runs)."""
+    column = list(texts)
+    joined = "".join(column)
+    if (joined.isascii() and joined.isprintable()) or not _UNSAFE.search(joined):
+        return column
+    return [safe_text(text) for text in column]

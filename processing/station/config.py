@@ -13,7 +13,7 @@ from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from processing.checks import CheckThresholds
+from processing.check_thresholds import CheckThresholds
 from processing.errors import ConfigError, LibraryFileError, UnknownSpeciesError
 
 if TYPE_CHECKING:

@@ -19,6 +19,7 @@ station killed mid-file leaves only a claim, which the next start redoes.
 from __future__ import annotations
 
 import functools
+import itertools
 import json
 import os
 import sqlite3
@@ -28,13 +29,11 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Union
+from typing import TYPE_CHECKING, Any, TypeVar, Union
 from urllib.parse import quote, unquote_to_bytes
 
 from processing import strict_json
 from processing.provenance import Provenance
-from processing.result_text import main_reasons
-from processing.results import BAND_QUANTITIES, MOLECULAR_CONSTANTS, ResultFormatError, RunResult, from_json, to_json
 from processing.safe_text import safe_text
 from processing.station import ledger_postgres
 from processing.station.ledger_errors import LedgerError as LedgerError  # re-exported: callers import it from here
@@ -43,11 +42,13 @@ from processing.station.ledger_errors import LedgerUnavailable as LedgerUnavaila
 from processing.station.ledger_postgres import SqlParams, SqlValue, is_server_url, shown_url
 
 if TYPE_CHECKING:
+    from processing.results import RunResult
     from processing.station.ledger_postgres import PostgresConnection
 
 # a ledger connection: the SQLite file's, or the server's (which takes the same SQL)
 Connection = Union[sqlite3.Connection, "PostgresConnection"]
 LedgerRow = Union[sqlite3.Row, "ledger_postgres.Row"]  # answers by column name and by position
+_Item = TypeVar("_Item")
 
 LEDGER_FILE = "ledger.sqlite3"
 RUN_STATUSES = ("processed", "unreadable", "failed")
@@ -547,6 +548,8 @@ def _insert_returning(conn: Connection, sql: str, params: SqlParams, key: str) -
 def quantity_rows(result: RunResult) -> list[tuple[str, str, str, float, float | None, str]]:
     """(isotopologue, band, quantity, value, sigma, unit) of every fitted quantity of a run:
     band constants with their band ("1-0"), molecular constants with band ""."""
+    from processing.results import BAND_QUANTITIES, MOLECULAR_CONSTANTS
+
     rows = []
     for band in result.bands:
         for name in BAND_QUANTITIES:
@@ -607,6 +610,8 @@ def _stored_results(conn: Connection, where: str, batch: int = 500) -> Iterable[
     """(run_id, result) of the recorded runs matching `where` (a migration's SQL condition), in
     run id order, `batch` stored results in memory at a time; a stored result that cannot be
     read is left out, not an error."""
+    from processing.results import ResultFormatError, from_json
+
     after = 0
     while True:
         rows = conn.execute(
@@ -719,6 +724,8 @@ def _add_reasons(conn: Connection) -> None:
             conn.execute(statement)
         if row is not None:
             conn.execute("UPDATE sqlite_sequence SET seq = max(seq, ?) WHERE name = 'runs'", (int(row[0]),))
+    from processing.result_text import main_reasons
+
     filled = [
         (json.dumps(list(main_reasons(result))), run_id) for run_id, result in _stored_results(conn, "result_json IS NOT NULL")
     ]
@@ -781,6 +788,9 @@ def record_run(
     `record_key` makes the record idempotent: a run already recorded under that key is
     returned as it is, nothing is written (a spooled outcome replayed after a lost answer).
     """
+    from processing.result_text import main_reasons
+    from processing.results import to_json
+
     if status not in RUN_STATUSES:
         raise ValueError(f"run status must be one of {RUN_STATUSES}, not {status!r}")
     if verdict is None and result is not None:
@@ -882,10 +892,12 @@ _RUN_COLUMNS_OWN = (
     " processed_at, settings_json, reprocessed_from, instrument, analysis_version, library_hash, settings_hash,"
     " reasons_json"
 )
-_RUN_COLUMNS_LISTED = _RUN_COLUMNS_OWN + (
-    ", (SELECT later.run_id FROM runs AS later WHERE later.instrument = runs.instrument AND later.path = runs.path"
+# the run id of the newest later version of the row's file (NULL for the newest)
+_SUPERSEDED_BY = (
+    "(SELECT later.run_id FROM runs AS later WHERE later.instrument = runs.instrument AND later.path = runs.path"
     " AND later.version > runs.version ORDER BY later.version DESC LIMIT 1) AS superseded_by"
 )
+_RUN_COLUMNS_LISTED = f"{_RUN_COLUMNS_OWN}, {_SUPERSEDED_BY}"
 _RUN_COLUMNS = _RUN_COLUMNS_LISTED + ", result_json"
 
 
@@ -946,36 +958,56 @@ def _made_with(analysis_version: str, library_hash: str, settings_hash: str) -> 
 
 
 def _result_text(run_id: int, text: str) -> RunResult:
+    """A stored result decoded (the results module is imported by the first that is read: a
+    listing reads none)."""
+    from processing.results import ResultFormatError, from_json
+
     try:
         return from_json(text)
     except ResultFormatError as error:
         raise LedgerError(f"run {run_id}: its stored result cannot be read ({error})") from None
 
 
-def _current_decisions(conn: Connection, run_ids: list[int] | None) -> dict[int, DecisionEvent]:
-    """run_id -> the decision event currently in effect (runs with none are absent)."""
-    if run_ids is None:
-        rows = conn.execute("SELECT * FROM decisions ORDER BY event_id").fetchall()
-    elif not run_ids:
-        return {}
-    else:
+def _current_decisions(conn: Connection, run_ids: list[int] | None, instrument: str | None = None) -> dict[int, DecisionEvent]:
+    """run_id -> the decision event currently in effect (runs with none are absent): of the
+    runs `run_ids`, else of every run (of `instrument` when given)."""
+    rows = _decision_rows(conn, "*", run_ids, instrument)
+    return _in_effect((row["run_id"], row["action"], _event(row)) for row in rows)
+
+
+def _current_actions(conn: Connection, instrument: str | None = None) -> dict[int, str]:
+    """run_id -> the action of the decision in effect ("accept", "flag"), of every run (of
+    `instrument` when given): what a listing shows, without building the events."""
+    return _in_effect((run_id, action, action) for run_id, action in _decision_rows(conn, "run_id, action", None, instrument))
+
+
+def _decision_rows(conn: Connection, columns: str, run_ids: list[int] | None, instrument: str | None) -> list[Any]:
+    """The decision trail's rows (`columns`) in the order they were made: of the runs
+    `run_ids`, else of every run (of `instrument` when given)."""
+    if run_ids is not None:
+        if not run_ids:
+            return []
         marks = ",".join("?" * len(run_ids))
-        rows = conn.execute(
-            f"SELECT * FROM decisions WHERE run_id IN ({marks}) ORDER BY event_id", run_ids
+        return conn.execute(f"SELECT {columns} FROM decisions WHERE run_id IN ({marks}) ORDER BY event_id", run_ids).fetchall()
+    if instrument is not None:
+        return conn.execute(
+            f"SELECT {columns} FROM decisions WHERE run_id IN (SELECT run_id FROM runs WHERE instrument = ?) ORDER BY event_id",
+            (instrument,),
         ).fetchall()
-    stacks: dict[int, list[DecisionEvent]] = {}
-    for row in rows:
-        _apply(stacks.setdefault(row["run_id"], []), _event(row))
-    return {run_id: stack[-1] for run_id, stack in stacks.items() if stack}
+    return conn.execute(f"SELECT {columns} FROM decisions ORDER BY event_id").fetchall()
 
 
-def _apply(stack: list[DecisionEvent], event: DecisionEvent) -> None:
-    """Replay one event: a decision pushes, an undo reverts to the state before the last one."""
-    if event.action == UNDO:
-        if stack:
+def _in_effect(trail: Iterable[tuple[int, str, _Item]]) -> dict[int, _Item]:
+    """run_id -> the item of the decision in effect, replaying (run_id, action, item) in the
+    order made: a decision pushes, an undo reverts to the state before the last one."""
+    stacks: dict[int, list[_Item]] = {}
+    for run_id, action, item in trail:
+        stack = stacks.setdefault(run_id, [])
+        if action != UNDO:
+            stack.append(item)
+        elif stack:
             stack.pop()
-    else:
-        stack.append(event)
+    return {run_id: stack[-1] for run_id, stack in stacks.items() if stack}
 
 
 def _event(row: LedgerRow) -> DecisionEvent:
@@ -1055,6 +1087,72 @@ def list_runs(
 ) -> list[RunRecord]:
     """Runs newest first; `latest_only` keeps only the newest version of each file;
     `instrument` keeps only that instrument's runs."""
+    rows, replaced = _listing(
+        conn, _RUN_COLUMNS_OWN, (12, 1, 3), limit, latest_only, instrument, then=", result_json" if with_result else ""
+    )
+    decisions = _current_decisions(conn, [int(row[0]) for row in rows] if limit else None, instrument)  # type: ignore[arg-type]
+    return [_listed(row, decisions.get(row[0]), conn, replaced.get(row[0])) for row in rows]
+
+
+@dataclass(frozen=True)
+class RunColumns:
+    """Runs newest first as columns (item i of every tuple is one run): what a listing prints
+    of each, without results, settings or hashes. `bandwatch ledger list` shows 100,000 runs
+    from these without building an object per run."""
+
+    run_id: tuple[int, ...]
+    instrument: tuple[str, ...]
+    version: tuple[int, ...]
+    status: tuple[str, ...]
+    verdict: tuple[str | None, ...]
+    decision: tuple[str | None, ...]  # the decision in effect ("accept", "flag"), None when undecided
+    superseded_by: tuple[int | None, ...]  # the run id of the file's newest version when not this one
+    species: tuple[str, ...]  # as stored: "H35Cl,H37Cl"
+    processed_at: tuple[str | None, ...]  # UTC, ISO 8601 as stored
+    path: tuple[str, ...]
+    reasons: tuple[tuple[str, ...], ...]  # a processed run's main reasons
+    error: tuple[str | None, ...]
+
+    def __len__(self) -> int:
+        return len(self.run_id)
+
+
+# the columns of RunColumns that come straight from the table, in its order
+_COLUMNS_LISTING = "run_id, instrument, version, status, verdict, species, processed_at, path, reasons_json, error"
+
+
+def list_run_columns(
+    conn: Connection, limit: int | None = None, *, latest_only: bool = False, instrument: str | None = None
+) -> RunColumns:
+    """The runs `list_runs` gives (same order, limit and filters), as columns of what a listing shows."""
+    rows, replaced = _listing(conn, _COLUMNS_LISTING, (1, 7, 2), limit, latest_only, instrument)
+    if limit:
+        actions = {key: event.action for key, event in _current_decisions(conn, [int(row[0]) for row in rows]).items()}  # type: ignore[arg-type]
+    else:
+        actions = _current_actions(conn, instrument)
+    (run_id, instrument_, version, status, verdict, species, processed_at, path, reasons_json,
+     error, superseded_by) = zip(*rows) if rows else ((),) * 11
+    joined = "\n" + "\n".join(path) if all(map(isinstance, path, itertools.repeat(str))) else None
+    if joined is None or "\n" + SERVER_BYTES_PATH in joined:
+        path = tuple(path_of(item, conn) for item in path)  # type: ignore[arg-type]  # undecodable names
+    reasons_of: dict[Any, tuple[str, ...]] = {None: ()}
+    for text in set(reasons_json):
+        reasons_of[text] = _reasons(text)  # type: ignore[arg-type]
+    return RunColumns(
+        run_id=run_id, instrument=instrument_, version=version,  # type: ignore[arg-type]
+        status=status, verdict=verdict, species=species, processed_at=processed_at, path=path,  # type: ignore[arg-type]
+        decision=tuple(map(actions.get, run_id)),
+        superseded_by=superseded_by if limit is not None else tuple(map(replaced.get, run_id)),  # type: ignore[arg-type]
+        reasons=tuple(map(reasons_of.__getitem__, reasons_json)), error=error,  # type: ignore[arg-type]
+    )
+
+
+def _listing(
+    conn: Connection, columns: str, key: tuple[int, int, int], limit: int | None, latest_only: bool,
+    instrument: str | None, then: str = "",
+) -> tuple[list[tuple[SqlValue, ...]], dict[int, int]]:
+    """The rows of a listing (`columns`, superseded_by, then the columns `then` adds; run_id
+    first, the positions of instrument, path and version in `key`) and the replaced runs."""
     conditions = []
     params: list[Any] = []
     if instrument is not None:
@@ -1066,34 +1164,34 @@ def list_runs(
     # Without a limit the rows hold every version of their files (or, latest_only, none is
     # replaced): the newer version is found among them, not by a query per row.
     every_version = limit is None
-    columns = f"{_RUN_COLUMNS_OWN}, NULL AS superseded_by" if every_version else _RUN_COLUMNS_LISTED
-    sql = f"SELECT {columns}{', result_json' if with_result else ''} FROM runs{where} ORDER BY run_id DESC"
+    superseded = "NULL AS superseded_by" if every_version else _SUPERSEDED_BY
+    sql = f"SELECT {columns}, {superseded}{then} FROM runs{where} ORDER BY run_id DESC"
     if limit is not None:
         sql += " LIMIT ?"
         params.append(int(limit))
     rows = _tuples(conn, sql, tuple(params))
-    decisions = _current_decisions(conn, [row[0] for row in rows] if limit or instrument is not None else None)
-    replaced = _replaced_by(rows) if every_version and not latest_only else {}
-    return [_listed(row, decisions.get(row[0]), conn, replaced.get(row[0])) for row in rows]
+    replaced = _replaced_by(rows, key) if every_version and not latest_only else {}
+    return rows, replaced
 
 
-def _replaced_by(rows: list[tuple[SqlValue, ...]]) -> dict[int, int]:
+def _replaced_by(rows: list[tuple[SqlValue, ...]], key: tuple[int, int, int]) -> dict[int, int]:
     """run_id -> the run id of its file's newest version, for every row that is not that
-    version (rows of `_RUN_COLUMNS_OWN`: run_id 0, path 1, version 3, instrument 12)."""
-    newest: dict[tuple[SqlValue, SqlValue], tuple[int, int]] = {}
-    for row in rows:
-        key = (row[12], row[1])
-        found = newest.get(key)
-        if found is None or row[3] > found[0]:  # type: ignore[operator]
-            newest[key] = (row[3], row[0])  # type: ignore[assignment]
-    if len(newest) == len(rows):
+    version (run_id first in each row; instrument, path and version at the positions `key`).
+    Only the paths seen more than once are looked at: a ledger of one version per file is
+    told by one set of its paths (100,000 runs in a few ms)."""
+    at_instrument, at_path, at_version = key
+    paths = [row[at_path] for row in rows]
+    if len(set(paths)) == len(paths):
         return {}  # one version of every file: nothing replaced
-    replaced = {}
-    for row in rows:
-        version, run_id = newest[(row[12], row[1])]
-        if row[3] != version:
-            replaced[int(row[0])] = int(run_id)  # type: ignore[arg-type]
-    return replaced
+    seen: set[SqlValue] = set()
+    again = {path for path in paths if path in seen or seen.add(path)}  # type: ignore[func-returns-value]
+    newest: dict[tuple[SqlValue, SqlValue], tuple[int, int]] = {}
+    versions = [((row[at_instrument], path), int(row[at_version]), int(row[0]))  # type: ignore[arg-type]
+                for path, row in zip(paths, rows) if path in again]
+    for file, version, run_id in versions:
+        if file not in newest or version > newest[file][0]:
+            newest[file] = (version, run_id)
+    return {run_id: newest[file][1] for file, version, run_id in versions if version != newest[file][0]}
 
 
 def instruments(conn: Connection) -> list[str]:

@@ -8,9 +8,11 @@
    on a PostgreSQL server started on this machine with the server's own durability defaults
    (fsync and synchronous commit on). Files go to them alternately. Target: p95 of the server
    no worse than p95 of the file + 50 ms.
-2. Listing 100,000 runs: the same 100,000 runs (10,000 with decisions) in a file and on the
+2. Listing 100,000 runs: the same 100,000 runs (a year of a busy station's: 10,000 with decisions,
+   ~4,800 replaced by a newer version, 1 in 8 with main reasons; `fill`) in a file and on the
    server. `list_runs` (the call behind `bandwatch ledger list` and the interface) and the whole
-   `bandwatch ledger list` command (its table, and `--json`), medians of 5. Target: < 0.5 s.
+   `bandwatch ledger list` command (its table, and `--json`), medians of 5. Target: the whole command
+   (table) < 0.5 s.
 
 The machine is shared: the load average is printed with each part; read the ratios.
 """
@@ -23,6 +25,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
@@ -105,16 +108,34 @@ def saved_to_ledger(work: Path, url: str, trials: int) -> bool:
 
 
 def fill(conn: ledger.Connection, runs: int) -> None:
-    """`runs` runs of one instrument (their results are not read by a listing), one in ten decided."""
-    rows = [
-        (f"/export/day{index // 400:03d}/run{index:06d}.csv", f"{index:064x}", 1, "processed", "pass", "H35Cl",
-         None, f"2026-01-01T00:00:{index % 60:02d}.000Z", f"2026-01-01T00:00:{index % 60:02d}.500Z", "ftir-1")
-        for index in range(runs)
-    ]
+    """`runs` runs of one instrument as a busy station leaves them (their results are not read by
+    a listing): one every 5 minutes, so the stamps spread over about a year of hours; one file in
+    twenty saved again (a second version, the first replaced); one run in eight with main reasons
+    (from a small set, with numbers that vary), one in fifty unreadable; one in ten decided."""
+    rows = []
+    index = 0
+    for file in range(runs):
+        if len(rows) == runs:
+            break
+        for version in ((1, 2) if file % 20 == 7 else (1,)):
+            if len(rows) == runs:
+                break
+            received = _stamp(index * 300)
+            if index % 50 == 3:
+                status, verdict, species, reasons, error = "failed", None, "", None, f"run{file:06d}.csv: no spectrum in it"
+            else:
+                status, verdict, species, error = "processed", "pass", "H35Cl,H37Cl", None
+                reasons = None
+                if index % 8 == 5:
+                    verdict = "warn"
+                    reasons = f'["calibration {0.01 * (index % 37):+.2f} cm-1", "fringes 0.00{index % 9} A"]'
+            rows.append((f"/export/day{file // 288:03d}/run{file:06d}.csv", f"{index:064x}", version, status, verdict,
+                         species, error, received, _stamp(index * 300 + 2), "ftir-1", reasons))
+            index += 1
     conn.execute("BEGIN IMMEDIATE")
     conn.executemany(
-        "INSERT INTO runs (path, sha256, version, status, verdict, species, error, received_at, processed_at, instrument)"
-        " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", rows,
+        "INSERT INTO runs (path, sha256, version, status, verdict, species, error, received_at, processed_at, instrument,"
+        " reasons_json) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", rows,
     )
     first = int(conn.execute("SELECT MIN(run_id) FROM runs").fetchone()[0])
     conn.executemany(
@@ -122,6 +143,12 @@ def fill(conn: ledger.Connection, runs: int) -> None:
         [(first + index,) for index in range(0, runs, 10)],
     )
     conn.execute("COMMIT")
+
+
+def _stamp(seconds: int) -> str:
+    """The ledger's UTC stamp `seconds` after the start of 2026."""
+    moment = datetime(2026, 1, 1, tzinfo=timezone.utc) + timedelta(seconds=seconds, milliseconds=417)
+    return moment.isoformat(timespec="milliseconds").replace("+00:00", "Z")
 
 
 def median_seconds(function, repeats: int = 5, clock=time.perf_counter) -> float:  # type: ignore[no-untyped-def]
@@ -143,6 +170,7 @@ def listing(work: Path, url: str) -> bool:
         print(f"listing {LISTED_RUNS} runs, {kind}: filled in {time.perf_counter() - started:.1f} s; {load()}")
         runs = ledger.list_runs(conn, with_result=False)
         assert len(runs) == LISTED_RUNS and sum(r.decision == "accept" for r in runs) == LISTED_RUNS // 10
+        assert sum(r.superseded_by is not None for r in runs) > 4000 and sum(bool(r.reasons) for r in runs) > 10000
         call = median_seconds(lambda: ledger.list_runs(conn, with_result=False))
         cpu = median_seconds(lambda: ledger.list_runs(conn, with_result=False), clock=time.process_time)
         conn.close()
@@ -154,9 +182,9 @@ def listing(work: Path, url: str) -> bool:
         empty = median_seconds(lambda: subprocess.run([*command, "--instrument", "no-such-instrument"], check=True, stdout=subprocess.DEVNULL, env=env))
         print(f"  list_runs {call * 1e3:.0f} ms ({cpu * 1e3:.0f} ms of this process's CPU); `bandwatch ledger list` {table * 1e3:.0f} ms (table), "
               f"{lines * 1e3:.0f} ms (--json); the same command listing nothing {empty * 1e3:.0f} ms (start-up)")
-        met = call < TARGET_LIST_SECONDS
-        print(f"  target list_runs < {TARGET_LIST_SECONDS:g} s: {'met' if met else 'NOT met'}; whole command "
-              f"{'under' if table < TARGET_LIST_SECONDS else 'over'} it; {load()}")
+        met = table < TARGET_LIST_SECONDS
+        print(f"  target `bandwatch ledger list` (the whole command, its table) < {TARGET_LIST_SECONDS:g} s: "
+              f"{'met' if met else 'NOT met'}; list_runs {'under' if call < TARGET_LIST_SECONDS else 'over'} it; {load()}")
         ok = ok and met
     return ok
 

@@ -4,6 +4,7 @@ Every test runs on both backends (`ledger_at`: a data folder for SQLite, a throw
 PostgreSQL database); the few about the SQLite file itself say so in their name."""
 from __future__ import annotations
 
+import os
 import sqlite3
 import threading
 from pathlib import Path
@@ -340,6 +341,37 @@ def test_reader_connection_reads_while_a_writer_writes(ledger_at: str | Path) ->
     assert not errors
     assert counts == sorted(counts)  # a reader never sees rows vanish
     assert len(lg.list_runs(writer_conn)) == 200
+
+
+def test_run_columns_hold_what_the_listed_records_hold(ledger_at: str | Path) -> None:
+    """`list_run_columns` (what `bandwatch ledger list` prints, column by column) gives, run by
+    run, the fields `list_runs` gives: ids, versions, decisions in effect (an undo reverts),
+    the newer version that replaces a run, reasons, errors, an undecodable name; with and
+    without a limit, for one instrument, and newest versions only."""
+    conn = lg.open_ledger(ledger_at)
+    first = lg.record_run(conn, "/exp/a.csv", "1" * 64, "processed", result=_result(), instrument="ftir-1")
+    lg.record_run(conn, "/exp/b.csv", "2" * 64, "unreadable", error="empty", instrument="ftir-1")
+    newest = lg.record_run(conn, "/exp/a.csv", "3" * 64, "processed", result=_result(), instrument="ftir-1")
+    lg.record_run(conn, "/exp/a.csv", "4" * 64, "processed", result=_result(), instrument="ftir-2")
+    odd = lg.record_run(conn, os.fsdecode(b"/exp/\xff.csv"), "5" * 64, "processed", result=_result(), instrument="ftir-2")
+    lg.record_decision(conn, first.run_id, "flag", "odd", "ana")
+    lg.record_decision(conn, newest.run_id, "accept", "", "bo")
+    lg.record_decision(conn, odd.run_id, "accept", "", "bo")
+    lg.undo_last_decision(conn, odd.run_id, "bo")
+    fields = ("run_id", "instrument", "version", "status", "verdict", "decision", "superseded_by", "processed_at",
+              "path", "reasons", "error")
+    for options in ({}, {"limit": 3}, {"instrument": "ftir-1"}, {"latest_only": True}, {"limit": 2, "instrument": "ftir-2"}):
+        records = lg.list_runs(conn, with_result=False, **options)  # type: ignore[arg-type]
+        columns = lg.list_run_columns(conn, **options)  # type: ignore[arg-type]
+        assert len(columns) == len(records) > 0, options
+        for name in fields:
+            assert list(getattr(columns, name)) == [getattr(r, name) for r in records], (options, name)
+        assert list(columns.species) == [",".join(r.species) for r in records]
+    columns = lg.list_run_columns(conn)
+    by_id = dict(zip(columns.run_id, zip(columns.decision, columns.superseded_by)))
+    assert by_id[first.run_id] == ("flag", newest.run_id)
+    assert by_id[newest.run_id] == ("accept", None) and by_id[odd.run_id] == (None, None)
+    assert os.fsencode(columns.path[columns.run_id.index(odd.run_id)]) == b"/exp/\xff.csv"
 
 
 def test_numpy_values_in_a_result_are_stored_as_plain_json(ledger_at: str | Path) -> None:
