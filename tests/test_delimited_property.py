@@ -100,3 +100,91 @@ def test_fast_and_line_by_line_passes_read_the_same_exact_numbers(
     assert fast.absorbance.tolist() == [y for _, y in rows]
     assert np.array_equal(slow.wavenumber_cm1, fast.wavenumber_cm1)
     assert np.array_equal(slow.absorbance, fast.absorbance)
+
+
+@settings(max_examples=150, deadline=4000, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    st.lists(st.tuples(st.floats(0.01, 1e4), finite), min_size=2, max_size=30, unique_by=lambda r: r[0]),
+    st.sampled_from([(",", False), (";", False), ("\t", False), (";", True), ("\t", True)]),
+    st.sampled_from(["{!r}", "{:.17g}", "{:.4f}", "{:.6e}", '"{!r}"', " {!r}", "{!r} ", "+{!r}"]),
+    st.sampled_from(["\n", "\r\n"]),
+    st.lists(mutation, max_size=2),
+)
+def test_polars_reads_what_numpy_reads_to_the_same_bits_or_leaves_it(
+    rows: list[tuple[float, float]], layout: tuple[str, bool], style: str, ending: str,
+    steps: list[tuple[str, int, object]],
+) -> None:
+    """The polars pass (the fast-text extra) and numpy's reader on the same body: polars either
+    gives the very same doubles or declines (then numpy's reader and the slow pass decide, as
+    without polars); it never gives other numbers. Written numbers with their usual quirks:
+    shortest repr, 17 digits, rounded, exponent, quoted, padded, a plus sign, a decimal comma,
+    CRLF; some bodies then damaged."""
+    import pytest
+
+    pytest.importorskip("polars")
+    separator, decimal_comma = layout
+
+    def text(value: float) -> str:
+        written = style.format(value)
+        return written.replace(".", ",") if decimal_comma else written
+
+    body = mutate(ending.join(f"{text(x)}{separator}{text(y)}" for x, y in sorted(rows)).encode(), steps)
+    row_format = delimited._RowFormat(separator, decimal_comma, 2, False)
+    end = len(body.rstrip())
+    by_polars = delimited._polars_table(body, 0, end, row_format, 1) if end else None
+    if by_polars is None:
+        return
+    assert delimited._TEXT_READER_WORKS  # numpy's C reader, the reference here
+    by_numpy = delimited._loadtxt_table(body, 0, end, row_format, 1)
+    if by_numpy is None:  # numpy refused: the slow pass is the reference
+        by_numpy = delimited._slow_table(body[:end], row_format, 1, "a.csv")
+    assert by_polars.values.shape == by_numpy.values.shape
+    assert np.array_equal(by_polars.values, by_numpy.values, equal_nan=True)
+
+
+def test_without_polars_large_bodies_are_read_by_numpy(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """The fast-text extra is optional: without it (import fails) a body over the import size
+    is read by numpy's reader, to the same numbers."""
+    import sys
+
+    x = 2000.0 + 0.001 * np.arange(400_000)
+    data = ("x,A\n" + "".join(f"{a!r},{a / 1e4!r}\n" for a in x.tolist())).encode()
+    monkeypatch.setattr(delimited, "POLARS_IMPORT_BYTES", 1000)
+    monkeypatch.setitem(sys.modules, "polars", None)  # `import polars` raises ImportError
+    assert delimited.polars_module(len(data)) is None
+    spectrum = delimited.parse(data, "big.csv")
+    assert spectrum.wavenumber_cm1.tolist() == x.tolist()
+
+
+def test_whole_files_read_the_same_with_and_without_polars(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """Files with a title and header, a footer, a byte-order mark, CRLF, trailing blank lines,
+    a decimal comma, quoted numbers: the same spectrum and notes whether polars reads the body
+    (in place or from a copy) or numpy's reader does."""
+    import sys
+
+    import pytest
+
+    pytest.importorskip("polars")
+    x = 2000.0 + 0.125 * np.arange(300)
+    y = 0.5 + 0.01 * np.sin(x)
+    rows = [f"{a!r},{b!r}" for a, b in zip(x.tolist(), y.tolist())]
+    files = [
+        "Lab export\ncm-1,A\n" + "\n".join(rows) + "\n",
+        "\ufeff" + "\n".join(rows) + "\n",
+        "cm-1,A\r\n" + "\r\n".join(rows) + "\r\n",
+        "cm-1,A\n" + "\n".join(rows) + "\n\n\n",
+        "cm-1,A\n" + "\n".join(rows) + "\nEND OF DATA\n",
+        "cm-1;A\n" + "\n".join(row.replace(",", ";").replace(".", ",") for row in rows) + "\n",
+        "cm-1,A\n" + "\n".join(f'"{a!r}","{b!r}"' for a, b in zip(x.tolist(), y.tolist())) + "\n",
+        "\n".join(rows),
+    ]
+    monkeypatch.setattr(delimited, "POLARS_IMPORT_BYTES", 0)
+    for text in files:
+        data = text.encode("utf-8")
+        with_polars = delimited.parse(data, "a.csv")
+        with monkeypatch.context() as hidden:
+            hidden.setitem(sys.modules, "polars", None)
+            without = delimited.parse(data, "a.csv")
+        assert with_polars.wavenumber_cm1.tolist() == without.wavenumber_cm1.tolist() == x.tolist(), text[:20]
+        assert np.array_equal(with_polars.absorbance, without.absorbance)
+        assert with_polars.meta.notes == without.meta.notes

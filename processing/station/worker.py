@@ -43,9 +43,24 @@ WARM_MODULES = (
 )
 
 
-def warm_up() -> None:
+# polars (the fast-text extra) reserves ~370 MB of address space when imported; under a
+# tighter worker limit (an address-space limit) it would leave too little for the analysis.
+POLARS_MIN_LIMIT_MB = 2048
+
+
+def warm_up(memory_limit_mb: int = 0) -> None:
     """Import the analysis and parse the shipped library before the first file. A problem here
-    is raised: the worker reports itself broken and the station says why."""
+    is raised: the worker reports itself broken and the station says why. With the fast-text
+    extra and room under the memory limit, polars is imported too and reads every delimited
+    file from then on; under a tighter limit it is never used in this worker."""
+    from processing.readers import delimited
+
+    if memory_limit_mb == 0 or memory_limit_mb >= POLARS_MIN_LIMIT_MB:
+        # one analysis per worker, one worker per core: polars' own threads would only contend
+        os.environ.setdefault("POLARS_MAX_THREADS", "1")
+        delimited.polars_module()
+    else:
+        delimited.forgo_polars()
     for name in WARM_MODULES:
         importlib.import_module(name)
     from processing.readers.registry import reader_modules
@@ -69,7 +84,7 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
 
     try:
         function = resolve_function(function_spec)
-        warm_up()
+        warm_up(memory_limit_mb)
     except Exception as error:  # said to the station, which keeps the files queued
         outbox.send(("broken", None, f"{type(error).__name__}: {error}"))
         return

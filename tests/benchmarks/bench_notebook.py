@@ -14,11 +14,14 @@ notebook's band fit on every file (ratio <= 1), and file -> whole result under 3
 300 ms at 1M points.
 
 Also: the delimited-text read alone against pandas' C reader on the same CSV files (target:
-ratio <= 1), and the load average during the run.
+ratio <= 1), as a one-shot process reads (polars, the fast-text extra, only for bodies of 16 MB
+or more) and as a station worker reads (polars imported at start: every delimited file), and
+the load average during the run.
 """
 from __future__ import annotations
 
 import argparse
+import importlib.util
 import os
 import statistics
 import sys
@@ -38,6 +41,7 @@ from scipy.signal import find_peaks
 
 from processing.pipeline import ProcessSettings, process_file
 from processing.readers import read_any
+from processing.readers.delimited import polars_module
 from processing.readers.delimited import write_csv
 from processing.readers.jcamp_write import write_jcamp
 
@@ -112,7 +116,8 @@ def main() -> None:
     args = parser.parse_args()
     sizes = [int(s) for s in args.sizes.split(",")]
     print(f"load average at start: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
-    rows = []
+    rows, paths = [], []
+    print(f"polars (fast-text extra): {'installed' if importlib.util.find_spec('polars') else 'not installed'}")
     with tempfile.TemporaryDirectory() as folder:
         for points in sizes:
             spectrum = make_spectrum(points)
@@ -129,6 +134,16 @@ def main() -> None:
                 else:
                     pandas_read = our_read = None
                 rows.append((points, form, notebook, ours, pandas_read, our_read, (origin, b_upper, b_lower, fitted)))
+                paths.append(path)
+        # A station worker imports polars (the fast-text extra) at start and reads every
+        # delimited file with it; a one-shot `bandwatch process` only a body of 16 MB or more.
+        worker = {}
+        if polars_module() is not None:
+            for (points, form, *_), path in zip(rows, paths):
+                if form != "jdx":
+                    repeat = args.repeat if points < 500_000 else max(3, args.repeat // 2)
+                    worker[(points, form)] = (median_ms(lambda: read_any(path), repeat),
+                                              median_ms(lambda: process_file(path, ProcessSettings()), repeat))
     print(f"load average at end: {' '.join(f'{v:.2f}' for v in os.getloadavg())}\n")
     print("file -> result, ms (min / median / max); ratio = bandwatch whole result / notebook band fit (target <= 1)")
     print(f"{'points':>8} {'file':>5} {'notebook':>20} {'bandwatch':>20} {'ratio':>6} {'target':>7}  notebook's fit")
@@ -144,7 +159,23 @@ def main() -> None:
             continue
         print(f"{points:>8} {form:>5} pandas {pandas_read[0]:6.1f}/{pandas_read[1]:6.1f}/{pandas_read[2]:6.1f}  "
               f"bandwatch {our_read[0]:6.1f}/{our_read[1]:6.1f}/{our_read[2]:6.1f}  ratio {our_read[1] / pandas_read[1]:.2f}"
-              f"  {'ok' if our_read[1] <= pandas_read[1] else 'SLOWER'}")
+              f"  {'ok' if our_read[1] <= pandas_read[1] else 'SLOWER'}  ({_reader(points, form)})")
+    if worker:
+        print("\nas a station worker reads (polars imported at start): read alone, and file -> whole result")
+        for points, form, notebook, _ours, pandas_read, _our_read, _fit in rows:
+            if (points, form) not in worker:
+                continue
+            read, whole = worker[(points, form)]
+            print(f"{points:>8} {form:>5} read {read[0]:6.1f}/{read[1]:6.1f}/{read[2]:6.1f}  ratio to pandas "
+                  f"{read[1] / pandas_read[1]:.2f} {'ok' if read[1] <= pandas_read[1] else 'SLOWER'}   whole result "
+                  f"{whole[0]:6.1f}/{whole[1]:6.1f}/{whole[2]:6.1f}  ratio to notebook {whole[1] / notebook[1]:.2f}")
+
+
+def _reader(points: int, form: str) -> str:
+    """Which parser a one-shot process used for this file."""
+    if importlib.util.find_spec("polars") is None:
+        return "numpy's reader"
+    return "polars" if points >= 500_000 else "numpy's reader (polars not imported for a small file)"
 
 
 if __name__ == "__main__":

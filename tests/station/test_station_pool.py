@@ -70,3 +70,25 @@ def test_workers_that_cannot_start_are_reported_and_files_stay_queued(tmp_path: 
         assert outcomes == [] and pool.busy == 1  # not recorded as a failure of the file
     finally:
         pool.stop()
+
+
+def test_a_worker_uses_polars_only_with_room_under_its_memory_limit(monkeypatch, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    """polars reserves ~370 MB of address space at import: a worker under a tight limit must
+    never import it (the analysis would then fail to allocate), one at the default imports it
+    at start (the fast-text extra) and reads with it. Both read a file to the same numbers."""
+    import pytest
+
+    from processing.readers import delimited, read_any
+    from processing.station import worker
+
+    pytest.importorskip("polars")
+    monkeypatch.setenv("POLARS_MAX_THREADS", "1")  # as warm_up sets it; restored after the test
+    path = write_file(tmp_path / "a.csv", spectrum_csv(200))
+    monkeypatch.setattr(delimited, "_polars_allowed", True)
+    worker.warm_up(768)
+    assert delimited.polars_module(10**9) is None
+    tight = read_any(path)
+    monkeypatch.setattr(delimited, "_polars_allowed", True)
+    worker.warm_up(2048)
+    assert delimited.polars_module(0) is not None
+    assert read_any(path).absorbance.tolist() == tight.absorbance.tolist()
