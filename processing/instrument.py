@@ -45,14 +45,17 @@ def instrument_line_shape(name: str, opd_max_cm: float, offset_cm1: np.ndarray) 
 
 
 def ils_fwhm_cm1(name: str, opd_max_cm: float) -> float:
-    """FWHM of the ILS found numerically (half-maximum crossing by linear interpolation)."""
-    offsets = np.linspace(0.0, 1.5 / opd_max_cm, 3001)
-    shape = instrument_line_shape(name, opd_max_cm, offsets)
-    half = shape[0] / 2.0
-    below = int(np.flatnonzero(shape < half)[0])
-    x0, x1 = offsets[below - 1], offsets[below]
-    y0, y1 = shape[below - 1], shape[below]
-    return float(2.0 * (x0 + (half - y0) * (x1 - x0) / (y1 - y0)))
+    """FWHM of the ILS found numerically: the half-maximum crossing, bracketed on a coarse grid
+    of offsets and then solved (Brent's method) on the quadrature itself."""
+    from scipy.optimize import brentq
+
+    def above_half(offset: float) -> float:
+        return float(instrument_line_shape(name, opd_max_cm, np.array([offset]))[0]) - half
+
+    half = float(instrument_line_shape(name, opd_max_cm, np.array([0.0]))[0]) / 2.0
+    offsets = np.linspace(0.0, 1.5 / opd_max_cm, 61)
+    below = int(np.flatnonzero(instrument_line_shape(name, opd_max_cm, offsets) < half)[0])
+    return 2.0 * float(brentq(above_half, offsets[below - 1], offsets[below], xtol=1e-12 / opd_max_cm))
 
 
 # FWHM x L of each ILS, computed once from the windows above (calc).

@@ -519,11 +519,16 @@ def _reference_text(comparison: Comparison | None) -> str:
     return f" (reference {comparison.compared_reference:.8g}" + (f", z {z:+.1f})" if z is not None else ")")
 
 
-def summary_markdown(result: RunResult, run_id: int, version: int) -> str:
-    """A short human summary of one run (summary.md)."""
+def summary_markdown(result: RunResult, run_id: int, version: int, body: str | None = None) -> str:
+    """A short human summary of one run (summary.md): its title, then `summary_body` (`body`
+    when a station worker already wrote it)."""
+    title = safe_text(f"# Run {run_id} v{version}: {Path(result.file).name}")
+    return f"{title}\n\n{summary_body(result) if body is None else body}"
+
+
+def summary_body(result: RunResult) -> str:
+    """summary.md below its title: all that does not depend on the run's ledger id."""
     out = [
-        f"# Run {run_id} v{version}: {Path(result.file).name}",
-        "",
         f"- file: `{result.file}`",
         f"- sha256: `{result.sha256}`",
         f"- status: {result.status}",

@@ -50,6 +50,7 @@ class JobOutcome:
     seconds: float
     result_json: str | None = None
     lines_csv: str | None = None  # the lines.csv text, made by the worker too
+    summary_body: str | None = None  # summary.md below its title (`result_text.summary_body`), too
 
     @property
     def failed(self) -> bool:
@@ -275,8 +276,8 @@ class WorkerPool:
         seconds = time.monotonic() - slot.started
         if kind == "done":
             self._assign()  # keep the worker busy while this outcome is recorded
-            result, text, lines_text = payload
-            self._report(JobOutcome(job, result, None, seconds, text, lines_text))
+            result, text, lines_text, summary_text = payload
+            self._report(JobOutcome(job, result, None, seconds, text, lines_text, summary_text))
         else:
             if str(payload).startswith("out of memory"):
                 slot.retiring = True

@@ -51,16 +51,17 @@ def _write_atomic(path: Path, text: str | bytes) -> None:
 
 def write_reports(
     data_dir: str | Path, run_id: int, version: int, result: RunResult, result_json: str | None = None,
-    lines_csv_text: str | None = None,
+    lines_csv_text: str | None = None, summary_body_text: str | None = None,
 ) -> Path:
-    """Write the three report files for a run; returns their folder. `result_json` and
-    `lines_csv_text` are the result's JSON and lines.csv texts when a worker already made
-    them (the ledger stores the same JSON bytes)."""
+    """Write the three report files for a run; returns their folder. `result_json`,
+    `lines_csv_text` and `summary_body_text` are the result's JSON, lines.csv and summary.md
+    (below its title) texts when a worker already made them (the ledger stores the same JSON
+    bytes)."""
     folder = report_folder(data_dir, run_id, result.file)
     folder.mkdir(parents=True, exist_ok=True)
     _write_atomic(folder / "result.json", (result_json if result_json is not None else to_json(result)) + "\n")
     _write_atomic(folder / "lines.csv", lines_csv_text if lines_csv_text is not None else lines_csv(result))
-    _write_atomic(folder / "summary.md", summary_markdown(result, run_id, version))
+    _write_atomic(folder / "summary.md", summary_markdown(result, run_id, version, summary_body_text))
     return folder
 
 

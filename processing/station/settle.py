@@ -26,7 +26,8 @@ from processing.regular_files import ReadPolicy, check_place, read_regular
 
 @dataclass(frozen=True)
 class SettledFile:
-    """Ready to analyse; `sha256` is None when the file could not be read here."""
+    """Ready to analyse; `sha256` is None when not worked out here (a complete file: the worker
+    hashes what it analyses) or the file could not be read here."""
 
     path: str
     sha256: str | None
@@ -119,7 +120,10 @@ class Settler:
             self.known.pop(path, None)
             return False
         key = (stat.st_size, stat.st_mtime_ns)
-        if path in self.pending:
+        state = self.pending.get(path)
+        if state is not None:
+            if key != (state.size, state.mtime_ns):  # written again (a close event): the wait starts again
+                state.size, state.mtime_ns, state.stable_since = stat.st_size, stat.st_mtime_ns, self.clock()
             return True
         if self.known.get(path) == key:
             return False
@@ -157,11 +161,14 @@ class Settler:
         return min(state.stable_since for state in self.pending.values()) + self.settle_seconds
 
     def tick(self, hold: Callable[[str], bool] = lambda path: False) -> list[SettleOutcome]:
-        """Check every pending file once; returns those that settled, vanished or gave up."""
+        """Check every pending file that has been still for the settle time (by its last seen size
+        and time stamp); returns those that settled, vanished or gave up."""
         now = self.clock()
         outcomes: list[SettleOutcome] = []
         for path in list(self.pending):
             state = self.pending[path]
+            if now - state.stable_since < self.settle_seconds:
+                continue  # not due yet: looked at when it is (a change since then restarts the wait)
             try:
                 stat = self.change_stat(path)
             except FileNotFoundError:
@@ -204,10 +211,12 @@ class Settler:
             if (after.st_size, after.st_mtime_ns) != key or len(data) != state.size:
                 state.size, state.mtime_ns, state.stable_since = after.st_size, after.st_mtime_ns, now
                 return None  # written to while we read: wait again
-            sha = hashlib.sha256(data).hexdigest()
             found = incomplete(data)
             if found is None:
-                return SettledFile(path, sha, state.size, state.mtime_ns)
+                # not hashed here: the worker hashes the bytes it analyses, and the station a
+                # file it has seen before (is it the same content?)
+                return SettledFile(path, None, state.size, state.mtime_ns)
+            sha = hashlib.sha256(data).hexdigest()
             why = found.reason
             state.incomplete_stat, state.incomplete_sha, state.incomplete_why = key, sha, why
             state.take_when_waited_out = found.take_when_waited_out

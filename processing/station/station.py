@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import fcntl
 import functools
+import hashlib
 import os
 import queue
 import threading
@@ -25,10 +26,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import IO
 
-from processing.errors import ConfigError
+from processing.errors import ConfigError, SpectrumFileError
 from processing.provenance import Provenance, current_provenance
 from processing.readers import DEFAULT_MAX_BYTES
-from processing.regular_files import ReadPolicy
+from processing.regular_files import ReadPolicy, read_regular
 from processing.results import RunResult
 from processing.station import ledger
 from processing.station.config import StationConfig, check_folders, station_settings
@@ -516,20 +517,31 @@ class Station:
         if self._data_folder_gone():
             raise ledger.LedgerError("the data folder is gone")  # retried; the loop halts the station
         latest = self.store.latest(item.path)
-        if latest is not None and item.sha256 is not None and latest[1] == item.sha256:
+        sha256 = item.sha256
+        if latest is not None and sha256 is None:
+            sha256 = self._content_sha256(item.path)  # seen before: the same content again?
+        if latest is not None and sha256 is not None and latest[1] == sha256:
             self._emit(FileUnchanged(item.path, latest[0]))
             return
-        claim = self.store.claim(item.path, item.sha256)
-        self._emit(FileSettled(item.path, item.sha256, item.size_bytes))
+        claim = self.store.claim(item.path, sha256)
+        self._emit(FileSettled(item.path, sha256, item.size_bytes))
         assert self.pool is not None
         with self._lock:
             self._job_ids += 1
             job = Job(self._job_ids, item.path, self.settings)
             self._inflight[job.job_id] = _InFlight(
-                item.path, item.sha256, claim.claim_id, claim.received_at, item.size_bytes, item.mtime_ns
+                item.path, sha256, claim.claim_id, claim.received_at, item.size_bytes, item.mtime_ns
             )
             self._inflight_paths.add(item.path)
         self.pool.submit(job)
+
+    def _content_sha256(self, path: str) -> str | None:
+        """The file's sha256 as it is now, or None when it cannot be read (the analysis then
+        says why). A new file is not hashed by the station: its worker hashes what it reads."""
+        try:
+            return hashlib.sha256(read_regular(path, DEFAULT_MAX_BYTES, self.read_policy)).hexdigest()
+        except SpectrumFileError:
+            return None
 
     # ---------------------------------------------------------------- outcomes (pool thread)
 
@@ -594,7 +606,7 @@ class Station:
         if outcome.failed or outcome.result is None:
             reason = outcome.reason or "no result"
             record = self.store.record(
-                info.path, info.sha256, "failed", error=reason,
+                info.path, info.sha256 or self._content_sha256(info.path), "failed", error=reason,
                 received_at=info.received_at, claim_id=info.claim_id,
                 size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
@@ -604,16 +616,17 @@ class Station:
         result = outcome.result
         status = result.status if result.status in ("processed", "unreadable") else "failed"
         record = self.store.record(
-            info.path, result.sha256 or info.sha256, status,
+            info.path, result.sha256 or info.sha256 or self._content_sha256(info.path), status,
             result=result, result_json=outcome.result_json, error=result.error,
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
         if record is not None:
-            self._report_and_announce(record, result, outcome.result_json, outcome.lines_csv)
+            self._report_and_announce(record, result, outcome.result_json, outcome.lines_csv, outcome.summary_body)
 
     def _report_and_announce(
         self, record: ledger.RunRecord, result: RunResult | None, result_json: str | None, lines_csv_text: str | None = None,
+        summary_body_text: str | None = None,
     ) -> None:
         """Write a processed run's reports (retried while the disk is full, given up only when
         the station stops: a problem event, never a crash) and announce the run (a failed run
@@ -626,7 +639,8 @@ class Station:
             backoff = Backoff()
             while folder is None:
                 try:
-                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json, lines_csv_text))
+                    folder = str(write_reports(self.data_dir, record.run_id, record.version, result, result_json,
+                                               lines_csv_text, summary_body_text))
                 except OSError as error:
                     backoff.failed()
                     if backoff.worth_saying:
@@ -656,4 +670,4 @@ class Station:
             return
         record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json, provenance=info.provenance)
         info.answer["run_id"] = record.run_id
-        self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv)
+        self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv, outcome.summary_body)

@@ -16,7 +16,17 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
-from watchdog.events import FileSystemEvent, FileSystemEventHandler
+from watchdog.events import (
+    DirCreatedEvent,
+    DirDeletedEvent,
+    DirMovedEvent,
+    FileClosedEvent,
+    FileCreatedEvent,
+    FileDeletedEvent,
+    FileMovedEvent,
+    FileSystemEvent,
+    FileSystemEventHandler,
+)
 from watchdog.observers import Observer
 from watchdog.observers.api import BaseObserver
 from watchdog.observers.polling import PollingObserver
@@ -175,10 +185,20 @@ def start_observer(
         return observer, f"{kind}, top folder only"
 
 
+# What the native observer asks the kernel for: a file appearing (created, moved in), written
+# and closed, or gone, and folders coming and going. Not each write (an export of 2 MB is
+# dozens of them, all handled in Python for nothing: the settler watches size and time stamp
+# itself) nor attribute changes; a file changed without being closed is found by the rescan.
+NATIVE_EVENTS: list[type[FileSystemEvent]] = [
+    FileCreatedEvent, FileMovedEvent, FileClosedEvent, FileDeletedEvent, DirCreatedEvent, DirMovedEvent, DirDeletedEvent,
+]
+
+
 def _start(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None]) -> tuple[BaseObserver, str]:
     use_polling = poll or needs_polling(root)
     observer: BaseObserver = PollingObserver(timeout=POLL_INTERVAL_SECONDS) if use_polling else Observer()
-    observer.schedule(_Forwarder(notify), str(root), recursive=recursive)
+    observer.schedule(_Forwarder(notify), str(root), recursive=recursive,
+                      event_filter=None if use_polling else NATIVE_EVENTS)
     try:
         observer.start()
     except OSError:

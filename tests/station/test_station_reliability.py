@@ -192,6 +192,10 @@ def test_crash_hang_and_memory_blow_up_become_failed_runs(make_station, folders)
     assert runs["hog.csv"].status == "failed" and runs["hog.csv"].error.startswith("out of memory")
     assert runs["good.csv"].status == "processed"
     assert sorted(Path(e.path).name for e in events if isinstance(e, RunFailed)) == ["crash.csv", "hang.csv", "hog.csv"]
+    # each run carries its file's sha256 (a failed one hashed by the station, a result by its
+    # worker), so a restart knows the content and skips it unchanged
+    for name, run in runs.items():
+        assert run.sha256 == hashlib.sha256((export / name).read_bytes()).hexdigest(), name
     # the station still takes new files afterwards
     write_file(export / "later.csv", spectrum_csv(150))
     assert station.wait_idle(20)

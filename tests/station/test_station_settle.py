@@ -1,7 +1,6 @@
 """Settling: a file is taken only when stable and complete; vanished and incomplete files."""
 from __future__ import annotations
 
-import hashlib
 import os
 import time
 from pathlib import Path
@@ -42,7 +41,7 @@ def test_file_settles_only_after_the_settle_time_unchanged(tmp_path: Path) -> No
     clock.now += 0.11
     [settled] = settler.tick()
     assert isinstance(settled, SettledFile)
-    assert settled.sha256 == hashlib.sha256(b"1,2\n3,4\n").hexdigest()  # the complete content
+    assert settled.sha256 is None  # a complete file is hashed by the worker that reads it, not here
     assert settled.size_bytes == 8
     # the same unchanged file touched again is not pending again
     assert not settler.touch(str(path))
@@ -168,3 +167,30 @@ def test_settling_reads_only_regular_files(tmp_path: Path) -> None:
     [refused] = settler.tick()
     assert time.monotonic() - started < 1  # not blocked in open()
     assert isinstance(refused, RefusedFile) and "FIFO" in refused.reason
+
+
+def test_a_close_event_on_a_pending_file_restarts_its_wait_and_no_stat_is_made_before_it_is_due(
+    tmp_path: Path, monkeypatch
+) -> None:  # type: ignore[no-untyped-def]
+    """The station asks the kernel for close events, not each write: a pending file touched
+    after more was written waits the settle time from then; a file not yet due is not even
+    looked at (a burst of hundreds pending costs nothing per tick)."""
+    clock = Clock()
+    settler = Settler(0.5, 10.0, 1_000_000, clock)
+    path = tmp_path / "a.csv"
+    path.write_text("1,2\n")
+    assert settler.touch(str(path))
+    looked: list[str] = []
+    real = settler.change_stat
+    monkeypatch.setattr(settler, "change_stat", lambda p, found=None: looked.append(p) or real(p, found))
+    clock.now += 0.3
+    assert settler.tick() == [] and looked == []  # not due: no system call
+    path.write_text("1,2\n3,4\n")
+    _bump_mtime(path, 1)
+    assert settler.touch(str(path))  # the writer closed it: the wait starts again now (0.3)
+    looked.clear()
+    clock.now += 0.3
+    assert settler.tick() == [] and looked == []  # 0.6 s since the start but 0.3 s since the close
+    clock.now += 0.21
+    [settled] = settler.tick()
+    assert isinstance(settled, SettledFile) and settled.size_bytes == 8
