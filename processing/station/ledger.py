@@ -975,10 +975,11 @@ def _current_decisions(conn: Connection, run_ids: list[int] | None, instrument: 
     return _in_effect((row["run_id"], row["action"], _event(row)) for row in rows)
 
 
-def _current_actions(conn: Connection, instrument: str | None = None) -> dict[int, str]:
-    """run_id -> the action of the decision in effect ("accept", "flag"), of every run (of
-    `instrument` when given): what a listing shows, without building the events."""
-    return _in_effect((run_id, action, action) for run_id, action in _decision_rows(conn, "run_id, action", None, instrument))
+def _current_actions(conn: Connection, run_ids: list[int] | None, instrument: str | None = None) -> dict[int, str]:
+    """run_id -> the action of the decision in effect ("accept", "flag"), as `_current_decisions`
+    picks the runs: what a listing shows, without building the events."""
+    rows = _decision_rows(conn, "run_id, action", run_ids, instrument)
+    return _in_effect((run_id, action, action) for run_id, action in rows)
 
 
 def _decision_rows(conn: Connection, columns: str, run_ids: list[int] | None, instrument: str | None) -> list[Any]:
@@ -1126,10 +1127,7 @@ def list_run_columns(
 ) -> RunColumns:
     """The runs `list_runs` gives (same order, limit and filters), as columns of what a listing shows."""
     rows, replaced = _listing(conn, _COLUMNS_LISTING, (1, 7, 2), limit, latest_only, instrument)
-    if limit:
-        actions = {key: event.action for key, event in _current_decisions(conn, [int(row[0]) for row in rows]).items()}  # type: ignore[arg-type]
-    else:
-        actions = _current_actions(conn, instrument)
+    actions = _current_actions(conn, [int(row[0]) for row in rows] if limit else None, instrument)  # type: ignore[arg-type]
     (run_id, instrument_, version, status, verdict, species, processed_at, path, reasons_json,
      error, superseded_by) = zip(*rows) if rows else ((),) * 11
     joined = "\n" + "\n".join(path) if all(map(isinstance, path, itertools.repeat(str))) else None
