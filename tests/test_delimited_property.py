@@ -188,3 +188,39 @@ def test_whole_files_read_the_same_with_and_without_polars(monkeypatch) -> None:
         assert with_polars.wavenumber_cm1.tolist() == without.wavenumber_cm1.tolist() == x.tolist(), text[:20]
         assert np.array_equal(with_polars.absorbance, without.absorbance)
         assert with_polars.meta.notes == without.meta.notes
+
+
+def test_measured_and_demo_csv_files_read_the_same_with_and_without_polars(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """The measured teaching-lab spectra (tests/data/realdata) and the demo's CSV exports: the
+    same doubles and notes whether polars reads the body (forced, as in a station worker) or
+    numpy's reader does."""
+    import sys
+    from pathlib import Path
+
+    import pytest
+
+    pytest.importorskip("polars")
+    root = Path(__file__).resolve().parents[1]
+    files = sorted((root / "tests" / "data" / "realdata").glob("*.csv")) + sorted((root / "sample_runs").glob("*.csv"))
+    assert len(files) >= 6
+    monkeypatch.setattr(delimited, "POLARS_IMPORT_BYTES", 0)
+    polars_pass = delimited._polars_table
+    read_by_polars: list[str] = []
+
+    def counted(*args):  # type: ignore[no-untyped-def]
+        table = polars_pass(*args)
+        if table is not None:
+            read_by_polars.append(path.name)
+        return table
+
+    monkeypatch.setattr(delimited, "_polars_table", counted)
+    for path in files:
+        data = path.read_bytes()
+        with_polars = delimited.parse(data, path.name)
+        with monkeypatch.context() as hidden:
+            hidden.setitem(sys.modules, "polars", None)
+            without = delimited.parse(data, path.name)
+        assert np.array_equal(with_polars.wavenumber_cm1, without.wavenumber_cm1), path.name
+        assert np.array_equal(with_polars.absorbance, without.absorbance), path.name
+        assert with_polars.meta.notes == without.meta.notes, path.name
+    assert len(read_by_polars) >= len(files) - 1  # all but the export with a separator ending each row
