@@ -14,7 +14,7 @@ notebook's band fit on every file (ratio <= 1), and file -> whole result under 3
 300 ms at 1M points.
 
 Also: the delimited-text read alone against pandas' C reader on the same CSV files (target:
-ratio <= 1), as a one-shot process reads (polars, the fast-text extra, only for bodies of 16 MB
+ratio <= 1), as a one-shot process reads (polars, the fast-text extra, only for bodies of 32 MB
 or more) and as a station worker reads (polars imported at start: every delimited file), and
 the load average during the run.
 """
@@ -41,7 +41,7 @@ from scipy.signal import find_peaks
 
 from processing.pipeline import ProcessSettings, process_file
 from processing.readers import read_any
-from processing.readers.delimited import polars_module
+from processing.readers.delimited import POLARS_IMPORT_BYTES, polars_module
 from processing.readers.delimited import write_csv
 from processing.readers.jcamp_write import write_jcamp
 
@@ -117,6 +117,7 @@ def main() -> None:
     sizes = [int(s) for s in args.sizes.split(",")]
     print(f"load average at start: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
     rows, paths = [], []
+    readers: dict[tuple[int, str], str] = {}
     print(f"polars (fast-text extra): {'installed' if importlib.util.find_spec('polars') else 'not installed'}")
     with tempfile.TemporaryDirectory() as folder:
         for points in sizes:
@@ -135,8 +136,9 @@ def main() -> None:
                     pandas_read = our_read = None
                 rows.append((points, form, notebook, ours, pandas_read, our_read, (origin, b_upper, b_lower, fitted)))
                 paths.append(path)
+                readers[(points, form)] = _reader(path)
         # A station worker imports polars (the fast-text extra) at start and reads every
-        # delimited file with it; a one-shot `bandwatch process` only a body of 16 MB or more.
+        # delimited file with it; a one-shot `bandwatch process` only a body of 32 MB or more.
         worker = {}
         if polars_module() is not None:
             for (points, form, *_), path in zip(rows, paths):
@@ -159,7 +161,7 @@ def main() -> None:
             continue
         print(f"{points:>8} {form:>5} pandas {pandas_read[0]:6.1f}/{pandas_read[1]:6.1f}/{pandas_read[2]:6.1f}  "
               f"bandwatch {our_read[0]:6.1f}/{our_read[1]:6.1f}/{our_read[2]:6.1f}  ratio {our_read[1] / pandas_read[1]:.2f}"
-              f"  {'ok' if our_read[1] <= pandas_read[1] else 'SLOWER'}  ({_reader(points, form)})")
+              f"  {'ok' if our_read[1] <= pandas_read[1] else 'SLOWER'}  ({readers[(points, form)]})")
     if worker:
         print("\nas a station worker reads (polars imported at start): read alone, and file -> whole result")
         for points, form, notebook, _ours, pandas_read, _our_read, _fit in rows:
@@ -171,11 +173,13 @@ def main() -> None:
                   f"{whole[0]:6.1f}/{whole[1]:6.1f}/{whole[2]:6.1f}  ratio to notebook {whole[1] / notebook[1]:.2f}")
 
 
-def _reader(points: int, form: str) -> str:
-    """Which parser a one-shot process used for this file."""
+def _reader(path: Path) -> str:
+    """Which parser a one-shot process uses for this file."""
     if importlib.util.find_spec("polars") is None:
         return "numpy's reader"
-    return "polars" if points >= 500_000 else "numpy's reader (polars not imported for a small file)"
+    if path.stat().st_size >= POLARS_IMPORT_BYTES:
+        return "polars"
+    return f"numpy's reader: polars is not imported for {path.stat().st_size / 1e6:.0f} MB"
 
 
 if __name__ == "__main__":
