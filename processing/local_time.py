@@ -25,9 +25,15 @@ def parse_stamp(stamp: str | None) -> datetime | None:
 
 
 def local(stamp: str | None) -> datetime | None:
-    """The stamp in the local zone (`TZ`, else the system's)."""
+    """The stamp in the local zone (`TZ`, else the system's); at the ends of the calendar,
+    where the local time would fall outside years 1-9999 (a hand-edited ledger), in UTC."""
     found = parse_stamp(stamp)
-    return found.astimezone() if found is not None else None
+    if found is None:
+        return None
+    try:
+        return found.astimezone()
+    except (OverflowError, OSError):
+        return found
 
 
 def clock(stamp: str | None) -> str:
@@ -94,21 +100,28 @@ def _hour_shift(hour: str) -> tuple[str, str, int, str] | None:
         return None
     try:
         start = datetime.fromisoformat(hour + ":00:00+00:00").timestamp()
-    except ValueError:
+        first, last = time.localtime(start), time.localtime(start + 3599)
+    except (ValueError, OverflowError, OSError):  # not an hour, or beyond what the system's clock can say
         return None
-    first, last = time.localtime(start), time.localtime(start + 3599)
     offset = first.tm_gmtoff
     if offset != last.tm_gmtoff or offset % 60:
         return None
     minutes = (offset // 60) % 60
     this_hour = time.gmtime(start + offset - minutes * 60)  # local time is UTC + offset, all the hour
     next_hour = time.gmtime(start + offset - minutes * 60 + 3600)
+    if not (1 <= this_hour.tm_year and next_hour.tm_year <= 9999):
+        return None  # local time off the calendar datetime knows: `local_iso` says it in UTC
     sign, size = ("-", -offset) if offset < 0 else ("+", offset)
     return (_hour_text(this_hour), _hour_text(next_hour), minutes, f"{sign}{size // 3600:02d}:{size // 60 % 60:02d}")
 
 
 def _hour_text(moment: time.struct_time) -> str:
-    return time.strftime("%Y-%m-%dT%H", moment)
+    """`YYYY-MM-DDTHH` (strftime, fast; its %Y is not zero-padded below the year 1000 on every
+    system, so such a year is written out by hand)."""
+    text = time.strftime("%Y-%m-%dT%H", moment)
+    if len(text) == 13:
+        return text
+    return f"{moment.tm_year:04d}-{moment.tm_mon:02d}-{moment.tm_mday:02d}T{moment.tm_hour:02d}"
 
 
 def zone_name(stamp: str | None = None) -> str:

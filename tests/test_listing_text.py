@@ -51,7 +51,8 @@ def test_local_times_of_many_stamps_equal_the_ones_made_one_by_one(zone, name: s
     stamps = _stamps(3000, seed=len(name))
     stamps += sorted(stamps, reverse=True)[:500]  # a listing's order: newest first
     stamps += [None, "", "not a time", "2026-13-01T00:00:00Z", "2026-03-29T01:00:00+00:00", "2026-03-29T00:59:59Z",
-               "2026-10-25T00:59:59.999Z", "2026-10-25T01:00:00Z", "2026-01-01T00:00:60Z", "2026-01-01T05:00:00+02:00"]
+               "2026-10-25T00:59:59.999Z", "2026-10-25T01:00:00Z", "2026-01-01T00:00:60Z", "2026-01-01T05:00:00+02:00",
+               "0001-01-01T00:00:00Z", "0999-06-01T12:30:00.5Z", "1900-01-01T00:00:00Z", "9999-12-31T23:59:59Z"]
     assert local_iso_all(stamps) == [local_iso(stamp) for stamp in stamps]
 
 
