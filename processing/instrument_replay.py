@@ -117,8 +117,10 @@ class InstrumentReplay:
         self._thread.start()
 
     def stop(self, timeout: float = 5.0) -> None:
+        """Stop writing (a file half written stays so). Safe before `start` and after a start
+        that was interrupted (a hang-up signal while the thread was being started)."""
         self._stop.set()
-        if self._thread is not None:
+        if self._thread is not None and self._thread.is_alive():
             self._thread.join(timeout)
 
     @property

@@ -69,3 +69,19 @@ def test_stop_ends_the_replay_early(tmp_path: Path) -> None:
     replay.stop()
     assert time.monotonic() - started < 2  # does not sit out the 30 s interval
     assert [w.target.name for w in replay.written] == ["0.csv"]
+
+
+def test_stopping_a_replay_never_started_or_whose_start_was_interrupted_is_quiet(tmp_path: Path) -> None:
+    """A hang-up can reach the demo before the replay's thread exists, or while it is being
+    started: `stop` must not raise then (it did: "cannot join thread before it is started",
+    and the demo's folders were left behind)."""
+    source = tmp_path / "a.csv"
+    source.write_text("2000,0.1\n2001,0.2\n")
+    target = tmp_path / "export"
+    target.mkdir()
+    replay = InstrumentReplay([source], target, interval_seconds=0.0)
+    replay.stop()  # never started
+    replay = InstrumentReplay([source], target, interval_seconds=0.0)
+    replay._thread = threading.Thread(target=replay.run)  # created, interrupted before it started
+    replay.stop()
+    assert list(target.iterdir()) == []

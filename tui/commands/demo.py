@@ -86,12 +86,14 @@ def run(args: argparse.Namespace) -> int:
             _print_runs(data)
         return code
     finally:
-        replay.stop()
-        _restore(previous)
-        if args.keep:
-            print(f"demo: kept {root}", file=sys.stderr)
-        else:
-            shutil.rmtree(root, ignore_errors=True)
+        try:
+            replay.stop()
+        finally:  # the folders go even if stopping the replay fails
+            _restore(previous)
+            if args.keep:
+                print(f"demo: kept {root}", file=sys.stderr)
+            else:
+                shutil.rmtree(root, ignore_errors=True)
 
 
 HANGUP_SIGNALS = (signal.SIGHUP, signal.SIGTERM)
@@ -144,9 +146,9 @@ def _run_plain(config: StationConfig, replay: InstrumentReplay, count: int, once
 
     station = Station(config, on_event=on_event)
     station.start()
-    replay.start()
     deadline = time.monotonic() + exit_after if exit_after is not None else None
     try:
+        replay.start()  # inside: a hang-up while it starts still stops the station
         while not countdown.done.wait(0.1):
             if once and _all_handled(replay, station):
                 break
