@@ -40,11 +40,12 @@ def fitted_table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: s
 def column_table(headers: Sequence[str], columns: Sequence[Sequence[str]], width: int | None = None) -> str:
     """`fitted_table` of a table given column by column (left-justified): a long listing is
     padded and joined without turning its columns into rows and back."""
-    widths = [max(len(header), max(map(len, column), default=0)) for header, column in zip(headers, columns)]
+    widths = _widths(headers, columns)
     if width is not None and _total(widths) > width:
         return fitted_table(headers, list(zip(*columns)), width=width)
-    template = GAP.join("%%-%ds" % w for w in widths)
-    body = map(str.rstrip, map(template.__mod__, zip(*columns)))
+    # every cell fits its column (the widths are the widest cells): one format per row, no
+    # check for rows to wrap (`_block` makes it, 25 % of the time at 100,000 rows)
+    body = map(str.rstrip, map(_row_template(widths, set()).__mod__, zip(*columns)))
     return "\n".join([*_header_lines(headers, widths, set()), *body])
 
 
@@ -55,9 +56,7 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int]
     WRAP_AT_LEAST) are wrapped between words; a table still too wide is split into blocks of
     columns, each repeating the first column, so no cell is ever cut or broken mid-word."""
     right = right or set()
-    widths = [len(h) for h in headers]
-    for index, column in zip(range(len(widths)), zip(*rows)):  # column by column: 100,000 rows in a few ms
-        widths[index] = max(widths[index], max(map(len, column)))
+    widths = _widths(headers, list(zip(*rows)) or [()] * len(headers))
     limit = _TABLE_WIDTH.get()
     if limit is None or _total(widths) <= limit:
         return _block(headers, rows, right, widths)
@@ -89,6 +88,11 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int]
     return "\n\n".join(out)
 
 
+def _widths(headers: Sequence[str], columns: Sequence[Sequence[str]]) -> list[int]:
+    """Each column's widest cell, its header included (column by column: 100,000 rows in a few ms)."""
+    return [max(len(header), max(map(len, column), default=0)) for header, column in zip(headers, columns)]
+
+
 def _total(widths: Sequence[int]) -> int:
     return sum(widths) + len(GAP) * (len(widths) - 1)
 
@@ -98,9 +102,8 @@ def _block(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int
 
     A row whose cells all fit is one line, `template % row` (100,000 rows in a C loop); a
     longer cell makes the line longer than the widths add up to, and that row is wrapped."""
-    template = GAP.join(("%%%ds" if i in right else "%%-%ds") % w for i, w in enumerate(widths))
     one_line = _total(widths)
-    formatted = list(map(template.__mod__, map(tuple, rows)))
+    formatted = list(map(_row_template(widths, right).__mod__, map(tuple, rows)))
     if max(map(len, formatted), default=one_line) == one_line:
         body = list(map(str.rstrip, formatted))
     else:
@@ -111,6 +114,11 @@ def _block(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int
             else:
                 body += _block_lines(row, widths, right)
     return "\n".join(_header_lines(headers, widths, right) + body)
+
+
+def _row_template(widths: Sequence[int], right: set[int]) -> str:
+    """A %-format for one row at these widths (columns in `right` right-justified)."""
+    return GAP.join(("%%%ds" if i in right else "%%-%ds") % w for i, w in enumerate(widths))
 
 
 def _header_lines(headers: Sequence[str], widths: Sequence[int], right: set[int]) -> list[str]:

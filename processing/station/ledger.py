@@ -673,17 +673,23 @@ INSTRUMENTS_AND_CHANGES = """
 """
 
 
+def _rebuild_runs(conn: Connection, table_sql: str, name: str, columns: str) -> None:
+    """SQLite changes a table's layout only by building it anew: `table_sql` makes the table
+    `name`, `columns` of `runs` are copied into it, and it takes the name `runs`."""
+    for statement in _statements(table_sql):
+        conn.execute(statement)
+    conn.execute(f"INSERT INTO {name} ({columns}) SELECT {columns} FROM runs")
+    conn.execute("DROP TABLE runs")
+    conn.execute(f"ALTER TABLE {name} RENAME TO runs")
+
+
 def _add_instruments_and_changes(conn: sqlite3.Connection) -> None:
     """Migration 5 -> 6 on the file: `runs` rebuilt with `instrument` and `record_key` and the
     key (instrument, path, version) (SQLite cannot change a table's UNIQUE in place; `migrate`
     turns foreign keys off meanwhile), every column of version 5 carried over (provenance
     included), claims get `instrument`, and the change journal starts. Runs already recorded
     keep instrument "" until their station adopts them (`adopt_unnamed_runs`)."""
-    for statement in _statements(RUNS_TABLE_V6):
-        conn.execute(statement)
-    conn.execute(f"INSERT INTO runs_v6 ({_RUN_COLUMNS_V5}) SELECT {_RUN_COLUMNS_V5} FROM runs")
-    conn.execute("DROP TABLE runs")
-    conn.execute("ALTER TABLE runs_v6 RENAME TO runs")
+    _rebuild_runs(conn, RUNS_TABLE_V6, "runs_v6", _RUN_COLUMNS_V5)
     for statement in _statements(INSTRUMENTS_AND_CHANGES):
         conn.execute(statement)
 
@@ -715,11 +721,7 @@ def _add_reasons(conn: Connection) -> None:
         conn.execute(ledger_postgres.REASONS_COLUMN)
     else:
         row = conn.execute("SELECT seq FROM sqlite_sequence WHERE name = 'runs'").fetchone()
-        for statement in _statements(RUNS_TABLE_V7):
-            conn.execute(statement)
-        conn.execute(f"INSERT INTO runs_v7 ({_RUN_COLUMNS_V6}) SELECT {_RUN_COLUMNS_V6} FROM runs")
-        conn.execute("DROP TABLE runs")
-        conn.execute("ALTER TABLE runs_v7 RENAME TO runs")
+        _rebuild_runs(conn, RUNS_TABLE_V7, "runs_v7", _RUN_COLUMNS_V6)
         for statement in _statements(RUNS_INDEXES_V7):
             conn.execute(statement)
         if row is not None:

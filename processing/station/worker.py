@@ -12,6 +12,7 @@ nothing the analysis prints can corrupt the pipe.
 from __future__ import annotations
 
 import importlib
+import io
 import os
 import signal
 import sys
@@ -79,14 +80,16 @@ def _warm_analysis() -> None:
     from processing.instrument import Instrument
     from processing.pipeline import analyse, result_from_analysis
     from processing.readers import parse_bytes
+    from processing.readers.delimited import write_csv
     from processing.result_text import lines_csv, summary_body
     from processing.results import to_json
     from processing.simulate import SampleGas, SimulationSettings, simulate
 
     instrument = Instrument(resolution_cm1=0.1, first_cm1=2600.0, last_cm1=3100.0, snr=300.0, seed=1)
     spectrum = simulate(SimulationSettings(gases=(SampleGas("HCl", 0.01),), instrument=instrument)).spectrum
-    rows = "\n".join(f"{x!r},{y!r}" for x, y in zip(spectrum.wavenumber_cm1.tolist(), spectrum.absorbance.tolist()))
-    result = result_from_analysis("warm-up.csv", analyse(parse_bytes(f"cm-1,A\n{rows}\n".encode(), "warm-up.csv")))
+    text = io.BytesIO()
+    write_csv(text, spectrum)
+    result = result_from_analysis("warm-up.csv", analyse(parse_bytes(text.getvalue(), "warm-up.csv")))
     to_json(result), lines_csv(result), summary_body(result)
 
 

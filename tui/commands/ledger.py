@@ -196,8 +196,7 @@ def _list(conn: Connection, args: argparse.Namespace) -> int:
             "ver": [f"v{version}" for version in runs.version],
             "status": runs.status,
             "verdict": [verdict or "-" for verdict in runs.verdict],
-            "decision": [decision or ("replaced" if later is not None else "-")
-                         for decision, later in zip(runs.decision, runs.superseded_by)],
+            "decision": list(map(_decision_word, runs.decision, runs.superseded_by)),
             "species": safe_column(species or "-" for species in runs.species),
             "processed": local_iso_all(runs.processed_at),
             "file": safe_column(path.rpartition("/")[2] for path in runs.path),
@@ -223,11 +222,11 @@ def _no_cycle_collection() -> Iterator[None]:
             gc.enable()
 
 
-def _decision_word(record: RunRecord) -> str:
+def _decision_word(decision: str | None, superseded_by: int | None) -> str:
     """The decision; "replaced" for an undecided run a newer version of the file replaced."""
-    if record.decision:
-        return record.decision
-    return "replaced" if record.superseded_by is not None else "-"
+    if decision:
+        return decision
+    return "replaced" if superseded_by is not None else "-"
 
 
 def _format_problem(args: argparse.Namespace) -> str | None:
@@ -272,7 +271,7 @@ def _show(conn: Connection, args: argparse.Namespace) -> int:
     from processing.local_time import local_iso
     from processing.result_text import reasons_line, redo_description, status_word
 
-    decision = _decision_word(record)
+    decision = _decision_word(record.decision, record.superseded_by)
     if record.decision:
         decision += f" by {record.operator or '?'}" + (f": {record.decision_reason}" if record.decision_reason else "")
     verdict = (record.verdict or "-").upper()
