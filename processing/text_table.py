@@ -40,13 +40,13 @@ def fitted_table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: s
 def column_table(headers: Sequence[str], columns: Sequence[Sequence[str]], width: int | None = None) -> str:
     """`fitted_table` of a table given column by column (left-justified): a long listing is
     padded and joined without turning its columns into rows and back."""
-    widths = _widths(headers, columns)
-    if width is not None and _total(widths) > width:
+    widths = widths_of(headers, columns)
+    if width is not None and total_width(widths) > width:
         return fitted_table(headers, list(zip(*columns)), width=width)
     # every cell fits its column (the widths are the widest cells): one format per row, no
     # check for rows to wrap (`_block` makes it, 25 % of the time at 100,000 rows)
-    body = map(str.rstrip, map(_row_template(widths, set()).__mod__, zip(*columns)))
-    return "\n".join([*_header_lines(headers, widths, set()), *body])
+    body = map(str.rstrip, map(row_template(widths, set()).__mod__, zip(*columns)))
+    return "\n".join([*header_lines(headers, widths, set()), *body])
 
 
 def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int] | None = None) -> str:
@@ -56,27 +56,27 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int]
     WRAP_AT_LEAST) are wrapped between words; a table still too wide is split into blocks of
     columns, each repeating the first column, so no cell is ever cut or broken mid-word."""
     right = right or set()
-    widths = _widths(headers, list(zip(*rows)) or [()] * len(headers))
+    widths = widths_of(headers, list(zip(*rows)) or [()] * len(headers))
     limit = _TABLE_WIDTH.get()
-    if limit is None or _total(widths) <= limit:
+    if limit is None or total_width(widths) <= limit:
         return _block(headers, rows, right, widths)
     last = len(headers) - 1
     natural_last = widths[last]
     if last > 0 and last not in right and widths[last] > WRAP_AT_LEAST:  # prose: a cause, a reason, a model
-        widths[last] = max(WRAP_AT_LEAST, len(headers[last]), widths[last] - (_total(widths) - limit))
-    if _total(widths) <= limit:
+        widths[last] = max(WRAP_AT_LEAST, len(headers[last]), widths[last] - (total_width(widths) - limit))
+    if total_width(widths) <= limit:
         return _block(headers, rows, right, widths)
     # each block repeats the leading column(s) that name a row: one, or two when one is not unique
     keys = [0] if len({row[0] for row in rows}) == len(rows) or len(headers) < 3 else [0, 1]
     blocks, current = [], list(keys)
     for i in range(len(keys), len(headers)):
-        if _total([widths[j] for j in current + [i]]) > limit and len(current) > len(keys):
+        if total_width([widths[j] for j in current + [i]]) > limit and len(current) > len(keys):
             blocks.append(current)
             current = list(keys)
         current.append(i)
     blocks.append(current)
     if last in blocks[-1]:  # the prose column gets what its block leaves over
-        others = _total([widths[j] for j in blocks[-1] if j != last]) + len(GAP)
+        others = total_width([widths[j] for j in blocks[-1] if j != last]) + len(GAP)
         widths[last] = max(widths[last], min(natural_last, limit - others))
     out = []
     for number, block in enumerate(blocks):
@@ -88,12 +88,12 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int]
     return "\n\n".join(out)
 
 
-def _widths(headers: Sequence[str], columns: Sequence[Sequence[str]]) -> list[int]:
+def widths_of(headers: Sequence[str], columns: Sequence[Sequence[str]]) -> list[int]:
     """Each column's widest cell, its header included (column by column: 100,000 rows in a few ms)."""
     return [max(len(header), max(map(len, column), default=0)) for header, column in zip(headers, columns)]
 
 
-def _total(widths: Sequence[int]) -> int:
+def total_width(widths: Sequence[int]) -> int:
     return sum(widths) + len(GAP) * (len(widths) - 1)
 
 
@@ -102,8 +102,8 @@ def _block(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int
 
     A row whose cells all fit is one line, `template % row` (100,000 rows in a C loop); a
     longer cell makes the line longer than the widths add up to, and that row is wrapped."""
-    one_line = _total(widths)
-    formatted = list(map(_row_template(widths, right).__mod__, map(tuple, rows)))
+    one_line = total_width(widths)
+    formatted = list(map(row_template(widths, right).__mod__, map(tuple, rows)))
     if max(map(len, formatted), default=one_line) == one_line:
         body = list(map(str.rstrip, formatted))
     else:
@@ -113,15 +113,15 @@ def _block(headers: Sequence[str], rows: Sequence[Sequence[str]], right: set[int
                 body.append(line.rstrip())
             else:
                 body += _block_lines(row, widths, right)
-    return "\n".join(_header_lines(headers, widths, right) + body)
+    return "\n".join(header_lines(headers, widths, right) + body)
 
 
-def _row_template(widths: Sequence[int], right: set[int]) -> str:
+def row_template(widths: Sequence[int], right: set[int]) -> str:
     """A %-format for one row at these widths (columns in `right` right-justified)."""
     return GAP.join(("%%%ds" if i in right else "%%-%ds") % w for i, w in enumerate(widths))
 
 
-def _header_lines(headers: Sequence[str], widths: Sequence[int], right: set[int]) -> list[str]:
+def header_lines(headers: Sequence[str], widths: Sequence[int], right: set[int]) -> list[str]:
     """The header line(s) and the rule under them."""
     return _block_lines(headers, widths, right) + _block_lines(["-" * w for w in widths], widths, right)
 

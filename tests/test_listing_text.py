@@ -56,6 +56,37 @@ def test_local_times_of_many_stamps_equal_the_ones_made_one_by_one(zone, name: s
     assert local_iso_all(stamps) == [local_iso(stamp) for stamp in stamps]
 
 
+@pytest.mark.parametrize("name", ZONES)
+def test_a_column_of_ledger_stamps_is_shifted_whole_as_one_by_one(zone, name: str) -> None:  # type: ignore[no-untyped-def]
+    """A listing's column, every stamp in the ledger's form, over a year (two summer-time
+    changes in Berlin): the whole-column pass where the offsets are whole hours, else stamp by
+    stamp, and the same text as `local_iso` either way."""
+    from processing.local_time import _shifted_whole_hours
+
+    zone(name)
+    stamps = sorted(_stamps(4000, seed=7 + len(name)), reverse=True)
+    stamps += ["2026-03-29T00:59:59.999Z", "2026-03-29T01:00:00.000Z", "2026-10-25T00:30:00Z", "2026-10-25T01:30:00Z",
+               "2026-06-30T23:59:59+00:00", "2026-12-31T23:00:00.5Z", "2027-01-01T00:00:00Z"]
+    whole = _shifted_whole_hours(stamps)
+    # whole-hour offsets all year in UTC and Berlin (+1/+2 h); Nepal +5:45, Newfoundland -3:30/-2:30,
+    # Lord Howe +10:30/+11, Chatham +12:45/+13:45 (tz database): those go stamp by stamp
+    assert (whole is not None) == (name in ("UTC", "Europe/Berlin"))
+    assert local_iso_all(stamps) == [local_iso(stamp) for stamp in stamps]
+    assert whole is None or whole == [local_iso(stamp) for stamp in stamps]
+
+
+def test_a_column_with_one_odd_stamp_goes_stamp_by_stamp(zone) -> None:  # type: ignore[no-untyped-def]
+    from processing.local_time import _shifted_whole_hours
+
+    zone("Europe/Berlin")
+    good = sorted(_stamps(200, seed=3), reverse=True)
+    for odd in ("2026-01-01T٠٥:00:00Z", "2026-01-01T24:00:00Z", "2026-02-30T10:00:00Z", "2026-01-01T10:00:00+01:00",
+                "2026-01-01T10:00:60Z", "2026-01-01T10", None, ""):
+        stamps = [*good, odd]
+        assert _shifted_whole_hours(stamps) is None, odd
+        assert local_iso_all(stamps) == [local_iso(stamp) for stamp in stamps], odd
+
+
 def test_summer_time_starts_and_ends_on_the_hour_the_rules_say(zone) -> None:  # type: ignore[no-untyped-def]
     # EU summer time: from 01:00 UTC on the last Sunday of March to 01:00 UTC on the last
     # Sunday of October (Directive 2000/84/EC); CET is UTC+1, CEST UTC+2.

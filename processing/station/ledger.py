@@ -25,9 +25,11 @@ import os
 import sqlite3
 import stat
 import threading
+from collections import Counter
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, replace
 from datetime import datetime, timezone
+from operator import itemgetter
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TypeVar, Union
 from urllib.parse import quote, unquote_to_bytes
@@ -980,8 +982,17 @@ def _current_decisions(conn: Connection, run_ids: list[int] | None, instrument: 
 def _current_actions(conn: Connection, run_ids: list[int] | None, instrument: str | None = None) -> dict[int, str]:
     """run_id -> the action of the decision in effect ("accept", "flag"), as `_current_decisions`
     picks the runs: what a listing shows, without building the events."""
-    rows = _decision_rows(conn, "run_id, action", run_ids, instrument)
-    return _in_effect((run_id, action, action) for run_id, action in rows)
+    rows = [(run_id, action) for run_id, action in _decision_rows(conn, "run_id, action", run_ids, instrument)]
+    undone = {run_id for run_id, action in rows if action == UNDO}
+    found = dict(rows)  # a run without an undo: its last decision is in effect (every other action decides)
+    if undone:  # replayed: an undo reverts to the decision before the last
+        replayed = _in_effect((run_id, action, action) for run_id, action in rows if run_id in undone)
+        for run_id in undone:
+            if run_id in replayed:
+                found[run_id] = replayed[run_id]
+            else:
+                del found[run_id]
+    return found
 
 
 def _decision_rows(conn: Connection, columns: str, run_ids: list[int] | None, instrument: str | None) -> list[Any]:
@@ -1108,16 +1119,27 @@ class RunColumns:
     version: tuple[int, ...]
     status: tuple[str, ...]
     verdict: tuple[str | None, ...]
-    decision: tuple[str | None, ...]  # the decision in effect ("accept", "flag"), None when undecided
-    superseded_by: tuple[int | None, ...]  # the run id of the file's newest version when not this one
     species: tuple[str, ...]  # as stored: "H35Cl,H37Cl"
     processed_at: tuple[str | None, ...]  # UTC, ISO 8601 as stored
     path: tuple[str, ...]
     reasons: tuple[tuple[str, ...], ...]  # a processed run's main reasons
     error: tuple[str | None, ...]
+    # by run id, only the runs it applies to (few of 100,000)
+    decided: dict[int, str]  # the decision in effect ("accept", "flag")
+    replaced: dict[int, int]  # the run id of the file's newest version, for a run that is not it
 
     def __len__(self) -> int:
         return len(self.run_id)
+
+    @property
+    def decision(self) -> tuple[str | None, ...]:
+        """Run by run, the decision in effect; None when undecided."""
+        return tuple(map(self.decided.get, self.run_id))
+
+    @property
+    def superseded_by(self) -> tuple[int | None, ...]:
+        """Run by run, the run id of the file's newest version when not this one."""
+        return tuple(map(self.replaced.get, self.run_id))
 
 
 # the columns of RunColumns that come straight from the table, in its order
@@ -1125,10 +1147,12 @@ _COLUMNS_LISTING = "run_id, instrument, version, status, verdict, species, proce
 
 
 def list_run_columns(
-    conn: Connection, limit: int | None = None, *, latest_only: bool = False, instrument: str | None = None
+    conn: Connection, limit: int | None = None, *, latest_only: bool = False, instrument: str | None = None,
+    run_range: tuple[int, int] | None = None,
 ) -> RunColumns:
-    """The runs `list_runs` gives (same order, limit and filters), as columns of what a listing shows."""
-    rows, replaced = _listing(conn, _COLUMNS_LISTING, (1, 7, 2), limit, latest_only, instrument)
+    """The runs `list_runs` gives (same order, limit and filters), as columns of what a listing
+    shows; `run_range` (first, last run id) keeps the runs in it, of a listing made in parts."""
+    rows, replaced = _listing(conn, _COLUMNS_LISTING, (1, 7, 2), limit, latest_only, instrument, run_range=run_range)
     actions = _current_actions(conn, [int(row[0]) for row in rows] if limit else None, instrument)  # type: ignore[arg-type]
     (run_id, instrument_, version, status, verdict, species, processed_at, path, reasons_json,
      error, superseded_by) = zip(*rows) if rows else ((),) * 11
@@ -1141,15 +1165,16 @@ def list_run_columns(
     return RunColumns(
         run_id=run_id, instrument=instrument_, version=version,  # type: ignore[arg-type]
         status=status, verdict=verdict, species=species, processed_at=processed_at, path=path,  # type: ignore[arg-type]
-        decision=tuple(map(actions.get, run_id)),
-        superseded_by=superseded_by if limit is not None else tuple(map(replaced.get, run_id)),  # type: ignore[arg-type]
         reasons=tuple(map(reasons_of.__getitem__, reasons_json)), error=error,  # type: ignore[arg-type]
+        decided=actions,
+        replaced=replaced if limit is None else {  # type: ignore[dict-item]
+            run: newer for run, newer in zip(run_id, superseded_by) if newer is not None},
     )
 
 
 def _listing(
     conn: Connection, columns: str, key: tuple[int, int, int], limit: int | None, latest_only: bool,
-    instrument: str | None, then: str = "",
+    instrument: str | None, then: str = "", run_range: tuple[int, int] | None = None,
 ) -> tuple[list[tuple[SqlValue, ...]], dict[int, int]]:
     """The rows of a listing (`columns`, superseded_by, then the columns `then` adds; run_id
     first, the positions of instrument, path and version in `key`) and the replaced runs."""
@@ -1160,6 +1185,9 @@ def _listing(
         params.append(instrument)
     if latest_only:
         conditions.append(_NEWEST)
+    if run_range is not None:
+        conditions.append("run_id BETWEEN ? AND ?")
+        params += [int(run_range[0]), int(run_range[1])]
     where = f" WHERE {' AND '.join(conditions)}" if conditions else ""
     # Without a limit the rows hold every version of their files (or, latest_only, none is
     # replaced): the newer version is found among them, not by a query per row.
@@ -1170,24 +1198,39 @@ def _listing(
         sql += " LIMIT ?"
         params.append(int(limit))
     rows = _tuples(conn, sql, tuple(params))
-    replaced = _replaced_by(rows, key) if every_version and not latest_only else {}
-    return rows, replaced
+    if not every_version or latest_only:
+        return rows, {}
+    # a part of the listing may not hold the newer version: the database finds them all
+    return rows, _replaced_by(rows, key) if run_range is None else _replaced_everywhere(conn, instrument)
+
+
+def _replaced_everywhere(conn: Connection, instrument: str | None) -> dict[int, int]:
+    """run_id -> the run id of its file's newest version, for every run in the ledger (of
+    `instrument` when given) that is not that version: the files with more than one version,
+    from the (instrument, path, version) index, then their older versions."""
+    mine = " WHERE instrument = ?" if instrument is not None else ""
+    sql = (
+        "SELECT older.run_id, newest.run_id FROM"
+        f" (SELECT instrument, path, MAX(version) AS version FROM runs{mine} GROUP BY instrument, path HAVING COUNT(*) > 1) AS file"
+        " JOIN runs AS newest ON newest.instrument = file.instrument AND newest.path = file.path AND newest.version = file.version"
+        " JOIN runs AS older ON older.instrument = file.instrument AND older.path = file.path AND older.version < file.version"
+    )
+    return dict(_tuples(conn, sql, (instrument,) if instrument is not None else ()))  # type: ignore[arg-type]
 
 
 def _replaced_by(rows: list[tuple[SqlValue, ...]], key: tuple[int, int, int]) -> dict[int, int]:
     """run_id -> the run id of its file's newest version, for every row that is not that
     version (run_id first in each row; instrument, path and version at the positions `key`).
-    Only the paths seen more than once are looked at: a ledger of one version per file is
-    told by one set of its paths (100,000 runs in a few ms)."""
+    Only the rows whose path is seen more than once are looked at, picked in C loops: a ledger
+    of one version per file is told by one set of its paths (100,000 runs in a few ms)."""
     at_instrument, at_path, at_version = key
-    paths = [row[at_path] for row in rows]
+    paths = list(map(itemgetter(at_path), rows))
     if len(set(paths)) == len(paths):
         return {}  # one version of every file: nothing replaced
-    seen: set[SqlValue] = set()
-    again = {path for path in paths if path in seen or seen.add(path)}  # type: ignore[func-returns-value]
+    again = {path for path, count in Counter(paths).items() if count > 1}
     newest: dict[tuple[SqlValue, SqlValue], tuple[int, int]] = {}
-    versions = [((row[at_instrument], path), int(row[at_version]), int(row[0]))  # type: ignore[arg-type]
-                for path, row in zip(paths, rows) if path in again]
+    versions = [((row[at_instrument], row[at_path]), int(row[at_version]), int(row[0]))  # type: ignore[arg-type]
+                for row in itertools.compress(rows, map(again.__contains__, paths))]
     for file, version, run_id in versions:
         if file not in newest or version > newest[file][0]:
             newest[file] = (version, run_id)

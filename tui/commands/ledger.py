@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from processing import strict_json
-from processing.safe_text import safe_column, safe_text
+from processing.safe_text import safe_text
 from tui.commands.watch import add_station_arguments
 
 if TYPE_CHECKING:
@@ -164,7 +164,7 @@ def run(args: argparse.Namespace) -> int:
     conn = ledger.open_ledger(where, read_only=reading)
     try:
         if args.action == "list":
-            return _list(conn, args)
+            return _list(conn, args, str(where))
         if args.action == "show":
             return _show(conn, args)
         if args.action == "export":
@@ -176,36 +176,26 @@ def run(args: argparse.Namespace) -> int:
         conn.close()
 
 
-def _list(conn: Connection, args: argparse.Namespace) -> int:
+def _list(conn: Connection, args: argparse.Namespace, where: str) -> int:
     from processing.station.ledger import list_run_columns, list_runs
 
     if args.json:
         runs = list_runs(conn, args.limit, latest_only=args.latest, with_result=False, instrument=args.instrument)
         sys.stdout.write("".join(strict_json.dumps_flat(run_public(record)) + "\n" for record in runs))
         return 0
-    from processing.local_time import local_iso_all
-    from processing.text_table import column_table, reasons_line
+    from processing.listing_halves import can_split, write_in_halves
+    from processing.listing_table import listing_table
     from tui.commands.process import table_width
 
+    width = table_width()
     with _no_cycle_collection():  # 100,000 runs are a million objects, none of them in a cycle
+        span = can_split(conn, args.instrument, sys.stdout) if width is None and args.limit is None else None
+        if span is not None:  # a long listing, not for a terminal: on two cores
+            write_in_halves(where, conn, span, sys.stdout, latest_only=args.latest, instrument=args.instrument)
+            return 0
         # column by column: 100,000 runs without an object per run (`RunColumns`)
         runs = list_run_columns(conn, args.limit, latest_only=args.latest, instrument=args.instrument)
-        columns = {
-            "run": list(map(str, runs.run_id)),
-            "instrument": safe_column(name or "-" for name in runs.instrument),
-            "ver": [f"v{version}" for version in runs.version],
-            "status": runs.status,
-            "verdict": [verdict or "-" for verdict in runs.verdict],
-            "decision": list(map(_decision_word, runs.decision, runs.superseded_by)),
-            "species": safe_column(species or "-" for species in runs.species),
-            "processed": local_iso_all(runs.processed_at),
-            "file": safe_column(path.rpartition("/")[2] for path in runs.path),
-            "reasons": safe_column(reasons_line(reasons) if status == "processed" else (error or "")
-                                   for status, reasons, error in zip(runs.status, runs.reasons, runs.error)),
-        }
-        if not any(runs.instrument):  # a ledger from before instruments: no column of dashes
-            del columns["instrument"]
-        sys.stdout.write(column_table(list(columns), list(columns.values()), width=table_width()) + "\n")
+        sys.stdout.write(listing_table(runs, width=width) + "\n")
     return 0
 
 
@@ -220,13 +210,6 @@ def _no_cycle_collection() -> Iterator[None]:
     finally:
         if was_on:
             gc.enable()
-
-
-def _decision_word(decision: str | None, superseded_by: int | None) -> str:
-    """The decision; "replaced" for an undecided run a newer version of the file replaced."""
-    if decision:
-        return decision
-    return "replaced" if superseded_by is not None else "-"
 
 
 def _format_problem(args: argparse.Namespace) -> str | None:
@@ -270,8 +253,9 @@ def _show(conn: Connection, args: argparse.Namespace) -> int:
         return 0
     from processing.local_time import local_iso
     from processing.result_text import reasons_line, redo_description, status_word
+    from processing.listing_table import decision_word
 
-    decision = _decision_word(record.decision, record.superseded_by)
+    decision = decision_word(record.decision, record.superseded_by)
     if record.decision:
         decision += f" by {record.operator or '?'}" + (f": {record.decision_reason}" if record.decision_reason else "")
     verdict = (record.verdict or "-").upper()
