@@ -24,6 +24,7 @@ if TYPE_CHECKING:
     from processing.station.ledger import Connection
 
 SPLIT_FROM_RUNS = 20_000  # run ids spanned; fewer: one process is as quick (a fork and a second connection cost ~20 ms)
+ONE_PROCESS_VARIABLE = "BANDWATCH_LIST_ONE_PROCESS"  # set (non-empty): every listing by one process
 _FRAME = struct.Struct("!I")  # the length of each pickled message between the two processes
 
 
@@ -31,7 +32,7 @@ def can_split(conn: Connection, instrument: str | None, out: IO[str]) -> tuple[i
     """The first and last run id of the listing when it spans enough runs to be made in two
     processes, on a system that can fork, written to a file both can write to (`out` has a
     file descriptor: not a capture in memory); None otherwise."""
-    if not hasattr(os, "fork") or sys.platform != "linux":
+    if not hasattr(os, "fork") or sys.platform != "linux" or os.environ.get(ONE_PROCESS_VARIABLE):
         return None
     try:
         out.fileno()

@@ -96,4 +96,6 @@ def test_a_short_or_empty_ledger_or_a_capture_is_listed_by_one_process(ledger_at
         monkeypatch.setattr(listing_halves, "SPLIT_FROM_RUNS", 2)
         assert listing_halves.can_split(conn, None, out) is not None
         assert listing_halves.can_split(conn, "no-such-instrument", out) is None
+        monkeypatch.setenv(listing_halves.ONE_PROCESS_VARIABLE, "1")
+        assert listing_halves.can_split(conn, None, out) is None  # asked for one process
     assert listing_halves.can_split(conn, None, io.StringIO()) is None  # a child could not write into it
