@@ -12,11 +12,12 @@ older half itself; nothing is left out.
 """
 from __future__ import annotations
 
+import contextlib
 import os
 import pickle
 import struct
 import sys
-from typing import IO, TYPE_CHECKING, Any
+from typing import IO, TYPE_CHECKING, Union
 
 from processing.listing_table import ListingCells, column_widths, listing_cells, listing_header, listing_lines
 
@@ -69,7 +70,7 @@ def write_in_halves(where: str, conn: Connection, span: tuple[int, int], out: IO
     try:
         cells = listing_cells(list_run_columns(conn, latest_only=latest_only, instrument=instrument, run_range=newer))
         theirs = _receive(from_child)
-        if theirs is None:  # the child could not make its half: made here
+        if not isinstance(theirs, tuple):  # the child could not make its half: made here
             older_cells = listing_cells(list_run_columns(conn, latest_only=latest_only, instrument=instrument, run_range=older))
             widths, with_instrument = _merged((column_widths(cells), cells.with_instrument),
                                               (column_widths(older_cells), older_cells.with_instrument))
@@ -105,18 +106,18 @@ def _child(where: str, span: tuple[int, int], latest_only: bool, instrument: str
                                                              run_range=span))
         conn.close()
         _send(to_parent, (column_widths(cells), cells.with_instrument))
-        widths, with_instrument = _receive(from_parent)
-        lines = listing_lines(cells, widths, with_instrument)
+        whole = _receive(from_parent)
+        if not isinstance(whole, tuple):
+            return  # the parent is gone or failed: nothing to write
+        lines = listing_lines(cells, *whole)
         if _receive(from_parent) == "write":
             _write_lines(out, lines)
             out.flush()
             _send(to_parent, "written")
             status = 0
     except BaseException:  # noqa: BLE001 - whatever it was, the parent makes the half or says it failed
-        try:
+        with contextlib.suppress(OSError):  # the parent may be gone already
             _send(to_parent, None)
-        except OSError:
-            pass
     finally:
         os._exit(status)
 
@@ -137,15 +138,21 @@ def _pipe() -> tuple[IO[bytes], IO[bytes]]:
     return os.fdopen(write_fd, "wb"), os.fdopen(read_fd, "rb")
 
 
-def _send(end: IO[bytes], message: Any) -> None:
+# between the two processes: a half's (column widths, with an instrument column); "write",
+# "written"; None when a process failed
+Message = Union[tuple[list[int], bool], str, None]
+
+
+def _send(end: IO[bytes], message: Message) -> None:
     data = pickle.dumps(message)
     end.write(_FRAME.pack(len(data)) + data)
     end.flush()
 
 
-def _receive(end: IO[bytes]) -> Any:
+def _receive(end: IO[bytes]) -> Message:
     """The next message; None when the other process is gone."""
     head = end.read(_FRAME.size)
     if len(head) < _FRAME.size:
         return None
-    return pickle.loads(end.read(_FRAME.unpack(head)[0]))
+    message: Message = pickle.loads(end.read(_FRAME.unpack(head)[0]))
+    return message
