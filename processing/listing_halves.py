@@ -22,7 +22,7 @@ from typing import IO, TYPE_CHECKING, Union
 from processing.listing_table import ListingCells, column_widths, listing_cells, listing_header, listing_lines
 
 if TYPE_CHECKING:
-    from processing.station.ledger import Connection
+    from processing.station.ledger import Connection, WholeListing
 
 SPLIT_FROM_RUNS = 20_000  # run ids spanned; fewer: one process is as quick (a fork and a second connection cost ~20 ms)
 ONE_PROCESS_VARIABLE = "BANDWATCH_LIST_ONE_PROCESS"  # set (non-empty): every listing by one process
@@ -52,11 +52,12 @@ def write_in_halves(where: str, conn: Connection, span: tuple[int, int], out: IO
     """Write the listing of the runs in `span` (`can_split`) to `out`: the newer half made
     here (through `conn`), the older half by a child process reading the ledger at `where`.
     True when the child made its half; False when it failed and this process made it."""
-    from processing.station.ledger import LedgerError, is_server_url, list_run_columns, shown_url
+    from processing.station.ledger import LedgerError, is_server_url, list_run_columns, shown_url, whole_listing
 
     first, last = span
     middle = (first + last) // 2
-    older, newer = (first, middle), (middle + 1, last)
+    whole = whole_listing(conn, latest_only=latest_only, instrument=instrument)  # once, for both halves
+    older, newer = ((first, middle), whole), ((middle + 1, last), whole)
     out.flush()  # nothing buffered is written twice
     to_parent, from_child = _pipe()
     to_child, from_parent = _pipe()
@@ -68,10 +69,10 @@ def write_in_halves(where: str, conn: Connection, span: tuple[int, int], out: IO
     to_parent.close()
     from_parent.close()
     try:
-        cells = listing_cells(list_run_columns(conn, latest_only=latest_only, instrument=instrument, run_range=newer))
+        cells = listing_cells(list_run_columns(conn, latest_only=latest_only, instrument=instrument, part=newer))
         theirs = _receive(from_child)
         if not isinstance(theirs, tuple):  # the child could not make its half: made here
-            older_cells = listing_cells(list_run_columns(conn, latest_only=latest_only, instrument=instrument, run_range=older))
+            older_cells = listing_cells(list_run_columns(conn, latest_only=latest_only, instrument=instrument, part=older))
             widths, with_instrument = _merged((column_widths(cells), cells.with_instrument),
                                               (column_widths(older_cells), older_cells.with_instrument))
             _write_lines(out, [*listing_header(widths, with_instrument), *listing_lines(cells, widths, with_instrument),
@@ -92,7 +93,7 @@ def write_in_halves(where: str, conn: Connection, span: tuple[int, int], out: IO
         os.waitpid(child, 0)
 
 
-def _child(where: str, span: tuple[int, int], latest_only: bool, instrument: str | None,
+def _child(where: str, part: tuple[tuple[int, int], WholeListing], latest_only: bool, instrument: str | None,
            to_parent: IO[bytes], from_parent: IO[bytes], out: IO[str]) -> None:
     """The child's part: the lines of the older half, written when the parent says so. It
     never touches the parent's connection, and leaves by os._exit (no clean-up of the parent's
@@ -103,7 +104,7 @@ def _child(where: str, span: tuple[int, int], latest_only: bool, instrument: str
 
         conn = open_ledger(where, read_only=True)
         cells: ListingCells = listing_cells(list_run_columns(conn, latest_only=latest_only, instrument=instrument,
-                                                             run_range=span))
+                                                             part=part))
         conn.close()
         _send(to_parent, (column_widths(cells), cells.with_instrument))
         whole = _receive(from_parent)

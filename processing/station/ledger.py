@@ -1146,14 +1146,34 @@ class RunColumns:
 _COLUMNS_LISTING = "run_id, instrument, version, status, verdict, species, processed_at, path, reasons_json, error"
 
 
+@dataclass(frozen=True)
+class WholeListing:
+    """What each part of a listing made in parts needs of the whole (by run id): the decisions
+    in effect and the replaced runs (`whole_listing`)."""
+
+    decided: dict[int, str]
+    replaced: dict[int, int]
+
+
+def whole_listing(conn: Connection, *, latest_only: bool = False, instrument: str | None = None) -> WholeListing:
+    """The decisions in effect and the replaced runs of a listing without a limit (the newer
+    version may be in another part: the database finds them all, once for all parts)."""
+    return WholeListing(_current_actions(conn, None, instrument), {} if latest_only else _replaced_everywhere(conn, instrument))
+
+
 def list_run_columns(
     conn: Connection, limit: int | None = None, *, latest_only: bool = False, instrument: str | None = None,
-    run_range: tuple[int, int] | None = None,
+    part: tuple[tuple[int, int], WholeListing] | None = None,
 ) -> RunColumns:
     """The runs `list_runs` gives (same order, limit and filters), as columns of what a listing
-    shows; `run_range` (first, last run id) keeps the runs in it, of a listing made in parts."""
+    shows; `part` (first and last run id, and `whole_listing`) keeps the runs in that range, of
+    a listing without a limit made in parts."""
+    run_range, whole = part if part is not None else (None, None)
     rows, replaced = _listing(conn, _COLUMNS_LISTING, (1, 7, 2), limit, latest_only, instrument, run_range=run_range)
-    actions = _current_actions(conn, [int(row[0]) for row in rows] if limit else None, instrument)  # type: ignore[arg-type]
+    if whole is not None:
+        actions, replaced = whole.decided, whole.replaced
+    else:
+        actions = _current_actions(conn, [int(row[0]) for row in rows] if limit else None, instrument)  # type: ignore[arg-type]
     (run_id, instrument_, version, status, verdict, species, processed_at, path, reasons_json,
      error, superseded_by) = zip(*rows) if rows else ((),) * 11
     joined = "\n" + "\n".join(path) if all(map(isinstance, path, itertools.repeat(str))) else None
@@ -1198,10 +1218,9 @@ def _listing(
         sql += " LIMIT ?"
         params.append(int(limit))
     rows = _tuples(conn, sql, tuple(params))
-    if not every_version or latest_only:
+    if not every_version or latest_only or run_range is not None:  # a part's: `whole_listing`
         return rows, {}
-    # a part of the listing may not hold the newer version: the database finds them all
-    return rows, _replaced_by(rows, key) if run_range is None else _replaced_everywhere(conn, instrument)
+    return rows, _replaced_by(rows, key)
 
 
 def _replaced_everywhere(conn: Connection, instrument: str | None) -> dict[int, int]:

@@ -99,3 +99,19 @@ def test_a_short_or_empty_ledger_or_a_capture_is_listed_by_one_process(ledger_at
         monkeypatch.setenv(listing_halves.ONE_PROCESS_VARIABLE, "1")
         assert listing_halves.can_split(conn, None, out) is None  # asked for one process
     assert listing_halves.can_split(conn, None, io.StringIO()) is None  # a child could not write into it
+
+
+def test_parts_of_a_listing_hold_the_whole_listings_runs(ledger_at: str | Path) -> None:
+    """`list_run_columns` of two run-id ranges with `whole_listing`, put together, holds what
+    the whole listing holds: a part's replaced runs and decisions come from the whole."""
+    conn = lg.open_ledger(ledger_at)
+    _fill(conn, ("ftir-1", "ftir-2"))
+    for options in ({}, {"latest_only": True}, {"instrument": "ftir-2"}):
+        whole = lg.list_run_columns(conn, **options)  # type: ignore[arg-type]
+        facts = lg.whole_listing(conn, **options)  # type: ignore[arg-type]
+        middle = (min(whole.run_id) + max(whole.run_id)) // 2
+        newer = lg.list_run_columns(conn, part=((middle + 1, 10**9), facts), **options)  # type: ignore[arg-type]
+        older = lg.list_run_columns(conn, part=((0, middle), facts), **options)  # type: ignore[arg-type]
+        for name in ("run_id", "instrument", "version", "status", "verdict", "decision", "superseded_by", "species",
+                     "processed_at", "path", "reasons", "error"):
+            assert getattr(newer, name) + getattr(older, name) == getattr(whole, name), (options, name)
