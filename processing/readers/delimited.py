@@ -847,16 +847,25 @@ def starts_like(head: bytes) -> bool:
 
 
 def incomplete_reason(data: bytes) -> str | None:
-    """Why text bytes look still being written, or None: no newline at the end and either the
-    size is a multiple of 512 (a writer flushing its buffer mid-line) or the last line has fewer
-    fields than the one before. A file simply not ending in a newline is complete."""
-    if not data or data.endswith((b"\n", b"\r", b"\n\x00", b"\r\x00")):
+    """Why text bytes look still being written, or None (`incomplete_reason_of_ends`)."""
+    return incomplete_reason_of_ends(data[:ENDS_BYTES], data[-ENDS_BYTES:], len(data))
+
+
+ENDS_BYTES = 4096  # `incomplete_reason_of_ends` looks at no more than this of each end
+
+
+def incomplete_reason_of_ends(head: bytes, tail: bytes, size: int) -> str | None:
+    """Why text bytes look still being written, or None, from the first and last ENDS_BYTES
+    and the size: no newline at the end and either the size is a multiple of 512 (a writer
+    flushing its buffer mid-line) or the last line has fewer fields than the one before. A
+    file simply not ending in a newline is complete."""
+    if not size or tail.endswith((b"\n", b"\r", b"\n\x00", b"\r\x00")):
         return None
-    if len(data) % WRITE_BLOCK == 0:
+    if size % WRITE_BLOCK == 0:
         return "last line looks cut off (still being written?)"
-    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+    if head.startswith((b"\xff\xfe", b"\xfe\xff")):
         return None  # UTF-16: fields are not compared
-    lines = data[-4096:].splitlines()
+    lines = tail[-ENDS_BYTES:].splitlines()
     if len(lines) < 3:
         return None
     if len(_FIELD_SPLIT.split(lines[-1].strip())) < len(_FIELD_SPLIT.split(lines[-2].strip())):

@@ -9,6 +9,9 @@ Each reader module offers:
     starts_like(head: bytes) -> bool      the bytes begin as this format does (even cut short)
     incomplete_reason(data: bytes) -> str | None
                                           why the bytes are not yet a whole file, or None
+    incomplete_reason_of_ends(head, tail, size) -> str | None   (optional)
+                                          the same, told by the first and last ENDS_BYTES and
+                                          the size (a format that need not count its blocks)
     TAKE_WHEN_WAITED_OUT: bool            still incomplete after the longest wait: analyse
                                           as it stands (True) or record as unreadable
 Adding a format = one module with those names, listed in `reader_modules` below; what the formats
@@ -88,11 +91,28 @@ class Incomplete:
 def incomplete(data: bytes) -> Incomplete | None:
     """Whether `data` is a whole file, by the rules of the format it starts like (the station
     waits for more while it is not); None when it looks complete."""
-    head = data[:HEAD_BYTES]
+    reader = _started_like(data[:HEAD_BYTES])
+    why = reader.incomplete_reason(data) if reader is not None else None
+    return Incomplete(why, reader.TAKE_WHEN_WAITED_OUT) if reader is not None and why else None
+
+
+ENDS_BYTES = HEAD_BYTES  # of each end of a file, for `looks_whole_by_ends`
+
+
+def looks_whole_by_ends(head: bytes, tail: bytes, size: int) -> bool:
+    """True when a file of `size` bytes is whole by the rules of its format told by its first
+    and last ENDS_BYTES alone (delimited text); False when it looks cut off, or its format
+    needs all of it to say (JCAMP-DX counts its blocks): then `incomplete` of the whole says."""
+    reader = _started_like(head[:HEAD_BYTES])
+    of_ends = getattr(reader, "incomplete_reason_of_ends", None)
+    return reader is None or (of_ends is not None and of_ends(head, tail, size) is None)
+
+
+def _started_like(head: bytes) -> ModuleType | None:
+    """The reader whose format the bytes begin as (the most specific first)."""
     for reader in reader_modules():
         if reader.starts_like(head):
-            why = reader.incomplete_reason(data)
-            return Incomplete(why, reader.TAKE_WHEN_WAITED_OUT) if why else None
+            return reader
     return None
 
 

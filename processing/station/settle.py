@@ -21,8 +21,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from processing.errors import SpectrumFileError
-from processing.readers import incomplete
-from processing.regular_files import ReadPolicy, check_place, read_regular
+from processing.readers.registry import ENDS_BYTES, incomplete, looks_whole_by_ends
+from processing.regular_files import ReadPolicy, check_place, read_ends, read_regular
 
 @dataclass(frozen=True)
 class SettledFile:
@@ -193,24 +193,55 @@ class Settler:
                 outcomes.append(outcome)
         return outcomes
 
+    def _read_ends(self, path: str, state: _Pending, now: float) -> tuple[bytes, bytes, int] | RefusedFile | None:
+        """The file's first and last ENDS_BYTES and its size (`_unchanged`)."""
+        try:
+            head, tail, size = read_ends(path, self.max_bytes, ENDS_BYTES, self.policy)
+        except SpectrumFileError as error:
+            return self._refused(path, state, error)
+        return (head, tail, size) if self._unchanged(path, state, now, size) else None
+
+    def _read_whole(self, path: str, state: _Pending, now: float) -> bytes | RefusedFile | None:
+        """The file's bytes when unchanged since its stat; RefusedFile when it may not be read;
+        None when it vanished or was written to meanwhile (its wait starts again)."""
+        try:
+            data = read_regular(path, self.max_bytes, self.policy)
+        except SpectrumFileError as error:
+            return self._refused(path, state, error)
+        return data if self._unchanged(path, state, now, len(data)) else None
+
+    @staticmethod
+    def _refused(path: str, state: _Pending, error: SpectrumFileError) -> RefusedFile | None:
+        if error.problem == "no such file":
+            return None  # vanished while opening: the next tick says so
+        return RefusedFile(path, str(error), state.size, state.mtime_ns)
+
+    def _unchanged(self, path: str, state: _Pending, now: float, size_read: int) -> bool:
+        """Whether the file is as its stat said while it was read; if not, its wait starts again."""
+        try:
+            after = self.change_stat(path)
+        except OSError:
+            return False  # vanished while reading: the next tick says so
+        if (after.st_size, after.st_mtime_ns) != (state.size, state.mtime_ns) or size_read != state.size:
+            state.size, state.mtime_ns, state.stable_since = after.st_size, after.st_mtime_ns, now
+            return False  # written to while we read: wait again
+        return True
+
     def _examine(self, path: str, state: _Pending, now: float) -> SettleOutcome | None:
         key = (state.size, state.mtime_ns)
         if state.incomplete_stat == key:
             why = state.incomplete_why
         else:
-            try:
-                data = read_regular(path, self.max_bytes, self.policy)
-            except SpectrumFileError as error:
-                if error.problem == "no such file":
-                    return None  # vanished while opening: the next tick says so
-                return RefusedFile(path, str(error), state.size, state.mtime_ns)
-            try:
-                after = self.change_stat(path)
-            except OSError:
-                return None  # vanished while reading: the next tick says so
-            if (after.st_size, after.st_mtime_ns) != key or len(data) != state.size:
-                state.size, state.mtime_ns, state.stable_since = after.st_size, after.st_mtime_ns, now
-                return None  # written to while we read: wait again
+            # a file whose format tells by its ends (text) is read no further than them; the
+            # whole file only when they say cut off, or its format counts blocks (JCAMP-DX)
+            ends = self._read_ends(path, state, now)
+            if not isinstance(ends, tuple):
+                return ends
+            if looks_whole_by_ends(*ends):
+                return SettledFile(path, None, state.size, state.mtime_ns)
+            data = self._read_whole(path, state, now)
+            if not isinstance(data, bytes):
+                return data
             found = incomplete(data)
             if found is None:
                 # not hashed here: the worker hashes the bytes it analyses, and the station a

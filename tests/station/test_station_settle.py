@@ -194,3 +194,46 @@ def test_a_close_event_on_a_pending_file_restarts_its_wait_and_no_stat_is_made_b
     clock.now += 0.21
     [settled] = settler.tick()
     assert isinstance(settled, SettledFile) and settled.size_bytes == 8
+
+
+def test_a_text_file_is_judged_whole_by_its_ends_as_by_all_of_it() -> None:
+    """Text is judged by its first and last 4 KB and its size, with the same answer as from
+    all its bytes, at every cut of a long export (mid-row, at 512-byte blocks, after a whole
+    row, without a final newline); JCAMP-DX is never judged by its ends (it counts blocks)."""
+    from processing.readers.registry import ENDS_BYTES, incomplete, looks_whole_by_ends
+
+    rows = "wavenumber,absorbance\n" + "".join(f"{2850 + i * 0.01:.4f},{0.01 * (i % 7):.6f}\n" for i in range(2000))
+    data = rows.encode()
+    cuts = sorted({*range(0, len(data), 97), *range(512, len(data), 512), len(data) - 1, len(data)})
+    judged = 0
+    for cut in cuts:
+        part = data[:cut]
+        by_ends = looks_whole_by_ends(part[:ENDS_BYTES], part[-ENDS_BYTES:] if part else b"", len(part))
+        assert by_ends == (incomplete(part) is None), cut
+        judged += by_ends
+    assert 0 < judged < len(cuts)  # both answers were seen
+    jcamp = (JCAMP_HEAD + "##END=\n").encode()
+    assert incomplete(jcamp) is None and not looks_whole_by_ends(jcamp, jcamp, len(jcamp))
+
+
+def test_a_whole_text_file_is_read_only_at_its_ends_while_it_settles(tmp_path: Path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    import processing.station.settle as settle_module
+
+    def no_whole_read(*args: object, **kwargs: object) -> bytes:
+        raise AssertionError("a whole text file was read to settle it")
+
+    clock = Clock()
+    settler = Settler(0.5, 10.0, 10_000_000, clock)
+    path = tmp_path / "long.csv"
+    path.write_text("wavenumber,absorbance\n" + "".join(f"{2850 + i * 0.01:.4f},0.001\n" for i in range(50_000)))
+    monkeypatch.setattr(settle_module, "read_regular", no_whole_read)
+    settler.touch(str(path))
+    clock.now += 0.6
+    [settled] = settler.tick()
+    assert isinstance(settled, SettledFile) and settled.size_bytes == path.stat().st_size
+    monkeypatch.undo()
+    cut = tmp_path / "cut.csv"  # cut mid-row: the whole file is read, and it waits
+    cut.write_bytes(path.read_bytes()[:40_000 * 19 + 7])
+    settler.touch(str(cut))
+    clock.now += 0.6
+    assert [type(outcome) for outcome in settler.tick()] == [WaitingFile]
