@@ -522,8 +522,13 @@ def _reference_text(comparison: Comparison | None) -> str:
 def summary_markdown(result: RunResult, run_id: int, version: int, body: str | None = None) -> str:
     """A short human summary of one run (summary.md): its title, then `summary_body` (`body`
     when a station worker already wrote it)."""
-    title = safe_text(f"# Run {run_id} v{version}: {Path(result.file).name}")
-    return f"{title}\n\n{summary_body(result) if body is None else body}"
+    return summary_with_title(run_id, version, result.file, summary_body(result) if body is None else body)
+
+
+def summary_with_title(run_id: int, version: int, file: str, body: str) -> str:
+    """summary.md: the run's title (its ledger id and version, known once recorded), then `body`."""
+    title = safe_text(f"# Run {run_id} v{version}: {Path(file).name}")
+    return f"{title}\n\n{body}"
 
 
 def summary_body(result: RunResult) -> str:

@@ -45,6 +45,7 @@ from processing.station.ledger_postgres import SqlParams, SqlValue, is_server_ur
 
 if TYPE_CHECKING:
     from processing.results import RunResult
+    from processing.run_digest import QuantityRow, RunDigest
     from processing.station.ledger_postgres import PostgresConnection
 
 # a ledger connection: the SQLite file's, or the server's (which takes the same SQL)
@@ -547,7 +548,7 @@ def _insert_returning(conn: Connection, sql: str, params: SqlParams, key: str) -
 # ---------------------------------------------------------------- runs
 
 
-def quantity_rows(result: RunResult) -> list[tuple[str, str, str, float, float | None, str]]:
+def quantity_rows(result: RunResult) -> list[QuantityRow]:
     """(isotopologue, band, quantity, value, sigma, unit) of every fitted quantity of a run:
     band constants with their band ("1-0"), molecular constants with band ""."""
     from processing.results import BAND_QUANTITIES, MOLECULAR_CONSTANTS
@@ -574,10 +575,11 @@ def _sigma(sigma: float | None) -> float | None:
     return float(sigma) if sigma is not None and _finite(sigma) else None
 
 
-def _insert_quantities(conn: Connection, run_id: int, result: RunResult) -> None:
+def _insert_quantities(conn: Connection, run_id: int, rows: Iterable[QuantityRow]) -> None:
+    """A run's fitted quantities (`quantity_rows`)."""
     conn.executemany(
         "INSERT INTO quantities (run_id, isotopologue, band, quantity, value, sigma, unit) VALUES (?, ?, ?, ?, ?, ?, ?)",
-        [(run_id, *row) for row in quantity_rows(result)],
+        [(run_id, *row) for row in rows],
     )
 
 
@@ -605,7 +607,7 @@ def _add_quantities_table(conn: Connection) -> None:
         for statement in _statements(QUANTITIES_TABLE):
             conn.execute(statement)
     for run_id, result in _stored_results(conn, "status = 'processed' AND result_json IS NOT NULL"):
-        _insert_quantities(conn, run_id, result)
+        _insert_quantities(conn, run_id, quantity_rows(result))
 
 
 def _stored_results(conn: Connection, where: str, batch: int = 500) -> Iterable[tuple[int, RunResult]]:
@@ -767,6 +769,7 @@ def record_run(
     *,
     result: RunResult | None = None,
     result_json: str | None = None,
+    digest: RunDigest | None = None,
     error: str | None = None,
     verdict: str | None = None,
     species: tuple[str, ...] | None = None,
@@ -786,26 +789,32 @@ def record_run(
 
     `verdict` and `species` default to what `result` says; `result_json` is its JSON text
     when the caller already encoded it (the reports write the same bytes). Its fitted
-    quantities go into `quantities` in the same transaction. `size_bytes` and `mtime_ns` are
+    quantities go into `quantities` in the same transaction. `digest` (`run_digest`, with
+    `result_json`) stands for the result: what is stored is taken from it, and the result
+    object is not needed (a station's worker made both). `size_bytes` and `mtime_ns` are
     the file's stat when it was read (lets a restart skip unchanged files without reading);
     `provenance` what the result was made with (analysis version, library and settings hashes).
     `record_key` makes the record idempotent: a run already recorded under that key is
     returned as it is, nothing is written (a spooled outcome replayed after a lost answer).
     """
-    from processing.result_text import main_reasons
+    from processing.run_digest import digest_of
     from processing.results import to_json
 
     if status not in RUN_STATUSES:
         raise ValueError(f"run status must be one of {RUN_STATUSES}, not {status!r}")
-    if verdict is None and result is not None:
-        verdict = result.verdict
-    if species is None:
-        species = result.species if result is not None else ()
+    if digest is None and result is not None:
+        digest = digest_of(result)
     if result is not None and result_json is None:
         result_json = to_json(result)
+    if digest is not None and result_json is None:
+        raise ValueError("a run recorded from its digest needs its result's JSON too")
+    if verdict is None and digest is not None:
+        verdict = digest.verdict
+    if species is None:
+        species = digest.species if digest is not None else ()
     if error is not None:
         error = safe_text(error)  # file names and header values are echoed in messages
-    reasons = main_reasons(result) if result is not None and status == "processed" else ()
+    reasons = digest.reasons if digest is not None and status == "processed" else ()
     stamp = now_iso()
     with _Transaction(conn):
         if record_key is not None:
@@ -826,7 +835,7 @@ def record_run(
                 status,
                 verdict,
                 ",".join(species),
-                result_json if result is not None else None,
+                result_json if digest is not None else None,
                 error,
                 received_at or stamp,
                 processed_at or stamp,
@@ -843,8 +852,8 @@ def record_run(
             ),
             "run_id",
         )
-        if result is not None and status == "processed":
-            _insert_quantities(conn, run_id, result)
+        if digest is not None and status == "processed":
+            _insert_quantities(conn, run_id, digest.quantities)
         if claim_id is not None:
             conn.execute("DELETE FROM claims WHERE claim_id = ?", (claim_id,))
     return RunRecord(  # a new run has no decision yet; no need to read it back

@@ -8,7 +8,9 @@ becomes a MemoryError in that worker instead of starving the machine.
 """
 from __future__ import annotations
 
+import functools
 import os
+import pickle
 import signal
 import subprocess
 import sys
@@ -22,6 +24,7 @@ from typing import Any
 
 from processing.pipeline import ProcessSettings
 from processing.results import RunResult
+from processing.run_digest import RunDigest
 from processing.station.worker import resolve_function
 
 __all__ = ["Job", "JobOutcome", "WorkerPool", "describe_exit", "resolve_function"]
@@ -41,20 +44,30 @@ class Job:
 
 @dataclass(frozen=True)
 class JobOutcome:
-    """What became of a job: `result` with its JSON text (encoded once, by the worker) or a
-    failure `reason`."""
+    """What became of a job: its result's JSON text, report texts and digest (`run_digest`),
+    all made once by the worker, or a failure `reason`. The result object itself comes
+    pickled and is rebuilt only when asked for (`result`): recording a run needs the digest."""
 
     job: Job
-    result: RunResult | None
+    result_pickle: bytes | None  # the RunResult as the worker pickled it
     reason: str | None  # set when the worker crashed, hung or ran out of memory
     seconds: float
     result_json: str | None = None
     lines_csv: str | None = None  # the lines.csv text, made by the worker too
     summary_body: str | None = None  # summary.md below its title (`result_text.summary_body`), too
+    digest: RunDigest | None = None
 
     @property
     def failed(self) -> bool:
         return self.reason is not None
+
+    @functools.cached_property
+    def result(self) -> RunResult | None:
+        """The result, unpickled on first use (from the worker: trusted bytes)."""
+        if self.result_pickle is None:
+            return None
+        found = pickle.loads(self.result_pickle)
+        return found if isinstance(found, RunResult) else None
 
 
 def describe_exit(exitcode: int | None) -> str:
@@ -276,8 +289,8 @@ class WorkerPool:
         seconds = time.monotonic() - slot.started
         if kind == "done":
             self._assign()  # keep the worker busy while this outcome is recorded
-            result, text, lines_text, summary_text = payload
-            self._report(JobOutcome(job, result, None, seconds, text, lines_text, summary_text))
+            result_pickle, text, lines_text, summary_text, digest = payload
+            self._report(JobOutcome(job, result_pickle, None, seconds, text, lines_text, summary_text, digest))
         else:
             if str(payload).startswith("out of memory"):
                 slot.retiring = True

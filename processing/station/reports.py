@@ -16,8 +16,9 @@ import secrets
 from dataclasses import replace
 from pathlib import Path
 
-from processing.result_text import LINE_COLUMNS, lines_csv, summary_markdown
+from processing.result_text import LINE_COLUMNS, lines_csv, summary_body, summary_markdown, summary_with_title
 from processing.results import RunResult, to_json
+from processing.run_digest import RunDigest
 
 __all__ = ["LINE_COLUMNS", "export_run_report", "lines_csv", "report_folder", "summary_markdown", "write_reports",
            "write_run_figure"]
@@ -50,18 +51,26 @@ def _write_atomic(path: Path, text: str | bytes) -> None:
 
 
 def write_reports(
-    data_dir: str | Path, run_id: int, version: int, result: RunResult, result_json: str | None = None,
+    data_dir: str | Path, run_id: int, version: int, result: RunResult | RunDigest, result_json: str | None = None,
     lines_csv_text: str | None = None, summary_body_text: str | None = None,
 ) -> Path:
     """Write the three report files for a run; returns their folder. `result_json`,
     `lines_csv_text` and `summary_body_text` are the result's JSON, lines.csv and summary.md
     (below its title) texts when a worker already made them (the ledger stores the same JSON
-    bytes)."""
+    bytes); with only the run's digest (`run_digest`) all three must be given."""
+    if isinstance(result, RunDigest):
+        if result_json is None or lines_csv_text is None or summary_body_text is None:
+            raise ValueError("reports from a run's digest need its JSON, lines.csv and summary texts")
+        texts = (result_json, lines_csv_text, summary_body_text)
+    else:
+        texts = (to_json(result) if result_json is None else result_json,
+                 lines_csv(result) if lines_csv_text is None else lines_csv_text,
+                 summary_body(result) if summary_body_text is None else summary_body_text)
     folder = report_folder(data_dir, run_id, result.file)
     folder.mkdir(parents=True, exist_ok=True)
-    _write_atomic(folder / "result.json", (result_json if result_json is not None else to_json(result)) + "\n")
-    _write_atomic(folder / "lines.csv", lines_csv_text if lines_csv_text is not None else lines_csv(result))
-    _write_atomic(folder / "summary.md", summary_markdown(result, run_id, version, summary_body_text))
+    _write_atomic(folder / "result.json", texts[0] + "\n")
+    _write_atomic(folder / "lines.csv", texts[1])
+    _write_atomic(folder / "summary.md", summary_with_title(run_id, version, result.file, texts[2]))
     return folder
 
 

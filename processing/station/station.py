@@ -31,6 +31,7 @@ from processing.provenance import Provenance, current_provenance
 from processing.readers import DEFAULT_MAX_BYTES
 from processing.regular_files import ReadPolicy, read_regular
 from processing.results import RunResult
+from processing.run_digest import RunDigest, digest_of
 from processing.station import ledger
 from processing.station.config import StationConfig, check_folders, station_settings
 from processing.station.events import (
@@ -603,7 +604,10 @@ class Station:
         if info.reprocess_of is not None:
             self._record_redo(outcome, info)  # its waiter is released by _handle_outcome
             return
-        if outcome.failed or outcome.result is None:
+        digest = outcome.digest
+        if digest is None and outcome.result is not None:  # a worker function's result without one
+            digest = digest_of(outcome.result)
+        if outcome.failed or digest is None or outcome.result_json is None:
             reason = outcome.reason or "no result"
             record = self.store.record(
                 info.path, info.sha256 or self._content_sha256(info.path), "failed", error=reason,
@@ -613,20 +617,20 @@ class Station:
             if record is not None:
                 self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
-        result = outcome.result
-        status = result.status if result.status in ("processed", "unreadable") else "failed"
+        # recorded and reported from the worker's digest and texts: the result object is not rebuilt
+        status = digest.status if digest.status in ("processed", "unreadable") else "failed"
         record = self.store.record(
-            info.path, result.sha256 or info.sha256 or self._content_sha256(info.path), status,
-            result=result, result_json=outcome.result_json, error=result.error,
+            info.path, digest.sha256 or info.sha256 or self._content_sha256(info.path), status,
+            digest=digest, result_json=outcome.result_json, error=digest.error,
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
         if record is not None:
-            self._report_and_announce(record, result, outcome.result_json, outcome.lines_csv, outcome.summary_body)
+            self._report_and_announce(record, digest, outcome.result_json, outcome.lines_csv, outcome.summary_body)
 
     def _report_and_announce(
-        self, record: ledger.RunRecord, result: RunResult | None, result_json: str | None, lines_csv_text: str | None = None,
-        summary_body_text: str | None = None,
+        self, record: ledger.RunRecord, result: RunResult | RunDigest | None, result_json: str | None,
+        lines_csv_text: str | None = None, summary_body_text: str | None = None,
     ) -> None:
         """Write a processed run's reports (retried while the disk is full, given up only when
         the station stops: a problem event, never a crash) and announce the run (a failed run

@@ -22,6 +22,7 @@ from typing import Any
 
 from processing.provenance import Provenance
 from processing.results import ResultFormatError, RunResult, from_json
+from processing.run_digest import RunDigest
 from processing.station import ledger
 from processing.station.events import (
     ClaimResumed,
@@ -111,10 +112,11 @@ class FileLedger:
         ledger.drop_claim(self.conn(), claim_id)
 
     def record(self, path: str, sha256: str | None, status: str, *, result: RunResult | None = None,
-               result_json: str | None = None, claim_id: int | None = None, **fields: Any) -> RunRecord | None:
+               result_json: str | None = None, claim_id: int | None = None, digest: RunDigest | None = None,
+               **fields: Any) -> RunRecord | None:
         """Record an outcome; None would mean "kept for later" (never for the file)."""
         return ledger.record_run(
-            self.conn(), path, sha256, status, result=result, result_json=result_json, claim_id=claim_id,
+            self.conn(), path, sha256, status, result=result, result_json=result_json, digest=digest, claim_id=claim_id,
             instrument=self.instrument, **fields,
         )
 
@@ -226,9 +228,11 @@ class ServerLedger(FileLedger):
         self.spool().drop_claim(claim_id)
 
     def record(self, path: str, sha256: str | None, status: str, *, result: RunResult | None = None,
-               result_json: str | None = None, claim_id: int | None = None, **fields: Any) -> RunRecord | None:
+               result_json: str | None = None, claim_id: int | None = None, digest: RunDigest | None = None,
+               **fields: Any) -> RunRecord | None:
         """Record on the server when it answers and nothing older waits; else keep the outcome
-        in the spool (returns None, a RunSpooled event says so) for the replayer."""
+        in the spool (returns None, a RunSpooled event says so) for the replayer, which
+        records it from its JSON."""
         if result is not None and result_json is None:
             from processing.results import to_json
 
@@ -242,7 +246,7 @@ class ServerLedger(FileLedger):
         if self._offline_since is None and self._waiting == 0:
             try:
                 record = ledger.record_run(
-                    self.conn(), path, sha256, status, result=result, result_json=result_json,
+                    self.conn(), path, sha256, status, result=result, result_json=result_json, digest=digest,
                     instrument=self.instrument, record_key=key, **_record_fields(fields),
                 )
             except LedgerUnavailable as error:

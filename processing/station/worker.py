@@ -14,6 +14,7 @@ from __future__ import annotations
 import importlib
 import io
 import os
+import pickle
 import signal
 import sys
 import threading
@@ -83,6 +84,7 @@ def _warm_analysis() -> None:
     from processing.readers.delimited import write_csv
     from processing.result_text import lines_csv, summary_body
     from processing.results import to_json
+    from processing.run_digest import digest_of
     from processing.simulate import SampleGas, SimulationSettings, simulate
 
     instrument = Instrument(resolution_cm1=0.1, first_cm1=2600.0, last_cm1=3100.0, snr=300.0, seed=1)
@@ -90,7 +92,7 @@ def _warm_analysis() -> None:
     text = io.BytesIO()
     write_csv(text, spectrum)
     result = result_from_analysis("warm-up.csv", analyse(parse_bytes(text.getvalue(), "warm-up.csv")))
-    to_json(result), lines_csv(result), summary_body(result)
+    to_json(result), lines_csv(result), summary_body(result), digest_of(result)
 
 
 def _exit_when_orphaned(parent: int) -> None:
@@ -104,6 +106,7 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
     """The worker loop."""
     from processing.result_text import lines_csv, summary_body
     from processing.results import RunResult, to_json
+    from processing.run_digest import digest_of
 
     try:
         function = resolve_function(function_spec)
@@ -129,7 +132,10 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
             result = function(path, settings)
             if not isinstance(result, RunResult):
                 raise TypeError(f"{function_spec} returned {type(result).__name__}, not a RunResult")
-            data = (result, to_json(result), lines_csv(result), summary_body(result))
+            # the station records and reports from the texts and the digest; the result
+            # object goes pickled (a bytes blob to the station's receiving thread)
+            data = (pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL), to_json(result), lines_csv(result),
+                    summary_body(result), digest_of(result))
         except MemoryError:
             outbox.send(("failed", job_id, f"out of memory (worker limit {memory_limit_mb} MB)"))
             return  # a fresh worker replaces this one

@@ -419,3 +419,31 @@ def test_listed_records_equal_the_ones_read_one_by_one(ledger_at: str | Path) ->
     assert by_id[first.run_id].reasons == ("calibration +0.24 cm-1",) and by_id[first.run_id].provenance == made_with
     assert (by_id[first.run_id].decision, by_id[newest.run_id].operator) == ("flag", "bo")
     assert [r.superseded_by for r in lg.list_runs(conn, latest_only=True, with_result=False)] == [None, None, None]
+
+
+def test_a_run_recorded_from_its_digest_is_stored_as_from_its_result(ledger_at: str | Path) -> None:
+    """A station's worker sends a result's JSON and digest (`run_digest`); the station records
+    from them without the result object. The ledger must hold the same row, reasons and
+    quantities as when recorded from the result; a digest without the JSON is refused."""
+    from dataclasses import replace
+
+    from processing.results import Check, to_json
+    from processing.run_digest import digest_of
+
+    shifted = Check("calibration", "warn", "wavenumber calibration offset: offset +0.240 +- 0.005 cm-1", 0.24)
+    result = replace(_result("warn"), checks=(shifted,))
+    conn = lg.open_ledger(ledger_at)
+    by_result = lg.record_run(conn, "/exp/a.csv", "1" * 64, "processed", result=result, processed_at="2026-03-05T09:15:00.000Z")
+    by_digest = lg.record_run(conn, "/exp/b.csv", "1" * 64, "processed", digest=digest_of(result),
+                              result_json=to_json(result), processed_at="2026-03-05T09:15:00.000Z")
+    columns = "status, verdict, species, reasons_json, result_json, error"
+    rows = [tuple(conn.execute(f"SELECT {columns} FROM runs WHERE run_id = ?", (run.run_id,)).fetchone())
+            for run in (by_result, by_digest)]
+    assert rows[0] == rows[1] and rows[0][1] == "warn" and "calibration" in rows[0][3]
+    quantities = [[tuple(row) for row in conn.execute(
+        "SELECT isotopologue, band, quantity, value, sigma, unit FROM quantities WHERE run_id = ? ORDER BY isotopologue, band, quantity",
+        (run.run_id,)).fetchall()] for run in (by_result, by_digest)]
+    assert quantities[0] == quantities[1] and len(quantities[0]) >= 4  # origin, B', B'' of the band; B_e
+    assert by_digest.reasons == by_result.reasons and by_digest.species == by_result.species
+    with pytest.raises(ValueError):
+        lg.record_run(conn, "/exp/c.csv", None, "processed", digest=digest_of(result))

@@ -83,3 +83,20 @@ def test_report_reads_the_run_from_the_ledger_where_the_station_keeps_it(
     folder = report_folder(data, run.run_id, "/exp/run 7.csv")
     assert capsys.readouterr().out.strip() == f"report written: {folder}"
     assert "H35Cl" in (folder / "report.txt").read_text() and (folder / "lines.csv").exists()
+
+
+def test_reports_from_a_digest_are_the_reports_from_the_result(tmp_path: Path) -> None:
+    """The station writes a run's reports from the worker's texts and digest; the files are the
+    ones written from the result; a digest without the texts is refused."""
+    from processing.result_text import summary_body
+    from processing.results import to_json
+    from processing.run_digest import digest_of
+
+    result = _result()
+    texts = (to_json(result), lines_csv(result), summary_body(result))
+    one = write_reports(tmp_path / "a", 7, 2, result)
+    two = write_reports(tmp_path / "b", 7, 2, digest_of(result), *texts)
+    for name in ("result.json", "lines.csv", "summary.md"):
+        assert (one / name).read_bytes() == (two / name).read_bytes(), name
+    with pytest.raises(ValueError):
+        write_reports(tmp_path / "c", 7, 2, digest_of(result), texts[0])
