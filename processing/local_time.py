@@ -106,10 +106,11 @@ def _whole_hour_shifts(hours: set[str]) -> dict[str, tuple[str, str]] | None:
     found: dict[str, tuple[str, str]] = {}
     for day, day_hours in by_day.items():
         offset = _day_offset(day)
+        text = _offset_text(offset) if offset is not None else ""
         for hour in day_hours:
             local_hour = int(hour[11:13]) + offset // 3600 if offset is not None else -1
             if 0 <= local_hour <= 23:
-                found[hour] = (f"{day}T{local_hour:02d}", _offset_text(offset))  # type: ignore[arg-type]
+                found[hour] = (f"{day}T{local_hour:02d}", text)
                 continue
             shift = _hour_shift(hour)
             if shift is None or shift[2]:
