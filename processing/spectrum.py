@@ -165,6 +165,21 @@ def handed_over(*arrays: np.ndarray) -> None:
         array.setflags(write=False)
 
 
+# Arrays are reversed in blocks of this many points: no copy of a whole spectrum.
+REVERSE_BLOCK = 1 << 16
+
+
+def reverse_in_place(array: np.ndarray) -> None:
+    """Reverse a one-dimensional writable array where it lies (a reader's own axis read in
+    descending order), a block at a time."""
+    size = array.size
+    for start in range(0, size // 2, REVERSE_BLOCK):
+        stop = min(start + REVERSE_BLOCK, size // 2)
+        front = array[start:stop].copy()
+        array[start:stop] = array[size - stop : size - start][::-1]
+        array[size - stop : size - start] = front[::-1]
+
+
 def to_absorbance(
     values: np.ndarray, y_kind: str, in_place: bool = False
 ) -> tuple[np.ndarray, np.ndarray, str]:

@@ -26,7 +26,7 @@ from typing import BinaryIO, TextIO
 import numpy as np
 
 from processing.errors import SpectrumFileError
-from processing.spectrum import handed_over, FileMetadata, Spectrum, to_absorbance
+from processing.spectrum import handed_over, FileMetadata, Spectrum, reverse_in_place, to_absorbance
 
 FORMAT_NAME = "delimited text"
 EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".dat", ".prn", ".asc")
@@ -836,7 +836,7 @@ def _parse(data: bytes, source: str) -> Spectrum:
         absorbance, saturated, conversion = to_absorbance(y, kind, in_place=True)
         if descending:
             for column in (x_cm1, absorbance, saturated):
-                _reverse_in_place(column)
+                reverse_in_place(column)
     else:
         if descending:
             x_cm1, y = x_cm1[::-1], y[::-1]
@@ -897,16 +897,6 @@ def _to_wavenumber(
     factor = 1e4 if unit == "micrometre" else 1e7
     notes.append(f"x converted from {unit}: cm-1 = {factor:g} / x")
     return factor / x
-
-
-def _reverse_in_place(array: np.ndarray) -> None:
-    """Reverse a contiguous array where it lies, a block at a time (no copy of the whole)."""
-    half = array.size // 2
-    for start in range(0, half, AXIS_BLOCK):
-        stop = min(start + AXIS_BLOCK, half)
-        front = array[start:stop].copy()
-        array[start:stop] = array[array.size - stop : array.size - start][::-1]
-        array[array.size - stop : array.size - start] = front[::-1]
 
 
 def _note_rounding(steps: _Steps, notes: list[str]) -> None:
