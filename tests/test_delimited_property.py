@@ -305,3 +305,36 @@ def test_arrays_sized_from_the_first_piece_grow_and_shrink_to_the_rows(monkeypat
         assert table.x.size == table.y.size == 6000
         assert table.x.tolist() == [float(row.split(",")[0]) for row in rows]
         assert table.y.tolist() == [float(row.split(",")[1]) for row in rows]
+
+
+def test_a_process_imports_polars_for_its_second_large_body_not_its_first() -> None:
+    """A one-shot process reading one large body keeps numpy's reader (polars' import alone is
+    32 MB resident: a 1M-point `bandwatch process` must stay under 100 MB); a second body of
+    POLARS_AGAIN_BYTES or more, or a first past POLARS_IMPORT_BYTES, brings polars in. Run in
+    a fresh interpreter: this one may have imported polars already. (Thresholds scaled down.)"""
+    import subprocess
+    import sys
+
+    import pytest
+
+    pytest.importorskip("polars")
+    code = (
+        "import sys\n"
+        "from processing.readers import delimited\n"
+        "delimited.POLARS_AGAIN_BYTES, delimited.POLARS_IMPORT_BYTES = 2_000, 50_000\n"
+        "small = b'x,A\\n' + b''.join(b'%d,0.5\\n' % (1000 + i) for i in range(200))\n"
+        "large = b'x,A\\n' + b''.join(b'%d,0.25\\n' % (1000 + i) for i in range(600))\n"
+        "huge = b'x,A\\n' + b''.join(b'%d,0.125\\n' % (1000 + i) for i in range(9000))\n"
+        "seen = []\n"
+        "for body in (sys.argv[1].split(',')):\n"
+        "    delimited.parse({'small': small, 'large': large, 'huge': huge}[body], 'a.csv')\n"
+        "    seen.append('polars' in sys.modules)\n"
+        "print(seen)\n"
+    )
+    for bodies, expected in (
+        ("small,small,large", [False, False, False]),
+        ("large,small,large", [False, False, True]),
+        ("huge", [True]),
+    ):
+        done = subprocess.run([sys.executable, "-c", code, bodies], capture_output=True, text=True, check=True)
+        assert done.stdout.strip() == str(expected), bodies

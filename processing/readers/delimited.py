@@ -501,18 +501,23 @@ def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int, y_column
 
 
 # polars (the `fast-text` extra) parses a delimited body several times faster than numpy's
-# reader, to the same bits (both round each decimal to the nearest double), but its import
-# takes ~0.11-0.2 s and 32 MB of resident memory, and its frame and the frame's copy as numpy
-# arrays twice the body's numbers. A one-shot process imports it only for a body this large: a
-# whole `bandwatch process` of a 1M-point file must stay under 100 MB (33 MB of 17-digit pairs:
-# 168 MB with polars, under 90 without), and a body past 64 MB cannot (the bytes and the
-# spectrum alone fill it), while polars saves 5-7 ms per MB there. Once imported it reads every
-# body (a station worker imports it at start, `worker.warm_up`, unless its memory limit is tight).
+# reader, to the same bits (both round each decimal to the nearest double): it saves 5-7 ms
+# per MB of body. But its import takes ~0.11-0.2 s and 32 MB of resident memory, and its frame
+# and the frame's numpy copy hold the body's numbers twice. A whole `bandwatch process` of a
+# 1M-point file must stay under 100 MB (33 MB of 17-digit pairs: 168 MB with polars, 86 MB
+# without), so a process imports it for its first large body only when that body is past
+# POLARS_IMPORT_BYTES (the bytes and the spectrum alone are then over the mark anyway), and
+# for any later body of POLARS_AGAIN_BYTES or more: a process that reads large bodies one
+# after another (a notebook, `bandwatch process` of many files) wins the import back from the
+# second on. Once imported it reads every body (a station worker imports it at start,
+# `worker.warm_up`, unless its memory limit is tight).
 POLARS_IMPORT_BYTES = 64_000_000
+POLARS_AGAIN_BYTES = 32_000_000
 _POLARS_SEPARATORS = (",", ";", "\t")
 
 
 _polars_allowed = True
+_large_bodies_read = 0  # bodies of POLARS_AGAIN_BYTES or more met in this process
 
 
 def forgo_polars() -> None:
@@ -522,11 +527,16 @@ def forgo_polars() -> None:
 
 
 def polars_module(body_bytes: int = POLARS_IMPORT_BYTES) -> ModuleType | None:
-    """polars, when installed, allowed, and worth it for a body of `body_bytes`; else None."""
+    """polars, when installed, allowed, and worth it for a body of `body_bytes` (see
+    POLARS_IMPORT_BYTES); else None."""
+    global _large_bodies_read
     if not _polars_allowed:
         return None
     module = sys.modules.get("polars")
-    if module is None and body_bytes >= POLARS_IMPORT_BYTES:
+    worth_importing = body_bytes >= POLARS_IMPORT_BYTES or (body_bytes >= POLARS_AGAIN_BYTES and _large_bodies_read > 0)
+    if body_bytes >= POLARS_AGAIN_BYTES:
+        _large_bodies_read += 1
+    if module is None and worth_importing:
         try:
             import polars as module
         except ImportError:  # not installed (the extra), or unusable on this CPU
