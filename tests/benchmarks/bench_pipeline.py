@@ -16,7 +16,9 @@ Reports, in one run on this machine (shared and noisy, so ratios matter):
   1M file (difference / combined sigma);
 - whole-process `bandwatch process FILE` against `python -c "import numpy"` (target <= 3x),
   with the package's bytecode compiled first (as an installed package has it), and the peak
-  resident memory of `bandwatch process` on the 1M files (target < 100 MB);
+  resident memory of `bandwatch process` on the 1M files (target < 100 MB), each with the
+  same steps run one by one (imports, the file's bytes, parse, bytes let go, analysis, result):
+  resident after and peak during each, so that a change shows where it adds;
 - the peak search on a 1M-point array, noise-free against pure noise (must not degrade).
 """
 from __future__ import annotations
