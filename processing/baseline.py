@@ -138,7 +138,7 @@ def estimate_baseline(
     corrected = y - baseline
     good = np.isfinite(levels)
     if good.sum() >= 2:
-        centre_x = np.interp(centres[good], np.arange(n, dtype=np.float64), x)
+        centre_x = _x_at(centres[good], x)
         tilt = float(np.polyfit(centre_x, levels[good], 1)[0] * 1000.0)
     else:
         tilt = 0.0
@@ -162,6 +162,13 @@ def estimate_baseline(
         noise=noise,
         fringes=fringes,
     )
+
+
+def _x_at(index: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """x at fractional point indices, as `np.interp(index, np.arange(n), x)` gives it, from
+    only the points on either side of each (no index array of the whole spectrum)."""
+    around = np.unique(np.clip(np.floor(index)[:, None] + np.array([0.0, 1.0]), 0, x.size - 1))
+    return np.interp(index, around, x[around.astype(np.intp)])
 
 
 def _iterate(
@@ -255,7 +262,9 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
     """(start, stop) index pairs of the True runs of a bool mask (stop exclusive)."""
     if not mask.any():
         return []
-    edges = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    padded = np.zeros(mask.size + 2, dtype=np.int8)  # (int8 throughout: a mask of a million
+    padded[1:-1] = mask  # points would otherwise become two 8 MB arrays of int64)
+    edges = np.diff(padded)
     return list(zip(np.flatnonzero(edges == 1).tolist(), np.flatnonzero(edges == -1).tolist()))
 
 
@@ -277,7 +286,8 @@ def find_saturated_regions(
     if runs:
         starts = np.array([a for a, _ in runs])
         stops = np.array([b for _, b in runs])
-        tops = np.maximum.reduceat(np.where(high, y, -np.inf), starts)
+        bounds = np.ravel(np.column_stack([starts, stops]))  # each run's [start, stop)
+        tops = np.maximum.reduceat(y, bounds[:-1] if bounds[-1] == y.size else bounds)[0::2]
         owner = np.repeat(np.arange(len(runs)), stops - starts)
         inside = np.concatenate([np.arange(a, b) for a, b in runs])
         near_top = y[inside] >= tops[owner] - 2.0 * max(sigma, 1e-6)

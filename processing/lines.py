@@ -110,14 +110,25 @@ def fit_sigma_factor(saturated: np.ndarray | bool, blended: np.ndarray | bool) -
     return np.where(saturated, SATURATED_WEIGHT_FACTOR, 1.0) * np.where(blended, BLENDED_WEIGHT_FACTOR, 1.0)
 
 
-def _gather(values: np.ndarray, centres: np.ndarray, half: int) -> tuple[np.ndarray, np.ndarray]:
+class _Negated:
+    """-values, read only where asked (a gather): no negated copy of a whole spectrum."""
+
+    def __init__(self, values: np.ndarray) -> None:
+        self.values = values
+        self.size = values.size
+
+    def __getitem__(self, index: np.ndarray) -> np.ndarray:
+        return -self.values[index]
+
+
+def _gather(values: np.ndarray | _Negated, centres: np.ndarray, half: int) -> tuple[np.ndarray, np.ndarray]:
     """values[centre-half .. centre+half] for each centre (clipped at the ends) and the indices."""
     offsets = np.arange(-half, half + 1)
     index = np.clip(centres[:, None] + offsets[None, :], 0, values.size - 1)
     return values[index], index
 
 
-def _estimate_width_points(y: np.ndarray, peaks: np.ndarray) -> float:
+def _estimate_width_points(y: np.ndarray | _Negated, peaks: np.ndarray) -> float:
     """Median FWHM, in points, of the strongest peaks (half-maximum crossings, interpolated)."""
     strongest = peaks[np.argsort(y[peaks])[::-1][:30]]
     half_window = 32
@@ -148,12 +159,16 @@ def _estimate_width_points(y: np.ndarray, peaks: np.ndarray) -> float:
     return 3.0
 
 
-def find_peaks(corrected: np.ndarray, sigma: float, threshold_sigma: float, width_points: float | None) -> tuple[np.ndarray, float]:
-    """Indices of accepted peaks and the width estimate (points) used."""
-    y = corrected
-    floor = 1e-4 * float(np.max(np.abs(y))) if y.size else 0.0
+def find_peaks(
+    corrected: np.ndarray, sigma: float, threshold_sigma: float, width_points: float | None, dips: bool = False
+) -> tuple[np.ndarray, float]:
+    """Indices of accepted peaks (with `dips`: of -corrected, read without making it) and the
+    width estimate (points) used."""
+    floor = 1e-4 * max(float(np.max(corrected)), -float(np.min(corrected))) if corrected.size else 0.0
     threshold = max(threshold_sigma * sigma, floor)
-    above = np.flatnonzero(y[1:-1] > threshold) + 1
+    inner = corrected[1:-1]
+    above = np.flatnonzero(inner < -threshold if dips else inner > threshold) + 1
+    y: np.ndarray | _Negated = _Negated(corrected) if dips else corrected
     if above.size == 0:
         return above, width_points or 3.0
     centre = y[above]
@@ -614,8 +629,7 @@ def negative_features(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
     """Positions of dips below the baseline (negative absorbance: an absorber that was in the
     background beam, or an inverted axis) that the lines' own ringing does not explain. With
     no line shape known, dips within 20 widths of a line 20x deeper are taken as ringing."""
-    inverted = -baseline.corrected
-    peaks, _ = find_peaks(inverted, baseline.noise_sigma, NEGATIVE_THRESHOLD_SIGMA, None)
+    peaks, _ = find_peaks(baseline.corrected, baseline.noise_sigma, NEGATIVE_THRESHOLD_SIGMA, None, dips=True)
     if peaks.size == 0:
         return np.zeros(0)
     positions = spectrum.wavenumber_cm1[peaks]
@@ -624,7 +638,7 @@ def negative_features(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
         lobes = predicted_ringing(lines.position_cm1, lines.equivalent_width_estimate, lines.line_shape, positions, lines.saturated)
         noise_t = np.full(peaks.size, baseline.noise_transmittance)
         return positions[~explained_by_ringing(depth, lobes, noise_t, NEGATIVE_THRESHOLD_SIGMA)]
-    strong = lines.position_cm1[lines.height > 20 * inverted[peaks].max()] if lines.count else np.zeros(0)
+    strong = lines.position_cm1[lines.height > 20 * -baseline.corrected[peaks].min()] if lines.count else np.zeros(0)
     width = lines.typical_width_cm1 or 1.0
     return np.array([p for p in positions if strong.size == 0 or np.min(np.abs(strong - p)) > 20 * width])
 

@@ -87,7 +87,7 @@ class Spectrum:
             raise ValueError(f"a spectrum needs at least 2 points, got {x.size}")
         if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
             raise ValueError("wavenumber and absorbance must be finite")
-        if not np.all(np.diff(x) > 0):
+        if not np.all(x[1:] > x[:-1]):  # (no array of steps: a million points are 8 MB)
             raise ValueError("wavenumber axis must be strictly ascending")
         if self.original_y_kind not in Y_KINDS:
             raise ValueError(f"unknown y kind {self.original_y_kind!r}")
@@ -165,18 +165,44 @@ def handed_over(*arrays: np.ndarray) -> None:
         array.setflags(write=False)
 
 
-def to_absorbance(values: np.ndarray, y_kind: str) -> tuple[np.ndarray, np.ndarray, str]:
-    """Convert y values of `y_kind` to decadic absorbance; returns (A, saturated mask, note)."""
+# Arrays are reversed in blocks of this many points: no copy of a whole spectrum.
+REVERSE_BLOCK = 1 << 16
+
+
+def reverse_in_place(array: np.ndarray) -> None:
+    """Reverse a one-dimensional writable array where it lies (a reader's own axis read in
+    descending order), a block at a time."""
+    size = array.size
+    for start in range(0, size // 2, REVERSE_BLOCK):
+        stop = min(start + REVERSE_BLOCK, size // 2)
+        front = array[start:stop].copy()
+        array[start:stop] = array[size - stop : size - start][::-1]
+        array[size - stop : size - start] = front[::-1]
+
+
+def to_absorbance(
+    values: np.ndarray, y_kind: str, in_place: bool = False
+) -> tuple[np.ndarray, np.ndarray, str]:
+    """Convert y values of `y_kind` to decadic absorbance; returns (A, saturated mask, note).
+
+    With `in_place` the caller hands `values` over (a reader's own array, which nobody else
+    holds): a contiguous writable one becomes the absorbance itself, to the same doubles,
+    instead of being copied (a million points are 8 MB)."""
     values = np.asarray(values, dtype=np.float64)
+    reuse = in_place and values.flags.c_contiguous and values.flags.writeable
     if y_kind == "absorbance":
-        return values.copy(), np.zeros(values.shape, dtype=bool), "none (file holds decadic absorbance)"
+        return (values if reuse else values.copy()), np.zeros(values.shape, dtype=bool), "none (file holds decadic absorbance)"
     if y_kind == "transmittance":
         fraction, note = values, "A = -log10(T)"
     elif y_kind == "percent_transmittance":
-        fraction, note = values / 100.0, "A = -log10(%T / 100)"
+        note = "A = -log10(%T / 100)"
+        fraction = np.divide(values, 100.0, out=values) if reuse else values / 100.0
     else:
         raise ValueError(f"unknown y kind {y_kind!r}")
     saturated = fraction <= 0.0
+    if reuse and not saturated.any():
+        # every point measurable: the same ufuncs over the same contiguous values, in place
+        return np.negative(np.log10(fraction, out=fraction), out=fraction), saturated, note
     absorbance = np.empty_like(fraction)
     positive = ~saturated
     absorbance[positive] = -np.log10(fraction[positive])

@@ -138,8 +138,9 @@ def test_polars_reads_what_numpy_reads_to_the_same_bits_or_leaves_it(
     by_numpy = delimited._loadtxt_table(body, 0, end, row_format, 1)
     if by_numpy is None:  # numpy refused: the slow pass is the reference
         by_numpy = delimited._slow_table(body[:end], row_format, 1, "a.csv")
-    assert by_polars.values.shape == by_numpy.values.shape
-    assert np.array_equal(by_polars.values, by_numpy.values, equal_nan=True)
+    assert by_polars.rows == by_numpy.rows
+    assert np.array_equal(by_polars.x, by_numpy.x, equal_nan=True)
+    assert np.array_equal(by_polars.y, by_numpy.y, equal_nan=True)
 
 
 def test_without_polars_large_bodies_are_read_by_numpy(monkeypatch) -> None:  # type: ignore[no-untyped-def]
@@ -224,3 +225,116 @@ def test_measured_and_demo_csv_files_read_the_same_with_and_without_polars(monke
         assert np.array_equal(with_polars.absorbance, without.absorbance), path.name
         assert with_polars.meta.notes == without.meta.notes, path.name
     assert len(read_by_polars) >= len(files) - 1  # all but the export with a separator ending each row
+
+
+@settings(max_examples=300, deadline=4000, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    st.lists(st.tuples(st.floats(0.01, 1e4), finite), min_size=1, max_size=40, unique_by=lambda r: r[0]),
+    st.sampled_from([(",", False, False), (";", False, False), ("\t", False, False), (" ", False, False),
+                     (";", True, False), (",", False, True), ("\t", True, True)]),
+    st.sampled_from(["{!r}", "{:.4f}", "{:.6e}", '"{!r}"', " {!r}", "+{!r}"]),
+    st.sampled_from(["\n", "\r\n"]),
+    st.integers(1, 200),
+    st.lists(mutation, max_size=3),
+)
+def test_a_body_read_in_pieces_gives_what_one_piece_gives(
+    rows: list[tuple[float, float]], layout: tuple[str, bool, bool], style: str, ending: str, piece: int,
+    steps: list[tuple[str, int, object]],
+) -> None:
+    """numpy's reader given the body in pieces of `piece` bytes (cut after a line end, never
+    inside quotes) reads the very same doubles as given the whole body at once, or refuses
+    both times: written numbers with their quirks (quoted, padded, a plus sign, a decimal
+    comma, a separator ending each row, CRLF), some bodies damaged (blank lines, a quote left
+    open, ragged rows)."""
+    separator, decimal_comma, trailing = layout
+
+    def text(value: float) -> str:
+        written = style.format(value)
+        return written.replace(".", ",") if decimal_comma else written
+
+    end_of_row = separator if trailing else ""
+    body = mutate(ending.join(f"{text(x)}{separator}{text(y)}{end_of_row}" for x, y in rows).encode(), steps)
+    row_format = delimited._RowFormat(separator, decimal_comma, 2, trailing)
+    end = len(body.rstrip())
+    if end == 0:
+        return
+    whole = delimited._read_rows(
+        memoryview(delimited._clean_body(body[:end], row_format, delimited._line_ending(body, 0, end))), row_format
+    )
+    import pytest
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(delimited, "PIECE_BYTES", piece)
+        pieces = delimited._loadtxt_table(body, 0, end, row_format, 1)
+    if whole is None or whole.ndim != 2 or whole.shape[0] == 0 or whole.shape[1] != 2:
+        assert pieces is None
+        return
+    assert pieces is not None
+    assert pieces.x.tolist() == whole[:, 0].tolist() and pieces.y.tolist() == whole[:, 1].tolist()
+    assert pieces.x.flags.c_contiguous and pieces.y.flags.c_contiguous and pieces.owned
+
+
+def test_pieces_are_never_cut_inside_quotes(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """numpy's reader takes a line break inside quotes as part of the field (`1,"\\n2"` is one
+    row, 1 and 2): a piece cut there would read other rows, so pieces run on to where the
+    quotes close."""
+    rows = [f'{2000 + i},"\n{i / 7!r}"' if i % 5 == 2 else f"{2000 + i},{i / 7!r}" for i in range(60)]
+    body = "\n".join(rows).encode()
+    row_format = delimited._RowFormat(",", False, 2, False)
+    whole = delimited._read_rows(memoryview(body), row_format)
+    assert whole is not None and whole.shape == (60, 2)  # the reference: one row per quoted pair
+    for piece in (1, 5, 17, 40):
+        monkeypatch.setattr(delimited, "PIECE_BYTES", piece)
+        table = delimited._loadtxt_table(body, 0, len(body), row_format, 1)
+        assert table is not None, piece
+        assert table.x.tolist() == whole[:, 0].tolist() and table.y.tolist() == whole[:, 1].tolist(), piece
+
+
+def test_arrays_sized_from_the_first_piece_grow_and_shrink_to_the_rows(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """x and y are sized from the first piece's rows per byte: long rows first (too few rows
+    guessed for the short rows after them: the arrays grow) and short rows first (too many:
+    cut to the rows read) both give exactly the rows of the body."""
+    short = [f"{i},{i % 7}" for i in range(3000)]
+    long = [f"{3000 + i + 0.123456789012345!r},{i / 7!r}" for i in range(3000)]
+    row_format = delimited._RowFormat(",", False, 2, False)
+    monkeypatch.setattr(delimited, "PIECE_BYTES", 4096)
+    for rows in (long + [f"{6000 + i},{i}" for i in range(3000)], short + [f"{3000 + i + 0.5!r},{i / 7!r}" for i in range(3000)]):
+        body = "\n".join(rows).encode()
+        table = delimited._loadtxt_table(body, 0, len(body), row_format, 1)
+        assert table is not None
+        assert table.x.size == table.y.size == 6000
+        assert table.x.tolist() == [float(row.split(",")[0]) for row in rows]
+        assert table.y.tolist() == [float(row.split(",")[1]) for row in rows]
+
+
+def test_a_process_imports_polars_for_its_second_large_body_not_its_first() -> None:
+    """A one-shot process reading one large body keeps numpy's reader (polars' import alone is
+    32 MB resident: a 1M-point `bandwatch process` must stay under 100 MB); a second body of
+    POLARS_AGAIN_BYTES or more, or a first past POLARS_IMPORT_BYTES, brings polars in. Run in
+    a fresh interpreter: this one may have imported polars already. (Thresholds scaled down.)"""
+    import subprocess
+    import sys
+
+    import pytest
+
+    pytest.importorskip("polars")
+    code = (
+        "import sys\n"
+        "from processing.readers import delimited\n"
+        "delimited.POLARS_AGAIN_BYTES, delimited.POLARS_IMPORT_BYTES = 2_000, 50_000\n"
+        "small = b'x,A\\n' + b''.join(b'%d,0.5\\n' % (1000 + i) for i in range(200))\n"
+        "large = b'x,A\\n' + b''.join(b'%d,0.25\\n' % (1000 + i) for i in range(600))\n"
+        "huge = b'x,A\\n' + b''.join(b'%d,0.125\\n' % (1000 + i) for i in range(9000))\n"
+        "seen = []\n"
+        "for body in (sys.argv[1].split(',')):\n"
+        "    delimited.parse({'small': small, 'large': large, 'huge': huge}[body], 'a.csv')\n"
+        "    seen.append('polars' in sys.modules)\n"
+        "print(seen)\n"
+    )
+    for bodies, expected in (
+        ("small,small,large", [False, False, False]),
+        ("large,small,large", [False, False, True]),
+        ("huge", [True]),
+    ):
+        done = subprocess.run([sys.executable, "-c", code, bodies], capture_output=True, text=True, check=True)
+        assert done.stdout.strip() == str(expected), bodies

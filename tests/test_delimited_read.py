@@ -225,6 +225,36 @@ def test_a_fine_regular_grid_gets_no_rounding_note() -> None:
     assert not has_note(spectrum, "rounded")
 
 
+@pytest.mark.parametrize(
+    "bad_row, line, words",
+    [(23, 25, "duplicated x"), (23, 25, "not monotonic"), (3, 5, "not monotonic"), (39, 41, "duplicated x")],
+)
+def test_x_checked_block_by_block_names_the_row_in_any_block(
+    monkeypatch: pytest.MonkeyPatch, bad_row: int, line: int, words: str
+) -> None:
+    """x steps are checked in blocks (no step array of the whole axis): a repeated or
+    backward x in a later block is named at its line as in the first."""
+    monkeypatch.setattr(delimited, "AXIS_BLOCK", 4)
+    x = (2000.0 + 0.5 * np.arange(40)).tolist()
+    x[bad_row] = x[bad_row - 1] if words == "duplicated x" else x[bad_row - 1] - 0.25
+    with pytest.raises(SpectrumFileError) as caught:
+        read("cm-1,A\n" + "".join(f"{v!r},0.1\n" for v in x))
+    assert caught.value.line == line and words in str(caught.value)
+
+
+def test_rounding_note_is_the_same_with_any_block_size(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The step sizes gathered block by block give the note the whole axis gives: smallest and
+    largest step, around the span over the intervals (x rounded to 2 decimals on a 0.125 grid,
+    descending as many exports are)."""
+    text = "cm-1,A\n" + "".join(f"{x:.2f},0.1\n" for x in (2000.0 + 0.125 * np.arange(100))[::-1])
+    notes = []
+    for block in (3, 7, 1 << 16):
+        monkeypatch.setattr(delimited, "AXIS_BLOCK", block)
+        notes.append(read(text).meta.notes)
+    assert notes[0] == notes[1] == notes[2]
+    assert any("x steps range 0.12..0.13 around 0.125" in note for note in notes[0])
+
+
 def test_footer_text_after_the_data_is_dropped_and_noted() -> None:
     spectrum = read("cm-1,A\n1000,0.1\n1001,0.2\n1002,0.3\n\nEnd of data\nexported 2026-01-05\n")
     assert spectrum.points == 3

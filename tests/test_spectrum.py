@@ -6,7 +6,7 @@ import math
 import numpy as np
 import pytest
 
-from processing.spectrum import UNMEASURABLE_ABSORBANCE, LineList, Spectrum
+from processing.spectrum import UNMEASURABLE_ABSORBANCE, LineList, Spectrum, reverse_in_place, to_absorbance
 
 
 def test_transmittance_converts_to_decadic_absorbance() -> None:
@@ -73,3 +73,49 @@ def test_with_meta_keeps_the_arrays_and_changes_only_the_metadata() -> None:
     assert t.wavenumber_cm1 is s.wavenumber_cm1 and t.absorbance is s.absorbance
     assert t.original_y_kind == "transmittance" and t.conversion == s.conversion
     assert s.meta.title == ""
+
+
+@pytest.mark.parametrize("kind", ["absorbance", "transmittance", "percent_transmittance"])
+@pytest.mark.parametrize("with_saturated", [False, True])
+@pytest.mark.parametrize("descending", [False, True])
+def test_conversion_in_place_gives_the_doubles_of_the_copy(kind: str, with_saturated: bool, descending: bool) -> None:
+    """A reader's own y converted where it lies: bit for bit the absorbance and mask that the
+    copying conversion gives (same ufuncs on the same values), and, when every point is
+    measurable, in the very array handed over (no second array of a million points). Values
+    reversed first, as a descending file's are."""
+    rng = np.random.default_rng(11)
+    scale = {"absorbance": 1.0, "transmittance": 1.0, "percent_transmittance": 100.0}[kind]
+    values = scale * rng.uniform(0.001, 1.2, 70_001)
+    if with_saturated:
+        values[[5, 6, 70_000]] = [0.0, -0.01 * scale, 0.0]
+    if descending:
+        values = values[::-1].copy()
+    expected = to_absorbance(values, kind)
+    mine = values.copy()
+    got = to_absorbance(mine, kind, in_place=True)
+    assert np.array_equal(got[0], expected[0]) and np.array_equal(got[1], expected[1]) and got[2] == expected[2]
+    if kind == "absorbance" or not with_saturated:
+        assert np.shares_memory(got[0], mine)
+
+
+def test_conversion_in_place_copies_what_it_may_not_change() -> None:
+    """A read-only or strided y is converted into a new array, the given one left alone."""
+    values = np.linspace(0.1, 0.9, 11)
+    values.setflags(write=False)
+    assert not np.shares_memory(to_absorbance(values, "transmittance", in_place=True)[0], values)
+    strided = np.linspace(0.1, 0.9, 22)[::2]
+    before = strided.copy()
+    to_absorbance(strided, "percent_transmittance", in_place=True)
+    assert np.array_equal(strided, before)
+
+
+@pytest.mark.parametrize("size", [0, 1, 2, 3, 65_535, 65_536, 131_073, 200_000])
+def test_reverse_in_place_reverses_every_length(size: int) -> None:
+    # block boundaries (65,536 points), odd and even lengths, a middle element left alone
+    values = np.arange(size, dtype=np.float64)
+    reverse_in_place(values)
+    assert values.tolist() == list(range(size))[::-1]
+    mask = np.arange(size) % 3 == 0
+    expected = mask[::-1].copy()
+    reverse_in_place(mask)
+    assert np.array_equal(mask, expected)

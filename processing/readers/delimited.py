@@ -26,7 +26,7 @@ from typing import BinaryIO, TextIO
 import numpy as np
 
 from processing.errors import SpectrumFileError
-from processing.spectrum import handed_over, FileMetadata, Spectrum, to_absorbance
+from processing.spectrum import handed_over, FileMetadata, Spectrum, reverse_in_place, to_absorbance
 
 FORMAT_NAME = "delimited text"
 EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".dat", ".prn", ".asc")
@@ -87,16 +87,30 @@ class _RowFormat:
 
 @dataclass(frozen=True)
 class _Table:
-    """The numeric body as a (rows, columns) array and the file line of each row."""
+    """The x column and the chosen y column of the numeric body, and the file line of each row.
 
-    values: np.ndarray
+    Only these two columns are kept: a (rows, columns) table of a million rows would hold 16 MB
+    or more through the whole analysis, for columns nobody reads."""
+
+    x: np.ndarray
+    y: np.ndarray
     first_line: int  # line of row 0 when rows are contiguous
     row_lines: np.ndarray | None  # per-row line numbers when rows are not contiguous
+    owned: bool = False  # x and y are this reader's own contiguous arrays: convertible in place
+
+    @property
+    def rows(self) -> int:
+        return int(self.x.size)
 
     def line_of(self, row: int) -> int:
         if self.row_lines is not None:
             return int(self.row_lines[row])
         return self.first_line + row
+
+
+def _columns(values: np.ndarray, y_column: int, first_line: int, row_lines: np.ndarray | None = None) -> _Table:
+    """The x and y columns of a whole (rows, columns) table."""
+    return _Table(values[:, 0], values[:, y_column], first_line, row_lines)
 
 
 # ----------------------------------------------------------------------------- helpers
@@ -341,38 +355,70 @@ _TEXT_READER = _numpy_text_reader()
 _LOADTXT_DELIMITER = {",": ",", ";": ";", "\t": "\t", " ": None}
 
 
-def _clean_body(body: bytes, layout: _RowFormat) -> bytes:
-    """Decimal commas to points; a trailing separator on each row removed."""
+def _line_ending(data: bytes, offset: int, end: int) -> bytes:
+    """b"\r\n" when any row of data[offset:end] ends so, else b"\n" (a lone CR is looked
+    for first: one fast pass over a file without any)."""
+    if data.find(b"\r", offset, end) == -1:
+        return b"\n"
+    return b"\r\n" if data.find(b"\r\n", offset, end) != -1 else b"\n"
+
+
+def _clean_body(body: bytes, layout: _RowFormat, ending: bytes) -> bytes:
+    """Decimal commas to points; a trailing separator on each row removed (rows ending in
+    `ending`, the body's line ending)."""
     if layout.decimal_comma:
         body = body.replace(b",", b".")
     if layout.trailing_separator:
         separator = layout.separator.encode()
         # One pass for the file's line ending; a row ending otherwise leaves an empty field,
         # which the C reader refuses and the slow pass then handles.
-        ending = b"\r\n" if b"\r\n" in body else b"\n"
         body = body.replace(separator + ending, ending)
         if body.endswith(separator):
             body = body[: -len(separator)]
     return body
 
 
-def _loadtxt_table(
-    data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int
-) -> _Table | None:
-    """data[offset:end] through numpy's C text reader; None when it refuses (the slow pass
-    then says why). A clean body is streamed from `data` in place, without a copy."""
+# The C reader is given the body in pieces of about this size, each cut after a line end: the
+# text and the rows of one piece stay small (and in cache), and its x and y go straight into
+# the arrays the spectrum keeps, so no (rows, columns) table of the whole body is ever held.
+PIECE_BYTES = 1 << 20
+
+
+def _piece_end(data: bytes, start: int, end: int) -> int:
+    """Where the piece of data[:end] that starts at `start` stops: after the first line end
+    PIECE_BYTES on, and past any line end inside quotes (a quote left open at a cut would
+    read the next rows differently than the whole body does)."""
+    stop = start
+    while True:
+        cut = data.find(b"\n", stop + PIECE_BYTES, end)
+        stop = end if cut == -1 else cut + 1
+        if stop == end or data.find(b'"', start, stop) == -1 or data.count(b'"', start, stop) % 2 == 0:
+            return stop
+
+
+class _LatinText:
+    """A piece of bytes read as Latin-1 text by numpy's C reader, which asks for `read(size)`
+    again and again: each call decodes the next bytes straight from the piece (no copy of the
+    piece, no buffered stream around it)."""
+
+    __slots__ = ("view", "at")
+
+    def __init__(self, view: memoryview) -> None:
+        self.view = view
+        self.at = 0
+
+    def read(self, size: int = -1) -> str:
+        start = self.at
+        self.at = len(self.view) if size < 0 else start + size
+        return str(self.view[start : self.at], "latin-1")
+
+
+def _read_rows(text: memoryview, layout: _RowFormat) -> np.ndarray | None:
+    """The rows of `text` through numpy's C text reader, or None when it refuses."""
     assert _TEXT_READER is not None
-    footer_follows = end < len(data) and not data[end:].isspace()
-    if layout.decimal_comma or layout.trailing_separator or footer_follows:
-        buffer, start = _clean_body(data[offset:end], layout), 0
-    else:
-        buffer, start = data, offset
-    raw = io.BytesIO(buffer)
-    raw.seek(start)
-    stream = io.TextIOWrapper(raw, encoding="latin-1")
     try:
         values = _TEXT_READER(
-            stream,
+            _LatinText(text),
             delimiter=_LOADTXT_DELIMITER[layout.separator],
             comment=None,
             quote='"',
@@ -388,12 +434,52 @@ def _loadtxt_table(
         )
     except (ValueError, TypeError, OverflowError):
         return None
-    if values.ndim != 2 or values.shape[1] != layout.columns or values.shape[0] == 0:
+    return values  # type: ignore[no-any-return]
+
+
+def _loadtxt_table(
+    data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int, y_column: int = 1
+) -> _Table | None:
+    """data[offset:end] through numpy's C text reader, piece by piece (`PIECE_BYTES`); None
+    when it refuses any row (the slow pass then says why). Blank lines are skipped, as the
+    reader does on the whole body. x and y are sized from the first piece's rows per byte,
+    grown when the guess was short and cut to the rows read at the end."""
+    ending = _line_ending(data, offset, end) if layout.trailing_separator else b"\n"
+    clean = not (layout.decimal_comma or layout.trailing_separator)
+    whole = memoryview(data)
+    x = y = np.empty(0)
+    filled = 0
+    start = offset
+    while start < end:
+        stop = _piece_end(data, start, end)
+        piece = whole[start:stop] if clean else memoryview(_clean_body(data[start:stop], layout, ending))
+        values = _read_rows(piece, layout)
+        if values is None or values.ndim != 2:
+            return None
+        count = values.shape[0]
+        if count:  # (a piece of blank lines has no rows)
+            if values.shape[1] != layout.columns:
+                return None
+            if filled + count > x.size:
+                # rows per byte so far, for what is left, +10 %: the unused end is never
+                # touched (no resident memory) and is cut off below; growing may copy
+                size = filled + count + int((end - stop) * (filled + count) / (stop - offset) * 1.1) + 64
+                for column in (x, y) if x.size else ():
+                    column.resize(size, refcheck=False)
+                if not x.size:
+                    x, y = np.empty(size), np.empty(size)
+            x[filled : filled + count] = values[:, 0]
+            y[filled : filled + count] = values[:, y_column]
+            filled += count
+        start = stop
+    if filled == 0:
         return None
-    return _Table(values, first_line, None)
+    x.resize(filled, refcheck=False)
+    y.resize(filled, refcheck=False)
+    return _Table(x, y, first_line, None, owned=True)
 
 
-def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int) -> _Table | None:
+def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int, y_column: int = 1) -> _Table | None:
     """The body parsed by `numpy.fromstring` after separators become spaces; None when the
     value count is not rows x columns (the slow pass then says why)."""
     mapping = {layout.separator: " "} if layout.separator != " " else {}
@@ -411,20 +497,27 @@ def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int) -> _Tabl
         return None
     if values.size != rows * layout.columns:
         return None
-    return _Table(values.reshape(rows, layout.columns), first_line, None)
+    return _columns(values.reshape(rows, layout.columns), y_column, first_line)
 
 
 # polars (the `fast-text` extra) parses a delimited body several times faster than numpy's
-# reader, to the same bits (both round each decimal to the nearest double), but takes ~0.11 s
-# to import; it saves 5-7 ms per MB of body, so a one-shot process imports it only for a body
-# this large (a whole `bandwatch process` of a 19 MB file was 0.06 s slower with it, of a 33 MB
-# one 0.07 s faster). Once imported it reads every body (a station worker imports it at start,
+# reader, to the same bits (both round each decimal to the nearest double): it saves 5-7 ms
+# per MB of body. But its import takes ~0.11-0.2 s and 32 MB of resident memory, and its frame
+# and the frame's numpy copy hold the body's numbers twice. A whole `bandwatch process` of a
+# 1M-point file must stay under 100 MB (33 MB of 17-digit pairs: 168 MB with polars, 86 MB
+# without), so a process imports it for its first large body only when that body is past
+# POLARS_IMPORT_BYTES (the bytes and the spectrum alone are then over the mark anyway), and
+# for any later body of POLARS_AGAIN_BYTES or more: a process that reads large bodies one
+# after another (a notebook, `bandwatch process` of many files) wins the import back from the
+# second on. Once imported it reads every body (a station worker imports it at start,
 # `worker.warm_up`, unless its memory limit is tight).
-POLARS_IMPORT_BYTES = 32_000_000
+POLARS_IMPORT_BYTES = 64_000_000
+POLARS_AGAIN_BYTES = 32_000_000
 _POLARS_SEPARATORS = (",", ";", "\t")
 
 
 _polars_allowed = True
+_large_bodies_read = 0  # bodies of POLARS_AGAIN_BYTES or more met in this process
 
 
 def forgo_polars() -> None:
@@ -434,11 +527,16 @@ def forgo_polars() -> None:
 
 
 def polars_module(body_bytes: int = POLARS_IMPORT_BYTES) -> ModuleType | None:
-    """polars, when installed, allowed, and worth it for a body of `body_bytes`; else None."""
+    """polars, when installed, allowed, and worth it for a body of `body_bytes` (see
+    POLARS_IMPORT_BYTES); else None."""
+    global _large_bodies_read
     if not _polars_allowed:
         return None
     module = sys.modules.get("polars")
-    if module is None and body_bytes >= POLARS_IMPORT_BYTES:
+    worth_importing = body_bytes >= POLARS_IMPORT_BYTES or (body_bytes >= POLARS_AGAIN_BYTES and _large_bodies_read > 0)
+    if body_bytes >= POLARS_AGAIN_BYTES:
+        _large_bodies_read += 1
+    if module is None and worth_importing:
         try:
             import polars as module
         except ImportError:  # not installed (the extra), or unusable on this CPU
@@ -446,7 +544,9 @@ def polars_module(body_bytes: int = POLARS_IMPORT_BYTES) -> ModuleType | None:
     return module
 
 
-def _polars_table(data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int) -> _Table | None:
+def _polars_table(
+    data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int, y_column: int = 1
+) -> _Table | None:
     """data[offset:end] through polars' CSV reader, or None when polars is not at hand, the
     layout is one it does not read the way the other readers do (whitespace columns, a
     separator at the end of each row), or any field is not a number (the other passes then
@@ -471,21 +571,22 @@ def _polars_table(data: bytes, offset: int, end: int, layout: _RowFormat, first_
         return None  # a field that is not a number, a ragged row: the other passes name it
     if frame.height == 0 or frame.null_count().sum_horizontal().item() > 0:
         return None
-    return _Table(frame.to_numpy(), first_line, None)  # column-major: each column one contiguous block
+    values = frame.to_numpy()  # column-major: each column one contiguous block
+    return _Table(values[:, 0], values[:, y_column], first_line, None, owned=values.flags.writeable)
 
 
 def _fast_table(
-    data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int
+    data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int, y_column: int
 ) -> _Table | None:
     """data[offset:end] parsed at C speed, or None when it is not clean (slow pass follows)."""
-    table = _polars_table(data, offset, end, layout, first_line)
+    table = _polars_table(data, offset, end, layout, first_line, y_column)
     if table is not None:
         return table
     if _TEXT_READER is not None:
-        table = _loadtxt_table(data, offset, end, layout, first_line)
+        table = _loadtxt_table(data, offset, end, layout, first_line, y_column)
         if table is not None or _TEXT_READER_WORKS:
             return table
-    return _fromstring_table(data[offset:end], layout, first_line)
+    return _fromstring_table(data[offset:end], layout, first_line, y_column)
 
 
 def _text_reader_works() -> bool:
@@ -493,13 +594,13 @@ def _text_reader_works() -> bool:
     if _TEXT_READER is None:
         return False
     sample = _loadtxt_table(b"1,2\n3,4", 0, 7, _RowFormat(",", False, 2, False), 1)
-    return sample is not None and sample.values.tolist() == [[1.0, 2.0], [3.0, 4.0]]
+    return sample is not None and sample.x.tolist() == [1.0, 3.0] and sample.y.tolist() == [2.0, 4.0]
 
 
 _TEXT_READER_WORKS = _text_reader_works()
 
 
-def _slow_table(body: bytes, layout: _RowFormat, first_line: int, source: str) -> _Table:
+def _slow_table(body: bytes, layout: _RowFormat, first_line: int, source: str, y_column: int = 1) -> _Table:
     """Line by line: names the first bad row; tolerates blank lines inside the data."""
     rows: list[list[float]] = []
     lines: list[int] = []
@@ -517,7 +618,7 @@ def _slow_table(body: bytes, layout: _RowFormat, first_line: int, source: str) -
         rows.append(parsed)
         lines.append(line)
     values = np.array(rows, dtype=np.float64).reshape(len(rows), layout.columns)
-    return _Table(values, first_line, np.array(lines, dtype=np.int64))
+    return _columns(values, y_column, first_line, np.array(lines, dtype=np.int64))
 
 
 def _header_fields(text: str, layout: _RowFormat) -> tuple[str, ...] | None:
@@ -582,57 +683,84 @@ def _infer_y_kind(y: np.ndarray) -> tuple[str, str]:
     )
 
 
-def _check_axis(x: np.ndarray, table: _Table, source: str) -> np.ndarray:
-    """Finite, strictly monotonic x; returns the steps. Names the offending line."""
+# x is checked in blocks of this many steps: no array of a million steps is made.
+AXIS_BLOCK = 1 << 16
+
+
+@dataclass(frozen=True)
+class _Steps:
+    """The sizes of the x steps: smallest, largest and mean (span over intervals)."""
+
+    count: int
+    low: float
+    high: float
+    typical: float
+
+
+def _check_axis(x: np.ndarray, table: _Table, source: str) -> _Steps:
+    """Strictly monotonic x (already finite); returns the step sizes. Names the offending line."""
+    count = x.size - 1
+    low, high = np.inf, 0.0
+    ascending = count > 0 and x[1] > x[0]
+    for first in range(0, count, AXIS_BLOCK):
+        steps = np.diff(x[first : first + AXIS_BLOCK + 1])
+        if not (np.all(steps > 0) if ascending else np.all(steps < 0)):
+            _refuse_axis(x, table, source)
+        size = np.abs(steps, out=steps)
+        low, high = min(low, float(size.min())), max(high, float(size.max()))
+    typical = float(abs(x[-1] - x[0])) / count if count else 0.0
+    return _Steps(count, float(low), high, typical)
+
+
+def _refuse_axis(x: np.ndarray, table: _Table, source: str) -> None:
+    """Raise for an x column that is not strictly monotonic, naming the first offending row."""
     steps = np.diff(x)
-    if steps.size and not (np.all(steps > 0) or np.all(steps < 0)):
-        zero = np.flatnonzero(steps == 0)
-        direction = np.sign(steps[0])
-        turn = np.flatnonzero(np.sign(steps) != direction)
-        first_turn = int(turn[0]) if turn.size else steps.size
-        if zero.size and int(zero[0]) <= first_turn:
-            row = int(zero[0]) + 1
-            raise SpectrumFileError(
-                source,
-                f"x value {float(x[row])!r} repeats the previous row's "
-                f"(line {table.line_of(row - 1)}): duplicated x",
-                table.line_of(row),
-            )
-        row = first_turn + 1
-        way = "ascending" if direction > 0 else "descending"
+    zero = np.flatnonzero(steps == 0)
+    direction = np.sign(steps[0])
+    turn = np.flatnonzero(np.sign(steps) != direction)
+    first_turn = int(turn[0]) if turn.size else steps.size
+    if zero.size and int(zero[0]) <= first_turn:
+        row = int(zero[0]) + 1
         raise SpectrumFileError(
             source,
-            f"x is not monotonic: {float(x[row])!r} breaks the {way} order of the rows above "
-            f"(previous x {float(x[row - 1])!r})",
+            f"x value {float(x[row])!r} repeats the previous row's "
+            f"(line {table.line_of(row - 1)}): duplicated x",
             table.line_of(row),
         )
-    return steps
+    row = first_turn + 1
+    way = "ascending" if direction > 0 else "descending"
+    raise SpectrumFileError(
+        source,
+        f"x is not monotonic: {float(x[row])!r} breaks the {way} order of the rows above "
+        f"(previous x {float(x[row - 1])!r})",
+        table.line_of(row),
+    )
 
 
-def _check_finite(values: np.ndarray, columns: tuple[int, int], table: _Table, source: str) -> None:
-    if np.isfinite(np.sum(values)):  # one cheap pass; overflow only sends us to the full check
+def _check_finite(table: _Table, y_column: int, source: str) -> None:
+    # one cheap pass per column; an overflowing sum only sends us to the full check
+    if np.isfinite(np.sum(table.x)) and np.isfinite(np.sum(table.y)):
         return
-    used = values[:, list(columns)]
+    used = np.column_stack([table.x, table.y])
     finite = np.isfinite(used)
     if not finite.all():
         row, column = (int(i) for i in np.argwhere(~finite)[0])
         raise SpectrumFileError(
             source,
-            f"value {float(used[row, column])!r} in column {columns[column] + 1} "
+            f"value {float(used[row, column])!r} in column {(0, y_column)[column] + 1} "
             "is not a finite number",
             table.line_of(row),
         )
 
 
-def _check_table(table: _Table, y_column: int, source: str) -> np.ndarray:
-    """At least 2 rows, finite x and y, strictly monotonic x; returns the x steps."""
-    values = table.values
-    if values.shape[0] < 2:
+def _check_table(table: _Table, y_column: int, source: str) -> _Steps:
+    """At least 2 rows, finite x and y, strictly monotonic x; returns the x step sizes."""
+    if table.rows < 2:
         raise SpectrumFileError(
             source, "only one data row: a spectrum needs at least 2 points", table.line_of(0)
         )
-    _check_finite(values, (0, y_column), table, source)
-    return _check_axis(values[:, 0], table, source)
+    _check_finite(table, y_column, source)
+    return _check_axis(table.x, table, source)
 
 
 def _choose_y_column(header: tuple[str, ...] | None, columns: int) -> tuple[int, str | None]:
@@ -668,14 +796,14 @@ def _parse(data: bytes, source: str) -> Spectrum:
         notes.append(
             f"{len(footer)} line(s) of text after the data ignored (first: {footer[0][:60]!r})"
         )
-    table = _fast_table(data, offset, end, layout, first_line)
+    y_column, header_kind = _choose_y_column(header, layout.columns)
+    table = _fast_table(data, offset, end, layout, first_line, y_column)
     if table is None:
         body = data[offset:end]  # CR of CRLF endings is whitespace to the parsers: left in place
-        table = _slow_table(body, layout, first_line, source)
-        if table.values.shape[0] < body.count(b"\n") + 1:
+        table = _slow_table(body, layout, first_line, source, y_column)
+        if table.rows < body.count(b"\n") + 1:
             notes.append("blank lines inside the data skipped")
 
-    y_column, header_kind = _choose_y_column(header, layout.columns)
     try:
         steps = _check_table(table, y_column, source)
     except SpectrumFileError:
@@ -683,16 +811,14 @@ def _parse(data: bytes, source: str) -> Spectrum:
             raise
         # The fast pass skips blank lines and may have checked only the total count: re-read
         # line by line so that the problem is named with its file line.
-        table = _slow_table(data[offset:end], layout, first_line, source)
+        table = _slow_table(data[offset:end], layout, first_line, source, y_column)
         steps = _check_table(table, y_column, source)
-    values = table.values
     if layout.columns > 2:
         names = f" ({header[0]!r}, {header[y_column]!r})" if header else ""
         notes.append(
             f"{layout.columns} columns: x from column 1, y from column {y_column + 1}{names}"
         )
-    x_file = values[:, 0]
-    y = values[:, y_column]
+    x_file, y = table.x, table.y
 
     x_unit = _x_unit(header[0]) if header else None
     x_cm1 = _to_wavenumber(x_file, x_unit, table, source, notes)
@@ -712,11 +838,19 @@ def _parse(data: bytes, source: str) -> Spectrum:
 
     _note_rounding(steps, notes)
 
-    if x_cm1[-1] < x_cm1[0]:
-        x_cm1 = x_cm1[::-1]
-        y = y[::-1]
+    descending = bool(x_cm1[-1] < x_cm1[0])
+    if descending:
         notes.append("x axis was descending; reversed to ascending")
-    absorbance, saturated, conversion = to_absorbance(y, kind)
+    if table.owned:
+        # the reader's own contiguous columns: converted and reversed where they lie
+        absorbance, saturated, conversion = to_absorbance(y, kind, in_place=True)
+        if descending:
+            for column in (x_cm1, absorbance, saturated):
+                reverse_in_place(column)
+    else:
+        if descending:
+            x_cm1, y = x_cm1[::-1], y[::-1]
+        absorbance, saturated, conversion = to_absorbance(y, kind)
     separator_name = SEPARATOR_NAMES[layout.separator]
     file_format = f"delimited text ({separator_name}" + (
         ", decimal comma)" if layout.decimal_comma else ")"
@@ -775,14 +909,12 @@ def _to_wavenumber(
     return factor / x
 
 
-def _note_rounding(steps: np.ndarray, notes: list[str]) -> None:
+def _note_rounding(steps: _Steps, notes: list[str]) -> None:
     """Note x steps that wobble around a regular grid (values rounded off the grid)."""
-    if steps.size < 2:
+    if steps.count < 2:
         return
-    size = np.abs(steps)
     # The mean step (span / intervals) stands in for the grid step: no sort needed.
-    typical = float(np.sum(size)) / size.size
-    low, high = float(size.min()), float(size.max())
+    typical, low, high = steps.typical, steps.low, steps.high
     wobble = max(typical - low, high - typical)
     if wobble > ROUNDING_NOTE_FRACTION * typical:
         if wobble < 0.5 * typical:

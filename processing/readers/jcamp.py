@@ -16,7 +16,7 @@ import numpy as np
 
 from processing.errors import SpectrumFileError
 from processing.readers.jcamp_asdf import DecodedOrdinates, DecodeError, decode_xydata, parse_pairs
-from processing.spectrum import handed_over, FileMetadata, LineList, Spectrum, to_absorbance
+from processing.spectrum import handed_over, FileMetadata, LineList, Spectrum, reverse_in_place, to_absorbance
 
 FORMAT_NAME = "JCAMP-DX"
 EXTENSIONS: tuple[str, ...] = (".jdx", ".dx", ".jcamp", ".jcm")
@@ -389,11 +389,16 @@ def _x_axis(
     elif len(set(stated)) > 1:
         notes.append(f"##NPOINTS= given as {', '.join(map(str, stated))}; {n} points decoded")
 
+    # first + step * index, worked out in one array (the same doubles as the expression)
+    x = np.arange(n, dtype=np.float64)
     if basis == "FIRSTX/LASTX":
-        x = first_x + (last_x - first_x) * (np.arange(n, dtype=np.float64) / (n - 1))
+        x /= n - 1
+        x *= last_x - first_x
+        x += first_x
         x[-1] = last_x
     else:
-        x = first_x + spacing * np.arange(n, dtype=np.float64)
+        x *= spacing
+        x += first_x
 
     residual = line_x - x[index]
     off = np.abs(residual) > tolerance
@@ -559,12 +564,12 @@ def _read_xydata(block: _Block, record: _Record, source: str, notes: list[str]) 
         raise SpectrumFileError(source, error.problem, record.data_line + error.line) from None
     if decoded.y.size < 2:
         raise SpectrumFileError(source, f"only {decoded.y.size} point in ##XYDATA=; a spectrum needs 2 or more", record.line)
-    y = decoded.y * yfactor
+    y = np.multiply(decoded.y, yfactor, out=decoded.y)  # the decoder's own array: scaled in place
     x = _x_axis(decoded, header, xfactor, source, record.data_line, notes)
     first_y = header.number("FIRSTY")
     if first_y is not None:
         # FIRSTY is often printed with few digits: allow 1e-3 relative or one YFACTOR step.
-        allowed = 1e-3 * abs(first_y) + abs(yfactor) + 1e-9 * float(np.max(np.abs(y)))
+        allowed = 1e-3 * abs(first_y) + abs(yfactor) + 1e-9 * max(float(np.max(y)), -float(np.min(y)))
         if abs(y[0] - first_y) > allowed:
             notes.append(f"##FIRSTY={first_y:g} but the first decoded Y is {y[0]:.8g}; FIRSTY ignored")
     if decoded.checks:
@@ -581,9 +586,10 @@ def _even_spectrum(x: np.ndarray, y: np.ndarray, block: _Block, source: str, not
         bad = int(np.flatnonzero(~np.isfinite(y))[0])
         raise SpectrumFileError(source, f"y value at point {bad + 1} is not finite")
     if x[-1] < x[0]:
-        x, y = x[::-1], y[::-1]
+        for column in (x, y):  # this reader's own arrays: reversed where they lie
+            reverse_in_place(column)
         notes.append("x axis was descending; reversed to ascending")
-    absorbance, saturated, conversion = to_absorbance(y, kind)
+    absorbance, saturated, conversion = to_absorbance(y, kind, in_place=True)
     meta = _metadata(block, "XYDATA", forms, notes, source)
     handed_over(x, absorbance, saturated)
     try:

@@ -529,11 +529,20 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
     simple = (
         absolute_y == 1 + check_at.size and repeats[first] == 1 and not np.any(repeats[check_at])
     )
+    # What is read from the tokens later, taken now: the tokens are let go before the running
+    # sums, and the point counts are summed up in `repeats` itself (a million tokens are 8 MB
+    # of values and 8 MB of repeats).
+    check_values = values[check_at]
+    line_x = values[line_first - 1]
+    check_repeats = repeats[check_at]
+    line_first_repeats = repeats[line_first]
     if seen[KIND_DIF] and simple:
         # The usual layout: one starting value, then differences (checks add nothing).
         # Only the first value and differences have repeats > 0 here (X values, markers, DUP
         # counts and checks have 0), so the running sum of the expanded values is y.
-        y = np.cumsum(np.repeat(values, repeats))
+        y = np.repeat(values, repeats)
+        del tokens, values
+        np.cumsum(y, out=y)
     elif seen[KIND_DIF]:
         expanded = np.repeat(values, repeats)
         is_absolute = ~np.repeat(is_dif, repeats)
@@ -544,23 +553,22 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
         y = running + (expanded[absolute_at] - running[absolute_at])[group]
     else:
         y = np.repeat(values, repeats)
-    points_through = np.cumsum(repeats)  # points up to and including each token
+    points_through = np.cumsum(repeats, out=repeats)  # points up to and including each token
     if check_at.size:
-        before_check = points_through[check_at] - repeats[check_at] - 1
-        scale = float(np.max(np.abs(y))) + 1.0 if y.size else 1.0
+        before_check = points_through[check_at] - check_repeats - 1
+        scale = max(float(np.max(y)), -float(np.min(y))) + 1.0 if y.size else 1.0
         tolerance = 1e-9 * scale  # exact for integer ordinates below 1e9 (common practice)
-        mismatch = (before_check < 0) | (np.abs(values[check_at] - y[np.maximum(before_check, 0)]) > tolerance)
+        mismatch = (before_check < 0) | (np.abs(check_values - y[np.maximum(before_check, 0)]) > tolerance)
         if mismatch.any():
             bad = int(np.flatnonzero(mismatch)[0])
             raise DecodeError(
                 line_of(int(check_at[bad])),
-                f"DIF check failed: line starts with Y={values[check_at[bad]]:.10g} but the previous "
+                f"DIF check failed: line starts with Y={check_values[bad]:.10g} but the previous "
                 f"line's differences end at {y[max(int(before_check[bad]), 0)]:.10g}",
             )
     # Point index of each line's X: the check point (previous line's last) or its first value.
-    line_point = points_through[line_first] - repeats[line_first]
+    line_point = points_through[line_first] - line_first_repeats
     line_point[1:][is_check] -= 1
-    line_x = values[line_first - 1]
     kept = ~np.isnan(line_x)  # line-start X not read (see LINE_SAMPLE) are NaN
     return DecodedOrdinates(
         y=y,

@@ -181,7 +181,7 @@ def _physical_values(data: Spectrum | LineList, source: str) -> Spectrum | LineL
             source, f"x axis reaches {x[-1]:.6g} cm-1: not an infrared spectrum (above {MAX_WAVENUMBER_CM1:g} cm-1)"
         )
     if isinstance(data, Spectrum):
-        largest = float(np.max(np.abs(data.absorbance)))
+        largest = max(float(np.max(data.absorbance)), -float(np.min(data.absorbance)))  # no |A| array
         if largest > MAX_ABSORBANCE:
             raise SpectrumFileError(
                 source, f"absorbance values up to {largest:.3g}: not a physical absorbance (a wrong YFACTOR or YUNITS?)"

@@ -16,12 +16,15 @@ Reports, in one run on this machine (shared and noisy, so ratios matter):
   1M file (difference / combined sigma);
 - whole-process `bandwatch process FILE` against `python -c "import numpy"` (target <= 3x),
   with the package's bytecode compiled first (as an installed package has it), and the peak
-  resident memory of `bandwatch process` on the 1M files (target < 100 MB);
+  resident memory of `bandwatch process` on the 1M files (target < 100 MB), each with the
+  same steps run one by one (imports, the file's bytes, parse, bytes let go, analysis, result):
+  resident after and peak during each, so that a change shows where it adds;
 - the peak search on a 1M-point array, noise-free against pure noise (must not degrade).
 """
 from __future__ import annotations
 
 import argparse
+import ast
 import os
 import statistics
 import subprocess
@@ -134,6 +137,56 @@ def peak_memory_mb(command: list[str]) -> float:
     return int(done.stdout.strip()) / 1024.0
 
 
+_MEMORY_STAGES = r"""
+import sys
+def resident():
+    found = {}
+    for line in open("/proc/self/status"):
+        if line.startswith(("VmRSS", "VmHWM")):
+            name, value = line.split(":")
+            found[name] = int(value.split()[0]) / 1024.0
+    return found["VmRSS"], found["VmHWM"]
+def restart_peak():
+    try:
+        with open("/proc/self/clear_refs", "w") as handle:
+            handle.write("5")  # the peak starts again from the resident size
+    except OSError:
+        pass
+stages = []
+def stage(name):
+    now, peak = resident()
+    stages.append((name, now, peak))
+    restart_peak()
+restart_peak()
+import tui.cli
+from processing.pipeline import ProcessSettings, analyse, result_from_analysis
+from processing.readers.registry import load_bytes, parse_bytes
+from processing.result_text import render_result
+stage("python, numpy, bandwatch imports")
+path = sys.argv[1]
+raw = load_bytes(path)
+stage("the file's bytes")
+data = parse_bytes(raw, path)
+stage("parse (bytes still held)")
+del raw
+stage("bytes let go")
+analysis = analyse(data, ProcessSettings())
+stage("analysis (lazy imports, BLAS)")
+render_result(result_from_analysis(path, analysis), None)
+stage("result and its text")
+print(repr((stages, "polars" in sys.modules)))
+"""
+
+
+def memory_stages(path: Path) -> tuple[list[tuple[str, float, float]], bool]:
+    """The steps of `bandwatch process FILE` one by one in a child process: (stage, resident
+    MB after it, peak MB during it) from /proc/self/status (VmRSS, VmHWM, the peak restarted
+    after each stage where the kernel allows), and whether polars was imported."""
+    done = subprocess.run([sys.executable, "-c", _MEMORY_STAGES, str(path)], check=True, capture_output=True, text=True)
+    stages, polars = ast.literal_eval(done.stdout.strip().splitlines()[-1])
+    return stages, polars
+
+
 def compile_package() -> None:
     """Bytecode for the package, as `pip install` writes it (this machine may run with
     PYTHONDONTWRITEBYTECODE, which would time the compiler at every start)."""
@@ -220,10 +273,16 @@ def main() -> None:
         cli = whole_process([sys.executable, "-m", "tui", "process", str(files[(65_536, "dif")])], args.repeat)
         print(f"\nwhole process on a 64k-point file: bandwatch process {cli * 1e3:.0f} ms, "
               f"python -c 'import numpy' {numpy_import * 1e3:.0f} ms, ratio {cli / numpy_import:.2f} (target <= 3)")
-        print("peak resident memory of `bandwatch process` on the 1M-point files (target < 100 MB):")
+        print("peak resident memory of `bandwatch process` on the 1M-point files (target < 100 MB), and where it is "
+              "reached: the same steps one by one in a child, MB resident after / peak during each")
         for form in ("dif", "csv", "csv6"):
-            megabytes = peak_memory_mb([sys.executable, "-m", "tui", "process", str(files[(1_000_000, form)])])
-            print(f"  {form:>4} {megabytes:6.1f} MB {'ok' if megabytes < 100 else 'OVER'}")
+            path = files[(1_000_000, form)]
+            megabytes = peak_memory_mb([sys.executable, "-m", "tui", "process", str(path)])
+            stages, polars = memory_stages(path)
+            print(f"  {form:>4} {megabytes:6.1f} MB {'ok' if megabytes < 100 else 'OVER'}   "
+                  f"({path.stat().st_size / 1e6:.1f} MB file, body read by {'polars' if polars else 'numpy'})")
+            for name, after, peak in stages:
+                print(f"         {name:<34} {after:6.1f} / {peak:6.1f}")
 
     # peak search must not degrade with noise
     rng = np.random.default_rng(2)
