@@ -4,6 +4,7 @@ version is in the other half, errors, outside text escaped; and nothing may be l
 second process fails."""
 from __future__ import annotations
 
+import os
 from dataclasses import replace
 from pathlib import Path
 
@@ -115,3 +116,29 @@ def test_parts_of_a_listing_hold_the_whole_listings_runs(ledger_at: str | Path) 
         for name in ("run_id", "instrument", "version", "status", "verdict", "decision", "superseded_by", "species",
                      "processed_at", "path", "reasons", "error"):
             assert getattr(newer, name) + getattr(older, name) == getattr(whole, name), (options, name)
+
+
+def test_a_reader_that_goes_away_ends_the_listing_quietly(tmp_path: Path) -> None:
+    """`bandwatch ledger list | head -1`: the child finds the pipe closed when its turn comes;
+    the command ends without a message, as a listing by one process does."""
+    import subprocess
+    import sys
+
+    data = tmp_path / "data"
+    conn = lg.open_ledger(data)
+    _fill(conn, ("ftir-1", "ftir-2"))
+    conn.execute("UPDATE sqlite_sequence SET seq = 40000 WHERE name = 'runs'")  # run ids that span a split
+    conn.commit()
+    _fill(conn, ("ftir-1", "ftir-2"))
+    conn.close()
+    command = [sys.executable, "-m", "tui", "ledger", "list", "--data", str(data)]
+    env = dict(os.environ, BANDWATCH_CONFIG=str(tmp_path / "none.toml"))
+    env.pop("COLUMNS", None)
+    whole = subprocess.run(command, capture_output=True, text=True, env=env, check=True).stdout
+    assert whole.count("\n") == 122 and "\n40001 " in whole and "\n1 " in whole  # both halves, in order
+    with subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env) as process:
+        assert process.stdout is not None and process.stderr is not None
+        assert process.stdout.readline().startswith(b"run ")
+        process.stdout.close()
+        assert process.wait(timeout=60) == 0
+        assert process.stderr.read() == b""
