@@ -53,3 +53,29 @@ def test_import_linter_contract_holds() -> None:
     result = subprocess.run([linter], capture_output=True, text=True, cwd=root)
     assert result.returncode == 0, result.stdout + result.stderr
     assert "1 kept, 0 broken" in result.stdout
+
+
+def test_a_command_imports_only_its_own_module_and_help_lists_every_command() -> None:
+    """`bandwatch process FILE` builds only the process command's parser (start-up); the top
+    level's help and the message on an unknown command still name every command."""
+    import contextlib
+    import io
+
+    from tui.cli import COMMANDS, build_parser
+
+    code = (
+        "import sys\n"
+        "from tui.cli import build_parser\n"
+        "build_parser(['process', 'x.csv'])\n"
+        "print(','.join(sorted(m for m in sys.modules if m.startswith('tui.commands.'))))\n"
+    )
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert result.stdout.strip() == "tui.commands.process"
+    text = io.StringIO()
+    with contextlib.redirect_stdout(text):
+        build_parser([]).print_help()
+    assert all(name in text.getvalue() for name in COMMANDS)
+    message = io.StringIO()
+    with contextlib.redirect_stderr(message), contextlib.suppress(SystemExit):
+        build_parser(["nosuch"]).parse_args(["nosuch"])
+    assert all(repr(name) in message.getvalue() for name in COMMANDS)
