@@ -144,16 +144,28 @@ def open_regular(path: str | Path, policy: ReadPolicy | None = None) -> int:
     return descriptor
 
 
+def _open_within(source: str, max_bytes: int, policy: ReadPolicy | None) -> tuple[int, int]:
+    """A read-only descriptor of the regular file and its size; refused (and closed) when the
+    file is over `max_bytes`."""
+    descriptor = open_regular(source, policy)
+    try:
+        size = os.fstat(descriptor).st_size
+    except OSError as error:
+        os.close(descriptor)
+        raise SpectrumFileError(source, f"cannot be read ({error.strerror or error})") from None
+    if size > max_bytes:
+        os.close(descriptor)
+        raise SpectrumFileError(source, f"file is {size / 1e6:.3g} MB, over the {max_bytes / 1e6:.3g} MB limit")
+    return descriptor, size
+
+
 def read_ends(path: str | Path, max_bytes: int, end_bytes: int, policy: ReadPolicy | None = None) -> tuple[bytes, bytes, int]:
     """The first and the last `end_bytes` of the regular file at `path` and its size (opened
     and refused as `read_regular` does), without reading the rest: whether a file looks whole
     is told by its ends."""
     source = str(path)
-    descriptor = open_regular(source, policy)
+    descriptor, size = _open_within(source, max_bytes, policy)
     try:
-        size = os.fstat(descriptor).st_size
-        if size > max_bytes:
-            raise SpectrumFileError(source, f"file is {size / 1e6:.3g} MB, over the {max_bytes / 1e6:.3g} MB limit")
         head = os.pread(descriptor, end_bytes, 0)
         tail = os.pread(descriptor, end_bytes, size - end_bytes) if size > end_bytes else head
     except OSError as error:
@@ -167,11 +179,8 @@ def read_regular(path: str | Path, max_bytes: int, policy: ReadPolicy | None = N
     """The bytes of the regular file at `path`; refuses a file over `max_bytes` (as found,
     or grown while being read) without reading past the limit."""
     source = str(path)
-    descriptor = open_regular(source, policy)
+    descriptor, size = _open_within(source, max_bytes, policy)
     try:
-        size = os.fstat(descriptor).st_size
-        if size > max_bytes:
-            raise SpectrumFileError(source, f"file is {size / 1e6:.3g} MB, over the {max_bytes / 1e6:.3g} MB limit")
         chunks: list[bytes] = []
         total = 0
         want = size + 1  # read(n) allocates n bytes: the size seen, +1 to notice growth

@@ -30,16 +30,14 @@ def test_processing_modules_import_no_interface_code() -> None:
     assert result.stdout.strip() == ""
 
 
+def _printed_after_parser(arguments: list[str] | None, then: str) -> str:
+    """What a fresh interpreter prints (`then`, Python) after building the command line's parser."""
+    code = f"import sys\nfrom tui.cli import build_parser\nbuild_parser({arguments!r})\n{then}\n"
+    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip()
+
+
 def test_process_command_path_does_not_import_textual() -> None:
-    code = (
-        "import sys\n"
-        "from tui.cli import build_parser\n"
-        "build_parser()\n"
-        "import tui.commands.process\n"
-        "print('textual' in sys.modules)\n"
-    )
-    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert result.stdout.strip() == "False"
+    assert _printed_after_parser(None, "import tui.commands.process\nprint('textual' in sys.modules)") == "False"
 
 
 def test_import_linter_contract_holds() -> None:
@@ -63,14 +61,8 @@ def test_a_command_imports_only_its_own_module_and_help_lists_every_command() ->
 
     from tui.cli import COMMANDS, build_parser
 
-    code = (
-        "import sys\n"
-        "from tui.cli import build_parser\n"
-        "build_parser(['process', 'x.csv'])\n"
-        "print(','.join(sorted(m for m in sys.modules if m.startswith('tui.commands.'))))\n"
-    )
-    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert result.stdout.strip() == "tui.commands.process"
+    loaded = "print(','.join(sorted(m for m in sys.modules if m.startswith('tui.commands.'))))"
+    assert _printed_after_parser(["process", "x.csv"], loaded) == "tui.commands.process"
     text = io.StringIO()
     with contextlib.redirect_stdout(text):
         build_parser([]).print_help()
