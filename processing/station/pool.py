@@ -40,6 +40,7 @@ class Job:
     job_id: int
     path: str
     settings: ProcessSettings
+    staging: str | None = None  # where the worker writes a processed run's report files (`reports.stage_reports`)
 
 
 @dataclass(frozen=True)
@@ -56,6 +57,7 @@ class JobOutcome:
     lines_csv: str | None = None  # the lines.csv text, made by the worker too
     summary_body: str | None = None  # summary.md below its title (`result_text.summary_body`), too
     digest: RunDigest | None = None
+    staged: str | None = None  # the folder with result.json and lines.csv the worker wrote, if it did
 
     @property
     def failed(self) -> bool:
@@ -261,7 +263,7 @@ class WorkerPool:
                 if slot.ready and not slot.retiring and slot.job is None and slot.outbox is not None:
                     job = self._queue.popleft()
                     try:
-                        slot.outbox.send((job.job_id, job.path, job.settings))
+                        slot.outbox.send((job.job_id, job.path, job.settings, job.staging))
                     except (OSError, ValueError):
                         self._queue.appendleft(job)  # the worker died; its EOF replaces it
                         continue
@@ -289,8 +291,8 @@ class WorkerPool:
         seconds = time.monotonic() - slot.started
         if kind == "done":
             self._assign()  # keep the worker busy while this outcome is recorded
-            result_pickle, text, lines_text, summary_text, digest = payload
-            self._report(JobOutcome(job, result_pickle, None, seconds, text, lines_text, summary_text, digest))
+            result_pickle, text, lines_text, summary_text, digest, staged = payload
+            self._report(JobOutcome(job, result_pickle, None, seconds, text, lines_text, summary_text, digest, staged))
         else:
             if str(payload).startswith("out of memory"):
                 slot.retiring = True

@@ -13,6 +13,7 @@ from __future__ import annotations
 import os
 import re
 import secrets
+import shutil
 from dataclasses import replace
 from pathlib import Path
 
@@ -48,6 +49,54 @@ def _write_atomic(path: Path, text: str | bytes) -> None:
         if os.path.exists(temporary):
             os.unlink(temporary)
         raise
+
+
+STAGING_FOLDER = ".reports-incoming"  # in the data folder: a worker's report files before the run has an id
+
+
+def staging_folder(data_dir: str | Path) -> Path:
+    """Where workers write a processed run's result.json and lines.csv before the ledger gives
+    the run its id: beside reports/ on the same disk (a folder is moved in by one rename);
+    emptied when a station starts (what a stopped station left is not a report)."""
+    return Path(data_dir) / STAGING_FOLDER
+
+
+def stage_reports(staging: str, job_id: int, result_json: str, lines_csv_text: str) -> str | None:
+    """Write result.json and lines.csv of a processed run into a new folder under `staging` (a
+    worker, while the station records the run); the folder, or None when it could not be
+    written (the station then writes the reports itself)."""
+    folder = os.path.join(staging, f"{job_id}-{os.getpid()}-{secrets.token_hex(4)}")
+    try:
+        os.mkdir(folder)
+        for name, text in (("result.json", result_json + "\n"), ("lines.csv", lines_csv_text)):
+            handle = os.open(os.path.join(folder, name), os.O_WRONLY | os.O_CREAT | os.O_EXCL, REPORT_MODE)
+            with os.fdopen(handle, "wb") as stream:
+                stream.write(text.encode("utf-8"))
+    except OSError:
+        shutil.rmtree(folder, ignore_errors=True)
+        return None
+    return folder
+
+
+def adopt_staged_reports(staged: str, data_dir: str | Path, run_id: int, version: int, file: str,
+                         summary_body_text: str) -> Path | None:
+    """Move a worker's staged result.json and lines.csv into the run's report folder (one
+    rename: the folder appears with both files whole) and write summary.md beside them; None
+    when the folder is taken already (the caller writes the reports and drops `staged`)."""
+    folder = report_folder(data_dir, run_id, file)
+    try:
+        folder.parent.mkdir(exist_ok=True)
+        os.rename(staged, folder)
+    except OSError:
+        return None
+    _write_atomic(folder / "summary.md", summary_with_title(run_id, version, file, summary_body_text))
+    return folder
+
+
+def drop_staged(staged: str | None) -> None:
+    """Remove a worker's staged reports that will not be used (a failed or spooled run)."""
+    if staged:
+        shutil.rmtree(staged, ignore_errors=True)
 
 
 def write_reports(

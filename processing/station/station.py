@@ -18,6 +18,7 @@ import fcntl
 import functools
 import hashlib
 import os
+import shutil
 import queue
 import threading
 import time
@@ -50,7 +51,7 @@ from processing.station.events import (
 )
 from processing.station.pool import Job, JobOutcome, WorkerPool
 from processing.station.redo import RedoRequest, other_instrument, record_redo, redo_settings
-from processing.station.reports import write_reports
+from processing.station.reports import adopt_staged_reports, drop_staged, staging_folder, write_reports
 from processing.station.retry import LEDGER_TROUBLE, Backoff, RetryQueue, describe
 from processing.station.settle import IncompleteFile, RefusedFile, SettledFile, Settler, VanishedFile, WaitingFile
 from processing.station.station_ledger import station_ledger
@@ -81,6 +82,7 @@ class Station:
 
     def __init__(self, config: StationConfig, on_event: Callable[[StationEvent], None] | None = None) -> None:
         self.config = config
+        self._staging: str | None = None  # where workers write report files (`reports.staging_folder`)
         self.export_dir, self.data_dir = check_folders(config)
         self.filter = FileFilter(
             root=self.export_dir,
@@ -138,6 +140,7 @@ class Station:
             raise
 
     def _start_threads(self) -> None:
+        self._staging = self._prepare_staging()
         self.pool = WorkerPool(
             self._on_outcome,
             workers=self.config.workers,
@@ -247,7 +250,7 @@ class Station:
         with self._lock:
             self._job_ids += 1
             settings = redo_settings(self.settings, request)
-            job = Job(self._job_ids, run.path, settings)
+            job = Job(self._job_ids, run.path, settings, self._staging)
             self._inflight[job.job_id] = _InFlight(
                 run.path, run.sha256, None, ledger.now_iso(),
                 reprocess_of=run_id, requested=request, done=done, answer=answer,
@@ -529,12 +532,29 @@ class Station:
         assert self.pool is not None
         with self._lock:
             self._job_ids += 1
-            job = Job(self._job_ids, item.path, self.settings)
+            job = Job(self._job_ids, item.path, self.settings, self._staging)
             self._inflight[job.job_id] = _InFlight(
                 item.path, sha256, claim.claim_id, claim.received_at, item.size_bytes, item.mtime_ns
             )
             self._inflight_paths.add(item.path)
         self.pool.submit(job)
+
+    def _prepare_staging(self) -> str | None:
+        """The folder where workers write report files before a run has its id, emptied of
+        what a stopped station left; None when it cannot be made (the recorder then writes
+        every report itself)."""
+        folder = staging_folder(self.data_dir)
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+            for entry in os.scandir(folder):
+                if entry.is_dir(follow_symlinks=False):
+                    shutil.rmtree(entry.path, ignore_errors=True)
+                else:
+                    os.unlink(entry.path)
+        except OSError as error:
+            self._emit(StationProblem(f"{folder}: cannot be used ({error.strerror or error}); reports are written by the station"))
+            return None
+        return str(folder)
 
     def _content_sha256(self, path: str) -> str | None:
         """The file's sha256 as it is now, or None when it cannot be read (the analysis then
@@ -614,6 +634,7 @@ class Station:
                 received_at=info.received_at, claim_id=info.claim_id,
                 size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
+            drop_staged(outcome.staged)
             if record is not None:
                 self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
@@ -625,20 +646,34 @@ class Station:
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
-        if record is not None:
-            self._report_and_announce(record, digest, outcome.result_json, outcome.lines_csv, outcome.summary_body)
+        if record is None:  # kept in the spool: reported from its JSON when it is recorded
+            drop_staged(outcome.staged)
+            return
+        self._report_and_announce(record, digest, outcome.result_json, outcome.lines_csv, outcome.summary_body,
+                                  outcome.staged)
 
     def _report_and_announce(
         self, record: ledger.RunRecord, result: RunResult | RunDigest | None, result_json: str | None,
-        lines_csv_text: str | None = None, summary_body_text: str | None = None,
+        lines_csv_text: str | None = None, summary_body_text: str | None = None, staged: str | None = None,
     ) -> None:
         """Write a processed run's reports (retried while the disk is full, given up only when
         the station stops: a problem event, never a crash) and announce the run (a failed run
         without a result, as recorded from the spool, is announced as failed)."""
         if result is None:
+            drop_staged(staged)
             self._emit(RunFailed(record.run_id, record.version, record.path, record.error or "no result"))
             return
         folder = None
+        if record.status == "processed" and staged is not None and summary_body_text is not None:
+            # the worker wrote result.json and lines.csv: moved in place, summary.md added
+            try:
+                adopted = adopt_staged_reports(staged, self.data_dir, record.run_id, record.version, result.file,
+                                               summary_body_text)
+            except OSError:
+                adopted = None
+            folder = str(adopted) if adopted is not None else None
+        if folder is None:
+            drop_staged(staged)
         if record.status == "processed":
             backoff = Backoff()
             while folder is None:
@@ -670,8 +705,10 @@ class Station:
             reason = outcome.reason or "no result"
             record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason, provenance=info.provenance)
             info.answer["run_id"] = record.run_id
+            drop_staged(outcome.staged)
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
         record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json, provenance=info.provenance)
         info.answer["run_id"] = record.run_id
-        self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv, outcome.summary_body)
+        self._report_and_announce(record, outcome.result, outcome.result_json, outcome.lines_csv, outcome.summary_body,
+                                  outcome.staged)

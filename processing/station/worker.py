@@ -107,6 +107,7 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
     from processing.result_text import lines_csv, summary_body
     from processing.results import RunResult, to_json
     from processing.run_digest import digest_of
+    from processing.station.reports import stage_reports
 
     try:
         function = resolve_function(function_spec)
@@ -127,15 +128,19 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
             return
         if message is None:
             return
-        job_id, path, settings = message
+        job_id, path, settings, staging = message
         try:
             result = function(path, settings)
             if not isinstance(result, RunResult):
                 raise TypeError(f"{function_spec} returned {type(result).__name__}, not a RunResult")
             # the station records and reports from the texts and the digest; the result
-            # object goes pickled (a bytes blob to the station's receiving thread)
-            data = (pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL), to_json(result), lines_csv(result),
-                    summary_body(result), digest_of(result))
+            # object goes pickled (a bytes blob to the station's receiving thread); a processed
+            # run's result.json and lines.csv are written here, for the station to move in place
+            text, lines_text = to_json(result), lines_csv(result)
+            staged = (stage_reports(staging, job_id, text, lines_text)
+                      if staging is not None and result.status == "processed" else None)
+            data = (pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL), text, lines_text,
+                    summary_body(result), digest_of(result), staged)
         except MemoryError:
             outbox.send(("failed", job_id, f"out of memory (worker limit {memory_limit_mb} MB)"))
             return  # a fresh worker replaces this one

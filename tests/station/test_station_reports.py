@@ -100,3 +100,52 @@ def test_reports_from_a_digest_are_the_reports_from_the_result(tmp_path: Path) -
         assert (one / name).read_bytes() == (two / name).read_bytes(), name
     with pytest.raises(ValueError):
         write_reports(tmp_path / "c", 7, 2, digest_of(result), texts[0])
+
+
+def test_reports_staged_by_a_worker_are_the_reports_the_station_writes(tmp_path: Path) -> None:
+    """A worker writes result.json and lines.csv of a processed run before it has an id; the
+    station moves that folder in place and adds summary.md: the same three files, byte for byte,
+    as written by the station itself."""
+    from processing.result_text import summary_body
+    from processing.run_digest import digest_of
+    from processing.station.reports import adopt_staged_reports, stage_reports, staging_folder
+
+    result = _result()
+    texts = (to_json(result), lines_csv(result), summary_body(result))
+    written = write_reports(tmp_path / "a", 7, 2, digest_of(result), *texts)
+    staging = staging_folder(tmp_path / "b")
+    staging.mkdir(parents=True)
+    staged = stage_reports(str(staging), 12, texts[0], texts[1])
+    assert staged is not None and sorted(p.name for p in Path(staged).iterdir()) == ["lines.csv", "result.json"]
+    adopted = adopt_staged_reports(staged, tmp_path / "b", 7, 2, result.file, texts[2])
+    assert adopted == report_folder(tmp_path / "b", 7, result.file) and not Path(staged).exists()
+    for name in ("result.json", "lines.csv", "summary.md"):
+        assert (written / name).read_bytes() == (adopted / name).read_bytes(), name
+    again = stage_reports(str(staging), 13, texts[0], texts[1])  # the run's folder is taken: not adopted
+    assert again is not None and adopt_staged_reports(again, tmp_path / "b", 7, 2, result.file, texts[2]) is None
+    assert stage_reports(str(tmp_path / "missing"), 14, texts[0], texts[1]) is None  # cannot write: the station writes
+
+
+def test_a_station_leaves_no_staged_reports_and_clears_what_a_stopped_one_left(make_station, folders, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """A processed run's reports come from its worker's staged folder (the station does not
+    write them itself); the staging folder ends empty, what a stopped station left included."""
+    import processing.station.station as station_module
+    from processing.station.reports import staging_folder
+
+    written_by_station: list[int] = []
+    monkeypatch.setattr(station_module, "write_reports", lambda *args, **kwargs: written_by_station.append(args[1]))
+    export, data = folders
+    leftover = staging_folder(data) / "9-123-abcd"
+    leftover.mkdir(parents=True)
+    (leftover / "result.json").write_text("{}")
+    write_file(export / "a.csv", spectrum_csv(300))
+    write_file(export / "b.csv", "not a spectrum\n")
+    station, _ = make_station()
+    station.start()
+    assert station.wait_idle(30)
+    station.stop()
+    assert list(staging_folder(data).iterdir()) == []  # the leftover cleared; the runs' folders moved in
+    assert written_by_station == []
+    [folder] = [p for p in (data / "reports").iterdir()]
+    assert sorted(p.name for p in folder.iterdir()) == ["lines.csv", "result.json", "summary.md"]
+    assert json.loads((folder / "result.json").read_text())["file"].endswith("a.csv")
