@@ -125,10 +125,10 @@ def _child(where: str, span: tuple[int, int], latest_only: bool, instrument: str
             return  # the parent is gone or failed: nothing to write
         cells: ListingCells = listing_cells(replace(runs, decided=whole.decided, replaced=whole.replaced))
         _send(to_parent, (column_widths(cells), cells.with_instrument))
-        whole = _receive(from_parent)
-        if not isinstance(whole, tuple):
+        table = _receive(from_parent)  # the widths of the whole table, and its instrument column
+        if not isinstance(table, tuple):
             return  # the parent is gone or failed: nothing to write
-        lines = listing_lines(cells, *whole)
+        lines = listing_lines(cells, *table)
         if _receive(from_parent) == "write":
             try:
                 _write_lines(out, lines)

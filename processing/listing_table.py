@@ -17,7 +17,7 @@ from collections.abc import Hashable, Sequence
 from dataclasses import dataclass
 from itertools import compress, repeat
 from operator import itemgetter
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, TypeVar
 
 from processing.local_time import local_iso_all
 from processing.safe_text import safe_column, safe_text
@@ -32,6 +32,7 @@ _REPEATING = slice(1, 7)  # the columns that repeat from run to run
 _NAME = itemgetter(2)  # of str.rpartition("/"): a path's file name
 REPLACED = "replaced"  # the decision word of an undecided run a newer version of its file replaced
 UNDECIDED = "-"
+_Item = TypeVar("_Item")
 
 
 @dataclass(frozen=True)
@@ -54,20 +55,14 @@ def listing_table(runs: RunColumns, width: int | None = None) -> str:
     cells = listing_cells(runs)
     widths = column_widths(cells)
     with_instrument = cells.with_instrument
-    if width is not None and total_width(widths if with_instrument else _without_instrument(widths)) > width:  # wrapped and split as any table
-        return column_table(headers_shown(with_instrument), _columns(cells, with_instrument), width=width)
+    if width is not None and total_width(_shown(widths, with_instrument)) > width:  # wrapped and split as any table
+        return column_table(_shown(HEADERS, with_instrument), _columns(cells, with_instrument), width=width)
     return "\n".join([*listing_header(widths, with_instrument), *listing_lines(cells, widths, with_instrument)])
-
-
-def headers_shown(with_instrument: bool) -> list[str]:
-    """The headers of the columns shown (the instrument's only when some run has one)."""
-    return list(HEADERS) if with_instrument else _without_instrument(list(HEADERS))
 
 
 def listing_header(widths: Sequence[int], with_instrument: bool) -> list[str]:
     """The header line and the rule under it, at the widths of every column (`column_widths`)."""
-    shown = widths if with_instrument else _without_instrument(widths)
-    return header_lines(headers_shown(with_instrument), shown, set())
+    return header_lines(_shown(HEADERS, with_instrument), _shown(widths, with_instrument), set())
 
 
 def listing_cells(runs: RunColumns) -> ListingCells:
@@ -146,10 +141,11 @@ def _reason_texts(runs: RunColumns) -> list[str]:
 def _columns(cells: ListingCells, with_instrument: bool) -> list[Sequence[str]]:
     """The table's columns cell by cell (for `column_table`)."""
     blocks = list(map(cells.blocks.__getitem__, cells.keys))
-    repeating = [list(map(itemgetter(i), blocks)) for i in range(len(HEADERS[_REPEATING]))]
-    columns: list[Sequence[str]] = [cells.run, *repeating, cells.processed, cells.files, cells.reasons]
-    return columns if with_instrument else _without_instrument(columns)
+    repeating: list[Sequence[str]] = [list(map(itemgetter(i), blocks)) for i in range(len(HEADERS[_REPEATING]))]
+    return _shown([cells.run, *repeating, cells.processed, cells.files, cells.reasons], with_instrument)
 
 
-def _without_instrument(items: Sequence[object]) -> list:  # type: ignore[type-arg]
-    return [item for at, item in enumerate(items) if at != INSTRUMENT]
+def _shown(items: Sequence[_Item], with_instrument: bool) -> list[_Item]:
+    """The items of the columns shown, one per column of HEADERS: the instrument's only when
+    some run has one."""
+    return [item for at, item in enumerate(items) if with_instrument or at != INSTRUMENT]

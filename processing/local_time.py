@@ -122,13 +122,20 @@ def _whole_hour_shifts(hours: set[str]) -> dict[str, tuple[str, str]] | None:
 def _day_offset(day: str) -> int | None:
     """The local zone's offset from UTC in seconds, when the same whole hours at the first and
     the last second of the UTC day `YYYY-MM-DD`; else None."""
+    found = _offset_throughout(day + "T00:00:00", 86400)
+    return found[1] if found is not None and found[1] % 3600 == 0 else None
+
+
+def _offset_throughout(utc_start: str, seconds: int) -> tuple[float, int] | None:
+    """(the moment `utc_start`, `YYYY-MM-DDTHH:MM:SS` UTC, as a time stamp; the local zone's
+    offset from UTC in seconds) when the offset is the same at the first and the last second of
+    the `seconds` from then; None when it is not, or the moment is not one the clock can say."""
     try:
-        start = datetime.fromisoformat(day + "T00:00:00+00:00").timestamp()
-        first, last = time.localtime(start), time.localtime(start + 86399)
-    except (ValueError, OverflowError, OSError):
+        start = datetime.fromisoformat(utc_start + "+00:00").timestamp()
+        first, last = time.localtime(start), time.localtime(start + seconds - 1)
+    except (ValueError, OverflowError, OSError):  # not a moment, or beyond what the system's clock can say
         return None
-    offset = first.tm_gmtoff
-    return offset if offset == last.tm_gmtoff and offset % 3600 == 0 else None
+    return (start, first.tm_gmtoff) if first.tm_gmtoff == last.tm_gmtoff else None
 
 
 def _offset_text(offset: int) -> str:
@@ -173,16 +180,10 @@ def _hour_shift(hour: str) -> tuple[str, str, int, str] | None:
     """For the UTC hour `YYYY-MM-DDTHH`: the local hour its minute 0 falls in and the next
     (`YYYY-MM-DDTHH`), the minutes to add, and the offset text (`+01:00`); None when the
     offset changes within the hour or is not whole minutes, or `hour` is not an hour."""
-    if not _HOUR.fullmatch(hour):
+    found = _offset_throughout(hour + ":00:00", 3600) if _HOUR.fullmatch(hour) else None
+    if found is None or found[1] % 60:
         return None
-    try:
-        start = datetime.fromisoformat(hour + ":00:00+00:00").timestamp()
-        first, last = time.localtime(start), time.localtime(start + 3599)
-    except (ValueError, OverflowError, OSError):  # not an hour, or beyond what the system's clock can say
-        return None
-    offset = first.tm_gmtoff
-    if offset != last.tm_gmtoff or offset % 60:
-        return None
+    start, offset = found
     minutes = (offset // 60) % 60
     this_hour = time.gmtime(start + offset - minutes * 60)  # local time is UTC + offset, all the hour
     next_hour = time.gmtime(start + offset - minutes * 60 + 3600)

@@ -20,6 +20,9 @@ QuantityRow = tuple[str, str, str, float, "float | None", str]
 
 @dataclass(frozen=True)
 class RunDigest:
+    """A result's fields that the ledger stores beside its JSON (`record_run`) and the reports
+    name (`write_reports`)."""
+
     file: str
     status: str
     sha256: str | None

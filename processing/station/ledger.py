@@ -25,11 +25,9 @@ import os
 import sqlite3
 import stat
 import threading
-from collections import Counter
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, replace
 from datetime import datetime, timezone
-from operator import itemgetter
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TypeVar, Union
 from urllib.parse import quote, unquote_to_bytes
@@ -1111,7 +1109,7 @@ def list_runs(
     """Runs newest first; `latest_only` keeps only the newest version of each file;
     `instrument` keeps only that instrument's runs."""
     rows, replaced = _listing(
-        conn, _RUN_COLUMNS_OWN, (12, 1, 3), limit, latest_only, instrument, then=", result_json" if with_result else ""
+        conn, _RUN_COLUMNS_OWN, limit, latest_only, instrument, then=", result_json" if with_result else ""
     )
     decisions = _current_decisions(conn, [int(row[0]) for row in rows] if limit else None, instrument)  # type: ignore[arg-type]
     return [_listed(row, decisions.get(row[0]), conn, replaced.get(row[0])) for row in rows]
@@ -1178,7 +1176,7 @@ def list_run_columns(
     shows; `part` (first and last run id, and `whole_listing`) keeps the runs in that range, of
     a listing without a limit made in parts."""
     run_range, whole = part if part is not None else (None, None)
-    rows, replaced = _listing(conn, _COLUMNS_LISTING, (1, 7, 2), limit, latest_only, instrument, run_range=run_range)
+    rows, replaced = _listing(conn, _COLUMNS_LISTING, limit, latest_only, instrument, run_range=run_range)
     if whole is not None:
         actions, replaced = whole.decided, whole.replaced
     else:
@@ -1202,11 +1200,11 @@ def list_run_columns(
 
 
 def _listing(
-    conn: Connection, columns: str, key: tuple[int, int, int], limit: int | None, latest_only: bool,
+    conn: Connection, columns: str, limit: int | None, latest_only: bool,
     instrument: str | None, then: str = "", run_range: tuple[int, int] | None = None,
 ) -> tuple[list[tuple[SqlValue, ...]], dict[int, int]]:
-    """The rows of a listing (`columns`, superseded_by, then the columns `then` adds; run_id
-    first, the positions of instrument, path and version in `key`) and the replaced runs."""
+    """The rows of a listing (`columns`, run_id first, then superseded_by, then the columns
+    `then` adds) and the replaced runs."""
     conditions = []
     params: list[Any] = []
     if instrument is not None:
@@ -1218,8 +1216,8 @@ def _listing(
         conditions.append("run_id BETWEEN ? AND ?")
         params += [int(run_range[0]), int(run_range[1])]
     where = f" WHERE {' AND '.join(conditions)}" if conditions else ""
-    # Without a limit the rows hold every version of their files (or, latest_only, none is
-    # replaced): the newer version is found among them, not by a query per row.
+    # Without a limit the replaced runs are found by one query over the (instrument, path,
+    # version) index (`_replaced_everywhere`), not by a query per row; latest_only replaces none.
     every_version = limit is None
     superseded = "NULL AS superseded_by" if every_version else _SUPERSEDED_BY
     sql = f"SELECT {columns}, {superseded}{then} FROM runs{where} ORDER BY run_id DESC"
@@ -1229,7 +1227,7 @@ def _listing(
     rows = _tuples(conn, sql, tuple(params))
     if not every_version or latest_only or run_range is not None:  # a part's: `whole_listing`
         return rows, {}
-    return rows, _replaced_by(rows, key)
+    return rows, _replaced_everywhere(conn, instrument)
 
 
 def _replaced_everywhere(conn: Connection, instrument: str | None) -> dict[int, int]:
@@ -1244,25 +1242,6 @@ def _replaced_everywhere(conn: Connection, instrument: str | None) -> dict[int, 
         " JOIN runs AS older ON older.instrument = file.instrument AND older.path = file.path AND older.version < file.version"
     )
     return dict(_tuples(conn, sql, (instrument,) if instrument is not None else ()))  # type: ignore[arg-type]
-
-
-def _replaced_by(rows: list[tuple[SqlValue, ...]], key: tuple[int, int, int]) -> dict[int, int]:
-    """run_id -> the run id of its file's newest version, for every row that is not that
-    version (run_id first in each row; instrument, path and version at the positions `key`).
-    Only the rows whose path is seen more than once are looked at, picked in C loops: a ledger
-    of one version per file is told by one set of its paths (100,000 runs in a few ms)."""
-    at_instrument, at_path, at_version = key
-    paths = list(map(itemgetter(at_path), rows))
-    if len(set(paths)) == len(paths):
-        return {}  # one version of every file: nothing replaced
-    again = {path for path, count in Counter(paths).items() if count > 1}
-    newest: dict[tuple[SqlValue, SqlValue], tuple[int, int]] = {}
-    versions = [((row[at_instrument], row[at_path]), int(row[at_version]), int(row[0]))  # type: ignore[arg-type]
-                for row in itertools.compress(rows, map(again.__contains__, paths))]
-    for file, version, run_id in versions:
-        if file not in newest or version > newest[file][0]:
-            newest[file] = (version, run_id)
-    return {run_id: newest[file][1] for file, version, run_id in versions if version != newest[file][0]}
 
 
 def instruments(conn: Connection) -> list[str]:

@@ -82,19 +82,20 @@ def adopt_staged_reports(staged: str, data_dir: str | Path, run_id: int, version
                          summary_body_text: str) -> Path | None:
     """Move a worker's staged result.json and lines.csv into the run's report folder (one
     rename: the folder appears with both files whole) and write summary.md beside them; None
-    when the folder is taken already (the caller writes the reports and drops `staged`)."""
+    when the folder is taken already or a write fails (the caller then writes the reports
+    itself and drops `staged`)."""
     folder = report_folder(data_dir, run_id, file)
     try:
         folder.parent.mkdir(exist_ok=True)
         os.rename(staged, folder)
+        _write_atomic(folder / "summary.md", summary_with_title(run_id, version, file, summary_body_text))
     except OSError:
         return None
-    _write_atomic(folder / "summary.md", summary_with_title(run_id, version, file, summary_body_text))
     return folder
 
 
 def drop_staged(staged: str | None) -> None:
-    """Remove a worker's staged reports that will not be used (a failed or spooled run)."""
+    """Remove a worker's staged reports that will not be used (a spooled run, a folder not adopted)."""
     if staged:
         shutil.rmtree(staged, ignore_errors=True)
 

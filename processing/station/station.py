@@ -18,8 +18,8 @@ import fcntl
 import functools
 import hashlib
 import os
-import shutil
 import queue
+import shutil
 import threading
 import time
 from collections.abc import Callable
@@ -544,13 +544,9 @@ class Station:
         what a stopped station left; None when it cannot be made (the recorder then writes
         every report itself)."""
         folder = staging_folder(self.data_dir)
+        shutil.rmtree(folder, ignore_errors=True)
         try:
-            folder.mkdir(parents=True, exist_ok=True)
-            for entry in os.scandir(folder):
-                if entry.is_dir(follow_symlinks=False):
-                    shutil.rmtree(entry.path, ignore_errors=True)
-                else:
-                    os.unlink(entry.path)
+            folder.mkdir(parents=True)
         except OSError as error:
             self._emit(StationProblem(f"{folder}: cannot be used ({error.strerror or error}); reports are written by the station"))
             return None
@@ -634,7 +630,6 @@ class Station:
                 received_at=info.received_at, claim_id=info.claim_id,
                 size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
-            drop_staged(outcome.staged)
             if record is not None:
                 self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
@@ -660,17 +655,13 @@ class Station:
         the station stops: a problem event, never a crash) and announce the run (a failed run
         without a result, as recorded from the spool, is announced as failed)."""
         if result is None:
-            drop_staged(staged)
             self._emit(RunFailed(record.run_id, record.version, record.path, record.error or "no result"))
             return
         folder = None
         if record.status == "processed" and staged is not None and summary_body_text is not None:
             # the worker wrote result.json and lines.csv: moved in place, summary.md added
-            try:
-                adopted = adopt_staged_reports(staged, self.data_dir, record.run_id, record.version, result.file,
-                                               summary_body_text)
-            except OSError:
-                adopted = None
+            adopted = adopt_staged_reports(staged, self.data_dir, record.run_id, record.version, result.file,
+                                           summary_body_text)
             folder = str(adopted) if adopted is not None else None
         if folder is None:
             drop_staged(staged)
@@ -705,7 +696,6 @@ class Station:
             reason = outcome.reason or "no result"
             record = record_redo(conn, info.reprocess_of, info.requested, None, failure=reason, provenance=info.provenance)
             info.answer["run_id"] = record.run_id
-            drop_staged(outcome.staged)
             self._emit(RunFailed(record.run_id, record.version, record.path, reason))
             return
         record = record_redo(conn, info.reprocess_of, info.requested, outcome.result, outcome.result_json, provenance=info.provenance)
