@@ -23,6 +23,8 @@ async def quiet(pilot: Any) -> None:
     Workers start other workers through messages (runs -> detail and spectrum), so a fixed
     number of pauses is not enough on a loaded machine.
     """
+    from textual.worker import WorkerCancelled
+
     from tui.screens.main_screen import LEDGER_FEED_GROUP, MainScreen
     from tui.widgets.run_tables import RunList
     from tui.widgets.spectrum_plot import SpectrumPlot
@@ -32,7 +34,10 @@ async def quiet(pilot: Any) -> None:
         # the ledger feed follows the ledger for as long as the screen is there: never "complete"
         finite = [worker for worker in app.workers if worker.group != LEDGER_FEED_GROUP]
         if finite:  # (an empty list would mean "every worker" to Textual)
-            await app.workers.wait_for_complete(finite)
+            try:
+                await app.workers.wait_for_complete(finite)
+            except WorkerCancelled:
+                continue  # an exclusive worker replaced by a newer one: look again
         await pilot.pause(0.01)
         if any(worker.is_running for worker in app.workers if worker.group != LEDGER_FEED_GROUP):
             continue
