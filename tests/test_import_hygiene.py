@@ -71,3 +71,22 @@ def test_a_command_imports_only_its_own_module_and_help_lists_every_command() ->
     with contextlib.redirect_stderr(message), contextlib.suppress(SystemExit):
         build_parser(["nosuch"]).parse_args(["nosuch"])
     assert all(repr(name) in message.getvalue() for name in COMMANDS)
+
+
+def test_process_command_does_not_import_sqlite3_and_a_ledger_error_is_still_one_line(monkeypatch, capsys) -> None:
+    """sqlite3 is left to the commands that use it (~4 ms of `bandwatch process` start-up); an
+    sqlite3 error a command meets still ends as one line, not a traceback."""
+    import sqlite3
+
+    import tui.commands.ledger
+    from tui.cli import main
+
+    assert _printed_after_parser(["process", "x.csv"], "import tui.commands.process\nprint('sqlite3' in sys.modules)") == "False"
+
+    def broken(args):
+        raise sqlite3.OperationalError("database disk image is malformed")
+
+    monkeypatch.setattr(tui.commands.ledger, "run", broken)
+    assert main(["ledger", "list"]) == 1
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert lines == ["bandwatch: ledger: database disk image is malformed (see `bandwatch ledger list` and the data folder)"]
