@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from processing.apodization import APODIZATIONS, apodization_window, window_name
+from processing.index_ranges import expand_ranges
 
 STATED_MISFIT_FACTOR = 4.0  # a stated line shape yields only to one that fits this much better
 STATED_WIDTH_TOLERANCE = 1.25  # measured lines this much wider (or narrower) than stated: another convention
@@ -181,9 +182,7 @@ def equivalent_width_estimates(x: np.ndarray, absorbance: np.ndarray, centres: n
     half = np.maximum(model.fwhm_cm1, np.nan_to_num(widths, nan=model.fwhm_cm1))
     lo = np.clip(np.searchsorted(x, centres - half), 0, x.size - 1)
     hi = np.clip(np.searchsorted(x, centres + half) - 1, 0, x.size - 1)
-    intervals = np.maximum(hi - lo, 0)
-    owner = np.repeat(np.arange(centres.size), intervals)
-    left = np.arange(int(intervals.sum())) - np.repeat(np.cumsum(intervals) - intervals, intervals) + np.repeat(lo, intervals)
+    owner, left = expand_ranges(lo, hi)
     depth_left, depth_right = transmittance_depth(absorbance[left]), transmittance_depth(absorbance[left + 1])
     area = np.bincount(owner, weights=0.5 * (depth_left + depth_right) * (x[left + 1] - x[left]), minlength=centres.size)
     return area / np.maximum(model.central_share(half), 0.05)
@@ -217,9 +216,7 @@ def predicted_ringing(
     lo = np.searchsorted(c, targets - reach)
     hi = np.searchsorted(c, targets + reach)
     # every (target, line within reach) pair at once
-    counts = hi - lo
-    pair_target = np.repeat(np.arange(targets.size), counts)
-    pair_line = np.arange(int(counts.sum())) - np.repeat(np.cumsum(counts) - counts, counts) + np.repeat(lo, counts)
+    pair_target, pair_line = expand_ranges(lo, hi)
     offsets = targets[pair_target] - c[pair_line]
     lobes = np.abs(offsets) > main
     contribution = np.where(lobes, w[pair_line] * model.shape(offsets), 0.0)

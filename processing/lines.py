@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from processing.baseline import BaselineResult
+from processing.index_ranges import expand_ranges
 from processing.line_shape import (
     LineShapeModel,
     equivalent_width_estimates,
@@ -537,23 +538,21 @@ def _deblend_far_neighbours(
     reach = model.main_lobe_cm1 + float(np.max(np.abs(x_win - c[:, None]))) if c.size else 0.0
     order = np.argsort(centres)
     sorted_c = centres[order]
-    for i in range(c.size):
-        lo, hi = np.searchsorted(sorted_c, c[i] - reach), np.searchsorted(sorted_c, c[i] + reach)
-        for j in order[lo:hi]:
-            if j < c.size and j != i and not lobe[j]:
-                target[i] -= h[j] * np.exp(-FOUR_LN2 * ((x_win[i] - c[j]) / w[j]) ** 2)
+    row, j = _neighbour_pairs(sorted_c, order, c - reach, c + reach)
+    take = (j < c.size) & (j != row)
+    row, j = row[take], j[take]
+    row, j = row[~lobe[j]], j[~lobe[j]]
+    _take_out_gaussians(target, x_win, row, j, h, c, w)
     weight = _core_weights(target, half)
     h, c, w, cov, rms = _fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1))
     wing_shift = np.zeros(c.size)
     # a line on the wing of a much stronger one (WING_RATIO, WING_WIDTHS) stands on a slope the
     # drawn shapes do not follow exactly (a thick line's pressure-broadened wings): refitted on
     # a wider window with a local straight background under it
-    stronger = np.zeros(c.size, dtype=bool)
-    beside = np.zeros(c.size, dtype=bool)
-    for i in range(c.size):
-        lo, hi = np.searchsorted(sorted_c, c[i] - WING_WIDTHS * w[i]), np.searchsorted(sorted_c, c[i] + WING_WIDTHS * w[i])
-        stronger[i] = any(j != i and heights[j] > WING_RATIO * h[i] for j in order[lo:hi])
-        beside[i] = any(j != i and heights[j] > 2.0 * h[i] for j in order[lo:hi])
+    row, j = _neighbour_pairs(sorted_c, order, c - WING_WIDTHS * w, c + WING_WIDTHS * w)
+    row, j = row[j != row], j[j != row]
+    stronger = np.bincount(row, weights=heights[j] > WING_RATIO * h[row], minlength=c.size) > 0
+    beside = np.bincount(row, weights=heights[j] > 2.0 * h[row], minlength=c.size) > 0
     if beside.any():
         wide = max(half + 2, int(round(1.1 * float(np.median(w)) / spectrum.spacing_cm1)))
         pick = np.flatnonzero(beside)
@@ -561,11 +560,13 @@ def _deblend_far_neighbours(
         x_wide = x[index]
         far_wide, _ = predicted_ringing(centres[sources], equivalent[sources], model, x_wide.ravel())
         target_wide = y_wide + np.log10(np.clip(1.0 - far_wide.reshape(x_wide.shape), 1e-6, None))
-        for row, i in enumerate(pick):
-            lo, hi = np.searchsorted(sorted_c, c[i] - reach - wide * spectrum.spacing_cm1), np.searchsorted(sorted_c, c[i] + reach + wide * spectrum.spacing_cm1)
-            for j in order[lo:hi]:
-                if j < c.size and j != i and not lobe[j] and abs(c[j] - c[i]) < model.main_lobe_cm1 + wide * spectrum.spacing_cm1:
-                    target_wide[row] -= h[j] * np.exp(-FOUR_LN2 * ((x_wide[row] - c[j]) / w[j]) ** 2)
+        margin = wide * spectrum.spacing_cm1
+        row, j = _neighbour_pairs(sorted_c, order, c[pick] - reach - margin, c[pick] + reach + margin)
+        i = pick[row]
+        take = (j < c.size) & (j != i)
+        row, i, j = row[take], i[take], j[take]
+        take = ~lobe[j] & (np.abs(c[j] - c[i]) < model.main_lobe_cm1 + margin)
+        _take_out_gaussians(target_wide, x_wide, row[take], j[take], h, c, w)
         near_core = (np.abs(x_wide - c[pick][:, None]) <= 1.1 * w[pick][:, None]).astype(np.float64)
         _, cb, _, covb, _ = _fit_gaussians(x_wide, target_wide, near_core, h[pick], c[pick], w[pick],
                                                 noise.correlation_matrix(2 * wide + 1), background=True)
@@ -580,6 +581,21 @@ def _deblend_far_neighbours(
         cov[keep, 1, 1] = np.where(take, covb[good][:, 1, 1], cov[keep, 1, 1])
         wing_shift[keep] = np.abs(moved)
     return h, c, w, cov, rms, weight, wing_shift
+
+
+def _neighbour_pairs(sorted_centres: np.ndarray, order: np.ndarray, low: np.ndarray, high: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(row, line) for every line whose centre lies in [low[row], high[row]), rows ascending and
+    each row's lines in order of centre (`order` sorts the centres into `sorted_centres`)."""
+    row, position = expand_ranges(np.searchsorted(sorted_centres, low), np.searchsorted(sorted_centres, high))
+    return row, order[position]
+
+
+def _take_out_gaussians(target: np.ndarray, x: np.ndarray, row: np.ndarray, line: np.ndarray,
+                        h: np.ndarray, c: np.ndarray, w: np.ndarray) -> None:
+    """Subtract, in place and pair by pair in the order given, line `line`'s Gaussian from
+    window `row` of `target` (sampled at `x[row]`)."""
+    if row.size:
+        np.subtract.at(target, row, h[line, None] * np.exp(-FOUR_LN2 * ((x[row] - c[line, None]) / w[line, None]) ** 2))
 
 
 def _collapse_saturated(spectrum: Spectrum, baseline: BaselineResult, peaks: np.ndarray) -> tuple[np.ndarray, list[tuple[float, float, float, float]]]:
