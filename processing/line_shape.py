@@ -64,18 +64,14 @@ class LineShapeModel:
 
     @functools.cached_property
     def fwhm_cm1(self) -> float:
-        s, f = _tabulated(self.window)
-        below = int(np.flatnonzero(f < 0.5 * f[0])[0])
-        s0, s1, f0, f1 = s[below - 1], s[below], f[below - 1], f[below]
-        return float(2.0 * (s0 + (0.5 * f[0] - f0) * (s1 - s0) / (f1 - f0)) / self.opd_cm)
+        return float(_fwhm_times_opd(self.window) / self.opd_cm)
 
     @functools.cached_property
     def main_lobe_cm1(self) -> float:
         """Half-width of the main lobe: the first offset where the ILS falls to zero or, for
         windows without zeros, to 1% of its peak."""
-        s, f = _tabulated(self.window)
-        low = np.flatnonzero(f <= 0.01 * f[0])
-        return float(s[low[0]] / self.opd_cm) if low.size else 2.0 * self.fwhm_cm1
+        lobe = _main_lobe_times_opd(self.window)
+        return float(lobe / self.opd_cm) if lobe is not None else 2.0 * self.fwhm_cm1
 
     def central_share(self, half_width_cm1: np.ndarray) -> np.ndarray:
         """Share of a narrow line's area the ILS puts within +-half_width of its centre."""
@@ -85,9 +81,30 @@ class LineShapeModel:
 
     def reach_cm1(self, level: float) -> float:
         """Offset beyond which every lobe stays under `level` x the peak."""
-        s, f = _tabulated(self.window)
-        above = np.flatnonzero(np.abs(f) > level * f[0])
-        return float(s[above[-1]] / self.opd_cm) if above.size else 0.0
+        return float(_reach_times_opd(self.window, level) / self.opd_cm)
+
+
+# The line shape's widths in units of 1/L, once per window (a model's are these / L).
+@functools.lru_cache(maxsize=16)
+def _fwhm_times_opd(window: str) -> float:
+    s, f = _tabulated(window)
+    below = int(np.flatnonzero(f < 0.5 * f[0])[0])
+    s0, s1, f0, f1 = s[below - 1], s[below], f[below - 1], f[below]
+    return float(2.0 * (s0 + (0.5 * f[0] - f0) * (s1 - s0) / (f1 - f0)))
+
+
+@functools.lru_cache(maxsize=16)
+def _main_lobe_times_opd(window: str) -> float | None:
+    s, f = _tabulated(window)
+    low = np.flatnonzero(f <= 0.01 * f[0])
+    return float(s[low[0]]) if low.size else None
+
+
+@functools.lru_cache(maxsize=64)
+def _reach_times_opd(window: str, level: float) -> float:
+    s, f = _tabulated(window)
+    above = np.flatnonzero(np.abs(f) > level * f[0])
+    return float(s[above[-1]]) if above.size else 0.0
 
 
 def stated_line_shape(apodization: str | None, resolution_cm1: float | None) -> LineShapeModel | None:
