@@ -277,12 +277,16 @@ def find_saturated_regions(
     x = spectrum.wavenumber_cm1
     y = spectrum.absorbance
     regions: list[SaturatedRegion] = []
-    over = (y > usable_absorbance) | spectrum.saturated
-    for start, stop in _runs(over):
-        reason = "transmittance <= 0" if spectrum.saturated[start:stop].any() else "above usable absorbance"
-        regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(y[start:stop].max()), reason))
-    high = (corrected > 1.0) & ~over
-    runs = _runs(high)
+    # (most spectra have no point over either limit: each mask is built only when one is)
+    any_over = bool(np.max(y) > usable_absorbance) or bool(spectrum.saturated.any()) if y.size else False
+    over = (y > usable_absorbance) | spectrum.saturated if any_over else None
+    if over is not None:
+        for start, stop in _runs(over):
+            reason = "transmittance <= 0" if spectrum.saturated[start:stop].any() else "above usable absorbance"
+            regions.append(SaturatedRegion(float(x[start]), float(x[stop - 1]), float(y[start:stop].max()), reason))
+    runs = []
+    if corrected.size and np.max(corrected) > 1.0:
+        runs = _runs((corrected > 1.0) & ~over if over is not None else corrected > 1.0)
     if runs:
         starts = np.array([a for a, _ in runs])
         stops = np.array([b for _, b in runs])
