@@ -24,6 +24,7 @@ from processing.fringes import FringeModel, find_fringes
 from processing.noise import NoiseEstimate, clipped_sigma, estimate_noise, lagged_sigma, quantization_step
 from processing.results import SaturatedRegion  # reason: "transmittance <= 0", "above usable absorbance", "flat top"
 from processing.spectrum import Spectrum
+from processing.order_stats import median
 
 # Absorbance above which a line top is no longer usable for intensities: T < ~3% (common practice).
 DEFAULT_USABLE_ABSORBANCE = 1.5
@@ -142,7 +143,8 @@ def estimate_baseline(
         tilt = float(np.polyfit(centre_x, levels[good], 1)[0] * 1000.0)
     else:
         tilt = 0.0
-    offset = float(np.nanmedian(levels)) if np.isfinite(levels).any() else float(np.median(y))
+    # (+ 0.0: a median of exact zeros carries no sign, whichever zero the partition left there)
+    offset = (median(levels[~np.isnan(levels)]) if np.isfinite(levels).any() else median(y)) + 0.0
     # the grid is seen best over every point (a noise-free baseline may hold one value only)
     step = quantization_step(original_values(spectrum, np.arange(0, n, max(1, n // 20_000))))
     floor_rounding = rounding_floor_absorbance(step, spectrum.original_y_kind, offset)
@@ -186,7 +188,7 @@ def _iterate(
     n = y.size
     _, _, sigma, centres, levels = _iterate_points(y[::stride], saturated[::stride], max(16, block // stride), sigma, iterations)
     centres = centres * stride
-    baseline = _join(centres, levels, n, float(np.median(y[:: max(1, n // 100_000)])))
+    baseline = _join(centres, levels, n, median(y[:: max(1, n // 100_000)]))
     residual = y - baseline
     floor = _flat_floor(y)
     free = _line_free(residual, saturated, sigma, floor)
@@ -213,7 +215,7 @@ def _iterate_points(
     n = y.size
     free = ~saturated
     floor = _flat_floor(y)
-    overall = float(np.median(y[:: max(1, n // 100_000)]))
+    overall = median(y[:: max(1, n // 100_000)])
     baseline = np.full(n, overall)
     centres = np.array([0.0])
     levels = np.array([overall])

@@ -25,6 +25,7 @@ from processing.levels import band_origin, rotational_constant
 from processing.line_shape import LineShapeModel
 from processing.physical_constants import C2_CM_K
 from processing.results import BandContour
+from processing.order_stats import median
 
 if TYPE_CHECKING:
     from processing.species import Library
@@ -85,7 +86,7 @@ def fit_contour(
 
     # the origin only shifts the contour: drawn once per (B, growth) on a fine grid, it is
     # moved by interpolation
-    step = min(float(np.median(np.diff(x))) / 4.0, shape.fwhm_cm1 / 20.0)
+    step = min(median(np.diff(x)) / 4.0, shape.fwhm_cm1 / 20.0)
     fine = np.arange(x[0] - 2.0, x[-1] + 2.0, step)
 
     def chi2_grid(B: float, origins: np.ndarray) -> np.ndarray:

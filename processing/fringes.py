@@ -16,6 +16,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from processing.order_stats import median
 
 FRINGE_CONTRAST = 8.0
 PERIOD_RANGE_CM1 = (0.3, 20.0)
@@ -69,7 +70,7 @@ def _strongest_period(residual: np.ndarray, free: np.ndarray, spacing: float) ->
         return None
     index = np.flatnonzero(band)
     k = int(index[np.argmax(magnitude[index])])
-    contrast = float(magnitude[k] / max(np.median(magnitude[index]), 1e-300))
+    contrast = float(magnitude[k] / max(median(magnitude[index]), 1e-300))
     # parabolic refinement of the peak frequency
     if 0 < k < magnitude.size - 1:
         a, b, c = magnitude[k - 1], magnitude[k], magnitude[k + 1]
@@ -130,7 +131,7 @@ def find_fringes(x: np.ndarray, residual: np.ndarray, free: np.ndarray, spacing:
     profile = np.zeros(x.size)
     for j in range(terms.shape[1]):
         profile += np.interp(x, centres, coefficients[:, j]) * terms[:, j]
-    block_amplitude = float(np.median(np.hypot(coefficients[:, 0], coefficients[:, 1])))
+    block_amplitude = median(np.hypot(coefficients[:, 0], coefficients[:, 1]))
     chance = 3.0 * noise_sigma / math.sqrt(max(period / spacing, 1.0))
     if block_amplitude < chance:
         return None

@@ -20,6 +20,7 @@ import numpy as np
 
 from processing.apodization import APODIZATIONS, apodization_window, window_name
 from processing.index_ranges import expand_ranges
+from processing.order_stats import percentile
 
 STATED_MISFIT_FACTOR = 4.0  # a stated line shape yields only to one that fits this much better
 STATED_WIDTH_TOLERANCE = 1.25  # measured lines this much wider (or narrower) than stated: another convention
@@ -132,7 +133,7 @@ def infer_line_shape(
     1 / STATED_MISFIT_FACTOR)."""
     if centres.size < 3:
         return stated
-    typical = float(np.percentile(widths[np.isfinite(widths)], 25)) if np.isfinite(widths).any() else 0.0
+    typical = percentile(widths[np.isfinite(widths)], 25) if np.isfinite(widths).any() else 0.0
     if not typical > 0:
         return stated
     reach = 12.0 * typical

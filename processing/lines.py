@@ -42,6 +42,7 @@ from processing.line_shape import (
 )
 from processing.noise import NoiseEstimate, white_noise
 from processing.spectrum import Spectrum
+from processing.order_stats import median, percentile
 
 FOUR_LN2 = 4.0 * np.log(2.0)
 GAUSS_AREA = float(np.sqrt(np.pi / FOUR_LN2))  # area = GAUSS_AREA x height x FWHM
@@ -155,7 +156,7 @@ def _estimate_width_points(y: np.ndarray | _Negated, peaks: np.ndarray) -> float
                 frac_r = (yr_in - t / 2) / max(yr_in - yr_out, 1e-300)
                 widths.append((li + frac_l) + (ri + frac_r))
             # the narrow end: merged isotopologue pairs and blends only ever widen a line
-            return float(np.percentile(widths, 25))
+            return percentile(widths, 25)
         half_window *= 4
     return 3.0
 
@@ -441,7 +442,7 @@ def measure_lines(
     # a profile fit that cannot place its centre to 10% of a width has failed (e.g. a
     # distorted blend): keep the three-point parabola centre, with at least that 10% as its
     # uncertainty
-    limit = 0.1 * float(np.median(w)) if w.size else spacing
+    limit = 0.1 * median(w) if w.size else spacing
     failed = (position_sigma > limit) & ~few_points
     c = np.where(failed, centre0, c)
     position_sigma = np.where(failed, np.maximum(limit, conservative), position_sigma)
@@ -461,7 +462,7 @@ def measure_lines(
     few_points = few_points[order]
     gaps = np.diff(c)
     strong = (snr_of(h, sigma) >= 10.0) & ~saturated
-    typical = float(np.percentile(w[strong] if strong.sum() >= 3 else w, 25))
+    typical = percentile(w[strong] if strong.sum() >= 3 else w, 25)
     close = gaps < 1.5 * typical
     blended = np.zeros(c.size, dtype=bool)
     blended[:-1] |= close
@@ -554,7 +555,7 @@ def _deblend_far_neighbours(
     stronger = np.bincount(row, weights=heights[j] > WING_RATIO * h[row], minlength=c.size) > 0
     beside = np.bincount(row, weights=heights[j] > 2.0 * h[row], minlength=c.size) > 0
     if beside.any():
-        wide = max(half + 2, int(round(1.1 * float(np.median(w)) / spectrum.spacing_cm1)))
+        wide = max(half + 2, int(round(1.1 * median(w) / spectrum.spacing_cm1)))
         pick = np.flatnonzero(beside)
         y_wide, index = _gather(baseline.corrected, peaks[pick], wide)
         x_wide = x[index]

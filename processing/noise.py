@@ -30,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from processing.apodization import apodization_window, window_name
+from processing.order_stats import median, percentiles
 
 CLIP_SIGMAS = 3.0
 # std of a unit Gaussian truncated to |z| <= 3 (calc: sqrt(1 - 2 * 3 * phi(3) / (2 Phi(3) - 1)))
@@ -132,7 +133,7 @@ def clipped_sigma(residual: np.ndarray, start: float = 0.0) -> float:
     centre = float(np.mean(r))
     sigma = start
     if sigma <= 0.0:
-        low, high = np.percentile(r, [0.5, 99.5])
+        low, high = percentiles(r, (0.5, 99.5))
         central = r[(r >= low) & (r <= high)]
         centre, sigma = float(np.mean(central)), float(np.std(central))
     if sigma == 0.0:
@@ -159,7 +160,7 @@ def lagged_sigma(values: np.ndarray, lag: int = 24, sample: int = _SIGMA_SAMPLE)
     d = v[lag:] - v[:-lag]
     if d.size > sample:
         d = d[:: d.size // sample]
-    return float(1.4826 * np.median(np.abs(d - np.median(d))) / math.sqrt(2.0))
+    return float(1.4826 * median(np.abs(d - median(d))) / math.sqrt(2.0))
 
 
 MIN_PAIRS = 32  # point pairs needed to measure the correlation at one lag

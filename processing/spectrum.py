@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 from typing import Any, Literal
 
 import numpy as np
+from processing.order_stats import median
 
 YKind = Literal["absorbance", "transmittance", "percent_transmittance"]
 Y_KINDS: tuple[str, ...] = ("absorbance", "transmittance", "percent_transmittance")
@@ -104,7 +105,7 @@ class Spectrum:
     @functools.cached_property
     def spacing_cm1(self) -> float:
         """Median point spacing in cm-1 (computed once: the axis is read-only)."""
-        return float(np.median(np.diff(self.wavenumber_cm1)))
+        return median(np.diff(self.wavenumber_cm1))
 
     @property
     def first_cm1(self) -> float:

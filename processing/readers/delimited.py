@@ -27,6 +27,7 @@ import numpy as np
 
 from processing.errors import SpectrumFileError
 from processing.spectrum import handed_over, FileMetadata, Spectrum, reverse_in_place, to_absorbance
+from processing.order_stats import median
 
 FORMAT_NAME = "delimited text"
 EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".dat", ".prn", ".asc")
@@ -667,12 +668,12 @@ def _infer_y_kind(y: np.ndarray) -> tuple[str, str]:
     """Guess the y kind from values: (kind, reason). Gas spectra are mostly baseline, so the
     median sits at the baseline: near the top for transmittance, near the bottom for absorbance."""
     low, high = float(np.min(y)), float(np.max(y))
-    median = float(np.median(y))
-    baseline_on_top = (high - median) < (median - low)
-    summary = f"values {low:.4g}..{high:.4g}, median {median:.4g}"
+    middle = median(y)
+    baseline_on_top = (high - middle) < (middle - low)
+    summary = f"values {low:.4g}..{high:.4g}, median {middle:.4g}"
     if low >= -0.05 and high <= 1.05 and high >= 0.8 and baseline_on_top:
         return "transmittance", f"{summary}: within 0..1.05, max near 1, baseline at the top"
-    if low >= -5.0 and high <= 105.0 and median > 10.0 and baseline_on_top:
+    if low >= -5.0 and high <= 105.0 and middle > 10.0 and baseline_on_top:
         return (
             "percent_transmittance",
             f"{summary}: within 0..105, median > 10, baseline at the top",

@@ -16,6 +16,7 @@ import numpy as np
 
 from processing.provenance import Provenance
 from processing.station import ledger
+from processing.order_stats import percentiles
 
 
 @dataclass(frozen=True)
@@ -53,7 +54,7 @@ def quantity_shifts(conn: ledger.Connection, provenance: Provenance) -> list[Qua
             unit = row[3]
             differences.append(row[4])
         values = np.frombuffer(differences, dtype=float)
-        lower, median, upper = np.percentile(values, [25.0, 50.0, 75.0])
+        lower, median, upper = percentiles(values, (25.0, 50.0, 75.0))
         shifts.append(QuantityShift(
             isotopologue, band, quantity, unit, int(values.size), float(median), float(lower), float(upper),
             float(values.min()), float(values.max()),
