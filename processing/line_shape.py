@@ -18,30 +18,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from processing.apodization import APODIZATIONS, apodization_window, window_name
+from processing.apodization import APODIZATIONS, window_name
 from processing.index_ranges import expand_ranges
+from processing.line_shape_tables import full_table, near_table, table_reaching
 from processing.order_stats import percentile
 
 STATED_MISFIT_FACTOR = 4.0  # a stated line shape yields only to one that fits this much better
 STATED_WIDTH_TOLERANCE = 1.25  # measured lines this much wider (or narrower) than stated: another convention
-_SAMPLES = 1 << 12  # window samples over 0..1
-_PAD = 1 << 17  # FFT length: s step _SAMPLES / _PAD = 1/32 in units of 1/L (ILS to ~2e-3 of its peak)
 # The prediction of a lobe's depth is good to about this fraction (line shapes not exactly
 # narrow, neighbours, equivalent widths from the main lobe): a peak must exceed its predicted
 # ringing by more.
 RINGING_MODEL_ERROR = 0.35
-
-
-@functools.lru_cache(maxsize=16)
-def _tabulated(window: str) -> tuple[np.ndarray, np.ndarray]:
-    """(s, f(s)) for s = 0 .. 1024 in steps of 1/32 (units of 1/L), by one FFT of the window."""
-    u = np.arange(_SAMPLES) / _SAMPLES
-    w = apodization_window(window, u)
-    w[0] *= 0.5  # trapezoid weight of the end at zero path difference (the cosine series doubles it)
-    spectrum = np.fft.rfft(w, _PAD).real * (2.0 / _SAMPLES)  # 2 integral_0^1 w cos(2 pi s u) du
-    s = np.arange(spectrum.size) * (_SAMPLES / _PAD)
-    keep = s <= 1024.0
-    return s[keep], spectrum[keep]
 
 
 @dataclass(frozen=True)
@@ -54,13 +41,13 @@ class LineShapeModel:
 
     def shape(self, offset_cm1: np.ndarray) -> np.ndarray:
         """ILS at the given offsets, unit area (1/cm-1)."""
-        s, f = _tabulated(self.window)
         scaled = np.abs(np.asarray(offset_cm1, dtype=np.float64)) * self.opd_cm
+        s, f = table_reaching(self.window, float(scaled.max()) if scaled.size else 0.0)
         return np.interp(scaled, s, f, right=0.0) * self.opd_cm
 
     def relative(self, offset_cm1: np.ndarray) -> np.ndarray:
         """ILS(d) / ILS(0): a lobe's depth relative to a narrow line's peak."""
-        _, f = _tabulated(self.window)
+        _, f = near_table(self.window)
         return self.shape(offset_cm1) / (f[0] * self.opd_cm)
 
     @functools.cached_property
@@ -76,9 +63,10 @@ class LineShapeModel:
 
     def central_share(self, half_width_cm1: np.ndarray) -> np.ndarray:
         """Share of a narrow line's area the ILS puts within +-half_width of its centre."""
-        s, f = _tabulated(self.window)
+        scaled = np.asarray(half_width_cm1) * self.opd_cm
+        s, f = table_reaching(self.window, float(np.max(scaled)) if scaled.size else 0.0)
         cumulative = np.concatenate([[0.0], np.cumsum(0.5 * (f[1:] + f[:-1]) * np.diff(s))])
-        return 2.0 * np.interp(np.asarray(half_width_cm1) * self.opd_cm, s, cumulative)
+        return 2.0 * np.interp(scaled, s, cumulative)
 
     def reach_cm1(self, level: float) -> float:
         """Offset beyond which every lobe stays under `level` x the peak."""
@@ -88,7 +76,7 @@ class LineShapeModel:
 # The line shape's widths in units of 1/L, once per window (a model's are these / L).
 @functools.lru_cache(maxsize=16)
 def _fwhm_times_opd(window: str) -> float:
-    s, f = _tabulated(window)
+    s, f = near_table(window)
     below = int(np.flatnonzero(f < 0.5 * f[0])[0])
     s0, s1, f0, f1 = s[below - 1], s[below], f[below - 1], f[below]
     return float(2.0 * (s0 + (0.5 * f[0] - f0) * (s1 - s0) / (f1 - f0)))
@@ -96,14 +84,17 @@ def _fwhm_times_opd(window: str) -> float:
 
 @functools.lru_cache(maxsize=16)
 def _main_lobe_times_opd(window: str) -> float | None:
-    s, f = _tabulated(window)
+    s, f = near_table(window)
     low = np.flatnonzero(f <= 0.01 * f[0])
+    if not low.size:
+        s, f = full_table(window)
+        low = np.flatnonzero(f <= 0.01 * f[0])
     return float(s[low[0]]) if low.size else None
 
 
 @functools.lru_cache(maxsize=64)
 def _reach_times_opd(window: str, level: float) -> float:
-    s, f = _tabulated(window)
+    s, f = full_table(window)
     above = np.flatnonzero(np.abs(f) > level * f[0])
     return float(s[above[-1]]) if above.size else 0.0
 
@@ -256,7 +247,7 @@ def explained_by_ringing(observed_depth: np.ndarray, ringing: tuple[np.ndarray, 
 
 def lobe_positions(model: LineShapeModel, count: int = 3) -> np.ndarray:
     """Offsets of the first `count` extrema beyond the main lobe (for tests and documents)."""
-    s, f = _tabulated(model.window)
+    s, f = full_table(model.window)
     interior = (np.diff(np.sign(np.diff(f))) != 0).nonzero()[0] + 1
     interior = interior[s[interior] * 1.0 > model.main_lobe_cm1 * model.opd_cm]
     return s[interior[:count]] / model.opd_cm
