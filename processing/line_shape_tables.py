@@ -3,7 +3,7 @@ apodization window w, s in units of 1/L.
 
 The full table (s = 0 .. 1024 in steps of 1/32) is one FFT of the window on 2^17 points, ~2 ms
 a window. Choosing a line shape compares every window near the lines only (s < 16), so the
-start of each table (s <= NEAR_S) ships with the package (`data/line_shape_near.npz`, written
+start of each table (s <= NEAR_S) ships with the package (`data/line_shape_near/*.npy`, written
 by `python -m processing.line_shape_tables` from the same FFT, checked against it by a test):
 a command's first analysis then makes one full table (the chosen window's, for its far lobes)
 instead of seven.
@@ -21,7 +21,7 @@ SAMPLES = 1 << 12  # window samples over 0..1
 PAD = 1 << 17  # FFT length: s step SAMPLES / PAD = 1/32 in units of 1/L (ILS to ~2e-3 of its peak)
 FULL_S = 1024.0
 NEAR_S = 32.0  # the shipped tables reach this s
-NEAR_FILE = Path(__file__).resolve().parent / "data" / "line_shape_near.npz"
+NEAR_FOLDER = Path(__file__).resolve().parent / "data" / "line_shape_near"  # <window>.npy
 
 
 @functools.lru_cache(maxsize=16)
@@ -42,10 +42,13 @@ def _near_count() -> int:
 
 @functools.lru_cache(maxsize=16)
 def near_table(window: str) -> tuple[np.ndarray, np.ndarray]:
-    """(s, f(s)) for s = 0 .. NEAR_S: the shipped start of the full table, or (a window the
-    file does not hold, or no file) the start of the full table itself."""
-    f = _shipped().get(window)
-    if f is None or f.size != _near_count():
+    """(s, f(s)) for s = 0 .. NEAR_S: the shipped start of the full table, or (no file for the
+    window, or not of the right size) the start of the full table itself."""
+    try:
+        f = np.load(NEAR_FOLDER / f"{window}.npy", allow_pickle=False)
+    except (OSError, ValueError):  # not installed with the package: computed instead
+        f = None
+    if f is None or f.shape != (_near_count(),):
         s, f = full_table(window)
         return s[: _near_count()], f[: _near_count()]
     return np.arange(f.size) * (SAMPLES / PAD), f
@@ -57,20 +60,13 @@ def table_reaching(window: str, largest_s: float) -> tuple[np.ndarray, np.ndarra
     return near_table(window) if largest_s <= NEAR_S else full_table(window)
 
 
-@functools.lru_cache(maxsize=1)
-def _shipped() -> dict[str, np.ndarray]:
-    try:
-        with np.load(NEAR_FILE, allow_pickle=False) as stored:
-            return {name: stored[name] for name in stored.files}
-    except (OSError, ValueError):  # not installed with the package: computed instead
-        return {}
-
-
-def write_near_tables(path: Path = NEAR_FILE) -> None:
+def write_near_tables(folder: Path = NEAR_FOLDER) -> None:
     """Write the start of every window's full table (for the package's data folder)."""
-    np.savez(path, **{window: full_table(window)[1][: _near_count()] for window in APODIZATIONS})
+    folder.mkdir(exist_ok=True)
+    for window in APODIZATIONS:
+        np.save(folder / f"{window}.npy", full_table(window)[1][: _near_count()])
 
 
 if __name__ == "__main__":
     write_near_tables()
-    print(f"wrote {NEAR_FILE}")
+    print(f"wrote {NEAR_FOLDER}")

@@ -20,6 +20,7 @@ are called in messages comes from their FORMAT_NAMEs.
 from __future__ import annotations
 
 import hashlib
+import importlib
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass, replace
@@ -37,12 +38,13 @@ HEAD_BYTES = 4096
 PARALLEL_HASH_BYTES = 1 << 20  # below 1 MB a thread costs more than it saves
 
 
+# Order matters: the most specific identifier first; delimited text is the catch-all.
+READER_MODULES = ("processing.readers.jcamp", "processing.readers.delimited")
+
+
 def reader_modules() -> tuple[ModuleType, ...]:
     """Every reader, most specific identifier first (importing them)."""
-    from processing.readers import delimited, jcamp
-
-    # Order matters: the most specific identifier first; delimited text is the catch-all.
-    return (jcamp, delimited)
+    return tuple(importlib.import_module(name) for name in READER_MODULES)
 
 
 def load_bytes(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES, policy: ReadPolicy | None = None) -> bytes:
@@ -68,10 +70,11 @@ def choose_reader(data: bytes, source: str) -> ModuleType:
     head = data[:HEAD_BYTES]
     if looks_binary(head):
         raise SpectrumFileError(source, "binary data, not a text spectrum format bandwatch reads")
-    readers = reader_modules()
-    for reader in readers:
+    for name in READER_MODULES:  # imported one by one: a reader found first spares the others' import
+        reader = importlib.import_module(name)
         if reader.identify(head):
             return reader
+    readers = reader_modules()
     suffix = Path(source).suffix.lower()
     for reader in readers:
         if suffix in reader.EXTENSIONS:
