@@ -123,8 +123,10 @@ def estimate_baseline(
     if block_cm1 is None:
         block_cm1 = 12.0  # a few CO line spacings; wide enough that a block is mostly line-free
     block = int(min(np.clip(round(block_cm1 / spacing), 16, max(16, n // 4)), n))
-    initial = lagged_sigma(y[~spectrum.saturated]) if (~spectrum.saturated).any() else 0.0
-    baseline, free, sigma, centres, levels = _iterate(y, spectrum.saturated, block, initial, iterations)
+    # (None: no saturated point, the common case; no mask is applied then)
+    saturated = spectrum.saturated if spectrum.saturated.any() else None
+    initial = _first_sigma(y, saturated)
+    baseline, free, sigma, centres, levels = _iterate(y, saturated, block, initial, iterations)
     # window fringes: found in the line-free residual, then the baseline is drawn again
     # through the spectrum without them (twice: better line flags give a better fringe)
     fringes = find_fringes(x, y - baseline, free, spacing, sigma)
@@ -132,7 +134,7 @@ def estimate_baseline(
         if fringes is None:
             break
         without = y - fringes.profile
-        baseline, free, sigma, centres, levels = _iterate(without, spectrum.saturated, block, lagged_sigma(without[~spectrum.saturated]), iterations)
+        baseline, free, sigma, centres, levels = _iterate(without, saturated, block, _first_sigma(without, saturated), iterations)
         fringes = find_fringes(x, y - baseline, free, spacing, sigma) or fringes
     if fringes is not None:
         baseline = baseline + fringes.profile
@@ -166,6 +168,13 @@ def estimate_baseline(
     )
 
 
+def _first_sigma(y: np.ndarray, saturated: np.ndarray | None) -> float:
+    """The noise's first guess from the points that are not saturated (0 when none is left)."""
+    if saturated is None:
+        return lagged_sigma(y)
+    return lagged_sigma(y[~saturated]) if not saturated.all() else 0.0
+
+
 def _x_at(index: np.ndarray, x: np.ndarray) -> np.ndarray:
     """x at fractional point indices, as `np.interp(index, np.arange(n), x)` gives it, from
     only the points on either side of each (no index array of the whole spectrum)."""
@@ -174,7 +183,7 @@ def _x_at(index: np.ndarray, x: np.ndarray) -> np.ndarray:
 
 
 def _iterate(
-    y: np.ndarray, saturated: np.ndarray, block: int, sigma: float, iterations: int
+    y: np.ndarray, saturated: np.ndarray | None, block: int, sigma: float, iterations: int
 ) -> tuple[np.ndarray, np.ndarray, float, np.ndarray, np.ndarray]:
     """The iterated line-free baseline: (baseline, line-free mask, clipped sigma, block
     centres, block levels).
@@ -186,7 +195,8 @@ def _iterate(
     if stride == 1:
         return _iterate_points(y, saturated, block, sigma, iterations)
     n = y.size
-    _, _, sigma, centres, levels = _iterate_points(y[::stride], saturated[::stride], max(16, block // stride), sigma, iterations)
+    _, _, sigma, centres, levels = _iterate_points(y[::stride], None if saturated is None else saturated[::stride],
+                                                   max(16, block // stride), sigma, iterations)
     centres = centres * stride
     baseline = _join(centres, levels, n, median(y[:: max(1, n // 100_000)]))
     residual = y - baseline
@@ -202,18 +212,22 @@ def _flat_floor(y: np.ndarray) -> float:
     return 1e-9 * max(1.0, float(np.max(np.abs(y))))
 
 
-def _line_free(residual: np.ndarray, saturated: np.ndarray, sigma: float, floor: float) -> np.ndarray:
-    """Points within 3 sigma of the baseline, with each flagged run's wings flagged too."""
-    new_free = (np.abs(residual) <= 3.0 * max(sigma, floor)) & ~saturated
+def _line_free(residual: np.ndarray, saturated: np.ndarray | None, sigma: float, floor: float) -> np.ndarray:
+    """Points within 3 sigma of the baseline, with each flagged run's wings flagged too
+    (saturated points never free; None: there are none)."""
+    new_free = np.abs(residual) <= 3.0 * max(sigma, floor)
+    if saturated is None:
+        return ~grow_flags(~new_free)
+    new_free &= ~saturated
     return ~grow_flags(~new_free) & ~saturated
 
 
 def _iterate_points(
-    y: np.ndarray, saturated: np.ndarray, block: int, sigma: float, iterations: int
+    y: np.ndarray, saturated: np.ndarray | None, block: int, sigma: float, iterations: int
 ) -> tuple[np.ndarray, np.ndarray, float, np.ndarray, np.ndarray]:
     """`_iterate` on every point of `y`."""
     n = y.size
-    free = ~saturated
+    free = np.ones(n, dtype=bool) if saturated is None else ~saturated
     floor = _flat_floor(y)
     overall = median(y[:: max(1, n // 100_000)])
     baseline = np.full(n, overall)

@@ -140,8 +140,13 @@ def clipped_sigma(residual: np.ndarray, start: float = 0.0) -> float:
         return 0.0
     for _ in range(50):
         kept = r[np.abs(r - centre) <= CLIP_SIGMAS * sigma]
-        centre = float(np.mean(kept))
-        new = float(np.std(kept)) / _TRUNCATED_STD_AT_3
+        if kept.size:
+            # np.mean, then np.std's own arithmetic about that mean (one pass fewer, same bits)
+            centre = float(np.add.reduce(kept)) / kept.size
+            deviation = kept - centre
+            new = math.sqrt(float(np.add.reduce(deviation * deviation)) / kept.size) / _TRUNCATED_STD_AT_3
+        else:
+            centre, new = math.nan, math.nan
         if new == 0.0 or abs(new - sigma) <= 1e-3 * new:
             return new
         sigma = new
