@@ -52,7 +52,9 @@ def term_value(dunham: DunhamCoefficients, v: np.ndarray | int, J: np.ndarray | 
 
     Summed as sum_l [J(J+1)]^l sum_k Y_kl (v+1/2)^k: for one v (the common case) the inner
     sums are numbers and only one array operation per power of J(J+1) remains."""
-    vib = np.asarray(v, dtype=np.float64) + 0.5
+    # one v (the common case): the inner sums in Python floats, the same IEEE operations as
+    # numpy's scalars (pow from the C library in both), without numpy's per-scalar overhead
+    vib = float(v) + 0.5 if isinstance(v, (int, np.integer)) else np.asarray(v, dtype=np.float64) + 0.5
     x = np.asarray(J, dtype=np.float64)
     x = x * (x + 1.0)
     by_power: dict[int, np.ndarray | float] = {}
