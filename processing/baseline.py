@@ -24,7 +24,7 @@ from processing.fringes import FringeModel, find_fringes
 from processing.noise import NoiseEstimate, clipped_sigma, estimate_noise, lagged_sigma, quantization_step
 from processing.results import SaturatedRegion  # reason: "transmittance <= 0", "above usable absorbance", "flat top"
 from processing.spectrum import Spectrum
-from processing.order_stats import median
+from processing.order_stats import median, sorted_distinct
 
 # Absorbance above which a line top is no longer usable for intensities: T < ~3% (common practice).
 DEFAULT_USABLE_ABSORBANCE = 1.5
@@ -178,7 +178,7 @@ def _first_sigma(y: np.ndarray, saturated: np.ndarray | None) -> float:
 def _x_at(index: np.ndarray, x: np.ndarray) -> np.ndarray:
     """x at fractional point indices, as `np.interp(index, np.arange(n), x)` gives it, from
     only the points on either side of each (no index array of the whole spectrum)."""
-    around = np.unique(np.clip(np.floor(index)[:, None] + np.array([0.0, 1.0]), 0, x.size - 1))
+    around = sorted_distinct(np.clip(np.floor(index)[:, None] + np.array([0.0, 1.0]), 0, x.size - 1))
     return np.interp(index, around, x[around.astype(np.intp)])
 
 

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from processing.apodization import apodization_window, window_name
-from processing.order_stats import median, percentiles
+from processing.order_stats import median, percentiles, sorted_distinct
 
 CLIP_SIGMAS = 3.0
 # std of a unit Gaussian truncated to |z| <= 3 (calc: sqrt(1 - 2 * 3 * phi(3) / (2 Phi(3) - 1)))
@@ -96,7 +96,7 @@ def quantization_step(values: np.ndarray, sample: int = 20_000) -> float | None:
     v = np.asarray(values, dtype=np.float64)
     if v.size > sample:
         v = v[:: v.size // sample]
-    distinct = np.unique(v)
+    distinct = sorted_distinct(v)
     if distinct.size < 8:
         return None
     gaps = np.diff(distinct)

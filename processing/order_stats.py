@@ -1,8 +1,8 @@
-"""Median and percentiles of a 1-D array, equal bit for bit to numpy's.
+"""Median, percentiles and distinct values of a 1-D array, equal to numpy's.
 
-numpy's `median` and `percentile` import `numpy.ma` on their first call (~7 ms of every
-command's start-up, for a check that a masked array was not passed); these partition the
-values the same way and interpolate with the same arithmetic, without it.
+numpy's `median`, `percentile` and `unique` import `numpy.ma` on their first call (~7-10 ms of
+every command's start-up, for a check that a masked array was not passed); these partition or
+sort the values the same way and interpolate with the same arithmetic, without it.
 """
 from __future__ import annotations
 
@@ -53,3 +53,19 @@ def percentiles(values: np.ndarray | Sequence[float], qs: Sequence[float]) -> li
         difference = high - low
         out.append(float(high - difference * (1.0 - gamma)) if gamma >= 0.5 else float(low + difference * gamma))
     return out
+
+
+def sorted_distinct(values: np.ndarray | Sequence[float]) -> np.ndarray:
+    """`np.unique(values)`: the distinct values in ascending order (NaNs as one, last). Of an
+    equal -0.0 and 0.0 either may be kept (numpy keeps the first it meets)."""
+    array = np.sort(np.asarray(values).ravel())
+    if array.size == 0:
+        return array
+    keep = np.empty(array.size, dtype=bool)
+    keep[0] = True
+    np.not_equal(array[1:], array[:-1], out=keep[1:])
+    if array.dtype.kind in "fc" and np.isnan(array[-1]):
+        first_nan = int(np.argmax(np.isnan(array)))
+        keep[first_nan] = True
+        keep[first_nan + 1 :] = False
+    return array[keep]

@@ -9,7 +9,7 @@ import sys
 import numpy as np
 import pytest
 
-from processing.order_stats import median, percentile, percentiles
+from processing.order_stats import median, percentile, percentiles, sorted_distinct
 
 QS = (0.0, 0.5, 5.0, 25.0, 33.3, 50.0, 75.0, 99.5, 100.0)
 
@@ -48,6 +48,18 @@ def test_values_are_not_reordered_in_place() -> None:
 
 
 def test_no_numpy_ma_is_imported() -> None:
-    code = ("import sys, numpy as np\nfrom processing.order_stats import median, percentiles\n"
-            "median(np.arange(5.0)); percentiles(np.arange(5.0), (25, 75))\nprint('numpy.ma' in sys.modules)")
+    code = ("import sys, numpy as np\nfrom processing.order_stats import median, percentiles, sorted_distinct\n"
+            "median(np.arange(5.0)); percentiles(np.arange(5.0), (25, 75)); sorted_distinct(np.arange(5.0))\nprint('numpy.ma' in sys.modules)")
     assert subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip() == "False"
+
+
+@pytest.mark.parametrize("seed", range(20))
+def test_sorted_distinct_equals_numpys_unique(seed: int) -> None:
+    rng = np.random.default_rng(seed)
+    for size in (0, 1, 2, 7, 100, 20_000):
+        values = np.round(rng.normal(size=size), int(rng.integers(0, 4)))  # many repeats
+        if seed % 4 == 0 and size:
+            values[rng.integers(0, size, size=max(1, size // 10))] = np.nan  # NaNs kept as one
+        np.testing.assert_array_equal(sorted_distinct(values), np.unique(values))
+    integers = rng.integers(0, 5, size=50)
+    np.testing.assert_array_equal(sorted_distinct(integers), np.unique(integers))
