@@ -16,6 +16,7 @@ dependence separates U10 from U20 when hydrogen and deuterium forms are both pre
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 from collections.abc import Iterable, Mapping
 
@@ -29,7 +30,11 @@ OPTIONAL_TERMS = ((0, 3), (1, 2), (2, 1), (0, 2))  # dropped in this order while
 
 @dataclass(frozen=True)
 class AssignedLines:
-    """Assigned lines of one or more isotopologues, as aligned arrays."""
+    """Assigned lines of one or more isotopologues, as aligned arrays.
+
+    `library_rows`, when given, holds the library's positions of these lines and their
+    d(position)/d(theta) rows (see `library_uncertainty.predicted_lines`), worked out once for
+    a run's lines and carried along by `select`."""
 
     isotopologue: np.ndarray  # labels
     reduced_mass_u: np.ndarray
@@ -40,20 +45,38 @@ class AssignedLines:
     position_cm1: np.ndarray
     sigma_cm1: np.ndarray
     sigma_known: bool = True
+    library_rows: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False, compare=False)
 
     @property
     def count(self) -> int:
         return int(self.position_cm1.size)
 
     def select(self, mask: np.ndarray) -> AssignedLines:
+        rows = None if self.library_rows is None else (self.library_rows[0][mask], self.library_rows[1][mask])
         return AssignedLines(
             self.isotopologue[mask], self.reduced_mass_u[mask], self.v_upper[mask], self.v_lower[mask],
-            self.J_upper[mask], self.J_lower[mask], self.position_cm1[mask], self.sigma_cm1[mask], self.sigma_known,
+            self.J_upper[mask], self.J_lower[mask], self.position_cm1[mask], self.sigma_cm1[mask], self.sigma_known, rows,
         )
 
-    @property
+    @functools.cached_property
     def levels(self) -> tuple[int, ...]:
         return tuple(sorted(set(self.v_upper.tolist()) | set(self.v_lower.tolist())))
+
+    @functools.cached_property
+    def _columns(self) -> dict[tuple[int, int, bool], np.ndarray]:
+        # design columns already worked out (a fit and its model reference ask for the same
+        # terms again and again; cached_property writes the instance dict, frozen or not)
+        return {}
+
+    def column(self, k: int, l: int, mass_reduced: bool) -> np.ndarray:
+        """d(position)/d(Y_kl) of every line (of U_kl when mass-reduced); read-only, computed once."""
+        key = (k, l, mass_reduced)
+        column = self._columns.get(key)
+        if column is None:
+            column = _column(self, k, l, mass_reduced)
+            column.flags.writeable = False
+            self._columns[key] = column
+        return column
 
 
 def term_name(k: int, l: int) -> str:
@@ -121,7 +144,10 @@ def term_columns(lines: AssignedLines, terms: Iterable[tuple[int, int]], mass_re
     terms = list(terms)
     if not terms:
         return np.zeros((lines.count, 0))
-    return np.column_stack([_column(lines, k, l, mass_reduced) for k, l in terms])
+    design = np.empty((lines.count, len(terms)))
+    for i, (k, l) in enumerate(terms):
+        design[:, i] = lines.column(k, l, mass_reduced)
+    return design
 
 
 def fit_terms(

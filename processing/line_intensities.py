@@ -110,14 +110,24 @@ def equivalent_widths(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
 
 def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, right: np.ndarray) -> np.ndarray:
     """Trapezoid integral of 1 - 10^-A over each [left, right] (only the points inside the
-    windows are converted)."""
-    lo = np.clip(np.searchsorted(x, left), 0, x.size - 1)
-    hi = np.clip(np.searchsorted(x, right), 0, x.size - 1)
+    windows are converted, all windows at once: the intervals of every window are gathered
+    into one array and summed window by window)."""
+    last = x.size - 1
+    lo = np.minimum(np.maximum(np.searchsorted(x, left), 0), last)
+    hi = np.minimum(np.maximum(np.searchsorted(x, right), 0), last)
     out = np.zeros(lo.size)
-    for k, (a, b) in enumerate(zip(lo.tolist(), hi.tolist())):
-        if b > a:
-            depth = transmittance_depth(corrected[a : b + 1])
-            out[k] = float(np.sum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x[a : b + 1])))
+    count = np.maximum(hi - lo, 0)  # trapezoid intervals of each window
+    windows = np.flatnonzero(count)
+    if windows.size == 0:
+        return out
+    count = count[windows]
+    offsets = np.concatenate([[0], np.cumsum(count[:-1])])
+    # start point of every interval: lo of its window plus its place within the window
+    start = np.repeat(lo[windows] - offsets, count) + np.arange(int(offsets[-1] + count[-1]))
+    depth_left = transmittance_depth(corrected[start])
+    depth_right = transmittance_depth(corrected[start + 1])
+    area = 0.5 * (depth_right + depth_left) * (x[start + 1] - x[start])
+    out[windows] = np.add.reduceat(area, offsets)
     return out
 
 

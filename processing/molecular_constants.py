@@ -114,42 +114,62 @@ class BandReference:
 
 
 # ------------------------------------------------------------------------------ line table
-def assigned_lines_from(analysis: Analysis, library: Library) -> AssignedLines:
+BandRows = dict[int, tuple[np.ndarray, np.ndarray]]
+
+
+def band_library_rows(analysis: Analysis, library: Library) -> BandRows:
+    """Per band fit (by its index in the assignment), the library's positions of all its lines
+    and their d/d(theta) rows: worked out once, for the band's own reference and for every term
+    fit of the lines it used."""
+    known = {iso.label for iso in library.isotopologues()}
+    rows: BandRows = {}
+    for i, band in enumerate(analysis.assignment.bands):
+        if band.isotopologue not in known:
+            continue
+        n = band.observed.size
+        rows[i] = predicted_lines(library, band.isotopologue, np.full(n, band.v_upper), upper_J(band.branch, band.J_lower),
+                                  np.full(n, band.v_lower), band.J_lower)
+    return rows
+
+
+def assigned_lines_from(analysis: Analysis, library: Library, band_rows: BandRows | None = None) -> AssignedLines:
     """The lines each band fit used, with the positions and uncertainties it used (blend
     pulls removed, doublet-measured sigmas, saturated/blended lines widened as it widened
-    them): two fits of the same lines see the same numbers."""
-    rows = []
+    them): two fits of the same lines see the same numbers. With `band_rows` (from
+    `band_library_rows`) the lines carry their library rows."""
     masses = {iso.label: iso.reduced_mass_u for iso in library.isotopologues()}
-    for band in analysis.assignment.bands:
+    parts = []
+    rows = []
+    for i, band in enumerate(analysis.assignment.bands):
         if band.isotopologue not in masses:
             continue
+        used = np.flatnonzero(band.used)
         sigma = band.sigma if band.sigma is not None else np.full(band.observed.size, 1e-3)
         J_up = upper_J(band.branch, band.J_lower)
-        for k in np.flatnonzero(band.used):
-            rows.append((band.isotopologue, masses[band.isotopologue], band.v_upper, band.v_lower,
-                         int(J_up[k]), int(band.J_lower[k]), float(band.observed[k]), float(sigma[k])))
+        parts.append((np.full(used.size, band.isotopologue, dtype=object), np.full(used.size, masses[band.isotopologue], dtype=np.float64),
+                      np.full(used.size, band.v_upper, dtype=np.int64), np.full(used.size, band.v_lower, dtype=np.int64),
+                      np.asarray(J_up, dtype=np.int64)[used], np.asarray(band.J_lower, dtype=np.int64)[used],
+                      np.asarray(band.observed, dtype=np.float64)[used], np.asarray(sigma, dtype=np.float64)[used]))
+        if band_rows is not None:
+            positions, jacobian = band_rows[i]
+            rows.append((positions[used], jacobian[used]))
     sigma_known = bool(analysis.lines.sigma_known)
-    if not rows:
+    if not parts:
         empty = np.zeros(0)
         return AssignedLines(np.array([], dtype=object), empty, empty.astype(int), empty.astype(int), empty.astype(int), empty.astype(int), empty, empty, sigma_known)
-    columns = list(zip(*rows))
-    return AssignedLines(
-        isotopologue=np.array(columns[0], dtype=object),
-        reduced_mass_u=np.array(columns[1], dtype=np.float64),
-        v_upper=np.array(columns[2], dtype=np.int64),
-        v_lower=np.array(columns[3], dtype=np.int64),
-        J_upper=np.array(columns[4], dtype=np.int64),
-        J_lower=np.array(columns[5], dtype=np.int64),
-        position_cm1=np.array(columns[6], dtype=np.float64),
-        sigma_cm1=np.array(columns[7], dtype=np.float64),
-        sigma_known=sigma_known,
-    )
+    columns = [np.concatenate(column) for column in zip(*parts)]
+    library_rows = None
+    if band_rows is not None:
+        library_rows = (np.concatenate([r[0] for r in rows]), np.concatenate([r[1] for r in rows]))
+    return AssignedLines(*columns, sigma_known=sigma_known, library_rows=library_rows)
 
 
 # ------------------------------------------------------------------------ model references
 def _library_rows(library: Library, lines: AssignedLines) -> tuple[np.ndarray, np.ndarray]:
     """Library positions of every line (each with its own isotopologue's constants) and their
-    d/d(theta) rows."""
+    d/d(theta) rows (those the lines carry, when they do)."""
+    if lines.library_rows is not None:
+        return lines.library_rows
     parameters = library_parameters(library)
     positions = np.zeros(lines.count)
     jacobian = np.zeros((lines.count, parameters.size))
@@ -379,9 +399,10 @@ def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Isotopolog
 
 
 # --------------------------------------------------------------------------- band fits
-def band_reference(fit: BandFit, library: Library) -> BandReference | None:
+def band_reference(fit: BandFit, library: Library, rows: tuple[np.ndarray, np.ndarray] | None = None) -> BandReference | None:
     """A band fit's origin, B, D and H against the same band model fitted to the library's
-    positions of the same lines (None for a band the library does not know)."""
+    positions of the same lines (None for a band the library does not know). `rows`: the
+    library's positions of the band's lines and their d/d(theta) rows, when already known."""
     if fit.linear_fit is None:
         return None
     try:
@@ -390,7 +411,9 @@ def band_reference(fit: BandFit, library: Library) -> BandReference | None:
         return None
     n = fit.observed.size
     J_up = upper_J(fit.branch, fit.J_lower)
-    positions, jacobian = predicted_lines(library, isotopologue.label, np.full(n, fit.v_upper), J_up, np.full(n, fit.v_lower), fit.J_lower)
+    if rows is None:
+        rows = predicted_lines(library, isotopologue.label, np.full(n, fit.v_upper), J_up, np.full(n, fit.v_lower), fit.J_lower)
+    positions, jacobian = rows
     held = {}
     if any(fit.held):
         x_up, x_low = J_up * (J_up + 1.0), fit.J_lower * (fit.J_lower + 1.0)
@@ -520,7 +543,8 @@ class ConstantsResult:
 def molecular_constants(analysis: Analysis, library: Library) -> ConstantsResult:
     """All constants a run's assignment supports (isotopologues with >= 6 fitted lines), and
     every band fit beside its model reference."""
-    lines = assigned_lines_from(analysis, library)
+    band_rows = band_library_rows(analysis, library)
+    lines = assigned_lines_from(analysis, library, band_rows)
     per_isotopologue = []
     notes: list[str] = []
     for label in sorted(set(lines.isotopologue.tolist())):
@@ -546,6 +570,6 @@ def molecular_constants(analysis: Analysis, library: Library) -> ConstantsResult
             continue
         if fit is not None:
             mass_reduced.append(fit)
-    bands = tuple(b for b in (band_reference(fit, library) for fit in analysis.assignment.bands) if b is not None)
+    bands = tuple(b for b in (band_reference(fit, library, band_rows.get(i)) for i, fit in enumerate(analysis.assignment.bands)) if b is not None)
     return ConstantsResult(tuple(per_isotopologue), tuple(mass_reduced), tuple(notes), bands)
 
