@@ -131,36 +131,51 @@ def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, ri
     return out
 
 
+def _boltzmann_lines(lines: LineTable, assignment: AssignmentResult, widths: np.ndarray,
+                     width_sigmas: np.ndarray) -> dict[tuple[str, int, int], list[tuple[float, float, int, bool, float]]]:
+    """Per band (isotopologue, v', v''), its lines fit for a Boltzmann plot, in line order:
+    (ln(W / (L_HL nu)), sigma_W / W, J'', R branch, W). Saturated, blended, ringing, unused
+    and weak (< 10 sigma) lines are left out."""
+    saturated = lines.saturated.tolist()
+    ringing = lines.ringing.tolist()
+    position = lines.position_cm1.tolist()
+    width_list = widths.tolist()
+    sigma_list = width_sigmas.tolist()
+    out: dict[tuple[str, int, int], list[tuple[float, float, int, bool, float]]] = {}
+    for i, assigned in enumerate(assignment.per_line):
+        if assigned is None or saturated[i] or assigned.blended or ringing[i] or not assigned.used_in_fit:
+            continue
+        W, sW = width_list[i], sigma_list[i]
+        if not (math.isfinite(W) and W > 10.0 * sW and W > 0 and position[i] > 0):
+            continue  # (the logarithm below needs a positive width and position)
+        J = assigned.J_lower
+        is_r = assigned.branch == "R"
+        hoenl_london = J + 1 if is_r else J
+        if hoenl_london <= 0:
+            continue
+        row = (math.log(W / (hoenl_london * position[i])), sW / W, J, is_r, W)
+        out.setdefault((assigned.isotopologue, assigned.v_upper, assigned.v_lower), []).append(row)
+    return out
+
+
 def rotational_temperatures(lines: LineTable, assignment: AssignmentResult, widths: np.ndarray, width_sigmas: np.ndarray) -> list[RotationalTemperature]:
     out = []
+    per_band = _boltzmann_lines(lines, assignment, widths, width_sigmas)
     for fit in assignment.bands:
-        rows = []
-        for i, assigned in enumerate(assignment.per_line):
-            if assigned is None or (assigned.isotopologue, assigned.v_upper, assigned.v_lower) != (fit.isotopologue, fit.v_upper, fit.v_lower):
-                continue
-            if lines.saturated[i] or assigned.blended or lines.ringing[i] or not assigned.used_in_fit:
-                continue
-            W, sW = widths[i], width_sigmas[i]
-            if not (np.isfinite(W) and W > 10.0 * sW and W > 0 and lines.position_cm1[i] > 0):
-                continue  # (the logarithm below needs a positive width and position)
-            J = assigned.J_lower
-            hoenl_london = J + 1 if assigned.branch == "R" else J
-            if hoenl_london <= 0:
-                continue
-            x = J * (J + 1.0)
-            D = fit.D_lower.value if fit.D_lower else 0.0
-            energy = fit.B_lower.value * x - D * x * x
-            rows.append((math.log(W / (hoenl_london * lines.position_cm1[i])), sW / W, C2_CM_K * energy, assigned.branch == "R", W))
+        rows = per_band.get((fit.isotopologue, fit.v_upper, fit.v_lower), [])
         if len(rows) < 6:
             continue
-        y, sy, e, is_r, w = (np.array(c) for c in zip(*rows))
+        y, sy, J, is_r, w = (np.array(c) for c in zip(*rows))
+        x = J * (J + 1.0)
+        D = fit.D_lower.value if fit.D_lower else 0.0
+        e = C2_CM_K * (fit.B_lower.value * x - D * x * x)
         if is_r.all() or (~is_r).all():
             design = np.column_stack([np.ones_like(e), -e])
             names: tuple[str, ...] = ("intercept", "inverse_T")
         else:
             design = np.column_stack([is_r.astype(float), (~is_r).astype(float), -e])
             names = ("intercept_R", "intercept_P", "inverse_T")
-        if np.ptp(e) <= 0:
+        if e.max() - e.min() <= 0:
             continue
         weights = np.maximum(sy, 1e-3)
         plain = weighted_least_squares(design, y, weights, names)
@@ -184,6 +199,17 @@ def rotational_temperatures(lines: LineTable, assignment: AssignmentResult, widt
         out.append(RotationalTemperature(fit.isotopologue, fit.v_upper, fit.v_lower, Estimate(uncorrected.value, sigma, "K"), int(plain.used.sum()), plain.rms,
                                          Estimate(result.value("kappa"), result.sigma("kappa"), "1"), uncorrected))
     return out
+
+
+def _median(values: np.ndarray) -> float:
+    """np.median of a short array (the same number, without its overhead): the middle value,
+    or the mean of the two middle values."""
+    ordered = np.sort(values)
+    n = ordered.size
+    if n == 0 or math.isnan(ordered[-1]):
+        return float("nan")
+    middle = n // 2
+    return float(ordered[middle]) if n % 2 else float((ordered[middle - 1] + ordered[middle]) / 2.0)
 
 
 def _pairs(assignment: AssignmentResult, a: str, b: str, band: tuple[int, int]) -> list[tuple[int, int]]:
@@ -229,7 +255,7 @@ def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.
                 if len(ratios) < 3:
                     continue
                 ratios_array = np.array(ratios)
-                ratio = float(np.median(ratios_array))
+                ratio = _median(ratios_array)
                 sigma = float(1.2533 * np.std(ratios_array) / math.sqrt(len(ratios)))  # std error of a median
                 natural = iso_a.abundance / iso_b.abundance if iso_b.abundance > 0 else None
                 major, minor = (a, b) if (natural or 1) >= 1 else (b, a)
@@ -313,15 +339,17 @@ def hydrogen_fractions(lines: LineTable, assignment: AssignmentResult, library: 
             continue
         # compare isotopologues that differ only in the hydrogen isotope (e.g. H35Cl with D35Cl)
         main_h = max(found[molecule_h], key=lambda label: known[label].abundance)
-        main_d = [label for label in found[molecule_d] if label == library.partner_isotopologue(main_h)]
+        partner = library.partner_isotopologue(main_h)
+        main_d = [label for label in found[molecule_d] if label == partner]
         if not main_d:
             continue
         column_h = _column_per_line(lines, assignment, library, {main_h}, temperature_K)
         column_d = _column_per_line(lines, assignment, library, set(main_d), temperature_K)
         if column_h.size < 3 or column_d.size < 3:
             continue
-        ratio = float(np.median(column_h) / np.median(column_d))
-        relative = math.hypot(1.2533 * np.std(column_h) / np.median(column_h) / math.sqrt(column_h.size), 1.2533 * np.std(column_d) / np.median(column_d) / math.sqrt(column_d.size))
+        median_h, median_d = _median(column_h), _median(column_d)
+        ratio = float(median_h / median_d)
+        relative = math.hypot(1.2533 * np.std(column_h) / median_h / math.sqrt(column_h.size), 1.2533 * np.std(column_d) / median_d / math.sqrt(column_d.size))
         fraction = ratio / (1.0 + ratio)
         sigma = fraction * (1 - fraction) * relative
         out.append(HydrogenFraction(molecule_h, molecule_d, Estimate(fraction, sigma, "1"), int(column_h.size + column_d.size),
