@@ -110,23 +110,23 @@ def equivalent_widths(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
 
 def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, right: np.ndarray) -> np.ndarray:
     """Trapezoid integral of 1 - 10^-A over each [left, right] (only the points inside the
-    windows are converted, all windows at once: the intervals of every window are gathered
-    into one array and summed window by window)."""
+    windows are converted, all windows at once: the points of every window are gathered into
+    one array, the trapezoids between windows zeroed, and the rest summed window by window)."""
     last = x.size - 1
     lo = np.minimum(np.maximum(np.searchsorted(x, left), 0), last)
     hi = np.minimum(np.maximum(np.searchsorted(x, right), 0), last)
     out = np.zeros(lo.size)
-    count = np.maximum(hi - lo, 0)  # trapezoid intervals of each window
-    windows = np.flatnonzero(count)
+    windows = np.flatnonzero(hi > lo)
     if windows.size == 0:
         return out
-    count = count[windows]
-    offsets = np.concatenate([[0], np.cumsum(count[:-1])])
-    # start point of every interval: lo of its window plus its place within the window
-    start = np.repeat(lo[windows] - offsets, count) + np.arange(int(offsets[-1] + count[-1]))
-    depth_left = transmittance_depth(corrected[start])
-    depth_right = transmittance_depth(corrected[start + 1])
-    area = 0.5 * (depth_right + depth_left) * (x[start + 1] - x[start])
+    points = hi[windows] - lo[windows] + 1
+    offsets = np.concatenate([[0], np.cumsum(points[:-1])])
+    # every window's points, one after another: lo of its window plus the place within it
+    index = np.repeat(lo[windows] - offsets, points) + np.arange(int(offsets[-1] + points[-1]))
+    depth = transmittance_depth(corrected[index])
+    x_points = x[index]
+    area = 0.5 * (depth[1:] + depth[:-1]) * (x_points[1:] - x_points[:-1])
+    area[offsets[1:] - 1] = 0.0  # from one window's last point to the next window's first
     out[windows] = np.add.reduceat(area, offsets)
     return out
 
