@@ -323,6 +323,18 @@ def _column_per_line(lines: LineTable, assignment: AssignmentResult, library: Li
     return np.array(values)
 
 
+@functools.lru_cache(maxsize=64)
+def _light_and_heavy(library: Library, molecule: str) -> tuple[str, str] | None:
+    """`Library.light_and_heavy`, cached: the library fixes it, and finding it walks the library."""
+    return library.light_and_heavy(molecule)
+
+
+@functools.lru_cache(maxsize=64)
+def _partner_isotopologue(library: Library, label: str) -> str | None:
+    """`Library.partner_isotopologue`, cached as `_light_and_heavy`."""
+    return library.partner_isotopologue(label)
+
+
 def hydrogen_fractions(lines: LineTable, assignment: AssignmentResult, library: Library, temperature_K: float) -> list[HydrogenFraction]:
     """Hydrogen fraction when H and D forms of one molecule are both assigned (e.g. HCl in a
     DCl cell). Relies on the library's absolute band strengths, which are approximate (the
@@ -332,14 +344,14 @@ def hydrogen_fractions(lines: LineTable, assignment: AssignmentResult, library: 
     for a in assignment.per_line:
         if a and a.isotopologue in known:
             found.setdefault(known[a.isotopologue].molecule, set()).add(a.isotopologue)
-    pairs = dict.fromkeys(pair for molecule in found if (pair := library.light_and_heavy(molecule)) is not None)
+    pairs = dict.fromkeys(pair for molecule in found if (pair := _light_and_heavy(library, molecule)) is not None)
     out = []
     for molecule_h, molecule_d in pairs:
         if molecule_h not in found or molecule_d not in found:
             continue
         # compare isotopologues that differ only in the hydrogen isotope (e.g. H35Cl with D35Cl)
         main_h = max(found[molecule_h], key=lambda label: known[label].abundance)
-        partner = library.partner_isotopologue(main_h)
+        partner = _partner_isotopologue(library, main_h)
         main_d = [label for label in found[molecule_d] if label == partner]
         if not main_d:
             continue

@@ -24,6 +24,7 @@ isotopologue beyond their noise indicate Born-Oppenheimer breakdown.
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Callable
@@ -280,7 +281,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Isotopologue,
         label = f"{v_upper}-{v_lower}"
         compared = model.linear(_term_weights(model, {(k, 0): (v_upper + 0.5) ** k - (v_lower + 0.5) ** k for k in range(1, 5)}))
         band_origins[label] = Estimate(compared.value, compared.sigma)
-        comparison = make_comparison(label, compared, "cm-1", band_origin(isotopologue.dunham, v_upper, v_lower), _source(isotopologue, "omega_e"), model_text)
+        comparison = make_comparison(label, compared, "cm-1", _library_origin(isotopologue, v_upper, v_lower), _source(isotopologue, "omega_e"), model_text)
         if comparison is not None:
             origin_comparisons.append(comparison)
     B_v: dict[int, Estimate] = {}
@@ -288,7 +289,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Isotopologue,
     for v in levels:
         compared = model.linear(_term_weights(model, {(k, 1): (v + 0.5) ** k for k in range(4)}))
         B_v[v] = Estimate(compared.value, compared.sigma)
-        comparison = make_comparison(f"B_{v}", compared, "cm-1", rotational_constant(isotopologue.dunham, v), _source(isotopologue, "B_e"), model_text)
+        comparison = make_comparison(f"B_{v}", compared, "cm-1", _library_level(isotopologue, v)[0], _source(isotopologue, "B_e"), model_text)
         if comparison is not None:
             B_v_comparisons.append(comparison)
 
@@ -322,6 +323,19 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Isotopologue,
         model=model_text,
         chi2_reduced=None if not np.isfinite(term_fit.fit.chi2_reduced) else float(term_fit.fit.chi2_reduced),
     )
+
+
+@functools.lru_cache(maxsize=256)
+def _library_origin(isotopologue: Isotopologue, v_upper: int, v_lower: int) -> float:
+    """The library's origin of a band (cached: the isotopologue's constants fix it)."""
+    return band_origin(isotopologue.dunham, v_upper, v_lower)
+
+
+@functools.lru_cache(maxsize=256)
+def _library_level(isotopologue: Isotopologue, v: int) -> tuple[float, float, float]:
+    """The library's B_v, D_v and H_v of one vibrational level (cached as `_library_origin`)."""
+    dunham = isotopologue.dunham
+    return rotational_constant(dunham, v), centrifugal_constant(dunham, v), sextic_constant(dunham, v)
 
 
 def _source(isotopologue: Isotopologue, name: str) -> str:
@@ -421,16 +435,16 @@ def band_reference(fit: BandFit, library: Library, rows: tuple[np.ndarray, np.nd
                     held_columns=np.column_stack([-(x_up**2), x_low**2, x_up**3, -(x_low**3)]),
                     held_values=np.array(fit.held, dtype=np.float64))
     model = fitted_model(fit.linear_fit, library_parameters(library), positions, jacobian, **held)
-    dunham = isotopologue.dunham
+    upper, lower = _library_level(isotopologue, fit.v_upper), _library_level(isotopologue, fit.v_lower)
     model_text = f"band model ({fit.d_model}, {fit.h_model}) fitted to the library's positions of the same {fit.n_lines} lines"
     library_values = {
-        "origin": band_origin(dunham, fit.v_upper, fit.v_lower),
-        "B_upper": rotational_constant(dunham, fit.v_upper),
-        "B_lower": rotational_constant(dunham, fit.v_lower),
-        "D_upper": centrifugal_constant(dunham, fit.v_upper),
-        "D_lower": centrifugal_constant(dunham, fit.v_lower),
-        "H_upper": sextic_constant(dunham, fit.v_upper),
-        "H_lower": sextic_constant(dunham, fit.v_lower),
+        "origin": _library_origin(isotopologue, fit.v_upper, fit.v_lower),
+        "B_upper": upper[0],
+        "B_lower": lower[0],
+        "D_upper": upper[1],
+        "D_lower": lower[1],
+        "H_upper": upper[2],
+        "H_lower": lower[2],
     }
     aliases = {"D_upper": "D", "D_lower": "D", "H_upper": "H", "H_lower": "H"}
     comparisons = []
