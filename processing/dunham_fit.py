@@ -23,6 +23,7 @@ from collections.abc import Iterable, Mapping
 import numpy as np
 
 from processing.estimate import Estimate
+from processing.library_uncertainty import term_column
 from processing.linear_fit import SIGNIFICANT, SIGNIFICANT_SEXTIC, LinearFit, weighted_least_squares
 
 OPTIONAL_TERMS = ((0, 3), (1, 2), (2, 1), (0, 2))  # dropped in this order while not significant
@@ -34,7 +35,8 @@ class AssignedLines:
 
     `library_rows`, when given, holds the library's positions of these lines and their
     d(position)/d(theta) rows (see `library_uncertainty.predicted_lines`), worked out once for
-    a run's lines and carried along by `select`."""
+    a run's lines and carried along by `select`. Design columns (`column`) are worked out
+    once, on the table a selection was made from."""
 
     isotopologue: np.ndarray  # labels
     reduced_mass_u: np.ndarray
@@ -46,6 +48,7 @@ class AssignedLines:
     sigma_cm1: np.ndarray
     sigma_known: bool = True
     library_rows: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False, compare=False)
+    selected_from: tuple[AssignedLines, np.ndarray] | None = field(default=None, repr=False, compare=False)  # (table, mask)
 
     @property
     def count(self) -> int:
@@ -56,6 +59,7 @@ class AssignedLines:
         return AssignedLines(
             self.isotopologue[mask], self.reduced_mass_u[mask], self.v_upper[mask], self.v_lower[mask],
             self.J_upper[mask], self.J_lower[mask], self.position_cm1[mask], self.sigma_cm1[mask], self.sigma_known, rows,
+            (self, mask),
         )
 
     @functools.cached_property
@@ -69,11 +73,18 @@ class AssignedLines:
         return {}
 
     def column(self, k: int, l: int, mass_reduced: bool) -> np.ndarray:
-        """d(position)/d(Y_kl) of every line (of U_kl when mass-reduced); read-only, computed once."""
+        """d(position)/d(Y_kl) of every line, (v'+1/2)^k [J'(J'+1)]^l - (v''+1/2)^k [J''(J''+1)]^l,
+        times mu^-(k/2 + l) when mass-reduced (d/d(U_kl)); read-only, computed once."""
         key = (k, l, mass_reduced)
         column = self._columns.get(key)
         if column is None:
-            column = _column(self, k, l, mass_reduced)
+            if self.selected_from is not None:
+                table, mask = self.selected_from
+                column = table.column(k, l, mass_reduced)[mask]
+            elif mass_reduced:
+                column = self.column(k, l, False) * self.reduced_mass_u ** (-(k / 2.0 + l))
+            else:
+                column = term_column(self.v_upper, self.J_upper, self.v_lower, self.J_lower, k, l)
             column.flags.writeable = False
             self._columns[key] = column
         return column
@@ -81,15 +92,6 @@ class AssignedLines:
 
 def term_name(k: int, l: int) -> str:
     return f"Y{k}{l}"
-
-
-def _column(lines: AssignedLines, k: int, l: int, mass_reduced: bool) -> np.ndarray:
-    from processing.library_uncertainty import term_column
-
-    column = term_column(lines.v_upper, lines.J_upper, lines.v_lower, lines.J_lower, k, l)
-    if mass_reduced:
-        column = column * lines.reduced_mass_u ** (-(k / 2.0 + l))
-    return column
 
 
 @dataclass(frozen=True)

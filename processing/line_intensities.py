@@ -232,6 +232,7 @@ def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.
     for label, v_upper, v_lower in found:
         by_band.setdefault((v_upper, v_lower), []).append(label)
     known = {iso.label for iso in library.isotopologues()}
+    clear = (~np.asarray(lines.saturated, dtype=bool) & (widths > 10 * width_sigmas)).tolist()  # unsaturated, W above 10 sigma
     for band, labels in by_band.items():
         for a in labels:
             for b in labels:
@@ -240,7 +241,7 @@ def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.
                 iso_a, iso_b = library.isotopologue(a), library.isotopologue(b)
                 if iso_a.molecule != iso_b.molecule:
                     continue
-                pairs = [(i, j) for i, j in _pairs(assignment, a, b, band) if not lines.saturated[i] and not lines.saturated[j] and widths[i] > 10 * width_sigmas[i] and widths[j] > 10 * width_sigmas[j]]
+                pairs = [(i, j) for i, j in _pairs(assignment, a, b, band) if clear[i] and clear[j]]
                 if len(pairs) < 3:
                     continue
                 # predicted per-molecule strength ratio for the same lines
