@@ -118,6 +118,38 @@ class BandReference:
 BandRows = dict[int, tuple[np.ndarray, np.ndarray]]
 
 
+# a band's table of library rows covers J'' up to a multiple of this (one table serves most runs)
+_TABLE_J_STEP = 32
+
+
+@functools.lru_cache(maxsize=64)
+def _band_line_table(library: Library, label: str, v_upper: int, v_lower: int, j_max: int) -> tuple[np.ndarray, np.ndarray]:
+    """The library's positions and d/d(theta) rows of every line of a band with J'' <= j_max:
+    row 2 J'' is the P line (J' = J'' - 1), row 2 J'' + 1 the R line (cached: the library
+    fixes them, and a run's bands come back in the next run)."""
+    J_lower = np.repeat(np.arange(j_max + 1, dtype=np.int64), 2)
+    J_upper = J_lower + np.tile(np.array([-1, 1], dtype=np.int64), j_max + 1)
+    n = J_lower.size
+    positions, jacobian = predicted_lines(library, label, np.full(n, v_upper), J_upper, np.full(n, v_lower), J_lower)
+    positions.flags.writeable = False
+    jacobian.flags.writeable = False
+    return positions, jacobian
+
+
+def _band_rows(library: Library, label: str, v_upper: int, v_lower: int, J_upper: np.ndarray, J_lower: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The library's positions of a band's lines and their d/d(theta) rows (from the band's
+    table: the same numbers `predicted_lines` gives line by line)."""
+    J_upper = np.asarray(J_upper, dtype=np.int64)
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    n = J_lower.size
+    if n == 0 or J_lower.min() < 0 or np.any(np.abs(J_upper - J_lower) != 1):
+        return predicted_lines(library, label, np.full(n, v_upper), J_upper, np.full(n, v_lower), J_lower)
+    j_max = _TABLE_J_STEP * (int(J_lower.max()) // _TABLE_J_STEP + 1)
+    positions, jacobian = _band_line_table(library, label, int(v_upper), int(v_lower), j_max)
+    row = 2 * J_lower + (J_upper > J_lower)
+    return positions[row], jacobian[row]
+
+
 def band_library_rows(analysis: Analysis, library: Library) -> BandRows:
     """Per band fit (by its index in the assignment), the library's positions of all its lines
     and their d/d(theta) rows: worked out once, for the band's own reference and for every term
@@ -125,11 +157,8 @@ def band_library_rows(analysis: Analysis, library: Library) -> BandRows:
     known = {iso.label for iso in library.isotopologues()}
     rows: BandRows = {}
     for i, band in enumerate(analysis.assignment.bands):
-        if band.isotopologue not in known:
-            continue
-        n = band.observed.size
-        rows[i] = predicted_lines(library, band.isotopologue, np.full(n, band.v_upper), upper_J(band.branch, band.J_lower),
-                                  np.full(n, band.v_lower), band.J_lower)
+        if band.isotopologue in known:
+            rows[i] = _band_rows(library, band.isotopologue, band.v_upper, band.v_lower, upper_J(band.branch, band.J_lower), band.J_lower)
     return rows
 
 
