@@ -24,7 +24,9 @@ import numpy as np
 
 from processing.estimate import Estimate
 from processing.linear_fit import weighted_least_squares
+from processing.index_ranges import expand_ranges
 from processing.noise import white_noise
+from processing.order_stats import median
 from processing.line_shape import transmittance_depth
 from processing.physical_constants import C2_CM_K
 from processing.results import AbundanceRatio, HydrogenFraction, RotationalTemperature
@@ -120,9 +122,8 @@ def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, ri
     if windows.size == 0:
         return out
     points = hi[windows] - lo[windows] + 1
-    offsets = np.concatenate([[0], np.cumsum(points[:-1])])
-    # every window's points, one after another: lo of its window plus the place within it
-    index = np.repeat(lo[windows] - offsets, points) + np.arange(int(offsets[-1] + points[-1]))
+    offsets = np.cumsum(points) - points
+    _, index = expand_ranges(lo[windows], hi[windows] + 1)  # every window's points, one after another
     depth = transmittance_depth(corrected[index])
     x_points = x[index]
     area = 0.5 * (depth[1:] + depth[:-1]) * (x_points[1:] - x_points[:-1])
@@ -201,17 +202,6 @@ def rotational_temperatures(lines: LineTable, assignment: AssignmentResult, widt
     return out
 
 
-def _median(values: np.ndarray) -> float:
-    """np.median of a short array (the same number, without its overhead): the middle value,
-    or the mean of the two middle values."""
-    ordered = np.sort(values)
-    n = ordered.size
-    if n == 0 or math.isnan(ordered[-1]):
-        return float("nan")
-    middle = n // 2
-    return float(ordered[middle]) if n % 2 else float((ordered[middle - 1] + ordered[middle]) / 2.0)
-
-
 def _pairs(assignment: AssignmentResult, a: str, b: str, band: tuple[int, int]) -> list[tuple[int, int]]:
     index: dict[tuple[str, int], dict[str, int]] = {}
     for i, assigned in enumerate(assignment.per_line):
@@ -256,7 +246,7 @@ def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.
                 if len(ratios) < 3:
                     continue
                 ratios_array = np.array(ratios)
-                ratio = _median(ratios_array)
+                ratio = median(ratios_array)
                 sigma = float(1.2533 * np.std(ratios_array) / math.sqrt(len(ratios)))  # std error of a median
                 natural = iso_a.abundance / iso_b.abundance if iso_b.abundance > 0 else None
                 major, minor = (a, b) if (natural or 1) >= 1 else (b, a)
@@ -360,7 +350,7 @@ def hydrogen_fractions(lines: LineTable, assignment: AssignmentResult, library: 
         column_d = _column_per_line(lines, assignment, library, set(main_d), temperature_K)
         if column_h.size < 3 or column_d.size < 3:
             continue
-        median_h, median_d = _median(column_h), _median(column_d)
+        median_h, median_d = median(column_h), median(column_d)
         ratio = float(median_h / median_d)
         relative = math.hypot(1.2533 * np.std(column_h) / median_h / math.sqrt(column_h.size), 1.2533 * np.std(column_d) / median_d / math.sqrt(column_d.size))
         fraction = ratio / (1.0 + ratio)

@@ -1,6 +1,6 @@
 """Numbers the constants and intensities stage works out once and shares (a band's library
-rows, design columns of a selection, all equivalent-width windows in one pass, a median of a
-few values) against the same numbers worked out directly, one by one."""
+rows, design columns of a selection, all equivalent-width windows in one pass) against the
+same numbers worked out directly, one by one."""
 from __future__ import annotations
 
 import numpy as np
@@ -9,7 +9,7 @@ import pytest
 from processing.dunham_fit import AssignedLines
 from processing.levels import upper_J
 from processing.library_uncertainty import predicted_lines, term_column
-from processing.line_intensities import _integrated_depth, _median
+from processing.line_intensities import _integrated_depth
 from processing.line_shape import transmittance_depth
 from processing.molecular_constants import _band_rows
 from processing.species import load_library
@@ -76,10 +76,3 @@ def test_columns_of_a_selection_are_those_of_its_own_lines(library) -> None:
         direct = term_column(mine.v_upper, mine.J_upper, mine.v_lower, mine.J_lower, k, l)
         np.testing.assert_array_equal(mine.column(k, l, False), direct)
         np.testing.assert_array_equal(mine.column(k, l, True), direct * mine.reduced_mass_u ** (-(k / 2.0 + l)))
-
-
-@pytest.mark.parametrize("size", [1, 2, 3, 4, 7, 10, 31])
-def test_median_of_a_few_values_is_numpys(size) -> None:
-    values = np.random.default_rng(size).lognormal(size=size)  # numpy.median: common practice
-    assert _median(values) == float(np.median(values))
-    assert np.isnan(_median(np.append(values, np.nan)))
