@@ -16,12 +16,14 @@ dependence separates U10 from U20 when hydrogen and deuterium forms are both pre
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 from collections.abc import Iterable, Mapping
 
 import numpy as np
 
 from processing.estimate import Estimate
+from processing.library_uncertainty import term_column
 from processing.linear_fit import SIGNIFICANT, SIGNIFICANT_SEXTIC, LinearFit, weighted_least_squares
 
 OPTIONAL_TERMS = ((0, 3), (1, 2), (2, 1), (0, 2))  # dropped in this order while not significant
@@ -29,7 +31,12 @@ OPTIONAL_TERMS = ((0, 3), (1, 2), (2, 1), (0, 2))  # dropped in this order while
 
 @dataclass(frozen=True)
 class AssignedLines:
-    """Assigned lines of one or more isotopologues, as aligned arrays."""
+    """Assigned lines of one or more isotopologues, as aligned arrays.
+
+    `library_rows`, when given, holds the library's positions of these lines and their
+    d(position)/d(theta) rows (see `library_uncertainty.predicted_lines`), worked out once for
+    a run's lines and carried along by `select`. Design columns (`column`) are worked out
+    once, on the table a selection was made from."""
 
     isotopologue: np.ndarray  # labels
     reduced_mass_u: np.ndarray
@@ -40,33 +47,51 @@ class AssignedLines:
     position_cm1: np.ndarray
     sigma_cm1: np.ndarray
     sigma_known: bool = True
+    library_rows: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False, compare=False)
+    selected_from: tuple[AssignedLines, np.ndarray] | None = field(default=None, repr=False, compare=False)  # (table, mask)
 
     @property
     def count(self) -> int:
         return int(self.position_cm1.size)
 
     def select(self, mask: np.ndarray) -> AssignedLines:
+        rows = None if self.library_rows is None else (self.library_rows[0][mask], self.library_rows[1][mask])
         return AssignedLines(
             self.isotopologue[mask], self.reduced_mass_u[mask], self.v_upper[mask], self.v_lower[mask],
-            self.J_upper[mask], self.J_lower[mask], self.position_cm1[mask], self.sigma_cm1[mask], self.sigma_known,
+            self.J_upper[mask], self.J_lower[mask], self.position_cm1[mask], self.sigma_cm1[mask], self.sigma_known, rows,
+            (self, mask),
         )
 
-    @property
+    @functools.cached_property
     def levels(self) -> tuple[int, ...]:
         return tuple(sorted(set(self.v_upper.tolist()) | set(self.v_lower.tolist())))
+
+    @functools.cached_property
+    def _columns(self) -> dict[tuple[int, int, bool], np.ndarray]:
+        # design columns already worked out (a fit and its model reference ask for the same
+        # terms again and again; cached_property writes the instance dict, frozen or not)
+        return {}
+
+    def column(self, k: int, l: int, mass_reduced: bool) -> np.ndarray:
+        """d(position)/d(Y_kl) of every line, (v'+1/2)^k [J'(J'+1)]^l - (v''+1/2)^k [J''(J''+1)]^l,
+        times mu^-(k/2 + l) when mass-reduced (d/d(U_kl)); read-only, computed once."""
+        key = (k, l, mass_reduced)
+        column = self._columns.get(key)
+        if column is None:
+            if self.selected_from is not None:
+                table, mask = self.selected_from
+                column = table.column(k, l, mass_reduced)[mask]
+            elif mass_reduced:
+                column = self.column(k, l, False) * self.reduced_mass_u ** (-(k / 2.0 + l))
+            else:
+                column = term_column(self.v_upper, self.J_upper, self.v_lower, self.J_lower, k, l)
+            column.flags.writeable = False
+            self._columns[key] = column
+        return column
 
 
 def term_name(k: int, l: int) -> str:
     return f"Y{k}{l}"
-
-
-def _column(lines: AssignedLines, k: int, l: int, mass_reduced: bool) -> np.ndarray:
-    from processing.library_uncertainty import term_column
-
-    column = term_column(lines.v_upper, lines.J_upper, lines.v_lower, lines.J_lower, k, l)
-    if mass_reduced:
-        column = column * lines.reduced_mass_u ** (-(k / 2.0 + l))
-    return column
 
 
 @dataclass(frozen=True)
@@ -121,7 +146,10 @@ def term_columns(lines: AssignedLines, terms: Iterable[tuple[int, int]], mass_re
     terms = list(terms)
     if not terms:
         return np.zeros((lines.count, 0))
-    return np.column_stack([_column(lines, k, l, mass_reduced) for k, l in terms])
+    design = np.empty((lines.count, len(terms)))
+    for i, (k, l) in enumerate(terms):
+        design[:, i] = lines.column(k, l, mass_reduced)
+    return design
 
 
 def fit_terms(

@@ -24,7 +24,9 @@ import numpy as np
 
 from processing.estimate import Estimate
 from processing.linear_fit import weighted_least_squares
+from processing.index_ranges import expand_ranges
 from processing.noise import white_noise
+from processing.order_stats import median
 from processing.line_shape import transmittance_depth
 from processing.physical_constants import C2_CM_K
 from processing.results import AbundanceRatio, HydrogenFraction, RotationalTemperature
@@ -110,47 +112,71 @@ def equivalent_widths(spectrum: Spectrum, baseline: BaselineResult, lines: LineT
 
 def _integrated_depth(x: np.ndarray, corrected: np.ndarray, left: np.ndarray, right: np.ndarray) -> np.ndarray:
     """Trapezoid integral of 1 - 10^-A over each [left, right] (only the points inside the
-    windows are converted)."""
-    lo = np.clip(np.searchsorted(x, left), 0, x.size - 1)
-    hi = np.clip(np.searchsorted(x, right), 0, x.size - 1)
+    windows are converted, all windows at once: the points of every window are gathered into
+    one array, the trapezoids between windows zeroed, and the rest summed window by window)."""
+    last = x.size - 1
+    lo = np.minimum(np.maximum(np.searchsorted(x, left), 0), last)
+    hi = np.minimum(np.maximum(np.searchsorted(x, right), 0), last)
     out = np.zeros(lo.size)
-    for k, (a, b) in enumerate(zip(lo.tolist(), hi.tolist())):
-        if b > a:
-            depth = transmittance_depth(corrected[a : b + 1])
-            out[k] = float(np.sum(0.5 * (depth[1:] + depth[:-1]) * np.diff(x[a : b + 1])))
+    windows = np.flatnonzero(hi > lo)
+    if windows.size == 0:
+        return out
+    points = hi[windows] - lo[windows] + 1
+    offsets = np.cumsum(points) - points
+    _, index = expand_ranges(lo[windows], hi[windows] + 1)  # every window's points, one after another
+    depth = transmittance_depth(corrected[index])
+    x_points = x[index]
+    area = 0.5 * (depth[1:] + depth[:-1]) * (x_points[1:] - x_points[:-1])
+    area[offsets[1:] - 1] = 0.0  # from one window's last point to the next window's first
+    out[windows] = np.add.reduceat(area, offsets)
+    return out
+
+
+def _boltzmann_lines(lines: LineTable, assignment: AssignmentResult, widths: np.ndarray,
+                     width_sigmas: np.ndarray) -> dict[tuple[str, int, int], list[tuple[float, float, int, bool, float]]]:
+    """Per band (isotopologue, v', v''), its lines fit for a Boltzmann plot, in line order:
+    (ln(W / (L_HL nu)), sigma_W / W, J'', R branch, W). Saturated, blended, ringing, unused
+    and weak (< 10 sigma) lines are left out."""
+    saturated = lines.saturated.tolist()
+    ringing = lines.ringing.tolist()
+    position = lines.position_cm1.tolist()
+    width_list = widths.tolist()
+    sigma_list = width_sigmas.tolist()
+    out: dict[tuple[str, int, int], list[tuple[float, float, int, bool, float]]] = {}
+    for i, assigned in enumerate(assignment.per_line):
+        if assigned is None or saturated[i] or assigned.blended or ringing[i] or not assigned.used_in_fit:
+            continue
+        W, sW = width_list[i], sigma_list[i]
+        if not (math.isfinite(W) and W > 10.0 * sW and W > 0 and position[i] > 0):
+            continue  # (the logarithm below needs a positive width and position)
+        J = assigned.J_lower
+        is_r = assigned.branch == "R"
+        hoenl_london = J + 1 if is_r else J
+        if hoenl_london <= 0:
+            continue
+        row = (math.log(W / (hoenl_london * position[i])), sW / W, J, is_r, W)
+        out.setdefault((assigned.isotopologue, assigned.v_upper, assigned.v_lower), []).append(row)
     return out
 
 
 def rotational_temperatures(lines: LineTable, assignment: AssignmentResult, widths: np.ndarray, width_sigmas: np.ndarray) -> list[RotationalTemperature]:
     out = []
+    per_band = _boltzmann_lines(lines, assignment, widths, width_sigmas)
     for fit in assignment.bands:
-        rows = []
-        for i, assigned in enumerate(assignment.per_line):
-            if assigned is None or (assigned.isotopologue, assigned.v_upper, assigned.v_lower) != (fit.isotopologue, fit.v_upper, fit.v_lower):
-                continue
-            if lines.saturated[i] or assigned.blended or lines.ringing[i] or not assigned.used_in_fit:
-                continue
-            W, sW = widths[i], width_sigmas[i]
-            if not (np.isfinite(W) and W > 10.0 * sW and W > 0 and lines.position_cm1[i] > 0):
-                continue  # (the logarithm below needs a positive width and position)
-            J = assigned.J_lower
-            hoenl_london = J + 1 if assigned.branch == "R" else J
-            if hoenl_london <= 0:
-                continue
-            x = J * (J + 1.0)
-            D = fit.D_lower.value if fit.D_lower else 0.0
-            energy = fit.B_lower.value * x - D * x * x
-            rows.append((math.log(W / (hoenl_london * lines.position_cm1[i])), sW / W, C2_CM_K * energy, assigned.branch == "R", W))
+        rows = per_band.get((fit.isotopologue, fit.v_upper, fit.v_lower), [])
         if len(rows) < 6:
             continue
-        y, sy, e, is_r, w = (np.array(c) for c in zip(*rows))
+        y, sy, J, is_r, w = (np.array(c) for c in zip(*rows))
+        x = J * (J + 1.0)
+        D = fit.D_lower.value if fit.D_lower else 0.0
+        e = C2_CM_K * (fit.B_lower.value * x - D * x * x)
         if is_r.all() or (~is_r).all():
             design = np.column_stack([np.ones_like(e), -e])
             names: tuple[str, ...] = ("intercept", "inverse_T")
         else:
             design = np.column_stack([is_r.astype(float), (~is_r).astype(float), -e])
             names = ("intercept_R", "intercept_P", "inverse_T")
-        if np.ptp(e) <= 0:
+        if e.max() - e.min() <= 0:
             continue
         weights = np.maximum(sy, 1e-3)
         plain = weighted_least_squares(design, y, weights, names)
@@ -196,6 +222,7 @@ def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.
     for label, v_upper, v_lower in found:
         by_band.setdefault((v_upper, v_lower), []).append(label)
     known = {iso.label for iso in library.isotopologues()}
+    clear = (~np.asarray(lines.saturated, dtype=bool) & (widths > 10 * width_sigmas)).tolist()  # unsaturated, W above 10 sigma
     for band, labels in by_band.items():
         for a in labels:
             for b in labels:
@@ -204,7 +231,7 @@ def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.
                 iso_a, iso_b = library.isotopologue(a), library.isotopologue(b)
                 if iso_a.molecule != iso_b.molecule:
                     continue
-                pairs = [(i, j) for i, j in _pairs(assignment, a, b, band) if not lines.saturated[i] and not lines.saturated[j] and widths[i] > 10 * width_sigmas[i] and widths[j] > 10 * width_sigmas[j]]
+                pairs = [(i, j) for i, j in _pairs(assignment, a, b, band) if clear[i] and clear[j]]
                 if len(pairs) < 3:
                     continue
                 # predicted per-molecule strength ratio for the same lines
@@ -219,7 +246,7 @@ def abundance_ratios(lines: LineTable, assignment: AssignmentResult, widths: np.
                 if len(ratios) < 3:
                     continue
                 ratios_array = np.array(ratios)
-                ratio = float(np.median(ratios_array))
+                ratio = median(ratios_array)
                 sigma = float(1.2533 * np.std(ratios_array) / math.sqrt(len(ratios)))  # std error of a median
                 natural = iso_a.abundance / iso_b.abundance if iso_b.abundance > 0 else None
                 major, minor = (a, b) if (natural or 1) >= 1 else (b, a)
@@ -287,6 +314,18 @@ def _column_per_line(lines: LineTable, assignment: AssignmentResult, library: Li
     return np.array(values)
 
 
+@functools.lru_cache(maxsize=64)
+def _light_and_heavy(library: Library, molecule: str) -> tuple[str, str] | None:
+    """`Library.light_and_heavy`, cached: the library fixes it, and finding it walks the library."""
+    return library.light_and_heavy(molecule)
+
+
+@functools.lru_cache(maxsize=64)
+def _partner_isotopologue(library: Library, label: str) -> str | None:
+    """`Library.partner_isotopologue`, cached as `_light_and_heavy`."""
+    return library.partner_isotopologue(label)
+
+
 def hydrogen_fractions(lines: LineTable, assignment: AssignmentResult, library: Library, temperature_K: float) -> list[HydrogenFraction]:
     """Hydrogen fraction when H and D forms of one molecule are both assigned (e.g. HCl in a
     DCl cell). Relies on the library's absolute band strengths, which are approximate (the
@@ -296,22 +335,24 @@ def hydrogen_fractions(lines: LineTable, assignment: AssignmentResult, library: 
     for a in assignment.per_line:
         if a and a.isotopologue in known:
             found.setdefault(known[a.isotopologue].molecule, set()).add(a.isotopologue)
-    pairs = dict.fromkeys(pair for molecule in found if (pair := library.light_and_heavy(molecule)) is not None)
+    pairs = dict.fromkeys(pair for molecule in found if (pair := _light_and_heavy(library, molecule)) is not None)
     out = []
     for molecule_h, molecule_d in pairs:
         if molecule_h not in found or molecule_d not in found:
             continue
         # compare isotopologues that differ only in the hydrogen isotope (e.g. H35Cl with D35Cl)
         main_h = max(found[molecule_h], key=lambda label: known[label].abundance)
-        main_d = [label for label in found[molecule_d] if label == library.partner_isotopologue(main_h)]
+        partner = _partner_isotopologue(library, main_h)
+        main_d = [label for label in found[molecule_d] if label == partner]
         if not main_d:
             continue
         column_h = _column_per_line(lines, assignment, library, {main_h}, temperature_K)
         column_d = _column_per_line(lines, assignment, library, set(main_d), temperature_K)
         if column_h.size < 3 or column_d.size < 3:
             continue
-        ratio = float(np.median(column_h) / np.median(column_d))
-        relative = math.hypot(1.2533 * np.std(column_h) / np.median(column_h) / math.sqrt(column_h.size), 1.2533 * np.std(column_d) / np.median(column_d) / math.sqrt(column_d.size))
+        median_h, median_d = median(column_h), median(column_d)
+        ratio = float(median_h / median_d)
+        relative = math.hypot(1.2533 * np.std(column_h) / median_h / math.sqrt(column_h.size), 1.2533 * np.std(column_d) / median_d / math.sqrt(column_d.size))
         fraction = ratio / (1.0 + ratio)
         sigma = fraction * (1 - fraction) * relative
         out.append(HydrogenFraction(molecule_h, molecule_d, Estimate(fraction, sigma, "1"), int(column_h.size + column_d.size),

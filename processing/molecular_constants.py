@@ -24,6 +24,7 @@ isotopologue beyond their noise indicate Born-Oppenheimer breakdown.
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Callable
@@ -114,42 +115,91 @@ class BandReference:
 
 
 # ------------------------------------------------------------------------------ line table
-def assigned_lines_from(analysis: Analysis, library: Library) -> AssignedLines:
+BandRows = dict[int, tuple[np.ndarray, np.ndarray]]
+
+
+# a band's table of library rows covers J'' up to a multiple of this (one table serves most runs)
+_TABLE_J_STEP = 32
+
+
+@functools.lru_cache(maxsize=64)
+def _band_line_table(library: Library, label: str, v_upper: int, v_lower: int, j_max: int) -> tuple[np.ndarray, np.ndarray]:
+    """The library's positions and d/d(theta) rows of every line of a band with J'' <= j_max:
+    row 2 J'' is the P line (J' = J'' - 1), row 2 J'' + 1 the R line (cached: the library
+    fixes them, and a run's bands come back in the next run)."""
+    J_lower = np.repeat(np.arange(j_max + 1, dtype=np.int64), 2)
+    J_upper = J_lower + np.tile(np.array([-1, 1], dtype=np.int64), j_max + 1)
+    n = J_lower.size
+    positions, jacobian = predicted_lines(library, label, np.full(n, v_upper), J_upper, np.full(n, v_lower), J_lower)
+    positions.flags.writeable = False
+    jacobian.flags.writeable = False
+    return positions, jacobian
+
+
+def _band_rows(library: Library, label: str, v_upper: int, v_lower: int, J_upper: np.ndarray, J_lower: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The library's positions of a band's lines and their d/d(theta) rows (from the band's
+    table: the same numbers `predicted_lines` gives line by line)."""
+    J_upper = np.asarray(J_upper, dtype=np.int64)
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    n = J_lower.size
+    if n == 0 or J_lower.min() < 0 or np.any(np.abs(J_upper - J_lower) != 1):
+        return predicted_lines(library, label, np.full(n, v_upper), J_upper, np.full(n, v_lower), J_lower)
+    j_max = _TABLE_J_STEP * (int(J_lower.max()) // _TABLE_J_STEP + 1)
+    positions, jacobian = _band_line_table(library, label, int(v_upper), int(v_lower), j_max)
+    row = 2 * J_lower + (J_upper > J_lower)
+    return positions[row], jacobian[row]
+
+
+def band_library_rows(analysis: Analysis, library: Library) -> BandRows:
+    """Per band fit (by its index in the assignment), the library's positions of all its lines
+    and their d/d(theta) rows: worked out once, for the band's own reference and for every term
+    fit of the lines it used."""
+    known = {iso.label for iso in library.isotopologues()}
+    rows: BandRows = {}
+    for i, band in enumerate(analysis.assignment.bands):
+        if band.isotopologue in known:
+            rows[i] = _band_rows(library, band.isotopologue, band.v_upper, band.v_lower, upper_J(band.branch, band.J_lower), band.J_lower)
+    return rows
+
+
+def assigned_lines_from(analysis: Analysis, library: Library, band_rows: BandRows | None = None) -> AssignedLines:
     """The lines each band fit used, with the positions and uncertainties it used (blend
     pulls removed, doublet-measured sigmas, saturated/blended lines widened as it widened
-    them): two fits of the same lines see the same numbers."""
-    rows = []
+    them): two fits of the same lines see the same numbers. With `band_rows` (from
+    `band_library_rows`) the lines carry their library rows."""
     masses = {iso.label: iso.reduced_mass_u for iso in library.isotopologues()}
-    for band in analysis.assignment.bands:
+    parts = []
+    rows = []
+    for i, band in enumerate(analysis.assignment.bands):
         if band.isotopologue not in masses:
             continue
+        used = np.flatnonzero(band.used)
         sigma = band.sigma if band.sigma is not None else np.full(band.observed.size, 1e-3)
         J_up = upper_J(band.branch, band.J_lower)
-        for k in np.flatnonzero(band.used):
-            rows.append((band.isotopologue, masses[band.isotopologue], band.v_upper, band.v_lower,
-                         int(J_up[k]), int(band.J_lower[k]), float(band.observed[k]), float(sigma[k])))
+        parts.append((np.full(used.size, band.isotopologue, dtype=object), np.full(used.size, masses[band.isotopologue], dtype=np.float64),
+                      np.full(used.size, band.v_upper, dtype=np.int64), np.full(used.size, band.v_lower, dtype=np.int64),
+                      np.asarray(J_up, dtype=np.int64)[used], np.asarray(band.J_lower, dtype=np.int64)[used],
+                      np.asarray(band.observed, dtype=np.float64)[used], np.asarray(sigma, dtype=np.float64)[used]))
+        if band_rows is not None:
+            positions, jacobian = band_rows[i]
+            rows.append((positions[used], jacobian[used]))
     sigma_known = bool(analysis.lines.sigma_known)
-    if not rows:
+    if not parts:
         empty = np.zeros(0)
         return AssignedLines(np.array([], dtype=object), empty, empty.astype(int), empty.astype(int), empty.astype(int), empty.astype(int), empty, empty, sigma_known)
-    columns = list(zip(*rows))
-    return AssignedLines(
-        isotopologue=np.array(columns[0], dtype=object),
-        reduced_mass_u=np.array(columns[1], dtype=np.float64),
-        v_upper=np.array(columns[2], dtype=np.int64),
-        v_lower=np.array(columns[3], dtype=np.int64),
-        J_upper=np.array(columns[4], dtype=np.int64),
-        J_lower=np.array(columns[5], dtype=np.int64),
-        position_cm1=np.array(columns[6], dtype=np.float64),
-        sigma_cm1=np.array(columns[7], dtype=np.float64),
-        sigma_known=sigma_known,
-    )
+    columns = [np.concatenate(column) for column in zip(*parts)]
+    library_rows = None
+    if band_rows is not None:
+        library_rows = (np.concatenate([r[0] for r in rows]), np.concatenate([r[1] for r in rows]))
+    return AssignedLines(*columns, sigma_known=sigma_known, library_rows=library_rows)
 
 
 # ------------------------------------------------------------------------ model references
 def _library_rows(library: Library, lines: AssignedLines) -> tuple[np.ndarray, np.ndarray]:
     """Library positions of every line (each with its own isotopologue's constants) and their
-    d/d(theta) rows."""
+    d/d(theta) rows (those the lines carry, when they do)."""
+    if lines.library_rows is not None:
+        return lines.library_rows
     parameters = library_parameters(library)
     positions = np.zeros(lines.count)
     jacobian = np.zeros((lines.count, parameters.size))
@@ -260,7 +310,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Isotopologue,
         label = f"{v_upper}-{v_lower}"
         compared = model.linear(_term_weights(model, {(k, 0): (v_upper + 0.5) ** k - (v_lower + 0.5) ** k for k in range(1, 5)}))
         band_origins[label] = Estimate(compared.value, compared.sigma)
-        comparison = make_comparison(label, compared, "cm-1", band_origin(isotopologue.dunham, v_upper, v_lower), _source(isotopologue, "omega_e"), model_text)
+        comparison = make_comparison(label, compared, "cm-1", _library_origin(isotopologue, v_upper, v_lower), _source(isotopologue, "omega_e"), model_text)
         if comparison is not None:
             origin_comparisons.append(comparison)
     B_v: dict[int, Estimate] = {}
@@ -268,7 +318,7 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Isotopologue,
     for v in levels:
         compared = model.linear(_term_weights(model, {(k, 1): (v + 0.5) ** k for k in range(4)}))
         B_v[v] = Estimate(compared.value, compared.sigma)
-        comparison = make_comparison(f"B_{v}", compared, "cm-1", rotational_constant(isotopologue.dunham, v), _source(isotopologue, "B_e"), model_text)
+        comparison = make_comparison(f"B_{v}", compared, "cm-1", _library_level(isotopologue, v)[0], _source(isotopologue, "B_e"), model_text)
         if comparison is not None:
             B_v_comparisons.append(comparison)
 
@@ -302,6 +352,19 @@ def constants_for_isotopologue(lines: AssignedLines, isotopologue: Isotopologue,
         model=model_text,
         chi2_reduced=None if not np.isfinite(term_fit.fit.chi2_reduced) else float(term_fit.fit.chi2_reduced),
     )
+
+
+@functools.lru_cache(maxsize=256)
+def _library_origin(isotopologue: Isotopologue, v_upper: int, v_lower: int) -> float:
+    """The library's origin of a band (cached: the isotopologue's constants fix it)."""
+    return band_origin(isotopologue.dunham, v_upper, v_lower)
+
+
+@functools.lru_cache(maxsize=256)
+def _library_level(isotopologue: Isotopologue, v: int) -> tuple[float, float, float]:
+    """The library's B_v, D_v and H_v of one vibrational level (cached as `_library_origin`)."""
+    dunham = isotopologue.dunham
+    return rotational_constant(dunham, v), centrifugal_constant(dunham, v), sextic_constant(dunham, v)
 
 
 def _source(isotopologue: Isotopologue, name: str) -> str:
@@ -379,9 +442,10 @@ def _diagnostics(constants: dict[str, Estimate | None], isotopologue: Isotopolog
 
 
 # --------------------------------------------------------------------------- band fits
-def band_reference(fit: BandFit, library: Library) -> BandReference | None:
+def band_reference(fit: BandFit, library: Library, rows: tuple[np.ndarray, np.ndarray] | None = None) -> BandReference | None:
     """A band fit's origin, B, D and H against the same band model fitted to the library's
-    positions of the same lines (None for a band the library does not know)."""
+    positions of the same lines (None for a band the library does not know). `rows`: the
+    library's positions of the band's lines and their d/d(theta) rows, when already known."""
     if fit.linear_fit is None:
         return None
     try:
@@ -390,7 +454,9 @@ def band_reference(fit: BandFit, library: Library) -> BandReference | None:
         return None
     n = fit.observed.size
     J_up = upper_J(fit.branch, fit.J_lower)
-    positions, jacobian = predicted_lines(library, isotopologue.label, np.full(n, fit.v_upper), J_up, np.full(n, fit.v_lower), fit.J_lower)
+    if rows is None:
+        rows = predicted_lines(library, isotopologue.label, np.full(n, fit.v_upper), J_up, np.full(n, fit.v_lower), fit.J_lower)
+    positions, jacobian = rows
     held = {}
     if any(fit.held):
         x_up, x_low = J_up * (J_up + 1.0), fit.J_lower * (fit.J_lower + 1.0)
@@ -398,16 +464,16 @@ def band_reference(fit: BandFit, library: Library) -> BandReference | None:
                     held_columns=np.column_stack([-(x_up**2), x_low**2, x_up**3, -(x_low**3)]),
                     held_values=np.array(fit.held, dtype=np.float64))
     model = fitted_model(fit.linear_fit, library_parameters(library), positions, jacobian, **held)
-    dunham = isotopologue.dunham
+    upper, lower = _library_level(isotopologue, fit.v_upper), _library_level(isotopologue, fit.v_lower)
     model_text = f"band model ({fit.d_model}, {fit.h_model}) fitted to the library's positions of the same {fit.n_lines} lines"
     library_values = {
-        "origin": band_origin(dunham, fit.v_upper, fit.v_lower),
-        "B_upper": rotational_constant(dunham, fit.v_upper),
-        "B_lower": rotational_constant(dunham, fit.v_lower),
-        "D_upper": centrifugal_constant(dunham, fit.v_upper),
-        "D_lower": centrifugal_constant(dunham, fit.v_lower),
-        "H_upper": sextic_constant(dunham, fit.v_upper),
-        "H_lower": sextic_constant(dunham, fit.v_lower),
+        "origin": _library_origin(isotopologue, fit.v_upper, fit.v_lower),
+        "B_upper": upper[0],
+        "B_lower": lower[0],
+        "D_upper": upper[1],
+        "D_lower": lower[1],
+        "H_upper": upper[2],
+        "H_lower": lower[2],
     }
     aliases = {"D_upper": "D", "D_lower": "D", "H_upper": "H", "H_lower": "H"}
     comparisons = []
@@ -520,7 +586,8 @@ class ConstantsResult:
 def molecular_constants(analysis: Analysis, library: Library) -> ConstantsResult:
     """All constants a run's assignment supports (isotopologues with >= 6 fitted lines), and
     every band fit beside its model reference."""
-    lines = assigned_lines_from(analysis, library)
+    band_rows = band_library_rows(analysis, library)
+    lines = assigned_lines_from(analysis, library, band_rows)
     per_isotopologue = []
     notes: list[str] = []
     for label in sorted(set(lines.isotopologue.tolist())):
@@ -546,6 +613,6 @@ def molecular_constants(analysis: Analysis, library: Library) -> ConstantsResult
             continue
         if fit is not None:
             mass_reduced.append(fit)
-    bands = tuple(b for b in (band_reference(fit, library) for fit in analysis.assignment.bands) if b is not None)
+    bands = tuple(b for b in (band_reference(fit, library, band_rows.get(i)) for i, fit in enumerate(analysis.assignment.bands)) if b is not None)
     return ConstantsResult(tuple(per_isotopologue), tuple(mass_reduced), tuple(notes), bands)
 
