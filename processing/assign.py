@@ -128,10 +128,7 @@ class _Band:
         if self.weights_source is None:
             return {}
         library, temperature_K, scale = self.weights_source
-        every = _predicted_band(library, self.isotopologue, self.v_upper, self.v_lower, temperature_K, 1e-7)
-        if every is None:
-            return {}
-        return {int(m): float(w) / scale for m, w in zip(every.lines.m.tolist(), every.strength_cm_per_molecule.tolist())}
+        return _all_weights(library, self.isotopologue, self.v_upper, self.v_lower, temperature_K, scale)
 
     def pull_of(self, m: np.ndarray) -> np.ndarray:
         return np.array([self.pull.get(int(k), 0.0) for k in np.atleast_1d(m)])
@@ -162,6 +159,16 @@ def _predicted_band(library: Library, label: str, v_upper: int, v_lower: int, te
         return None
 
 
+@functools.lru_cache(maxsize=512)
+def _all_weights(library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, scale: float) -> dict[int, float]:
+    """m -> predicted relative intensity (divided by `scale`) of every line down to 1e-7 of the
+    band's strongest (cached; callers only read it)."""
+    every = _predicted_band(library, label, v_upper, v_lower, temperature_K, 1e-7)
+    if every is None:
+        return {}
+    return {int(m): float(w) / scale for m, w in zip(every.lines.m.tolist(), every.strength_cm_per_molecule.tolist())}
+
+
 def library_centrifugal(dunham: DunhamCoefficients, v_upper: int, v_lower: int) -> tuple[float, float, float, float]:
     """The library's (D', D'', H', H'') of a band."""
     return (centrifugal_constant(dunham, v_upper), centrifugal_constant(dunham, v_lower),
@@ -182,8 +189,40 @@ def _band_may_overlap(library: Library, iso: Isotopologue, v_upper: int, v_lower
     return high > first - 10.0 and low < last + 10.0
 
 
-def _library_predictions(library: Library, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> list[_Band]:
-    bands: list[_Band] = []
+@dataclass(frozen=True)
+class _Predicted:
+    """One isotopologue's library lines of a band near a spectrum's range (read-only arrays;
+    weights on the molecule-band scale, 1 = strongest)."""
+
+    isotopologue: str
+    m: np.ndarray
+    position: np.ndarray
+    weight: np.ndarray
+    centrifugal: tuple[float, float, float, float]
+
+
+@dataclass(frozen=True)
+class _PredictionSet:
+    """A molecule's band predicted for one spectrum range and temperature, with what the shift
+    search needs: the positions and weights of every line at 2% of the strongest or more."""
+
+    bands: tuple[_Predicted, ...]
+    scale: float  # the strongest line's intensity (what the weights are divided by)
+    search_position: np.ndarray
+    search_weight: np.ndarray
+    search_total: float
+
+
+def _read_only(array: np.ndarray) -> np.ndarray:
+    array.flags.writeable = False
+    return array
+
+
+@functools.lru_cache(maxsize=256)
+def _prediction_set(library: Library, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> _PredictionSet | None:
+    """The library's lines of a molecule's band within 10 cm-1 of first..last (cached: they do
+    not depend on the spectrum's values, only on its range)."""
+    found: list[tuple[str, np.ndarray, np.ndarray, np.ndarray, tuple[float, float, float, float]]] = []
     for iso in library.molecule(molecule):
         if not _band_may_overlap(library, iso, v_upper, v_lower, first, last):
             continue
@@ -194,71 +233,118 @@ def _library_predictions(library: Library, molecule: str, v_upper: int, v_lower:
         inside = (lines.wavenumber_cm1 > first - 10.0) & (lines.wavenumber_cm1 < last + 10.0)
         if not inside.any():
             continue
-        bands.append(
-            _Band(
-                isotopologue=iso.label,
-                v_upper=v_upper,
-                v_lower=v_lower,
-                method="library",
-                m=lines.m[inside],
-                position=lines.wavenumber_cm1[inside],
-                sigma=np.zeros(int(inside.sum())),
-                weight=predicted.strength_cm_per_molecule[inside],
-                library_centrifugal=library_centrifugal(iso.dunham, v_upper, v_lower),
-                weights_source=(library, temperature_K, 1.0),
-            )
+        found.append((iso.label, lines.m[inside], lines.wavenumber_cm1[inside], predicted.strength_cm_per_molecule[inside],
+                      library_centrifugal(iso.dunham, v_upper, v_lower)))
+    if not found:
+        return None
+    strongest = max(float(weight.max()) for _, _, _, weight, _ in found)
+    bands = tuple(
+        _Predicted(label, _read_only(m), _read_only(position), _read_only(weight / strongest), centrifugal)
+        for label, m, position, weight, centrifugal in found
+    )
+    positions = np.concatenate([b.position for b in bands])
+    weights = np.concatenate([b.weight for b in bands])
+    keep = weights >= 0.02
+    search_weight = weights[keep]
+    return _PredictionSet(bands, strongest, _read_only(positions[keep]), _read_only(search_weight), float(search_weight.sum()))
+
+
+def _library_predictions(predictions: _PredictionSet, library: Library, v_upper: int, v_lower: int, temperature_K: float) -> list[_Band]:
+    """Fresh bands (they are refined in place) from a cached prediction set."""
+    return [
+        _Band(
+            isotopologue=b.isotopologue,
+            v_upper=v_upper,
+            v_lower=v_lower,
+            method="library",
+            m=b.m,
+            position=b.position,
+            sigma=np.zeros(b.m.size),
+            weight=b.weight,
+            library_centrifugal=b.centrifugal,
+            weights_source=(library, temperature_K, predictions.scale),
         )
-    if not bands:
-        return bands
-    strongest = max(float(b.weight.max()) for b in bands)
-    for b in bands:
-        b.weight = b.weight / strongest
-        b.weights_source = (library, temperature_K, strongest)
-    return bands
+        for b in predictions.bands
+    ]
 
 
 def _match_count(peaks: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarray:
-    """Bool per target: a peak lies within tol of it."""
+    """Bool per target: a peak lies within tol of it (`peaks` ascending)."""
     if peaks.size == 0:
         return np.zeros(targets.shape, dtype=bool)
-    idx = np.clip(np.searchsorted(peaks, targets), 1, peaks.size - 1)
-    nearest = np.minimum(np.abs(peaks[idx] - targets), np.abs(peaks[idx - 1] - targets))
     if peaks.size == 1:
-        nearest = np.abs(peaks[0] - targets)
+        return np.abs(peaks[0] - targets) <= tol
+    idx = peaks.searchsorted(targets)
+    np.clip(idx, 1, peaks.size - 1, out=idx)
+    nearest = np.abs(peaks[idx] - targets)
+    np.minimum(nearest, np.abs(peaks[idx - 1] - targets), out=nearest)
     return nearest <= tol
 
 
-def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: float, first: float, last: float) -> tuple[float, float]:
+@functools.lru_cache(maxsize=64)
+def _shift_grid(max_shift: float, step: float) -> np.ndarray:
+    """-max_shift..+max_shift in `step`s (cached, read-only)."""
+    return _read_only(np.arange(-max_shift, max_shift + step / 2, step))
+
+
+def _best_shift(peaks: np.ndarray, predictions: _PredictionSet, tol: float, max_shift: float, first: float, last: float) -> tuple[float, float]:
     """Common shift maximising matched minus missed predicted intensity; (shift, score).
 
     A predicted line that lands inside the measured range on no peak counts against its
     shift: this is what tells the true numbering from one shifted by a whole line spacing
     (the alias puts a line into the empty band-centre gap)."""
-    positions = np.concatenate([b.position for b in bands])
-    weights = np.concatenate([b.weight for b in bands])
-    keep = weights >= 0.02
-    positions, weights = positions[keep], weights[keep]
+    positions, weights = predictions.search_position, predictions.search_weight
     if positions.size == 0:
         return 0.0, 0.0
     def scores_at(shifts: np.ndarray, tolerance: float) -> np.ndarray:
         targets = positions[None, :] + shifts[:, None]
         matched = _match_count(peaks, targets.ravel(), tolerance).reshape(targets.shape)
-        inside = (targets >= first) & (targets <= last)
-        return matched @ weights - (inside & ~matched) @ weights
+        missed = targets >= first
+        missed &= targets <= last
+        missed &= ~matched
+        return matched @ weights - missed @ weights
 
     if tol < COARSE_SHIFT_TOLERANCE:
         # a coarse search first (a fine step over +-5 cm-1 is slow), then a fine one around
         # its three best shifts
-        coarse = np.arange(-max_shift, max_shift + COARSE_SHIFT_TOLERANCE / 4, COARSE_SHIFT_TOLERANCE / 2)
+        coarse = _shift_grid(max_shift, COARSE_SHIFT_TOLERANCE / 2)
         rough = scores_at(coarse, COARSE_SHIFT_TOLERANCE)
         centres = coarse[np.lexsort((np.abs(coarse), -rough))[:3]]
-        shifts = np.unique(np.concatenate([c + np.arange(-COARSE_SHIFT_TOLERANCE, COARSE_SHIFT_TOLERANCE + tol / 4, tol / 2) for c in centres]))
+        around = _shift_grid(COARSE_SHIFT_TOLERANCE, tol / 2)
+        shifts = np.unique(np.concatenate([c + around for c in centres]))
     else:
-        shifts = np.arange(-max_shift, max_shift + tol / 4, tol / 2)
+        shifts = _shift_grid(max_shift, tol / 2)
     scores = scores_at(shifts, tol)
     # prefer the smallest shift among equal scores
     best = int(np.lexsort((np.abs(shifts), -scores))[0])
-    return float(shifts[best]), float(scores[best] / weights.sum())
+    return float(shifts[best]), float(scores[best] / predictions.search_total)
+
+
+def _may_be_present(peaks: np.ndarray, predictions: _PredictionSet, tol: float, max_shift: float) -> bool:
+    """False when no band of the set can pass `_band_is_present` at any shift the search may
+    choose: that needs MIN_BAND_LINES of a band's strong lines on peaks within `tol` of one
+    common shift, so MIN_BAND_LINES (line, peak) pairs whose separations lie within 2 tol of
+    one another. Counting pairs is cheap; most of a library's bands fail here, and their shift
+    search (the costly part) is skipped with the same outcome."""
+    # every shift searched lies within max_shift + the fine search's reach around a coarse one
+    reach = max_shift + COARSE_SHIFT_TOLERANCE + 2.0 * tol + 1.0
+    window = 2.0 * tol + 1e-6  # with a margin far above rounding at a few thousand cm-1
+    for band in predictions.bands:
+        strong = band.position[band.weight >= 0.05]
+        if strong.size < MIN_BAND_LINES:
+            continue
+        low = peaks.searchsorted(strong - reach)
+        counts = peaks.searchsorted(strong + reach, side="right") - low
+        total = int(counts.sum())
+        if total < MIN_BAND_LINES:
+            continue
+        line = np.repeat(np.arange(strong.size), counts)
+        peak = np.arange(total) - np.repeat(np.cumsum(counts) - counts - low, counts)
+        separations = np.sort(peaks[peak] - strong[line])
+        together = separations.searchsorted(separations + window, side="right") - np.arange(total)
+        if int(together.max()) >= MIN_BAND_LINES:
+            return True
+    return False
 
 
 def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, first: float, last: float) -> bool:
@@ -896,22 +982,24 @@ def _assign_at(
     tol0 = float(np.clip(0.5 * width, LIBRARY_LINE_ACCURACY_CM1, 1.0)) if width else 0.3
 
     molecules = _candidate_molecules(library, settings.species, notes)
+    usable_peaks = peaks[usable]
     bands: list[_Band] = []
     shifts: dict[str, float] = {}
     J_caps: dict[tuple[str, int, int], int] = {}
     for molecule in molecules:
         for v_upper, v_lower in settings.bands:
-            predicted = _library_predictions(library, molecule, v_upper, v_lower, settings.temperature_K, first_cm1, last_cm1)
-            if not predicted:
+            prediction_set = _prediction_set(library, molecule, v_upper, v_lower, settings.temperature_K, first_cm1, last_cm1)
+            if prediction_set is None or not _may_be_present(usable_peaks, prediction_set, tol0, settings.max_shift_cm1):
                 continue
-            shift, _score = _best_shift(peaks[usable], predicted, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
-            present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, first_cm1, last_cm1)]
+            predicted = _library_predictions(prediction_set, library, v_upper, v_lower, settings.temperature_K)
+            shift, _score = _best_shift(usable_peaks, prediction_set, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
+            present = [b for b in predicted if _band_is_present(usable_peaks, b, shift, tol0, first_cm1, last_cm1)]
             if not present:
                 continue
             shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
             # minor isotopologues ride on the molecule's shift even when weak
             riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.001]
-            _merge_unresolved_partners(riding, width, peaks[usable], shift, notes)
+            _merge_unresolved_partners(riding, width, usable_peaks, shift, notes)
             for band in riding:
                 if band.m.size:
                     band.position = band.position + shift
