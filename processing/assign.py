@@ -27,7 +27,7 @@ import bisect
 import functools
 import math
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING, Callable
+from typing import TYPE_CHECKING, Callable, NamedTuple
 
 import numpy as np
 
@@ -367,32 +367,45 @@ def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, f
 
 
 # ------------------------------------------------------------------------------- matching
-@dataclass(frozen=True)
-class _Claim:
+class _Claim(NamedTuple):
     band: int
     line: int
     m: int
     distance: float  # |obs - pred| / tol
+    weight: float  # the band line's predicted relative intensity when claimed
 
 
 def _claims(
     peaks: np.ndarray, usable: np.ndarray, bands: list[_Band], tolerances: list[np.ndarray], refused: set[tuple[int, int]] = frozenset()
 ) -> list[_Claim]:
     """Every (band line, measured line) pair within tolerance, except the `refused` (band,
-    line) pairs."""
+    line) pairs; by band, then band line, then measured line (the lower one first)."""
     claims: list[_Claim] = []
+    if peaks.size == 0:
+        return claims
     for bi, (band, tol) in enumerate(zip(bands, tolerances)):
-        if peaks.size == 0:
-            break
         targets = band.matched_position
         idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
-        for k, (target, t) in enumerate(zip(targets, tol)):
-            for j in (idx[k] - 1, idx[k]):
-                if 0 <= j < peaks.size and usable[j] and (bi, int(j)) not in refused:
-                    d = abs(peaks[j] - target) / t
-                    if d <= 1.0:
-                        claims.append(_Claim(bi, int(j), int(band.m[k]), d))
+        # the measured lines either side of each prediction: (band line, side)
+        candidates = np.stack([idx - 1, idx], axis=1)
+        inside = candidates < peaks.size
+        candidates[~inside] = 0
+        distance = np.abs(peaks[candidates] - targets[:, None]) / tol[:, None]
+        keep = inside & usable[candidates] & (distance <= 1.0)
+        for refused_band, refused_line in refused:
+            if refused_band == bi:
+                keep &= candidates != refused_line
+        k, side = np.nonzero(keep)
+        claims.extend(
+            _Claim(bi, j, m, d, w)
+            for j, m, d, w in zip(candidates[k, side].tolist(), band.m[k].tolist(), distance[k, side].tolist(), band.weight[k].tolist())
+        )
     return claims
+
+
+def _claim_order(claim: _Claim) -> tuple[float, float]:
+    """Closest in tolerance units first, then the strongest."""
+    return (claim.distance, -claim.weight)
 
 
 def _resolve(claims: list[_Claim], bands: list[_Band]) -> tuple[dict[int, _Claim], set[int]]:
@@ -401,18 +414,16 @@ def _resolve(claims: list[_Claim], bands: list[_Band]) -> tuple[dict[int, _Claim
     by_line: dict[int, list[_Claim]] = {}
     for claim in claims:
         by_line.setdefault(claim.line, []).append(claim)
-    weight_of = {}
-    for bi, band in enumerate(bands):
-        for m, w in zip(band.m, band.weight):
-            weight_of[(bi, int(m))] = float(w)
     winners: dict[int, _Claim] = {}
     blended: set[int] = set()
     for line, options in by_line.items():
-        options.sort(key=lambda c: (c.distance, -weight_of.get((c.band, c.m), 0.0)))
+        if len(options) > 1:
+            options.sort(key=_claim_order)
+            best = options[0]
+            isotopologue = bands[best.band].isotopologue
+            if any(c.weight > 0.05 * best.weight for c in options[1:] if bands[c.band].isotopologue != isotopologue):
+                blended.add(line)
         winners[line] = options[0]
-        others = [c for c in options[1:] if bands[c.band].isotopologue != bands[options[0].band].isotopologue]
-        if any(weight_of.get((c.band, c.m), 0.0) > 0.05 * weight_of.get((options[0].band, options[0].m), 1.0) for c in others):
-            blended.add(line)
     # a band line claimed by two measured lines keeps the closer one
     by_band_line: dict[tuple[int, int], _Claim] = {}
     for claim in winners.values():
@@ -505,27 +516,49 @@ def _drop_undetectable(bands: list[_Band], winners: dict[int, _Claim], lines: Li
     lines reach the detection threshold at the intensity scale the assigned lines of that
     vibrational band show, or under half of those were found. Returns the band indices to
     drop."""
-    scale_of: dict[tuple[int, int], float] = {}
+    weight_of: dict[int, dict[int, float]] = {}
+    found: dict[int, int] = {}
+    snr = lines.snr.tolist()
+    scale_of: dict[tuple[int, int], list[float]] = {}
     for claim in winners.values():
+        found[claim.band] = found.get(claim.band, 0) + 1
         band = bands[claim.band]
-        w = float(band.weight[band.m == claim.m][0]) if np.any(band.m == claim.m) else 0.0
-        if w > 0.05 and np.isfinite(lines.snr[claim.line]):
-            key = (band.v_upper, band.v_lower)
-            scale_of.setdefault(key, [])  # type: ignore[arg-type]
-            scale_of[key].append(lines.snr[claim.line] / w)  # type: ignore[union-attr]
+        if claim.band not in weight_of:
+            weight_of[claim.band] = dict(zip(band.m.tolist(), band.weight.tolist()))
+        w = weight_of[claim.band].get(claim.m, 0.0)
+        if w > 0.05 and math.isfinite(snr[claim.line]):
+            scale_of.setdefault((band.v_upper, band.v_lower), []).append(snr[claim.line] / w)
+    # optically thick lines fall short of their weight, thin ones do not: the upper quartile
+    # of SNR per unit weight is the scale a thin (weak) band's lines reach
+    snr_per_weight = {key: _percentile(sorted(scales), 75) for key, scales in scale_of.items()}
     drop: set[int] = set()
     for bi, band in enumerate(bands):
-        scales = scale_of.get((band.v_upper, band.v_lower))
-        if not scales:
+        scale = snr_per_weight.get((band.v_upper, band.v_lower))
+        if scale is None:
             continue
-        # optically thick lines fall short of their weight, thin ones do not: the upper
-        # quartile of SNR per unit weight is the scale a thin (weak) band's lines reach
-        snr_per_weight = float(np.percentile(scales, 75))  # type: ignore[arg-type]
-        detectable = int(np.sum(band.weight * snr_per_weight >= threshold_sigma))
-        found = sum(1 for c in winners.values() if c.band == bi)
-        if detectable < MIN_BAND_LINES or found < 0.5 * detectable:
+        detectable = int(np.count_nonzero(band.weight * scale >= threshold_sigma))
+        if detectable < MIN_BAND_LINES or found.get(bi, 0) < 0.5 * detectable:
             drop.add(bi)
     return drop
+
+
+def _percentile(ordered: list[float], q: float) -> float:
+    """`numpy.percentile(values, q)` (linear interpolation) of finite values already sorted,
+    computed the same way to the last bit, without numpy's overhead on a few numbers."""
+    virtual = (len(ordered) - 1) * (q / 100)
+    if virtual >= len(ordered) - 1:
+        return ordered[-1]
+    below = math.floor(virtual)
+    gamma = virtual - below
+    a, b = ordered[below], ordered[below + 1]
+    difference = b - a
+    return b - difference * (1 - gamma) if gamma >= 0.5 else a + difference * gamma
+
+
+def _median(ordered: list[float]) -> float:
+    """`numpy.median` of finite values already sorted (the same arithmetic)."""
+    half = len(ordered) // 2
+    return ordered[half] if len(ordered) % 2 else (ordered[half - 1] + ordered[half]) / 2
 
 
 def _tolerances(bands: list[_Band], lines: LineTable, tol0: float) -> list[np.ndarray]:
@@ -578,13 +611,10 @@ INTENSITY_OUTLIER_FACTOR = 5.0
 INTENSITY_ALLOWANCE_SIGMA = 3.0
 
 
-def _band_weight(band: _Band, m: int) -> float:
-    """Predicted relative intensity of a band line, its blended partner's included."""
-    weight = band.all_weights.get(m)
-    if weight is None:
-        index = np.flatnonzero(band.m == m)
-        weight = float(band.weight[index[0]]) if index.size else 0.0
-    partner = band.partner.get(m)
+def _band_weight(band: _Band, claim: _Claim) -> float:
+    """Predicted relative intensity of a claimed band line, its blended partner's included."""
+    weight = band.all_weights.get(claim.m, claim.weight)
+    partner = band.partner.get(claim.m)
     return weight * (1.0 + partner[1]) if partner else weight
 
 
@@ -593,19 +623,18 @@ def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], lines: LineTab
     line's predicted relative intensity times the band's SNR per unit intensity for thin lines,
     the upper quartile over the weaker half of its measured lines (optically thick lines fall
     short of their intensity; a band's weaker lines are its thinnest)."""
+    snr = lines.snr.tolist()
     per_band: dict[int, list[tuple[int, float]]] = {}
     for line, claim in winners.items():
-        per_band.setdefault(claim.band, []).append((line, _band_weight(bands[claim.band], claim.m)))
+        per_band.setdefault(claim.band, []).append((line, _band_weight(bands[claim.band], claim)))
     expected: dict[int, float] = {}
-    for bi, members in per_band.items():
-        weights = np.array([w for _, w in members])
-        snr = np.array([lines.snr[line] for line, _ in members])
-        measured = np.isfinite(snr) & (weights > 0) & (snr >= 10.0)
-        if measured.sum() < 4:
+    for members in per_band.values():
+        measured = [(w, snr[line]) for line, w in members if math.isfinite(snr[line]) and w > 0 and snr[line] >= 10.0]
+        if len(measured) < 4:
             continue
-        weaker = measured & (weights <= np.median(weights[measured]))
-        scale = float(np.percentile(snr[weaker] / weights[weaker], 75))
-        for (line, _), w in zip(members, weights):
+        middle = _median(sorted(w for w, _ in measured))
+        scale = _percentile(sorted(s / w for w, s in measured if w <= middle), 75)
+        for line, w in members:
             expected[line] = w * scale
     return expected
 
@@ -645,8 +674,11 @@ def _refine(
         if state == previous:
             break
         previous = state
+        claims_of: dict[int, list[_Claim]] = {}
+        for claim in winners.values():
+            claims_of.setdefault(claim.band, []).append(claim)
         for bi, band in enumerate(bands):
-            mine = [c for c in winners.values() if c.band == bi]
+            mine = claims_of.get(bi, [])
             members = frozenset((c.line, c.m) for c in mine)
             if members_before.get(bi) == members:
                 continue  # same lines as last pass: the fit would not change
