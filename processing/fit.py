@@ -12,6 +12,7 @@ with F(J) = B x - D x^2, fitted for B (and D when significant).
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -114,27 +115,86 @@ NOTHING_HELD = (0.0, 0.0, 0.0, 0.0)
 def held_centrifugal(x_up: np.ndarray, x_low: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
     """The held centrifugal terms' part of the line positions:
     -D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3."""
-    d_upper, d_lower, h_upper, h_lower = held
-    return -d_upper * x_up**2 + d_lower * x_low**2 + h_upper * x_up**3 - h_lower * x_low**3
+    return _BandColumns(x_up, x_low).held(held)
+
+
+class _BandColumns:
+    """The band model's design columns for one set of lines, each computed once: a band fit
+    tries several models (D, H separate, common, held) on the same lines."""
+
+    def __init__(self, x_up: np.ndarray, x_low: np.ndarray) -> None:
+        self.x_up = x_up
+        self.x_low = x_low
+
+    @functools.cached_property
+    def up2(self) -> np.ndarray:
+        return self.x_up**2
+
+    @functools.cached_property
+    def low2(self) -> np.ndarray:
+        return self.x_low**2
+
+    @functools.cached_property
+    def up3(self) -> np.ndarray:
+        return self.x_up**3
+
+    @functools.cached_property
+    def low3(self) -> np.ndarray:
+        return self.x_low**3
+
+    def held(self, held: tuple[float, float, float, float]) -> np.ndarray:
+        """-D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3 of the held values."""
+        d_upper, d_lower, h_upper, h_lower = held
+        return -d_upper * self.up2 + d_lower * self.low2 + h_upper * self.up3 - h_lower * self.low3
+
+    def minus_held(self, values: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
+        """values less the held terms (values themselves when nothing is held: the same numbers)."""
+        return values if held == NOTHING_HELD else values - self.held(held)
+
+    def plus_held(self, values: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
+        """values plus the held terms (a copy when nothing is held)."""
+        return values.copy() if held == NOTHING_HELD else values + self.held(held)
+
+    @functools.cached_property
+    def _columns(self) -> dict[str, np.ndarray]:
+        return {"ones": np.ones_like(self.x_up), "x_up": self.x_up, "-x_low": -self.x_low}
+
+    def _column(self, name: str) -> np.ndarray:
+        columns = self._columns
+        if name not in columns:
+            columns[name] = {
+                "-up2": lambda: -self.up2,
+                "low2": lambda: self.low2,
+                "D": lambda: -self.up2 + self.low2,
+                "up3": lambda: self.up3,
+                "-low3": lambda: -self.low3,
+                "H": lambda: self.up3 - self.low3,
+            }[name]()
+        return columns[name]
+
+    def design(self, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
+        columns = ["ones", "x_up", "-x_low"]
+        names: list[str] = ["origin", "B_upper", "B_lower"]
+        if model == "separate D":
+            columns += ["-up2", "low2"]
+            names += ["D_upper", "D_lower"]
+        elif model in ("common D", D_DIFFERENCE_HELD):
+            columns += ["D"]
+            names += ["D"]
+        if h_model == "separate H":
+            columns += ["up3", "-low3"]
+            names += ["H_upper", "H_lower"]
+        elif h_model in ("common H", H_DIFFERENCE_HELD):
+            columns += ["H"]
+            names += ["H"]
+        design = np.empty((self.x_up.size, len(columns)))
+        for i, name in enumerate(columns):
+            design[:, i] = self._column(name)
+        return design, tuple(names)
 
 
 def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
-    ones = np.ones_like(x_up)
-    columns = [ones, x_up, -x_low]
-    names: list[str] = ["origin", "B_upper", "B_lower"]
-    if model == "separate D":
-        columns += [-(x_up**2), x_low**2]
-        names += ["D_upper", "D_lower"]
-    elif model in ("common D", D_DIFFERENCE_HELD):
-        columns += [-(x_up**2) + x_low**2]
-        names += ["D"]
-    if h_model == "separate H":
-        columns += [x_up**3, -(x_low**3)]
-        names += ["H_upper", "H_lower"]
-    elif h_model in ("common H", H_DIFFERENCE_HELD):
-        columns += [x_up**3 - x_low**3]
-        names += ["H"]
-    return np.column_stack(columns), tuple(names)
+    return _BandColumns(x_up, x_low).design(model, h_model)
 
 
 def _threshold(name: str) -> float:
@@ -158,8 +218,7 @@ _SIZES = {"separate D": 2, "common D": 1, "no D": 0, D_DIFFERENCE_HELD: 1, D_HEL
 
 
 def _choose_band_fit(
-    x_up: np.ndarray,
-    x_low: np.ndarray,
+    columns: _BandColumns,
     observed: np.ndarray,
     sigma: np.ndarray,
     sigma_known: bool,
@@ -176,9 +235,8 @@ def _choose_band_fit(
     def attempt(d_model: str, h_model: str, held: tuple[float, float, float, float] = NOTHING_HELD) -> LinearFit | None:
         if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
             return None
-        design, names = _band_design(x_up, x_low, d_model, h_model)
-        target = observed - held_centrifugal(x_up, x_low, held)
-        return weighted_least_squares(design, target, sigma, names, sigma_known=sigma_known)
+        design, names = columns.design(d_model, h_model)
+        return weighted_least_squares(design, columns.minus_held(observed, held), sigma, names, sigma_known=sigma_known)
 
     h_model, h_held = "no H", (0.0, 0.0)
     trial = attempt("separate D", "separate H") if sextic else None
@@ -209,7 +267,7 @@ def _choose_band_fit(
     trial = attempt("common D", h_model)
     if trial is not None and (_significant(trial, "D") or h_model != "no H"):  # H needs a D beside it
         return trial, "common D", h_model, NOTHING_HELD
-    design, names = _band_design(x_up, x_low, "no D")
+    design, names = columns.design("no D")
     return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H", NOTHING_HELD
 
 
@@ -242,7 +300,8 @@ def fit_band(
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
     x_low = _x(J_lower)
     x_up = _x(upper_J(branch, J_lower))
-    fit, model, h_model, held = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic, library_centrifugal)
+    columns = _BandColumns(x_up, x_low)
+    fit, model, h_model, held = _choose_band_fit(columns, observed, sigma, sigma_known, sextic, library_centrifugal)
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
@@ -290,7 +349,7 @@ def fit_band(
         J_lower=J_lower,
         branch=branch,
         observed=observed,
-        calc=fit.calc + held_centrifugal(x_up, x_low, held),
+        calc=columns.plus_held(fit.calc, held),
         used=fit.used,
         H_upper=H_upper,
         H_lower=H_lower,
@@ -306,21 +365,27 @@ def fit_band(
 def combination_difference_pairs(
     state: str, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(J, difference, sigma) of every available pair. J is that of the state concerned:
+    """(J, difference, sigma) of every available pair, by J. J is that of the state concerned:
     lower: Delta2F''(J) = R(J-1) - P(J+1);  upper: Delta2F'(J) = R(J) - P(J)."""
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    observed = np.asarray(observed, dtype=np.float64)
+    sigma = np.asarray(sigma, dtype=np.float64)
+    if J_lower.size == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0), np.zeros(0)
     is_r = np.asarray(branch) == R_BRANCH
-    r_pos = {int(j): (float(o), float(s)) for j, o, s in zip(J_lower[is_r], observed[is_r], sigma[is_r])}
-    p_pos = {int(j): (float(o), float(s)) for j, o, s in zip(J_lower[~is_r], observed[~is_r], sigma[~is_r])}
-    J_values, differences, sigmas = [], [], []
-    candidates = sorted(set(r_pos) | set(p_pos))
-    for J in range(0, (max(candidates) if candidates else 0) + 2):
-        r_J, p_J = (J - 1, J + 1) if state == "lower" else (J, J)
-        if r_J in r_pos and p_J in p_pos and J >= 1:
-            (r_obs, r_sig), (p_obs, p_sig) = r_pos[r_J], p_pos[p_J]
-            J_values.append(J)
-            differences.append(r_obs - p_obs)
-            sigmas.append(float(np.hypot(r_sig, p_sig)))
-    return np.array(J_values, dtype=np.int64), np.array(differences), np.array(sigmas)
+    size = int(J_lower.max()) + 3
+    # each branch's lines by J'' (one line per J'' and branch in a band)
+    have_r, have_p = np.zeros(size, dtype=bool), np.zeros(size, dtype=bool)
+    r_obs, p_obs, r_sig, p_sig = np.zeros(size), np.zeros(size), np.zeros(size), np.zeros(size)
+    have_r[J_lower[is_r]] = True
+    r_obs[J_lower[is_r]], r_sig[J_lower[is_r]] = observed[is_r], sigma[is_r]
+    have_p[J_lower[~is_r]] = True
+    p_obs[J_lower[~is_r]], p_sig[J_lower[~is_r]] = observed[~is_r], sigma[~is_r]
+    J = np.arange(1, size - 1)
+    r_J, p_J = (J - 1, J + 1) if state == "lower" else (J, J)
+    pair = have_r[r_J] & have_p[p_J]
+    J, r_J, p_J = J[pair], r_J[pair], p_J[pair]
+    return J, r_obs[r_J] - p_obs[p_J], np.hypot(r_sig[r_J], p_sig[p_J])
 
 
 def fit_combination_differences(

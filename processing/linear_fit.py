@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -71,8 +72,7 @@ class LinearFit:
         return float(self.sigmas[self.names.index(name)])
 
 
-@dataclass(frozen=True)
-class _Solution:
+class _Solution(NamedTuple):
     """One SVD solution of the weighted, column-scaled problem (see `_solve`)."""
 
     params: np.ndarray
@@ -87,7 +87,7 @@ class _Solution:
 
     def covariance(self) -> np.ndarray:
         """Unscaled covariance (A^T W A)^-1."""
-        return (self.v_inverse @ self.v_inverse.T) / np.outer(self.scale, self.scale)
+        return (self.v_inverse @ self.v_inverse.T) / (self.scale[:, None] * self.scale[None, :])
 
 
 def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
@@ -99,9 +99,9 @@ def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
     scale = np.sqrt(np.einsum("ij,ij->j", a, a))
     scale[scale == 0] = 1.0
     u, singular, vt = np.linalg.svd(a / scale, full_matrices=False)
-    keep = singular > 1e-12 * singular[0] if singular.size else singular.astype(bool)
     inverse = np.zeros_like(singular)
-    inverse[keep] = 1.0 / singular[keep]
+    if singular.size:
+        np.divide(1.0, singular, out=inverse, where=singular > 1e-12 * singular[0])
     v_inverse = vt.T * inverse
     params = (v_inverse @ (u.T @ (sqrt_w * y))) / scale
     return _Solution(params, u, v_inverse, sqrt_w, scale)
