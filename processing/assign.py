@@ -131,7 +131,10 @@ class _Band:
         return _all_weights(library, self.isotopologue, self.v_upper, self.v_lower, temperature_K, scale)
 
     def pull_of(self, m: np.ndarray) -> np.ndarray:
-        return np.array([self.pull.get(int(k), 0.0) for k in np.atleast_1d(m)])
+        m = np.atleast_1d(m)
+        if not self.pull:
+            return np.zeros(m.shape)
+        return np.array([self.pull.get(k, 0.0) for k in m.tolist()])
 
     @property
     def matched_position(self) -> np.ndarray:
@@ -561,8 +564,9 @@ def _median(ordered: list[float]) -> float:
     return ordered[half] if len(ordered) % 2 else (ordered[half - 1] + ordered[half]) / 2
 
 
-def _tolerances(bands: list[_Band], lines: LineTable, tol0: float) -> list[np.ndarray]:
-    line_sigma = float(np.median(lines.position_sigma_cm1)) if lines.count else 0.0
+def _tolerances(bands: list[_Band], line_sigma: float, tol0: float) -> list[np.ndarray]:
+    """Each band line's matching tolerance: `tol0` before the band is fitted, then five times
+    the spread of prediction, line position (`line_sigma`, the typical one) and fit."""
     out = []
     for band in bands:
         if band.fit is None:
@@ -593,16 +597,24 @@ def _extend_predictions(band: _Band, J_cap: int) -> None:
     """After a fit, predict every line up to J'' = J_cap from the fitted constants (lines
     merged into a stronger partner's blend stay out)."""
     assert band.fit is not None
-    m = np.concatenate([np.arange(-J_cap, 0), np.arange(1, J_cap + 2)])
-    if band.dropped:
-        m = m[~np.isin(m, list(band.dropped))]
-    branch, J_lower = branch_from_m(m)
+    m, branch, J_lower = _band_lines_to(J_cap, frozenset(band.dropped))
     position, sigma = band.fit.predict(branch, J_lower)
     old_weight = dict(zip(band.m.tolist(), band.weight.tolist()))
+    all_weights = band.all_weights
     band.m = m
     band.position = position
     band.sigma = sigma
-    band.weight = np.array([band.all_weights.get(int(k), old_weight.get(int(k), 1e-8)) for k in m])
+    band.weight = np.array([all_weights.get(k, old_weight.get(k, 1e-8)) for k in m.tolist()])
+
+
+@functools.lru_cache(maxsize=256)
+def _band_lines_to(J_cap: int, dropped: frozenset[int]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(m, branch, J'') of every line to J'' = J_cap but the `dropped` m (cached, read-only)."""
+    m = np.concatenate([np.arange(-J_cap, 0), np.arange(1, J_cap + 2)])
+    if dropped:
+        m = m[~np.isin(m, list(dropped))]
+    branch, J_lower = branch_from_m(m)
+    return _read_only(m), _read_only(branch), _read_only(J_lower)
 
 
 # A line more than this many times as tall as its band's own intensity pattern predicts (plus
@@ -662,8 +674,9 @@ def _refine(
     blended: set[int] = set()
     refused: dict[tuple[int, int], float] = {}
     members_before: dict[int, frozenset[tuple[int, int]]] = {}
+    line_sigma = float(np.median(lines.position_sigma_cm1)) if lines.count else 0.0
     for _ in range(8):
-        claims = _claims(peaks, usable, bands, _tolerances(bands, lines, tol0), set(refused))
+        claims = _claims(peaks, usable, bands, _tolerances(bands, line_sigma, tol0), set(refused))
         winners, blended = _resolve(claims, bands)
         if np.all(np.isfinite(lines.snr)):
             for line, ratio in _intensity_outliers(bands, winners, lines).items():
@@ -1145,31 +1158,35 @@ def _finish(
             continue
         fits.append(fit)
         spread = np.sqrt(fit.rms**2 + lines.position_sigma_cm1[idx] ** 2)
-        for k, line in enumerate(members):
-            residual = float(fit.residuals[k])
-            confidence = float(np.exp(-0.5 * (residual / max(3.0 * spread[k], 1e-9)) ** 2))
-            merged = bool(abs(pull[k]) > 0)
+        residuals = fit.residuals
+        agreement = np.exp(-0.5 * (residuals / np.maximum(3.0 * spread, 1e-9)) ** 2)
+        calc = fit.calc + pull
+        for line, residual, confidence, saturated, used, branch_k, J_k, calc_k, pull_k in zip(
+            members, residuals.tolist(), agreement.tolist(), lines.saturated[idx].tolist(), fit.used.tolist(),
+            branch.tolist(), J_lower.tolist(), calc.tolist(), pull.tolist(),
+        ):
+            merged = abs(pull_k) > 0
             if line in blended or merged:
                 confidence *= 0.5
-            if lines.saturated[line]:
+            if saturated:
                 confidence *= 0.8
             if band.method == "pattern":
                 confidence *= 0.8
-            if not fit.used[k]:
+            if not used:
                 confidence *= 0.3
             per_line[line] = LineAssignment(
                 isotopologue=band.isotopologue,
                 v_upper=band.v_upper,
                 v_lower=band.v_lower,
-                branch=str(branch[k]),
-                J_lower=int(J_lower[k]),
-                calc=float(fit.calc[k] + pull[k]),
+                branch=branch_k,
+                J_lower=J_k,
+                calc=calc_k,
                 residual=residual,
                 confidence=round(confidence, 3),
                 method=band.method,
                 blended=line in blended or merged,
-                used_in_fit=bool(fit.used[k]),
-                blend_pull=float(pull[k]),
+                used_in_fit=used,
+                blend_pull=pull_k,
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
     causes = tuple(

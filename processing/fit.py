@@ -68,14 +68,16 @@ class BandFit:
         branch = np.asarray(branch)
         J_lower = np.asarray(J_lower, dtype=np.int64)
         x_up, x_low = _x(upper_J(branch, J_lower)), _x(J_lower)
-        design, names = _band_design(x_up, x_low, self.d_model, self.h_model)
-        values = np.array([self._parameter(name) for name in names])
-        positions = design @ values + held_centrifugal(x_up, x_low, self.held)
+        columns = _BandColumns(x_up, x_low)
+        design, names = columns.design(self.d_model, self.h_model)
+        values = self._parameter_values(names)
+        positions = design @ values + columns.held(self.held)
         variance = np.einsum("ij,jk,ik->i", design, self.covariance, design)
         return positions, np.sqrt(np.clip(variance, 0.0, None))
 
-    def _parameter(self, name: str) -> float:
-        estimate = {
+    def _parameter_values(self, names: tuple[str, ...]) -> np.ndarray:
+        """The fitted values behind the design columns' names."""
+        estimates = {
             "origin": self.origin,
             "B_upper": self.B_upper,
             "B_lower": self.B_lower,
@@ -85,9 +87,13 @@ class BandFit:
             "H_upper": self.H_upper,
             "H_lower": self.H_lower,
             "H": self.H_upper,
-        }[name]
-        assert estimate is not None
-        return estimate.value
+        }
+        values = []
+        for name in names:
+            estimate = estimates[name]
+            assert estimate is not None
+            values.append(estimate.value)
+        return np.array(values)
 
     @property
     def label(self) -> str:
@@ -231,12 +237,19 @@ def _choose_band_fit(
     between upper and lower state, or both), never at zero; without it (an unidentified band)
     a term not determined is left out."""
     n = observed.size
+    tried: dict[tuple[str, str, tuple[float, float, float, float]], LinearFit | None] = {}
 
     def attempt(d_model: str, h_model: str, held: tuple[float, float, float, float] = NOTHING_HELD) -> LinearFit | None:
-        if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
-            return None
-        design, names = columns.design(d_model, h_model)
-        return weighted_least_squares(design, columns.minus_held(observed, held), sigma, names, sigma_known=sigma_known)
+        """One model's fit (each model fitted once: the H choice's trial is often the D
+        choice's first)."""
+        key = (d_model, h_model, held)
+        if key not in tried:
+            if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
+                tried[key] = None
+            else:
+                design, names = columns.design(d_model, h_model)
+                tried[key] = weighted_least_squares(design, columns.minus_held(observed, held), sigma, names, sigma_known=sigma_known)
+        return tried[key]
 
     h_model, h_held = "no H", (0.0, 0.0)
     trial = attempt("separate D", "separate H") if sextic else None
