@@ -252,6 +252,21 @@ def _prediction_set(library: Library, molecule: str, v_upper: int, v_lower: int,
     return _PredictionSet(bands, strongest, _read_only(positions[keep]), _read_only(search_weight), float(search_weight.sum()))
 
 
+@functools.lru_cache(maxsize=64)
+def _prediction_sets(
+    library: Library, molecules: tuple[str, ...], bands: tuple[tuple[int, int], ...], temperature_K: float, first: float, last: float
+) -> tuple[tuple[str, int, int, _PredictionSet], ...]:
+    """(molecule, v', v'', predictions) of every molecule band with lines near first..last, in
+    the order searched (cached: one look-up per spectrum)."""
+    found = []
+    for molecule in molecules:
+        for v_upper, v_lower in bands:
+            predictions = _prediction_set(library, molecule, v_upper, v_lower, temperature_K, first, last)
+            if predictions is not None:
+                found.append((molecule, v_upper, v_lower, predictions))
+    return tuple(found)
+
+
 def _library_predictions(predictions: _PredictionSet, library: Library, v_upper: int, v_lower: int, temperature_K: float) -> list[_Band]:
     """Fresh bands (they are refined in place) from a cached prediction set."""
     return [
@@ -630,12 +645,12 @@ def _band_weight(band: _Band, claim: _Claim) -> float:
     return weight * (1.0 + partner[1]) if partner else weight
 
 
-def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable) -> dict[int, float]:
+def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], snr: list[float]) -> dict[int, float]:
     """For each claimed line, the signal-to-noise its band's intensity pattern predicts: the
     line's predicted relative intensity times the band's SNR per unit intensity for thin lines,
     the upper quartile over the weaker half of its measured lines (optically thick lines fall
-    short of their intensity; a band's weaker lines are its thinnest)."""
-    snr = lines.snr.tolist()
+    short of their intensity; a band's weaker lines are its thinnest). `snr` is the line
+    table's, by line."""
     per_band: dict[int, list[tuple[int, float]]] = {}
     for line, claim in winners.items():
         per_band.setdefault(claim.band, []).append((line, _band_weight(bands[claim.band], claim)))
@@ -655,9 +670,10 @@ def _intensity_outliers(bands: list[_Band], winners: dict[int, _Claim], lines: L
     """Claimed lines far taller than their band's intensity pattern allows: line -> observed
     over expected signal-to-noise."""
     out: dict[int, float] = {}
-    for line, expected in _expected_snr(bands, winners, lines).items():
-        observed = float(lines.snr[line])
-        if np.isfinite(observed) and observed > INTENSITY_OUTLIER_FACTOR * expected + INTENSITY_ALLOWANCE_SIGMA:
+    snr = lines.snr.tolist()
+    for line, expected in _expected_snr(bands, winners, snr).items():
+        observed = snr[line]
+        if math.isfinite(observed) and observed > INTENSITY_OUTLIER_FACTOR * expected + INTENSITY_ALLOWANCE_SIGMA:
             out[line] = observed / max(expected, 1e-3)
     return out
 
@@ -979,20 +995,22 @@ def rotational_temperature_estimate(lines: LineTable, result: AssignmentResult) 
     rows_of: dict[tuple[str, int, int], list[tuple[float, float, float]]] = {}
     width = lines.typical_width_cm1 if np.isfinite(lines.typical_width_cm1) and lines.typical_width_cm1 > 0 else np.inf
     B_of = {(b.isotopologue, b.v_upper, b.v_lower): b.B_lower.value for b in result.bands if b.rms <= 0.1 * width}
+    saturated, snr = lines.saturated.tolist(), lines.snr.tolist()
+    height, position = lines.height.tolist(), lines.position_cm1.tolist()
     for i, assigned in enumerate(result.per_line):
         key = None if assigned is None else (assigned.isotopologue, assigned.v_upper, assigned.v_lower)
-        if key not in B_of or lines.saturated[i] or lines.snr[i] < 10.0 or assigned.blended:
+        if key not in B_of or saturated[i] or snr[i] < 10.0 or assigned.blended:
             continue
         J = assigned.J_lower
         hoenl_london = J + 1 if assigned.branch == R_BRANCH else J
         if hoenl_london <= 0:
             continue
         energy = B_of[key] * J * (J + 1.0)
-        rows_of.setdefault(key, []).append((energy, math.log(lines.height[i] / (hoenl_london * lines.position_cm1[i])), float(lines.height[i])))
+        rows_of.setdefault(key, []).append((energy, math.log(height[i] / (hoenl_london * position[i])), height[i]))
     usable = {key: rows for key, rows in rows_of.items() if len(rows) >= 8}
     if not usable:
         return None
-    thinnest = min(usable, key=lambda key: float(np.median([r[2] for r in usable[key]])))
+    thinnest = min(usable, key=lambda key: _median(sorted(r[2] for r in usable[key])))
     energy, value, _ = np.array(usable[thinnest]).T
     if np.ptp(energy) <= 0:
         return None
@@ -1031,25 +1049,23 @@ def _assign_at(
     bands: list[_Band] = []
     shifts: dict[str, float] = {}
     J_caps: dict[tuple[str, int, int], int] = {}
-    for molecule in molecules:
-        for v_upper, v_lower in settings.bands:
-            prediction_set = _prediction_set(library, molecule, v_upper, v_lower, settings.temperature_K, first_cm1, last_cm1)
-            if prediction_set is None or not _may_be_present(usable_peaks, prediction_set, tol0, settings.max_shift_cm1):
-                continue
-            predicted = _library_predictions(prediction_set, library, v_upper, v_lower, settings.temperature_K)
-            shift, _score = _best_shift(usable_peaks, prediction_set, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
-            present = [b for b in predicted if _band_is_present(usable_peaks, b, shift, tol0, first_cm1, last_cm1)]
-            if not present:
-                continue
-            shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
-            # minor isotopologues ride on the molecule's shift even when weak
-            riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.001]
-            _merge_unresolved_partners(riding, width, usable_peaks, shift, notes)
-            for band in riding:
-                if band.m.size:
-                    band.position = band.position + shift
-                    J_caps[band.key] = _J_cap(band)
-                    bands.append(band)
+    for molecule, v_upper, v_lower, prediction_set in _prediction_sets(library, tuple(molecules), tuple((u, l) for u, l in settings.bands), settings.temperature_K, first_cm1, last_cm1):
+        if not _may_be_present(usable_peaks, prediction_set, tol0, settings.max_shift_cm1):
+            continue
+        predicted = _library_predictions(prediction_set, library, v_upper, v_lower, settings.temperature_K)
+        shift, _score = _best_shift(usable_peaks, prediction_set, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
+        present = [b for b in predicted if _band_is_present(usable_peaks, b, shift, tol0, first_cm1, last_cm1)]
+        if not present:
+            continue
+        shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
+        # minor isotopologues ride on the molecule's shift even when weak
+        riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.001]
+        _merge_unresolved_partners(riding, width, usable_peaks, shift, notes)
+        for band in riding:
+            if band.m.size:
+                band.position = band.position + shift
+                J_caps[band.key] = _J_cap(band)
+                bands.append(band)
 
     winners, blended, refused = _refine(bands, lines, claimable, tol0, J_caps) if bands else ({}, set(), {})
     if bands and np.all(np.isfinite(lines.snr)):
