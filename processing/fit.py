@@ -12,7 +12,6 @@ with F(J) = B x - D x^2, fitted for B (and D when significant).
 """
 from __future__ import annotations
 
-import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -121,7 +120,7 @@ NOTHING_HELD = (0.0, 0.0, 0.0, 0.0)
 def held_centrifugal(x_up: np.ndarray, x_low: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
     """The held centrifugal terms' part of the line positions:
     -D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3."""
-    return _BandColumns(x_up, x_low).held(held)
+    return _BandColumns(x_up, x_low).held(held).copy()
 
 
 class _BandColumns:
@@ -131,27 +130,21 @@ class _BandColumns:
     def __init__(self, x_up: np.ndarray, x_low: np.ndarray) -> None:
         self.x_up = x_up
         self.x_low = x_low
-
-    @functools.cached_property
-    def up2(self) -> np.ndarray:
-        return self.x_up**2
-
-    @functools.cached_property
-    def low2(self) -> np.ndarray:
-        return self.x_low**2
-
-    @functools.cached_property
-    def up3(self) -> np.ndarray:
-        return self.x_up**3
-
-    @functools.cached_property
-    def low3(self) -> np.ndarray:
-        return self.x_low**3
+        self.up2 = x_up**2
+        self.low2 = x_low**2
+        self.up3 = x_up**3
+        self.low3 = x_low**3
+        self._columns: dict[str, np.ndarray] = {}
+        self._held: dict[tuple[float, float, float, float], np.ndarray] = {}
 
     def held(self, held: tuple[float, float, float, float]) -> np.ndarray:
-        """-D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3 of the held values."""
-        d_upper, d_lower, h_upper, h_lower = held
-        return -d_upper * self.up2 + d_lower * self.low2 + h_upper * self.up3 - h_lower * self.low3
+        """-D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3 of the held values (read-only)."""
+        if held not in self._held:
+            d_upper, d_lower, h_upper, h_lower = held
+            values = -d_upper * self.up2 + d_lower * self.low2 + h_upper * self.up3 - h_lower * self.low3
+            values.flags.writeable = False
+            self._held[held] = values
+        return self._held[held]
 
     def minus_held(self, values: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
         """values less the held terms (values themselves when nothing is held: the same numbers)."""
@@ -161,22 +154,29 @@ class _BandColumns:
         """values plus the held terms (a copy when nothing is held)."""
         return values.copy() if held == NOTHING_HELD else values + self.held(held)
 
-    @functools.cached_property
-    def _columns(self) -> dict[str, np.ndarray]:
-        return {"ones": np.ones_like(self.x_up), "x_up": self.x_up, "-x_low": -self.x_low}
-
     def _column(self, name: str) -> np.ndarray:
-        columns = self._columns
-        if name not in columns:
-            columns[name] = {
-                "-up2": lambda: -self.up2,
-                "low2": lambda: self.low2,
-                "D": lambda: -self.up2 + self.low2,
-                "up3": lambda: self.up3,
-                "-low3": lambda: -self.low3,
-                "H": lambda: self.up3 - self.low3,
-            }[name]()
-        return columns[name]
+        column = self._columns.get(name)
+        if column is None:
+            if name == "ones":
+                column = np.ones_like(self.x_up)
+            elif name == "x_up":
+                column = self.x_up
+            elif name == "-x_low":
+                column = -self.x_low
+            elif name == "-up2":
+                column = -self.up2
+            elif name == "low2":
+                column = self.low2
+            elif name == "D":
+                column = -self.up2 + self.low2
+            elif name == "up3":
+                column = self.up3
+            elif name == "-low3":
+                column = -self.low3
+            else:  # "H"
+                column = self.up3 - self.low3
+            self._columns[name] = column
+        return column
 
     def design(self, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
         columns = ["ones", "x_up", "-x_low"]
