@@ -252,19 +252,44 @@ def _prediction_set(library: Library, molecule: str, v_upper: int, v_lower: int,
     return _PredictionSet(bands, strongest, _read_only(positions[keep]), _read_only(search_weight), float(search_weight.sum()))
 
 
+@dataclass(frozen=True)
+class _SearchPlan:
+    """Every molecule band with library lines near a spectrum's range, in the order searched,
+    with the strong lines (weight >= 0.05) of each band that has at least MIN_BAND_LINES of
+    them, grouped by band, for `_may_be_present` (read-only arrays)."""
+
+    sets: tuple[tuple[str, int, int, _PredictionSet], ...]  # (molecule, v', v'', predictions)
+    strong_position: np.ndarray
+    strong_group: np.ndarray  # the group (band) of each strong line, ascending
+    group_set: np.ndarray  # the index in `sets` of each group
+
+
 @functools.lru_cache(maxsize=64)
-def _prediction_sets(
+def _search_plan(
     library: Library, molecules: tuple[str, ...], bands: tuple[tuple[int, int], ...], temperature_K: float, first: float, last: float
-) -> tuple[tuple[str, int, int, _PredictionSet], ...]:
-    """(molecule, v', v'', predictions) of every molecule band with lines near first..last, in
-    the order searched (cached: one look-up per spectrum)."""
-    found = []
+) -> _SearchPlan:
+    """The search plan of a spectrum range (cached: one look-up per spectrum)."""
+    sets = []
+    positions: list[np.ndarray] = []
+    group_set: list[int] = []
     for molecule in molecules:
         for v_upper, v_lower in bands:
             predictions = _prediction_set(library, molecule, v_upper, v_lower, temperature_K, first, last)
-            if predictions is not None:
-                found.append((molecule, v_upper, v_lower, predictions))
-    return tuple(found)
+            if predictions is None:
+                continue
+            for band in predictions.bands:
+                strong = band.position[band.weight >= 0.05]
+                if strong.size >= MIN_BAND_LINES:
+                    positions.append(strong)
+                    group_set.append(len(sets))
+            sets.append((molecule, v_upper, v_lower, predictions))
+    group = np.repeat(np.arange(len(positions)), [p.size for p in positions]) if positions else np.zeros(0, dtype=np.intp)
+    return _SearchPlan(
+        tuple(sets),
+        _read_only(np.concatenate(positions) if positions else np.zeros(0)),
+        _read_only(group),
+        _read_only(np.array(group_set, dtype=np.intp)),
+    )
 
 
 def _library_predictions(predictions: _PredictionSet, library: Library, v_upper: int, v_lower: int, temperature_K: float) -> list[_Band]:
@@ -338,31 +363,35 @@ def _best_shift(peaks: np.ndarray, predictions: _PredictionSet, tol: float, max_
     return float(shifts[best]), float(scores[best] / predictions.search_total)
 
 
-def _may_be_present(peaks: np.ndarray, predictions: _PredictionSet, tol: float, max_shift: float) -> bool:
-    """False when no band of the set can pass `_band_is_present` at any shift the search may
-    choose: that needs MIN_BAND_LINES of a band's strong lines on peaks within `tol` of one
-    common shift, so MIN_BAND_LINES (line, peak) pairs whose separations lie within 2 tol of
-    one another. Counting pairs is cheap; most of a library's bands fail here, and their shift
-    search (the costly part) is skipped with the same outcome."""
+def _may_be_present(peaks: np.ndarray, plan: _SearchPlan, tol: float, max_shift: float) -> np.ndarray:
+    """Per prediction set of the plan: False when no band of it can pass `_band_is_present` at
+    any shift the search may choose. That needs MIN_BAND_LINES of a band's strong lines on
+    peaks within `tol` of one common shift, so MIN_BAND_LINES (line, peak) pairs whose
+    separations lie within 2 tol of one another. Counting pairs is cheap; most of a library's
+    bands fail here, and their shift search (the costly part) is skipped with the same outcome."""
+    possible = np.zeros(len(plan.sets), dtype=bool)
+    strong = plan.strong_position
+    if strong.size == 0 or peaks.size == 0:
+        return possible
     # every shift searched lies within max_shift + the fine search's reach around a coarse one
     reach = max_shift + COARSE_SHIFT_TOLERANCE + 2.0 * tol + 1.0
     window = 2.0 * tol + 1e-6  # with a margin far above rounding at a few thousand cm-1
-    for band in predictions.bands:
-        strong = band.position[band.weight >= 0.05]
-        if strong.size < MIN_BAND_LINES:
-            continue
-        low = peaks.searchsorted(strong - reach)
-        counts = peaks.searchsorted(strong + reach, side="right") - low
-        total = int(counts.sum())
-        if total < MIN_BAND_LINES:
-            continue
-        line = np.repeat(np.arange(strong.size), counts)
-        peak = np.arange(total) - np.repeat(np.cumsum(counts) - counts - low, counts)
-        separations = np.sort(peaks[peak] - strong[line])
-        together = separations.searchsorted(separations + window, side="right") - np.arange(total)
-        if int(together.max()) >= MIN_BAND_LINES:
-            return True
-    return False
+    low = peaks.searchsorted(strong - reach)
+    counts = peaks.searchsorted(strong + reach, side="right") - low
+    total = int(counts.sum())
+    if total < MIN_BAND_LINES:
+        return possible
+    line = np.repeat(np.arange(strong.size), counts)
+    peak = np.arange(total) - np.repeat(np.cumsum(counts) - counts - low, counts)
+    # separations by band, the bands kept apart by far more than a window (groups ascend with
+    # the lines, and each group's separations lie within +-reach)
+    group = plan.strong_group[line]
+    key = (peaks[peak] - strong[line]) + group * (4.0 * reach + 4.0 * window + 10.0)
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    together = key.searchsorted(key + window, side="right") - np.arange(total)
+    possible[plan.group_set[np.unique(group[order][together >= MIN_BAND_LINES])]] = True
+    return possible
 
 
 def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, first: float, last: float) -> bool:
@@ -1049,8 +1078,10 @@ def _assign_at(
     bands: list[_Band] = []
     shifts: dict[str, float] = {}
     J_caps: dict[tuple[str, int, int], int] = {}
-    for molecule, v_upper, v_lower, prediction_set in _prediction_sets(library, tuple(molecules), tuple((u, l) for u, l in settings.bands), settings.temperature_K, first_cm1, last_cm1):
-        if not _may_be_present(usable_peaks, prediction_set, tol0, settings.max_shift_cm1):
+    plan = _search_plan(library, tuple(molecules), tuple((u, l) for u, l in settings.bands), settings.temperature_K, first_cm1, last_cm1)
+    possible = _may_be_present(usable_peaks, plan, tol0, settings.max_shift_cm1)
+    for (molecule, v_upper, v_lower, prediction_set), may_be_present in zip(plan.sets, possible.tolist()):
+        if not may_be_present:
             continue
         predicted = _library_predictions(prediction_set, library, v_upper, v_lower, settings.temperature_K)
         shift, _score = _best_shift(usable_peaks, prediction_set, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
