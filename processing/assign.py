@@ -427,27 +427,24 @@ def _claims(
 ) -> list[_Claim]:
     """Every (band line, measured line) pair within tolerance, except the `refused` (band,
     line) pairs; by band, then band line, then measured line (the lower one first)."""
-    claims: list[_Claim] = []
-    if peaks.size == 0:
-        return claims
-    for bi, (band, tol) in enumerate(zip(bands, tolerances)):
-        targets = band.matched_position
-        idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
-        # the measured lines either side of each prediction: (band line, side)
-        candidates = np.stack([idx - 1, idx], axis=1)
-        inside = candidates < peaks.size
-        candidates[~inside] = 0
-        distance = np.abs(peaks[candidates] - targets[:, None]) / tol[:, None]
-        keep = inside & usable[candidates] & (distance <= 1.0)
-        for refused_band, refused_line in refused:
-            if refused_band == bi:
-                keep &= candidates != refused_line
-        k, side = np.nonzero(keep)
-        claims.extend(
-            _Claim(bi, j, m, d, w)
-            for j, m, d, w in zip(candidates[k, side].tolist(), band.m[k].tolist(), distance[k, side].tolist(), band.weight[k].tolist())
-        )
-    return claims
+    if peaks.size == 0 or not bands:
+        return []
+    targets = np.concatenate([band.matched_position for band in bands])
+    tolerance = np.concatenate(tolerances)
+    band_of = np.repeat(np.arange(len(bands)), [band.m.size for band in bands])
+    idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
+    # the measured lines either side of each prediction: (band line, side)
+    candidates = np.stack([idx - 1, idx], axis=1)
+    inside = candidates < peaks.size
+    candidates[~inside] = 0
+    distance = np.abs(peaks[candidates] - targets[:, None]) / tolerance[:, None]
+    keep = inside & usable[candidates] & (distance <= 1.0)
+    for refused_band, refused_line in refused:
+        keep &= (candidates != refused_line) | (band_of != refused_band)[:, None]
+    k, side = np.nonzero(keep)
+    m = np.concatenate([band.m for band in bands])
+    weight = np.concatenate([band.weight for band in bands])
+    return list(map(_Claim, band_of[k].tolist(), candidates[k, side].tolist(), m[k].tolist(), distance[k, side].tolist(), weight[k].tolist()))
 
 
 def _claim_order(claim: _Claim) -> tuple[float, float]:

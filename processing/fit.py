@@ -12,6 +12,7 @@ with F(J) = B x - D x^2, fitted for B (and D when significant).
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -66,8 +67,10 @@ class BandFit:
         error of each prediction propagated from the covariance (grows outside the fitted J)."""
         branch = np.asarray(branch)
         J_lower = np.asarray(J_lower, dtype=np.int64)
-        x_up, x_low = _x(upper_J(branch, J_lower)), _x(J_lower)
-        columns = _BandColumns(x_up, x_low)
+        if branch.dtype.kind == "U" and branch.shape == J_lower.shape:
+            columns = _line_set_columns(branch.tobytes(), branch.dtype.str, J_lower.tobytes())
+        else:
+            columns = _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
         design, names = columns.design(self.d_model, self.h_model)
         values = self._parameter_values(names)
         positions = design @ values + columns.held(self.held)
@@ -136,6 +139,7 @@ class _BandColumns:
         self.low3 = x_low**3
         self._columns: dict[str, np.ndarray] = {}
         self._held: dict[tuple[float, float, float, float], np.ndarray] = {}
+        self._designs: dict[tuple[str, str], tuple[np.ndarray, tuple[str, ...]]] = {}
 
     def held(self, held: tuple[float, float, float, float]) -> np.ndarray:
         """-D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3 of the held values (read-only)."""
@@ -179,6 +183,12 @@ class _BandColumns:
         return column
 
     def design(self, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
+        """The design matrix of a D and H model with its parameter names (read-only)."""
+        if (model, h_model) not in self._designs:
+            self._designs[(model, h_model)] = self._design(model, h_model)
+        return self._designs[(model, h_model)]
+
+    def _design(self, model: str, h_model: str) -> tuple[np.ndarray, tuple[str, ...]]:
         columns = ["ones", "x_up", "-x_low"]
         names: list[str] = ["origin", "B_upper", "B_lower"]
         if model == "separate D":
@@ -196,7 +206,17 @@ class _BandColumns:
         design = np.empty((self.x_up.size, len(columns)))
         for i, name in enumerate(columns):
             design[:, i] = self._column(name)
+        design.flags.writeable = False
         return design, tuple(names)
+
+
+@functools.lru_cache(maxsize=128)
+def _line_set_columns(branch: bytes, branch_dtype: str, J_lower: bytes) -> _BandColumns:
+    """The model columns of a set of lines given as the bytes of their branch and J'' arrays
+    (cached: the assignment predicts the same sets, every line to a J'' cap, again and again;
+    the columns' arrays are never written)."""
+    J = np.frombuffer(J_lower, dtype=np.int64)
+    return _BandColumns(_x(upper_J(np.frombuffer(branch, dtype=branch_dtype), J)), _x(J))
 
 
 def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:

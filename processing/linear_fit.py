@@ -139,18 +139,18 @@ def weighted_least_squares(
         if n_rejected >= max_rejections or dof < 2:
             break
         normalised = np.abs(residuals) / sigma
-        kept = normalised[used]
+        kept = normalised[used] if n_rejected else normalised
         middle = kept.size // 2
         ordered = np.partition(kept, [middle - 1, middle] if kept.size % 2 == 0 else middle)
         median = 0.5 * (ordered[middle - 1] + ordered[middle]) if kept.size % 2 == 0 else ordered[middle]
         limit = 4.0 * max(1.0, 1.4826 * float(median))
-        candidates = np.where(used, normalised, -np.inf)
+        candidates = np.where(used, normalised, -np.inf) if n_rejected else normalised
         worst = int(np.argmax(candidates))
         if candidates[worst] <= limit:
             break
         used[worst] = False
         n_rejected += 1
-    chi2 = float(np.sum((residuals[used] / sigma[used]) ** 2))
+    chi2 = float(np.sum((residuals[used] / sigma[used] if n_rejected else residuals / sigma) ** 2))
     chi2_reduced = chi2 / dof if dof > 0 else float("nan")
     if dof <= 0:
         inflation = 1.0
