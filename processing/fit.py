@@ -361,8 +361,9 @@ def fit_band(
     used = fit.used
     lower_cd = upper_cd = None
     if cross_check:
-        lower_cd = fit_combination_differences("lower", v_lower, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
-        upper_cd = fit_combination_differences("upper", v_upper, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
+        used_lines = (branch[used], J_lower[used], observed[used], sigma[used])
+        lower_cd = fit_combination_differences("lower", v_lower, *used_lines, sigma_known)
+        upper_cd = fit_combination_differences("upper", v_upper, *used_lines, sigma_known)
     return BandFit(
         isotopologue=isotopologue,
         v_upper=v_upper,

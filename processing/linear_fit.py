@@ -63,7 +63,7 @@ class LinearFit:
     def rms(self) -> float:
         """Unweighted rms of obs-calc over the used rows, in the data's unit."""
         r = self.residuals[self.used]
-        return float(np.sqrt(np.mean(r**2))) if r.size else float("nan")
+        return float(np.sqrt((r**2).sum() / r.size)) if r.size else float("nan")
 
     def value(self, name: str) -> float:
         return float(self.values[self.names.index(name)])
@@ -97,11 +97,15 @@ def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
     sqrt_w = np.sqrt(weights)
     a = design * sqrt_w[:, None]
     scale = np.sqrt(np.einsum("ij,ij->j", a, a))
-    scale[scale == 0] = 1.0
+    if not scale.all():
+        scale[scale == 0] = 1.0
     u, singular, vt = np.linalg.svd(a / scale, full_matrices=False)
-    inverse = np.zeros_like(singular)
-    if singular.size:
-        np.divide(1.0, singular, out=inverse, where=singular > 1e-12 * singular[0])
+    if singular.size and singular[-1] > 1e-12 * singular[0]:
+        inverse = 1.0 / singular  # every direction kept (singular values descend)
+    else:
+        inverse = np.zeros_like(singular)
+        if singular.size:
+            np.divide(1.0, singular, out=inverse, where=singular > 1e-12 * singular[0])
     v_inverse = vt.T * inverse
     params = (v_inverse @ (u.T @ (sqrt_w * y))) / scale
     return _Solution(params, u, v_inverse, sqrt_w, scale)
@@ -145,12 +149,12 @@ def weighted_least_squares(
         median = 0.5 * (ordered[middle - 1] + ordered[middle]) if kept.size % 2 == 0 else ordered[middle]
         limit = 4.0 * max(1.0, 1.4826 * float(median))
         candidates = np.where(used, normalised, -np.inf) if n_rejected else normalised
-        worst = int(np.argmax(candidates))
+        worst = int(candidates.argmax())
         if candidates[worst] <= limit:
             break
         used[worst] = False
         n_rejected += 1
-    chi2 = float(np.sum((residuals[used] / sigma[used] if n_rejected else residuals / sigma) ** 2))
+    chi2 = float(((residuals[used] / sigma[used] if n_rejected else residuals / sigma) ** 2).sum())
     chi2_reduced = chi2 / dof if dof > 0 else float("nan")
     if dof <= 0:
         inflation = 1.0
