@@ -25,13 +25,14 @@ from __future__ import annotations
 
 import bisect
 import functools
+import itertools
 import math
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Callable, NamedTuple
 
 import numpy as np
 
-from processing.fit import BandFit, fit_band
+from processing.fit import BandFit, BandModel, fit_band, fit_band_model
 from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
 from processing.lines import LineTable, fit_sigma_factor
 from processing.physical_constants import C2_CM_K
@@ -110,7 +111,7 @@ class _Band:
     position: np.ndarray  # current predictions
     sigma: np.ndarray  # prediction uncertainty
     weight: np.ndarray  # predicted relative intensity (molecule-band scale, 1 = strongest)
-    fit: BandFit | None = None
+    fit: BandModel | None = None  # the latest fit while refining
     # unresolved isotopologue partners: m -> shift of the blend centre from this line
     pull: dict[int, float] = field(default_factory=dict)
     # the same lines' partner: m -> (separation from this line, intensity ratio partner/this)
@@ -313,14 +314,12 @@ def _library_predictions(predictions: _PredictionSet, library: Library, v_upper:
 
 def _match_count(peaks: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarray:
     """Bool per target: a peak lies within tol of it (`peaks` ascending)."""
-    if peaks.size == 0:
-        return np.zeros(targets.shape, dtype=bool)
-    if peaks.size == 1:
-        return np.abs(peaks[0] - targets) <= tol
-    idx = peaks.searchsorted(targets)
-    np.clip(idx, 1, peaks.size - 1, out=idx)
-    nearest = np.abs(peaks[idx] - targets)
-    np.minimum(nearest, np.abs(peaks[idx - 1] - targets), out=nearest)
+    # between -inf and +inf every target has a peak at or above it and one below it: the
+    # distances to both need no clipping and no absolute value
+    padded = np.concatenate(([-np.inf], peaks, [np.inf]))
+    idx = padded.searchsorted(targets)
+    nearest = padded[idx] - targets
+    np.minimum(nearest, targets - padded[idx - 1], out=nearest)
     return nearest <= tol
 
 
@@ -444,7 +443,8 @@ def _claims(
     k, side = np.nonzero(keep)
     m = np.concatenate([band.m for band in bands])
     weight = np.concatenate([band.weight for band in bands])
-    return list(map(_Claim, band_of[k].tolist(), candidates[k, side].tolist(), m[k].tolist(), distance[k, side].tolist(), weight[k].tolist()))
+    fields = zip(band_of[k].tolist(), candidates[k, side].tolist(), m[k].tolist(), distance[k, side].tolist(), weight[k].tolist())
+    return list(map(tuple.__new__, itertools.repeat(_Claim), fields))  # _Claim(*f) without its Python-level __new__
 
 
 def _claim_order(claim: _Claim) -> tuple[float, float]:
@@ -480,18 +480,18 @@ def _resolve(claims: list[_Claim], bands: list[_Band]) -> tuple[dict[int, _Claim
 
 def _fit_band_lines(
     band: _Band, claims: list[_Claim], lines: LineTable, blended: set[int]
-) -> BandFit | None:
+) -> BandModel | None:
     if len(claims) < 4:
         return None
     m = np.array([c.m for c in claims])
     branch, J_lower = branch_from_m(m)
     idx = np.array([c.line for c in claims])
     sigma = lines.position_sigma_cm1[idx].copy()
-    inflate = fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)))
+    inflate = fit_sigma_factor(lines.saturated[idx], np.array([c.line in blended for c in claims], dtype=bool))
     # blended lines carry little weight when enough clean lines exist
     sigma = sigma * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False, sextic=False, library_centrifugal=band.library_centrifugal)
+        return fit_band_model(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, sextic=False, library_centrifugal=band.library_centrifugal)
     except (ValueError, np.linalg.LinAlgError):
         return None
 
@@ -627,11 +627,23 @@ J_CAP_RELATIVE = 1e-5
 def _J_cap(band: _Band) -> int:
     """Highest J'' to predict: where the band's predicted intensity stays above J_CAP_RELATIVE
     of its strongest line (+2)."""
-    if not band.all_weights:
-        return int(np.max(np.abs(band.m))) + 2
-    strongest = max(band.all_weights.values())
-    J = [abs(m) - (1 if m > 0 else 0) for m, w in band.all_weights.items() if w >= J_CAP_RELATIVE * strongest]
-    return max(J) + 2 if J else int(np.max(np.abs(band.m))) + 2
+    highest = None
+    if band.weights_source is not None:
+        library, temperature_K, scale = band.weights_source
+        highest = _highest_J_seen(library, band.isotopologue, band.v_upper, band.v_lower, temperature_K, scale)
+    return highest + 2 if highest is not None else int(np.max(np.abs(band.m))) + 2
+
+
+@functools.lru_cache(maxsize=512)
+def _highest_J_seen(library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, scale: float) -> int | None:
+    """Highest J'' whose predicted intensity is at least J_CAP_RELATIVE of the band's strongest
+    (None without predictions; cached with them)."""
+    weights = _all_weights(library, label, v_upper, v_lower, temperature_K, scale)
+    if not weights:
+        return None
+    strongest = max(weights.values())
+    J = [abs(m) - (1 if m > 0 else 0) for m, w in weights.items() if w >= J_CAP_RELATIVE * strongest]
+    return max(J) if J else None
 
 
 def _extend_predictions(band: _Band, J_cap: int) -> None:
@@ -664,22 +676,18 @@ INTENSITY_OUTLIER_FACTOR = 5.0
 INTENSITY_ALLOWANCE_SIGMA = 3.0
 
 
-def _band_weight(band: _Band, claim: _Claim) -> float:
-    """Predicted relative intensity of a claimed band line, its blended partner's included."""
-    weight = band.all_weights.get(claim.m, claim.weight)
-    partner = band.partner.get(claim.m)
-    return weight * (1.0 + partner[1]) if partner else weight
-
-
 def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], snr: list[float]) -> dict[int, float]:
     """For each claimed line, the signal-to-noise its band's intensity pattern predicts: the
-    line's predicted relative intensity times the band's SNR per unit intensity for thin lines,
+    line's predicted relative intensity (its blended partner's included) times the band's SNR per unit intensity for thin lines,
     the upper quartile over the weaker half of its measured lines (optically thick lines fall
     short of their intensity; a band's weaker lines are its thinnest). `snr` is the line
     table's, by line."""
     per_band: dict[int, list[tuple[int, float]]] = {}
     for line, claim in winners.items():
-        per_band.setdefault(claim.band, []).append((line, _band_weight(bands[claim.band], claim)))
+        band = bands[claim.band]
+        weight = band.all_weights.get(claim.m, claim.weight)
+        partner = band.partner.get(claim.m)
+        per_band.setdefault(claim.band, []).append((line, weight * (1.0 + partner[1]) if partner else weight))
     expected: dict[int, float] = {}
     for members in per_band.values():
         measured = [(w, snr[line]) for line, w in members if math.isfinite(snr[line]) and w > 0 and snr[line] >= 10.0]

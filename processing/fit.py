@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 
@@ -65,17 +66,7 @@ class BandFit:
     def predict(self, branch: np.ndarray, J_lower: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Positions of any lines of this band from the fitted constants, with the standard
         error of each prediction propagated from the covariance (grows outside the fitted J)."""
-        branch = np.asarray(branch)
-        J_lower = np.asarray(J_lower, dtype=np.int64)
-        if branch.dtype.kind == "U" and branch.shape == J_lower.shape:
-            columns = _line_set_columns(branch.tobytes(), branch.dtype.str, J_lower.tobytes())
-        else:
-            columns = _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
-        design, names = columns.design(self.d_model, self.h_model)
-        values = self._parameter_values(names)
-        positions = design @ values + columns.held(self.held)
-        variance = np.einsum("ij,jk,ik->i", design, self.covariance, design)
-        return positions, np.sqrt(np.clip(variance, 0.0, None))
+        return _predict(branch, J_lower, self.d_model, self.h_model, self.held, self.covariance, self._parameter_values)
 
     def _parameter_values(self, names: tuple[str, ...]) -> np.ndarray:
         """The fitted values behind the design columns' names."""
@@ -100,6 +91,24 @@ class BandFit:
     @property
     def label(self) -> str:
         return f"{self.isotopologue} {self.v_upper}-{self.v_lower}"
+
+
+def _predict(
+    branch: np.ndarray, J_lower: np.ndarray, d_model: str, h_model: str, held: tuple[float, float, float, float],
+    covariance: np.ndarray, values_of: Callable[[tuple[str, ...]], np.ndarray],
+) -> tuple[np.ndarray, np.ndarray]:
+    """Positions of lines from a band model (`values_of(parameter names)` gives its fitted
+    values), with each prediction's standard error propagated from the covariance."""
+    branch = np.asarray(branch)
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    if branch.dtype.kind == "U" and branch.shape == J_lower.shape:
+        columns = _line_set_columns(branch.tobytes(), branch.dtype.str, J_lower.tobytes())
+    else:
+        columns = _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
+    design, names = columns.design(d_model, h_model)
+    positions = design @ values_of(names) + columns.held(held)
+    variance = np.einsum("ij,jk,ik->i", design, covariance, design)
+    return positions, np.sqrt(np.clip(variance, 0.0, None))
 
 
 def _x(J: np.ndarray) -> np.ndarray:
@@ -304,6 +313,56 @@ def _choose_band_fit(
     return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H", NOTHING_HELD
 
 
+@dataclass(frozen=True)
+class BandModel:
+    """A band's fitted line-position model: the least-squares fit with the D and H models
+    chosen and the terms held. What the assignment iterates with; `fit_band` adds the named
+    constants, their correlations and the combination-difference cross-checks."""
+
+    linear_fit: LinearFit
+    d_model: str
+    h_model: str
+    held: tuple[float, float, float, float]
+    branch: np.ndarray  # the lines fitted
+    J_lower: np.ndarray
+    observed: np.ndarray
+    sigma: np.ndarray
+    rms: float  # of the used lines, cm-1
+    n_lines: int  # lines used (after outlier rejection)
+    columns: _BandColumns = field(repr=False, compare=False)
+
+    def predict(self, branch: np.ndarray, J_lower: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Positions of any lines of this band with their standard errors (see
+        `BandFit.predict`)."""
+        return _predict(branch, J_lower, self.d_model, self.h_model, self.held, self.linear_fit.covariance,
+                        lambda names: self.linear_fit.values)
+
+
+def fit_band_model(
+    isotopologue: str,
+    v_upper: int,
+    v_lower: int,
+    branch: np.ndarray,
+    J_lower: np.ndarray,
+    observed_cm1: np.ndarray,
+    sigma_cm1: np.ndarray,
+    sigma_known: bool = True,
+    sextic: bool = True,
+    library_centrifugal: tuple[float, float, float, float] | None = None,
+) -> BandModel:
+    """The band model of `fit_band` fitted to a band's assigned lines (at least 4), without
+    naming its constants or cross-checking them."""
+    branch = np.asarray(branch)
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    observed = np.asarray(observed_cm1, dtype=np.float64)
+    sigma = np.asarray(sigma_cm1, dtype=np.float64)
+    if observed.size < 4:
+        raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
+    columns = _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
+    fit, model, h_model, held = _choose_band_fit(columns, observed, sigma, sigma_known, sextic, library_centrifugal)
+    return BandModel(fit, model, h_model, held, branch, J_lower, observed, sigma, fit.rms, int(fit.used.sum()), columns)
+
+
 def fit_band(
     isotopologue: str,
     v_upper: int,
@@ -325,16 +384,9 @@ def fit_band(
     unassigned J wildly when a few positions are still off); `library_centrifugal` = the
     library's (D', D'', H', H'') of the band, held where the lines cannot determine them (see
     D_DIFFERENCE_HELD, H_DIFFERENCE_HELD)."""
-    branch = np.asarray(branch)
-    J_lower = np.asarray(J_lower, dtype=np.int64)
-    observed = np.asarray(observed_cm1, dtype=np.float64)
-    sigma = np.asarray(sigma_cm1, dtype=np.float64)
-    if observed.size < 4:
-        raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
-    x_low = _x(J_lower)
-    x_up = _x(upper_J(branch, J_lower))
-    columns = _BandColumns(x_up, x_low)
-    fit, model, h_model, held = _choose_band_fit(columns, observed, sigma, sigma_known, sextic, library_centrifugal)
+    band_model = fit_band_model(isotopologue, v_upper, v_lower, branch, J_lower, observed_cm1, sigma_cm1, sigma_known, sextic, library_centrifugal)
+    fit, model, h_model, held = band_model.linear_fit, band_model.d_model, band_model.h_model, band_model.held
+    branch, J_lower, observed, sigma = band_model.branch, band_model.J_lower, band_model.observed, band_model.sigma
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
@@ -374,8 +426,8 @@ def fit_band(
         D_upper=D_upper,
         D_lower=D_lower,
         d_model=model,
-        n_lines=int(fit.used.sum()),
-        rms=fit.rms,
+        n_lines=band_model.n_lines,
+        rms=band_model.rms,
         chi2_reduced=fit.chi2_reduced,
         parameter_names=fit.names,
         covariance=fit.covariance,
@@ -383,7 +435,7 @@ def fit_band(
         J_lower=J_lower,
         branch=branch,
         observed=observed,
-        calc=columns.plus_held(fit.calc, held),
+        calc=band_model.columns.plus_held(fit.calc, held),
         used=fit.used,
         H_upper=H_upper,
         H_lower=H_lower,
