@@ -1173,9 +1173,13 @@ def _finish(
     excluded = excluded if excluded is not None else np.zeros(lines.count, dtype=bool)
     groups: dict[tuple[str, int, int], list[int]] = {}
     band_of: dict[tuple[str, int, int], _Band] = {}
+    key_of: dict[int, tuple[str, int, int]] = {}  # by band object
     for line, (band, _m) in assignment.items():
-        groups.setdefault(band.key, []).append(line)
-        band_of[band.key] = band
+        key = key_of.get(id(band))
+        if key is None:
+            key = key_of[id(band)] = band.key
+        groups.setdefault(key, []).append(line)
+        band_of[key] = band
     per_line: list[LineAssignment | None] = [None] * lines.count
     fits: list[BandFit] = []
     for key, members in sorted(groups.items(), key=lambda kv: (kv[0][0], kv[0][1], kv[0][2])):
@@ -1226,19 +1230,11 @@ def _finish(
                 confidence *= 0.8
             if not used:
                 confidence *= 0.3
+            # positional (a hundred or more per spectrum): isotopologue, v', v'', branch, J'',
+            # calc, residual, confidence, method, blended, used in the fit, blend pull
             per_line[line] = LineAssignment(
-                isotopologue=band.isotopologue,
-                v_upper=band.v_upper,
-                v_lower=band.v_lower,
-                branch=branch_k,
-                J_lower=J_k,
-                calc=calc_k,
-                residual=residual,
-                confidence=round(confidence, 3),
-                method=band.method,
-                blended=line in blended or merged,
-                used_in_fit=used,
-                blend_pull=pull_k,
+                band.isotopologue, band.v_upper, band.v_lower, branch_k, J_k, calc_k, residual, round(confidence, 3),
+                band.method, line in blended or merged, used, pull_k,
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
     causes = tuple(
