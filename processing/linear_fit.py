@@ -8,7 +8,6 @@ only nominal, C is scaled by chi2/dof itself.
 """
 from __future__ import annotations
 
-import functools
 from dataclasses import dataclass
 from typing import NamedTuple
 
@@ -45,10 +44,14 @@ class LinearFit:
     # other numbers (e.g. the library's own positions of the same lines)
     operator: np.ndarray | None = None
 
-    @functools.cached_property
+    @property
     def sigmas(self) -> np.ndarray:
-        sigmas = np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
-        sigmas.flags.writeable = False
+        """Standard errors of the values (read-only; computed once)."""
+        sigmas = self.__dict__.get("_sigmas")
+        if sigmas is None:
+            sigmas = np.sqrt(np.clip(self.covariance.diagonal(), 0.0, None))
+            sigmas.flags.writeable = False
+            self.__dict__["_sigmas"] = sigmas  # a frozen instance's cache, as cached_property does
         return sigmas
 
     @property
@@ -76,18 +79,18 @@ class _Solution(NamedTuple):
     """One SVD solution of the weighted, column-scaled problem (see `_solve`)."""
 
     params: np.ndarray
-    u: np.ndarray
+    u_t: np.ndarray  # U transposed
     v_inverse: np.ndarray  # V diag(1/s) (dropped directions zero)
     sqrt_w: np.ndarray
     scale: np.ndarray
 
     def operator(self) -> np.ndarray:
         """parameters = operator @ y."""
-        return ((self.v_inverse @ self.u.T) * self.sqrt_w[None, :]) / self.scale[:, None]
+        return ((self.v_inverse @ self.u_t) * self.sqrt_w) / self.scale[:, None]
 
     def covariance(self) -> np.ndarray:
         """Unscaled covariance (A^T W A)^-1."""
-        return (self.v_inverse @ self.v_inverse.T) / (self.scale[:, None] * self.scale[None, :])
+        return (self.v_inverse @ self.v_inverse.T) / (self.scale[:, None] * self.scale)
 
 
 def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
@@ -107,8 +110,9 @@ def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
         if singular.size:
             np.divide(1.0, singular, out=inverse, where=singular > 1e-12 * singular[0])
     v_inverse = vt.T * inverse
-    params = (v_inverse @ (u.T @ (sqrt_w * y))) / scale
-    return _Solution(params, u, v_inverse, sqrt_w, scale)
+    u_t = u.T
+    params = (v_inverse @ (u_t @ (sqrt_w * y))) / scale
+    return _Solution(params, u_t, v_inverse, sqrt_w, scale)
 
 
 def weighted_least_squares(
@@ -143,14 +147,16 @@ def weighted_least_squares(
         if n_rejected >= max_rejections or dof < 2:
             break
         normalised = np.abs(residuals) / sigma
-        kept = normalised[used] if n_rejected else normalised
-        middle = kept.size // 2
-        ordered = np.partition(kept, [middle - 1, middle] if kept.size % 2 == 0 else middle)
-        median = 0.5 * (ordered[middle - 1] + ordered[middle]) if kept.size % 2 == 0 else ordered[middle]
-        limit = 4.0 * max(1.0, 1.4826 * float(median))
         candidates = np.where(used, normalised, -np.inf) if n_rejected else normalised
         worst = int(candidates.argmax())
-        if candidates[worst] <= limit:
+        largest = candidates[worst]
+        # the median of the used rows, found in place (the candidates were read first)
+        kept = normalised[used] if n_rejected else normalised
+        middle = kept.size // 2
+        kept.partition([middle - 1, middle] if kept.size % 2 == 0 else middle)
+        median = 0.5 * (kept[middle - 1] + kept[middle]) if kept.size % 2 == 0 else kept[middle]
+        limit = 4.0 * max(1.0, 1.4826 * float(median))
+        if largest <= limit:
             break
         used[worst] = False
         n_rejected += 1
