@@ -650,14 +650,34 @@ def _extend_predictions(band: _Band, J_cap: int) -> None:
     """After a fit, predict every line up to J'' = J_cap from the fitted constants (lines
     merged into a stronger partner's blend stay out)."""
     assert band.fit is not None
-    m, branch, J_lower = _band_lines_to(J_cap, frozenset(band.dropped))
+    dropped = frozenset(band.dropped)
+    m, branch, J_lower = _band_lines_to(J_cap, dropped)
     position, sigma = band.fit.predict(branch, J_lower)
-    old_weight = dict(zip(band.m.tolist(), band.weight.tolist()))
-    all_weights = band.all_weights
+    weight = None
+    if band.weights_source is not None:
+        library, temperature_K, scale = band.weights_source
+        weight = _library_weights_to(library, band.isotopologue, band.v_upper, band.v_lower, temperature_K, scale, J_cap, dropped)
+    if weight is None:  # a line the library does not predict keeps its weight (or 1e-8)
+        old_weight = dict(zip(band.m.tolist(), band.weight.tolist()))
+        all_weights = band.all_weights
+        weight = np.array([all_weights.get(k, old_weight.get(k, 1e-8)) for k in m.tolist()])
     band.m = m
     band.position = position
     band.sigma = sigma
-    band.weight = np.array([all_weights.get(k, old_weight.get(k, 1e-8)) for k in m.tolist()])
+    band.weight = weight
+
+
+@functools.lru_cache(maxsize=256)
+def _library_weights_to(
+    library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, scale: float, J_cap: int, dropped: frozenset[int]
+) -> np.ndarray | None:
+    """The predicted relative intensity of every line of `_band_lines_to(J_cap, dropped)`, or
+    None when the library predicts some of them not (cached, read-only)."""
+    weights = _all_weights(library, label, v_upper, v_lower, temperature_K, scale)
+    m = _band_lines_to(J_cap, dropped)[0].tolist()
+    if not all(k in weights for k in m):
+        return None
+    return _read_only(np.array([weights[k] for k in m]))
 
 
 @functools.lru_cache(maxsize=256)

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field
-from typing import Callable
+from typing import Callable, NamedTuple
 
 import numpy as np
 
@@ -413,9 +413,9 @@ def fit_band(
     used = fit.used
     lower_cd = upper_cd = None
     if cross_check:
-        used_lines = (branch[used], J_lower[used], observed[used], sigma[used])
-        lower_cd = fit_combination_differences("lower", v_lower, *used_lines, sigma_known)
-        upper_cd = fit_combination_differences("upper", v_upper, *used_lines, sigma_known)
+        tables = _branch_tables(branch[used], J_lower[used], observed[used], sigma[used])
+        lower_cd = _fit_pairs("lower", v_lower, _pairs(tables, "lower"), sigma_known)
+        upper_cd = _fit_pairs("upper", v_upper, _pairs(tables, "upper"), sigma_known)
     return BandFit(
         isotopologue=isotopologue,
         v_upper=v_upper,
@@ -448,30 +448,45 @@ def fit_band(
     )
 
 
+class _BranchTables(NamedTuple):
+    """A band's lines by branch (row 0 R, row 1 P) and J'': present, position, sigma."""
+
+    present: np.ndarray
+    observed: np.ndarray
+    sigma: np.ndarray
+
+
+def _branch_tables(branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray) -> _BranchTables:
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    size = int(J_lower.max()) + 3 if J_lower.size else 2
+    row = np.where(np.asarray(branch) == R_BRANCH, 0, 1)
+    present, table, table_sigma = np.zeros((2, size), dtype=bool), np.zeros((2, size)), np.zeros((2, size))
+    # one line per branch and J'' in a band
+    present[row, J_lower] = True
+    table[row, J_lower] = observed
+    table_sigma[row, J_lower] = sigma
+    return _BranchTables(present, table, table_sigma)
+
+
+def _pairs(tables: _BranchTables, state: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """`combination_difference_pairs` from a band's branch tables."""
+    size = tables.present.shape[1]
+    # J = 1 .. size - 2: R(J-1) and P(J+1) for the lower state, R(J) and P(J) for the upper
+    r, p = (slice(0, size - 2), slice(2, size)) if state == "lower" else (slice(1, size - 1), slice(1, size - 1))
+    pair = tables.present[0, r] & tables.present[1, p]
+    J = np.arange(1, size - 1)[pair]
+    difference = (tables.observed[0, r] - tables.observed[1, p])[pair]
+    return J, difference, np.hypot(tables.sigma[0, r], tables.sigma[1, p])[pair]
+
+
 def combination_difference_pairs(
     state: str, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(J, difference, sigma) of every available pair, by J. J is that of the state concerned:
     lower: Delta2F''(J) = R(J-1) - P(J+1);  upper: Delta2F'(J) = R(J) - P(J)."""
-    J_lower = np.asarray(J_lower, dtype=np.int64)
     observed = np.asarray(observed, dtype=np.float64)
     sigma = np.asarray(sigma, dtype=np.float64)
-    if J_lower.size == 0:
-        return np.zeros(0, dtype=np.int64), np.zeros(0), np.zeros(0)
-    is_r = np.asarray(branch) == R_BRANCH
-    size = int(J_lower.max()) + 3
-    # each branch's lines by J'' (one line per J'' and branch in a band)
-    have_r, have_p = np.zeros(size, dtype=bool), np.zeros(size, dtype=bool)
-    r_obs, p_obs, r_sig, p_sig = np.zeros(size), np.zeros(size), np.zeros(size), np.zeros(size)
-    have_r[J_lower[is_r]] = True
-    r_obs[J_lower[is_r]], r_sig[J_lower[is_r]] = observed[is_r], sigma[is_r]
-    have_p[J_lower[~is_r]] = True
-    p_obs[J_lower[~is_r]], p_sig[J_lower[~is_r]] = observed[~is_r], sigma[~is_r]
-    J = np.arange(1, size - 1)
-    r_J, p_J = (J - 1, J + 1) if state == "lower" else (J, J)
-    pair = have_r[r_J] & have_p[p_J]
-    J, r_J, p_J = J[pair], r_J[pair], p_J[pair]
-    return J, r_obs[r_J] - p_obs[p_J], np.hypot(r_sig[r_J], p_sig[p_J])
+    return _pairs(_branch_tables(branch, J_lower, observed, sigma), state)
 
 
 def fit_combination_differences(
@@ -479,7 +494,12 @@ def fit_combination_differences(
     sigma_known: bool = True,
 ) -> CombinationDifferences | None:
     """B (and D if significant) of the `state` ("lower"/"upper") level; None with < 3 pairs."""
-    J, difference, diff_sigma = combination_difference_pairs(state, branch, J_lower, observed, sigma)
+    return _fit_pairs(state, v, combination_difference_pairs(state, branch, J_lower, observed, sigma), sigma_known)
+
+
+def _fit_pairs(state: str, v: int, pairs: tuple[np.ndarray, np.ndarray, np.ndarray], sigma_known: bool) -> CombinationDifferences | None:
+    """`fit_combination_differences` of a level's pairs."""
+    J, difference, diff_sigma = pairs
     if J.size < 3:
         return None
     x_plus = _x(J + 1)
