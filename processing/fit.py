@@ -99,12 +99,7 @@ def _predict(
 ) -> tuple[np.ndarray, np.ndarray]:
     """Positions of lines from a band model (`values_of(parameter names)` gives its fitted
     values), with each prediction's standard error propagated from the covariance."""
-    branch = np.asarray(branch)
-    J_lower = np.asarray(J_lower, dtype=np.int64)
-    if branch.dtype.kind == "U" and branch.shape == J_lower.shape:
-        columns = _line_set_columns(branch.tobytes(), branch.dtype.str, J_lower.tobytes())
-    else:
-        columns = _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
+    columns = _columns_of(np.asarray(branch), np.asarray(J_lower, dtype=np.int64))
     design, names = columns.design(d_model, h_model)
     positions = design @ values_of(names) + columns.held(held)
     variance = np.einsum("ij,jk,ik->i", design, covariance, design)
@@ -219,7 +214,16 @@ class _BandColumns:
         return design, tuple(names)
 
 
-@functools.lru_cache(maxsize=128)
+def _columns_of(branch: np.ndarray, J_lower: np.ndarray) -> _BandColumns:
+    """The model columns of a set of lines (shared by every fit and prediction of the same
+    lines in the same order: a spectrum's bands are refitted and predicted on the same sets,
+    and successive spectra of one sample assign the same lines)."""
+    if branch.dtype.kind == "U" and branch.shape == J_lower.shape:
+        return _line_set_columns(branch.tobytes(), branch.dtype.str, J_lower.tobytes())
+    return _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
+
+
+@functools.lru_cache(maxsize=256)
 def _line_set_columns(branch: bytes, branch_dtype: str, J_lower: bytes) -> _BandColumns:
     """The model columns of a set of lines given as the bytes of their branch and J'' arrays
     (cached: the assignment predicts the same sets, every line to a J'' cap, again and again;
@@ -358,7 +362,7 @@ def fit_band_model(
     sigma = np.asarray(sigma_cm1, dtype=np.float64)
     if observed.size < 4:
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
-    columns = _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
+    columns = _columns_of(branch, J_lower)
     fit, model, h_model, held = _choose_band_fit(columns, observed, sigma, sigma_known, sextic, library_centrifugal)
     return BandModel(fit, model, h_model, held, branch, J_lower, observed, sigma, fit.rms, int(fit.used.sum()), columns)
 
