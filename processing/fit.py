@@ -478,7 +478,7 @@ def _pairs(tables: _BranchTables, state: str) -> tuple[np.ndarray, np.ndarray, n
     # J = 1 .. size - 2: R(J-1) and P(J+1) for the lower state, R(J) and P(J) for the upper
     r, p = (slice(0, size - 2), slice(2, size)) if state == "lower" else (slice(1, size - 1), slice(1, size - 1))
     pair = tables.present[0, r] & tables.present[1, p]
-    J = np.arange(1, size - 1)[pair]
+    J = np.arange(1, size - 1, dtype=np.int64)[pair]
     difference = (tables.observed[0, r] - tables.observed[1, p])[pair]
     return J, difference, np.hypot(tables.sigma[0, r], tables.sigma[1, p])[pair]
 
@@ -501,22 +501,34 @@ def fit_combination_differences(
     return _fit_pairs(state, v, combination_difference_pairs(state, branch, J_lower, observed, sigma), sigma_known)
 
 
+@functools.lru_cache(maxsize=256)
+def _difference_designs(J_bytes: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """The combination-difference designs (B) and (B, D) of the pairs' J (given as the bytes
+    of an int64 array; cached, read-only): F(J+1) - F(J-1) with F = B x - D x^2."""
+    J = np.frombuffer(J_bytes, dtype=np.int64)
+    x_plus = _x(J + 1)
+    x_minus = _x(J - 1)
+    b_column = x_plus - x_minus  # = 4J + 2
+    d_column = -(x_plus**2 - x_minus**2)
+    b_design, bd_design = b_column[:, None], np.column_stack([b_column, d_column])
+    b_design.flags.writeable = False
+    bd_design.flags.writeable = False
+    return b_design, bd_design
+
+
 def _fit_pairs(state: str, v: int, pairs: tuple[np.ndarray, np.ndarray, np.ndarray], sigma_known: bool) -> CombinationDifferences | None:
     """`fit_combination_differences` of a level's pairs."""
     J, difference, diff_sigma = pairs
     if J.size < 3:
         return None
-    x_plus = _x(J + 1)
-    x_minus = _x(J - 1)
-    b_column = x_plus - x_minus  # = 4J + 2
-    d_column = -(x_plus**2 - x_minus**2)
+    b_design, bd_design = _difference_designs(np.asarray(J, dtype=np.int64).tobytes())
     fit: LinearFit | None = None
     if J.size >= 4:
-        trial = weighted_least_squares(np.column_stack([b_column, d_column]), difference, diff_sigma, ("B", "D"), sigma_known=sigma_known)
+        trial = weighted_least_squares(bd_design, difference, diff_sigma, ("B", "D"), sigma_known=sigma_known)
         if _significant(trial, "D"):
             fit = trial
     if fit is None:
-        fit = weighted_least_squares(b_column[:, None], difference, diff_sigma, ("B",), sigma_known=sigma_known)
+        fit = weighted_least_squares(b_design, difference, diff_sigma, ("B",), sigma_known=sigma_known)
     has_d = "D" in fit.names
     sig = (lambda name: fit.sigma(name) if fit.dof > 0 else None)
     return CombinationDifferences(
