@@ -1052,8 +1052,10 @@ def rotational_temperature_estimate(lines: LineTable, result: AssignmentResult) 
     saturated, snr = lines.saturated.tolist(), lines.snr.tolist()
     height, position = lines.height.tolist(), lines.position_cm1.tolist()
     for i, assigned in enumerate(result.per_line):
-        key = None if assigned is None else (assigned.isotopologue, assigned.v_upper, assigned.v_lower)
-        if key not in B_of or saturated[i] or snr[i] < 10.0 or assigned.blended:
+        if assigned is None or saturated[i] or snr[i] < 10.0 or assigned.blended:
+            continue
+        key = (assigned.isotopologue, assigned.v_upper, assigned.v_lower)
+        if key not in B_of:
             continue
         J = assigned.J_lower
         hoenl_london = J + 1 if assigned.branch == R_BRANCH else J
