@@ -13,6 +13,7 @@ with F(J) = B x - D x^2, fitted for B (and D when significant).
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass, field
 from typing import Callable, NamedTuple
 
@@ -247,9 +248,12 @@ def _significant(fit: LinearFit, name: str) -> bool:
 
 def _differ(fit: LinearFit, a: str, b: str) -> bool:
     """Both significant and significantly different from each other."""
+    if not (_significant(fit, a) and _significant(fit, b)):
+        return False
     i, j = fit.names.index(a), fit.names.index(b)
-    var = fit.covariance[i, i] + fit.covariance[j, j] - 2 * fit.covariance[i, j]
-    return _significant(fit, a) and _significant(fit, b) and var > 0 and abs(fit.value(a) - fit.value(b)) > _threshold(a) * np.sqrt(var)
+    covariance = fit.covariance
+    var = covariance[i, i] + covariance[j, j] - 2 * covariance[i, j]
+    return var > 0 and abs(fit.value(a) - fit.value(b)) > _threshold(a) * math.sqrt(var)
 
 
 _SIZES = {"separate D": 2, "common D": 1, "no D": 0, D_DIFFERENCE_HELD: 1, D_HELD: 0,
@@ -364,7 +368,7 @@ def fit_band_model(
         raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
     columns = _columns_of(branch, J_lower)
     fit, model, h_model, held = _choose_band_fit(columns, observed, sigma, sigma_known, sextic, library_centrifugal)
-    return BandModel(fit, model, h_model, held, branch, J_lower, observed, sigma, fit.rms, int(fit.used.sum()), columns)
+    return BandModel(fit, model, h_model, held, branch, J_lower, observed, sigma, fit.rms, fit.n_used, columns)
 
 
 def fit_band(
@@ -417,7 +421,8 @@ def fit_band(
     used = fit.used
     lower_cd = upper_cd = None
     if cross_check:
-        tables = _branch_tables(branch[used], J_lower[used], observed[used], sigma[used])
+        every = fit.n_used == observed.size
+        tables = _branch_tables(*((branch, J_lower, observed, sigma) if every else (branch[used], J_lower[used], observed[used], sigma[used])))
         lower_cd = _fit_pairs("lower", v_lower, _pairs(tables, "lower"), sigma_known)
         upper_cd = _fit_pairs("upper", v_upper, _pairs(tables, "upper"), sigma_known)
     return BandFit(
@@ -536,6 +541,6 @@ def _fit_pairs(state: str, v: int, pairs: tuple[np.ndarray, np.ndarray, np.ndarr
         v=v,
         B=Estimate(fit.value("B"), sig("B")),
         D=Estimate(fit.value("D"), sig("D")) if has_d else None,
-        n_pairs=int(fit.used.sum()),
+        n_pairs=fit.n_used,
         rms=fit.rms,
     )

@@ -63,9 +63,14 @@ class LinearFit:
         return corr
 
     @property
+    def n_used(self) -> int:
+        """Rows used (not rejected): the degrees of freedom plus the parameters."""
+        return self.dof + len(self.names)
+
+    @property
     def rms(self) -> float:
         """Unweighted rms of obs-calc over the used rows, in the data's unit."""
-        r = self.residuals[self.used]
+        r = self.residuals if self.n_used == self.residuals.size else self.residuals[self.used]
         return float(np.sqrt((r**2).sum() / r.size)) if r.size else float("nan")
 
     def value(self, name: str) -> float:
