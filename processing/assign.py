@@ -400,14 +400,15 @@ def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, f
     whether this band is here."""
     shifted = band.position + shift
     strong = (band.weight >= 0.05) & (shifted >= first) & (shifted <= last)
-    n_expected = int(strong.sum())
+    n_expected = int(np.count_nonzero(strong))
     if n_expected < MIN_BAND_LINES:
         return False
     matched = _match_count(peaks, band.position[strong] + shift, tol)
-    n_matched = int(matched.sum())
+    n_matched = int(np.count_nonzero(matched))
     # the band's own lines are no chance matches: the rate counts the other peaks there
     low, high = float(shifted[strong].min()) - 1.0, float(shifted[strong].max()) + 1.0
-    others = float(np.searchsorted(peaks, high) - np.searchsorted(peaks, low)) - n_matched
+    below_low, below_high = peaks.searchsorted([low, high]).tolist()
+    others = float(below_high - below_low) - n_matched
     chance = n_expected * min(1.0, 2.0 * tol * max(others, 0.0) / (high - low))
     return n_matched >= MIN_BAND_LINES and n_matched >= 0.5 * n_expected and n_matched >= 3.0 * chance + 3
 
