@@ -387,8 +387,8 @@ def fit_band(
     """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
 
     `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`);
-    `cross_check=False` skips the combination-difference fits (used while iterating);
-    `sextic=False` leaves H out (while iterating: a cubic term extrapolates predictions to
+    `cross_check=False` skips the combination-difference fits; `sextic=False` leaves H out
+    (the assignment iterates with `fit_band_model` so: a cubic term extrapolates predictions to
     unassigned J wildly when a few positions are still off); `library_centrifugal` = the
     library's (D', D'', H', H'') of the band, held where the lines cannot determine them (see
     D_DIFFERENCE_HELD, H_DIFFERENCE_HELD)."""
