@@ -28,7 +28,7 @@ import functools
 import itertools
 import math
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING, Callable, NamedTuple
+from typing import TYPE_CHECKING, Callable, Iterator, NamedTuple
 
 import numpy as np
 
@@ -139,8 +139,8 @@ class _Band:
 
     @property
     def matched_position(self) -> np.ndarray:
-        """Where the measured line should sit: the prediction plus any blend pull."""
-        return self.position + self.pull_of(self.m)
+        """Where the measured line should sit: the prediction plus any blend pull (read only)."""
+        return self.position + self.pull_of(self.m) if self.pull else self.position
 
     @property
     def key(self) -> tuple[str, int, int]:
@@ -697,19 +697,18 @@ INTENSITY_OUTLIER_FACTOR = 5.0
 INTENSITY_ALLOWANCE_SIGMA = 3.0
 
 
-def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], snr: list[float]) -> dict[int, float]:
-    """For each claimed line, the signal-to-noise its band's intensity pattern predicts: the
-    line's predicted relative intensity (its blended partner's included) times the band's SNR per unit intensity for thin lines,
-    the upper quartile over the weaker half of its measured lines (optically thick lines fall
-    short of their intensity; a band's weaker lines are its thinnest). `snr` is the line
-    table's, by line."""
+def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], snr: list[float]) -> Iterator[tuple[int, float]]:
+    """(line, expected) for each claimed line, band by band: the signal-to-noise its band's
+    intensity pattern predicts, the line's predicted relative intensity (its blended
+    partner's included) times the band's SNR per unit intensity for thin lines, the upper
+    quartile over the weaker half of its measured lines (optically thick lines fall short of
+    their intensity; a band's weaker lines are its thinnest). `snr` is the line table's."""
     per_band: dict[int, list[tuple[int, float]]] = {}
     for line, claim in winners.items():
         band = bands[claim.band]
         weight = band.all_weights.get(claim.m, claim.weight)
         partner = band.partner.get(claim.m)
         per_band.setdefault(claim.band, []).append((line, weight * (1.0 + partner[1]) if partner else weight))
-    expected: dict[int, float] = {}
     for members in per_band.values():
         measured = [(w, snr[line]) for line, w in members if math.isfinite(snr[line]) and w > 0 and snr[line] >= 10.0]
         if len(measured) < 4:
@@ -717,8 +716,7 @@ def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], snr: list[floa
         middle = _median(sorted(w for w, _ in measured))
         scale = _percentile(sorted(s / w for w, s in measured if w <= middle), 75)
         for line, w in members:
-            expected[line] = w * scale
-    return expected
+            yield line, w * scale
 
 
 def _intensity_outliers(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable) -> dict[int, float]:
@@ -726,7 +724,7 @@ def _intensity_outliers(bands: list[_Band], winners: dict[int, _Claim], lines: L
     over expected signal-to-noise."""
     out: dict[int, float] = {}
     snr = lines.snr.tolist()
-    for line, expected in _expected_snr(bands, winners, snr).items():
+    for line, expected in _expected_snr(bands, winners, snr):
         observed = snr[line]
         if math.isfinite(observed) and observed > INTENSITY_OUTLIER_FACTOR * expected + INTENSITY_ALLOWANCE_SIGMA:
             out[line] = observed / max(expected, 1e-3)
@@ -1212,7 +1210,8 @@ def _finish(
         branch, J_lower = branch_from_m(m)
         idx = np.array(members)
         pull = band.pull_of(m)
-        sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)) | (pull != 0))
+        in_blend = np.array([line in blended for line in members], dtype=bool)
+        sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], in_blend | (pull != 0))
         if measure_doublet is not None:
             # a saturated top has no doublet shape to fit: its blend centre stands
             pairs = [k for k, m_k in enumerate(m.tolist())
