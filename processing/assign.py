@@ -484,17 +484,24 @@ def _fit_band_lines(
 ) -> BandModel | None:
     if len(claims) < 4:
         return None
-    m = np.array([c.m for c in claims])
-    branch, J_lower = branch_from_m(m)
+    m = np.array([c.m for c in claims], dtype=np.int64)
+    branch, J_lower = _branches(m.tobytes())
     idx = np.array([c.line for c in claims])
-    sigma = lines.position_sigma_cm1[idx].copy()
     inflate = fit_sigma_factor(lines.saturated[idx], np.array([c.line in blended for c in claims], dtype=bool))
     # blended lines carry little weight when enough clean lines exist
-    sigma = sigma * inflate
+    sigma = lines.position_sigma_cm1[idx] * inflate
     try:
         return fit_band_model(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, sextic=False, library_centrifugal=band.library_centrifugal)
     except (ValueError, np.linalg.LinAlgError):
         return None
+
+
+@functools.lru_cache(maxsize=256)
+def _branches(m: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """`branch_from_m` of an int64 array given as bytes (cached, read-only: a band is refitted
+    on the same lines, and successive spectra of one sample assign the same ones)."""
+    branch, J_lower = branch_from_m(np.frombuffer(m, dtype=np.int64))
+    return _read_only(branch), _read_only(J_lower)
 
 
 def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarray, shift: float, notes: list[str]) -> None:
@@ -1138,7 +1145,9 @@ def _assign_at(
 
     assignment: dict[int, tuple[_Band, int]] = {line: (bands[c.band], c.m) for line, c in winners.items()}
     if settings.pattern_route:
-        available = usable & ~np.isin(np.arange(lines.count), list(assignment))
+        assigned = np.zeros(lines.count, dtype=bool)
+        assigned[list(assignment)] = True
+        available = usable & ~assigned
         for band, members in _pattern_bands(lines, available, library):
             notes.append(f"{band.label}: found by its P/R pattern ({len(members)} lines), numbering from the centre gap")
             for line, m in members.items():
@@ -1206,8 +1215,8 @@ def _finish(
     for key, members in sorted(groups.items(), key=lambda kv: (kv[0][0], kv[0][1], kv[0][2])):
         band = band_of[key]
         members.sort()
-        m = np.array([assignment[i][1] for i in members])
-        branch, J_lower = branch_from_m(m)
+        m = np.array([assignment[i][1] for i in members], dtype=np.int64)
+        branch, J_lower = _branches(m.tobytes())
         idx = np.array(members)
         pull = band.pull_of(m)
         in_blend = np.array([line in blended for line in members], dtype=bool)

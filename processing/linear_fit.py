@@ -181,7 +181,7 @@ def weighted_least_squares(
     return LinearFit(
         names=tuple(names),
         values=params,
-        covariance=solution.covariance() * inflation,
+        covariance=solution.covariance() * inflation if inflation != 1.0 else solution.covariance(),
         residuals=residuals,
         calc=calc,
         used=used,
