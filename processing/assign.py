@@ -316,10 +316,11 @@ def _match_count(peaks: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarr
     """Bool per target: a peak lies within tol of it (`peaks` ascending)."""
     # between -inf and +inf every target has a peak at or above it and one below it: the
     # distances to both need no clipping and no absolute value
-    padded = np.concatenate(([-np.inf], peaks, [np.inf]))
-    idx = padded.searchsorted(targets)
-    nearest = padded[idx] - targets
-    np.minimum(nearest, targets - padded[idx - 1], out=nearest)
+    above = np.concatenate((peaks, [np.inf]))  # the first peak at or above each target
+    below = np.concatenate(([-np.inf], peaks))  # the last peak below it
+    idx = peaks.searchsorted(targets)
+    nearest = above[idx] - targets
+    np.minimum(nearest, targets - below[idx], out=nearest)
     return nearest <= tol
 
 
@@ -343,7 +344,7 @@ def _best_shift(peaks: np.ndarray, predictions: _PredictionSet, tol: float, max_
         matched = _match_count(peaks, targets.ravel(), tolerance).reshape(targets.shape)
         missed = targets >= first
         missed &= targets <= last
-        missed &= ~matched
+        missed = missed > matched  # inside the range and on no peak
         return matched @ weights - missed @ weights
 
     if tol < COARSE_SHIFT_TOLERANCE:
@@ -434,11 +435,15 @@ def _claims(
     band_of = np.repeat(np.arange(len(bands)), [band.m.size for band in bands])
     idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
     # the measured lines either side of each prediction: (band line, side)
-    candidates = np.stack([idx - 1, idx], axis=1)
-    inside = candidates < peaks.size
-    candidates[~inside] = 0
+    candidates = idx[:, None] + np.array([-1, 0])
+    inside = None
+    if peaks.size == 1:  # the only measured line is on the left of every prediction
+        inside = candidates < peaks.size
+        candidates[~inside] = 0
     distance = np.abs(peaks[candidates] - targets[:, None]) / tolerance[:, None]
-    keep = inside & usable[candidates] & (distance <= 1.0)
+    keep = usable[candidates] & (distance <= 1.0)
+    if inside is not None:
+        keep &= inside
     for refused_band, refused_line in refused:
         keep &= (candidates != refused_line) | (band_of != refused_band)[:, None]
     k, side = np.nonzero(keep)
