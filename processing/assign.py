@@ -25,13 +25,14 @@ from __future__ import annotations
 
 import bisect
 import functools
+import itertools
 import math
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING, Callable
+from typing import TYPE_CHECKING, Callable, Iterator, NamedTuple
 
 import numpy as np
 
-from processing.fit import BandFit, fit_band
+from processing.fit import BandFit, BandModel, fit_band, fit_band_model
 from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
 from processing.lines import LineTable, fit_sigma_factor
 from processing.physical_constants import C2_CM_K
@@ -110,7 +111,7 @@ class _Band:
     position: np.ndarray  # current predictions
     sigma: np.ndarray  # prediction uncertainty
     weight: np.ndarray  # predicted relative intensity (molecule-band scale, 1 = strongest)
-    fit: BandFit | None = None
+    fit: BandModel | None = None  # the latest fit while refining
     # unresolved isotopologue partners: m -> shift of the blend centre from this line
     pull: dict[int, float] = field(default_factory=dict)
     # the same lines' partner: m -> (separation from this line, intensity ratio partner/this)
@@ -128,18 +129,18 @@ class _Band:
         if self.weights_source is None:
             return {}
         library, temperature_K, scale = self.weights_source
-        every = _predicted_band(library, self.isotopologue, self.v_upper, self.v_lower, temperature_K, 1e-7)
-        if every is None:
-            return {}
-        return {int(m): float(w) / scale for m, w in zip(every.lines.m.tolist(), every.strength_cm_per_molecule.tolist())}
+        return _all_weights(library, self.isotopologue, self.v_upper, self.v_lower, temperature_K, scale)
 
     def pull_of(self, m: np.ndarray) -> np.ndarray:
-        return np.array([self.pull.get(int(k), 0.0) for k in np.atleast_1d(m)])
+        m = np.atleast_1d(m)
+        if not self.pull:
+            return np.zeros(m.shape)
+        return np.array([self.pull.get(k, 0.0) for k in m.tolist()])
 
     @property
     def matched_position(self) -> np.ndarray:
-        """Where the measured line should sit: the prediction plus any blend pull."""
-        return self.position + self.pull_of(self.m)
+        """Where the measured line should sit: the prediction plus any blend pull (read only)."""
+        return self.position + self.pull_of(self.m) if self.pull else self.position
 
     @property
     def key(self) -> tuple[str, int, int]:
@@ -162,6 +163,16 @@ def _predicted_band(library: Library, label: str, v_upper: int, v_lower: int, te
         return None
 
 
+@functools.lru_cache(maxsize=512)
+def _all_weights(library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, scale: float) -> dict[int, float]:
+    """m -> predicted relative intensity (divided by `scale`) of every line down to 1e-7 of the
+    band's strongest (cached; callers only read it)."""
+    every = _predicted_band(library, label, v_upper, v_lower, temperature_K, 1e-7)
+    if every is None:
+        return {}
+    return {int(m): float(w) / scale for m, w in zip(every.lines.m.tolist(), every.strength_cm_per_molecule.tolist())}
+
+
 def library_centrifugal(dunham: DunhamCoefficients, v_upper: int, v_lower: int) -> tuple[float, float, float, float]:
     """The library's (D', D'', H', H'') of a band."""
     return (centrifugal_constant(dunham, v_upper), centrifugal_constant(dunham, v_lower),
@@ -182,8 +193,40 @@ def _band_may_overlap(library: Library, iso: Isotopologue, v_upper: int, v_lower
     return high > first - 10.0 and low < last + 10.0
 
 
-def _library_predictions(library: Library, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> list[_Band]:
-    bands: list[_Band] = []
+@dataclass(frozen=True)
+class _Predicted:
+    """One isotopologue's library lines of a band near a spectrum's range (read-only arrays;
+    weights on the molecule-band scale, 1 = strongest)."""
+
+    isotopologue: str
+    m: np.ndarray
+    position: np.ndarray
+    weight: np.ndarray
+    centrifugal: tuple[float, float, float, float]
+
+
+@dataclass(frozen=True)
+class _PredictionSet:
+    """A molecule's band predicted for one spectrum range and temperature, with what the shift
+    search needs: the positions and weights of every line at 2% of the strongest or more."""
+
+    bands: tuple[_Predicted, ...]
+    scale: float  # the strongest line's intensity (what the weights are divided by)
+    search_position: np.ndarray
+    search_weight: np.ndarray
+    search_total: float
+
+
+def _read_only(array: np.ndarray) -> np.ndarray:
+    array.flags.writeable = False
+    return array
+
+
+@functools.lru_cache(maxsize=256)
+def _prediction_set(library: Library, molecule: str, v_upper: int, v_lower: int, temperature_K: float, first: float, last: float) -> _PredictionSet | None:
+    """The library's lines of a molecule's band within 10 cm-1 of first..last (cached: they do
+    not depend on the spectrum's values, only on its range)."""
+    found: list[tuple[str, np.ndarray, np.ndarray, np.ndarray, tuple[float, float, float, float]]] = []
     for iso in library.molecule(molecule):
         if not _band_may_overlap(library, iso, v_upper, v_lower, first, last):
             continue
@@ -194,71 +237,161 @@ def _library_predictions(library: Library, molecule: str, v_upper: int, v_lower:
         inside = (lines.wavenumber_cm1 > first - 10.0) & (lines.wavenumber_cm1 < last + 10.0)
         if not inside.any():
             continue
-        bands.append(
-            _Band(
-                isotopologue=iso.label,
-                v_upper=v_upper,
-                v_lower=v_lower,
-                method="library",
-                m=lines.m[inside],
-                position=lines.wavenumber_cm1[inside],
-                sigma=np.zeros(int(inside.sum())),
-                weight=predicted.strength_cm_per_molecule[inside],
-                library_centrifugal=library_centrifugal(iso.dunham, v_upper, v_lower),
-                weights_source=(library, temperature_K, 1.0),
-            )
+        found.append((iso.label, lines.m[inside], lines.wavenumber_cm1[inside], predicted.strength_cm_per_molecule[inside],
+                      library_centrifugal(iso.dunham, v_upper, v_lower)))
+    if not found:
+        return None
+    strongest = max(float(weight.max()) for _, _, _, weight, _ in found)
+    bands = tuple(
+        _Predicted(label, _read_only(m), _read_only(position), _read_only(weight / strongest), centrifugal)
+        for label, m, position, weight, centrifugal in found
+    )
+    positions = np.concatenate([b.position for b in bands])
+    weights = np.concatenate([b.weight for b in bands])
+    keep = weights >= 0.02
+    search_weight = weights[keep]
+    return _PredictionSet(bands, strongest, _read_only(positions[keep]), _read_only(search_weight), float(search_weight.sum()))
+
+
+@dataclass(frozen=True)
+class _SearchPlan:
+    """Every molecule band with library lines near a spectrum's range, in the order searched,
+    with the strong lines (weight >= 0.05) of each band that has at least MIN_BAND_LINES of
+    them, grouped by band, for `_may_be_present` (read-only arrays)."""
+
+    sets: tuple[tuple[str, int, int, _PredictionSet], ...]  # (molecule, v', v'', predictions)
+    strong_position: np.ndarray
+    strong_group: np.ndarray  # the group (band) of each strong line, ascending
+    group_set: np.ndarray  # the index in `sets` of each group
+
+
+@functools.lru_cache(maxsize=64)
+def _search_plan(
+    library: Library, molecules: tuple[str, ...], bands: tuple[tuple[int, int], ...], temperature_K: float, first: float, last: float
+) -> _SearchPlan:
+    """The search plan of a spectrum range (cached: one look-up per spectrum)."""
+    sets = []
+    positions: list[np.ndarray] = []
+    group_set: list[int] = []
+    for molecule in molecules:
+        for v_upper, v_lower in bands:
+            predictions = _prediction_set(library, molecule, v_upper, v_lower, temperature_K, first, last)
+            if predictions is None:
+                continue
+            for band in predictions.bands:
+                strong = band.position[band.weight >= 0.05]
+                if strong.size >= MIN_BAND_LINES:
+                    positions.append(strong)
+                    group_set.append(len(sets))
+            sets.append((molecule, v_upper, v_lower, predictions))
+    group = np.repeat(np.arange(len(positions)), [p.size for p in positions]) if positions else np.zeros(0, dtype=np.intp)
+    return _SearchPlan(
+        tuple(sets),
+        _read_only(np.concatenate(positions) if positions else np.zeros(0)),
+        _read_only(group),
+        _read_only(np.array(group_set, dtype=np.intp)),
+    )
+
+
+def _library_predictions(predictions: _PredictionSet, library: Library, v_upper: int, v_lower: int, temperature_K: float) -> list[_Band]:
+    """Fresh bands (they are refined in place) from a cached prediction set."""
+    return [
+        _Band(
+            isotopologue=b.isotopologue,
+            v_upper=v_upper,
+            v_lower=v_lower,
+            method="library",
+            m=b.m,
+            position=b.position,
+            sigma=np.zeros(b.m.size),
+            weight=b.weight,
+            library_centrifugal=b.centrifugal,
+            weights_source=(library, temperature_K, predictions.scale),
         )
-    if not bands:
-        return bands
-    strongest = max(float(b.weight.max()) for b in bands)
-    for b in bands:
-        b.weight = b.weight / strongest
-        b.weights_source = (library, temperature_K, strongest)
-    return bands
+        for b in predictions.bands
+    ]
 
 
 def _match_count(peaks: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarray:
-    """Bool per target: a peak lies within tol of it."""
-    if peaks.size == 0:
-        return np.zeros(targets.shape, dtype=bool)
-    idx = np.clip(np.searchsorted(peaks, targets), 1, peaks.size - 1)
-    nearest = np.minimum(np.abs(peaks[idx] - targets), np.abs(peaks[idx - 1] - targets))
-    if peaks.size == 1:
-        nearest = np.abs(peaks[0] - targets)
+    """Bool per target: a peak lies within tol of it (`peaks` ascending)."""
+    # between -inf and +inf every target has a peak at or above it and one below it: the
+    # distances to both need no clipping and no absolute value
+    above = np.concatenate((peaks, [np.inf]))  # the first peak at or above each target
+    below = np.concatenate(([-np.inf], peaks))  # the last peak below it
+    idx = peaks.searchsorted(targets)
+    nearest = above[idx] - targets
+    np.minimum(nearest, targets - below[idx], out=nearest)
     return nearest <= tol
 
 
-def _best_shift(peaks: np.ndarray, bands: list[_Band], tol: float, max_shift: float, first: float, last: float) -> tuple[float, float]:
+@functools.lru_cache(maxsize=64)
+def _shift_grid(max_shift: float, step: float) -> np.ndarray:
+    """-max_shift..+max_shift in `step`s (cached, read-only)."""
+    return _read_only(np.arange(-max_shift, max_shift + step / 2, step))
+
+
+def _best_shift(peaks: np.ndarray, predictions: _PredictionSet, tol: float, max_shift: float, first: float, last: float) -> tuple[float, float]:
     """Common shift maximising matched minus missed predicted intensity; (shift, score).
 
     A predicted line that lands inside the measured range on no peak counts against its
     shift: this is what tells the true numbering from one shifted by a whole line spacing
     (the alias puts a line into the empty band-centre gap)."""
-    positions = np.concatenate([b.position for b in bands])
-    weights = np.concatenate([b.weight for b in bands])
-    keep = weights >= 0.02
-    positions, weights = positions[keep], weights[keep]
+    positions, weights = predictions.search_position, predictions.search_weight
     if positions.size == 0:
         return 0.0, 0.0
     def scores_at(shifts: np.ndarray, tolerance: float) -> np.ndarray:
         targets = positions[None, :] + shifts[:, None]
         matched = _match_count(peaks, targets.ravel(), tolerance).reshape(targets.shape)
-        inside = (targets >= first) & (targets <= last)
-        return matched @ weights - (inside & ~matched) @ weights
+        missed = targets >= first
+        missed &= targets <= last
+        missed = missed > matched  # inside the range and on no peak
+        return matched @ weights - missed @ weights
 
     if tol < COARSE_SHIFT_TOLERANCE:
         # a coarse search first (a fine step over +-5 cm-1 is slow), then a fine one around
         # its three best shifts
-        coarse = np.arange(-max_shift, max_shift + COARSE_SHIFT_TOLERANCE / 4, COARSE_SHIFT_TOLERANCE / 2)
+        coarse = _shift_grid(max_shift, COARSE_SHIFT_TOLERANCE / 2)
         rough = scores_at(coarse, COARSE_SHIFT_TOLERANCE)
         centres = coarse[np.lexsort((np.abs(coarse), -rough))[:3]]
-        shifts = np.unique(np.concatenate([c + np.arange(-COARSE_SHIFT_TOLERANCE, COARSE_SHIFT_TOLERANCE + tol / 4, tol / 2) for c in centres]))
+        around = _shift_grid(COARSE_SHIFT_TOLERANCE, tol / 2)
+        shifts = np.unique(np.concatenate([c + around for c in centres]))
     else:
-        shifts = np.arange(-max_shift, max_shift + tol / 4, tol / 2)
+        shifts = _shift_grid(max_shift, tol / 2)
     scores = scores_at(shifts, tol)
     # prefer the smallest shift among equal scores
     best = int(np.lexsort((np.abs(shifts), -scores))[0])
-    return float(shifts[best]), float(scores[best] / weights.sum())
+    return float(shifts[best]), float(scores[best] / predictions.search_total)
+
+
+def _may_be_present(peaks: np.ndarray, plan: _SearchPlan, tol: float, max_shift: float) -> np.ndarray:
+    """Per prediction set of the plan: False when no band of it can pass `_band_is_present` at
+    any shift the search may choose. That needs MIN_BAND_LINES of a band's strong lines on
+    peaks within `tol` of one common shift, so MIN_BAND_LINES (line, peak) pairs whose
+    separations lie within 2 tol of one another. Counting pairs is cheap; most of a library's
+    bands fail here, and their shift search (the costly part) is skipped with the same outcome."""
+    possible = np.zeros(len(plan.sets), dtype=bool)
+    strong = plan.strong_position
+    if strong.size == 0 or peaks.size == 0:
+        return possible
+    # every shift searched lies within max_shift + the fine search's reach around a coarse one
+    reach = max_shift + COARSE_SHIFT_TOLERANCE + 2.0 * tol + 1.0
+    window = 2.0 * tol + 1e-6  # with a margin far above rounding at a few thousand cm-1
+    low = peaks.searchsorted(strong - reach)
+    counts = peaks.searchsorted(strong + reach, side="right") - low
+    total = int(counts.sum())
+    if total < MIN_BAND_LINES:
+        return possible
+    line = np.repeat(np.arange(strong.size), counts)
+    peak = np.arange(total) - np.repeat(np.cumsum(counts) - counts - low, counts)
+    # separations by band, the bands kept apart by far more than a window (groups ascend with
+    # the lines, and each group's separations lie within +-reach)
+    group = plan.strong_group[line]
+    key = (peaks[peak] - strong[line]) + group * (4.0 * reach + 4.0 * window + 10.0)
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    together = key.searchsorted(key + window, side="right") - np.arange(total)
+    possible[plan.group_set[np.unique(group[order][together >= MIN_BAND_LINES])]] = True
+    return possible
 
 
 def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, first: float, last: float) -> bool:
@@ -268,45 +401,61 @@ def _band_is_present(peaks: np.ndarray, band: _Band, shift: float, tol: float, f
     whether this band is here."""
     shifted = band.position + shift
     strong = (band.weight >= 0.05) & (shifted >= first) & (shifted <= last)
-    n_expected = int(strong.sum())
+    n_expected = int(np.count_nonzero(strong))
     if n_expected < MIN_BAND_LINES:
         return False
     matched = _match_count(peaks, band.position[strong] + shift, tol)
-    n_matched = int(matched.sum())
+    n_matched = int(np.count_nonzero(matched))
     # the band's own lines are no chance matches: the rate counts the other peaks there
     low, high = float(shifted[strong].min()) - 1.0, float(shifted[strong].max()) + 1.0
-    others = float(np.searchsorted(peaks, high) - np.searchsorted(peaks, low)) - n_matched
+    below_low, below_high = peaks.searchsorted([low, high]).tolist()
+    others = float(below_high - below_low) - n_matched
     chance = n_expected * min(1.0, 2.0 * tol * max(others, 0.0) / (high - low))
     return n_matched >= MIN_BAND_LINES and n_matched >= 0.5 * n_expected and n_matched >= 3.0 * chance + 3
 
 
 # ------------------------------------------------------------------------------- matching
-@dataclass(frozen=True)
-class _Claim:
+class _Claim(NamedTuple):
     band: int
     line: int
     m: int
     distance: float  # |obs - pred| / tol
+    weight: float  # the band line's predicted relative intensity when claimed
 
 
 def _claims(
     peaks: np.ndarray, usable: np.ndarray, bands: list[_Band], tolerances: list[np.ndarray], refused: set[tuple[int, int]] = frozenset()
 ) -> list[_Claim]:
     """Every (band line, measured line) pair within tolerance, except the `refused` (band,
-    line) pairs."""
-    claims: list[_Claim] = []
-    for bi, (band, tol) in enumerate(zip(bands, tolerances)):
-        if peaks.size == 0:
-            break
-        targets = band.matched_position
-        idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
-        for k, (target, t) in enumerate(zip(targets, tol)):
-            for j in (idx[k] - 1, idx[k]):
-                if 0 <= j < peaks.size and usable[j] and (bi, int(j)) not in refused:
-                    d = abs(peaks[j] - target) / t
-                    if d <= 1.0:
-                        claims.append(_Claim(bi, int(j), int(band.m[k]), d))
-    return claims
+    line) pairs; by band, then band line, then measured line (the lower one first)."""
+    if peaks.size == 0 or not bands:
+        return []
+    targets = np.concatenate([band.matched_position for band in bands])
+    tolerance = np.concatenate(tolerances)
+    band_of = np.repeat(np.arange(len(bands)), [band.m.size for band in bands])
+    idx = np.clip(np.searchsorted(peaks, targets), 1, max(peaks.size - 1, 1))
+    # the measured lines either side of each prediction: (band line, side)
+    candidates = idx[:, None] + np.array([-1, 0])
+    inside = None
+    if peaks.size == 1:  # the only measured line is on the left of every prediction
+        inside = candidates < peaks.size
+        candidates[~inside] = 0
+    distance = np.abs(peaks[candidates] - targets[:, None]) / tolerance[:, None]
+    keep = usable[candidates] & (distance <= 1.0)
+    if inside is not None:
+        keep &= inside
+    for refused_band, refused_line in refused:
+        keep &= (candidates != refused_line) | (band_of != refused_band)[:, None]
+    k, side = np.nonzero(keep)
+    m = np.concatenate([band.m for band in bands])
+    weight = np.concatenate([band.weight for band in bands])
+    fields = zip(band_of[k].tolist(), candidates[k, side].tolist(), m[k].tolist(), distance[k, side].tolist(), weight[k].tolist())
+    return list(map(tuple.__new__, itertools.repeat(_Claim), fields))  # _Claim(*f) without its Python-level __new__
+
+
+def _claim_order(claim: _Claim) -> tuple[float, float]:
+    """Closest in tolerance units first, then the strongest."""
+    return (claim.distance, -claim.weight)
 
 
 def _resolve(claims: list[_Claim], bands: list[_Band]) -> tuple[dict[int, _Claim], set[int]]:
@@ -315,18 +464,16 @@ def _resolve(claims: list[_Claim], bands: list[_Band]) -> tuple[dict[int, _Claim
     by_line: dict[int, list[_Claim]] = {}
     for claim in claims:
         by_line.setdefault(claim.line, []).append(claim)
-    weight_of = {}
-    for bi, band in enumerate(bands):
-        for m, w in zip(band.m, band.weight):
-            weight_of[(bi, int(m))] = float(w)
     winners: dict[int, _Claim] = {}
     blended: set[int] = set()
     for line, options in by_line.items():
-        options.sort(key=lambda c: (c.distance, -weight_of.get((c.band, c.m), 0.0)))
+        if len(options) > 1:
+            options.sort(key=_claim_order)
+            best = options[0]
+            isotopologue = bands[best.band].isotopologue
+            if any(c.weight > 0.05 * best.weight for c in options[1:] if bands[c.band].isotopologue != isotopologue):
+                blended.add(line)
         winners[line] = options[0]
-        others = [c for c in options[1:] if bands[c.band].isotopologue != bands[options[0].band].isotopologue]
-        if any(weight_of.get((c.band, c.m), 0.0) > 0.05 * weight_of.get((options[0].band, options[0].m), 1.0) for c in others):
-            blended.add(line)
     # a band line claimed by two measured lines keeps the closer one
     by_band_line: dict[tuple[int, int], _Claim] = {}
     for claim in winners.values():
@@ -339,20 +486,27 @@ def _resolve(claims: list[_Claim], bands: list[_Band]) -> tuple[dict[int, _Claim
 
 def _fit_band_lines(
     band: _Band, claims: list[_Claim], lines: LineTable, blended: set[int]
-) -> BandFit | None:
+) -> BandModel | None:
     if len(claims) < 4:
         return None
-    m = np.array([c.m for c in claims])
-    branch, J_lower = branch_from_m(m)
+    m = np.array([c.m for c in claims], dtype=np.int64)
+    branch, J_lower = _branches(m.tobytes())
     idx = np.array([c.line for c in claims])
-    sigma = lines.position_sigma_cm1[idx].copy()
-    inflate = fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)))
+    inflate = fit_sigma_factor(lines.saturated[idx], np.array([c.line in blended for c in claims], dtype=bool))
     # blended lines carry little weight when enough clean lines exist
-    sigma = sigma * inflate
+    sigma = lines.position_sigma_cm1[idx] * inflate
     try:
-        return fit_band(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, cross_check=False, sextic=False, library_centrifugal=band.library_centrifugal)
+        return fit_band_model(band.isotopologue, band.v_upper, band.v_lower, branch, J_lower, lines.position_cm1[idx] - band.pull_of(m), sigma, lines.sigma_known, sextic=False, library_centrifugal=band.library_centrifugal)
     except (ValueError, np.linalg.LinAlgError):
         return None
+
+
+@functools.lru_cache(maxsize=256)
+def _branches(m: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """`branch_from_m` of an int64 array given as bytes (cached, read-only: a band is refitted
+    on the same lines, and successive spectra of one sample assign the same ones)."""
+    branch, J_lower = branch_from_m(np.frombuffer(m, dtype=np.int64))
+    return _read_only(branch), _read_only(J_lower)
 
 
 def _merge_unresolved_partners(bands: list[_Band], width: float, peaks: np.ndarray, shift: float, notes: list[str]) -> None:
@@ -419,31 +573,54 @@ def _drop_undetectable(bands: list[_Band], winners: dict[int, _Claim], lines: Li
     lines reach the detection threshold at the intensity scale the assigned lines of that
     vibrational band show, or under half of those were found. Returns the band indices to
     drop."""
-    scale_of: dict[tuple[int, int], float] = {}
+    weight_of: dict[int, dict[int, float]] = {}
+    found: dict[int, int] = {}
+    snr = lines.snr.tolist()
+    scale_of: dict[tuple[int, int], list[float]] = {}
     for claim in winners.values():
+        found[claim.band] = found.get(claim.band, 0) + 1
         band = bands[claim.band]
-        w = float(band.weight[band.m == claim.m][0]) if np.any(band.m == claim.m) else 0.0
-        if w > 0.05 and np.isfinite(lines.snr[claim.line]):
-            key = (band.v_upper, band.v_lower)
-            scale_of.setdefault(key, [])  # type: ignore[arg-type]
-            scale_of[key].append(lines.snr[claim.line] / w)  # type: ignore[union-attr]
+        if claim.band not in weight_of:
+            weight_of[claim.band] = dict(zip(band.m.tolist(), band.weight.tolist()))
+        w = weight_of[claim.band].get(claim.m, 0.0)
+        if w > 0.05 and math.isfinite(snr[claim.line]):
+            scale_of.setdefault((band.v_upper, band.v_lower), []).append(snr[claim.line] / w)
+    # optically thick lines fall short of their weight, thin ones do not: the upper quartile
+    # of SNR per unit weight is the scale a thin (weak) band's lines reach
+    snr_per_weight = {key: _percentile(sorted(scales), 75) for key, scales in scale_of.items()}
     drop: set[int] = set()
     for bi, band in enumerate(bands):
-        scales = scale_of.get((band.v_upper, band.v_lower))
-        if not scales:
+        scale = snr_per_weight.get((band.v_upper, band.v_lower))
+        if scale is None:
             continue
-        # optically thick lines fall short of their weight, thin ones do not: the upper
-        # quartile of SNR per unit weight is the scale a thin (weak) band's lines reach
-        snr_per_weight = float(np.percentile(scales, 75))  # type: ignore[arg-type]
-        detectable = int(np.sum(band.weight * snr_per_weight >= threshold_sigma))
-        found = sum(1 for c in winners.values() if c.band == bi)
-        if detectable < MIN_BAND_LINES or found < 0.5 * detectable:
+        detectable = int(np.count_nonzero(band.weight * scale >= threshold_sigma))
+        if detectable < MIN_BAND_LINES or found.get(bi, 0) < 0.5 * detectable:
             drop.add(bi)
     return drop
 
 
-def _tolerances(bands: list[_Band], lines: LineTable, tol0: float) -> list[np.ndarray]:
-    line_sigma = float(np.median(lines.position_sigma_cm1)) if lines.count else 0.0
+def _percentile(ordered: list[float], q: float) -> float:
+    """`numpy.percentile(values, q)` (linear interpolation) of finite values already sorted,
+    computed the same way to the last bit, without numpy's overhead on a few numbers."""
+    virtual = (len(ordered) - 1) * (q / 100)
+    if virtual >= len(ordered) - 1:
+        return ordered[-1]
+    below = math.floor(virtual)
+    gamma = virtual - below
+    a, b = ordered[below], ordered[below + 1]
+    difference = b - a
+    return b - difference * (1 - gamma) if gamma >= 0.5 else a + difference * gamma
+
+
+def _median(ordered: list[float]) -> float:
+    """`numpy.median` of finite values already sorted (the same arithmetic)."""
+    half = len(ordered) // 2
+    return ordered[half] if len(ordered) % 2 else (ordered[half - 1] + ordered[half]) / 2
+
+
+def _tolerances(bands: list[_Band], line_sigma: float, tol0: float) -> list[np.ndarray]:
+    """Each band line's matching tolerance: `tol0` before the band is fitted, then five times
+    the spread of prediction, line position (`line_sigma`, the typical one) and fit."""
     out = []
     for band in bands:
         if band.fit is None:
@@ -463,27 +640,67 @@ J_CAP_RELATIVE = 1e-5
 def _J_cap(band: _Band) -> int:
     """Highest J'' to predict: where the band's predicted intensity stays above J_CAP_RELATIVE
     of its strongest line (+2)."""
-    if not band.all_weights:
-        return int(np.max(np.abs(band.m))) + 2
-    strongest = max(band.all_weights.values())
-    J = [abs(m) - (1 if m > 0 else 0) for m, w in band.all_weights.items() if w >= J_CAP_RELATIVE * strongest]
-    return max(J) + 2 if J else int(np.max(np.abs(band.m))) + 2
+    highest = None
+    if band.weights_source is not None:
+        library, temperature_K, scale = band.weights_source
+        highest = _highest_J_seen(library, band.isotopologue, band.v_upper, band.v_lower, temperature_K, scale)
+    return highest + 2 if highest is not None else int(np.max(np.abs(band.m))) + 2
+
+
+@functools.lru_cache(maxsize=512)
+def _highest_J_seen(library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, scale: float) -> int | None:
+    """Highest J'' whose predicted intensity is at least J_CAP_RELATIVE of the band's strongest
+    (None without predictions; cached with them)."""
+    weights = _all_weights(library, label, v_upper, v_lower, temperature_K, scale)
+    if not weights:
+        return None
+    strongest = max(weights.values())
+    J = [abs(m) - (1 if m > 0 else 0) for m, w in weights.items() if w >= J_CAP_RELATIVE * strongest]
+    return max(J) if J else None
 
 
 def _extend_predictions(band: _Band, J_cap: int) -> None:
     """After a fit, predict every line up to J'' = J_cap from the fitted constants (lines
     merged into a stronger partner's blend stay out)."""
     assert band.fit is not None
-    m = np.concatenate([np.arange(-J_cap, 0), np.arange(1, J_cap + 2)])
-    if band.dropped:
-        m = m[~np.isin(m, list(band.dropped))]
-    branch, J_lower = branch_from_m(m)
+    dropped = frozenset(band.dropped)
+    m, branch, J_lower = _band_lines_to(J_cap, dropped)
     position, sigma = band.fit.predict(branch, J_lower)
-    old_weight = dict(zip(band.m.tolist(), band.weight.tolist()))
+    weight = None
+    if band.weights_source is not None:
+        library, temperature_K, scale = band.weights_source
+        weight = _library_weights_to(library, band.isotopologue, band.v_upper, band.v_lower, temperature_K, scale, J_cap, dropped)
+    if weight is None:  # a line the library does not predict keeps its weight (or 1e-8)
+        old_weight = dict(zip(band.m.tolist(), band.weight.tolist()))
+        all_weights = band.all_weights
+        weight = np.array([all_weights.get(k, old_weight.get(k, 1e-8)) for k in m.tolist()])
     band.m = m
     band.position = position
     band.sigma = sigma
-    band.weight = np.array([band.all_weights.get(int(k), old_weight.get(int(k), 1e-8)) for k in m])
+    band.weight = weight
+
+
+@functools.lru_cache(maxsize=256)
+def _library_weights_to(
+    library: Library, label: str, v_upper: int, v_lower: int, temperature_K: float, scale: float, J_cap: int, dropped: frozenset[int]
+) -> np.ndarray | None:
+    """The predicted relative intensity of every line of `_band_lines_to(J_cap, dropped)`, or
+    None when the library predicts some of them not (cached, read-only)."""
+    weights = _all_weights(library, label, v_upper, v_lower, temperature_K, scale)
+    m = _band_lines_to(J_cap, dropped)[0].tolist()
+    if not all(k in weights for k in m):
+        return None
+    return _read_only(np.array([weights[k] for k in m]))
+
+
+@functools.lru_cache(maxsize=256)
+def _band_lines_to(J_cap: int, dropped: frozenset[int]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(m, branch, J'') of every line to J'' = J_cap but the `dropped` m (cached, read-only)."""
+    m = np.concatenate([np.arange(-J_cap, 0), np.arange(1, J_cap + 2)])
+    if dropped:
+        m = m[~np.isin(m, list(dropped))]
+    branch, J_lower = branch_from_m(m)
+    return _read_only(m), _read_only(branch), _read_only(J_lower)
 
 
 # A line more than this many times as tall as its band's own intensity pattern predicts (plus
@@ -492,45 +709,36 @@ INTENSITY_OUTLIER_FACTOR = 5.0
 INTENSITY_ALLOWANCE_SIGMA = 3.0
 
 
-def _band_weight(band: _Band, m: int) -> float:
-    """Predicted relative intensity of a band line, its blended partner's included."""
-    weight = band.all_weights.get(m)
-    if weight is None:
-        index = np.flatnonzero(band.m == m)
-        weight = float(band.weight[index[0]]) if index.size else 0.0
-    partner = band.partner.get(m)
-    return weight * (1.0 + partner[1]) if partner else weight
-
-
-def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable) -> dict[int, float]:
-    """For each claimed line, the signal-to-noise its band's intensity pattern predicts: the
-    line's predicted relative intensity times the band's SNR per unit intensity for thin lines,
-    the upper quartile over the weaker half of its measured lines (optically thick lines fall
-    short of their intensity; a band's weaker lines are its thinnest)."""
+def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], snr: list[float]) -> Iterator[tuple[int, float]]:
+    """(line, expected) for each claimed line, band by band: the signal-to-noise its band's
+    intensity pattern predicts, the line's predicted relative intensity (its blended
+    partner's included) times the band's SNR per unit intensity for thin lines, the upper
+    quartile over the weaker half of its measured lines (optically thick lines fall short of
+    their intensity; a band's weaker lines are its thinnest). `snr` is the line table's."""
     per_band: dict[int, list[tuple[int, float]]] = {}
     for line, claim in winners.items():
-        per_band.setdefault(claim.band, []).append((line, _band_weight(bands[claim.band], claim.m)))
-    expected: dict[int, float] = {}
-    for bi, members in per_band.items():
-        weights = np.array([w for _, w in members])
-        snr = np.array([lines.snr[line] for line, _ in members])
-        measured = np.isfinite(snr) & (weights > 0) & (snr >= 10.0)
-        if measured.sum() < 4:
+        band = bands[claim.band]
+        weight = band.all_weights.get(claim.m, claim.weight)
+        partner = band.partner.get(claim.m)
+        per_band.setdefault(claim.band, []).append((line, weight * (1.0 + partner[1]) if partner else weight))
+    for members in per_band.values():
+        measured = [(w, snr[line]) for line, w in members if math.isfinite(snr[line]) and w > 0 and snr[line] >= 10.0]
+        if len(measured) < 4:
             continue
-        weaker = measured & (weights <= np.median(weights[measured]))
-        scale = float(np.percentile(snr[weaker] / weights[weaker], 75))
-        for (line, _), w in zip(members, weights):
-            expected[line] = w * scale
-    return expected
+        middle = _median(sorted(w for w, _ in measured))
+        scale = _percentile(sorted(s / w for w, s in measured if w <= middle), 75)
+        for line, w in members:
+            yield line, w * scale
 
 
 def _intensity_outliers(bands: list[_Band], winners: dict[int, _Claim], lines: LineTable) -> dict[int, float]:
     """Claimed lines far taller than their band's intensity pattern allows: line -> observed
     over expected signal-to-noise."""
     out: dict[int, float] = {}
-    for line, expected in _expected_snr(bands, winners, lines).items():
-        observed = float(lines.snr[line])
-        if np.isfinite(observed) and observed > INTENSITY_OUTLIER_FACTOR * expected + INTENSITY_ALLOWANCE_SIGMA:
+    snr = lines.snr.tolist()
+    for line, expected in _expected_snr(bands, winners, snr):
+        observed = snr[line]
+        if math.isfinite(observed) and observed > INTENSITY_OUTLIER_FACTOR * expected + INTENSITY_ALLOWANCE_SIGMA:
             out[line] = observed / max(expected, 1e-3)
     return out
 
@@ -547,8 +755,9 @@ def _refine(
     blended: set[int] = set()
     refused: dict[tuple[int, int], float] = {}
     members_before: dict[int, frozenset[tuple[int, int]]] = {}
+    line_sigma = float(np.median(lines.position_sigma_cm1)) if lines.count else 0.0
     for _ in range(8):
-        claims = _claims(peaks, usable, bands, _tolerances(bands, lines, tol0), set(refused))
+        claims = _claims(peaks, usable, bands, _tolerances(bands, line_sigma, tol0), set(refused))
         winners, blended = _resolve(claims, bands)
         if np.all(np.isfinite(lines.snr)):
             for line, ratio in _intensity_outliers(bands, winners, lines).items():
@@ -559,8 +768,11 @@ def _refine(
         if state == previous:
             break
         previous = state
+        claims_of: dict[int, list[_Claim]] = {}
+        for claim in winners.values():
+            claims_of.setdefault(claim.band, []).append(claim)
         for bi, band in enumerate(bands):
-            mine = [c for c in winners.values() if c.band == bi]
+            mine = claims_of.get(bi, [])
             members = frozenset((c.line, c.m) for c in mine)
             if members_before.get(bi) == members:
                 continue  # same lines as last pass: the fit would not change
@@ -848,20 +1060,24 @@ def rotational_temperature_estimate(lines: LineTable, result: AssignmentResult) 
     rows_of: dict[tuple[str, int, int], list[tuple[float, float, float]]] = {}
     width = lines.typical_width_cm1 if np.isfinite(lines.typical_width_cm1) and lines.typical_width_cm1 > 0 else np.inf
     B_of = {(b.isotopologue, b.v_upper, b.v_lower): b.B_lower.value for b in result.bands if b.rms <= 0.1 * width}
+    saturated, snr = lines.saturated.tolist(), lines.snr.tolist()
+    height, position = lines.height.tolist(), lines.position_cm1.tolist()
     for i, assigned in enumerate(result.per_line):
-        key = None if assigned is None else (assigned.isotopologue, assigned.v_upper, assigned.v_lower)
-        if key not in B_of or lines.saturated[i] or lines.snr[i] < 10.0 or assigned.blended:
+        if assigned is None or saturated[i] or snr[i] < 10.0 or assigned.blended:
+            continue
+        key = (assigned.isotopologue, assigned.v_upper, assigned.v_lower)
+        if key not in B_of:
             continue
         J = assigned.J_lower
         hoenl_london = J + 1 if assigned.branch == R_BRANCH else J
         if hoenl_london <= 0:
             continue
         energy = B_of[key] * J * (J + 1.0)
-        rows_of.setdefault(key, []).append((energy, math.log(lines.height[i] / (hoenl_london * lines.position_cm1[i])), float(lines.height[i])))
+        rows_of.setdefault(key, []).append((energy, math.log(height[i] / (hoenl_london * position[i])), height[i]))
     usable = {key: rows for key, rows in rows_of.items() if len(rows) >= 8}
     if not usable:
         return None
-    thinnest = min(usable, key=lambda key: float(np.median([r[2] for r in usable[key]])))
+    thinnest = min(usable, key=lambda key: _median(sorted(r[2] for r in usable[key])))
     energy, value, _ = np.array(usable[thinnest]).T
     if np.ptp(energy) <= 0:
         return None
@@ -896,27 +1112,29 @@ def _assign_at(
     tol0 = float(np.clip(0.5 * width, LIBRARY_LINE_ACCURACY_CM1, 1.0)) if width else 0.3
 
     molecules = _candidate_molecules(library, settings.species, notes)
+    usable_peaks = peaks[usable]
     bands: list[_Band] = []
     shifts: dict[str, float] = {}
     J_caps: dict[tuple[str, int, int], int] = {}
-    for molecule in molecules:
-        for v_upper, v_lower in settings.bands:
-            predicted = _library_predictions(library, molecule, v_upper, v_lower, settings.temperature_K, first_cm1, last_cm1)
-            if not predicted:
-                continue
-            shift, _score = _best_shift(peaks[usable], predicted, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
-            present = [b for b in predicted if _band_is_present(peaks[usable], b, shift, tol0, first_cm1, last_cm1)]
-            if not present:
-                continue
-            shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
-            # minor isotopologues ride on the molecule's shift even when weak
-            riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.001]
-            _merge_unresolved_partners(riding, width, peaks[usable], shift, notes)
-            for band in riding:
-                if band.m.size:
-                    band.position = band.position + shift
-                    J_caps[band.key] = _J_cap(band)
-                    bands.append(band)
+    plan = _search_plan(library, tuple(molecules), tuple((u, l) for u, l in settings.bands), settings.temperature_K, first_cm1, last_cm1)
+    possible = _may_be_present(usable_peaks, plan, tol0, settings.max_shift_cm1)
+    for (molecule, v_upper, v_lower, prediction_set), may_be_present in zip(plan.sets, possible.tolist()):
+        if not may_be_present:
+            continue
+        predicted = _library_predictions(prediction_set, library, v_upper, v_lower, settings.temperature_K)
+        shift, _score = _best_shift(usable_peaks, prediction_set, tol0, settings.max_shift_cm1, first_cm1, last_cm1)
+        present = [b for b in predicted if _band_is_present(usable_peaks, b, shift, tol0, first_cm1, last_cm1)]
+        if not present:
+            continue
+        shifts[f"{molecule} {v_upper}-{v_lower}"] = shift
+        # minor isotopologues ride on the molecule's shift even when weak
+        riding = [b for b in predicted if b in present or float(b.weight.max()) >= 0.001]
+        _merge_unresolved_partners(riding, width, usable_peaks, shift, notes)
+        for band in riding:
+            if band.m.size:
+                band.position = band.position + shift
+                J_caps[band.key] = _J_cap(band)
+                bands.append(band)
 
     winners, blended, refused = _refine(bands, lines, claimable, tol0, J_caps) if bands else ({}, set(), {})
     if bands and np.all(np.isfinite(lines.snr)):
@@ -932,7 +1150,9 @@ def _assign_at(
 
     assignment: dict[int, tuple[_Band, int]] = {line: (bands[c.band], c.m) for line, c in winners.items()}
     if settings.pattern_route:
-        available = usable & ~np.isin(np.arange(lines.count), list(assignment))
+        assigned = np.zeros(lines.count, dtype=bool)
+        assigned[list(assignment)] = True
+        available = usable & ~assigned
         for band, members in _pattern_bands(lines, available, library):
             notes.append(f"{band.label}: found by its P/R pattern ({len(members)} lines), numbering from the centre gap")
             for line, m in members.items():
@@ -988,19 +1208,24 @@ def _finish(
     excluded = excluded if excluded is not None else np.zeros(lines.count, dtype=bool)
     groups: dict[tuple[str, int, int], list[int]] = {}
     band_of: dict[tuple[str, int, int], _Band] = {}
+    key_of: dict[int, tuple[str, int, int]] = {}  # by band object
     for line, (band, _m) in assignment.items():
-        groups.setdefault(band.key, []).append(line)
-        band_of[band.key] = band
+        key = key_of.get(id(band))
+        if key is None:
+            key = key_of[id(band)] = band.key
+        groups.setdefault(key, []).append(line)
+        band_of[key] = band
     per_line: list[LineAssignment | None] = [None] * lines.count
     fits: list[BandFit] = []
     for key, members in sorted(groups.items(), key=lambda kv: (kv[0][0], kv[0][1], kv[0][2])):
         band = band_of[key]
         members.sort()
-        m = np.array([assignment[i][1] for i in members])
-        branch, J_lower = branch_from_m(m)
+        m = np.array([assignment[i][1] for i in members], dtype=np.int64)
+        branch, J_lower = _branches(m.tobytes())
         idx = np.array(members)
         pull = band.pull_of(m)
-        sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], np.isin(idx, list(blended)) | (pull != 0))
+        in_blend = np.array([line in blended for line in members], dtype=bool)
+        sigma = lines.position_sigma_cm1[idx] * fit_sigma_factor(lines.saturated[idx], in_blend | (pull != 0))
         if measure_doublet is not None:
             # a saturated top has no doublet shape to fit: its blend centre stands
             pairs = [k for k, m_k in enumerate(m.tolist())
@@ -1025,31 +1250,27 @@ def _finish(
             continue
         fits.append(fit)
         spread = np.sqrt(fit.rms**2 + lines.position_sigma_cm1[idx] ** 2)
-        for k, line in enumerate(members):
-            residual = float(fit.residuals[k])
-            confidence = float(np.exp(-0.5 * (residual / max(3.0 * spread[k], 1e-9)) ** 2))
-            merged = bool(abs(pull[k]) > 0)
+        residuals = fit.residuals
+        agreement = np.exp(-0.5 * (residuals / np.maximum(3.0 * spread, 1e-9)) ** 2)
+        calc = fit.calc + pull
+        for line, residual, confidence, saturated, used, branch_k, J_k, calc_k, pull_k in zip(
+            members, residuals.tolist(), agreement.tolist(), lines.saturated[idx].tolist(), fit.used.tolist(),
+            branch.tolist(), J_lower.tolist(), calc.tolist(), pull.tolist(),
+        ):
+            merged = abs(pull_k) > 0
             if line in blended or merged:
                 confidence *= 0.5
-            if lines.saturated[line]:
+            if saturated:
                 confidence *= 0.8
             if band.method == "pattern":
                 confidence *= 0.8
-            if not fit.used[k]:
+            if not used:
                 confidence *= 0.3
+            # positional (a hundred or more per spectrum): isotopologue, v', v'', branch, J'',
+            # calc, residual, confidence, method, blended, used in the fit, blend pull
             per_line[line] = LineAssignment(
-                isotopologue=band.isotopologue,
-                v_upper=band.v_upper,
-                v_lower=band.v_lower,
-                branch=str(branch[k]),
-                J_lower=int(J_lower[k]),
-                calc=float(fit.calc[k] + pull[k]),
-                residual=residual,
-                confidence=round(confidence, 3),
-                method=band.method,
-                blended=line in blended or merged,
-                used_in_fit=bool(fit.used[k]),
-                blend_pull=float(pull[k]),
+                band.isotopologue, band.v_upper, band.v_lower, branch_k, J_k, calc_k, residual, round(confidence, 3),
+                band.method, line in blended or merged, used, pull_k,
             )
     fitted_regions = [(float(f.observed.min()) - 1.0, float(f.observed.max()) + 1.0) for f in fits]
     causes = tuple(

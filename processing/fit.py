@@ -12,7 +12,10 @@ with F(J) = B x - D x^2, fitted for B (and D when significant).
 """
 from __future__ import annotations
 
+import functools
+import math
 from dataclasses import dataclass, field
+from typing import Callable, NamedTuple
 
 import numpy as np
 
@@ -64,17 +67,11 @@ class BandFit:
     def predict(self, branch: np.ndarray, J_lower: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Positions of any lines of this band from the fitted constants, with the standard
         error of each prediction propagated from the covariance (grows outside the fitted J)."""
-        branch = np.asarray(branch)
-        J_lower = np.asarray(J_lower, dtype=np.int64)
-        x_up, x_low = _x(upper_J(branch, J_lower)), _x(J_lower)
-        design, names = _band_design(x_up, x_low, self.d_model, self.h_model)
-        values = np.array([self._parameter(name) for name in names])
-        positions = design @ values + held_centrifugal(x_up, x_low, self.held)
-        variance = np.einsum("ij,jk,ik->i", design, self.covariance, design)
-        return positions, np.sqrt(np.clip(variance, 0.0, None))
+        return _predict(branch, J_lower, self.d_model, self.h_model, self.held, self.covariance, self._parameter_values)
 
-    def _parameter(self, name: str) -> float:
-        estimate = {
+    def _parameter_values(self, names: tuple[str, ...]) -> np.ndarray:
+        """The fitted values behind the design columns' names."""
+        estimates = {
             "origin": self.origin,
             "B_upper": self.B_upper,
             "B_lower": self.B_lower,
@@ -84,13 +81,30 @@ class BandFit:
             "H_upper": self.H_upper,
             "H_lower": self.H_lower,
             "H": self.H_upper,
-        }[name]
-        assert estimate is not None
-        return estimate.value
+        }
+        values = []
+        for name in names:
+            estimate = estimates[name]
+            assert estimate is not None
+            values.append(estimate.value)
+        return np.array(values)
 
     @property
     def label(self) -> str:
         return f"{self.isotopologue} {self.v_upper}-{self.v_lower}"
+
+
+def _predict(
+    branch: np.ndarray, J_lower: np.ndarray, d_model: str, h_model: str, held: tuple[float, float, float, float],
+    covariance: np.ndarray, values_of: Callable[[tuple[str, ...]], np.ndarray],
+) -> tuple[np.ndarray, np.ndarray]:
+    """Positions of lines from a band model (`values_of(parameter names)` gives its fitted
+    values), with each prediction's standard error propagated from the covariance."""
+    columns = _columns_of(np.asarray(branch), np.asarray(J_lower, dtype=np.int64))
+    design, names = columns.design(d_model, h_model)
+    positions = design @ values_of(names) + columns.held(held)
+    variance = np.einsum("ij,jk,ik->i", design, covariance, design)
+    return positions, np.sqrt(np.clip(variance, 0.0, None))
 
 
 def _x(J: np.ndarray) -> np.ndarray:
@@ -114,27 +128,113 @@ NOTHING_HELD = (0.0, 0.0, 0.0, 0.0)
 def held_centrifugal(x_up: np.ndarray, x_low: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
     """The held centrifugal terms' part of the line positions:
     -D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3."""
-    d_upper, d_lower, h_upper, h_lower = held
-    return -d_upper * x_up**2 + d_lower * x_low**2 + h_upper * x_up**3 - h_lower * x_low**3
+    return _BandColumns(x_up, x_low).held(held).copy()
+
+
+class _BandColumns:
+    """The band model's design columns for one set of lines, each computed once: a band fit
+    tries several models (D, H separate, common, held) on the same lines."""
+
+    def __init__(self, x_up: np.ndarray, x_low: np.ndarray) -> None:
+        self.x_up = x_up
+        self.x_low = x_low
+        self.up2 = x_up**2
+        self.low2 = x_low**2
+        self.up3 = x_up**3
+        self.low3 = x_low**3
+        self._columns: dict[str, np.ndarray] = {}
+        self._held: dict[tuple[float, float, float, float], np.ndarray] = {}
+        self._designs: dict[tuple[str, str], tuple[np.ndarray, tuple[str, ...]]] = {}
+
+    def held(self, held: tuple[float, float, float, float]) -> np.ndarray:
+        """-D' x'^2 + D'' x''^2 + H' x'^3 - H'' x''^3 of the held values (read-only)."""
+        if held not in self._held:
+            d_upper, d_lower, h_upper, h_lower = held
+            values = -d_upper * self.up2 + d_lower * self.low2 + h_upper * self.up3 - h_lower * self.low3
+            values.flags.writeable = False
+            self._held[held] = values
+        return self._held[held]
+
+    def minus_held(self, values: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
+        """values less the held terms (values themselves when nothing is held: the same numbers)."""
+        return values if held == NOTHING_HELD else values - self.held(held)
+
+    def plus_held(self, values: np.ndarray, held: tuple[float, float, float, float]) -> np.ndarray:
+        """values plus the held terms (a copy when nothing is held)."""
+        return values.copy() if held == NOTHING_HELD else values + self.held(held)
+
+    def _column(self, name: str) -> np.ndarray:
+        column = self._columns.get(name)
+        if column is None:
+            if name == "ones":
+                column = np.ones_like(self.x_up)
+            elif name == "x_up":
+                column = self.x_up
+            elif name == "-x_low":
+                column = -self.x_low
+            elif name == "-up2":
+                column = -self.up2
+            elif name == "low2":
+                column = self.low2
+            elif name == "D":
+                column = -self.up2 + self.low2
+            elif name == "up3":
+                column = self.up3
+            elif name == "-low3":
+                column = -self.low3
+            else:  # "H"
+                column = self.up3 - self.low3
+            self._columns[name] = column
+        return column
+
+    def design(self, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
+        """The design matrix of a D and H model with its parameter names (read-only)."""
+        if (model, h_model) not in self._designs:
+            self._designs[(model, h_model)] = self._design(model, h_model)
+        return self._designs[(model, h_model)]
+
+    def _design(self, model: str, h_model: str) -> tuple[np.ndarray, tuple[str, ...]]:
+        columns = ["ones", "x_up", "-x_low"]
+        names: list[str] = ["origin", "B_upper", "B_lower"]
+        if model == "separate D":
+            columns += ["-up2", "low2"]
+            names += ["D_upper", "D_lower"]
+        elif model in ("common D", D_DIFFERENCE_HELD):
+            columns += ["D"]
+            names += ["D"]
+        if h_model == "separate H":
+            columns += ["up3", "-low3"]
+            names += ["H_upper", "H_lower"]
+        elif h_model in ("common H", H_DIFFERENCE_HELD):
+            columns += ["H"]
+            names += ["H"]
+        design = np.empty((self.x_up.size, len(columns)))
+        for i, name in enumerate(columns):
+            design[:, i] = self._column(name)
+        design.flags.writeable = False
+        return design, tuple(names)
+
+
+def _columns_of(branch: np.ndarray, J_lower: np.ndarray) -> _BandColumns:
+    """The model columns of a set of lines (shared by every fit and prediction of the same
+    lines in the same order: a spectrum's bands are refitted and predicted on the same sets,
+    and successive spectra of one sample assign the same lines)."""
+    if branch.dtype.kind == "U" and branch.shape == J_lower.shape:
+        return _line_set_columns(branch.tobytes(), branch.dtype.str, J_lower.tobytes())
+    return _BandColumns(_x(upper_J(branch, J_lower)), _x(J_lower))
+
+
+@functools.lru_cache(maxsize=256)
+def _line_set_columns(branch: bytes, branch_dtype: str, J_lower: bytes) -> _BandColumns:
+    """The model columns of a set of lines given as the bytes of their branch and J'' arrays
+    (cached: the assignment predicts the same sets, every line to a J'' cap, again and again;
+    the columns' arrays are never written)."""
+    J = np.frombuffer(J_lower, dtype=np.int64)
+    return _BandColumns(_x(upper_J(np.frombuffer(branch, dtype=branch_dtype), J)), _x(J))
 
 
 def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
-    ones = np.ones_like(x_up)
-    columns = [ones, x_up, -x_low]
-    names: list[str] = ["origin", "B_upper", "B_lower"]
-    if model == "separate D":
-        columns += [-(x_up**2), x_low**2]
-        names += ["D_upper", "D_lower"]
-    elif model in ("common D", D_DIFFERENCE_HELD):
-        columns += [-(x_up**2) + x_low**2]
-        names += ["D"]
-    if h_model == "separate H":
-        columns += [x_up**3, -(x_low**3)]
-        names += ["H_upper", "H_lower"]
-    elif h_model in ("common H", H_DIFFERENCE_HELD):
-        columns += [x_up**3 - x_low**3]
-        names += ["H"]
-    return np.column_stack(columns), tuple(names)
+    return _BandColumns(x_up, x_low).design(model, h_model)
 
 
 def _threshold(name: str) -> float:
@@ -148,9 +248,12 @@ def _significant(fit: LinearFit, name: str) -> bool:
 
 def _differ(fit: LinearFit, a: str, b: str) -> bool:
     """Both significant and significantly different from each other."""
+    if not (_significant(fit, a) and _significant(fit, b)):
+        return False
     i, j = fit.names.index(a), fit.names.index(b)
-    var = fit.covariance[i, i] + fit.covariance[j, j] - 2 * fit.covariance[i, j]
-    return _significant(fit, a) and _significant(fit, b) and var > 0 and abs(fit.value(a) - fit.value(b)) > _threshold(a) * np.sqrt(var)
+    covariance = fit.covariance
+    var = covariance[i, i] + covariance[j, j] - 2 * covariance[i, j]
+    return var > 0 and abs(fit.value(a) - fit.value(b)) > _threshold(a) * math.sqrt(var)
 
 
 _SIZES = {"separate D": 2, "common D": 1, "no D": 0, D_DIFFERENCE_HELD: 1, D_HELD: 0,
@@ -158,8 +261,7 @@ _SIZES = {"separate D": 2, "common D": 1, "no D": 0, D_DIFFERENCE_HELD: 1, D_HEL
 
 
 def _choose_band_fit(
-    x_up: np.ndarray,
-    x_low: np.ndarray,
+    columns: _BandColumns,
     observed: np.ndarray,
     sigma: np.ndarray,
     sigma_known: bool,
@@ -172,13 +274,19 @@ def _choose_band_fit(
     between upper and lower state, or both), never at zero; without it (an unidentified band)
     a term not determined is left out."""
     n = observed.size
+    tried: dict[tuple[str, str, tuple[float, float, float, float]], LinearFit | None] = {}
 
     def attempt(d_model: str, h_model: str, held: tuple[float, float, float, float] = NOTHING_HELD) -> LinearFit | None:
-        if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
-            return None
-        design, names = _band_design(x_up, x_low, d_model, h_model)
-        target = observed - held_centrifugal(x_up, x_low, held)
-        return weighted_least_squares(design, target, sigma, names, sigma_known=sigma_known)
+        """One model's fit (each model fitted once: the H choice's trial is often the D
+        choice's first)."""
+        key = (d_model, h_model, held)
+        if key not in tried:
+            if n < 3 + _SIZES[d_model] + _SIZES[h_model] + 2:
+                tried[key] = None
+            else:
+                design, names = columns.design(d_model, h_model)
+                tried[key] = weighted_least_squares(design, columns.minus_held(observed, held), sigma, names, sigma_known=sigma_known)
+        return tried[key]
 
     h_model, h_held = "no H", (0.0, 0.0)
     trial = attempt("separate D", "separate H") if sextic else None
@@ -209,8 +317,58 @@ def _choose_band_fit(
     trial = attempt("common D", h_model)
     if trial is not None and (_significant(trial, "D") or h_model != "no H"):  # H needs a D beside it
         return trial, "common D", h_model, NOTHING_HELD
-    design, names = _band_design(x_up, x_low, "no D")
+    design, names = columns.design("no D")
     return weighted_least_squares(design, observed, sigma, names, sigma_known=sigma_known), "no D", "no H", NOTHING_HELD
+
+
+@dataclass(frozen=True)
+class BandModel:
+    """A band's fitted line-position model: the least-squares fit with the D and H models
+    chosen and the terms held. What the assignment iterates with; `fit_band` adds the named
+    constants, their correlations and the combination-difference cross-checks."""
+
+    linear_fit: LinearFit
+    d_model: str
+    h_model: str
+    held: tuple[float, float, float, float]
+    branch: np.ndarray  # the lines fitted
+    J_lower: np.ndarray
+    observed: np.ndarray
+    sigma: np.ndarray
+    rms: float  # of the used lines, cm-1
+    n_lines: int  # lines used (after outlier rejection)
+    columns: _BandColumns = field(repr=False, compare=False)
+
+    def predict(self, branch: np.ndarray, J_lower: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Positions of any lines of this band with their standard errors (see
+        `BandFit.predict`)."""
+        return _predict(branch, J_lower, self.d_model, self.h_model, self.held, self.linear_fit.covariance,
+                        lambda names: self.linear_fit.values)
+
+
+def fit_band_model(
+    isotopologue: str,
+    v_upper: int,
+    v_lower: int,
+    branch: np.ndarray,
+    J_lower: np.ndarray,
+    observed_cm1: np.ndarray,
+    sigma_cm1: np.ndarray,
+    sigma_known: bool = True,
+    sextic: bool = True,
+    library_centrifugal: tuple[float, float, float, float] | None = None,
+) -> BandModel:
+    """The band model of `fit_band` fitted to a band's assigned lines (at least 4), without
+    naming its constants or cross-checking them."""
+    branch = np.asarray(branch)
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    observed = np.asarray(observed_cm1, dtype=np.float64)
+    sigma = np.asarray(sigma_cm1, dtype=np.float64)
+    if observed.size < 4:
+        raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
+    columns = _columns_of(branch, J_lower)
+    fit, model, h_model, held = _choose_band_fit(columns, observed, sigma, sigma_known, sextic, library_centrifugal)
+    return BandModel(fit, model, h_model, held, branch, J_lower, observed, sigma, fit.rms, fit.n_used, columns)
 
 
 def fit_band(
@@ -229,20 +387,14 @@ def fit_band(
     """Weighted least-squares fit of one band's assigned lines (at least 4 lines).
 
     `sigma_known=False` when the line uncertainties are nominal (see `linear_fit`);
-    `cross_check=False` skips the combination-difference fits (used while iterating);
-    `sextic=False` leaves H out (while iterating: a cubic term extrapolates predictions to
+    `cross_check=False` skips the combination-difference fits; `sextic=False` leaves H out
+    (the assignment iterates with `fit_band_model` so: a cubic term extrapolates predictions to
     unassigned J wildly when a few positions are still off); `library_centrifugal` = the
     library's (D', D'', H', H'') of the band, held where the lines cannot determine them (see
     D_DIFFERENCE_HELD, H_DIFFERENCE_HELD)."""
-    branch = np.asarray(branch)
-    J_lower = np.asarray(J_lower, dtype=np.int64)
-    observed = np.asarray(observed_cm1, dtype=np.float64)
-    sigma = np.asarray(sigma_cm1, dtype=np.float64)
-    if observed.size < 4:
-        raise ValueError(f"{isotopologue} {v_upper}-{v_lower}: {observed.size} lines, need at least 4")
-    x_low = _x(J_lower)
-    x_up = _x(upper_J(branch, J_lower))
-    fit, model, h_model, held = _choose_band_fit(x_up, x_low, observed, sigma, sigma_known, sextic, library_centrifugal)
+    band_model = fit_band_model(isotopologue, v_upper, v_lower, branch, J_lower, observed_cm1, sigma_cm1, sigma_known, sextic, library_centrifugal)
+    fit, model, h_model, held = band_model.linear_fit, band_model.d_model, band_model.h_model, band_model.held
+    branch, J_lower, observed, sigma = band_model.branch, band_model.J_lower, band_model.observed, band_model.sigma
 
     def estimate(name: str) -> Estimate:
         return Estimate(fit.value(name), fit.sigma(name) if fit.dof > 0 else None)
@@ -269,8 +421,10 @@ def fit_band(
     used = fit.used
     lower_cd = upper_cd = None
     if cross_check:
-        lower_cd = fit_combination_differences("lower", v_lower, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
-        upper_cd = fit_combination_differences("upper", v_upper, branch[used], J_lower[used], observed[used], sigma[used], sigma_known)
+        every = fit.n_used == observed.size
+        tables = _branch_tables(*((branch, J_lower, observed, sigma) if every else (branch[used], J_lower[used], observed[used], sigma[used])))
+        lower_cd = _fit_pairs("lower", v_lower, _pairs(tables, "lower"), sigma_known)
+        upper_cd = _fit_pairs("upper", v_upper, _pairs(tables, "upper"), sigma_known)
     return BandFit(
         isotopologue=isotopologue,
         v_upper=v_upper,
@@ -281,8 +435,8 @@ def fit_band(
         D_upper=D_upper,
         D_lower=D_lower,
         d_model=model,
-        n_lines=int(fit.used.sum()),
-        rms=fit.rms,
+        n_lines=band_model.n_lines,
+        rms=band_model.rms,
         chi2_reduced=fit.chi2_reduced,
         parameter_names=fit.names,
         covariance=fit.covariance,
@@ -290,7 +444,7 @@ def fit_band(
         J_lower=J_lower,
         branch=branch,
         observed=observed,
-        calc=fit.calc + held_centrifugal(x_up, x_low, held),
+        calc=band_model.columns.plus_held(fit.calc, held),
         used=fit.used,
         H_upper=H_upper,
         H_lower=H_lower,
@@ -303,24 +457,45 @@ def fit_band(
     )
 
 
+class _BranchTables(NamedTuple):
+    """A band's lines by branch (row 0 R, row 1 P) and J'': present, position, sigma."""
+
+    present: np.ndarray
+    observed: np.ndarray
+    sigma: np.ndarray
+
+
+def _branch_tables(branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray) -> _BranchTables:
+    J_lower = np.asarray(J_lower, dtype=np.int64)
+    size = int(J_lower.max()) + 3 if J_lower.size else 2
+    row = np.where(np.asarray(branch) == R_BRANCH, 0, 1)
+    present, table, table_sigma = np.zeros((2, size), dtype=bool), np.zeros((2, size)), np.zeros((2, size))
+    # one line per branch and J'' in a band
+    present[row, J_lower] = True
+    table[row, J_lower] = observed
+    table_sigma[row, J_lower] = sigma
+    return _BranchTables(present, table, table_sigma)
+
+
+def _pairs(tables: _BranchTables, state: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """`combination_difference_pairs` from a band's branch tables."""
+    size = tables.present.shape[1]
+    # J = 1 .. size - 2: R(J-1) and P(J+1) for the lower state, R(J) and P(J) for the upper
+    r, p = (slice(0, size - 2), slice(2, size)) if state == "lower" else (slice(1, size - 1), slice(1, size - 1))
+    pair = tables.present[0, r] & tables.present[1, p]
+    J = np.arange(1, size - 1, dtype=np.int64)[pair]
+    difference = (tables.observed[0, r] - tables.observed[1, p])[pair]
+    return J, difference, np.hypot(tables.sigma[0, r], tables.sigma[1, p])[pair]
+
+
 def combination_difference_pairs(
     state: str, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(J, difference, sigma) of every available pair. J is that of the state concerned:
+    """(J, difference, sigma) of every available pair, by J. J is that of the state concerned:
     lower: Delta2F''(J) = R(J-1) - P(J+1);  upper: Delta2F'(J) = R(J) - P(J)."""
-    is_r = np.asarray(branch) == R_BRANCH
-    r_pos = {int(j): (float(o), float(s)) for j, o, s in zip(J_lower[is_r], observed[is_r], sigma[is_r])}
-    p_pos = {int(j): (float(o), float(s)) for j, o, s in zip(J_lower[~is_r], observed[~is_r], sigma[~is_r])}
-    J_values, differences, sigmas = [], [], []
-    candidates = sorted(set(r_pos) | set(p_pos))
-    for J in range(0, (max(candidates) if candidates else 0) + 2):
-        r_J, p_J = (J - 1, J + 1) if state == "lower" else (J, J)
-        if r_J in r_pos and p_J in p_pos and J >= 1:
-            (r_obs, r_sig), (p_obs, p_sig) = r_pos[r_J], p_pos[p_J]
-            J_values.append(J)
-            differences.append(r_obs - p_obs)
-            sigmas.append(float(np.hypot(r_sig, p_sig)))
-    return np.array(J_values, dtype=np.int64), np.array(differences), np.array(sigmas)
+    observed = np.asarray(observed, dtype=np.float64)
+    sigma = np.asarray(sigma, dtype=np.float64)
+    return _pairs(_branch_tables(branch, J_lower, observed, sigma), state)
 
 
 def fit_combination_differences(
@@ -328,20 +503,37 @@ def fit_combination_differences(
     sigma_known: bool = True,
 ) -> CombinationDifferences | None:
     """B (and D if significant) of the `state` ("lower"/"upper") level; None with < 3 pairs."""
-    J, difference, diff_sigma = combination_difference_pairs(state, branch, J_lower, observed, sigma)
-    if J.size < 3:
-        return None
+    return _fit_pairs(state, v, combination_difference_pairs(state, branch, J_lower, observed, sigma), sigma_known)
+
+
+@functools.lru_cache(maxsize=256)
+def _difference_designs(J_bytes: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """The combination-difference designs (B) and (B, D) of the pairs' J (given as the bytes
+    of an int64 array; cached, read-only): F(J+1) - F(J-1) with F = B x - D x^2."""
+    J = np.frombuffer(J_bytes, dtype=np.int64)
     x_plus = _x(J + 1)
     x_minus = _x(J - 1)
     b_column = x_plus - x_minus  # = 4J + 2
     d_column = -(x_plus**2 - x_minus**2)
+    b_design, bd_design = b_column[:, None], np.column_stack([b_column, d_column])
+    b_design.flags.writeable = False
+    bd_design.flags.writeable = False
+    return b_design, bd_design
+
+
+def _fit_pairs(state: str, v: int, pairs: tuple[np.ndarray, np.ndarray, np.ndarray], sigma_known: bool) -> CombinationDifferences | None:
+    """`fit_combination_differences` of a level's pairs."""
+    J, difference, diff_sigma = pairs
+    if J.size < 3:
+        return None
+    b_design, bd_design = _difference_designs(np.asarray(J, dtype=np.int64).tobytes())
     fit: LinearFit | None = None
     if J.size >= 4:
-        trial = weighted_least_squares(np.column_stack([b_column, d_column]), difference, diff_sigma, ("B", "D"), sigma_known=sigma_known)
+        trial = weighted_least_squares(bd_design, difference, diff_sigma, ("B", "D"), sigma_known=sigma_known)
         if _significant(trial, "D"):
             fit = trial
     if fit is None:
-        fit = weighted_least_squares(b_column[:, None], difference, diff_sigma, ("B",), sigma_known=sigma_known)
+        fit = weighted_least_squares(b_design, difference, diff_sigma, ("B",), sigma_known=sigma_known)
     has_d = "D" in fit.names
     sig = (lambda name: fit.sigma(name) if fit.dof > 0 else None)
     return CombinationDifferences(
@@ -349,6 +541,6 @@ def fit_combination_differences(
         v=v,
         B=Estimate(fit.value("B"), sig("B")),
         D=Estimate(fit.value("D"), sig("D")) if has_d else None,
-        n_pairs=int(fit.used.sum()),
+        n_pairs=fit.n_used,
         rms=fit.rms,
     )

@@ -8,8 +8,8 @@ only nominal, C is scaled by chi2/dof itself.
 """
 from __future__ import annotations
 
-import functools
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -44,10 +44,14 @@ class LinearFit:
     # other numbers (e.g. the library's own positions of the same lines)
     operator: np.ndarray | None = None
 
-    @functools.cached_property
+    @property
     def sigmas(self) -> np.ndarray:
-        sigmas = np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
-        sigmas.flags.writeable = False
+        """Standard errors of the values (read-only; computed once)."""
+        sigmas = self.__dict__.get("_sigmas")
+        if sigmas is None:
+            sigmas = np.sqrt(np.clip(self.covariance.diagonal(), 0.0, None))
+            sigmas.flags.writeable = False
+            self.__dict__["_sigmas"] = sigmas  # a frozen instance's cache, as cached_property does
         return sigmas
 
     @property
@@ -59,10 +63,15 @@ class LinearFit:
         return corr
 
     @property
+    def n_used(self) -> int:
+        """Rows used (not rejected): the degrees of freedom plus the parameters."""
+        return self.dof + len(self.names)
+
+    @property
     def rms(self) -> float:
         """Unweighted rms of obs-calc over the used rows, in the data's unit."""
-        r = self.residuals[self.used]
-        return float(np.sqrt(np.mean(r**2))) if r.size else float("nan")
+        r = self.residuals if self.n_used == self.residuals.size else self.residuals[self.used]
+        return float(np.sqrt((r**2).sum() / r.size)) if r.size else float("nan")
 
     def value(self, name: str) -> float:
         return float(self.values[self.names.index(name)])
@@ -71,23 +80,22 @@ class LinearFit:
         return float(self.sigmas[self.names.index(name)])
 
 
-@dataclass(frozen=True)
-class _Solution:
+class _Solution(NamedTuple):
     """One SVD solution of the weighted, column-scaled problem (see `_solve`)."""
 
     params: np.ndarray
-    u: np.ndarray
+    u_t: np.ndarray  # U transposed
     v_inverse: np.ndarray  # V diag(1/s) (dropped directions zero)
     sqrt_w: np.ndarray
     scale: np.ndarray
 
     def operator(self) -> np.ndarray:
         """parameters = operator @ y."""
-        return ((self.v_inverse @ self.u.T) * self.sqrt_w[None, :]) / self.scale[:, None]
+        return ((self.v_inverse @ self.u_t) * self.sqrt_w) / self.scale[:, None]
 
     def covariance(self) -> np.ndarray:
         """Unscaled covariance (A^T W A)^-1."""
-        return (self.v_inverse @ self.v_inverse.T) / np.outer(self.scale, self.scale)
+        return (self.v_inverse @ self.v_inverse.T) / (self.scale[:, None] * self.scale)
 
 
 def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
@@ -97,14 +105,19 @@ def _solve(design: np.ndarray, y: np.ndarray, weights: np.ndarray) -> _Solution:
     sqrt_w = np.sqrt(weights)
     a = design * sqrt_w[:, None]
     scale = np.sqrt(np.einsum("ij,ij->j", a, a))
-    scale[scale == 0] = 1.0
+    if not scale.all():
+        scale[scale == 0] = 1.0
     u, singular, vt = np.linalg.svd(a / scale, full_matrices=False)
-    keep = singular > 1e-12 * singular[0] if singular.size else singular.astype(bool)
-    inverse = np.zeros_like(singular)
-    inverse[keep] = 1.0 / singular[keep]
+    if singular.size and singular[-1] > 1e-12 * singular[0]:
+        inverse = 1.0 / singular  # every direction kept (singular values descend)
+    else:
+        inverse = np.zeros_like(singular)
+        if singular.size:
+            np.divide(1.0, singular, out=inverse, where=singular > 1e-12 * singular[0])
     v_inverse = vt.T * inverse
-    params = (v_inverse @ (u.T @ (sqrt_w * y))) / scale
-    return _Solution(params, u, v_inverse, sqrt_w, scale)
+    u_t = u.T
+    params = (v_inverse @ (u_t @ (sqrt_w * y))) / scale
+    return _Solution(params, u_t, v_inverse, sqrt_w, scale)
 
 
 def weighted_least_squares(
@@ -139,18 +152,20 @@ def weighted_least_squares(
         if n_rejected >= max_rejections or dof < 2:
             break
         normalised = np.abs(residuals) / sigma
-        kept = normalised[used]
+        candidates = np.where(used, normalised, -np.inf) if n_rejected else normalised
+        worst = int(candidates.argmax())
+        largest = candidates[worst]
+        # the median of the used rows, found in place (the candidates were read first)
+        kept = normalised[used] if n_rejected else normalised
         middle = kept.size // 2
-        ordered = np.partition(kept, [middle - 1, middle] if kept.size % 2 == 0 else middle)
-        median = 0.5 * (ordered[middle - 1] + ordered[middle]) if kept.size % 2 == 0 else ordered[middle]
+        kept.partition([middle - 1, middle] if kept.size % 2 == 0 else middle)
+        median = 0.5 * (kept[middle - 1] + kept[middle]) if kept.size % 2 == 0 else kept[middle]
         limit = 4.0 * max(1.0, 1.4826 * float(median))
-        candidates = np.where(used, normalised, -np.inf)
-        worst = int(np.argmax(candidates))
-        if candidates[worst] <= limit:
+        if largest <= limit:
             break
         used[worst] = False
         n_rejected += 1
-    chi2 = float(np.sum((residuals[used] / sigma[used]) ** 2))
+    chi2 = float(((residuals[used] / sigma[used] if n_rejected else residuals / sigma) ** 2).sum())
     chi2_reduced = chi2 / dof if dof > 0 else float("nan")
     if dof <= 0:
         inflation = 1.0
@@ -166,7 +181,7 @@ def weighted_least_squares(
     return LinearFit(
         names=tuple(names),
         values=params,
-        covariance=solution.covariance() * inflation,
+        covariance=solution.covariance() * inflation if inflation != 1.0 else solution.covariance(),
         residuals=residuals,
         calc=calc,
         used=used,
