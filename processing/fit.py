@@ -80,7 +80,7 @@ class BandFit:
             "D": self.D_lower,
             "H_upper": self.H_upper,
             "H_lower": self.H_lower,
-            "H": self.H_upper,
+            "H": self.H_lower,  # the shared column: H'' (a held difference is added to H' by `held`)
         }
         values = []
         for name in names:

@@ -139,3 +139,25 @@ def test_weighted_least_squares_reproduces_a_straight_line_exactly() -> None:
     assert fit.value("a") == pytest.approx(3.0, abs=1e-12)
     assert fit.value("b") == pytest.approx(2.0, abs=1e-12)
     assert fit.rms < 1e-12
+
+
+def test_a_band_with_a_held_sextic_difference_predicts_the_lines_it_was_fitted_to() -> None:
+    """With H'' fitted and H' - H'' held, `predict` must add the held difference once: the
+    positions it gives are the band's own within the line noise (before the fix it added the
+    difference twice: 7.8 noise sigmas off at J'' = 25). Common practice: a fitted model
+    reproduces its data; the lines come from a Dunham expansion with a sextic term large enough
+    to be fitted and an upper-lower difference too small to be."""
+    from processing.fit import H_DIFFERENCE_HELD, fit_band
+    from processing.levels import band_lines
+
+    h_difference_per_v, noise = 1e-10, 1e-3  # cm-1
+    dunham = {(1, 0): 2990.9, (2, 0): -52.8, (0, 1): 10.59, (1, 1): -0.307, (0, 2): -5.3e-4, (0, 3): 1.7e-8,
+              (1, 3): h_difference_per_v}
+    band = band_lines(dunham, 1, 0, 25)
+    observed = band.wavenumber_cm1 + np.random.default_rng(1).normal(0.0, noise, band.m.size)
+    library = (-5.3e-4, -5.3e-4, 1.7e-8 + 1.5 * h_difference_per_v, 1.7e-8 + 0.5 * h_difference_per_v)
+    fit = fit_band("H35Cl", 1, 0, band.branch, band.J_lower, observed, np.full(observed.size, noise),
+                   library_centrifugal=library)
+    assert fit.h_model == H_DIFFERENCE_HELD
+    predicted, _ = fit.predict(band.branch, band.J_lower)
+    assert np.max(np.abs(predicted - band.wavenumber_cm1)) < 2.0 * noise
