@@ -36,6 +36,7 @@ from processing.fit import BandFit, BandModel, fit_band, fit_band_model
 from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
 from processing.lines import LineTable, fit_sigma_factor
 from processing.physical_constants import C2_CM_K
+from processing.order_stats import median, median_of_sorted, percentile_of_sorted, sorted_distinct
 
 if TYPE_CHECKING:
     from processing.intensities import BandIntensities
@@ -354,7 +355,7 @@ def _best_shift(peaks: np.ndarray, predictions: _PredictionSet, tol: float, max_
         rough = scores_at(coarse, COARSE_SHIFT_TOLERANCE)
         centres = coarse[np.lexsort((np.abs(coarse), -rough))[:3]]
         around = _shift_grid(COARSE_SHIFT_TOLERANCE, tol / 2)
-        shifts = np.unique(np.concatenate([c + around for c in centres]))
+        shifts = sorted_distinct(np.concatenate([c + around for c in centres]))
     else:
         shifts = _shift_grid(max_shift, tol / 2)
     scores = scores_at(shifts, tol)
@@ -390,7 +391,7 @@ def _may_be_present(peaks: np.ndarray, plan: _SearchPlan, tol: float, max_shift:
     order = np.argsort(key, kind="stable")
     key = key[order]
     together = key.searchsorted(key + window, side="right") - np.arange(total)
-    possible[plan.group_set[np.unique(group[order][together >= MIN_BAND_LINES])]] = True
+    possible[plan.group_set[sorted_distinct(group[order][together >= MIN_BAND_LINES])]] = True
     return possible
 
 
@@ -587,7 +588,7 @@ def _drop_undetectable(bands: list[_Band], winners: dict[int, _Claim], lines: Li
             scale_of.setdefault((band.v_upper, band.v_lower), []).append(snr[claim.line] / w)
     # optically thick lines fall short of their weight, thin ones do not: the upper quartile
     # of SNR per unit weight is the scale a thin (weak) band's lines reach
-    snr_per_weight = {key: _percentile(sorted(scales), 75) for key, scales in scale_of.items()}
+    snr_per_weight = {key: percentile_of_sorted(sorted(scales), 75) for key, scales in scale_of.items()}
     drop: set[int] = set()
     for bi, band in enumerate(bands):
         scale = snr_per_weight.get((band.v_upper, band.v_lower))
@@ -597,25 +598,6 @@ def _drop_undetectable(bands: list[_Band], winners: dict[int, _Claim], lines: Li
         if detectable < MIN_BAND_LINES or found.get(bi, 0) < 0.5 * detectable:
             drop.add(bi)
     return drop
-
-
-def _percentile(ordered: list[float], q: float) -> float:
-    """`numpy.percentile(values, q)` (linear interpolation) of finite values already sorted,
-    computed the same way to the last bit, without numpy's overhead on a few numbers."""
-    virtual = (len(ordered) - 1) * (q / 100)
-    if virtual >= len(ordered) - 1:
-        return ordered[-1]
-    below = math.floor(virtual)
-    gamma = virtual - below
-    a, b = ordered[below], ordered[below + 1]
-    difference = b - a
-    return b - difference * (1 - gamma) if gamma >= 0.5 else a + difference * gamma
-
-
-def _median(ordered: list[float]) -> float:
-    """`numpy.median` of finite values already sorted (the same arithmetic)."""
-    half = len(ordered) // 2
-    return ordered[half] if len(ordered) % 2 else (ordered[half - 1] + ordered[half]) / 2
 
 
 def _tolerances(bands: list[_Band], line_sigma: float, tol0: float) -> list[np.ndarray]:
@@ -725,8 +707,8 @@ def _expected_snr(bands: list[_Band], winners: dict[int, _Claim], snr: list[floa
         measured = [(w, snr[line]) for line, w in members if math.isfinite(snr[line]) and w > 0 and snr[line] >= 10.0]
         if len(measured) < 4:
             continue
-        middle = _median(sorted(w for w, _ in measured))
-        scale = _percentile(sorted(s / w for w, s in measured if w <= middle), 75)
+        middle = median_of_sorted(sorted(w for w, _ in measured))
+        scale = percentile_of_sorted(sorted(s / w for w, s in measured if w <= middle), 75)
         for line, w in members:
             yield line, w * scale
 
@@ -755,7 +737,7 @@ def _refine(
     blended: set[int] = set()
     refused: dict[tuple[int, int], float] = {}
     members_before: dict[int, frozenset[tuple[int, int]]] = {}
-    line_sigma = float(np.median(lines.position_sigma_cm1)) if lines.count else 0.0
+    line_sigma = median(lines.position_sigma_cm1) if lines.count else 0.0
     for _ in range(8):
         claims = _claims(peaks, usable, bands, _tolerances(bands, line_sigma, tol0), set(refused))
         winners, blended = _resolve(claims, bands)
@@ -943,7 +925,7 @@ def _pattern_bands(lines: LineTable, available: np.ndarray, library: Library) ->
         if numbered is None:
             continue
         m, rms = numbered
-        spacing = float(np.median(np.abs(np.diff(lines.position_cm1[chain_index]) / np.maximum(np.abs(np.diff(m)), 1))))
+        spacing = median(np.abs(np.diff(lines.position_cm1[chain_index]) / np.maximum(np.abs(np.diff(m)), 1)))
         # a real band follows its smooth nu(m) to ~1e-3 of a spacing; chance chains of
         # unrelated lines (dense water-like regions) scatter by a few percent
         if rms > 0.01 * spacing or (m < 0).sum() < 4 or (m > 0).sum() < 4:
@@ -1077,7 +1059,7 @@ def rotational_temperature_estimate(lines: LineTable, result: AssignmentResult) 
     usable = {key: rows for key, rows in rows_of.items() if len(rows) >= 8}
     if not usable:
         return None
-    thinnest = min(usable, key=lambda key: _median(sorted(r[2] for r in usable[key])))
+    thinnest = min(usable, key=lambda key: median_of_sorted(sorted(r[2] for r in usable[key])))
     energy, value, _ = np.array(usable[thinnest]).T
     if np.ptp(energy) <= 0:
         return None

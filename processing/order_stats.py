@@ -41,18 +41,34 @@ def percentiles(values: np.ndarray | Sequence[float], qs: Sequence[float]) -> li
         raise ValueError("percentile of no values")
     virtual = [(size - 1) * (float(q) / 100.0) for q in qs]
     below = [size - 1 if v >= size - 1 else max(math.floor(v), 0) for v in virtual]
-    above = [min(b + 1, size - 1) for b in below]
-    array.partition(sorted({0, size - 1, *below, *above}))
+    array.partition(sorted({0, size - 1, *below, *(min(b + 1, size - 1) for b in below)}))
     if math.isnan(array[-1]):
         return [math.nan] * len(qs)
-    out = []
-    for v, b, a in zip(virtual, below, above):
-        # numpy reads both ends at the last value once the index reaches it
-        gamma = v - (b if v < size - 1 else -1.0)
-        low, high = array[b], array[a if v < size - 1 else b]
-        difference = high - low
-        out.append(float(high - difference * (1.0 - gamma)) if gamma >= 0.5 else float(low + difference * gamma))
-    return out
+    return [float(_between(array, v, b)) for v, b in zip(virtual, below)]
+
+
+def percentile_of_sorted(ordered: Sequence[float], q: float) -> float:
+    """`percentile` of finite values already in ascending order (a few numbers: no numpy)."""
+    virtual = (len(ordered) - 1) * (q / 100.0)
+    return float(_between(ordered, virtual, len(ordered) - 1 if virtual >= len(ordered) - 1 else math.floor(virtual)))
+
+
+def median_of_sorted(ordered: Sequence[float]) -> float:
+    """`median` of finite values already in ascending order (a few numbers: no numpy)."""
+    half = len(ordered) // 2
+    return float(ordered[half] if len(ordered) % 2 else (ordered[half - 1] + ordered[half]) / 2.0)
+
+
+def _between(ordered: Sequence[float] | np.ndarray, virtual: float, below: int) -> float:
+    """numpy's linear interpolation at a fractional index (`below` its floor, or the last
+    index once the fraction reaches it: numpy then reads both ends there)."""
+    last = len(ordered) - 1
+    if virtual >= last:
+        return ordered[last]  # (numpy interpolates the last value with itself: the same)
+    gamma = virtual - below
+    low, high = ordered[below], ordered[below + 1]
+    difference = high - low
+    return high - difference * (1.0 - gamma) if gamma >= 0.5 else low + difference * gamma
 
 
 def sorted_distinct(values: np.ndarray | Sequence[float]) -> np.ndarray:
