@@ -101,6 +101,11 @@ def m_from_branch(branch: np.ndarray | str, J_lower: np.ndarray | int) -> np.nda
     return np.where(is_r, J + 1, -J)
 
 
+def m_of_line(branch: str, J_lower: int) -> int:
+    """`m_from_branch` of one line, as a Python int."""
+    return int(J_lower) + 1 if branch == R_BRANCH else -int(J_lower)
+
+
 def branch_from_m(m: np.ndarray | int) -> tuple[np.ndarray, np.ndarray]:
     """Inverse of `m_from_branch`: (branch array of "P"/"R", J'' array). m must be non-zero."""
     m_values = np.asarray(m, dtype=np.int64)

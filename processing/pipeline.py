@@ -15,7 +15,7 @@ import numpy as np
 from processing.checks import CheckThresholds
 from processing.errors import SpectrumFileError
 from processing.estimate import Estimate
-from processing.levels import m_from_branch
+from processing.levels import m_of_line
 from processing.readers import DEFAULT_MAX_BYTES, load_bytes, parse_bytes
 from processing.regular_files import ReadPolicy
 from processing.results import (
@@ -201,7 +201,7 @@ def _assignment(assigned: LineAssignment) -> Assignment:
         v_lower=assigned.v_lower,
         branch=assigned.branch,
         J_lower=assigned.J_lower,
-        m=int(m_from_branch(assigned.branch, assigned.J_lower)),
+        m=m_of_line(assigned.branch, assigned.J_lower),
         calc=assigned.calc,
         residual=assigned.residual,
         confidence=assigned.confidence,

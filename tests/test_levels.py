@@ -164,3 +164,13 @@ def test_chlorine_isotope_shift(library) -> None:
     assert np.all((splitting > 1.8) & (splitting < 2.4))
     near_origin = splitting[np.abs(a.m) <= 2]
     assert np.all((near_origin > 2.0) & (near_origin < 2.2))
+
+
+def test_m_of_one_line_matches_the_array_form() -> None:
+    # m = J''+1 for R, -J'' for P (common practice)
+    from processing.levels import m_from_branch, m_of_line
+
+    for branch in ("P", "R"):
+        for J in range(0, 60):
+            assert m_of_line(branch, J) == int(m_from_branch(branch, J))
+    assert (m_of_line("R", 0), m_of_line("P", 1), m_of_line("R", 9)) == (1, -1, 10)

@@ -56,12 +56,15 @@ def load_bytes(path: str | Path, max_bytes: int = DEFAULT_MAX_BYTES, policy: Rea
     return data
 
 
+_CONTROL_BYTES = bytes(byte for byte in range(32) if byte < 9 or 13 < byte)  # not tab, LF, VT, FF, CR
+
+
 def looks_binary(head: bytes) -> bool:
     """True for data that is not text: NUL bytes or many control characters."""
     if b"\x00" in head:
         return True
     sample = head[:HEAD_BYTES]
-    control = sum(1 for byte in sample if byte < 9 or 13 < byte < 32)
+    control = len(sample) - len(sample.translate(None, _CONTROL_BYTES))  # counted in C
     return control > max(2, len(sample) // 100)
 
 
