@@ -18,6 +18,7 @@ z = (f(fitted) - f(reference)) / that last sigma, for any function f of the para
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -54,7 +55,7 @@ def _gradient(function: Callable[[np.ndarray], float], values: np.ndarray) -> np
 
 
 def _quadratic(gradient: np.ndarray, covariance: np.ndarray) -> float:
-    return float(np.sqrt(max(float(gradient @ covariance @ gradient), 0.0)))
+    return math.sqrt(max(float(gradient @ covariance @ gradient), 0.0))
 
 
 @dataclass(frozen=True)
