@@ -17,7 +17,7 @@ import importlib
 import io
 import re
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from types import ModuleType
@@ -181,19 +181,18 @@ def _row_values(text: str, layout: _RowFormat) -> list[float] | str:
     return values
 
 
-def _lines_with_offsets(data: bytes, start: int, limit: int) -> list[tuple[int, int, bytes]]:
-    """Up to `limit` lines from `start` as (0-based index from `start`, byte offset, raw)."""
-    lines: list[tuple[int, int, bytes]] = []
+def _lines_with_offsets(data: bytes, start: int, limit: int) -> Iterator[tuple[int, int, bytes]]:
+    """Up to `limit` lines from `start` as (0-based index from `start`, byte offset, raw), one
+    at a time (a caller that finds what it looks for early reads no further)."""
     position = start
     index = 0
     while position < len(data) and index < limit:
         end = data.find(b"\n", position)
         if end < 0:
             end = len(data)
-        lines.append((index, position, data[position:end]))
+        yield index, position, data[position:end]
         position = end + 1
         index += 1
-    return lines
 
 
 # ----------------------------------------------------------------------------- identify
