@@ -33,10 +33,11 @@ from typing import TYPE_CHECKING, Callable, Iterator, NamedTuple
 import numpy as np
 
 from processing.fit import BandFit, BandModel, fit_band, fit_band_model
-from processing.levels import P_BRANCH, R_BRANCH, band_lines, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
+from processing.index_ranges import expand_ranges
+from processing.levels import P_BRANCH, R_BRANCH, band_lines, band_m, branch_from_m, centrifugal_constant, m_from_branch, sextic_constant
 from processing.lines import LineTable, fit_sigma_factor
-from processing.physical_constants import C2_CM_K
 from processing.order_stats import median, median_of_sorted, percentile_of_sorted, sorted_distinct
+from processing.physical_constants import C2_CM_K
 
 if TYPE_CHECKING:
     from processing.intensities import BandIntensities
@@ -382,8 +383,7 @@ def _may_be_present(peaks: np.ndarray, plan: _SearchPlan, tol: float, max_shift:
     total = int(counts.sum())
     if total < MIN_BAND_LINES:
         return possible
-    line = np.repeat(np.arange(strong.size), counts)
-    peak = np.arange(total) - np.repeat(np.cumsum(counts) - counts - low, counts)
+    line, peak = expand_ranges(low, low + counts)
     # separations by band, the bands kept apart by far more than a window (groups ascend with
     # the lines, and each group's separations lie within +-reach)
     group = plan.strong_group[line]
@@ -637,8 +637,8 @@ def _highest_J_seen(library: Library, label: str, v_upper: int, v_lower: int, te
     if not weights:
         return None
     strongest = max(weights.values())
-    J = [abs(m) - (1 if m > 0 else 0) for m, w in weights.items() if w >= J_CAP_RELATIVE * strongest]
-    return max(J) if J else None
+    strong = [m for m, w in weights.items() if w >= J_CAP_RELATIVE * strongest]
+    return int(branch_from_m(np.array(strong, dtype=np.int64))[1].max()) if strong else None
 
 
 def _extend_predictions(band: _Band, J_cap: int) -> None:
@@ -678,7 +678,7 @@ def _library_weights_to(
 @functools.lru_cache(maxsize=256)
 def _band_lines_to(J_cap: int, dropped: frozenset[int]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(m, branch, J'') of every line to J'' = J_cap but the `dropped` m (cached, read-only)."""
-    m = np.concatenate([np.arange(-J_cap, 0), np.arange(1, J_cap + 2)])
+    m = band_m(J_cap)
     if dropped:
         m = m[~np.isin(m, list(dropped))]
     branch, J_lower = branch_from_m(m)

@@ -22,9 +22,9 @@ import numpy as np
 
 from processing.fringes import FringeModel, find_fringes
 from processing.noise import NoiseEstimate, clipped_sigma, estimate_noise, lagged_sigma, quantization_step
+from processing.order_stats import median, sorted_distinct
 from processing.results import SaturatedRegion  # reason: "transmittance <= 0", "above usable absorbance", "flat top"
 from processing.spectrum import Spectrum
-from processing.order_stats import median, sorted_distinct
 
 # Absorbance above which a line top is no longer usable for intensities: T < ~3% (common practice).
 DEFAULT_USABLE_ABSORBANCE = 1.5

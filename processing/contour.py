@@ -23,9 +23,9 @@ import numpy as np
 from processing.estimate import Estimate
 from processing.levels import band_origin, rotational_constant
 from processing.line_shape import LineShapeModel
+from processing.order_stats import median
 from processing.physical_constants import C2_CM_K
 from processing.results import BandContour
-from processing.order_stats import median
 
 if TYPE_CHECKING:
     from processing.species import Library

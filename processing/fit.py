@@ -233,10 +233,6 @@ def _line_set_columns(branch: bytes, branch_dtype: str, J_lower: bytes) -> _Band
     return _BandColumns(_x(upper_J(np.frombuffer(branch, dtype=branch_dtype), J)), _x(J))
 
 
-def _band_design(x_up: np.ndarray, x_low: np.ndarray, model: str, h_model: str = "no H") -> tuple[np.ndarray, tuple[str, ...]]:
-    return _BandColumns(x_up, x_low).design(model, h_model)
-
-
 def _threshold(name: str) -> float:
     return SIGNIFICANT_SEXTIC if name.startswith("H") else SIGNIFICANT
 
@@ -498,14 +494,6 @@ def combination_difference_pairs(
     return _pairs(_branch_tables(branch, J_lower, observed, sigma), state)
 
 
-def fit_combination_differences(
-    state: str, v: int, branch: np.ndarray, J_lower: np.ndarray, observed: np.ndarray, sigma: np.ndarray,
-    sigma_known: bool = True,
-) -> CombinationDifferences | None:
-    """B (and D if significant) of the `state` ("lower"/"upper") level; None with < 3 pairs."""
-    return _fit_pairs(state, v, combination_difference_pairs(state, branch, J_lower, observed, sigma), sigma_known)
-
-
 @functools.lru_cache(maxsize=256)
 def _difference_designs(J_bytes: bytes) -> tuple[np.ndarray, np.ndarray]:
     """The combination-difference designs (B) and (B, D) of the pairs' J (given as the bytes
@@ -522,7 +510,8 @@ def _difference_designs(J_bytes: bytes) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _fit_pairs(state: str, v: int, pairs: tuple[np.ndarray, np.ndarray, np.ndarray], sigma_known: bool) -> CombinationDifferences | None:
-    """`fit_combination_differences` of a level's pairs."""
+    """B (and D if significant) of the `state` ("lower"/"upper") level from its combination
+    differences (`combination_difference_pairs`); None with < 3 pairs."""
     J, difference, diff_sigma = pairs
     if J.size < 3:
         return None

@@ -16,6 +16,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+
 from processing.order_stats import median
 
 FRINGE_CONTRAST = 8.0

@@ -264,14 +264,13 @@ def lines_for(
     threshold = min_relative * float(np.max(np.abs(strengths)))
     strong_J = wide.J_lower[np.abs(strengths) >= threshold]
     J_max = max(int(strong_J.max()), 1)
-    # the lines up to J_max are a run of the wider set (P(J_max)..R(J_max)), and every
-    # position and strength is computed line by line: taken from it, not computed again
-    keep = slice(int(np.searchsorted(wide.m, -J_max)), int(np.searchsorted(wide.m, J_max + 1, side="right")))
-    lines = BandLines(wide.v_upper, wide.v_lower, wide.m[keep], wide.branch[keep], wide.J_lower[keep],
-                      wide.J_upper[keep], wide.wavenumber_cm1[keep], wide.lower_energy_cm1[keep])
+    # the lines up to J_max are a run of the wider set, and every position and strength is
+    # computed line by line: taken from it, not computed again
+    span = wide.span_to(J_max)
+    lines = wide.part(span)
     return BandIntensities(
         isotopologue=isotopologue.label,
         temperature_K=float(temperature_K),
         lines=lines,
-        strength_cm_per_molecule=strengths[keep],
+        strength_cm_per_molecule=strengths[span],
     )

@@ -106,6 +106,11 @@ def m_of_line(branch: str, J_lower: int) -> int:
     return int(J_lower) + 1 if branch == R_BRANCH else -int(J_lower)
 
 
+def band_m(J_max: int) -> np.ndarray:
+    """m of every P(1..J_max) and R(0..J_max) line, ascending: -J_max..-1, 1..J_max+1."""
+    return np.concatenate([np.arange(-J_max, 0), np.arange(1, J_max + 2)])
+
+
 def branch_from_m(m: np.ndarray | int) -> tuple[np.ndarray, np.ndarray]:
     """Inverse of `m_from_branch`: (branch array of "P"/"R", J'' array). m must be non-zero."""
     m_values = np.asarray(m, dtype=np.int64)
@@ -135,6 +140,15 @@ class BandLines:
     wavenumber_cm1: np.ndarray
     lower_energy_cm1: np.ndarray  # E(v'', J'') above E(0, 0)
 
+    def span_to(self, J_max: int) -> slice:
+        """Where the lines P(J_max)..R(J_max) lie in this band's arrays (a run of its m order)."""
+        return slice(int(np.searchsorted(self.m, -J_max)), int(np.searchsorted(self.m, J_max + 1, side="right")))
+
+    def part(self, span: slice) -> BandLines:
+        """The lines in `span` of this band's arrays, as views."""
+        return BandLines(self.v_upper, self.v_lower, self.m[span], self.branch[span], self.J_lower[span],
+                         self.J_upper[span], self.wavenumber_cm1[span], self.lower_energy_cm1[span])
+
 
 def band_lines(
     dunham: DunhamCoefficients, v_upper: int, v_lower: int, J_max: int
@@ -145,7 +159,7 @@ def band_lines(
         raise ValueError(f"absorption band needs v' > v'', got {v_upper} <- {v_lower}")
     if J_max < 1:
         raise ValueError("J_max must be at least 1")
-    m = np.concatenate([np.arange(-J_max, 0), np.arange(1, J_max + 2)])
+    m = band_m(J_max)
     branch, J_lower = branch_from_m(m)
     J_up = upper_J(branch, J_lower)
     lower = term_value(dunham, v_lower, J_lower)

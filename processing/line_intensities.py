@@ -23,11 +23,11 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from processing.estimate import Estimate
-from processing.linear_fit import weighted_least_squares
 from processing.index_ranges import expand_ranges
+from processing.line_shape import transmittance_depth
+from processing.linear_fit import weighted_least_squares
 from processing.noise import white_noise
 from processing.order_stats import median
-from processing.line_shape import transmittance_depth
 from processing.physical_constants import C2_CM_K
 from processing.results import AbundanceRatio, HydrogenFraction, RotationalTemperature
 

@@ -21,6 +21,7 @@ SAMPLES = 1 << 12  # window samples over 0..1
 PAD = 1 << 17  # FFT length: s step SAMPLES / PAD = 1/32 in units of 1/L (ILS to ~2e-3 of its peak)
 FULL_S = 1024.0
 NEAR_S = 32.0  # the shipped tables reach this s
+NEAR_COUNT = int(round(NEAR_S * PAD / SAMPLES)) + 1  # their points
 NEAR_FOLDER = Path(__file__).resolve().parent / "data" / "line_shape_near"  # <window>.npy
 
 
@@ -36,10 +37,6 @@ def full_table(window: str) -> tuple[np.ndarray, np.ndarray]:
     return s[keep], spectrum[keep]
 
 
-def _near_count() -> int:
-    return int(round(NEAR_S * PAD / SAMPLES)) + 1
-
-
 @functools.lru_cache(maxsize=16)
 def near_table(window: str) -> tuple[np.ndarray, np.ndarray]:
     """(s, f(s)) for s = 0 .. NEAR_S: the shipped start of the full table, or (no file for the
@@ -48,9 +45,9 @@ def near_table(window: str) -> tuple[np.ndarray, np.ndarray]:
         f = np.load(NEAR_FOLDER / f"{window}.npy", allow_pickle=False)
     except (OSError, ValueError):  # not installed with the package: computed instead
         f = None
-    if f is None or f.shape != (_near_count(),):
+    if f is None or f.shape != (NEAR_COUNT,):
         s, f = full_table(window)
-        return s[: _near_count()], f[: _near_count()]
+        return s[:NEAR_COUNT], f[:NEAR_COUNT]
     return np.arange(f.size) * (SAMPLES / PAD), f
 
 
@@ -64,7 +61,7 @@ def write_near_tables(folder: Path = NEAR_FOLDER) -> None:
     """Write the start of every window's full table (for the package's data folder)."""
     folder.mkdir(exist_ok=True)
     for window in APODIZATIONS:
-        np.save(folder / f"{window}.npy", full_table(window)[1][: _near_count()])
+        np.save(folder / f"{window}.npy", full_table(window)[1][:NEAR_COUNT])
 
 
 if __name__ == "__main__":

@@ -13,6 +13,8 @@ from typing import NamedTuple
 
 import numpy as np
 
+from processing.order_stats import median
+
 # An optional term (centrifugal D, sextic H, gamma_e, beta_e) joins a model when |value| exceeds
 # this many standard errors. The sextic term is strongly correlated with D and B, and line
 # positions carry small J-dependent systematics (profile-model bias, neighbours' wings) that a
@@ -155,12 +157,7 @@ def weighted_least_squares(
         candidates = np.where(used, normalised, -np.inf) if n_rejected else normalised
         worst = int(candidates.argmax())
         largest = candidates[worst]
-        # the median of the used rows, found in place (the candidates were read first)
-        kept = normalised[used] if n_rejected else normalised
-        middle = kept.size // 2
-        kept.partition([middle - 1, middle] if kept.size % 2 == 0 else middle)
-        median = 0.5 * (kept[middle - 1] + kept[middle]) if kept.size % 2 == 0 else kept[middle]
-        limit = 4.0 * max(1.0, 1.4826 * float(median))
+        limit = 4.0 * max(1.0, 1.4826 * median(normalised[used] if n_rejected else normalised))
         if largest <= limit:
             break
         used[worst] = False

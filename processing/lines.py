@@ -34,15 +34,15 @@ from processing.index_ranges import expand_ranges
 from processing.line_shape import (
     LineShapeModel,
     equivalent_width_estimates,
-    transmittance_depth,
     explained_by_ringing,
     infer_line_shape,
     predicted_ringing,
     stated_line_shape,
+    transmittance_depth,
 )
 from processing.noise import NoiseEstimate, white_noise
-from processing.spectrum import Spectrum
 from processing.order_stats import median, percentile
+from processing.spectrum import Spectrum
 
 FOUR_LN2 = 4.0 * np.log(2.0)
 GAUSS_AREA = float(np.sqrt(np.pi / FOUR_LN2))  # area = GAUSS_AREA x height x FWHM
@@ -540,9 +540,8 @@ def _deblend_far_neighbours(
     order = np.argsort(centres)
     sorted_c = centres[order]
     row, j = _neighbour_pairs(sorted_c, order, c - reach, c + reach)
-    take = (j < c.size) & (j != row)
+    take = (j < c.size) & (j != row) & ~lobe[j]
     row, j = row[take], j[take]
-    row, j = row[~lobe[j]], j[~lobe[j]]
     _take_out_gaussians(target, x_win, row, j, h, c, w)
     weight = _core_weights(target, half)
     h, c, w, cov, rms = _fit_gaussians(x_win, target, weight, h, c, w, noise.correlation_matrix(2 * half + 1))
@@ -596,7 +595,7 @@ def _take_out_gaussians(target: np.ndarray, x: np.ndarray, row: np.ndarray, line
     """Subtract, in place and pair by pair in the order given, line `line`'s Gaussian from
     window `row` of `target` (sampled at `x[row]`)."""
     if row.size:
-        np.subtract.at(target, row, h[line, None] * np.exp(-FOUR_LN2 * ((x[row] - c[line, None]) / w[line, None]) ** 2))
+        np.subtract.at(target, row, _gaussian(x[row], h[line], c[line], w[line]))
 
 
 def _collapse_saturated(spectrum: Spectrum, baseline: BaselineResult, peaks: np.ndarray) -> tuple[np.ndarray, list[tuple[float, float, float, float]]]:

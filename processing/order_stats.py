@@ -22,9 +22,7 @@ def median(values: np.ndarray | Sequence[float]) -> float:
     array.partition([half - 1, half, size - 1] if size % 2 == 0 else [half, size - 1])
     if math.isnan(array[-1]):
         return math.nan
-    if size % 2:
-        return float(array[half])
-    return float((array[half - 1] + array[half]) / 2.0)
+    return median_of_sorted(array)  # (the middle values are in place: the same numbers)
 
 
 def percentile(values: np.ndarray | Sequence[float], q: float) -> float:

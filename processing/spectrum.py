@@ -6,11 +6,11 @@ decadic absorbance A = -log10(T). Readers convert at the edge and note what they
 from __future__ import annotations
 
 import functools
-
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
 import numpy as np
+
 from processing.order_stats import median
 
 YKind = Literal["absorbance", "transmittance", "percent_transmittance"]

@@ -26,8 +26,8 @@ from typing import BinaryIO, TextIO
 import numpy as np
 
 from processing.errors import SpectrumFileError
-from processing.spectrum import handed_over, FileMetadata, Spectrum, reverse_in_place, to_absorbance
 from processing.order_stats import median
+from processing.spectrum import FileMetadata, Spectrum, handed_over, reverse_in_place, to_absorbance
 
 FORMAT_NAME = "delimited text"
 EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".dat", ".prn", ".asc")

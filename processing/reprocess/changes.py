@@ -14,9 +14,9 @@ from itertools import groupby
 
 import numpy as np
 
+from processing.order_stats import percentiles
 from processing.provenance import Provenance
 from processing.station import ledger
-from processing.order_stats import percentiles
 
 
 @dataclass(frozen=True)
