@@ -16,7 +16,8 @@ from processing.checks import CheckThresholds
 from processing.errors import SpectrumFileError
 from processing.estimate import Estimate
 from processing.levels import m_of_line
-from processing.readers import DEFAULT_MAX_BYTES, load_bytes, parse_bytes
+from processing.readers import DEFAULT_MAX_BYTES, load_bytes
+from processing.readers.registry import parse_bytes_digest_later
 from processing.regular_files import ReadPolicy
 from processing.results import (
     Assignment,
@@ -294,8 +295,9 @@ def _intensities(intensities: IntensityResult) -> Intensities:
                        intensities.hydrogen_fractions, intensities.notes)
 
 
-def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
-    """The RunResult of an analysis."""
+def result_from_analysis(source: str, analysis: Analysis, sha256: str | None = None) -> RunResult:
+    """The RunResult of an analysis; `sha256` is the file's when its spectrum was read without
+    it (parse_bytes_digest_later), else the spectrum's own."""
     data = analysis.data
     notes = tuple(analysis.assignment.notes)
     if analysis.constants is not None:
@@ -303,7 +305,7 @@ def result_from_analysis(source: str, analysis: Analysis) -> RunResult:
     return RunResult(
         file=source,
         status="processed",
-        sha256=data.meta.sha256,
+        sha256=sha256 if sha256 is not None else data.meta.sha256,
         spectrum=spectrum_summary(data),
         lines=_lines(analysis),
         bands=tuple(_band(fit, analysis.constants) for fit in analysis.assignment.bands),
@@ -330,10 +332,11 @@ def process_file(path: str | Path, settings: ProcessSettings | None = None) -> R
     except SpectrumFileError as error:
         return RunResult(file=source, status="unreadable", error=str(error))
     try:
-        data = parse_bytes(raw, source)
+        data, sha256 = parse_bytes_digest_later(raw, source)
     except SpectrumFileError as error:
         # The bytes were read: their hash lets a ledger recognise the same bad file again.
         digest = hashlib.sha256(raw).hexdigest()
         return RunResult(file=source, status="unreadable", sha256=digest, error=str(error))
     del raw  # a text export is several times the size of its arrays: not kept through the analysis
-    return result_from_analysis(source, analyse(data, settings))
+    analysis = analyse(data, settings)
+    return result_from_analysis(source, analysis, sha256=sha256())

@@ -483,3 +483,27 @@ def test_utf16_exports_are_read_through_the_registry(encoding: str) -> None:
     assert spectrum.wavenumber_cm1.tolist() == [2000.0, 4000.0]
     assert spectrum.original_y_kind == "transmittance"
     assert spectrum.meta.sha256 == hashlib.sha256(data).hexdigest()  # of the file's own bytes
+
+
+@pytest.mark.parametrize("uses_all_cores", [False, True])
+def test_a_whole_run_carries_the_sha256_of_the_file_whichever_core_hashes_it(
+    tmp_path, monkeypatch, uses_all_cores: bool
+) -> None:
+    """process_file hashes a large file alongside the parse (numpy's one-core readers) or after
+    it, alongside the analysis (polars' threaded reader): the run's sha256 is the file's bytes'
+    either way (hashlib, the Python standard library, is the reference)."""
+    import hashlib
+
+    from processing.pipeline import process_file
+    from processing.readers import registry
+
+    monkeypatch.setattr(registry, "HASH_LATER_BYTES", 1000)
+    monkeypatch.setattr(registry, "HASH_ALONGSIDE_BYTES", 1000)
+    monkeypatch.setattr(registry, "delimited_parser_uses_all_cores", lambda: uses_all_cores)
+    x = np.linspace(2600.0, 3100.0, 4000)
+    body = "".join(f"{value:.4f},{0.01 * np.sin(value):.6f}\n" for value in x)
+    path = tmp_path / "run.csv"
+    path.write_text("cm-1,absorbance\n" + body)
+    result = process_file(path)
+    assert result.status == "processed"
+    assert result.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()

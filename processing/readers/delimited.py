@@ -17,6 +17,7 @@ import importlib
 import io
 import re
 import sys
+import time
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -501,23 +502,25 @@ def _fromstring_table(body: bytes, layout: _RowFormat, first_line: int, y_column
 
 
 # polars (the `fast-text` extra) parses a delimited body several times faster than numpy's
-# reader, to the same bits (both round each decimal to the nearest double): it saves 5-7 ms
+# reader, to the same bits (both round each decimal to the nearest double): it saves 4-6 ms
 # per MB of body. But its import takes ~0.11-0.2 s and 32 MB of resident memory, and its frame
 # and the frame's numpy copy hold the body's numbers twice. A whole `bandwatch process` of a
 # 1M-point file must stay under 100 MB (33 MB of 17-digit pairs: 168 MB with polars, 86 MB
-# without), so a process imports it for its first large body only when that body is past
-# POLARS_IMPORT_BYTES (the bytes and the spectrum alone are then over the mark anyway), and
-# for any later body of POLARS_AGAIN_BYTES or more: a process that reads large bodies one
-# after another (a notebook, `bandwatch process` of many files) wins the import back from the
-# second on. Once imported it reads every body (a station worker imports it at start,
-# `worker.warm_up`, unless its memory limit is tight).
+# without), so a process imports it for its first body only when that body is past
+# POLARS_IMPORT_BYTES (the bytes and the spectrum alone are then over the mark anyway). After
+# that it rents before it buys: numpy's reader goes on until this process has spent
+# POLARS_IMPORT_SECONDS in it, about what the import costs, and polars reads every body from
+# then on. A one-shot process reading one file never pays the import; a process that reads
+# file after file (a notebook, `bandwatch process` of a folder, the interface) pays at most
+# twice what the best choice in hindsight would have (the rule for renting before buying).
+# A station worker imports it at start (`worker.warm_up`), unless its memory limit is tight.
 POLARS_IMPORT_BYTES = 64_000_000
-POLARS_AGAIN_BYTES = 32_000_000
+POLARS_IMPORT_SECONDS = 0.15
 _POLARS_SEPARATORS = (",", ";", "\t")
 
 
 _polars_allowed = True
-_large_bodies_read = 0  # bodies of POLARS_AGAIN_BYTES or more met in this process
+_numpy_parse_seconds = 0.0  # time this process has spent in numpy's readers on delimited bodies
 
 
 def forgo_polars() -> None:
@@ -526,17 +529,18 @@ def forgo_polars() -> None:
     _polars_allowed = False
 
 
+def polars_in_use() -> bool:
+    """True when this process reads delimited bodies with polars (imported and allowed)."""
+    return _polars_allowed and "polars" in sys.modules
+
+
 def polars_module(body_bytes: int = POLARS_IMPORT_BYTES) -> ModuleType | None:
-    """polars, when installed, allowed, and worth it for a body of `body_bytes` (see
-    POLARS_IMPORT_BYTES); else None."""
-    global _large_bodies_read
+    """polars, when installed, allowed, and worth it for a body of `body_bytes` in this process
+    (see POLARS_IMPORT_BYTES and POLARS_IMPORT_SECONDS); else None."""
     if not _polars_allowed:
         return None
     module = sys.modules.get("polars")
-    worth_importing = body_bytes >= POLARS_IMPORT_BYTES or (body_bytes >= POLARS_AGAIN_BYTES and _large_bodies_read > 0)
-    if body_bytes >= POLARS_AGAIN_BYTES:
-        _large_bodies_read += 1
-    if module is None and worth_importing:
+    if module is None and (body_bytes >= POLARS_IMPORT_BYTES or _numpy_parse_seconds >= POLARS_IMPORT_SECONDS):
         try:
             import polars as module
         except ImportError:  # not installed (the extra), or unusable on this CPU
@@ -579,14 +583,19 @@ def _fast_table(
     data: bytes, offset: int, end: int, layout: _RowFormat, first_line: int, y_column: int
 ) -> _Table | None:
     """data[offset:end] parsed at C speed, or None when it is not clean (slow pass follows)."""
+    global _numpy_parse_seconds
     table = _polars_table(data, offset, end, layout, first_line, y_column)
     if table is not None:
         return table
-    if _TEXT_READER is not None:
-        table = _loadtxt_table(data, offset, end, layout, first_line, y_column)
-        if table is not None or _TEXT_READER_WORKS:
-            return table
-    return _fromstring_table(data[offset:end], layout, first_line, y_column)
+    started = time.perf_counter()
+    try:
+        if _TEXT_READER is not None:
+            table = _loadtxt_table(data, offset, end, layout, first_line, y_column)
+            if table is not None or _TEXT_READER_WORKS:
+                return table
+        return _fromstring_table(data[offset:end], layout, first_line, y_column)
+    finally:
+        _numpy_parse_seconds += time.perf_counter() - started
 
 
 def _text_reader_works() -> bool:

@@ -35,7 +35,6 @@ from processing.spectrum import LineList, Spectrum
 
 DEFAULT_MAX_BYTES = 256 * 1024 * 1024
 HEAD_BYTES = 4096
-PARALLEL_HASH_BYTES = 1 << 20  # below 1 MB a thread costs more than it saves
 
 
 # Order matters: the most specific identifier first; delimited text is the catch-all.
@@ -143,22 +142,51 @@ def parse_bytes(data: bytes, source: str = "<data>") -> Spectrum | LineList:
     """Parse bytes already in memory; stamps the sha256 (of the bytes as given) and source
     path into the metadata."""
     sha256 = _sha256_alongside(data)
+    result = _parse_unstamped(data, source)
+    return result.with_meta(replace(result.meta, source_path=source, sha256=sha256()))
+
+
+def parse_bytes_digest_later(data: bytes, source: str = "<data>") -> tuple[Spectrum | LineList, Callable[[], str]]:
+    """Parse bytes already in memory, for a caller with more work before it needs their sha256
+    (a whole analysis): the source path is stamped, the sha256 is left out (None) and comes
+    as a function to call later. With polars' reader in this process (the fast-text extra,
+    which keeps both cores busy while it parses) a large body is hashed after the parse,
+    alongside the caller's work; with numpy's readers (one core) alongside the parse, so that
+    the bytes are not held into the analysis (a 1M-point one-shot run's memory). On a
+    problem the bytes cannot be read, SpectrumFileError is raised as by parse_bytes."""
+    if len(data) >= HASH_LATER_BYTES and delimited_parser_uses_all_cores():
+        result = _parse_unstamped(data, source)
+        sha256 = _sha256_alongside(data, HASH_LATER_BYTES)
+    else:
+        sha256 = _sha256_alongside(data)
+        result = _parse_unstamped(data, source)
+    return result.with_meta(replace(result.meta, source_path=source)), sha256
+
+
+def delimited_parser_uses_all_cores() -> bool:
+    """True when delimited bodies in this process go to polars' threaded reader."""
+    from processing.readers import delimited
+
+    return delimited.polars_in_use()
+
+
+def _parse_unstamped(data: bytes, source: str) -> Spectrum | LineList:
     text = as_utf8(data, source)
     reader = choose_reader(text, source)
-    result = _physical_values(_positive_wavenumbers(reader.parse(text, source), source), source)
-    meta = replace(result.meta, source_path=source, sha256=sha256())
-    return result.with_meta(meta)
+    return _physical_values(_positive_wavenumbers(reader.parse(text, source), source), source)
 
 
 # A file this large is hashed on a second thread while it is parsed (hashlib lets go of the
-# interpreter lock while it hashes): 17 ms of a 1M-point CSV's read on a second core.
+# interpreter lock while it hashes): 15 ms of a 1M-point CSV's read on a second core. Hashed
+# alongside an analysis (~30 ms for 64k points), from HASH_LATER_BYTES: 0.8 ms of a 64k CSV.
 HASH_ALONGSIDE_BYTES = 4_000_000
+HASH_LATER_BYTES = 256_000
 
 
-def _sha256_alongside(data: bytes) -> Callable[[], str]:
-    """The sha256 hex digest of `data`, as a function to call when it is needed; a large
-    `data` is hashed meanwhile on a second thread."""
-    if len(data) < HASH_ALONGSIDE_BYTES:
+def _sha256_alongside(data: bytes, threshold: int = HASH_ALONGSIDE_BYTES) -> Callable[[], str]:
+    """The sha256 hex digest of `data`, as a function to call when it is needed; `data` of
+    `threshold` bytes or more is hashed meanwhile on a second thread."""
+    if len(data) < threshold:
         digest = hashlib.sha256(data).hexdigest()
         return lambda: digest
     found: list[str] = []
