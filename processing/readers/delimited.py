@@ -713,10 +713,11 @@ def _check_axis(x: np.ndarray, table: _Table, source: str) -> _Steps:
     ascending = count > 0 and x[1] > x[0]
     for first in range(0, count, AXIS_BLOCK):
         steps = np.diff(x[first : first + AXIS_BLOCK + 1])
-        if not (np.all(steps > 0) if ascending else np.all(steps < 0)):
+        smallest, largest = float(steps.min()), float(steps.max())
+        if not (smallest > 0 if ascending else largest < 0):
             _refuse_axis(x, table, source)
-        size = np.abs(steps, out=steps)
-        low, high = min(low, float(size.min())), max(high, float(size.max()))
+        size_low, size_high = (smallest, largest) if ascending else (-largest, -smallest)
+        low, high = min(low, size_low), max(high, size_high)
     typical = float(abs(x[-1] - x[0])) / count if count else 0.0
     return _Steps(count, float(low), high, typical)
 
