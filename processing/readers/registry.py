@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import hashlib
 import importlib
+import sys
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass, replace
@@ -164,10 +165,10 @@ def parse_bytes_digest_later(data: bytes, source: str = "<data>") -> tuple[Spect
 
 
 def delimited_parser_uses_all_cores() -> bool:
-    """True when delimited bodies in this process go to polars' threaded reader."""
-    from processing.readers import delimited
-
-    return delimited.polars_in_use()
+    """True when delimited bodies in this process go to polars' threaded reader (the
+    delimited reader is not imported for it: a one-shot run of a JCAMP-DX file never needs it)."""
+    delimited = sys.modules.get("processing.readers.delimited")
+    return delimited is not None and delimited.polars_in_use()
 
 
 def _parse_unstamped(data: bytes, source: str) -> Spectrum | LineList:
