@@ -61,7 +61,7 @@ _junk = st.text("0123456789.+-eE", min_size=1, max_size=8)
 
 @settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(st.lists(st.lists(st.one_of(_number, _from_floats, _junk), min_size=1, max_size=6), min_size=1, max_size=8),
-       st.sampled_from([" ", "  ", " , "]))
+       st.sampled_from([" ", "  ", " , ", "\t", " \t "]))
 def test_polars_gives_the_same_doubles_as_numpy_and_float_or_declines(
     polars_in_use: None, lines: list[list[str]], separator: str
 ) -> None:

@@ -141,11 +141,11 @@ def _affn_numbers(text: bytes) -> np.ndarray:
         # One number a row: polars' threaded CSV reader with a space for the row end.
         try:
             column = polars.read_csv(
-                marked, has_header=False, new_columns=["value"], schema_overrides={"value": polars.Float64},
-                eol_char=" ", ignore_errors=True,
+                marked, has_header=False, schema={"value": polars.Float64}, eol_char=" ", quote_char=None,
+                ignore_errors=True,
             ).to_series()
-        except polars.exceptions.PolarsError:
-            column = None
+        except (polars.exceptions.PolarsError, polars.exceptions.PanicException, ValueError, TypeError, OverflowError):
+            column = None  # as in the delimited reader: numpy's parser decides
         if column is not None and not column.null_count():  # else numpy's parser decides
             return column.to_numpy(writable=True)
     return _parse_numbers(marked)
