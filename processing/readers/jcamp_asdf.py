@@ -10,8 +10,8 @@ No per-character or per-line Python loop touches the data:
 - AFFN: a C parser reads the whole section, with a ` nan ` marker in place of each line end so
   the line structure survives: polars' (split on spaces, cast) when the delimited reader in this
   process reads with it and the section is large, else numpy's. Both round every number
-  correctly, so they give the same doubles; polars takes only digits, signs, dots, exponents
-  and separators, and anything it cannot cast goes to numpy's parser as before.
+  correctly, so they give the same doubles (and both read `inf`, `nan`, `infinity`); anything
+  polars cannot read goes to numpy's parser as before.
 Token kinds come from the byte at each token start. DUP expansion, DIF integration and the
 per-line DIF Y-check are then done in token space with one `np.repeat` and one `np.cumsum`.
 
@@ -137,7 +137,7 @@ def _affn_numbers(text: bytes) -> np.ndarray:
     when numpy's parser meets a bad token (the caller then looks further)."""
     marked = text.replace(b"\n", _MARKER)
     polars = _polars_in_use() if len(text) >= POLARS_SECTION_BYTES else None
-    if polars is not None and not text.translate(None, _AFFN_DELETE):
+    if polars is not None:
         # One number a row: polars' threaded CSV reader with a space for the row end.
         try:
             column = polars.read_csv(
@@ -383,10 +383,14 @@ def _is_affn(section: bytes) -> bool:
     """
     if section[:4096].translate(None, _AFFN_DELETE):
         return False
-    if b"E" not in section and b"e" not in section:
+    upper, lower = b"E" in section, b"e" in section
+    if not (upper or lower):
         return True
     raw = np.frombuffer(section, dtype=np.uint8)
-    marks = np.flatnonzero((raw | 0x20) == ord("e"))
+    if upper and lower:
+        marks = np.flatnonzero((raw | 0x20) == ord("e"))
+    else:  # one case only (as a writer prints them): one pass fewer over the section
+        marks = np.flatnonzero(raw == (ord("E") if upper else ord("e")))
     following = raw[np.minimum(marks + 1, raw.size - 1)]
     return bool(np.all((following == ord("+")) | (following == ord("-"))) and marks[-1] + 1 < raw.size)
 
