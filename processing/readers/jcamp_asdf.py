@@ -7,8 +7,11 @@ No per-character or per-line Python loop touches the data:
   by SWAR integer arithmetic (3 multiply-shift-mask rounds). Longer tokens with a decimal point
   (line-start X) use a 3-word variant; anything else (exponents, junk) goes to numpy's C
   parser, which also finds the line of a bad token.
-- AFFN: numpy's C parser reads the whole section, with a ` nan ` marker in place of each line
-  end so the line structure survives.
+- AFFN: a C parser reads the whole section, with a ` nan ` marker in place of each line end so
+  the line structure survives: polars' (split on spaces, cast) when the delimited reader in this
+  process reads with it and the section is large, else numpy's. Both round every number
+  correctly, so they give the same doubles (and both read `inf`, `nan`, `infinity`); anything
+  polars cannot read goes to numpy's parser as before.
 Token kinds come from the byte at each token start. DUP expansion, DIF integration and the
 per-line DIF Y-check are then done in token space with one `np.repeat` and one `np.cumsum`.
 
@@ -21,8 +24,10 @@ In compressed data `E`/`e` are SQZ digits (+5/-5), never an exponent.
 from __future__ import annotations
 
 import re
+import sys
 import warnings
 from dataclasses import dataclass
+from types import ModuleType
 
 import numpy as np
 
@@ -111,6 +116,39 @@ def _parse_numbers(text: bytes) -> np.ndarray:
             return np.fromstring(text, dtype=np.float64, sep=" ")
         except (ValueError, DeprecationWarning) as error:
             raise ValueError(str(error)) from None
+
+
+# Sections from this size on go to polars when it is in use (below it numpy's parser is as fast).
+POLARS_SECTION_BYTES = 1 << 16
+_DELIMITED_READER = "processing.readers.delimited"
+
+
+def _polars_in_use() -> ModuleType | None:
+    """polars, when the delimited reader of this process reads with it (never imported here:
+    see the rent-before-buy rule in processing/readers/delimited.py); else None."""
+    delimited = sys.modules.get(_DELIMITED_READER)
+    if delimited is None or not delimited.polars_in_use():
+        return None
+    return sys.modules["polars"]
+
+
+def _affn_numbers(text: bytes) -> np.ndarray:
+    """AFFN numbers separated by spaces and line ends, a NaN for each line end; ValueError
+    when numpy's parser meets a bad token (the caller then looks further)."""
+    marked = text.replace(b"\n", _MARKER)
+    polars = _polars_in_use() if len(text) >= POLARS_SECTION_BYTES else None
+    if polars is not None:
+        # One number a row: polars' threaded CSV reader with a space for the row end.
+        try:
+            column = polars.read_csv(
+                marked, has_header=False, schema={"value": polars.Float64}, eol_char=" ", quote_char=None,
+                ignore_errors=True,
+            ).to_series()
+        except (polars.exceptions.PolarsError, polars.exceptions.PanicException, ValueError, TypeError, OverflowError):
+            column = None  # as in the delimited reader: numpy's parser decides
+        if column is not None and not column.null_count():  # else numpy's parser decides
+            return column.to_numpy(writable=True)
+    return _parse_numbers(marked)
 
 
 def _first_bad_line(lines: list[bytes], compressed: bool) -> tuple[int, str]:
@@ -345,10 +383,14 @@ def _is_affn(section: bytes) -> bool:
     """
     if section[:4096].translate(None, _AFFN_DELETE):
         return False
-    if b"E" not in section and b"e" not in section:
+    upper, lower = b"E" in section, b"e" in section
+    if not (upper or lower):
         return True
     raw = np.frombuffer(section, dtype=np.uint8)
-    marks = np.flatnonzero((raw | 0x20) == ord("e"))
+    if upper and lower:
+        marks = np.flatnonzero((raw | 0x20) == ord("e"))
+    else:  # one case only (as a writer prints them): one pass fewer over the section
+        marks = np.flatnonzero(raw == (ord("E") if upper else ord("e")))
     following = raw[np.minimum(marks + 1, raw.size - 1)]
     return bool(np.all((following == ord("+")) | (following == ord("-"))) and marks[-1] + 1 < raw.size)
 
@@ -382,10 +424,10 @@ def tokenize(section: bytes) -> Tokens:
     """All numbers of a `(X++(Y..Y))` data section with kinds; KIND_LINE after each line."""
     affn = _is_affn(section)
     if affn:
-        # numpy's C parser over the whole section, a NaN marker in place of each line end
+        # a C parser over the whole section, a NaN marker in place of each line end
         text = section.replace(b",", b" ") if b"," in section else section
         try:
-            values = _parse_numbers(text.replace(b"\n", _MARKER))
+            values = _affn_numbers(text)
         except ValueError:
             # Signs also separate AFFN numbers: `1.5-2.3` is 1.5 and -2.3 (not after an exponent).
             spaced = re.sub(rb"(?<=[0-9.])([+-])", rb" \1", text)
@@ -452,14 +494,27 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
         is_x[0] = True
         is_x[1:] = is_line[:-1]
     is_x &= ~is_line
-    x_at = np.flatnonzero(is_x)
+    # X tokens: the first token and each one after a line marker, with the markers before
+    # them counted on the way (so no search is needed for the line of a line's first Y).
+    line_starts = np.empty(markers.size + 1, dtype=np.int64)
+    line_starts[0] = 0
+    line_starts[1:] = markers + 1
+    is_line_start = line_starts < size
+    is_line_start[is_line_start] = is_x[line_starts[is_line_start]]
+    x_at = line_starts[is_line_start]
+    x_markers = np.flatnonzero(is_line_start)  # markers before each X token
     x_kinds = kinds[x_at]
     wrong_x = np.flatnonzero((x_kinds == KIND_DIF) | (x_kinds == KIND_DUP))
     if wrong_x.size:
         raise DecodeError(line_of(int(x_at[wrong_x[0]])), "line starts with a DIF or DUP character where its X value belongs")
     is_y = ~(is_x | is_line)
-    after_x = x_at[x_at + 1 < size] + 1
-    line_first = after_x[is_y[after_x]]  # first Y token of every line holding Y values
+    followed = x_at + 1 < size
+    after_x = x_at[followed] + 1
+    holds_y = is_y[after_x]
+    line_first = after_x[holds_y]  # first Y token of every line holding Y values
+    line_first_markers = x_markers[followed][holds_y]  # = np.searchsorted(markers, line_first)
+    # tokens before a line's first Y that are not Y: the X tokens up to its own, and markers
+    line_first_not_y = np.flatnonzero(followed)[holds_y] + 1 + line_first_markers
     if line_first.size == 0:
         raise DecodeError(0, "no Y values in the data lines")
     seen = np.zeros(5, dtype=np.int64)
@@ -483,8 +538,8 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
         return DecodedOrdinates(
             y=values[y_at],
             line_x=line_x[kept],
-            line_index=np.searchsorted(y_at, line_first)[kept].astype(np.int64),
-            line_number=np.searchsorted(markers, line_first)[kept].astype(np.int64),
+            line_index=(line_first - line_first_not_y)[kept],  # = np.searchsorted(y_at, line_first)
+            line_number=line_first_markers[kept],
             forms=forms,
             checks=0,
         )
@@ -574,7 +629,7 @@ def decode_xydata(section: bytes, max_points: int) -> DecodedOrdinates:
         y=y,
         line_x=line_x[kept],
         line_index=line_point[kept].astype(np.int64),
-        line_number=np.searchsorted(markers, line_first)[kept].astype(np.int64),
+        line_number=line_first_markers[kept],
         forms=forms,
         checks=int(check_at.size),
     )
