@@ -13,7 +13,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from processing.errors import SpectrumFileError
-from processing.readers import delimited, jcamp, jcamp_asdf
+from processing.readers import delimited, jcamp, jcamp_asdf, text_engine
 from processing.readers.jcamp_write import write_jcamp
 from processing.spectrum import Spectrum
 
@@ -24,13 +24,13 @@ def polars_in_use(monkeypatch):  # type: ignore[no-untyped-def]
     pytest.importorskip("polars")
     monkeypatch.setattr(delimited, "_polars_allowed", True)
     monkeypatch.setattr(jcamp_asdf, "POLARS_SECTION_BYTES", 0)
-    assert jcamp_asdf._polars_in_use() is not None
+    assert text_engine.polars_in_use() is not None
 
 
 @pytest.fixture
 def numpy_only(monkeypatch):  # type: ignore[no-untyped-def]
     monkeypatch.setattr(delimited, "_polars_allowed", False)
-    assert jcamp_asdf._polars_in_use() is None
+    assert text_engine.polars_in_use() is None
 
 
 def _bits(values: np.ndarray) -> list[int]:
@@ -153,7 +153,7 @@ def test_whole_files_read_the_same_with_and_without_polars(monkeypatch, digits: 
     monkeypatch.setattr(delimited, "_polars_allowed", False)
     by_numpy = jcamp.parse(data, "a.jdx")
     monkeypatch.setattr(delimited, "_polars_allowed", True)
-    assert jcamp_asdf._polars_in_use() is not None
+    assert text_engine.polars_in_use() is not None
     by_polars = jcamp.parse(data, "a.jdx")
     assert _bits(by_polars.wavenumber_cm1) == _bits(by_numpy.wavenumber_cm1)
     assert _bits(by_polars.absorbance) == _bits(by_numpy.absorbance)

@@ -24,12 +24,12 @@ In compressed data `E`/`e` are SQZ digits (+5/-5), never an exponent.
 from __future__ import annotations
 
 import re
-import sys
 import warnings
 from dataclasses import dataclass
-from types import ModuleType
 
 import numpy as np
+
+from processing.readers.text_engine import polars_in_use
 
 # Byte classes.
 INVALID, DIGIT, DOT, SQZ, DIF, DUP, SIGN, SEP, NEWLINE = range(9)
@@ -120,23 +120,11 @@ def _parse_numbers(text: bytes) -> np.ndarray:
 
 # Sections from this size on go to polars when it is in use (below it numpy's parser is as fast).
 POLARS_SECTION_BYTES = 1 << 16
-_DELIMITED_READER = "processing.readers.delimited"
-
-
-def _polars_in_use() -> ModuleType | None:
-    """polars, when the delimited reader of this process reads with it (never imported here:
-    see the rent-before-buy rule in processing/readers/delimited.py); else None."""
-    delimited = sys.modules.get(_DELIMITED_READER)
-    if delimited is None or not delimited.polars_in_use():
-        return None
-    return sys.modules["polars"]
-
-
 def _affn_numbers(text: bytes) -> np.ndarray:
     """AFFN numbers separated by spaces and line ends, a NaN for each line end; ValueError
     when numpy's parser meets a bad token (the caller then looks further)."""
     marked = text.replace(b"\n", _MARKER)
-    polars = _polars_in_use() if len(text) >= POLARS_SECTION_BYTES else None
+    polars = polars_in_use() if len(text) >= POLARS_SECTION_BYTES else None
     if polars is not None:
         # One number a row: polars' threaded CSV reader with a space for the row end.
         try:

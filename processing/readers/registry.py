@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import hashlib
 import importlib
-import sys
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass, replace
@@ -31,6 +30,7 @@ from pathlib import Path
 from types import ModuleType
 
 from processing.errors import SpectrumFileError
+from processing.readers.text_engine import polars_in_use
 from processing.regular_files import ReadPolicy, read_regular
 from processing.spectrum import LineList, Spectrum
 
@@ -165,10 +165,8 @@ def parse_bytes_digest_later(data: bytes, source: str = "<data>") -> tuple[Spect
 
 
 def delimited_parser_uses_all_cores() -> bool:
-    """True when delimited bodies in this process go to polars' threaded reader (the
-    delimited reader is not imported for it: a one-shot run of a JCAMP-DX file never needs it)."""
-    delimited = sys.modules.get("processing.readers.delimited")
-    return delimited is not None and delimited.polars_in_use()
+    """True when delimited bodies in this process go to polars' threaded reader."""
+    return polars_in_use() is not None
 
 
 def _parse_unstamped(data: bytes, source: str) -> Spectrum | LineList:
