@@ -9,7 +9,7 @@ outwards from the band-centre gap and a `numpy.polyfit` of position against m (b
 B', B'').  bandwatch's time is `process_file` (file -> the whole result: lines, assignment, band
 fits, molecular constants, intensities, checks).  Both are timed warm in this process, medians
 of N, on the same files: CSV with 4 and 6 decimals (as instrument software exports), CSV with
-17-digit floats, and JCAMP-DX (AFFN, 16-17 digits).  Target: bandwatch's whole result no slower than the
+17-digit floats, and JCAMP-DX (AFFN as bandwatch writes it, 13 significant digits).  Target: bandwatch's whole result no slower than the
 notebook's band fit on every file (ratio <= 1), and file -> whole result under 35 ms at 64k and
 300 ms at 1M points.
 
