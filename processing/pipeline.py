@@ -215,25 +215,28 @@ def _assignment(assigned: LineAssignment) -> Assignment:
 def _lines(analysis: Analysis) -> tuple[Line, ...]:
     lines = analysis.lines
     assignment = analysis.assignment
+    widths = analysis.intensities.equivalent_width_cm1.tolist() if analysis.intensities is not None else None
+    # each column as Python numbers once (the same values as float()/bool() of each element)
+    columns = zip(
+        lines.position_cm1.tolist(), lines.position_sigma_cm1.tolist(), lines.height.tolist(),
+        lines.width_cm1.tolist(), lines.area_cm1.tolist(), lines.snr.tolist(), lines.saturated.tolist(),
+        lines.blended.tolist(), lines.ringing.tolist(), lines.few_points.tolist(),
+    )
     records = []
-    widths = analysis.intensities.equivalent_width_cm1 if analysis.intensities is not None else None
-    for i in range(lines.count):
+    for i, (position, sigma, height, width, area, snr, saturated, blended, ringing, few_points) in enumerate(columns):
         assigned = assignment.per_line[i]
-        width = float(lines.width_cm1[i])
-        area = float(lines.area_cm1[i])
-        snr = float(lines.snr[i])
         records.append(
             Line(
-                position=Estimate(float(lines.position_cm1[i]), float(lines.position_sigma_cm1[i])),
-                height=float(lines.height[i]),
+                position=Estimate(position, sigma),
+                height=height,
                 width=width if width == width else None,
                 area=area if area == area else None,
                 snr=snr if snr != float("inf") else None,
-                saturated=bool(lines.saturated[i]),
-                blended=bool(lines.blended[i]),
-                ringing=bool(lines.ringing[i]),
-                few_points=bool(lines.few_points[i]),
-                equivalent_width=float(widths[i]) if widths is not None and widths[i] == widths[i] else None,
+                saturated=bool(saturated),
+                blended=bool(blended),
+                ringing=bool(ringing),
+                few_points=bool(few_points),
+                equivalent_width=widths[i] if widths is not None and widths[i] == widths[i] else None,
                 assigned=_assignment(assigned) if assigned else None,
                 likely_cause=assignment.likely_cause[i],
             )
