@@ -32,6 +32,7 @@ IN_UNMOUNT = 0x00002000
 IN_Q_OVERFLOW = 0x00004000
 IN_IGNORED = 0x00008000
 IN_ONLYDIR = 0x01000000
+IN_ISDIR = 0x40000000
 IN_NONBLOCK = os.O_NONBLOCK
 IN_CLOEXEC = os.O_CLOEXEC
 
@@ -59,13 +60,16 @@ def parse_events(buffer: bytes) -> list[tuple[int, bytes]]:
 
 class FolderEvents(threading.Thread):
     """Watches `folder` (one level) and calls `notify(path)` for each file or folder an event
-    names, from this thread; `stop()` then `join()`. Raises OSError at construction when the
+    names (`created(path)` instead for a file created, when given), from this thread; `stop()`
+    then `join()`. Raises OSError at construction when the
     kernel refuses (no inotify, the watch limit reached, the folder missing): the caller polls."""
 
-    def __init__(self, folder: str, notify: Callable[[str], None]) -> None:
+    def __init__(self, folder: str, notify: Callable[[str], None],
+                 created: Callable[[str], None] | None = None) -> None:
         super().__init__(name="bandwatch-folder-events", daemon=True)
         self.folder = folder
         self.notify = notify
+        self.created = created or notify  # a file created: its content follows (see _hand_over)
         libc = _libc()
         descriptor = libc.inotify_init1(IN_NONBLOCK | IN_CLOEXEC)
         if descriptor < 0:
@@ -116,7 +120,10 @@ class FolderEvents(threading.Thread):
             if mask & FOLDER_GONE:
                 return False
             if name:
-                self.notify(os.path.join(self.folder, os.fsdecode(name)))
+                path = os.path.join(self.folder, os.fsdecode(name))
+                # a file just created is usually written and closed next (an event of its own):
+                # `created` may note it without waking anyone (a folder is told at once)
+                (self.created if mask & IN_CREATE and not mask & IN_ISDIR else self.notify)(path)
             elif mask & IN_Q_OVERFLOW:
                 self.notify(self.folder)  # events were lost: the station's rescan finds the files
         return True

@@ -165,6 +165,9 @@ class Settler:
         and time stamp); returns those that settled, vanished or gave up."""
         now = self.clock()
         outcomes: list[SettleOutcome] = []
+        due = self.next_due()
+        if due is None or now < due:
+            return outcomes  # none has been still for the settle time (most ticks in a burst)
         for path in list(self.pending):
             state = self.pending[path]
             if now - state.stable_since < self.settle_seconds:

@@ -171,21 +171,23 @@ def start_observer(
     poll: bool,
     notify: Callable[[str], None],
     on_problem: Callable[[str], None] | None = None,
+    created: Callable[[str], None] | None = None,
 ) -> tuple[Watching, str]:
     """Start watching `root`; returns the observer and "native", "polling", or, when the
     subfolders are nested too deeply for watchdog (its walk recurses, a RecursionError past
     ~1000 levels), the same watching the top folder only: the station's rescan, which is
-    iterative, still finds every file below."""
+    iterative, still finds every file below. `created`: told of a file created, instead of
+    `notify`, where the events say so (one folder watched natively)."""
     _quiet_watchdog_recursion()
     try:
-        return _start(root, recursive, poll, notify)
+        return _start(root, recursive, poll, notify, created)
     except RecursionError:
         if on_problem is not None:
             on_problem(
                 f"{root}: subfolders nested too deeply for file events; only the top folder is watched "
                 "by events, files below are found by the periodic rescan"
             )
-        observer, kind = _start(root, False, poll, notify)
+        observer, kind = _start(root, False, poll, notify, created)
         return observer, f"{kind}, top folder only"
 
 
@@ -198,11 +200,12 @@ NATIVE_EVENTS: list[type[FileSystemEvent]] = [
 ]
 
 
-def _start(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None]) -> tuple[Watching, str]:
+def _start(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None],
+           created: Callable[[str], None] | None = None) -> tuple[Watching, str]:
     use_polling = poll or needs_polling(root)
     if not use_polling and not recursive:
         try:
-            events = FolderEvents(str(root), notify)  # one folder: one thread (see folder_events)
+            events = FolderEvents(str(root), notify, created)  # one folder: one thread (see folder_events)
         except OSError:
             pass  # no inotify here, or the watch limit is reached: watchdog tries, then polling
         else:
