@@ -27,9 +27,12 @@ FIGURE_NAME = "figure.svg"  # beside report.txt when `e` writes a run's report (
 
 
 
+_NOT_IN_NAMES = re.compile(r"[^A-Za-z0-9._-]+")
+
+
 def report_folder(data_dir: str | Path, run_id: int, path: str) -> Path:
-    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(path).stem)[:60] or "file"
-    return Path(data_dir) / "reports" / f"{run_id}-{stem}"
+    stem = _NOT_IN_NAMES.sub("_", Path(path).stem)[:60] or "file"
+    return Path(os.path.join(data_dir, "reports", f"{run_id}-{stem}"))
 
 
 REPORT_MODE = 0o666  # before the umask: 0644 under the usual 022, so others in the lab can read the reports

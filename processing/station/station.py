@@ -121,6 +121,7 @@ class Station:
         self._recorder_trouble_since: float | None = None  # the recorder is retrying since
         self._not_recorded: list[str] = []  # given up at stop: redone at the next start
         self._folder_identity: tuple[int, int] | None = None
+        self._lock_path = str(self.data_dir / LOCK_FILE)  # stat'ed before every record
         self._next_folder_check = 0.0
         self.halted: str | None = None  # why the station stopped itself (its data folder went)
         self.consumer_failure: str | None = None  # the first exception an event consumer raised
@@ -327,7 +328,7 @@ class Station:
         if self._folder_identity is None:
             return False
         try:
-            found = os.stat(self.data_dir / LOCK_FILE)
+            found = os.stat(self._lock_path)
         except FileNotFoundError:
             return True
         except OSError:
@@ -458,6 +459,8 @@ class Station:
             self.settler.touch(path, stat)
 
     def _drain_touched(self) -> bool:
+        if self._touched.empty():
+            return False  # most ticks: no exception raised and caught for nothing
         any_touched = False
         while True:
             try:

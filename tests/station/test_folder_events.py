@@ -87,3 +87,21 @@ def test_the_thread_ends_when_its_folder_goes_and_the_station_can_tell(tmp_path:
 def test_a_missing_folder_is_refused_at_once(tmp_path: Path) -> None:
     with pytest.raises(OSError):
         FolderEvents(str(tmp_path / "absent"), lambda path: None)
+
+
+def test_a_file_created_is_told_apart_and_a_folder_is_not(tmp_path: Path) -> None:
+    """The station notes a created file without waking its loop (the close that follows wakes
+    it); a folder appearing, or a file closed, moved in or deleted, goes to `notify`."""
+    told: queue.SimpleQueue[str] = queue.SimpleQueue()
+    created: queue.SimpleQueue[str] = queue.SimpleQueue()
+    events = FolderEvents(str(tmp_path), told.put, created.put)
+    events.start()
+    try:
+        (tmp_path / "scan.csv").write_bytes(b"1,2\n")
+        (tmp_path / "sub").mkdir()
+        assert _paths(created, 1) == [str(tmp_path / "scan.csv")]
+        assert _paths(told, 2) == [str(tmp_path / "scan.csv"), str(tmp_path / "sub")]
+        assert _paths(created, 1, timeout=0.3) == []
+    finally:
+        events.stop()
+        events.join(timeout=5)
