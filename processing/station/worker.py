@@ -135,12 +135,13 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
                 raise TypeError(f"{function_spec} returned {type(result).__name__}, not a RunResult")
             # the station records and reports from the texts and the digest; the result
             # object goes pickled (a bytes blob to the station's receiving thread); a processed
-            # run's result.json and lines.csv are written here, for the station to move in place
-            text, lines_text = to_json(result), lines_csv(result)
-            staged = (stage_reports(staging, job_id, text, lines_text)
+            # run's report files are written here (summary.md under a title to be filled in),
+            # for the station to move in place
+            text, lines_text, body = to_json(result), lines_csv(result), summary_body(result)
+            staged = (stage_reports(staging, job_id, text, lines_text, body, result.file)
                       if staging is not None and result.status == "processed" else None)
             data = (pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL), text, lines_text,
-                    summary_body(result), digest_of(result), staged)
+                    body, digest_of(result), staged)
         except MemoryError:
             outbox.send(("failed", job_id, f"out of memory (worker limit {memory_limit_mb} MB)"))
             return  # a fresh worker replaces this one
