@@ -192,6 +192,11 @@ class WorkerPool:
             self._wake()
 
     @property
+    def queued(self) -> int:
+        """Jobs waiting for a worker (a backlog: more outcomes will follow at once)."""
+        return len(self._queue)
+
+    @property
     def busy(self) -> int:
         """Jobs queued or running."""
         with self._lock:

@@ -62,6 +62,20 @@ FOLDER_CHECK_SECONDS = 1.0  # how often the loop checks that its data folder is 
 CATCH_UP_KEY = "\0catch-up"  # the retry key of the catch-up scan (no file path starts with NUL)
 
 
+BATCH_WAIT_SECONDS = 0.05  # in a backlog, how long an outcome waits for others to share its commit
+BATCH_MOST = 8
+
+
+@dataclass(frozen=True)
+class _Written:
+    """A new run's outcome as recorded (`record` None: kept in the spool), not yet announced:
+    its digest, or why it failed."""
+
+    record: ledger.RunRecord | None
+    digest: RunDigest | None
+    failure: str | None
+
+
 @dataclass(frozen=True)
 class _InFlight:
     path: str
@@ -581,13 +595,67 @@ class Station:
 
     def _run_recorder(self) -> None:
         while True:
-            outcome = self._outcomes.get()
-            if outcome is None:
+            outcomes = self._next_outcomes()
+            if outcomes is None:
                 return
+            if len(outcomes) > 1 and self._record_together(outcomes):
+                continue
+            for outcome in outcomes:
+                try:
+                    self._handle_outcome(outcome)
+                except Exception as error:  # reported; the claim stays and is redone at next start
+                    self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}", paths=(outcome.job.path,)))
+
+    def _next_outcomes(self) -> list[JobOutcome] | None:
+        """The next outcome, and in a backlog (jobs waiting for a worker, so more outcomes are
+        coming at once) those that arrive within BATCH_WAIT_SECONDS, up to BATCH_MOST, to be
+        recorded in one ledger transaction; None when the station stops. Without a backlog an
+        outcome is recorded at once: a lone file's latency is never held."""
+        first = self._outcomes.get()
+        if first is None:
+            return None
+        outcomes = [first]
+        if not self.store.batches or self.pool is None or self.pool.queued == 0:
+            return outcomes
+        deadline = time.monotonic() + BATCH_WAIT_SECONDS
+        while len(outcomes) < BATCH_MOST and self.pool.busy:  # none will follow once the pool is idle
             try:
-                self._handle_outcome(outcome)
-            except Exception as error:  # reported; the claim stays and is redone at next start
-                self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}", paths=(outcome.job.path,)))
+                following = self._outcomes.get(timeout=max(0.0, deadline - time.monotonic()))
+            except queue.Empty:
+                break
+            if following is None:
+                self._outcomes.put(None)  # the stop: after these are recorded
+                break
+            outcomes.append(following)
+        return outcomes
+
+    def _record_together(self, outcomes: list[JobOutcome]) -> bool:
+        """Record new runs' outcomes in one ledger transaction, then report and announce each
+        (RunProcessed only after the commit, as for one). False when that could not be done (a
+        redo among them, the ledger in trouble, any error: rolled back, nothing recorded); the
+        caller then records them one by one, each with its own retries and problem events."""
+        with self._lock:
+            infos = [self._inflight.get(outcome.job.job_id) for outcome in outcomes]
+        if any(info is None or info.reprocess_of is not None for info in infos) or self._data_folder_gone():
+            return False
+        written: list[tuple[JobOutcome, _InFlight, _Written]] = []
+        try:
+            with self.store.batch():
+                for outcome, info in zip(outcomes, infos):
+                    assert info is not None
+                    written.append((outcome, info, self._write_record(outcome, info)))
+        except Exception:  # rolled back: recorded again one by one, where each error is reported
+            self.store.drop_conn()
+            return False
+        self._recorder_trouble_since = None
+        for outcome, info, record in written:
+            try:
+                self._announce_record(outcome, record)
+            except Exception as error:  # recorded; reported, as for one
+                self._emit(StationProblem(f"could not report {outcome.job.path}: {type(error).__name__}: {error}", paths=(outcome.job.path,)))
+            finally:
+                self._finish(outcome, info, recorded=True)
+        return True
 
     def _handle_outcome(self, outcome: JobOutcome) -> None:
         """Record one outcome, trying again with backoff while the ledger is in trouble (locked,
@@ -600,15 +668,19 @@ class Station:
         try:
             recorded = self._until_recorded(outcome, info)
         finally:
-            with self._lock:
-                self._inflight.pop(outcome.job.job_id, None)
-                self._inflight_paths.discard(info.path)
-                if not recorded and info.done is None and info.path not in self._not_recorded:
-                    self._not_recorded.append(info.path)
-            if info.done is not None:
-                info.done.set()  # a redo's caller waits for its record (or the stop)
-            if info.path in self.settler.pending or not self._inflight:
-                self._wakeup.set()  # a change held while in flight may settle now; or all is done
+            self._finish(outcome, info, recorded)
+
+    def _finish(self, outcome: JobOutcome, info: _InFlight, recorded: bool) -> None:
+        """An outcome is done with: no longer in flight; named at the stop when not recorded."""
+        with self._lock:
+            self._inflight.pop(outcome.job.job_id, None)
+            self._inflight_paths.discard(info.path)
+            if not recorded and info.done is None and info.path not in self._not_recorded:
+                self._not_recorded.append(info.path)
+        if info.done is not None:
+            info.done.set()  # a redo's caller waits for its record (or the stop)
+        if info.path in self.settler.pending or not self._inflight:
+            self._wakeup.set()  # a change held while in flight may settle now; or all is done
 
     def _until_recorded(self, outcome: JobOutcome, info: _InFlight) -> bool:
         backoff = Backoff()
@@ -634,6 +706,10 @@ class Station:
         if info.reprocess_of is not None:
             self._record_redo(outcome, info)  # its waiter is released by _handle_outcome
             return
+        self._announce_record(outcome, self._write_record(outcome, info))
+
+    def _write_record(self, outcome: JobOutcome, info: _InFlight) -> _Written:
+        """Record a new run's outcome in the ledger (nothing announced yet)."""
         digest = outcome.digest
         if digest is None and outcome.result is not None:  # a worker function's result without one
             digest = digest_of(outcome.result)
@@ -644,9 +720,7 @@ class Station:
                 received_at=info.received_at, claim_id=info.claim_id,
                 size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
-            if record is not None:
-                self._emit(RunFailed(record.run_id, record.version, record.path, reason))
-            return
+            return _Written(record, None, reason)
         # recorded and reported from the worker's digest and texts: the result object is not rebuilt
         status = digest.status if digest.status in ("processed", "unreadable") else "failed"
         record = self.store.record(
@@ -655,10 +729,19 @@ class Station:
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
+        return _Written(record, digest, None)
+
+    def _announce_record(self, outcome: JobOutcome, written: _Written) -> None:
+        """Report and announce a recorded run (`_write_record`), once it is in the ledger."""
+        record = written.record
+        if written.failure is not None:
+            if record is not None:
+                self._emit(RunFailed(record.run_id, record.version, record.path, written.failure))
+            return
         if record is None:  # kept in the spool: reported from its JSON when it is recorded
             drop_staged(outcome.staged)
             return
-        self._report_and_announce(record, digest, outcome.result_json, outcome.lines_csv, outcome.summary_body,
+        self._report_and_announce(record, written.digest, outcome.result_json, outcome.lines_csv, outcome.summary_body,
                                   outcome.staged)
 
     def _report_and_announce(
