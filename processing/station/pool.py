@@ -42,6 +42,7 @@ class Job:
     path: str
     settings: ProcessSettings
     staging: str | None = None  # where the worker writes a processed run's report files (`reports.stage_reports`)
+    want_result: bool = True  # the result object too (a redo stores it); a new run is recorded from the texts
 
 
 @dataclass(frozen=True)
@@ -51,7 +52,7 @@ class JobOutcome:
     pickled and is rebuilt only when asked for (`result`): recording a run needs the digest."""
 
     job: Job
-    result_pickle: bytes | None  # the RunResult as the worker pickled it
+    result_pickle: bytes | None  # the RunResult as the worker pickled it (when the job wants it)
     reason: str | None  # set when the worker crashed, hung or ran out of memory
     seconds: float
     result_json: str | None = None
@@ -303,7 +304,7 @@ class WorkerPool:
                 if slot.ready and not slot.retiring and slot.job is None and slot.outbox is not None:
                     job = self._queue.popleft()
                     try:
-                        slot.outbox.send((job.job_id, job.path, job.settings, job.staging))
+                        slot.outbox.send((job.job_id, job.path, job.settings, job.staging, job.want_result))
                     except (OSError, ValueError):
                         self._queue.appendleft(job)  # the worker died; its EOF replaces it
                         continue

@@ -427,7 +427,7 @@ class Station:
         while not self._stopping.is_set():
             # wake at the next tick, or sooner when a pending file's settle time ends then (a
             # file is taken when it has settled, not up to a tick later)
-            due = self.settler.next_due()
+            due = self.settler.next_due()  # only later after the touches below: a bound for the tick
             remaining = None if due is None else due - time.monotonic()
             # (a file already due but held or incomplete waits for the next tick, no spinning)
             wait = self.tick_seconds if remaining is None or remaining <= 0 else min(self.tick_seconds, remaining)
@@ -445,7 +445,7 @@ class Station:
                         self._touch(path, stat)
                     next_rescan = time.monotonic() + self.config.rescan_seconds
                 self._retries.run_due(self._ledger_failed)
-                self._settle()
+                self._settle(due)
             except Exception as error:  # one bad tick must not stop the station
                 self._emit(StationProblem(f"station loop: {type(error).__name__}: {error}"))
                 busy = True
@@ -498,12 +498,12 @@ class Station:
         if self.settler.touch(path, stat) and not was_pending:
             self._emit(FileSeen(path))
 
-    def _settle(self) -> None:
+    def _settle(self, due: float | None = None) -> None:
         # a file still in the pool waits: asked of the live set for the few files due (a copy
         # per tick cost more than the rest of the tick in a burst, with ~150 files in flight);
         # one membership test is atomic, and a path added meanwhile is held at the next tick
         inflight = self._inflight_paths
-        outcomes = self.settler.tick(hold=lambda path: path in inflight or path in self._retries)
+        outcomes = self.settler.tick(hold=lambda path: path in inflight or path in self._retries, due=due)
         settled: list[SettledFile] = []
         for outcome in outcomes:
             if isinstance(outcome, VanishedFile):
@@ -559,7 +559,7 @@ class Station:
         assert self.pool is not None
         with self._lock:
             self._job_ids += 1
-            job = Job(self._job_ids, item.path, self.settings, self._staging)
+            job = Job(self._job_ids, item.path, self.settings, self._staging, want_result=False)
             self._inflight[job.job_id] = _InFlight(
                 item.path, sha256, claim.claim_id, claim.received_at, item.size_bytes, item.mtime_ns
             )
