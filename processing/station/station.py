@@ -62,8 +62,8 @@ FOLDER_CHECK_SECONDS = 1.0  # how often the loop checks that its data folder is 
 CATCH_UP_KEY = "\0catch-up"  # the retry key of the catch-up scan (no file path starts with NUL)
 
 
-BATCH_WAIT_SECONDS = 0.05  # in a backlog, how long an outcome waits for others to share its commit
-BATCH_MOST = 8
+BATCH_WAIT_SECONDS = 0.1  # in a backlog, how long an outcome waits for others to share its commit
+BATCH_MOST = 16
 
 
 @dataclass(frozen=True)
@@ -609,18 +609,19 @@ class Station:
     def _next_outcomes(self) -> list[JobOutcome] | None:
         """The next outcome, and in a backlog (jobs waiting for a worker, so more outcomes are
         coming at once) those that arrive within BATCH_WAIT_SECONDS, up to BATCH_MOST, to be
-        recorded in one ledger transaction; None when the station stops. Without a backlog an
-        outcome is recorded at once: a lone file's latency is never held."""
+        recorded in one ledger transaction; None when the station stops. The wait is one sleep
+        (not a wake-up per outcome). Without a backlog an outcome is recorded at once: a lone
+        file's latency is never held."""
         first = self._outcomes.get()
         if first is None:
             return None
         outcomes = [first]
         if not self.store.batches or self.pool is None or self.pool.queued == 0:
             return outcomes
-        deadline = time.monotonic() + BATCH_WAIT_SECONDS
-        while len(outcomes) < BATCH_MOST and self.pool.busy:  # none will follow once the pool is idle
+        self._stopping.wait(BATCH_WAIT_SECONDS)  # at a stop, what has come is recorded at once
+        while len(outcomes) < BATCH_MOST:
             try:
-                following = self._outcomes.get(timeout=max(0.0, deadline - time.monotonic()))
+                following = self._outcomes.get_nowait()
             except queue.Empty:
                 break
             if following is None:
