@@ -5,9 +5,10 @@
     ...
     station.stop()
 
-Threads: the watchdog observer (only forwards paths), the station loop (settling, rescans,
-claims, submitting), the pool supervisor (feeds and watches the workers), the recorder (writes
-outcomes to the ledger and the reports), and with a ledger server the replayer (records what
+Threads: the observer (only forwards paths: `folder_events` for one folder, watchdog for a
+tree or polling), the station loop (settling, rescans, claims, submitting), the pool supervisor
+(feeds and watches the workers), the recorder (writes outcomes to the ledger and the reports;
+in a backlog several in one transaction), and with a ledger server the replayer (records what
 the local spool kept while the server was away). Each opens its own ledger connection; the
 ledger is the data folder's file or a server (`station_ledger`). `on_event` is called from those threads with small `events` dataclasses; without
 it, events go to `Station.events` (a queue) for the caller to drain.
