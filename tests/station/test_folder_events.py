@@ -1,7 +1,6 @@
 """Native events of one folder from inotify on one thread (`folder_events`)."""
 from __future__ import annotations
 
-import os
 import queue
 import struct
 import time

@@ -41,12 +41,16 @@ def test_runs_recorded_in_one_transaction_are_all_in_or_none(tmp_path: Path) -> 
     assert lg.list_claims(other) == []
 
 
-def _station(folders: tuple[Path, Path], events: list[StationEvent], seen: dict[int, bool]) -> Station:
+def _run_station(folders: tuple[Path, Path]) -> tuple[list[StationEvent], dict[int, bool], lg.Connection]:
+    """Run a station on the files already there until it is idle: its events, whether each run
+    was readable by another connection when announced, and a connection to read the ledger."""
     export, data = folders
+    events: list[StationEvent] = []
+    seen: dict[int, bool] = {}
 
     def on_event(event: StationEvent) -> None:
         events.append(event)
-        if isinstance(event, RunProcessed):  # is the run readable by others when it is announced?
+        if isinstance(event, RunProcessed):
             reader = lg.open_ledger(data, read_only=True)
             try:
                 seen[event.run_id] = lg.get_run(reader, event.run_id, with_result=False) is not None
@@ -55,7 +59,13 @@ def _station(folders: tuple[Path, Path], events: list[StationEvent], seen: dict[
 
     config = StationConfig(export_folder=export, data_folder=data, settle_seconds=0.1, workers=1,
                            rescan_seconds=5.0, timeout_seconds=20.0)
-    return Station(config, on_event=on_event)
+    station = Station(config, on_event=on_event)
+    station.start()
+    try:
+        assert station.wait_idle(60)
+    finally:
+        station.stop()
+    return events, seen, lg.open_ledger(data, read_only=True)
 
 
 def _count_batches(monkeypatch: pytest.MonkeyPatch) -> list[int]:
@@ -67,7 +77,7 @@ def _count_batches(monkeypatch: pytest.MonkeyPatch) -> list[int]:
         return original(self)
 
     monkeypatch.setattr(FileLedger, "batch", counted)
-    monkeypatch.setattr(station_module, "BATCH_WAIT_SECONDS", 5.0)  # the backlog surely shares commits
+    monkeypatch.setattr(station_module, "BATCH_WAIT_SECONDS", 1.0)  # the backlog surely shares commits
     return batches
 
 
@@ -76,17 +86,9 @@ def test_a_backlog_shares_commits_and_each_run_is_in_the_ledger_when_announced(f
     export, data = folders
     for index in range(6):  # found at the start: six jobs at once for one worker, a backlog
         write_file(export / f"scan{index}.csv", spectrum_csv(300, centre_cm1=2900.0 + index))
-    events: list[StationEvent] = []
-    seen: dict[int, bool] = {}
-    station = _station(folders, events, seen)
-    station.start()
-    try:
-        assert station.wait_idle(60)
-    finally:
-        station.stop()
+    events, seen, conn = _run_station(folders)
     assert batches, "no outcomes recorded together"
     assert len(seen) == 6 and all(seen.values())
-    conn = lg.open_ledger(data, read_only=True)
     runs = lg.list_runs(conn, with_result=False)
     assert sorted(run.name for run in runs) == [f"scan{index}.csv" for index in range(6)]
     assert {run.status for run in runs} == {"processed"} and lg.list_claims(conn) == []
@@ -108,16 +110,8 @@ def test_an_error_in_a_shared_commit_records_the_others_one_by_one(folders, monk
     names = ["a.csv", "bad.csv", "c.csv", "d.csv"]
     for index, name in enumerate(names):
         write_file(export / name, spectrum_csv(300, centre_cm1=2900.0 + index))
-    events: list[StationEvent] = []
-    seen: dict[int, bool] = {}
-    station = _station(folders, events, seen)
-    station.start()
-    try:
-        assert station.wait_idle(60)
-    finally:
-        station.stop()
+    events, seen, conn = _run_station(folders)
     assert batches
-    conn = lg.open_ledger(data, read_only=True)
     assert sorted(run.name for run in lg.list_runs(conn, with_result=False)) == ["a.csv", "c.csv", "d.csv"]
     assert [Path(claim.path).name for claim in lg.list_claims(conn)] == ["bad.csv"]  # redone at the next start
     problems = [event.message for event in events if isinstance(event, StationProblem)]
