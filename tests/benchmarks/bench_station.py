@@ -6,7 +6,8 @@
    0.5 s included. Targets: median < 1 s, p95 < settle + 100 ms (analysis included); the
    same-run baseline is `process_file` on the same file in this process.
 2. Throughput: a burst of 200 64k-point spectra written at once, 2 workers; files per second
-   from the first write to the last run in the ledger. Baseline: the same files through
+   from the first write to the last run in the ledger (in the burst's backlog the station lets
+   outcomes gather for up to 0.1 s to record them in one ledger transaction: included). Baseline: the same files through
    `process_file` one after another in this process. Target: ratio >= 1.7. With the fast-text
    extra the workers read with polars; the ratio is then also given against a baseline that
    reads with polars too (the same work per file), the one to judge by.
