@@ -21,7 +21,6 @@ from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 from multiprocessing.connection import Connection
-from typing import Any
 
 from processing.pipeline import ProcessSettings
 from processing.results import RunResult
@@ -132,7 +131,7 @@ def _widen_pipe(descriptor: int) -> None:
         pass
 
 
-def _readable(connections: list[Any], timeout: float) -> list[Any]:
+def _readable(connections: list[Connection], timeout: float) -> list[Connection]:
     """The connections with something to read (or closed), waiting at most `timeout` seconds:
     `multiprocessing.connection.wait` in one poll call, without building a selector each time
     (the supervisor waits once or twice per file)."""
@@ -269,7 +268,7 @@ class WorkerPool:
         while not self._stopping.is_set():
             self._respawn_due()
             self._assign()
-            waitables: list[Any] = [self._wake_reader]
+            waitables: list[Connection] = [self._wake_reader]
             waitables += [slot.inbox for slot in self._slots if slot.inbox is not None]
             for ready in _readable(waitables, self._next_timeout()):
                 if ready is self._wake_reader:
