@@ -63,6 +63,7 @@ FOLDER_CHECK_SECONDS = 1.0  # how often the loop checks that its data folder is 
 CATCH_UP_KEY = "\0catch-up"  # the retry key of the catch-up scan (no file path starts with NUL)
 
 
+NOTIFY_SLACK_SECONDS = 0.01  # a file event waits this long at most for a wake-up the loop has anyway
 BATCH_WAIT_SECONDS = 0.1  # in a backlog, how long an outcome waits for others to share its commit
 BATCH_MOST = 16
 
@@ -131,6 +132,7 @@ class Station:
         self.observer_kind = ""
         self._idle_ticks = 0
         self._ticks = 0
+        self._wakes_at = float("inf")  # when the loop's wait ends by itself (inf: it is awake)
         self._started = False
         self._retries = RetryQueue()  # loop-thread ledger work waiting for another try
         self._recorder_trouble_since: float | None = None  # the recorder is retrying since
@@ -405,9 +407,12 @@ class Station:
                 self.consumer_failure = f"{type(error).__name__}: {error} (at {type(event).__name__})"
 
     def _notify(self, path: str) -> None:
-        """From the observer thread: something happened at `path`."""
+        """From the observer thread: something happened at `path`. The loop is woken for it
+        unless it wakes by itself within NOTIFY_SLACK_SECONDS (in a burst a file is due every
+        few ms: its wake-up takes this path too, one wake-up instead of two)."""
         self._touched.put(path)
-        self._wakeup.set()
+        if self._wakes_at - time.monotonic() > NOTIFY_SLACK_SECONDS:
+            self._wakeup.set()
 
     def _note(self, path: str) -> None:
         """From the observer thread: a file was created at `path`. Taken at the next tick (within
@@ -432,8 +437,10 @@ class Station:
             remaining = None if due is None else due - time.monotonic()
             # (a file already due but held or incomplete waits for the next tick, no spinning)
             wait = self.tick_seconds if remaining is None or remaining <= 0 else min(self.tick_seconds, remaining)
+            self._wakes_at = time.monotonic() + wait
             self._wakeup.wait(wait)
             self._wakeup.clear()
+            self._wakes_at = float("inf")  # awake: every event wakes the next wait (none is lost)
             try:
                 if time.monotonic() >= self._next_folder_check:
                     self._next_folder_check = time.monotonic() + FOLDER_CHECK_SECONDS
