@@ -18,6 +18,7 @@ station killed mid-file leaves only a claim, which the next start redoes.
 """
 from __future__ import annotations
 
+import contextlib
 import functools
 import itertools
 import json
@@ -25,7 +26,7 @@ import os
 import sqlite3
 import stat
 import threading
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
@@ -522,17 +523,47 @@ def _statements(script: str) -> Iterable[str]:
 
 class _Transaction:
     """`with _Transaction(conn):` = BEGIN IMMEDIATE ... COMMIT (ROLLBACK on error). On the server
-    BEGIN IMMEDIATE takes the ledger's writer lock: writes are serialised as on the file."""
+    BEGIN IMMEDIATE takes the ledger's writer lock: writes are serialised as on the file. Inside
+    `one_transaction(conn)` it is part of that transaction (committed, or rolled back, with it)."""
 
     def __init__(self, conn: Connection) -> None:
         self.conn = conn
+        self.joined = False
 
     def __enter__(self) -> Connection:
-        self.conn.execute("BEGIN IMMEDIATE")
+        self.joined = id(self.conn) in _ONE_TRANSACTION
+        if not self.joined:
+            self.conn.execute("BEGIN IMMEDIATE")
         return self.conn
 
     def __exit__(self, exc_type: object, exc: object, tb: object) -> None:
-        self.conn.execute("COMMIT" if exc_type is None else "ROLLBACK")
+        if not self.joined:
+            self.conn.execute("COMMIT" if exc_type is None else "ROLLBACK")
+
+
+_ONE_TRANSACTION: set[int] = set()  # id() of the connections inside `one_transaction` (one thread each)
+
+
+@contextlib.contextmanager
+def one_transaction(conn: Connection) -> Iterator[Connection]:
+    """`with one_transaction(conn):` records several runs (`record_run`) in one transaction: all
+    are in the ledger at its COMMIT, none after an error (ROLLBACK). A station recording a burst
+    pays one commit for several runs; it announces each only after the commit."""
+    conn.execute("BEGIN IMMEDIATE")
+    _ONE_TRANSACTION.add(id(conn))
+    try:
+        yield conn
+    except BaseException:
+        _ONE_TRANSACTION.discard(id(conn))
+        conn.execute("ROLLBACK")
+        raise
+    _ONE_TRANSACTION.discard(id(conn))
+    try:
+        conn.execute("COMMIT")
+    except BaseException:
+        if getattr(conn, "in_transaction", False):
+            conn.execute("ROLLBACK")
+        raise
 
 
 def _insert_returning(conn: Connection, sql: str, params: SqlParams, key: str) -> int:

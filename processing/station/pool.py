@@ -11,6 +11,7 @@ from __future__ import annotations
 import functools
 import os
 import pickle
+import select
 import signal
 import subprocess
 import sys
@@ -19,8 +20,7 @@ import time
 from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
-from multiprocessing.connection import Connection, wait
-from typing import Any
+from multiprocessing.connection import Connection
 
 from processing.pipeline import ProcessSettings
 from processing.results import RunResult
@@ -41,6 +41,7 @@ class Job:
     path: str
     settings: ProcessSettings
     staging: str | None = None  # where the worker writes a processed run's report files (`reports.stage_reports`)
+    want_result: bool = True  # the result object too (a redo stores it); a new run is recorded from the texts
 
 
 @dataclass(frozen=True)
@@ -50,7 +51,7 @@ class JobOutcome:
     pickled and is rebuilt only when asked for (`result`): recording a run needs the digest."""
 
     job: Job
-    result_pickle: bytes | None  # the RunResult as the worker pickled it
+    result_pickle: bytes | None  # the RunResult as the worker pickled it (when the job wants it)
     reason: str | None  # set when the worker crashed, hung or ran out of memory
     seconds: float
     result_json: str | None = None
@@ -114,6 +115,35 @@ def _child_environment() -> dict[str, str]:
     return env
 
 
+PIPE_BYTES = 1 << 20  # a worker's answer (~120 kB for a 64k-point file) in one write and one read
+F_SETPIPE_SZ = 1031  # fcntl.h (Linux)
+
+
+def _widen_pipe(descriptor: int) -> None:
+    """Make a pipe hold a whole answer, so the worker writes it at once and the station reads it
+    at once (a 64 kB pipe passes it in turns, a wake-up of each side per turn). Left as it is
+    where the system refuses (a smaller pipe-max-size): only slower."""
+    try:
+        import fcntl
+
+        fcntl.fcntl(descriptor, F_SETPIPE_SZ, PIPE_BYTES)
+    except (ImportError, OSError):
+        pass
+
+
+def _readable(connections: list[Connection], timeout: float) -> list[Connection]:
+    """The connections with something to read (or closed), waiting at most `timeout` seconds:
+    `multiprocessing.connection.wait` in one poll call, without building a selector each time
+    (the supervisor waits once or twice per file)."""
+    poller = select.poll()
+    by_descriptor = {}
+    for connection in connections:
+        descriptor = connection.fileno()
+        by_descriptor[descriptor] = connection
+        poller.register(descriptor, select.POLLIN)
+    return [by_descriptor[descriptor] for descriptor, _ in poller.poll(max(0.0, timeout) * 1000)]
+
+
 class WorkerPool:
     """Runs jobs on `workers` processes; calls `on_outcome(JobOutcome)` from its own thread."""
 
@@ -153,9 +183,18 @@ class WorkerPool:
         self._thread.start()
 
     def submit(self, job: Job) -> None:
+        """Queue a job; the supervisor is woken only when a worker is free to take it (in a
+        burst none is: a worker that finishes takes the next job itself, no wake-up needed)."""
         with self._lock:
             self._queue.append(job)
-        self._wake()
+            free = any(slot.ready and not slot.retiring and slot.job is None for slot in self._slots)
+        if free:
+            self._wake()
+
+    @property
+    def queued(self) -> int:
+        """Jobs waiting for a worker (a backlog: more outcomes will follow at once)."""
+        return len(self._queue)
 
     @property
     def busy(self) -> int:
@@ -210,6 +249,7 @@ class WorkerPool:
         finally:
             os.close(to_worker_read)
             os.close(from_worker_write)
+        _widen_pipe(from_worker_read)
         slot.outbox = Connection(to_worker_write, readable=False)
         slot.inbox = Connection(from_worker_read, writable=False)
         slot.ready = slot.retiring = False
@@ -228,9 +268,9 @@ class WorkerPool:
         while not self._stopping.is_set():
             self._respawn_due()
             self._assign()
-            waitables: list[Any] = [self._wake_reader]
+            waitables: list[Connection] = [self._wake_reader]
             waitables += [slot.inbox for slot in self._slots if slot.inbox is not None]
-            for ready in wait(waitables, timeout=self._next_timeout()):
+            for ready in _readable(waitables, self._next_timeout()):
                 if ready is self._wake_reader:
                     self._drain_wake()
                     continue
@@ -263,7 +303,7 @@ class WorkerPool:
                 if slot.ready and not slot.retiring and slot.job is None and slot.outbox is not None:
                     job = self._queue.popleft()
                     try:
-                        slot.outbox.send((job.job_id, job.path, job.settings, job.staging))
+                        slot.outbox.send((job.job_id, job.path, job.settings, job.staging, job.want_result))
                     except (OSError, ValueError):
                         self._queue.appendleft(job)  # the worker died; its EOF replaces it
                         continue

@@ -27,9 +27,12 @@ FIGURE_NAME = "figure.svg"  # beside report.txt when `e` writes a run's report (
 
 
 
+_NOT_IN_NAMES = re.compile(r"[^A-Za-z0-9._-]+")
+
+
 def report_folder(data_dir: str | Path, run_id: int, path: str) -> Path:
-    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(path).stem)[:60] or "file"
-    return Path(data_dir) / "reports" / f"{run_id}-{stem}"
+    stem = _NOT_IN_NAMES.sub("_", Path(path).stem)[:60] or "file"
+    return Path(os.path.join(data_dir, "reports", f"{run_id}-{stem}"))
 
 
 REPORT_MODE = 0o666  # before the umask: 0644 under the usual 022, so others in the lab can read the reports
@@ -61,34 +64,77 @@ def staging_folder(data_dir: str | Path) -> Path:
     return Path(data_dir) / STAGING_FOLDER
 
 
-def stage_reports(staging: str, job_id: int, result_json: str, lines_csv_text: str) -> str | None:
+def stage_reports(staging: str, job_id: int, result_json: str, lines_csv_text: str,
+                  summary_body_text: str | None = None, file: str = "") -> str | None:
     """Write result.json and lines.csv of a processed run into a new folder under `staging` (a
-    worker, while the station records the run); the folder, or None when it could not be
-    written (the station then writes the reports itself)."""
+    worker, while the station records the run), and with `summary_body_text` summary.md too,
+    under a stand-in title (the run's id is not known yet) that the station writes over when it
+    adopts the folder (`adopt_staged_reports`): writing over a file costs the station a fraction
+    of creating one while the disk is busy with a burst of exports. The folder, or None when it
+    could not be written (the station then writes the reports itself)."""
     folder = os.path.join(staging, f"{job_id}-{os.getpid()}-{secrets.token_hex(4)}")
     try:
         os.mkdir(folder)
-        for name, text in (("result.json", result_json + "\n"), ("lines.csv", lines_csv_text)):
-            handle = os.open(os.path.join(folder, name), os.O_WRONLY | os.O_CREAT | os.O_EXCL, REPORT_MODE)
-            with os.fdopen(handle, "wb") as stream:
-                stream.write(text.encode("utf-8"))
+        _write_new(os.path.join(folder, "result.json"), result_json + "\n")
+        _write_new(os.path.join(folder, "lines.csv"), lines_csv_text)
+        if summary_body_text is not None:
+            _write_new(os.path.join(folder, "summary.md"),
+                       summary_with_title(STAND_IN_RUN_ID, STAND_IN_VERSION, file, summary_body_text))
     except OSError:
         shutil.rmtree(folder, ignore_errors=True)
         return None
     return folder
 
 
+STAND_IN_RUN_ID, STAND_IN_VERSION = 10**12, 10**4  # a staged summary's title: as long as any real one
+
+
+def _write_new(path: str, text: str) -> None:
+    """Create `path` (never an existing file) with REPORT_MODE through the umask and write `text`."""
+    handle = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_CLOEXEC, REPORT_MODE)
+    try:
+        _write_all(handle, text.encode("utf-8"))
+    finally:
+        os.close(handle)
+
+
+def _write_over(path: str, text: str) -> None:
+    """Write `text` over the file at `path` (which must exist), cut to its length."""
+    data = text.encode("utf-8")
+    handle = os.open(path, os.O_WRONLY | os.O_CLOEXEC)
+    try:
+        _write_all(handle, data)
+        os.ftruncate(handle, len(data))
+    finally:
+        os.close(handle)
+
+
+def _write_all(handle: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        view = view[os.write(handle, view):]
+
+
 def adopt_staged_reports(staged: str, data_dir: str | Path, run_id: int, version: int, file: str,
                          summary_body_text: str) -> Path | None:
-    """Move a worker's staged result.json and lines.csv into the run's report folder (one
-    rename: the folder appears with both files whole) and write summary.md beside them; None
-    when the folder is taken already or a write fails (the caller then writes the reports
-    itself and drops `staged`)."""
+    """Give a worker's staged summary.md its title (or write it, when the worker did not) and
+    move the folder into the run's place (one rename: the folder appears with all three files
+    whole); None when the folder is taken already or a write fails (the caller then writes the
+    reports itself and drops `staged`). summary.md is written straight into the staged folder,
+    which nobody reads (no temporary file and rename of its own)."""
     folder = report_folder(data_dir, run_id, file)
+    summary = os.path.join(staged, "summary.md")
+    text = summary_with_title(run_id, version, file, summary_body_text)
     try:
-        folder.parent.mkdir(exist_ok=True)
-        os.rename(staged, folder)
-        _write_atomic(folder / "summary.md", summary_with_title(run_id, version, file, summary_body_text))
+        try:
+            _write_over(summary, text)  # the worker's, under its stand-in title
+        except FileNotFoundError:
+            _write_new(summary, text)
+        try:
+            os.rename(staged, folder)
+        except FileNotFoundError:  # reports/ not made yet (or removed meanwhile)
+            folder.parent.mkdir(exist_ok=True)
+            os.rename(staged, folder)
     except OSError:
         return None
     return folder

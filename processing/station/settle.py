@@ -160,11 +160,17 @@ class Settler:
             return None
         return min(state.stable_since for state in self.pending.values()) + self.settle_seconds
 
-    def tick(self, hold: Callable[[str], bool] = lambda path: False) -> list[SettleOutcome]:
+    def tick(self, hold: Callable[[str], bool] = lambda path: False, due: float | None = None) -> list[SettleOutcome]:
         """Check every pending file that has been still for the settle time (by its last seen size
-        and time stamp); returns those that settled, vanished or gave up."""
+        and time stamp); returns those that settled, vanished or gave up. `due`: `next_due()` as
+        the caller found it since the last tick (touches since can only make it later), so that
+        it is not worked out again."""
         now = self.clock()
         outcomes: list[SettleOutcome] = []
+        if due is None:
+            due = self.next_due()
+        if due is None or now < due:
+            return outcomes  # none has been still for the settle time (most ticks in a burst)
         for path in list(self.pending):
             state = self.pending[path]
             if now - state.stable_since < self.settle_seconds:

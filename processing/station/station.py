@@ -5,9 +5,10 @@
     ...
     station.stop()
 
-Threads: the watchdog observer (only forwards paths), the station loop (settling, rescans,
-claims, submitting), the pool supervisor (feeds and watches the workers), the recorder (writes
-outcomes to the ledger and the reports), and with a ledger server the replayer (records what
+Threads: the observer (only forwards paths: `folder_events` for one folder, watchdog for a
+tree or polling), the station loop (settling, rescans, claims, submitting), the pool supervisor
+(feeds and watches the workers), the recorder (writes outcomes to the ledger and the reports;
+in a backlog several in one transaction), and with a ledger server the replayer (records what
 the local spool kept while the server was away). Each opens its own ledger connection; the
 ledger is the data folder's file or a server (`station_ledger`). `on_event` is called from those threads with small `events` dataclasses; without
 it, events go to `Station.events` (a queue) for the caller to drain.
@@ -60,6 +61,21 @@ from processing.station.watcher import FileFilter, observer_alive, start_observe
 LOCK_FILE = "station.lock"
 FOLDER_CHECK_SECONDS = 1.0  # how often the loop checks that its data folder is still there
 CATCH_UP_KEY = "\0catch-up"  # the retry key of the catch-up scan (no file path starts with NUL)
+
+
+NOTIFY_SLACK_SECONDS = 0.01  # a file event waits this long at most for a wake-up the loop has anyway
+BATCH_WAIT_SECONDS = 0.1  # in a backlog, how long an outcome waits for others to share its commit
+BATCH_MOST = 16
+
+
+@dataclass(frozen=True)
+class _Written:
+    """A new run's outcome as recorded (`record` None: kept in the spool), not yet announced:
+    its digest, or why it failed."""
+
+    record: ledger.RunRecord | None
+    digest: RunDigest | None
+    failure: str | None
 
 
 @dataclass(frozen=True)
@@ -116,11 +132,13 @@ class Station:
         self.observer_kind = ""
         self._idle_ticks = 0
         self._ticks = 0
+        self._wakes_at = float("inf")  # when the loop's wait ends by itself (inf: it is awake)
         self._started = False
         self._retries = RetryQueue()  # loop-thread ledger work waiting for another try
         self._recorder_trouble_since: float | None = None  # the recorder is retrying since
         self._not_recorded: list[str] = []  # given up at stop: redone at the next start
         self._folder_identity: tuple[int, int] | None = None
+        self._lock_path = str(self.data_dir / LOCK_FILE)  # stat'ed before every record
         self._next_folder_check = 0.0
         self.halted: str | None = None  # why the station stopped itself (its data folder went)
         self.consumer_failure: str | None = None  # the first exception an event consumer raised
@@ -155,7 +173,7 @@ class Station:
         self.pool.start()
         self._observer, self.observer_kind = start_observer(
             self.export_dir, self.config.recursive, self.config.poll, self._notify,
-            on_problem=lambda message: self._emit(StationProblem(message)),
+            on_problem=lambda message: self._emit(StationProblem(message)), created=self._note,
         )
         self._emit(StationStarted(str(self.export_dir), str(self.data_dir), self.observer_kind, self.config.workers))
         self._loop = threading.Thread(target=self._run_loop, name="bandwatch-station", daemon=True)
@@ -327,7 +345,7 @@ class Station:
         if self._folder_identity is None:
             return False
         try:
-            found = os.stat(self.data_dir / LOCK_FILE)
+            found = os.stat(self._lock_path)
         except FileNotFoundError:
             return True
         except OSError:
@@ -364,7 +382,7 @@ class Station:
         self._observer.stop()
         self._observer.join(timeout=2)
         self._observer, self.observer_kind = start_observer(
-            self.export_dir, False, self.config.poll, self._notify,
+            self.export_dir, False, self.config.poll, self._notify, created=self._note,
         )
         self.observer_kind += ", top folder only"
 
@@ -389,9 +407,20 @@ class Station:
                 self.consumer_failure = f"{type(error).__name__}: {error} (at {type(event).__name__})"
 
     def _notify(self, path: str) -> None:
-        """From the observer thread: something happened at `path`."""
+        """From the observer thread: something happened at `path`. The loop is woken for it
+        unless it wakes by itself within NOTIFY_SLACK_SECONDS (in a burst a file is due every
+        few ms: its wake-up takes this path too, one wake-up instead of two)."""
         self._touched.put(path)
-        self._wakeup.set()
+        if self._wakes_at - time.monotonic() > NOTIFY_SLACK_SECONDS:
+            self._wakeup.set()
+
+    def _note(self, path: str) -> None:
+        """From the observer thread: a file was created at `path`. Taken at the next tick (within
+        `tick_seconds`) or sooner with the next event, without waking the loop for it: its
+        writer's close follows (and wakes it), and until that the file cannot settle anyway (a
+        later touch only starts its settle wait later, never sooner). In a burst this spares a
+        wake-up of the loop per file."""
+        self._touched.put(path)
 
     # ---------------------------------------------------------------- station loop
 
@@ -404,12 +433,14 @@ class Station:
         while not self._stopping.is_set():
             # wake at the next tick, or sooner when a pending file's settle time ends then (a
             # file is taken when it has settled, not up to a tick later)
-            due = self.settler.next_due()
+            due = self.settler.next_due()  # only later after the touches below: a bound for the tick
             remaining = None if due is None else due - time.monotonic()
             # (a file already due but held or incomplete waits for the next tick, no spinning)
             wait = self.tick_seconds if remaining is None or remaining <= 0 else min(self.tick_seconds, remaining)
+            self._wakes_at = time.monotonic() + wait
             self._wakeup.wait(wait)
             self._wakeup.clear()
+            self._wakes_at = float("inf")  # awake: every event wakes the next wait (none is lost)
             try:
                 if time.monotonic() >= self._next_folder_check:
                     self._next_folder_check = time.monotonic() + FOLDER_CHECK_SECONDS
@@ -422,7 +453,7 @@ class Station:
                         self._touch(path, stat)
                     next_rescan = time.monotonic() + self.config.rescan_seconds
                 self._retries.run_due(self._ledger_failed)
-                self._settle()
+                self._settle(due)
             except Exception as error:  # one bad tick must not stop the station
                 self._emit(StationProblem(f"station loop: {type(error).__name__}: {error}"))
                 busy = True
@@ -450,6 +481,8 @@ class Station:
             self.settler.touch(path, stat)
 
     def _drain_touched(self) -> bool:
+        if self._touched.empty():
+            return False  # most ticks: no exception raised and caught for nothing
         any_touched = False
         while True:
             try:
@@ -473,10 +506,12 @@ class Station:
         if self.settler.touch(path, stat) and not was_pending:
             self._emit(FileSeen(path))
 
-    def _settle(self) -> None:
-        with self._lock:
-            held = set(self._inflight_paths)
-        outcomes = self.settler.tick(hold=lambda path: path in held or path in self._retries)
+    def _settle(self, due: float | None = None) -> None:
+        # a file still in the pool waits: asked of the live set for the few files due (a copy
+        # per tick cost more than the rest of the tick in a burst, with ~150 files in flight);
+        # one membership test is atomic, and a path added meanwhile is held at the next tick
+        inflight = self._inflight_paths
+        outcomes = self.settler.tick(hold=lambda path: path in inflight or path in self._retries, due=due)
         settled: list[SettledFile] = []
         for outcome in outcomes:
             if isinstance(outcome, VanishedFile):
@@ -532,7 +567,7 @@ class Station:
         assert self.pool is not None
         with self._lock:
             self._job_ids += 1
-            job = Job(self._job_ids, item.path, self.settings, self._staging)
+            job = Job(self._job_ids, item.path, self.settings, self._staging, want_result=False)
             self._inflight[job.job_id] = _InFlight(
                 item.path, sha256, claim.claim_id, claim.received_at, item.size_bytes, item.mtime_ns
             )
@@ -568,13 +603,68 @@ class Station:
 
     def _run_recorder(self) -> None:
         while True:
-            outcome = self._outcomes.get()
-            if outcome is None:
+            outcomes = self._next_outcomes()
+            if outcomes is None:
                 return
+            if len(outcomes) > 1 and self._record_together(outcomes):
+                continue
+            for outcome in outcomes:
+                try:
+                    self._handle_outcome(outcome)
+                except Exception as error:  # reported; the claim stays and is redone at next start
+                    self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}", paths=(outcome.job.path,)))
+
+    def _next_outcomes(self) -> list[JobOutcome] | None:
+        """The next outcome, and in a backlog (jobs waiting for a worker, so more outcomes are
+        coming at once) those that arrive within BATCH_WAIT_SECONDS, up to BATCH_MOST, to be
+        recorded in one ledger transaction; None when the station stops. The wait is one sleep
+        (not a wake-up per outcome). Without a backlog an outcome is recorded at once: a lone
+        file's latency is never held."""
+        first = self._outcomes.get()
+        if first is None:
+            return None
+        outcomes = [first]
+        if not self.store.batches or self.pool is None or self.pool.queued == 0:
+            return outcomes
+        self._stopping.wait(BATCH_WAIT_SECONDS)  # at a stop, what has come is recorded at once
+        while len(outcomes) < BATCH_MOST:
             try:
-                self._handle_outcome(outcome)
-            except Exception as error:  # reported; the claim stays and is redone at next start
-                self._emit(StationProblem(f"could not record {outcome.job.path}: {type(error).__name__}: {error}", paths=(outcome.job.path,)))
+                following = self._outcomes.get_nowait()
+            except queue.Empty:
+                break
+            if following is None:
+                self._outcomes.put(None)  # the stop: after these are recorded
+                break
+            outcomes.append(following)
+        return outcomes
+
+    def _record_together(self, outcomes: list[JobOutcome]) -> bool:
+        """Record new runs' outcomes in one ledger transaction, then report and announce each
+        (RunProcessed only after the commit, as for one). False when that could not be done (a
+        redo among them, the ledger in trouble, any error: rolled back, nothing recorded); the
+        caller then records them one by one, each with its own retries and problem events."""
+        with self._lock:
+            infos = [self._inflight.get(outcome.job.job_id) for outcome in outcomes]
+        if any(info is None or info.reprocess_of is not None for info in infos) or self._data_folder_gone():
+            return False
+        written: list[tuple[JobOutcome, _InFlight, _Written]] = []
+        try:
+            with self.store.batch():
+                for outcome, info in zip(outcomes, infos):
+                    assert info is not None
+                    written.append((outcome, info, self._write_record(outcome, info)))
+        except Exception:  # rolled back: recorded again one by one, where each error is reported
+            self.store.drop_conn()
+            return False
+        self._recorder_trouble_since = None
+        for outcome, info, record in written:
+            try:
+                self._announce_record(outcome, record)
+            except Exception as error:  # recorded; reported, as for one
+                self._emit(StationProblem(f"could not report {outcome.job.path}: {type(error).__name__}: {error}", paths=(outcome.job.path,)))
+            finally:
+                self._finish(outcome, info, recorded=True)
+        return True
 
     def _handle_outcome(self, outcome: JobOutcome) -> None:
         """Record one outcome, trying again with backoff while the ledger is in trouble (locked,
@@ -587,14 +677,19 @@ class Station:
         try:
             recorded = self._until_recorded(outcome, info)
         finally:
-            with self._lock:
-                self._inflight.pop(outcome.job.job_id, None)
-                self._inflight_paths.discard(info.path)
-                if not recorded and info.done is None and info.path not in self._not_recorded:
-                    self._not_recorded.append(info.path)
-            if info.done is not None:
-                info.done.set()  # a redo's caller waits for its record (or the stop)
-            self._wakeup.set()
+            self._finish(outcome, info, recorded)
+
+    def _finish(self, outcome: JobOutcome, info: _InFlight, recorded: bool) -> None:
+        """An outcome is done with: no longer in flight; named at the stop when not recorded."""
+        with self._lock:
+            self._inflight.pop(outcome.job.job_id, None)
+            self._inflight_paths.discard(info.path)
+            if not recorded and info.done is None and info.path not in self._not_recorded:
+                self._not_recorded.append(info.path)
+        if info.done is not None:
+            info.done.set()  # a redo's caller waits for its record (or the stop)
+        if info.path in self.settler.pending or not self._inflight:
+            self._wakeup.set()  # a change held while in flight may settle now; or all is done
 
     def _until_recorded(self, outcome: JobOutcome, info: _InFlight) -> bool:
         backoff = Backoff()
@@ -620,6 +715,10 @@ class Station:
         if info.reprocess_of is not None:
             self._record_redo(outcome, info)  # its waiter is released by _handle_outcome
             return
+        self._announce_record(outcome, self._write_record(outcome, info))
+
+    def _write_record(self, outcome: JobOutcome, info: _InFlight) -> _Written:
+        """Record a new run's outcome in the ledger (nothing announced yet)."""
         digest = outcome.digest
         if digest is None and outcome.result is not None:  # a worker function's result without one
             digest = digest_of(outcome.result)
@@ -630,9 +729,7 @@ class Station:
                 received_at=info.received_at, claim_id=info.claim_id,
                 size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
             )
-            if record is not None:
-                self._emit(RunFailed(record.run_id, record.version, record.path, reason))
-            return
+            return _Written(record, None, reason)
         # recorded and reported from the worker's digest and texts: the result object is not rebuilt
         status = digest.status if digest.status in ("processed", "unreadable") else "failed"
         record = self.store.record(
@@ -641,10 +738,19 @@ class Station:
             received_at=info.received_at, claim_id=info.claim_id,
             size_bytes=info.size_bytes, mtime_ns=info.mtime_ns, provenance=self.provenance,
         )
+        return _Written(record, digest, None)
+
+    def _announce_record(self, outcome: JobOutcome, written: _Written) -> None:
+        """Report and announce a recorded run (`_write_record`), once it is in the ledger."""
+        record = written.record
+        if written.failure is not None:
+            if record is not None:
+                self._emit(RunFailed(record.run_id, record.version, record.path, written.failure))
+            return
         if record is None:  # kept in the spool: reported from its JSON when it is recorded
             drop_staged(outcome.staged)
             return
-        self._report_and_announce(record, digest, outcome.result_json, outcome.lines_csv, outcome.summary_body,
+        self._report_and_announce(record, written.digest, outcome.result_json, outcome.lines_csv, outcome.summary_body,
                                   outcome.staged)
 
     def _report_and_announce(

@@ -11,6 +11,7 @@ as soon as the server answers, and announces each run as it is recorded.
 """
 from __future__ import annotations
 
+import contextlib
 import os
 import sqlite3
 import threading
@@ -120,6 +121,12 @@ class FileLedger:
             instrument=self.instrument, **fields,
         )
 
+    batches = True  # several records may share one transaction (`batch`)
+
+    def batch(self) -> contextlib.AbstractContextManager[ledger.Connection]:
+        """`with store.batch():` the records made inside share one transaction (this thread's)."""
+        return ledger.one_transaction(self.conn())
+
     @property
     def waiting(self) -> int:
         """Outcomes kept for later (the file keeps none)."""
@@ -132,6 +139,8 @@ class FileLedger:
 
 class ServerLedger(FileLedger):
     """The ledger on a server, with the local spool for outages (see the module's doc)."""
+
+    batches = False  # each record is kept in the spool on its own when the server is away
 
     def __init__(self, location: str | Path, data_dir: Path, instrument: str, emit: Emit) -> None:
         super().__init__(location, data_dir, instrument, emit)

@@ -1,9 +1,10 @@
 """Which files to take, and the file-system observer that reports them.
 
 The observer only says "something happened to this path"; what to do is decided by
-`settle.Settler` from the file's own size and time stamp. watchdog's native observer is used
-unless the folder is on a network file system (where native events do not arrive) or polling
-is asked for; a periodic rescan (in the station) catches anything events missed.
+`settle.Settler` from the file's own size and time stamp. Native events are used unless the
+folder is on a network file system (where they do not arrive) or polling is asked for: for one
+folder from inotify on one thread (`folder_events`), for a folder tree from watchdog's native
+observer; a periodic rescan (in the station) catches anything events missed.
 """
 from __future__ import annotations
 
@@ -31,12 +32,15 @@ from watchdog.observers import Observer
 from watchdog.observers.api import BaseObserver
 from watchdog.observers.polling import PollingObserver
 
+from processing.station.folder_events import FolderEvents
+
 NETWORK_FS_TYPES = frozenset(
     {"nfs", "nfs4", "cifs", "smb", "smb2", "smb3", "smbfs", "ncpfs", "afs", "9p", "fuse.sshfs",
      "sshfs", "fuse", "fuse.rclone", "fuse.gvfsd-fuse", "davfs", "fuse.davfs2", "glusterfs",
      "ceph", "lustre", "gpfs", "vboxsf", "virtiofs", "drvfs"}
 )
 POLL_INTERVAL_SECONDS = 1.0
+Watching = BaseObserver | FolderEvents  # what start_observer returns: stop(), join(), observer_alive()
 
 
 def _name_pattern(patterns: tuple[str, ...]) -> re.Pattern[str] | None:
@@ -167,21 +171,23 @@ def start_observer(
     poll: bool,
     notify: Callable[[str], None],
     on_problem: Callable[[str], None] | None = None,
-) -> tuple[BaseObserver, str]:
+    created: Callable[[str], None] | None = None,
+) -> tuple[Watching, str]:
     """Start watching `root`; returns the observer and "native", "polling", or, when the
     subfolders are nested too deeply for watchdog (its walk recurses, a RecursionError past
     ~1000 levels), the same watching the top folder only: the station's rescan, which is
-    iterative, still finds every file below."""
+    iterative, still finds every file below. `created`: told of a file created, instead of
+    `notify`, where the events say so (one folder watched natively)."""
     _quiet_watchdog_recursion()
     try:
-        return _start(root, recursive, poll, notify)
+        return _start(root, recursive, poll, notify, created)
     except RecursionError:
         if on_problem is not None:
             on_problem(
                 f"{root}: subfolders nested too deeply for file events; only the top folder is watched "
                 "by events, files below are found by the periodic rescan"
             )
-        observer, kind = _start(root, False, poll, notify)
+        observer, kind = _start(root, False, poll, notify, created)
         return observer, f"{kind}, top folder only"
 
 
@@ -194,8 +200,17 @@ NATIVE_EVENTS: list[type[FileSystemEvent]] = [
 ]
 
 
-def _start(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None]) -> tuple[BaseObserver, str]:
+def _start(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None],
+           created: Callable[[str], None] | None = None) -> tuple[Watching, str]:
     use_polling = poll or needs_polling(root)
+    if not use_polling and not recursive:
+        try:
+            events = FolderEvents(str(root), notify, created)  # one folder: one thread (see folder_events)
+        except OSError:
+            pass  # no inotify here, or the watch limit is reached: watchdog tries, then polling
+        else:
+            events.start()
+            return events, "native"
     observer: BaseObserver = PollingObserver(timeout=POLL_INTERVAL_SECONDS) if use_polling else Observer()
     observer.schedule(_Forwarder(notify), str(root), recursive=recursive,
                       event_filter=None if use_polling else NATIVE_EVENTS)
@@ -212,9 +227,12 @@ def _start(root: Path, recursive: bool, poll: bool, notify: Callable[[str], None
     return observer, "polling" if use_polling else "native"
 
 
-def observer_alive(observer: BaseObserver) -> bool:
+def observer_alive(observer: Watching) -> bool:
     """False when any thread of the observer died (e.g. a RecursionError while adding watches
-    for a deep folder tree moved in): its events stopped; the station then starts another."""
+    for a deep folder tree moved in, or the watched folder went): its events stopped; the
+    station then starts another."""
+    if isinstance(observer, FolderEvents):
+        return observer.is_alive()
     threads = [observer, *observer.emitters]
     reader = getattr(observer, "_inotify_fd", None)  # the native observer's reading thread
     if isinstance(reader, threading.Thread):

@@ -1,10 +1,12 @@
 """One worker process: `python -m processing.station.worker IN_FD OUT_FD FUNCTION MEMORY_MB`.
 
-Receives (job_id, path, ProcessSettings) over IN_FD and answers ("done", job_id, (RunResult,
-its JSON text, its lines.csv text)) or ("failed", job_id, reason) over OUT_FD
-(multiprocessing's length-prefixed pickles). The result is encoded here, once: the station
-stores the JSON in the ledger and writes it as result.json, writes lines.csv as it comes, and
-spends no time of its own on either (it is one process for all workers). Runs under
+Receives (job_id, path, ProcessSettings, staging folder, whether the result object is wanted)
+over IN_FD and answers ("done", job_id, (the pickled RunResult or None, its JSON text, its
+lines.csv text, its summary body, its digest, the staged report folder)) or ("failed", job_id,
+reason) over OUT_FD (multiprocessing's length-prefixed pickles). The result is encoded here,
+once, and a processed run's report files are written here into the station's staging folder:
+the station stores the JSON in the ledger, gives summary.md its title and moves the folder in
+place, and spends no time of its own on the rest (it is one process for all workers). Runs under
 an address-space limit so a memory blow-up is a MemoryError here, not a starved machine. Exits
 when the station closes the pipe or disappears. Standard output is sent to standard error, so
 nothing the analysis prints can corrupt the pipe.
@@ -128,19 +130,20 @@ def serve(inbox: Connection, outbox: Connection, function_spec: str, memory_limi
             return
         if message is None:
             return
-        job_id, path, settings, staging = message
+        job_id, path, settings, staging, want_result = message
         try:
             result = function(path, settings)
             if not isinstance(result, RunResult):
                 raise TypeError(f"{function_spec} returned {type(result).__name__}, not a RunResult")
             # the station records and reports from the texts and the digest; the result
             # object goes pickled (a bytes blob to the station's receiving thread); a processed
-            # run's result.json and lines.csv are written here, for the station to move in place
-            text, lines_text = to_json(result), lines_csv(result)
-            staged = (stage_reports(staging, job_id, text, lines_text)
+            # run's report files are written here (summary.md under a title to be filled in),
+            # for the station to move in place
+            text, lines_text, body = to_json(result), lines_csv(result), summary_body(result)
+            staged = (stage_reports(staging, job_id, text, lines_text, body, result.file)
                       if staging is not None and result.status == "processed" else None)
-            data = (pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL), text, lines_text,
-                    summary_body(result), digest_of(result), staged)
+            data = (pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL) if want_result else None, text, lines_text,
+                    body, digest_of(result), staged)
         except MemoryError:
             outbox.send(("failed", job_id, f"out of memory (worker limit {memory_limit_mb} MB)"))
             return  # a fresh worker replaces this one

@@ -126,6 +126,30 @@ def test_reports_staged_by_a_worker_are_the_reports_the_station_writes(tmp_path:
     assert stage_reports(str(tmp_path / "missing"), 14, texts[0], texts[1]) is None  # cannot write: the station writes
 
 
+def test_a_summary_staged_under_a_stand_in_title_ends_as_the_station_writes_it(tmp_path: Path) -> None:
+    """A worker stages summary.md too, under a stand-in title (the run's id is not known yet);
+    the station writes the real title over it: byte for byte the summary it writes itself, for
+    a title shorter than the stand-in and for one longer (an id of 14 digits)."""
+    from processing.result_text import summary_body
+    from processing.run_digest import digest_of
+    from processing.station.reports import STAND_IN_RUN_ID, adopt_staged_reports, stage_reports, staging_folder
+
+    result = _result()
+    texts = (to_json(result), lines_csv(result), summary_body(result))
+    staging = staging_folder(tmp_path / "b")
+    staging.mkdir(parents=True)
+    for run_id in (7, STAND_IN_RUN_ID * 100 + 7):
+        written = write_reports(tmp_path / "a", run_id, 2, digest_of(result), *texts)
+        staged = stage_reports(str(staging), run_id, texts[0], texts[1], texts[2], result.file)
+        assert staged is not None
+        stand_in = (Path(staged) / "summary.md").read_text()
+        assert stand_in.startswith(f"# Run {STAND_IN_RUN_ID} ") and stand_in.endswith(texts[2])
+        adopted = adopt_staged_reports(staged, tmp_path / "b", run_id, 2, result.file, texts[2])
+        assert adopted is not None
+        for name in ("result.json", "lines.csv", "summary.md"):
+            assert (written / name).read_bytes() == (adopted / name).read_bytes(), (run_id, name)
+
+
 def test_a_station_leaves_no_staged_reports_and_clears_what_a_stopped_one_left(make_station, folders, monkeypatch) -> None:  # type: ignore[no-untyped-def]
     """A processed run's reports come from its worker's staged folder (the station does not
     write them itself); the staging folder ends empty, what a stopped station left included."""
