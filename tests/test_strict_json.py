@@ -86,3 +86,30 @@ def test_a_flat_listing_row_is_written_as_dumps_writes_it() -> None:
         {"run_id": 3, "path": "\udcff", "species": ["}{"], "instrument": ""},
     ]
     assert [sj.dumps_flat(row) for row in rows] == [sj.dumps(row) for row in rows]
+
+
+def _walked(result: dict) -> str:
+    """The run's JSON text by the walk alone (to_plain, then json with allow_nan=False)."""
+    replaced: list[dict[str, str]] = []
+    plain = strict_json.to_plain(result, replaced)
+    if replaced:
+        known = list(plain.get("non_finite") or [])
+        plain["non_finite"] = known + [item for item in replaced if item not in known]
+    return json.dumps(plain, allow_nan=False)
+
+
+def test_a_runs_json_is_the_walks_text_to_the_byte_whichever_way_it_is_encoded(tmp_path: Path) -> None:
+    """dumps_result hands plain finite data straight to json's encoder and walks anything else:
+    the text is the walk's either way, for every sample run and for a run with an infinite
+    signal-to-noise ratio (which must take the walk and list it under non_finite)."""
+    from processing.pipeline import process_file
+
+    folder = Path(__file__).resolve().parent.parent / "sample_runs"
+    samples = sorted(p for p in folder.iterdir() if p.suffix in (".jdx", ".csv", ".dx"))
+    assert len(samples) >= 10
+    for path in samples + [noiseless_csv(tmp_path / "exact.csv")]:
+        result = process_file(path).to_dict()
+        assert strict_json.dumps_result(result) == _walked(result), path.name
+    awkward = {"ints": np.arange(3), "count": np.int64(4), "kinds": {"b", "a"}, "ok": 1.5, "bad": [math.nan]}
+    assert strict_json.dumps_result(awkward) == _walked(awkward)
+    assert strict_loads(strict_json.dumps_result(awkward))["non_finite"] == [{"at": "bad[0]", "was": "nan"}]
