@@ -156,12 +156,16 @@ def parse_bytes_digest_later(data: bytes, source: str = "<data>") -> tuple[Spect
     the bytes are not held into the analysis (a 1M-point one-shot run's memory). On a
     problem the bytes cannot be read, SpectrumFileError is raised as by parse_bytes."""
     if len(data) >= HASH_LATER_BYTES and delimited_parser_uses_all_cores():
-        result = _parse_unstamped(data, source)
-        sha256 = _sha256_alongside(data, HASH_LATER_BYTES)
-    else:
-        sha256 = _sha256_alongside(data)
-        result = _parse_unstamped(data, source)
-    return result.with_meta(replace(result.meta, source_path=source)), sha256
+        result = parse_bytes_unhashed(data, source)
+        return result, _sha256_alongside(data, HASH_LATER_BYTES)
+    sha256 = _sha256_alongside(data)
+    return parse_bytes_unhashed(data, source), sha256
+
+
+def parse_bytes_unhashed(data: bytes, source: str = "<data>") -> Spectrum | LineList:
+    """Parse bytes already in memory: the source path stamped, no sha256 (None)."""
+    result = _parse_unstamped(data, source)
+    return result.with_meta(replace(result.meta, source_path=source))
 
 
 def delimited_parser_uses_all_cores() -> bool:

@@ -47,7 +47,7 @@ from scipy.signal import find_peaks
 
 from processing.pipeline import ProcessSettings, process_file
 from processing.readers import load_bytes
-from processing.readers.registry import parse_bytes_digest_later
+from processing.readers.registry import parse_bytes_unhashed
 from processing.readers import delimited
 from processing.readers.delimited import polars_module
 from processing.readers.delimited import write_csv
@@ -175,8 +175,7 @@ def read_unhashed(path: Path):
     """The file's bytes to the checked spectrum, as process_file reads it: every step of the
     reader, but not the file's sha256 (provenance, which pandas does not compute either;
     process_file hashes on a second thread alongside the analysis when polars reads)."""
-    data, _digest = parse_bytes_digest_later(load_bytes(path), str(path))
-    return data
+    return parse_bytes_unhashed(load_bytes(path), str(path))
 
 
 @contextlib.contextmanager
