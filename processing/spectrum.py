@@ -164,6 +164,27 @@ class Spectrum:
         return cls(x, absorbance, saturated, y_kind, conversion, meta)
 
 
+def checked_spectrum(
+    x: np.ndarray, absorbance: np.ndarray, saturated: np.ndarray, kind: str, conversion: str, meta: FileMetadata
+) -> Spectrum:
+    """A Spectrum from arrays its reader has checked point by point already (finite x and
+    absorbance, x strictly ascending) and handed over: only the checks that cost nothing are
+    made again, not the passes over every point (a 1M-point read checked the same numbers
+    twice). Arrays that are not a reader's own go through the full constructor."""
+    own = all(
+        isinstance(array, np.ndarray) and array.ndim == 1 and not array.flags.writeable and array.shape == x.shape
+        for array in (x, absorbance, saturated)
+    )
+    if not (own and x.dtype == absorbance.dtype == np.float64 and saturated.dtype == bool and x.size >= 2
+            and x[0] < x[-1] and kind in Y_KINDS):
+        return Spectrum(x, absorbance, saturated, kind, conversion, meta)
+    spectrum = object.__new__(Spectrum)
+    for name, value in (("wavenumber_cm1", x), ("absorbance", absorbance), ("saturated", saturated),
+                        ("original_y_kind", kind), ("conversion", conversion), ("meta", meta)):
+        object.__setattr__(spectrum, name, value)
+    return spectrum
+
+
 def handed_over(*arrays: np.ndarray) -> None:
     """Mark arrays a reader owns as read-only, so `Spectrum` takes them without copying."""
     for array in arrays:

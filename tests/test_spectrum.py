@@ -119,3 +119,31 @@ def test_reverse_in_place_reverses_every_length(size: int) -> None:
     expected = mask[::-1].copy()
     reverse_in_place(mask)
     assert np.array_equal(mask, expected)
+
+
+def test_a_readers_checked_arrays_make_the_same_spectrum_and_anything_else_is_checked_in_full() -> None:
+    """checked_spectrum skips the passes over every point only for arrays a reader handed over
+    (read-only, one-dimensional, float64/bool, same length, ascending ends); arrays that are
+    not (a writable array, here with a NaN) go through the full constructor and its refusal."""
+    from processing.spectrum import FileMetadata, checked_spectrum, handed_over
+
+    x = np.linspace(2800.0, 3000.0, 1001)
+    y = 0.1 * np.sin(x)
+    mask = np.zeros(x.size, dtype=bool)
+    handed_over(x, y, mask)
+    quick = checked_spectrum(x, y, mask, "absorbance", "none", FileMetadata())
+    full = Spectrum(x, y, mask, "absorbance", "none", FileMetadata())
+    for name in ("wavenumber_cm1", "absorbance", "saturated"):
+        assert np.array_equal(getattr(quick, name), getattr(full, name))
+    assert (quick.original_y_kind, quick.conversion, quick.meta) == (full.original_y_kind, full.conversion, full.meta)
+    assert quick.spacing_cm1 == full.spacing_cm1 == pytest.approx(0.2, rel=1e-9)
+    assert quick.wavenumber_cm1 is x  # taken as handed over, no copy
+    bad = np.array([2800.0, np.nan, 3000.0])
+    with pytest.raises(ValueError, match="finite"):
+        checked_spectrum(bad, np.zeros(3), np.zeros(3, dtype=bool), "absorbance", "none", FileMetadata())
+    descending = np.array([3000.0, 2900.0, 2800.0])
+    handed_over(descending)
+    zeros, flags = np.zeros(3), np.zeros(3, dtype=bool)
+    handed_over(zeros, flags)
+    with pytest.raises(ValueError, match="ascending"):
+        checked_spectrum(descending, zeros, flags, "absorbance", "none", FileMetadata())

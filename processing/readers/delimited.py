@@ -28,7 +28,7 @@ import numpy as np
 
 from processing.errors import SpectrumFileError
 from processing.order_stats import median
-from processing.spectrum import FileMetadata, Spectrum, handed_over, reverse_in_place, to_absorbance
+from processing.spectrum import FileMetadata, Spectrum, checked_spectrum, handed_over, reverse_in_place, to_absorbance
 
 FORMAT_NAME = "delimited text"
 EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".dat", ".prn", ".asc")
@@ -876,6 +876,9 @@ def _parse(data: bytes, source: str) -> Spectrum:
         notes=tuple(notes),
     )
     handed_over(x_cm1, absorbance, saturated)
+    if x_cm1 is x_file and kind == "absorbance":
+        # every point already checked above: finite x and y, x strictly monotonic (ascending now)
+        return checked_spectrum(x_cm1, absorbance, saturated, kind, conversion, meta)
     try:
         return Spectrum(x_cm1, absorbance, saturated, kind, conversion, meta)
     except ValueError as error:  # e.g. two x values equal after unit conversion
