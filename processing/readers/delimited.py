@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import importlib
 import io
+import math
 import re
 import sys
 import time
@@ -708,14 +709,25 @@ class _Steps:
 
 def _check_axis(x: np.ndarray, table: _Table, source: str) -> _Steps:
     """Strictly monotonic x (already finite); returns the step sizes. Names the offending line."""
+    steps = _axis_steps(x)
+    if steps is None:
+        _refuse_axis(x, table, source)
+    return steps
+
+
+def _axis_steps(x: np.ndarray) -> _Steps | None:
+    """The step sizes of an x column whose steps are all finite and of one sign, x[0] finite
+    (so every x is finite); None otherwise."""
     count = x.size - 1
-    low, high = np.inf, 0.0
+    low, high = math.inf, 0.0
     ascending = count > 0 and x[1] > x[0]
+    if not math.isfinite(x[0]):
+        return None
     for first in range(0, count, AXIS_BLOCK):
         steps = np.diff(x[first : first + AXIS_BLOCK + 1])
         smallest, largest = float(steps.min()), float(steps.max())
-        if not (smallest > 0 if ascending else largest < 0):
-            _refuse_axis(x, table, source)
+        if not ((0 < smallest and largest < math.inf) if ascending else (-math.inf < smallest and largest < 0)):
+            return None
         size_low, size_high = (smallest, largest) if ascending else (-largest, -smallest)
         low, high = min(low, size_low), max(high, size_high)
     typical = float(abs(x[-1] - x[0])) / count if count else 0.0
@@ -769,6 +781,12 @@ def _check_table(table: _Table, y_column: int, source: str) -> _Steps:
         raise SpectrumFileError(
             source, "only one data row: a spectrum needs at least 2 points", table.line_of(0)
         )
+    # one pass over x: steps that are all finite and of one sign from a finite start make every
+    # x finite; any doubt and the checks run in order, each naming its own problem
+    if np.isfinite(np.sum(table.y)):
+        steps = _axis_steps(table.x)
+        if steps is not None:
+            return steps
     _check_finite(table, y_column, source)
     return _check_axis(table.x, table, source)
 
