@@ -41,6 +41,11 @@ def test_line_list_csv_has_one_row_per_line_with_assignment_and_obs_minus_calc()
     assert rows[0]["position_cm1"] == "2906.2466" and rows[0]["sigma_cm1"] == "0.0004"
     assert rows[0]["assignment"] == "H35Cl 1-0 R(0)" and rows[0]["obs_minus_calc_cm1"] == "0.0006"
     assert rows[1]["assignment"] == "" and rows[1]["width_cm1"] == "" and rows[1]["sigma_cm1"] == ""
+    # the writer takes each row's values in order under the header: a row's keys are the columns
+    from processing.result_text import line_row
+
+    assert all(tuple(line_row(line)) == LINE_COLUMNS for line in _result().lines)
+    assert rows[0]["calc_cm1"] == "2906.246" and rows[0]["J_lower"] == "0" and rows[0]["branch"] == "R"
 
 
 def test_summary_names_file_hash_verdict_bands_constants_checks() -> None:
