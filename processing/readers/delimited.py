@@ -13,6 +13,7 @@ Inside bandwatch x is wavenumber in cm-1; micrometre and nanometre columns are c
 """
 from __future__ import annotations
 
+import contextlib
 import importlib
 import io
 import math
@@ -528,6 +529,19 @@ def forgo_polars() -> None:
     """Never use polars in this process (a station worker under a tight memory limit)."""
     global _polars_allowed
     _polars_allowed = False
+
+
+@contextlib.contextmanager
+def numpy_reader_only() -> Iterator[None]:
+    """numpy's reader for the reads inside, in this process (what a one-shot process of one file
+    uses): for benchmarks that time both readers in one run."""
+    global _polars_allowed
+    allowed = _polars_allowed
+    _polars_allowed = False
+    try:
+        yield
+    finally:
+        _polars_allowed = allowed
 
 
 def polars_in_use() -> bool:

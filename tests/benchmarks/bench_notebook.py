@@ -25,7 +25,6 @@ file uses, is timed beside it for reference. And the load average during the run
 from __future__ import annotations
 
 import argparse
-import contextlib
 import hashlib
 import importlib.util
 import os
@@ -49,7 +48,7 @@ from processing.pipeline import ProcessSettings, process_file
 from processing.readers import load_bytes
 from processing.readers.registry import parse_bytes_unhashed
 from processing.readers import delimited
-from processing.readers.delimited import polars_module
+from processing.readers.delimited import numpy_reader_only, polars_module
 from processing.readers.delimited import write_csv
 from processing.readers.jcamp_write import write_jcamp
 
@@ -176,17 +175,6 @@ def read_unhashed(path: Path):
     reader, but not the file's sha256 (provenance, which pandas does not compute either;
     process_file hashes on a second thread alongside the analysis when polars reads)."""
     return parse_bytes_unhashed(load_bytes(path), str(path))
-
-
-@contextlib.contextmanager
-def numpy_reader_only():
-    """numpy's reader for the reads inside (what a one-shot process of one file uses)."""
-    allowed = delimited._polars_allowed
-    delimited._polars_allowed = False
-    try:
-        yield
-    finally:
-        delimited._polars_allowed = allowed
 
 
 if __name__ == "__main__":
