@@ -340,3 +340,18 @@ def test_a_process_imports_polars_once_numpy_has_cost_it_the_import_not_before()
     ):
         done = subprocess.run([sys.executable, "-c", code, bodies, seconds], capture_output=True, text=True, check=True)
         assert done.stdout.strip() == str(expected), (bodies, seconds)
+
+
+def test_numpy_reader_only_holds_polars_back_inside_and_gives_it_back_after() -> None:
+    """The benchmarks time numpy's reader (a one-shot run's) in a process that reads with polars:
+    inside the block no body goes to polars, after it the process's own choice is back."""
+    import pytest
+
+    pytest.importorskip("polars")
+    from processing.readers import delimited
+
+    assert delimited.polars_module(delimited.POLARS_IMPORT_BYTES) is not None  # imports it
+    with delimited.numpy_reader_only():
+        assert delimited.polars_module(delimited.POLARS_IMPORT_BYTES) is None
+        assert not delimited.polars_in_use()
+    assert delimited.polars_in_use()
