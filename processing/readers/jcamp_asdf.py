@@ -120,6 +120,8 @@ def _parse_numbers(text: bytes) -> np.ndarray:
 
 # Sections from this size on go to polars when it is in use (below it numpy's parser is as fast).
 POLARS_SECTION_BYTES = 1 << 16
+
+
 def _affn_numbers(text: bytes) -> np.ndarray:
     """AFFN numbers separated by spaces and line ends, a NaN for each line end; ValueError
     when numpy's parser meets a bad token (the caller then looks further)."""
