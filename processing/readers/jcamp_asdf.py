@@ -8,10 +8,10 @@ No per-character or per-line Python loop touches the data:
   (line-start X) use a 3-word variant; anything else (exponents, junk) goes to numpy's C
   parser, which also finds the line of a bad token.
 - AFFN: a C parser reads the whole section, with a ` nan ` marker in place of each line end so
-  the line structure survives: polars' (split on spaces, cast) when the delimited reader in this
-  process reads with it and the section is large, else numpy's. Both round every number
-  correctly, so they give the same doubles (and both read `inf`, `nan`, `infinity`); anything
-  polars cannot read goes to numpy's parser as before.
+  the line structure survives: polars' CSV reader (one number a row, a space for the row end)
+  when the delimited reader in this process reads with it and the section is large, else
+  numpy's. Both round every number correctly, so they give the same doubles (and both read
+  `inf`, `nan`, `infinity`); anything polars cannot read goes to numpy's parser as before.
 Token kinds come from the byte at each token start. DUP expansion, DIF integration and the
 per-line DIF Y-check are then done in token space with one `np.repeat` and one `np.cumsum`.
 
