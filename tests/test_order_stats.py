@@ -41,6 +41,17 @@ def test_nan_and_integers_and_lists_as_numpy() -> None:
         percentile([], 50.0)
 
 
+@pytest.mark.parametrize("size", [2, 3, 10, 11, 1000, 1001])
+def test_any_nan_makes_the_median_nan_wherever_it_sits(size: int) -> None:
+    # numpy.median: NaN when any value is NaN (one NaN far above the middle after partitioning
+    # must still be seen; the reference is numpy's own median)
+    rng = np.random.default_rng(size)
+    for count in sorted({1, 2, max(1, size // 3), size // 2, size - 1, size}):
+        values = rng.normal(size=size)
+        values[rng.choice(size, count, replace=False)] = np.nan
+        assert math.isnan(median(values)) and math.isnan(float(np.median(values)))
+
+
 def test_values_are_not_reordered_in_place() -> None:
     values = np.array([3.0, 1.0, 2.0, 5.0, 4.0])
     median(values), percentiles(values, (25.0, 75.0))
