@@ -11,7 +11,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from processing.order_stats import median
+from processing.order_stats import median, median_of_sorted
 
 YKind = Literal["absorbance", "transmittance", "percent_transmittance"]
 Y_KINDS: tuple[str, ...] = ("absorbance", "transmittance", "percent_transmittance")
@@ -108,8 +108,15 @@ class Spectrum:
 
     @functools.cached_property
     def spacing_cm1(self) -> float:
-        """Median point spacing in cm-1 (computed once: the axis is read-only)."""
-        return median(np.diff(self.wavenumber_cm1))
+        """Median point spacing in cm-1 (computed once: the axis is read-only).
+
+        The steps are sorted, not partitioned: an axis's steps take a few distinct values (a
+        rounded or computed axis), on which numpy's partition is slow (1M steps: 7.5 ms
+        against 1.8 ms for the sort). The same number as `median`."""
+        steps = np.sort(np.diff(self.wavenumber_cm1))
+        if steps.size == 0 or np.isnan(steps[-1]):
+            return median(steps)
+        return median_of_sorted(steps)
 
     @property
     def first_cm1(self) -> float:

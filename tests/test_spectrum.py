@@ -147,3 +147,18 @@ def test_a_readers_checked_arrays_make_the_same_spectrum_and_anything_else_is_ch
     handed_over(zeros, flags)
     with pytest.raises(ValueError, match="ascending"):
         checked_spectrum(descending, zeros, flags, "absorbance", "none", FileMetadata())
+
+
+@pytest.mark.parametrize("points", [2, 3, 1000, 1001, 65_536])
+def test_spacing_is_numpys_median_of_the_steps_bit_for_bit(points: int) -> None:
+    # The reference is numpy.median of numpy.diff on the same axis: a rounded export's axis
+    # (steps of a few distinct values), a computed one, and an irregular one.
+    rng = np.random.default_rng(points)
+    axes = (
+        np.round(np.linspace(1850.0, 1850.0 + 0.019073 * (points - 1), points), 4),
+        1850.0 + 0.019073486328125 * np.arange(points),
+        np.cumsum(rng.uniform(0.01, 0.03, points)) + 1850.0,
+    )
+    for x in axes:
+        spectrum = Spectrum.from_y(x, np.zeros(points), "absorbance")
+        assert spectrum.spacing_cm1 == float(np.median(np.diff(x)))
