@@ -51,7 +51,7 @@ class LinearFit:
         """Standard errors of the values (read-only; computed once)."""
         sigmas = self.__dict__.get("_sigmas")
         if sigmas is None:
-            sigmas = np.sqrt(np.clip(self.covariance.diagonal(), 0.0, None))
+            sigmas = np.sqrt(np.maximum(self.covariance.diagonal(), 0.0))  # (clip with no upper bound, without its checks)
             sigmas.flags.writeable = False
             self.__dict__["_sigmas"] = sigmas  # a frozen instance's cache, as cached_property does
         return sigmas
