@@ -228,7 +228,8 @@ def test_unstretched_axis_passes_with_small_scale() -> None:
 
 # ------------------------------------------------------------------ expected species
 def test_expected_mixture_passes_and_unexpected_one_warns() -> None:
-    # A DCl sample holding 15 % HCl (how the teaching experiment is done); thin lines.
+    # A DCl sample holding 15 % HCl (exchange with hydrogen on the cell walls leaves some in any
+    # DCl fill: common practice); thin lines.
     gases = [SampleGas("DCl", 8.5e-4), SampleGas("HCl", 1.5e-4)]
     mixed = _analyse(gases, 1850.0, 3150.0, resolution=0.5, total=1.0, seed=2, species=("HCl", "DCl"))
     check = next(c for c in mixed.checks if c.name == "isotopologues")
