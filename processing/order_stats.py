@@ -12,6 +12,11 @@ from collections.abc import Sequence
 import numpy as np
 
 
+# From this many values on, `median` partitions at one place and reads the maxima of the halves
+# (below it, numpy's partition at the three places is quicker than the two extra passes).
+_ONE_PLACE_FROM = 2048
+
+
 def median(values: np.ndarray | Sequence[float]) -> float:
     """`float(np.median(values))` of the flattened values: NaN when any is NaN or there are none."""
     array = np.array(values, dtype=np.float64).ravel()  # a copy: partitioned in place
@@ -19,10 +24,13 @@ def median(values: np.ndarray | Sequence[float]) -> float:
     if size == 0:
         return math.nan
     half = size // 2
+    if size < _ONE_PLACE_FROM:
+        array.partition([half - 1, half, size - 1] if size % 2 == 0 else [half, size - 1])
+        return math.nan if math.isnan(array[-1]) else median_of_sorted(array)  # (the middle values are in place)
     # One partition at the middle; the value below it (even sizes) is the largest of the lower
     # half, and a NaN (numpy sorts NaNs last) shows in the upper half's maximum. The same
-    # numbers as partitioning at all three places, several times faster: numpy's partition
-    # with a list of places costs ~6x one place on 64k values.
+    # numbers as partitioning at all three places, several times faster on many values:
+    # numpy's partition with a list of places costs ~6x one place on 64k values.
     array.partition(half)
     if math.isnan(array[half:].max()):
         return math.nan

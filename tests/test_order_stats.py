@@ -21,7 +21,7 @@ def _same(ours: float, theirs: float) -> bool:
 @pytest.mark.parametrize("seed", range(40))
 def test_median_and_percentiles_equal_numpys_bit_for_bit(seed: int) -> None:
     rng = np.random.default_rng(seed)
-    for size in (1, 2, 3, 4, 5, 8, 9, 31, 64, 1001, 50_000):
+    for size in (1, 2, 3, 4, 5, 8, 9, 31, 64, 1001, 2047, 2048, 2049, 50_000):
         values = rng.normal(size=size) * 10.0 ** rng.uniform(-8, 4)
         if seed % 3 == 0:
             values = np.round(values, 2)  # ties, as rounded exports hold
@@ -41,7 +41,7 @@ def test_nan_and_integers_and_lists_as_numpy() -> None:
         percentile([], 50.0)
 
 
-@pytest.mark.parametrize("size", [2, 3, 10, 11, 1000, 1001])
+@pytest.mark.parametrize("size", [2, 3, 10, 11, 1000, 1001, 4096, 4097])
 def test_any_nan_makes_the_median_nan_wherever_it_sits(size: int) -> None:
     # numpy.median: NaN when any value is NaN (one NaN far above the middle after partitioning
     # must still be seen; the reference is numpy's own median)
