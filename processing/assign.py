@@ -1190,13 +1190,9 @@ def _finish(
     excluded = excluded if excluded is not None else np.zeros(lines.count, dtype=bool)
     groups: dict[tuple[str, int, int], list[int]] = {}
     band_of: dict[tuple[str, int, int], _Band] = {}
-    key_of: dict[int, tuple[str, int, int]] = {}  # by band object
     for line, (band, _m) in assignment.items():
-        key = key_of.get(id(band))
-        if key is None:
-            key = key_of[id(band)] = band.key
-        groups.setdefault(key, []).append(line)
-        band_of[key] = band
+        groups.setdefault(band.key, []).append(line)
+        band_of[band.key] = band
     per_line: list[LineAssignment | None] = [None] * lines.count
     fits: list[BandFit] = []
     for key, members in sorted(groups.items(), key=lambda kv: (kv[0][0], kv[0][1], kv[0][2])):
